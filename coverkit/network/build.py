@@ -1,0 +1,411 @@
+"""Build a :class:`~coverkit.network.model.RoadNetwork` from road data: filter, clip, project, direct, time.
+
+The steps, each vectorised: read (OSM XML, OSM PBF or a centerline layer) -> drivable filter for the profile ->
+projection to a metric CRS -> clip to a boundary plus a buffer -> geodesic lengths -> directed edges from the one-way
+tags -> speeds and travel times from the profile -> keep the largest strongly connected piece.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import shapely
+from pyproj import CRS, Geod
+from scipy.sparse import csr_matrix
+from scipy.sparse.csgraph import connected_components
+
+from coverkit.errors import InputFileError, NetworkError
+from coverkit.network.crs import parse_crs, transform_geometry, transform_xy, utm_crs_for
+from coverkit.network.model import RoadNetwork
+from coverkit.network.profile import Profile, load_profile, parse_maxspeed_array
+from coverkit.network.raw import RawRoads
+from coverkit.progress import Steps
+
+OSM_XML_SUFFIXES = (".osm", ".osm.bz2", ".osm.gz", ".xml", ".xml.bz2")
+OSM_PBF_SUFFIXES = (".pbf",)
+LAYER_SUFFIXES = (".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gml", ".zip")
+
+_FORWARD = frozenset({"yes", "true", "1"})
+_BACKWARD = frozenset({"-1", "reverse"})
+_TWO_WAY = frozenset({"no", "false", "0"})
+_IMPLIED_ONEWAY_CLASSES = frozenset({"motorway"})  # OSM wiki, key:oneway: implied on motorways
+_ROUNDABOUT = frozenset({"roundabout", "circular"})  # OSM wiki, key:junction: implies oneway=yes
+
+
+@dataclass
+class BuildReport:
+    """What a build read, kept and dropped (all counts of ways or undirected segments; km of road)."""
+
+    source: str
+    profile: str
+    crs: str
+    nodes: int = 0
+    edges: int = 0
+    km_by_class: dict[str, float] = field(default_factory=dict)
+    read: dict[str, int] = field(default_factory=dict)
+    outside_boundary: int = 0
+    pieces_dropped: int = 0
+    edges_dropped: int = 0
+    km_dropped: float = 0.0
+    signals: int = 0
+    oneway_segments: int = 0
+
+    def to_dict(self) -> dict:
+        """JSON-serialisable form."""
+        return dict(self.__dict__)
+
+    def summary_text(self) -> str:
+        """A one-screen summary for the CLI."""
+        r = self.read
+        lines = [
+            f"source   {self.source}",
+            f"profile  {self.profile}",
+            f"CRS      {self.crs}",
+            f"network  {self.nodes:,} nodes, {self.edges:,} directed edges, "
+            f"{sum(self.km_by_class.values()):,.1f} km of road, {self.signals:,} signals, "
+            f"{self.oneway_segments:,} one-way segments",
+            "",
+            "road km by class",
+        ]
+        for cls, km in sorted(self.km_by_class.items(), key=lambda kv: -kv[1]):
+            lines.append(f"  {cls:<16}{km:>10,.1f}")
+        lines += ["", "dropped"]
+        if "ways_read" in r:
+            lines.append(f"  ways not roads for this profile   {r.get('ways_not_road', 0):>8,}")
+            lines.append(f"  ways closed by access tags        {r.get('ways_closed_access', 0):>8,}")
+            lines.append(f"  ways unusable (nodes missing)     {r.get('ways_unusable', 0):>8,}")
+        if "features_read" in r:
+            lines.append(f"  features not drivable or empty    {r.get('features_dropped', 0):>8,}")
+            lines.append(f"  near-miss endpoints (check data)  {r.get('near_miss_endpoints', 0):>8,}")
+        lines.append(f"  segments outside boundary+buffer  {self.outside_boundary:>8,}")
+        lines.append(
+            f"  disconnected pieces               {self.pieces_dropped:>8,}"
+            f"  ({self.edges_dropped:,} edges, {self.km_dropped:,.2f} km)"
+        )
+        return "\n".join(lines)
+
+
+def source_kind(path: Path) -> str:
+    """``"osm_xml"``, ``"osm_pbf"`` or ``"layer"`` from the file name."""
+    name = path.name.lower()
+    if name.endswith(OSM_PBF_SUFFIXES):
+        return "osm_pbf"
+    if name.endswith(OSM_XML_SUFFIXES):
+        return "osm_xml"
+    if name.endswith(LAYER_SUFFIXES):
+        return "layer"
+    raise InputFileError(
+        f"{path}: unknown road data type; give an OSM file (.osm, .osm.bz2, .osm.pbf) or a centerline layer "
+        "(.gpkg, .shp, .geojson) with --fields."
+    )
+
+
+def file_digest(path: Path) -> str:
+    """SHA-256 of a file (for caching builds on unchanged inputs)."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def read_roads(path: str | Path, profile: Profile, fields: dict[str, str] | None = None, **layer_options) -> RawRoads:
+    """Read road data of any supported kind into :class:`RawRoads` (drivable filter applied)."""
+    path = Path(path)
+    if not path.exists():
+        raise InputFileError(f"road data {path} not found; check the path.")
+    if path.is_file() and path.stat().st_size == 0:
+        raise InputFileError(f"{path} is empty; give a non-empty OSM file or centerline layer.")
+    kind = source_kind(path)
+    if kind == "layer":
+        from coverkit.network.centerlines import read_centerlines
+
+        if not fields:
+            raise InputFileError(
+                f"{path}: a centerline layer needs --fields, e.g. class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY."
+            )
+        return read_centerlines(path, fields, profile, **layer_options)
+    from coverkit.network.osm_ways import ways_to_roads
+
+    if kind == "osm_pbf":
+        from coverkit.network.osm_pbf import read_osm_pbf
+
+        ways = read_osm_pbf(path)
+    else:
+        from coverkit.network.osm_xml import read_osm_xml
+
+        ways = read_osm_xml(path)
+    return ways_to_roads(ways, profile, str(path))
+
+
+def read_boundary(path: str | Path) -> gpd.GeoSeries:
+    """Read a boundary polygon layer (any vector format; a file without CRS is taken as EPSG:4326)."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputFileError(f"boundary file {path} not found; check --boundary.")
+    try:
+        gdf = pyogrio.read_dataframe(path)
+    except Exception as exc:
+        raise InputFileError(f"{path}: not a readable vector layer ({str(exc)[:80]}).") from None
+    polys = gdf[gdf.geometry.notna() & gdf.geometry.geom_type.isin(["Polygon", "MultiPolygon"])]
+    if polys.empty:
+        raise InputFileError(f"{path}: has no polygon; the boundary must be a polygon layer.")
+    if polys.crs is None:
+        polys = polys.set_crs(4326)
+    return polys.geometry
+
+
+def build_network(
+    source: str | Path,
+    profile: str | Path | Profile = "emergency",
+    boundary: str | Path | None = None,
+    buffer_m: float = 3000.0,
+    crs: str | CRS | None = None,
+    fields: dict[str, str] | None = None,
+    **layer_options,
+) -> tuple[RoadNetwork, BuildReport]:
+    """Build a directed road network from local road data.
+
+    Parameters
+    ----------
+    source
+        OSM XML (``.osm``, ``.osm.bz2``), OSM PBF (``.osm.pbf``) or a centerline layer (needs ``fields``).
+    profile
+        Shipped profile name, profile TOML path, or a :class:`Profile`.
+    boundary
+        Optional polygon layer; segments intersecting the boundary grown by ``buffer_m`` are kept.
+    buffer_m
+        Buffer around the boundary (m), so that bases near the edge may use roads just outside it.
+    crs
+        Metric CRS for the network; default the UTM zone of the data's centre.
+    fields
+        Centerline field mapping (see :func:`coverkit.network.centerlines.read_centerlines`).
+
+    Returns
+    -------
+    network, report
+    """
+    steps = Steps(6, "network")
+    prof = profile if isinstance(profile, Profile) else load_profile(profile)
+    source = Path(source)
+    steps.step(f"reading {source.name}")
+    raw = read_roads(source, prof, fields, **layer_options)
+    if len(raw.segments) == 0:
+        raise NetworkError(
+            f"{source}: no drivable road for profile '{prof.name}' (classes: {', '.join(prof.road_classes)}); "
+            "check the file covers a road area, or use a profile that includes its road classes."
+        )
+    steps.step("projecting")
+    lonlat = transform_geometry(raw.geometry, raw.crs, CRS.from_epsg(4326))
+    if crs is None:
+        bounds = shapely.total_bounds(lonlat)
+        target = utm_crs_for((bounds[0] + bounds[2]) / 2, (bounds[1] + bounds[3]) / 2)
+    else:
+        target = parse_crs(crs)
+    geometry = transform_geometry(raw.geometry, raw.crs, target)
+    segments = raw.segments
+    outside = 0
+    if boundary is not None:
+        steps.step(f"clipping to {Path(boundary).name} + {buffer_m:g} m")
+        area = read_boundary(boundary).to_crs(target).union_all().buffer(buffer_m)
+        shapely.prepare(area)
+        inside = shapely.intersects(area, geometry)
+        if not inside.any():
+            raise NetworkError(
+                f"boundary {boundary} does not overlap the road data in {source}; check both cover the same area "
+                "(and the boundary's CRS)."
+            )
+        outside = int((~inside).sum())
+        segments, geometry, lonlat = (
+            segments[inside].reset_index(drop=True),
+            geometry[inside],
+            lonlat[inside],
+        )
+    else:
+        steps.step("no boundary given: keeping all roads")
+    steps.step("directing edges and timing them")
+    length_m = geodesic_length_m(lonlat)
+    network_edges, nodes = _directed_edges(segments, geometry, length_m, raw.nodes, prof)
+    steps.step("keeping the largest strongly connected piece")
+    network_edges, nodes, dropped = _largest_strong_piece(network_edges, nodes)
+    if len(network_edges) == 0:
+        raise NetworkError(f"{source}: the drivable roads form no connected network; check the data.")
+    report = BuildReport(
+        source=str(source),
+        profile=prof.name,
+        crs=f"{target.name} ({target.to_string()})",
+        nodes=len(nodes),
+        edges=len(network_edges),
+        km_by_class=_km_by_class(network_edges),
+        read=dict(raw.stats),
+        outside_boundary=outside,
+        pieces_dropped=dropped["pieces"],
+        edges_dropped=dropped["edges"],
+        km_dropped=dropped["km"],
+        signals=int(nodes["signal"].sum()),
+        oneway_segments=int((network_edges["oneway"] & ~network_edges["against_oneway"]).sum()),
+    )
+    steps.step("done")
+    nodes_gdf = gpd.GeoDataFrame(nodes, geometry=shapely.points(nodes[["x", "y"]].to_numpy()), crs=target)
+    edges_gdf = gpd.GeoDataFrame(
+        network_edges.drop(columns=["geometry", "seg"]),
+        geometry=network_edges["geometry"].to_numpy(),
+        crs=target,
+    )
+    info = {
+        "source": str(source),
+        "source_sha256": file_digest(source) if source.is_file() else "",
+        **report.to_dict(),
+    }
+    return RoadNetwork(nodes_gdf, edges_gdf, target, prof, info), report
+
+
+def geodesic_length_m(lonlat_lines: np.ndarray) -> np.ndarray:
+    """WGS84 geodesic length of each line (m), summed over its vertex pairs (pyproj ``Geod.inv``)."""
+    coords, index = shapely.get_coordinates(lonlat_lines, return_index=True)
+    if len(coords) < 2:
+        return np.zeros(len(lonlat_lines))
+    geod = Geod(ellps="WGS84")
+    _, _, dist = geod.inv(coords[:-1, 0], coords[:-1, 1], coords[1:, 0], coords[1:, 1])
+    same = index[1:] == index[:-1]
+    return np.bincount(index[1:][same], weights=np.asarray(dist)[same], minlength=len(lonlat_lines))
+
+
+def _directions(segments: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Forward and backward travel allowed per segment, from ``oneway``, ``junction`` and the road class."""
+    oneway = segments["oneway"].fillna("").astype(str).str.lower().str.strip().to_numpy()
+    junction = segments["junction"].fillna("").astype(str).str.lower().to_numpy()
+    highway = segments["highway"].to_numpy(dtype=object)
+    backward_only = np.isin(oneway, list(_BACKWARD))
+    explicit_two_way = np.isin(oneway, list(_TWO_WAY))
+    forward_only = np.isin(oneway, list(_FORWARD)) | (
+        ~explicit_two_way
+        & ~backward_only
+        & (np.isin(junction, list(_ROUNDABOUT)) | np.isin(highway, list(_IMPLIED_ONEWAY_CLASSES)))
+    )
+    return ~backward_only, ~forward_only
+
+
+def _directed_edges(
+    segments: pd.DataFrame,
+    geometry: np.ndarray,
+    length_m: np.ndarray,
+    raw_nodes: pd.DataFrame,
+    prof: Profile,
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    fwd, bwd = _directions(segments)
+    n_seg = len(segments)
+    posted = segments["speed_kph"].to_numpy(dtype=float).copy()
+    missing = ~np.isfinite(posted)
+    posted[missing] = parse_maxspeed_array(segments["maxspeed"].to_numpy(dtype=object)[missing])
+    road_class = segments["highway"].to_numpy(dtype=object)
+    speed_kph = prof.effective_kph(road_class, posted)
+    oneway = fwd ^ bwd
+
+    node_keys = np.unique(np.concatenate([segments["u_key"].to_numpy(), segments["v_key"].to_numpy()]))
+    u_idx = np.searchsorted(node_keys, segments["u_key"].to_numpy())
+    v_idx = np.searchsorted(node_keys, segments["v_key"].to_numpy())
+    against_ok = np.zeros(n_seg, dtype=bool)
+    if prof.oneway == "against":
+        against_ok = oneway & np.isin(road_class, list(prof.against_oneway_classes))
+    seg = np.arange(n_seg)
+    # direction code 0 = drawn u->v, 1 = reverse; against-one-way copies travel opposite to the allowed way
+    parts = [
+        (seg[fwd], 0, False),
+        (seg[bwd], 1, False),
+        (seg[against_ok & fwd], 1, True),
+        (seg[against_ok & bwd], 0, True),
+    ]
+    sel = np.concatenate([p[0] for p in parts])
+    direction = np.concatenate([np.full(len(p[0]), p[1]) for p in parts])
+    against = np.concatenate([np.full(len(p[0]), p[2]) for p in parts])
+    order = np.lexsort((direction, sel))
+    sel, direction, against = sel[order], direction[order], against[order]
+    rev = direction == 1
+    geom = np.asarray(geometry, dtype=object)[sel]
+    geom[rev] = shapely.reverse(geom[rev])
+    u = np.where(rev, v_idx[sel], u_idx[sel])
+    v = np.where(rev, u_idx[sel], v_idx[sel])
+
+    key_pos = np.searchsorted(raw_nodes["key"].to_numpy(), node_keys)
+    node_x = raw_nodes["x"].to_numpy()[key_pos]
+    node_y = raw_nodes["y"].to_numpy()[key_pos]
+    signal = raw_nodes["signal"].to_numpy(dtype=bool)[key_pos]
+    # node coordinates are taken from the projected geometry ends so that nodes and edges agree exactly
+    starts = shapely.get_point(np.asarray(geometry, dtype=object), 0)
+    ends = shapely.get_point(np.asarray(geometry, dtype=object), -1)
+    node_x = node_x.astype(float)
+    node_y = node_y.astype(float)
+    node_x[u_idx], node_y[u_idx] = shapely.get_x(starts), shapely.get_y(starts)
+    node_x[v_idx], node_y[v_idx] = shapely.get_x(ends), shapely.get_y(ends)
+
+    seg_len = length_m[sel]
+    seg_speed = speed_kph[sel]
+    factor = np.where(against, prof.against_oneway_factor, 1.0)
+    delay_s = np.where(signal[v], prof.signal_delay_s, 0.0)
+    edges = pd.DataFrame(
+        {
+            "u": u.astype(np.int64),
+            "v": v.astype(np.int64),
+            "road_class": pd.array(road_class[sel].astype(str), dtype="str"),
+            "length_m": seg_len,
+            "posted_kph": posted[sel],
+            "speed_kph": seg_speed,
+            "delay_s": delay_s,
+            "travel_s": seg_len / (seg_speed / 3.6) * factor + delay_s,
+            "oneway": oneway[sel],
+            "against_oneway": against,
+            "bridge": segments["bridge"].to_numpy(dtype=bool)[sel],
+            "tunnel": segments["tunnel"].to_numpy(dtype=bool)[sel],
+            "name": pd.array(segments["name"].fillna("").to_numpy(dtype=object)[sel].astype(str), dtype="str"),
+            "source_id": segments["source_id"].to_numpy(dtype=np.int64)[sel],
+            "seg": sel,
+            "geometry": geom,
+        }
+    )
+    nodes = pd.DataFrame({"node_id": node_keys.astype(np.int64), "x": node_x, "y": node_y, "signal": signal})
+    return edges, nodes
+
+
+def _largest_strong_piece(edges: pd.DataFrame, nodes: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
+    n = len(nodes)
+    u = edges["u"].to_numpy()
+    v = edges["v"].to_numpy()
+    graph = csr_matrix((np.ones(len(u)), (u, v)), shape=(n, n))
+    n_comp, label = connected_components(graph, directed=True, connection="strong")
+    used = np.zeros(n, dtype=bool)
+    used[u] = True
+    used[v] = True
+    sizes = np.bincount(label[used], minlength=n_comp)
+    keep_label = int(np.argmax(sizes))  # lowest label among equal sizes: deterministic
+    keep_node = label == keep_label
+    keep_edge = keep_node[u] & keep_node[v]
+    dropped_edges = edges[~keep_edge]
+    dropped = {
+        "pieces": int(np.count_nonzero(sizes) - 1),
+        "edges": len(dropped_edges),
+        "km": float(dropped_edges.drop_duplicates("seg")["length_m"].sum() / 1000.0),
+    }
+    new_index = np.cumsum(keep_node) - 1
+    edges = edges[keep_edge].reset_index(drop=True)
+    edges["u"] = new_index[edges["u"].to_numpy()]
+    edges["v"] = new_index[edges["v"].to_numpy()]
+    edges.insert(0, "edge_id", np.arange(len(edges), dtype=np.int64))
+    nodes = nodes[keep_node].reset_index(drop=True)
+    nodes.insert(0, "node", np.arange(len(nodes), dtype=np.int64))
+    return edges, nodes, dropped
+
+
+def _km_by_class(edges: pd.DataFrame) -> dict[str, float]:
+    undirected = edges[~edges["against_oneway"]].drop_duplicates("seg")
+    km = undirected.groupby("road_class")["length_m"].sum() / 1000.0
+    return {str(k): round(float(val), 3) for k, val in km.items()}
+
+
+__all__ = ["BuildReport", "build_network", "geodesic_length_m", "read_roads", "transform_xy"]

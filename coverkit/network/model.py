@@ -1,0 +1,376 @@
+"""The :class:`RoadNetwork`: a directed road graph as arrays, with its GeoPackage form.
+
+Nodes are numbered 0..N-1 and edges 0..E-1. Every edge is directed: a two-way street is two edges (``u -> v`` and
+``v -> u``, the second with reversed geometry); a one-way street is one. Geometry is in a projected, metric CRS.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import geopandas as gpd
+import networkx as nx
+import numpy as np
+import pandas as pd
+import pyogrio
+import scipy.sparse as sp
+import shapely
+from pyproj import CRS
+
+from coverkit.atomic import atomic_path
+from coverkit.errors import InputFileError
+from coverkit.network.profile import Profile, load_profile, profile_from_dict
+
+FORMAT_VERSION = 1
+INFO_LAYER = "build_info"
+
+#: Edge columns every network carries, in this order (geometry last).
+EDGE_COLUMNS = [
+    "edge_id",
+    "u",
+    "v",
+    "road_class",
+    "length_m",
+    "posted_kph",
+    "speed_kph",
+    "delay_s",
+    "travel_s",
+    "oneway",
+    "against_oneway",
+    "bridge",
+    "tunnel",
+    "name",
+    "source_id",
+]
+NODE_COLUMNS = ["node", "node_id", "x", "y", "signal"]
+
+#: csgraph treats a zero weight as a missing edge; zero-length edges get this many seconds instead.
+MIN_EDGE_S = 1e-9
+
+
+@dataclass
+class RoadNetwork:
+    """A directed drivable road network.
+
+    Attributes
+    ----------
+    nodes
+        GeoDataFrame indexed 0..N-1 with ``node`` (same as the index), ``node_id`` (source id, e.g. OSM node id),
+        ``x``, ``y`` (metres, in ``crs``), ``signal`` (traffic-signal node) and point geometry.
+    edges
+        GeoDataFrame indexed 0..E-1 with :data:`EDGE_COLUMNS` and line geometry drawn from ``u`` to ``v``.
+        ``travel_s = length_m / (speed_kph / 3.6) * (against-one-way factor) + delay_s``.
+    crs
+        The projected CRS of all coordinates.
+    profile
+        The speed profile the network was built with.
+    info
+        Build summary (JSON-serialisable): source, counts, what was dropped.
+    """
+
+    nodes: gpd.GeoDataFrame
+    edges: gpd.GeoDataFrame
+    crs: CRS
+    profile: Profile
+    info: dict = field(default_factory=dict)
+    _csr_cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
+
+    # -- sizes and arrays ------------------------------------------------------------------------------------------
+    @property
+    def n_nodes(self) -> int:
+        """Number of nodes."""
+        return len(self.nodes)
+
+    @property
+    def n_edges(self) -> int:
+        """Number of directed edges."""
+        return len(self.edges)
+
+    @property
+    def u(self) -> np.ndarray:
+        """Start node of each edge (int64)."""
+        return self.edges["u"].to_numpy(dtype=np.int64)
+
+    @property
+    def v(self) -> np.ndarray:
+        """End node of each edge (int64)."""
+        return self.edges["v"].to_numpy(dtype=np.int64)
+
+    @property
+    def travel_s(self) -> np.ndarray:
+        """Travel time of each edge (s)."""
+        return self.edges["travel_s"].to_numpy(dtype=float)
+
+    @property
+    def length_m(self) -> np.ndarray:
+        """Length of each edge (m)."""
+        return self.edges["length_m"].to_numpy(dtype=float)
+
+    @property
+    def xy(self) -> np.ndarray:
+        """Node coordinates, shape (N, 2), metres."""
+        return self.nodes[["x", "y"]].to_numpy(dtype=float)
+
+    def csr(self, weight: str = "travel_s") -> sp.csr_matrix:
+        """Sparse N x N adjacency with the smallest ``weight`` over parallel edges (for ``scipy.sparse.csgraph``).
+
+        Cached per weight; a network is treated as immutable (use :meth:`with_travel_s` for changed times).
+        """
+        if weight not in self._csr_cache:
+            w = np.maximum(self.edges[weight].to_numpy(dtype=float), MIN_EDGE_S)
+            self._csr_cache[weight] = min_weight_csr(self.u, self.v, w, self.n_nodes)
+        return self._csr_cache[weight]
+
+    def csr_edge_index(self, weight: str = "travel_s") -> sp.csr_matrix:
+        """Sparse N x N matrix whose entry (u, v) is 1 + the edge id chosen by :meth:`csr` for that pair."""
+        key = f"edge_index:{weight}"
+        if key not in self._csr_cache:
+            w = self.edges[weight].to_numpy(dtype=float)
+            best = _best_parallel_edges(self.u, self.v, w, self.n_nodes)
+            self._csr_cache[key] = sp.csr_matrix(
+                (best.astype(np.int64) + 1, (self.u[best], self.v[best])),
+                shape=(self.n_nodes, self.n_nodes),
+            )
+        return self._csr_cache[key]
+
+    # -- derived networks -------------------------------------------------------------------------------------------
+    def with_travel_s(self, travel_s: np.ndarray, note: str = "") -> RoadNetwork:
+        """A copy with new edge travel times (s); ``inf`` closes an edge. Nodes and geometry are shared."""
+        travel_s = np.asarray(travel_s, dtype=float)
+        if travel_s.shape != (self.n_edges,):
+            raise ValueError(f"travel_s must have shape ({self.n_edges},), got {travel_s.shape}")
+        edges = self.edges.copy()
+        edges["travel_s"] = travel_s
+        info = dict(self.info)
+        if note:
+            info["changes"] = [*info.get("changes", []), note]
+        return RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
+
+    def open_edges(self) -> np.ndarray:
+        """Boolean mask of edges with finite travel time."""
+        return np.isfinite(self.travel_s)
+
+    # -- interoperability -------------------------------------------------------------------------------------------
+    def to_networkx(self, weight: str = "travel_s") -> nx.MultiDiGraph:
+        """A ``networkx.MultiDiGraph``: nodes 0..N-1 with ``x, y, node_id``; edges keyed by ``edge_id``.
+
+        Closed edges (infinite travel time) are left out.
+        """
+        g = nx.MultiDiGraph(crs=self.crs.to_string())
+        g.add_nodes_from(
+            (int(n), {"x": float(x), "y": float(y), "node_id": int(i)})
+            for n, x, y, i in zip(
+                self.nodes["node"],
+                self.nodes["x"],
+                self.nodes["y"],
+                self.nodes["node_id"],
+                strict=True,
+            )
+        )
+        cols = ["edge_id", "u", "v", "road_class", "length_m", "speed_kph", "travel_s"]
+        table = self.edges[cols]
+        table = table[np.isfinite(table["travel_s"].to_numpy())]
+        g.add_edges_from(
+            (
+                int(u),
+                int(v),
+                int(e),
+                {
+                    "road_class": c,
+                    "length_m": float(m),
+                    "speed_kph": float(s),
+                    "travel_s": float(t),
+                },
+            )
+            for e, u, v, c, m, s, t in table.itertuples(index=False, name=None)
+        )
+        if weight != "travel_s":
+            for _, _, data in g.edges(data=True):
+                data["weight"] = data[weight]
+        return g
+
+    # -- persistence ------------------------------------------------------------------------------------------------
+    def save(self, path: str | Path) -> Path:
+        """Write the network to a GeoPackage (layers ``nodes``, ``edges``, ``build_info``), atomically."""
+        path = Path(path)
+        info_rows = {
+            "format_version": str(FORMAT_VERSION),
+            "crs": self.crs.to_wkt(),
+            "profile_toml": self.profile.to_toml(),
+            "info_json": json.dumps(self.info, sort_keys=True, default=_json_default),
+        }
+        info_df = pd.DataFrame({"key": list(info_rows), "value": list(info_rows.values())})
+        with atomic_path(path) as tmp:
+            pyogrio.write_dataframe(self.nodes[[*NODE_COLUMNS, "geometry"]], tmp, layer="nodes", driver="GPKG")
+            pyogrio.write_dataframe(
+                self.edges[[*EDGE_COLUMNS, "geometry"]],
+                tmp,
+                layer="edges",
+                driver="GPKG",
+                append=True,
+            )
+            pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
+        return path
+
+    @classmethod
+    def load(cls, path: str | Path) -> RoadNetwork:
+        """Read a network written by :meth:`save`.
+
+        Raises
+        ------
+        InputFileError
+            The file is missing or is not a coverkit network GeoPackage.
+        """
+        path = Path(path)
+        if not path.is_file():
+            raise InputFileError(
+                f"network file {path} not found; build one with `coverkit network <roads> --out {path}`."
+            )
+        try:
+            layers = {name for name, _ in pyogrio.list_layers(path)}
+        except Exception:
+            raise InputFileError(f"{path} is not a GeoPackage; give a network built by `coverkit network`.") from None
+        missing = {"nodes", "edges", INFO_LAYER} - layers
+        if missing:
+            raise InputFileError(
+                f"{path} has no layer '{sorted(missing)[0]}', so it is not a coverkit network; "
+                "build one with `coverkit network`."
+            )
+        info_df = pyogrio.read_dataframe(path, layer=INFO_LAYER)
+        meta = dict(zip(info_df["key"], info_df["value"], strict=True))
+        if int(meta.get("format_version", -1)) != FORMAT_VERSION:
+            raise InputFileError(f"{path} was written by an incompatible coverkit version; rebuild it.")
+        crs = CRS.from_wkt(meta["crs"])
+        import tomllib
+
+        profile = profile_from_dict(
+            tomllib.loads(meta["profile_toml"]),
+            where=f"{path}:profile",
+            source_text=meta["profile_toml"],
+        )
+        nodes = pyogrio.read_dataframe(path, layer="nodes")
+        edges = pyogrio.read_dataframe(path, layer="edges")
+        nodes = nodes.set_crs(crs, allow_override=True)
+        edges = edges.set_crs(crs, allow_override=True)
+        edges["name"] = edges["name"].fillna("")
+        return cls(nodes, edges, crs, profile, json.loads(meta["info_json"]))
+
+
+def _json_default(obj: object) -> object:
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.floating):
+        return float(obj)
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    raise TypeError(f"not JSON serialisable: {type(obj)}")
+
+
+def _best_parallel_edges(u: np.ndarray, v: np.ndarray, w: np.ndarray, n: int) -> np.ndarray:
+    """Index of the lowest-weight edge for each distinct (u, v) pair among finite-weight edges."""
+    finite = np.flatnonzero(np.isfinite(w))
+    key = u[finite] * np.int64(n) + v[finite]
+    order = np.lexsort((w[finite], key))
+    sorted_key = key[order]
+    first = np.ones(len(order), dtype=bool)
+    first[1:] = sorted_key[1:] != sorted_key[:-1]
+    return finite[order[first]]
+
+
+def min_weight_csr(u: np.ndarray, v: np.ndarray, w: np.ndarray, n: int) -> sp.csr_matrix:
+    """N x N CSR matrix holding, for each (u, v), the smallest finite weight among parallel edges."""
+    best = _best_parallel_edges(u, v, w, n)
+    return sp.csr_matrix((w[best], (u[best], v[best])), shape=(n, n))
+
+
+def network_from_arrays(
+    xy: np.ndarray,
+    u: np.ndarray,
+    v: np.ndarray,
+    speed_kph: np.ndarray | float,
+    crs: str | CRS = "EPSG:32633",
+    profile: Profile | None = None,
+    road_class: np.ndarray | str = "residential",
+    oneway: np.ndarray | bool = False,
+    signal: np.ndarray | None = None,
+    geometry: np.ndarray | None = None,
+) -> RoadNetwork:
+    """Build a network directly from node coordinates and *directed* edge arrays (tests, benchmarks, synthetic data).
+
+    Straight-line geometry is used unless ``geometry`` is given; ``length_m`` is the geometry's planar length and
+    ``travel_s = length_m / (speed_kph / 3.6)`` plus the profile's signal delay at signal end nodes.
+    """
+    xy = np.asarray(xy, dtype=float)
+    u = np.asarray(u, dtype=np.int64)
+    v = np.asarray(v, dtype=np.int64)
+    n_edges = len(u)
+    profile = profile or load_profile("normal")
+    signal = np.zeros(len(xy), dtype=bool) if signal is None else np.asarray(signal, dtype=bool)
+    if geometry is None:
+        coords = np.stack([xy[u], xy[v]], axis=1).reshape(-1, 2)
+        geometry = shapely.linestrings(coords, indices=np.repeat(np.arange(n_edges), 2))
+    length_m = shapely.length(geometry)
+    speed = np.broadcast_to(np.asarray(speed_kph, dtype=float), (n_edges,)).copy()
+    delay_s = np.where(signal[v], profile.signal_delay_s, 0.0)
+    crs = CRS.from_user_input(crs)
+    nodes = gpd.GeoDataFrame(
+        {
+            "node": np.arange(len(xy)),
+            "node_id": np.arange(len(xy)),
+            "x": xy[:, 0],
+            "y": xy[:, 1],
+            "signal": signal,
+        },
+        geometry=shapely.points(xy),
+        crs=crs,
+    )
+    edges = gpd.GeoDataFrame(
+        {
+            "edge_id": np.arange(n_edges),
+            "u": u,
+            "v": v,
+            "road_class": np.broadcast_to(np.asarray(road_class, dtype=object), (n_edges,)).copy(),
+            "length_m": length_m,
+            "posted_kph": speed,
+            "speed_kph": speed,
+            "delay_s": delay_s,
+            "travel_s": length_m / (speed / 3.6) + delay_s,
+            "oneway": np.broadcast_to(np.asarray(oneway, dtype=bool), (n_edges,)).copy(),
+            "against_oneway": np.zeros(n_edges, dtype=bool),
+            "bridge": np.zeros(n_edges, dtype=bool),
+            "tunnel": np.zeros(n_edges, dtype=bool),
+            "name": np.full(n_edges, "", dtype=object),
+            "source_id": np.arange(n_edges, dtype=np.int64),
+        },
+        geometry=geometry,
+        crs=crs,
+    )
+    return RoadNetwork(nodes, edges, crs, profile, {"source": "arrays"})
+
+
+def grid_network(
+    nx_nodes: int,
+    ny_nodes: int,
+    spacing_m: float,
+    speed_kph: float,
+    crs: str = "EPSG:32633",
+    x0: float = 500000.0,
+    y0: float = 5000000.0,
+) -> RoadNetwork:
+    """A uniform two-way 4-neighbour grid, each edge ``spacing_m`` long at ``speed_kph`` (tests, benchmarks)."""
+    ix, iy = np.meshgrid(np.arange(nx_nodes), np.arange(ny_nodes), indexing="xy")
+    ids = (iy * nx_nodes + ix).ravel()
+    xy = np.column_stack([x0 + ix.ravel() * spacing_m, y0 + iy.ravel() * spacing_m])
+    right = ids[(ix.ravel() < nx_nodes - 1)]
+    up = ids[(iy.ravel() < ny_nodes - 1)]
+    u = np.concatenate([right, right + 1, up, up + nx_nodes])
+    v = np.concatenate([right + 1, right, up + nx_nodes, up])
+    return network_from_arrays(xy, u, v, speed_kph, crs=crs)
+
+
+def finite_or_nan(value: float) -> float:
+    """``value`` if finite else NaN (for tables)."""
+    return value if math.isfinite(value) else math.nan
