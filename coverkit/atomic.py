@@ -52,3 +52,31 @@ def write_bytes_atomic(target: str | os.PathLike[str], data: bytes) -> Path:
     with atomic_path(target) as tmp:
         tmp.write_bytes(data)
     return Path(target)
+
+
+def write_gpkg_layers(target: str | os.PathLike[str], layers: dict) -> Path:
+    """Write several named layers (GeoDataFrames, or DataFrames as attribute tables) into one GeoPackage atomically.
+
+    Layers are written in the order given; empty layers are written with their columns so that readers always
+    find every layer name.
+    """
+    import geopandas as gpd
+    import pyogrio
+
+    target = Path(target)
+    with atomic_path(target) as tmp:
+        first = True
+        for name, frame in layers.items():
+            frame = frame.reset_index(drop=True)
+            for col in frame.columns:
+                if frame[col].dtype == object and col != "geometry":
+                    frame[col] = frame[col].astype(str)
+            if isinstance(frame, gpd.GeoDataFrame) and len(frame) == 0:
+                # GDAL needs a geometry type for an empty spatial layer
+                pyogrio.write_dataframe(
+                    frame, tmp, layer=name, driver="GPKG", append=not first, geometry_type="Unknown"
+                )
+            else:
+                pyogrio.write_dataframe(frame, tmp, layer=name, driver="GPKG", append=not first)
+            first = False
+    return target

@@ -1,0 +1,433 @@
+"""Coverage against a response standard: who is reached, how many times, by which base, and where the gaps are.
+
+A response standard is a turnout time plus a travel time, met for a fractile of the demand (for example 60 s
+turnout + 480 s travel for 90 % of calls; NFPA 1710 quotes such objectives). Travel is outbound, base to demand,
+unless ``direction="in"`` is asked for. Everything here is computed from the travel engine in
+:mod:`coverkit.travel`; this module adds the bookkeeping and the area layers (first-due areas, gaps) built on a grid
+of road-near cells that are themselves snapped and timed like demand points.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import rasterio.features
+import scipy.sparse as sp
+import shapely
+from affine import Affine
+
+from coverkit.errors import CoverkitError, FieldError
+from coverkit.network.model import RoadNetwork
+from coverkit.progress import note
+from coverkit.travel import nearest_sources, point_times, snap_points
+
+#: Default search horizon beyond the standard, so response times past the standard are still measured (s).
+DEFAULT_HORIZON_S = 3600.0
+#: Default snap limit for demand points (m); farther points are off-network and counted, not moved.
+DEFAULT_DEMAND_SNAP_M = 500.0
+#: Cell size of the area grid behind first-due areas and gap polygons (m).
+DEFAULT_CELL_M = 100.0
+#: Grid cells farther than this from a road carry no area (m): nobody is reached off the road network's reach.
+DEFAULT_REACH_M = 200.0
+
+
+@dataclass(frozen=True)
+class Standard:
+    """A response standard: turnout + travel time, to be met for a fractile of the demand.
+
+    Attributes
+    ----------
+    name
+        Label, e.g. ``"ALS travel"``.
+    travel_s
+        Travel time objective (s).
+    turnout_s
+        Turnout time (s) added to every travel time (crew from alarm to rolling).
+    fractile
+        Share of demand (by weight) that should be reached within ``turnout_s + travel_s`` (0..1).
+    source
+        Where the standard comes from (e.g. ``"NFPA 1710"``), shown in reports.
+    """
+
+    name: str
+    travel_s: float
+    turnout_s: float = 0.0
+    fractile: float = 0.9
+    source: str = ""
+
+    def __post_init__(self) -> None:
+        if not (self.travel_s > 0):
+            raise CoverkitError(f"standard '{self.name}': travel time must be > 0 s, got {self.travel_s}.")
+        if self.turnout_s < 0:
+            raise CoverkitError(f"standard '{self.name}': turnout must be >= 0 s, got {self.turnout_s}.")
+        if not (0 < self.fractile <= 1):
+            raise CoverkitError(f"standard '{self.name}': fractile must be in (0, 1], e.g. 0.9; got {self.fractile}.")
+
+    @property
+    def response_s(self) -> float:
+        """Turnout plus travel (s)."""
+        return self.turnout_s + self.travel_s
+
+    def describe(self) -> str:
+        """One line for maps and reports."""
+        parts = (
+            f"{self.turnout_s:g} s turnout + {self.travel_s:g} s travel"
+            if self.turnout_s
+            else f"{self.travel_s:g} s travel"
+        )
+        src = f" ({self.source})" if self.source else ""
+        return f"{self.name}: {parts}, {self.fractile * 100:g} % of demand{src}"
+
+
+def weighted_fractile(values: np.ndarray, weights: np.ndarray | None, q: float) -> float:
+    """Weighted fractile by the inverted empirical CDF: the smallest value ``v`` whose cumulative weight share
+    (values <= v) reaches ``q``.
+
+    With equal weights this is numpy's ``percentile(..., method="inverted_cdf")`` (Hyndman & Fan 1996, "Sample
+    quantiles in statistical packages", The American Statistician 50(4), definition 1). Unreached demand
+    (``inf``) counts as slower than any time, so a fractile that falls on it is ``inf``.
+
+    Parameters
+    ----------
+    values
+        Response times (s), ``inf`` where not reached.
+    weights
+        Non-negative weights (same shape), or None for equal weights.
+    q
+        Fractile in (0, 1].
+    """
+    values = np.asarray(values, dtype=float)
+    w = np.ones_like(values) if weights is None else np.asarray(weights, dtype=float)
+    keep = w > 0
+    values, w = values[keep], w[keep]
+    if len(values) == 0:
+        return float("nan")
+    order = np.argsort(values, kind="stable")
+    cum = np.cumsum(w[order])
+    total = cum[-1]
+    # a small relative tolerance so that shares like 0.9 of 10 equal weights hit exactly the 9th value
+    idx = int(np.searchsorted(cum, q * total * (1 - 1e-12), side="left"))
+    return float(values[order][min(idx, len(values) - 1)])
+
+
+@dataclass
+class CoverageResult:
+    """Per demand point results and the inputs behind them.
+
+    Attributes
+    ----------
+    demand
+        GeoDataFrame, one row per demand point in input order: the input's ``id`` and ``weight``, ``travel_s``
+        (to the first-due base; inf when none within the horizon), ``response_s`` (turnout + travel),
+        ``first_base``, ``second_base`` (base ids, "" when none), ``second_travel_s``, ``depth`` (bases within
+        the travel standard), ``covered``, ``on_network``, ``snap_m`` and the input's other columns.
+    bases
+        The bases used (GeoDataFrame with ``id``).
+    standard
+        The standard evaluated.
+    times
+        Sparse (n_bases, n_demand) travel times within the horizon (s).
+    """
+
+    demand: gpd.GeoDataFrame
+    bases: gpd.GeoDataFrame
+    standard: Standard
+    times: sp.csr_matrix
+    horizon_s: float
+    direction: str = "out"
+    extra: dict = field(default_factory=dict)
+
+    def summary(self) -> dict:
+        """Headline figures: demand covered (weight and share), fractile response, off-network demand."""
+        d = self.demand
+        w = d["weight"].to_numpy(dtype=float)
+        total = float(w.sum())
+        covered = float(w[d["covered"].to_numpy()].sum())
+        off = float(w[~d["on_network"].to_numpy()].sum())
+        frac_resp = weighted_fractile(d["response_s"].to_numpy(), w, self.standard.fractile)
+        return {
+            "standard": self.standard.name,
+            "standard_text": self.standard.describe(),
+            "demand_points": len(d),
+            "demand_total": total,
+            "covered": covered,
+            "covered_share": covered / total if total else float("nan"),
+            "uncovered": total - covered,
+            "covered_once": float(w[(d["depth"] == 1).to_numpy()].sum()),
+            "covered_twice_or_more": float(w[(d["depth"] >= 2).to_numpy()].sum()),
+            "fractile": self.standard.fractile,
+            "fractile_response_s": frac_resp,
+            "meets_standard": bool(frac_resp <= self.standard.response_s),
+            "off_network": off,
+            "off_network_points": int((~d["on_network"]).sum()),
+        }
+
+
+def evaluate_coverage(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame,
+    demand: gpd.GeoDataFrame,
+    standard: Standard,
+    horizon_s: float | None = None,
+    max_snap_m: float = DEFAULT_DEMAND_SNAP_M,
+    base_snap_m: float = DEFAULT_DEMAND_SNAP_M,
+    direction: str = "out",
+) -> CoverageResult:
+    """Travel from every base to every demand point; first- and second-due base, depth and coverage.
+
+    Parameters
+    ----------
+    net
+        Road network.
+    bases
+        Bases (GeoDataFrame with ``id``, in the network CRS). A base off the network is an error.
+    demand
+        Demand points (GeoDataFrame with ``id``, ``weight``, in the network CRS).
+    standard
+        The response standard.
+    horizon_s
+        Search bound (s): travel times beyond it are "not reached". Default: the larger of the standard's travel
+        time x 3 and :data:`DEFAULT_HORIZON_S`.
+    max_snap_m, base_snap_m
+        Snap limits for demand points (off-network ones are counted) and bases (off-network ones are an error).
+    direction
+        ``"out"`` (base to demand, the default) or ``"in"`` (demand to base).
+    """
+    if len(bases) == 0:
+        raise CoverkitError("no bases given; add at least one base (id, lon, lat).")
+    horizon_s = float(horizon_s or max(DEFAULT_HORIZON_S, 3 * standard.travel_s))
+    note(f"coverage: snapping {len(bases)} bases and {len(demand):,} demand points")
+    base_snap = snap_points(net, bases, max_snap_m=base_snap_m, off_network="raise", what="bases")
+    dem_snap = snap_points(
+        net, demand, max_snap_m=max_snap_m, off_network="mask", what="demand points", warn_islands=False
+    )
+    note(f"coverage: searching from {len(bases)} bases (horizon {horizon_s:g} s)")
+    times = point_times(net, base_snap, dem_snap, horizon_s, direction=direction)
+    src, t = nearest_sources(times, k=2)
+    depth = np.bincount(times.tocoo().col[times.tocoo().data <= standard.travel_s], minlength=len(demand))
+    base_ids = bases["id"].astype(str).to_numpy()
+    first = np.where(src[:, 0] >= 0, base_ids[np.maximum(src[:, 0], 0)], "")
+    second = np.where(src[:, 1] >= 0, base_ids[np.maximum(src[:, 1], 0)], "")
+    out = demand.copy()
+    travel = t[:, 0]
+    cols = {
+        "travel_s": travel,
+        "response_s": travel + standard.turnout_s,
+        "first_base": first.astype(object),
+        "second_base": second.astype(object),
+        "second_travel_s": t[:, 1],
+        "depth": depth.astype(np.int64),
+        "covered": travel <= standard.travel_s,
+        "on_network": dem_snap.on_network,
+        "snap_m": dem_snap.dist_m,
+    }
+    for name, values in cols.items():
+        out[name] = values
+    lead = ["id", "weight", *cols]
+    out = out[[*lead, *[c for c in out.columns if c not in lead]]]
+    return CoverageResult(
+        out, bases, standard, times, horizon_s, direction, {"base_snap": base_snap, "demand_snap": dem_snap}
+    )
+
+
+def compliance_by(result: CoverageResult, field_name: str) -> pd.DataFrame:
+    """Compliance per value of a demand field (e.g. ``priority``, ``zone``): weight, covered share, fractile."""
+    d = result.demand
+    if field_name not in d.columns:
+        raise FieldError(f"demand has no field '{field_name}' to group by; fields: {', '.join(d.columns[:15])}.")
+    rows = []
+    q = result.standard.fractile
+    for key, grp in d.groupby(field_name, sort=True):
+        w = grp["weight"].to_numpy(dtype=float)
+        total = float(w.sum())
+        cov = float(w[grp["covered"].to_numpy()].sum())
+        rows.append(
+            {
+                field_name: key,
+                "points": len(grp),
+                "demand": total,
+                "covered": cov,
+                "covered_share": cov / total if total else float("nan"),
+                "fractile_response_s": weighted_fractile(grp["response_s"].to_numpy(), w, q),
+            }
+        )
+    table = pd.DataFrame(rows)
+    table["meets_standard"] = table["fractile_response_s"] <= result.standard.response_s
+    return table
+
+
+def compliance_by_zone(result: CoverageResult, zones: gpd.GeoDataFrame, id_field: str) -> pd.DataFrame:
+    """Compliance per zone polygon (census block, town, district): each demand point counts in the zone it lies in.
+
+    Points outside every zone are reported under the zone id ``"(outside zones)"``.
+    """
+    if id_field not in zones.columns:
+        raise FieldError(f"zones layer has no field '{id_field}'; fields: {', '.join(map(str, zones.columns))}.")
+    zones = zones.to_crs(result.demand.crs)
+    tree = shapely.STRtree(zones.geometry.to_numpy())
+    pts = result.demand.geometry.to_numpy()
+    pi, zi = tree.query(pts, predicate="within")
+    zone_of = np.full(len(pts), "(outside zones)", dtype=object)
+    order = np.lexsort((zi, pi))  # first zone by index when zones overlap: deterministic
+    pi, zi = pi[order], zi[order]
+    first = np.r_[True, pi[1:] != pi[:-1]] if len(pi) else np.zeros(0, bool)
+    zone_of[pi[first]] = zones[id_field].astype(str).to_numpy()[zi[first]]
+    tmp = CoverageResult(
+        result.demand.assign(_zone=zone_of),
+        result.bases,
+        result.standard,
+        result.times,
+        result.horizon_s,
+        result.direction,
+    )
+    return compliance_by(tmp, "_zone").rename(columns={"_zone": id_field})
+
+
+def per_base(result: CoverageResult) -> pd.DataFrame:
+    """Per base: first-due demand (weight and share), covered first-due demand, demand it reaches in standard."""
+    d = result.demand
+    w = d["weight"].to_numpy(dtype=float)
+    total = float(w.sum())
+    within = result.times.tocoo()
+    ok = within.data <= result.standard.travel_s
+    reach_w = np.bincount(within.row[ok], weights=w[within.col[ok]], minlength=len(result.bases))
+    rows = []
+    for i, base in enumerate(result.bases["id"].astype(str)):
+        mine = (d["first_base"] == base).to_numpy()
+        rows.append(
+            {
+                "base_id": base,
+                "first_due_demand": float(w[mine].sum()),
+                "first_due_share": float(w[mine].sum() / total) if total else float("nan"),
+                "first_due_covered": float(w[mine & d["covered"].to_numpy()].sum()),
+                "reaches_in_standard": float(reach_w[i]),
+                "sole_cover": float(w[mine & (d["depth"] == 1).to_numpy()].sum()),
+            }
+        )
+    return pd.DataFrame(rows)
+
+
+@dataclass
+class AreaLayers:
+    """Polygons built on the road-near grid: first-due areas, gaps and single-coverage areas.
+
+    ``depth_grid`` holds the coverage depth per cell (-1 where no road is within reach); ``demand_gap_id`` gives,
+    per demand point, the gap it falls in (0 when covered).
+    """
+
+    first_due: gpd.GeoDataFrame
+    gaps: gpd.GeoDataFrame
+    single: gpd.GeoDataFrame
+    depth_grid: np.ndarray
+    transform: Affine
+    demand_gap_id: np.ndarray
+
+
+def area_layers(
+    net: RoadNetwork,
+    result: CoverageResult,
+    incidents: gpd.GeoDataFrame | None = None,
+    cell_m: float = DEFAULT_CELL_M,
+    reach_m: float = DEFAULT_REACH_M,
+) -> AreaLayers:
+    """First-due areas, gaps (contiguous uncovered areas) and areas covered only once, as polygons.
+
+    The extent is divided into ``cell_m`` cells; cells whose centre lies within ``reach_m`` of a road are snapped
+    and timed like demand points (same engine, same standard). Cells holding an uncovered demand point are
+    uncovered too, so that every uncovered demand point falls inside exactly one gap and the gap populations add
+    up to the uncovered demand. Gaps are labelled by 8-connectivity and sorted by population, then area.
+    """
+    crs = result.demand.crs
+    x0, y0, x1, y1 = net.nodes.total_bounds
+    ncol = int(np.ceil((x1 - x0) / cell_m)) + 1
+    nrow = int(np.ceil((y1 - y0) / cell_m)) + 1
+    transform = Affine(cell_m, 0, x0 - cell_m / 2, 0, -cell_m, y1 + cell_m / 2)
+    rr, cc = np.mgrid[0:nrow, 0:ncol]
+    cx = transform.c + (cc.ravel() + 0.5) * cell_m
+    cy = transform.f - (rr.ravel() + 0.5) * cell_m
+    cells = shapely.points(np.column_stack([cx, cy]))
+    snap = snap_points(net, cells, max_snap_m=reach_m, off_network="mask", what="grid cells", warn_islands=False)
+    on = np.flatnonzero(snap.on_network)
+    note(f"coverage: timing {len(on):,} road-near grid cells of {cell_m:g} m")
+    sub = snap.subset(on)
+    times = point_times(net, result.extra["base_snap"], sub, result.horizon_s, direction=result.direction)
+    src, t = nearest_sources(times, k=1)
+    coo = times.tocoo()
+    depth_on = np.bincount(coo.col[coo.data <= result.standard.travel_s], minlength=len(on))
+    first_on = src[:, 0]
+    first_grid = np.full(nrow * ncol, -1, dtype=np.int32)
+    first_grid[on] = first_on
+    depth_grid = np.full(nrow * ncol, -1, dtype=np.int32)  # -1: no road within reach
+    depth_grid[on] = depth_on
+    uncovered = np.zeros(nrow * ncol, dtype=bool)
+    uncovered[on] = t[:, 0] > result.standard.travel_s
+
+    d = result.demand
+    dxy = shapely.get_coordinates(d.geometry.to_numpy())
+    dcol = np.clip(((dxy[:, 0] - transform.c) / cell_m).astype(int), 0, ncol - 1)
+    drow = np.clip(((transform.f - dxy[:, 1]) / cell_m).astype(int), 0, nrow - 1)
+    dcell = drow * ncol + dcol
+    d_unc = ~d["covered"].to_numpy()
+    uncovered[dcell[d_unc]] = True
+    # a cell holding covered demand only and no timed road stays out of the gaps
+    base_ids = result.bases["id"].astype(str).to_numpy()
+
+    first_due = _polygons(first_grid.reshape(nrow, ncol), transform, crs, valid=first_grid.reshape(nrow, ncol) >= 0)
+    first_due["base_id"] = base_ids[first_due["value"].to_numpy(dtype=int)] if len(first_due) else []
+    first_due = first_due.dissolve("base_id", as_index=False)[["base_id", "geometry"]] if len(first_due) else first_due
+    if len(first_due):
+        first_due["area_km2"] = first_due.area / 1e6
+
+    labels_grid = _label(uncovered.reshape(nrow, ncol))
+    gap_of_point = np.where(d_unc, labels_grid.ravel()[dcell], 0)
+    w = d["weight"].to_numpy(dtype=float)
+    n_lab = int(labels_grid.max())
+    pop = np.bincount(gap_of_point[d_unc], weights=w[d_unc], minlength=n_lab + 1)
+    inc = np.zeros(n_lab + 1)
+    if incidents is not None and len(incidents):
+        ixy = shapely.get_coordinates(incidents.to_crs(crs).geometry.to_numpy())
+        icol = ((ixy[:, 0] - transform.c) / cell_m).astype(int)
+        irow = ((transform.f - ixy[:, 1]) / cell_m).astype(int)
+        inside = (icol >= 0) & (icol < ncol) & (irow >= 0) & (irow < nrow)
+        lab = labels_grid[irow[inside], icol[inside]]
+        inc = np.bincount(lab, minlength=n_lab + 1).astype(float)
+    gaps = _polygons(labels_grid, transform, crs, valid=labels_grid > 0)
+    label_to_gap = np.zeros(n_lab + 1, dtype=np.int64)
+    if len(gaps):
+        gaps = gaps.dissolve("value", as_index=False)
+        lab = gaps["value"].to_numpy(dtype=int)
+        gaps["population"] = pop[lab]
+        gaps["incidents"] = inc[lab].astype(int)
+        gaps["area_km2"] = gaps.area / 1e6
+        gaps = gaps.sort_values(["population", "area_km2", "value"], ascending=[False, False, True]).reset_index(
+            drop=True
+        )
+        gaps.insert(0, "gap_id", np.arange(1, len(gaps) + 1))
+        label_to_gap[gaps["value"].to_numpy(dtype=int)] = gaps["gap_id"].to_numpy()
+        gaps = gaps.drop(columns="value")
+    else:
+        gaps = gpd.GeoDataFrame({"gap_id": [], "population": [], "incidents": [], "area_km2": []}, geometry=[], crs=crs)
+
+    single_mask = (depth_grid == 1).reshape(nrow, ncol)
+    single = _polygons(single_mask.astype(np.int32), transform, crs, valid=single_mask)
+    single = single.dissolve(as_index=False)[["geometry"]] if len(single) else single
+    if len(single):
+        single["area_km2"] = single.area / 1e6
+    return AreaLayers(first_due, gaps, single, depth_grid.reshape(nrow, ncol), transform, label_to_gap[gap_of_point])
+
+
+def _label(mask: np.ndarray) -> np.ndarray:
+    from scipy.ndimage import label
+
+    labels, _ = label(mask, structure=np.ones((3, 3), dtype=int))
+    return labels.astype(np.int32)
+
+
+def _polygons(grid: np.ndarray, transform: Affine, crs, valid: np.ndarray) -> gpd.GeoDataFrame:
+    shapes = list(rasterio.features.shapes(grid.astype(np.int32), mask=valid, transform=transform, connectivity=8))
+    geoms = [shapely.geometry.shape(g) for g, _ in shapes]
+    values = [int(v) for _, v in shapes]
+    return gpd.GeoDataFrame({"value": values}, geometry=geoms, crs=crs)
