@@ -1,0 +1,920 @@
+"""Static PNG maps and charts for a coverage study (matplotlib, Agg, no screen).
+
+The functions here draw what they are given: travel-time surfaces, demand points with a coverage depth, gap
+polygons, first-due areas and before/after differences all come computed from the modules below ``report``.
+Every map carries the same furniture so that a printed page stands on its own: title, the response standard used,
+the map, a legend with units, a grid-north arrow, a scale bar in round metres or kilometres, the CRS name and the
+caution line (``coverkit.CAUTION``).
+
+Figures are built with :class:`matplotlib.figure.Figure` directly (never ``pyplot``), so no GUI backend is touched and
+no global figure state leaks between calls. Output is written atomically at a fixed size and dpi, without the
+matplotlib version in the PNG metadata, so the same inputs give byte-identical files.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import os
+import textwrap
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import affine
+import geopandas as gpd
+import matplotlib
+import numpy as np
+import shapely
+from matplotlib import colors as mcolors
+from matplotlib import patheffects
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.cm import ScalarMappable
+from matplotlib.collections import LineCollection, PathCollection
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch, Polygon, Rectangle
+from matplotlib.path import Path as MplPath
+from pyproj import CRS
+
+import coverkit
+from coverkit.atomic import atomic_path
+from coverkit.errors import CoverkitError, FieldError
+from coverkit.network.crs import parse_crs
+
+#: Output resolution (dots per inch) and page size (inches); fixed so outputs are comparable run to run.
+DPI = 150
+FIGSIZE_IN = (8.0, 7.0)
+
+#: Sequential colormap for time bands; reversed cividis so that near (small times) is light and far is dark.
+SEQUENTIAL_CMAP = "cividis_r"
+#: Diverging colormap for before/after differences, centred on zero.
+DIVERGING_CMAP = "PuOr_r"
+#: Colour of gap outlines (gaps are outlined, never filled).
+GAP_EDGE_COLOR = "#a50f15"
+#: Colour for demand that no base reaches within the standard (depth 0).
+UNCOVERED_COLOR = "#d9d9d9"
+UNCOVERED_EDGE = "#7a0177"
+#: Our own muted qualitative palette for first-due areas (light enough for roads and labels to read on top).
+FIRST_DUE_PALETTE = (
+    "#cdbb9b",
+    "#9fbcae",
+    "#b7abcb",
+    "#dbab9c",
+    "#a8c2da",
+    "#cbcb93",
+    "#d6b6c8",
+    "#a9c9a3",
+    "#c4c4c4",
+    "#e0c98f",
+)
+ROAD_COLOR = "#8c8c8c"
+#: Line width (points) by road class; classes not listed get the thinnest line.
+ROAD_WIDTH_PT = {
+    "motorway": 1.2,
+    "trunk": 1.1,
+    "primary": 0.9,
+    "secondary": 0.75,
+    "tertiary": 0.6,
+    "motorway_link": 0.6,
+    "trunk_link": 0.6,
+    "primary_link": 0.5,
+}
+ROAD_MIN_WIDTH_PT = 0.35
+
+# Page layout in figure fractions: map on the left, legend panel on the right, scale strip under the map.
+_MAP_BOX = (0.035, 0.145, 0.685, 0.765)
+_SCALE_BOX = (0.035, 0.085, 0.685, 0.05)
+_PANEL_BOX = (0.745, 0.145, 0.245, 0.62)
+_NORTH_BOX = (0.80, 0.79, 0.12, 0.12)
+_HALO = [patheffects.withStroke(linewidth=2.6, foreground="white")]
+
+
+# ----------------------------------------------------------------------------------------------------------------
+# Pieces that tests check directly
+# ----------------------------------------------------------------------------------------------------------------
+
+
+def nice_scale_length_m(map_width_m: float, max_fraction: float = 0.3) -> float:
+    """Length of a scale bar: the largest 1-2-5 x 10^k metres not above ``max_fraction`` of the map width.
+
+    Consecutive 1-2-5 numbers differ by at most a factor 2.5, so with ``max_fraction = 0.3`` the bar is always
+    between 12 % and 30 % of the map width (common cartographic practice, no source).
+
+    Parameters
+    ----------
+    map_width_m
+        Width of the map frame in metres (projected CRS units).
+    max_fraction
+        Upper limit of the bar as a share of the width.
+
+    Returns
+    -------
+    float
+        Bar length in metres.
+    """
+    if not (math.isfinite(map_width_m) and map_width_m > 0):
+        raise CoverkitError(f"map width {map_width_m!r} m is not a positive number; the map has no extent to scale.")
+    limit = map_width_m * max_fraction
+    exponent = math.floor(math.log10(limit))
+    # 10**exponent <= limit < 10**(exponent + 1): the answer is 1, 2 or 5 x 10**exponent.
+    best = max(m * 10.0**exponent for m in (1.0, 2.0, 5.0) if m * 10.0**exponent <= limit * (1 + 1e-12))
+    return float(best)
+
+
+def format_length(length_m: float) -> str:
+    """A length for a label: metres below 1 km, kilometres from 1 km (``'500 m'``, ``'2 km'``, ``'0.5 km'``)."""
+    if length_m < 1000.0:
+        return f"{length_m:g} m"
+    return f"{length_m / 1000.0:g} km"
+
+
+def relative_luminance(rgb: Sequence[float]) -> float:
+    """Relative luminance of an sRGB colour (components 0..1).
+
+    Components are linearised with the sRGB transfer function (IEC 61966-2-1:1999) and weighted with the ITU-R
+    BT.709 coefficients Y = 0.2126 R + 0.7152 G + 0.0722 B.
+    """
+    c = np.asarray(rgb, dtype=float)[:3]
+    lin = np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+    return float(0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2])
+
+
+def band_colors(n_bands: int) -> list[tuple[float, float, float, float]]:
+    """``n_bands`` colours from the sequential time colormap, light (near) to dark (far), evenly spaced."""
+    if n_bands < 1:
+        raise CoverkitError("at least one travel-time band is needed; give band edges such as [4, 8, 12] minutes.")
+    cmap = matplotlib.colormaps[SEQUENTIAL_CMAP]
+    if n_bands == 1:
+        return [cmap(0.0)]
+    return [cmap(float(t)) for t in np.linspace(0.0, 1.0, n_bands)]
+
+
+def depth_colors(max_depth: int) -> list[tuple[float, float, float, float]]:
+    """Colours for coverage depth 1..max_depth (light to dark, sequential); depth 0 uses ``UNCOVERED_COLOR``."""
+    cmap = matplotlib.colormaps["YlGnBu"]
+    return [cmap(float(t)) for t in np.linspace(0.35, 0.9, max_depth)]
+
+
+def diverging_norm(values: np.ndarray, limit: float | None = None) -> mcolors.Normalize:
+    """Symmetric colour limits around zero: ``[-m, m]`` with ``m`` the largest absolute finite value.
+
+    Zero therefore maps to the colormap midpoint (0.5). ``limit`` fixes ``m`` (for several maps on one scale).
+    """
+    if limit is None:
+        v = np.asarray(values, dtype=float)
+        v = v[np.isfinite(v)]
+        limit = float(np.max(np.abs(v))) if v.size else 0.0
+    if not (math.isfinite(limit) and limit > 0):
+        limit = 1.0  # all values zero (or none): any symmetric range shows them at the midpoint
+    return mcolors.Normalize(vmin=-limit, vmax=limit)
+
+
+def neighbour_colors(geoms: np.ndarray, group: np.ndarray, n_colors: int) -> dict[object, int]:
+    """Colour index per group so that touching groups differ (greedy colouring in sorted group order).
+
+    When there are no more groups than colours each group gets its own colour. Greedy colouring of a planar
+    adjacency rarely needs more than six colours; if it runs out, the least-used colour among neighbours is reused.
+    """
+    keys = sorted(set(group.tolist()), key=str)
+    if len(keys) <= n_colors:
+        return {k: i for i, k in enumerate(keys)}
+    index = {k: i for i, k in enumerate(keys)}
+    gidx = np.array([index[g] for g in group.tolist()], dtype=np.int64)
+    tree = shapely.STRtree(geoms)
+    left, right = tree.query(geoms, predicate="intersects")
+    a, b = gidx[left], gidx[right]
+    keep = a != b
+    neighbours: list[set[int]] = [set() for _ in keys]
+    for i, j in zip(a[keep].tolist(), b[keep].tolist(), strict=True):
+        neighbours[i].add(j)
+    colour = np.full(len(keys), -1, dtype=np.int64)
+    for i in range(len(keys)):
+        used = [colour[j] for j in neighbours[i] if colour[j] >= 0]
+        free = [c for c in range(n_colors) if c not in used]
+        colour[i] = free[0] if free else int(np.argmin(np.bincount(used, minlength=n_colors)))
+    return {k: int(colour[i]) for i, k in enumerate(keys)}
+
+
+def rank_gaps(gaps: gpd.GeoDataFrame) -> np.ndarray:
+    """Row positions of ``gaps`` ordered largest population first (then incidents, then ``gap_id``)."""
+    pop = np.nan_to_num(np.asarray(gaps["population"], dtype=float), nan=0.0)
+    inc = np.nan_to_num(np.asarray(gaps["incidents"], dtype=float), nan=0.0)
+    ids = np.asarray([str(g) for g in gaps["gap_id"]])
+    return np.lexsort((ids, -inc, -pop))
+
+
+def fit_extent(
+    bounds: Sequence[float], box_aspect: float, margin: float = 0.04, min_size_m: float = 1000.0
+) -> tuple[tuple[float, float], tuple[float, float]]:
+    """Map limits holding ``bounds`` with a margin, widened so that width/height equals ``box_aspect``.
+
+    Equal scale on both axes then fills the map frame exactly, and the scale bar (drawn under the map with the
+    same x-limits) is true to the map.
+    """
+    xmin, ymin, xmax, ymax = (float(b) for b in bounds)
+    if not all(math.isfinite(b) for b in (xmin, ymin, xmax, ymax)):
+        raise CoverkitError("the layers to map have no finite extent (empty or all-missing geometry).")
+    cx, cy = (xmin + xmax) / 2, (ymin + ymax) / 2
+    w = max(xmax - xmin, min_size_m)
+    h = max(ymax - ymin, min_size_m)
+    pad = margin * max(w, h)
+    w, h = w + 2 * pad, h + 2 * pad
+    if w / h < box_aspect:
+        w = h * box_aspect
+    else:
+        h = w / box_aspect
+    return (cx - w / 2, cx + w / 2), (cy - h / 2, cy + h / 2)
+
+
+# ----------------------------------------------------------------------------------------------------------------
+# Input checks
+# ----------------------------------------------------------------------------------------------------------------
+
+
+def _map_crs(crs: object, what: str) -> CRS:
+    if crs is None:
+        raise CoverkitError(f"{what} has no CRS; set one (a projected CRS in metres, e.g. a UTM zone) before mapping.")
+    return parse_crs(crs, what=what)
+
+
+def _layer(gdf: gpd.GeoDataFrame | None, what: str, crs: CRS, columns: Sequence[str] = ()) -> gpd.GeoDataFrame | None:
+    """Check a layer's columns and bring it to the map CRS (a new frame; the input is not modified)."""
+    if gdf is None:
+        return None
+    if not isinstance(gdf, gpd.GeoDataFrame):
+        raise CoverkitError(f"{what}: expected a GeoDataFrame, got {type(gdf).__name__}.")
+    missing = [c for c in columns if c not in gdf.columns]
+    if missing:
+        raise FieldError(f"{what}: missing column(s) {', '.join(missing)}; add them or pass the layer that has them.")
+    if len(gdf) and gdf.crs is None:
+        raise CoverkitError(f"{what} has no CRS; set it (GeoDataFrame.set_crs) to the CRS of its coordinates.")
+    if len(gdf) and CRS.from_user_input(gdf.crs) != crs:
+        return gdf.to_crs(crs)
+    return gdf
+
+
+def _check_standard(standard_text: str) -> str:
+    if not isinstance(standard_text, str) or not standard_text.strip():
+        raise CoverkitError("standard_text is empty; pass the response standard the map shows (time and fractile).")
+    return standard_text.strip()
+
+
+def _bounds_union(*layers: gpd.GeoDataFrame | None, extra: Sequence[float] | None = None) -> list[float]:
+    boxes = [np.asarray(layer.total_bounds, float) for layer in layers if layer is not None and len(layer)]
+    if extra is not None:
+        boxes.append(np.asarray(extra, float))
+    boxes = [b for b in boxes if np.all(np.isfinite(b))]
+    if not boxes:
+        raise CoverkitError("nothing to map: every layer given is empty.")
+    stack = np.vstack(boxes)
+    return [stack[:, 0].min(), stack[:, 1].min(), stack[:, 2].max(), stack[:, 3].max()]
+
+
+# ----------------------------------------------------------------------------------------------------------------
+# Geometry to matplotlib collections (geopandas' own plotting redraws the whole figure on every call)
+# ----------------------------------------------------------------------------------------------------------------
+
+
+def _line_segments(geoms: np.ndarray) -> list[np.ndarray]:
+    """Vertex arrays of every line part (lines, multilines, polygon boundaries)."""
+    parts = shapely.get_parts(shapely.boundary(geoms) if _is_polygonal(geoms) else geoms)
+    parts = parts[~shapely.is_empty(parts)]
+    parts = shapely.get_parts(parts)
+    coords, index = shapely.get_coordinates(parts, return_index=True)
+    if not len(coords):
+        return []
+    cuts = np.flatnonzero(np.diff(index)) + 1
+    return np.split(coords, cuts)
+
+
+def _is_polygonal(geoms: np.ndarray) -> bool:
+    types = shapely.get_type_id(geoms)
+    return bool(len(types)) and bool(np.all(np.isin(types, (3, 6))))
+
+
+def _polygon_paths(geoms: np.ndarray) -> tuple[list[MplPath], np.ndarray]:
+    """One compound path (exterior and holes) per polygon part, and the row each part came from."""
+    parts, row = shapely.get_parts(np.asarray(geoms, dtype=object), return_index=True)
+    paths = []
+    for poly in parts.tolist():
+        rings = [poly.exterior, *poly.interiors]
+        paths.append(MplPath.make_compound_path(*(MplPath(np.asarray(r.coords), closed=True) for r in rings)))
+    return paths, row
+
+
+def _draw_polygons(ax: object, geoms: np.ndarray, facecolors: object, **style: object) -> None:
+    paths, row = _polygon_paths(geoms)
+    if not paths:
+        return
+    if not isinstance(facecolors, str):
+        facecolors = np.asarray(mcolors.to_rgba_array(facecolors))[row]
+    ax.add_collection(PathCollection(paths, facecolors=facecolors, **style))
+
+
+# ----------------------------------------------------------------------------------------------------------------
+# Page furniture
+# ----------------------------------------------------------------------------------------------------------------
+
+
+class _Page:
+    """One map page: figure, map axes fitted to the data, legend panel, furniture."""
+
+    def __init__(self, title: str, standard_text: str, crs: CRS | None, bounds: Sequence[float] | None) -> None:
+        self.fig = Figure(figsize=FIGSIZE_IN, dpi=DPI)
+        FigureCanvasAgg(self.fig)
+        self.crs = crs
+        self.fig.text(0.035, 0.972, title, ha="left", va="top", fontsize=13, fontweight="bold")
+        self.fig.text(
+            0.035, 0.937, "\n".join(textwrap.wrap(standard_text, 110)), ha="left", va="top", fontsize=9, color="#222"
+        )
+        _caution(self.fig)
+        if bounds is None:
+            return
+        self.ax = self.fig.add_axes(_MAP_BOX)
+        box_aspect = (_MAP_BOX[2] * FIGSIZE_IN[0]) / (_MAP_BOX[3] * FIGSIZE_IN[1])
+        self.xlim, self.ylim = fit_extent(bounds, box_aspect)
+        self.ax.set_xlim(*self.xlim)
+        self.ax.set_ylim(*self.ylim)
+        self.ax.set_aspect("equal", adjustable="box")
+        self.ax.set_xticks([])
+        self.ax.set_yticks([])
+        for spine in self.ax.spines.values():
+            spine.set_linewidth(0.8)
+            spine.set_color("#333")
+        self.panel = self.fig.add_axes(_PANEL_BOX)
+        self.panel.set_axis_off()
+        self._entries: list[tuple[object, str]] = []
+        self._furniture: list[tuple[object, str]] = []
+        self._scale_bar()
+        self._north_arrow()
+
+    # -- furniture --------------------------------------------------------------------------------------------
+    def _scale_bar(self) -> None:
+        """A two-segment bar under the map, on an axis with the map's x-limits, so it is at map scale."""
+        sax = self.fig.add_axes(_SCALE_BOX)
+        sax.set_xlim(*self.xlim)
+        sax.set_ylim(0, 1)
+        sax.set_axis_off()
+        self.scale_ax = sax
+        width_m = self.xlim[1] - self.xlim[0]
+        length_m = nice_scale_length_m(width_m)
+        self.scale_length_m = length_m
+        x0 = self.xlim[0] + 0.02 * width_m
+        half = length_m / 2
+        for i, face in enumerate(("#222", "white")):
+            sax.add_patch(Rectangle((x0 + i * half, 0.62), half, 0.22, facecolor=face, edgecolor="#222", lw=0.8))
+        unit_km = length_m >= 1000
+        for xi, value in ((x0, 0.0), (x0 + half, half), (x0 + length_m, length_m)):
+            text = f"{value / 1000:g}" if unit_km else f"{value:g}"
+            sax.text(xi, 0.5, text, ha="center", va="top", fontsize=7.5)
+        sax.text(x0 + length_m + 0.015 * width_m, 0.73, "km" if unit_km else "m", ha="left", va="center", fontsize=8)
+        if self.crs is not None:
+            epsg = self.crs.to_epsg()
+            crs_text = f"{self.crs.name}" + (f" (EPSG:{epsg})" if epsg else "")
+            sax.text(self.xlim[1], 0.73, crs_text, ha="right", va="center", fontsize=7, color="#444")
+
+    def _north_arrow(self) -> None:
+        """Arrow pointing up the map: grid north, which in a UTM zone is within a few degrees of true north."""
+        nax = self.fig.add_axes(_NORTH_BOX)
+        nax.set_xlim(-1, 1)
+        nax.set_ylim(-1.25, 1.3)
+        nax.set_aspect("equal")
+        nax.set_axis_off()
+        tip, base_y, half_w, notch_y = (0.0, 0.75), -0.55, 0.38, -0.25
+        nax.add_patch(Polygon([tip, (-half_w, base_y), (0, notch_y)], closed=True, fc="#222", ec="#222", lw=0.8))
+        nax.add_patch(Polygon([tip, (half_w, base_y), (0, notch_y)], closed=True, fc="white", ec="#222", lw=0.8))
+        nax.text(0, 0.82, "N", ha="center", va="bottom", fontsize=12, fontweight="bold")
+        nax.text(0, -0.72, "grid north", ha="center", va="top", fontsize=7, color="#333")
+
+    # -- layers -----------------------------------------------------------------------------------------------
+    def roads(self, roads: gpd.GeoDataFrame | None) -> None:
+        if roads is None or not len(roads):
+            return
+        lines = roads[~roads.geometry.is_empty & roads.geometry.notna()]
+        if "road_class" in lines.columns:
+            width = np.array([ROAD_WIDTH_PT.get(str(c), ROAD_MIN_WIDTH_PT) for c in lines["road_class"]])
+        else:
+            width = np.full(len(lines), ROAD_MIN_WIDTH_PT)
+        for w in sorted(set(width.tolist())):  # thin roads first so major roads draw on top
+            segments = _line_segments(lines.geometry.to_numpy()[width == w])
+            self.ax.add_collection(LineCollection(segments, colors=ROAD_COLOR, linewidths=w, zorder=2))
+        self._furniture.append((Line2D([], [], color=ROAD_COLOR, lw=0.9), "Road"))
+
+    def bases(
+        self, bases: gpd.GeoDataFrame | None, *, label: str = "Base", filled: bool = True, annotate: bool = True
+    ) -> None:
+        if bases is None or not len(bases):
+            return
+        b = bases.iloc[np.argsort(np.asarray([str(i) for i in bases["base_id"]]), kind="stable")]
+        pts = shapely.get_coordinates(b.geometry.representative_point().to_numpy())
+        face, edge = ("#111", "white") if filled else ("white", "#111")
+        self.ax.scatter(
+            pts[:, 0], pts[:, 1], s=46, marker="s", facecolor=face, edgecolor=edge, linewidths=1.3, zorder=8
+        )
+        if annotate:
+            for (x, y), bid in zip(pts, b["base_id"], strict=True):
+                self.ax.annotate(
+                    str(bid),
+                    (x, y),
+                    xytext=(5, 4),
+                    textcoords="offset points",
+                    fontsize=8,
+                    fontweight="bold",
+                    color="#111",
+                    path_effects=_HALO,
+                    zorder=9,
+                    annotation_clip=True,
+                )
+        handle = Line2D([], [], ls="none", marker="s", ms=7, mfc=face, mec="#111" if filled else edge, mew=1.0)
+        self._furniture.append((handle, label))
+
+    def add_legend(self, handle: object, label: str) -> None:
+        """A thematic legend entry; roads and bases are listed after all of these."""
+        self._entries.append((handle, label))
+
+    def legend(self, title: str) -> None:
+        items = self._entries + self._furniture
+        self.panel.legend(
+            [h for h, _ in items],
+            ["\n".join(textwrap.wrap(t, 25)) for _, t in items],
+            title=title,
+            loc="upper left",
+            bbox_to_anchor=(0.0, 1.0),
+            frameon=False,
+            fontsize=8,
+            title_fontsize=8.5,
+            alignment="left",
+            handlelength=1.6,
+            borderaxespad=0.0,
+        )
+
+    def save(self, out_png: str | os.PathLike[str], title: str) -> Path:
+        # geopandas labels the axes from the CRS; the CRS is named under the map instead.
+        self.ax.set_xlabel("")
+        self.ax.set_ylabel("")
+        return _save(self.fig, out_png, title)
+
+
+def _caution(fig: Figure) -> None:
+    wrapped = "\n".join(textwrap.wrap(coverkit.CAUTION, 135))
+    fig.add_artist(Line2D([0.035, 0.965], [0.062, 0.062], transform=fig.transFigure, color="#999", lw=0.5))
+    fig.text(0.035, 0.052, wrapped, ha="left", va="top", fontsize=7, color="#333", linespacing=1.3)
+
+
+def _save(fig: Figure, out_png: str | os.PathLike[str], title: str) -> Path:
+    out = Path(out_png)
+    if out.suffix.lower() != ".png":
+        raise CoverkitError(f"{out}: map outputs are PNG files; give a path ending in .png.")
+    with atomic_path(out) as tmp:
+        # No 'Software' entry: the matplotlib version would make outputs differ between installs.
+        fig.savefig(
+            tmp, format="png", dpi=DPI, metadata={"Software": None, "Title": title, "Comment": coverkit.CAUTION}
+        )
+    return out
+
+
+def _fmt_minutes(value: float) -> str:
+    return f"{value:g}"
+
+
+# ----------------------------------------------------------------------------------------------------------------
+# Maps
+# ----------------------------------------------------------------------------------------------------------------
+
+
+def travel_surface_map(
+    out_png: str | os.PathLike[str],
+    surface_minutes: np.ndarray,
+    transform: affine.Affine,
+    crs: object,
+    bases: gpd.GeoDataFrame | None,
+    roads: gpd.GeoDataFrame | None,
+    band_edges_minutes: Sequence[float],
+    title: str,
+    standard_text: str,
+) -> Path:
+    """Travel-time surface in discrete bands (light = near, dark = far).
+
+    Parameters
+    ----------
+    out_png
+        Output PNG path (written atomically).
+    surface_minutes
+        2-D array of travel time in minutes, rows north to south as in a GeoTIFF; NaN (or inf) = not reached / no data.
+    transform
+        Affine transform of the array (cell edges in CRS metres), north-up without rotation.
+    crs
+        Projected CRS in metres of the array and the map.
+    bases, roads
+        Point layer with ``base_id``; line layer (optional ``road_class`` sets line width).
+    band_edges_minutes
+        Increasing upper band edges in minutes, e.g. ``[4, 8, 12]``; a leading 0 is implied. Times above the last
+        edge show as one further, darkest band.
+    title, standard_text
+        Map title; the response standard used (shown under the title).
+
+    Returns
+    -------
+    Path
+        ``out_png``.
+    """
+    standard_text = _check_standard(standard_text)
+    crs = _map_crs(crs, "travel surface CRS")
+    surface = np.asarray(surface_minutes, dtype=float)
+    if surface.ndim != 2 or surface.size == 0:
+        raise CoverkitError(f"surface_minutes must be a non-empty 2-D array; got shape {surface.shape}.")
+    finite = np.isfinite(surface)
+    if np.any(surface[finite] < 0):
+        raise CoverkitError("surface_minutes holds negative travel times; use NaN for cells not reached.")
+    edges = [float(e) for e in band_edges_minutes]
+    if edges and edges[0] == 0.0:
+        edges = edges[1:]
+    if not edges or any(e <= 0 for e in edges) or any(b <= a for a, b in itertools.pairwise(edges)):
+        raise CoverkitError(
+            f"band_edges_minutes {list(band_edges_minutes)} must be positive and strictly increasing, e.g. [4, 8, 12]."
+        )
+    t = affine.Affine(*tuple(transform)[:6])
+    if t.b != 0 or t.d != 0 or t.a <= 0 or t.e == 0:
+        raise CoverkitError("the surface transform is rotated or degenerate; resample to a north-up grid first.")
+    nrows, ncols = surface.shape
+    left, right = t.c, t.c + t.a * ncols
+    y_a, y_b = t.f, t.f + t.e * nrows
+    bottom, top = min(y_a, y_b), max(y_a, y_b)
+    origin = "upper" if t.e < 0 else "lower"
+    bases = _layer(bases, "bases", crs, ["base_id"])
+    roads = _layer(roads, "roads", crs)
+
+    page = _Page(title, standard_text, crs, _bounds_union(bases, extra=[left, bottom, right, top]))
+    bounds = [0.0, *edges, math.inf]
+    colours = band_colors(len(bounds) - 1)
+    cmap = mcolors.ListedColormap(colours[:-1]).with_extremes(over=colours[-1], bad=(0, 0, 0, 0))
+    norm = mcolors.BoundaryNorm([0.0, *edges], cmap.N)
+    page.ax.imshow(
+        np.ma.masked_invalid(surface),
+        cmap=cmap,
+        norm=norm,
+        extent=(left, right, bottom, top),
+        origin=origin,
+        interpolation="nearest",
+        zorder=1,
+    )
+    page.roads(roads)
+    page.bases(bases)
+    lower = 0.0
+    for edge, colour in zip(edges, colours, strict=False):
+        page.add_legend(Patch(fc=colour, ec="#555", lw=0.4), f"{_fmt_minutes(lower)}–{_fmt_minutes(edge)}")
+        lower = edge
+    page.add_legend(Patch(fc=colours[-1], ec="#555", lw=0.4), f"more than {_fmt_minutes(edges[-1])}")
+    page.add_legend(Patch(fc="white", ec="#555", lw=0.4), "not reached / no data")
+    page.legend("Travel time (minutes)")
+    return page.save(out_png, title)
+
+
+def coverage_depth_map(
+    out_png: str | os.PathLike[str],
+    demand: gpd.GeoDataFrame,
+    bases: gpd.GeoDataFrame | None,
+    roads: gpd.GeoDataFrame | None,
+    title: str,
+    standard_text: str,
+    max_depth: int = 3,
+) -> Path:
+    """Demand points coloured by coverage depth (number of bases reaching them within the standard).
+
+    Categories 0 (not covered, grey with a dark outline, drawn on top), 1, 2, ..., ``max_depth``+ (sequential,
+    light to dark). The legend gives each category's share of the total demand weight.
+
+    Parameters
+    ----------
+    demand
+        Points with integer ``depth`` and numeric ``weight`` (e.g. people or incidents), projected CRS in metres.
+    max_depth
+        Highest category; deeper points join it (``3`` gives 0, 1, 2, 3+).
+    """
+    standard_text = _check_standard(standard_text)
+    if int(max_depth) < 1:
+        raise CoverkitError(f"max_depth {max_depth} must be at least 1.")
+    max_depth = int(max_depth)
+    crs = _map_crs(getattr(demand, "crs", None), "demand layer")
+    demand = _layer(demand, "demand", crs, ["depth", "weight"])
+    bases = _layer(bases, "bases", crs, ["base_id"])
+    roads = _layer(roads, "roads", crs)
+    depth_raw = np.asarray(demand["depth"], dtype=float)
+    if np.any(~np.isfinite(depth_raw)) or np.any(depth_raw < 0) or np.any(depth_raw != np.round(depth_raw)):
+        raise FieldError("demand: column depth must hold whole numbers >= 0 (bases reaching each point).")
+    depth = np.minimum(depth_raw.astype(np.int64), max_depth)
+    weight = np.nan_to_num(np.asarray(demand["weight"], dtype=float), nan=0.0)
+    total = float(weight.sum())
+
+    page = _Page(title, standard_text, crs, _bounds_union(demand, bases))
+    page.roads(roads)
+    xy = shapely.get_coordinates(demand.geometry.representative_point().to_numpy())
+    size = float(np.clip(9000.0 / max(len(demand), 1), 3.0, 30.0))
+    colours = [UNCOVERED_COLOR, *depth_colors(max_depth)]
+    entries = []
+    for d in (*range(max_depth, 0, -1), 0):  # deepest first, uncovered last so it is never hidden
+        sel = depth == d
+        if d == 0:
+            page.ax.scatter(
+                xy[sel, 0],
+                xy[sel, 1],
+                s=size * 1.3,
+                c=[UNCOVERED_COLOR],
+                edgecolors=UNCOVERED_EDGE,
+                linewidths=0.8,
+                zorder=6,
+            )
+        else:
+            page.ax.scatter(xy[sel, 0], xy[sel, 1], s=size, c=[colours[d]], edgecolors="none", zorder=5)
+        share = 100.0 * weight[sel].sum() / total if total > 0 else 0.0
+        name = "0, not covered" if d == 0 else (f"{d}+" if d == max_depth else str(d))
+        entries.append((d, f"{name} ({share:.1f} %)"))
+    for d, text in sorted(entries):
+        if d == 0:
+            h = Line2D([], [], ls="none", marker="o", ms=6, mfc=UNCOVERED_COLOR, mec=UNCOVERED_EDGE, mew=1.0)
+        else:
+            h = Line2D([], [], ls="none", marker="o", ms=6, mfc=colours[d], mec="none")
+        page.add_legend(h, text)
+    page.bases(bases)
+    page.legend("Coverage depth: bases\nwithin the standard\n(% of demand weight)")
+    return page.save(out_png, title)
+
+
+def gaps_map(
+    out_png: str | os.PathLike[str],
+    gaps: gpd.GeoDataFrame,
+    bases: gpd.GeoDataFrame | None,
+    roads: gpd.GeoDataFrame | None,
+    title: str,
+    standard_text: str,
+    label_top: int = 5,
+) -> Path:
+    """Coverage gaps as outlines (never filled), the largest ``label_top`` numbered by population rank.
+
+    Parameters
+    ----------
+    gaps
+        Polygons with ``gap_id``, ``population`` (people) and ``incidents`` (count), projected CRS in metres.
+    label_top
+        How many of the largest gaps to number on the map and list in the legend.
+    """
+    standard_text = _check_standard(standard_text)
+    crs = _map_crs(getattr(gaps, "crs", None), "gaps layer")
+    gaps = _layer(gaps, "gaps", crs, ["gap_id", "population", "incidents"])
+    bases = _layer(bases, "bases", crs, ["base_id"])
+    roads = _layer(roads, "roads", crs)
+
+    page = _Page(title, standard_text, crs, _bounds_union(gaps, bases))
+    page.roads(roads)
+    if len(gaps):
+        segments = _line_segments(shapely.boundary(gaps.geometry.to_numpy()))
+        page.ax.add_collection(LineCollection(segments, colors=GAP_EDGE_COLOR, linewidths=1.4, zorder=4))
+    page.add_legend(Patch(fc="none", ec=GAP_EDGE_COLOR, lw=1.4), "Gap: not covered within the standard")
+    order = rank_gaps(gaps)[: max(int(label_top), 0)]
+    if len(order):
+        points = shapely.get_coordinates(gaps.geometry.iloc[order].representative_point().to_numpy())
+        for rank, (row, (x, y)) in enumerate(zip(order, points, strict=True), start=1):
+            page.ax.text(
+                x,
+                y,
+                str(rank),
+                ha="center",
+                va="center",
+                fontsize=9,
+                fontweight="bold",
+                color=GAP_EDGE_COLOR,
+                path_effects=_HALO,
+                zorder=7,
+            )
+            pop = float(np.nan_to_num(gaps["population"].iloc[row]))
+            inc = float(np.nan_to_num(gaps["incidents"].iloc[row]))
+            page.add_legend(
+                Line2D([], [], ls="none", marker=f"${rank}$", ms=7, color=GAP_EDGE_COLOR),
+                f"{pop:,.0f} people, {inc:,.0f} incidents",
+            )
+    page.bases(bases)
+    title_text = "Coverage gaps" + (f"\n({len(order)} largest numbered)" if len(order) else "")
+    page.legend(title_text)
+    return page.save(out_png, title)
+
+
+def first_due_map(
+    out_png: str | os.PathLike[str],
+    areas: gpd.GeoDataFrame,
+    bases: gpd.GeoDataFrame | None,
+    roads: gpd.GeoDataFrame | None,
+    title: str,
+    standard_text: str,
+) -> Path:
+    """First-due areas (the part of the map each base reaches first), in a muted qualitative palette.
+
+    With up to ten bases each gets its own colour and a legend entry; with more, colours are reused but never
+    between touching areas.
+
+    Parameters
+    ----------
+    areas
+        Polygons with ``base_id`` (several rows per base allowed), projected CRS in metres.
+    """
+    standard_text = _check_standard(standard_text)
+    crs = _map_crs(getattr(areas, "crs", None), "first-due areas layer")
+    areas = _layer(areas, "first-due areas", crs, ["base_id"])
+    bases = _layer(bases, "bases", crs, ["base_id"])
+    roads = _layer(roads, "roads", crs)
+
+    page = _Page(title, standard_text, crs, _bounds_union(areas, bases))
+    palette = FIRST_DUE_PALETTE
+    groups = np.asarray(areas["base_id"].to_numpy(), dtype=object)
+    colour_of = neighbour_colors(areas.geometry.to_numpy(), groups, len(palette)) if len(areas) else {}
+    if len(areas):
+        faces = [palette[colour_of[g]] for g in groups.tolist()]
+        _draw_polygons(page.ax, areas.geometry.to_numpy(), faces, edgecolors="white", linewidths=1.0, zorder=1)
+    page.roads(roads)
+    page.bases(bases)
+    keys = sorted(colour_of, key=str)
+    if len(keys) <= len(palette):
+        for k in keys:
+            page.add_legend(Patch(fc=palette[colour_of[k]], ec="#777", lw=0.4), f"first due from {k}")
+    else:
+        page.add_legend(Patch(fc=palette[0], ec="#777", lw=0.4), "first-due area (colours separate neighbours)")
+    page.legend("First-due areas")
+    return page.save(out_png, title)
+
+
+def difference_map(
+    out_png: str | os.PathLike[str],
+    diff: gpd.GeoDataFrame,
+    value_column: str,
+    bases_before: gpd.GeoDataFrame | None,
+    bases_after: gpd.GeoDataFrame | None,
+    roads: gpd.GeoDataFrame | None,
+    title: str,
+    standard_text: str,
+    units_label: str,
+    limit: float | None = None,
+    increase_label: str | None = None,
+    decrease_label: str | None = None,
+) -> Path:
+    """Before/after difference on a diverging colormap with symmetric limits (zero at the neutral midpoint).
+
+    Parameters
+    ----------
+    diff
+        Polygons or points with a numeric ``value_column`` (after minus before), projected CRS in metres.
+        Missing values are drawn hatched grey.
+    units_label
+        Colour-bar label with units, e.g. ``"change in response time (s)"``.
+    limit
+        Fixed half-range of the colour scale (same units); default the largest absolute value.
+    increase_label, decrease_label
+        Optional words for the two ends of the scale, e.g. ``"slower"`` / ``"faster"``.
+    """
+    standard_text = _check_standard(standard_text)
+    crs = _map_crs(getattr(diff, "crs", None), "difference layer")
+    diff = _layer(diff, "difference layer", crs, [value_column])
+    before = _layer(bases_before, "bases before", crs, ["base_id"])
+    after = _layer(bases_after, "bases after", crs, ["base_id"])
+    roads = _layer(roads, "roads", crs)
+    try:
+        values = np.asarray(diff[value_column], dtype=float)
+    except (TypeError, ValueError):
+        raise FieldError(f"difference layer: column {value_column} must be numeric.") from None
+    norm = diverging_norm(values, limit)
+    cmap = matplotlib.colormaps[DIVERGING_CMAP]
+
+    page = _Page(title, standard_text, crs, _bounds_union(diff, before, after))
+    ok = np.isfinite(values)
+    geom_types = set(diff.geometry.geom_type.dropna().unique().tolist())
+    is_points = bool(geom_types) and geom_types <= {"Point", "MultiPoint"}
+    if is_points:
+        page.roads(roads)
+        xy = shapely.get_coordinates(diff.geometry.representative_point().to_numpy())
+        size = float(np.clip(9000.0 / max(len(diff), 1), 3.0, 30.0))
+        order = np.argsort(np.abs(np.where(ok, values, 0.0)), kind="stable")  # largest changes on top
+        sel = order[ok[order]]
+        page.ax.scatter(
+            xy[sel, 0],
+            xy[sel, 1],
+            s=size,
+            c=cmap(norm(values[sel])),
+            edgecolors="#777",
+            linewidths=0.2,
+            zorder=5,
+        )
+        if np.any(~ok):
+            page.ax.scatter(xy[~ok, 0], xy[~ok, 1], s=size, marker="x", c="#888", linewidths=0.6, zorder=4)
+    else:
+        if np.any(ok):
+            geoms = diff.geometry.to_numpy()[ok]
+            _draw_polygons(page.ax, geoms, cmap(norm(values[ok])), edgecolors="#bbb", linewidths=0.3, zorder=1)
+        if np.any(~ok):
+            geoms = diff.geometry.to_numpy()[~ok]
+            _draw_polygons(page.ax, geoms, "#eeeeee", edgecolors="#aaa", hatch="///", linewidths=0.3, zorder=1)
+        page.roads(roads)
+    if np.any(~ok):
+        page.add_legend(Patch(fc="#eee", ec="#aaa", hatch="///"), "no value")
+    page.bases(before, label="Base before", filled=False, annotate=after is None or not len(after))
+    page.bases(after, label="Base after", filled=True)
+    if before is not None and after is not None and len(before) and len(after):
+        _label_removed_bases(page, before, after)
+    page.legend("Bases and roads")
+
+    # Colour bar low in the legend panel, its own axes so the legend above cannot overlap it.
+    cax = page.fig.add_axes((_PANEL_BOX[0] + 0.01, _PANEL_BOX[1] + 0.03, 0.03, 0.3))
+    bar = page.fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=cax)
+    bar.set_label(units_label, fontsize=8)
+    bar.ax.tick_params(labelsize=7.5)
+    bar.ax.axhline(0.0, color="#333", lw=0.6)
+    if increase_label:
+        cax.text(1.0, 1.03, f"+ {increase_label}", transform=cax.transAxes, ha="left", va="bottom", fontsize=7.5)
+    if decrease_label:
+        cax.text(1.0, -0.03, f"\u2212 {decrease_label}", transform=cax.transAxes, ha="left", va="top", fontsize=7.5)
+    return page.save(out_png, title)
+
+
+def _label_removed_bases(page: _Page, before: gpd.GeoDataFrame, after: gpd.GeoDataFrame) -> None:
+    """Name bases that exist only before (closed or moved away), since after-bases carry the labels."""
+    after_ids = {str(b) for b in after["base_id"]}
+    gone = before[[str(b) not in after_ids for b in before["base_id"]]]
+    if not len(gone):
+        return
+    pts = shapely.get_coordinates(gone.geometry.representative_point().to_numpy())
+    for (x, y), bid in zip(pts, gone["base_id"], strict=True):
+        page.ax.annotate(
+            f"{bid} (before)",
+            (x, y),
+            xytext=(5, -10),
+            textcoords="offset points",
+            fontsize=7.5,
+            color="#333",
+            path_effects=_HALO,
+            zorder=9,
+        )
+
+
+# ----------------------------------------------------------------------------------------------------------------
+# Charts
+# ----------------------------------------------------------------------------------------------------------------
+
+_LINE_COLORS = ("#1b4f72", "#b9770e", "#5b2c6f", "#1e8449", "#922b21", "#566573")
+_LINE_STYLES = ("-", "--", "-.", ":")
+
+
+def line_chart(
+    out_png: str | os.PathLike[str],
+    x: Sequence[float] | np.ndarray,
+    ys: Mapping[str, Sequence[float] | np.ndarray],
+    xlabel: str,
+    ylabel: str,
+    title: str,
+    note: str = "",
+) -> Path:
+    """A line chart (e.g. share of demand covered against the time standard), with the caution footnote.
+
+    Parameters
+    ----------
+    x
+        Shared x values.
+    ys
+        Series label -> y values, one per x. Drawn in the given order with distinct colours and dash patterns,
+        so the chart also reads in black and white.
+    xlabel, ylabel
+        Axis labels with units.
+    note
+        One line under the title, e.g. the standard or the demand layer used.
+    """
+    xs = np.asarray(x, dtype=float)
+    if xs.ndim != 1 or xs.size == 0:
+        raise CoverkitError("line_chart: x must be a non-empty 1-D sequence.")
+    if not ys:
+        raise CoverkitError("line_chart: ys is empty; give at least one series.")
+    fig = Figure(figsize=FIGSIZE_IN, dpi=DPI)
+    FigureCanvasAgg(fig)
+    fig.text(0.035, 0.972, title, ha="left", va="top", fontsize=13, fontweight="bold")
+    if note:
+        fig.text(0.035, 0.937, "\n".join(textwrap.wrap(note, 110)), ha="left", va="top", fontsize=9, color="#222")
+    _caution(fig)
+    ax = fig.add_axes((0.1, 0.15, 0.86, 0.74))
+    for i, (label, y) in enumerate(ys.items()):
+        yv = np.asarray(y, dtype=float)
+        if yv.shape != xs.shape:
+            raise CoverkitError(f"line_chart: series '{label}' has {yv.size} values for {xs.size} x values.")
+        ax.plot(
+            xs,
+            yv,
+            color=_LINE_COLORS[i % len(_LINE_COLORS)],
+            linestyle=_LINE_STYLES[(i // len(_LINE_COLORS) + i) % len(_LINE_STYLES)],
+            lw=1.8,
+            marker="o" if xs.size <= 30 else None,
+            ms=3.5,
+            label=str(label),
+        )
+    ax.set_xlabel(xlabel, fontsize=9.5)
+    ax.set_ylabel(ylabel, fontsize=9.5)
+    ax.grid(True, color="#ddd", lw=0.6)
+    ax.set_axisbelow(True)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    ax.tick_params(labelsize=8.5)
+    ax.legend(fontsize=8.5, frameon=False, loc="best")
+    return _save(fig, out_png, title)
