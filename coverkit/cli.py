@@ -42,6 +42,21 @@ def _positive_float(text: str) -> float:
     return value
 
 
+def _minutes_list(text: str) -> list[float]:
+    try:
+        values = sorted({float(v) for v in text.split(",") if v.strip()})
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a comma-separated list of minutes, e.g. 4,8,12") from None
+    if not values or values[0] <= 0:
+        raise argparse.ArgumentTypeError("minutes must be positive, e.g. 4,8,12")
+    return values
+
+
+def _points_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--id-field", default="id", help="id field of --bases (id)")
+    p.add_argument("--snap-m", type=_positive_float, default=500.0, help="base snap limit, m (500)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every sub-command."""
     parser = argparse.ArgumentParser(
@@ -87,6 +102,72 @@ def build_parser() -> argparse.ArgumentParser:
     )
     _common(p)
 
+    p = sub.add_parser(
+        "isochrones",
+        help="drive-time polygons per base and band, and a travel-time surface",
+        description="Drive-time polygons (nested bands) from each base and for any base, written to a GeoPackage; "
+        "optionally a GeoTIFF of minutes to the nearest base.",
+    )
+    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
+    p.add_argument("--bases", type=Path, required=True, help="bases: CSV with id, lon, lat or a point layer")
+    p.add_argument("--minutes", type=_minutes_list, default=[4.0, 8.0, 12.0], help="bands in minutes (4,8,12)")
+    p.add_argument(
+        "--out", "-o", type=Path, required=True, help="GeoPackage to write (layers reach_by_base, reach_any_base)"
+    )
+    p.add_argument("--surface", type=Path, help="also write a GeoTIFF of minutes to the nearest base")
+    p.add_argument("--surface-cell-m", type=_positive_float, default=50.0, help="surface cell size, m (50)")
+    p.add_argument("--reach-m", type=_positive_float, default=150.0, help="reach from a reached road, m (150)")
+    p.add_argument("--exact", action="store_true", help="exact vector construction (slower reference path)")
+    p.add_argument("--direction", choices=["out", "in"], default="out", help="out: from base (default); in: to base")
+    _points_options(p)
+    _common(p)
+
+    p = sub.add_parser(
+        "cover",
+        help="coverage of demand against a response standard",
+        description="Who is reached within turnout + travel, by which base, how many times over, and where the gaps "
+        "are. Demand: a population raster (.tif), a polygon layer with --population-field, or points (CSV with "
+        "id, lon, lat[, weight] or a point layer).",
+    )
+    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
+    p.add_argument("--bases", type=Path, required=True, help="bases: CSV with id, lon, lat or a point layer")
+    p.add_argument("--demand", type=Path, required=True, help="population raster, polygons or points")
+    p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
+    p.add_argument("--turnout-s", type=_positive_float, default=0.0, help="turnout time added to travel, s (0)")
+    p.add_argument("--fractile", type=float, default=0.9, help="share of demand to reach, 0..1 (0.9)")
+    p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layer demand, gaps, ...)")
+    p.add_argument("--where", help='filter on point fields, e.g. "priority in (1, 2)"')
+    p.add_argument("--population-field", help="population field of a polygon demand layer")
+    p.add_argument("--weight-field", help="weight field of point demand (default: weight column or 1)")
+    p.add_argument("--demand-id-field", default="id", help="id field of point demand (id)")
+    p.add_argument("--time-field", help="timestamp field for --start/--end (received_at)")
+    p.add_argument("--start", help="keep points at or after this ISO time")
+    p.add_argument("--end", help="keep points before this ISO time")
+    p.add_argument("--zones", type=Path, help="polygon layer for compliance by zone")
+    p.add_argument("--zone-field", help="id field of --zones")
+    p.add_argument("--demand-snap-m", type=_positive_float, default=500.0, help="demand snap limit, m (500)")
+    p.add_argument("--direction", choices=["out", "in"], default="out", help="out: base to demand (default)")
+    _points_options(p)
+    _common(p)
+
+    p = sub.add_parser(
+        "run",
+        help="run a whole study from a TOML file",
+        description="Run a study file (see examples/demo-study.toml): network (cached), drive-time polygons, "
+        "surface, coverage for every standard and demand layer, maps and the HTML report.",
+    )
+    p.add_argument("study", type=Path, help="study TOML file")
+    p.add_argument("--out", "-o", type=Path, help="output folder (default: outputs.folder in the study)")
+    _common(p)
+
+    p = sub.add_parser(
+        "demo",
+        help="run the whole study on the fictional demo county",
+        description="Write the fictional Varrowby County data into OUT/data, then run the demo study into OUT.",
+    )
+    p.add_argument("--out", "-o", type=Path, default=Path("demo-results"), help="output folder (demo-results)")
+    _common(p)
+
     return parser
 
 
@@ -111,6 +192,159 @@ def _cmd_network(args: argparse.Namespace) -> int:
     net.save(args.out)
     print(report.summary_text())
     print(f"\nwrote {args.out}")
+    print(CAUTION)
+    return 0
+
+
+@command("isochrones")
+def _cmd_isochrones(args: argparse.Namespace) -> int:
+    from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons, write_travel_surface
+    from coverkit.network import RoadNetwork
+    from coverkit.travel import read_points
+
+    net = RoadNetwork.load(args.network)
+    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    polygons = drive_time_polygons(
+        net,
+        bases,
+        args.minutes,
+        reach_m=args.reach_m,
+        exact=args.exact,
+        direction=args.direction,
+        max_snap_m=args.snap_m,
+    )
+    table = summary_table(polygons)
+    write_polygons(polygons, args.out)
+    if args.surface:
+        write_travel_surface(
+            net,
+            bases,
+            args.surface,
+            max(args.minutes),
+            cell_m=args.surface_cell_m,
+            reach_m=args.reach_m,
+            direction=args.direction,
+            max_snap_m=args.snap_m,
+        )
+    print(f"{'base':<16}{'band min':>9}{'area km2':>10}{'road km':>10}")
+    for r in table.itertuples(index=False):
+        print(f"{r.base_id!s:<16}{r.band_min:>9g}{r.area_km2:>10.2f}{r.road_km:>10.1f}")
+    print(f"\nwrote {args.out}" + (f" and {args.surface}" if args.surface else ""))
+    print(
+        f"profile '{net.profile.name}', reach {args.reach_m:g} m from the road, travel {args.direction}bound; "
+        "turnout not included"
+    )
+    print(CAUTION)
+    return 0
+
+
+@command("cover")
+def _cmd_cover(args: argparse.Namespace) -> int:
+    import pyogrio
+
+    from coverkit.atomic import write_gpkg_layers
+    from coverkit.coverage import Standard, area_layers, compliance_by, compliance_by_zone, evaluate_coverage, per_base
+    from coverkit.demand import load_demand
+    from coverkit.errors import FieldError
+    from coverkit.network import RoadNetwork
+    from coverkit.travel import read_points
+
+    if (args.zones is None) != (args.zone_field is None):
+        raise FieldError("--zones and --zone-field go together: give the polygon layer and its id field.")
+    std = Standard(f"{args.minutes:g} min", args.minutes * 60.0, args.turnout_s, args.fractile)
+    net = RoadNetwork.load(args.network)
+    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    demand = load_demand(
+        args.demand,
+        net,
+        where=args.where,
+        population_field=args.population_field,
+        weight_field=args.weight_field,
+        id_field=args.demand_id_field,
+        time_field=args.time_field,
+        start=args.start,
+        end=args.end,
+    )
+    res = evaluate_coverage(
+        net, bases, demand, std, max_snap_m=args.demand_snap_m, base_snap_m=args.snap_m, direction=args.direction
+    )
+    is_points = demand["source"].iloc[0] == "points"
+    areas = area_layers(net, res, incidents=demand if is_points else None)
+    out_demand = res.demand.assign(gap_id=areas.demand_gap_id)
+    layers = {
+        "demand": out_demand,
+        "bases": bases,
+        "first_due": areas.first_due,
+        "gaps": areas.gaps,
+        "single_cover": areas.single,
+        "per_base": per_base(res),
+    }
+    zone_table = None
+    if args.zones:
+        zones = pyogrio.read_dataframe(args.zones)
+        zone_table = compliance_by_zone(res, zones, args.zone_field)
+        layers["by_zone"] = zone_table
+    if "priority" in out_demand.columns:
+        layers["by_priority"] = compliance_by(res, "priority")
+    summary = res.summary()
+    import pandas as pd
+
+    layers["summary"] = pd.DataFrame([summary])
+    write_gpkg_layers(args.out, layers)
+    unit = "calls" if is_points else "people"
+    frac = summary["fractile_response_s"]
+    print(std.describe())
+    print(
+        f"demand       {summary['demand_total']:,.0f} {unit} in {summary['demand_points']:,} points "
+        f"({summary['off_network_points']:,} off the network, {summary['off_network']:,.0f} {unit})"
+    )
+    print(f"covered      {summary['covered']:,.0f} {unit} = {summary['covered_share'] * 100:.1f} %")
+    print(f"depth        once {summary['covered_once']:,.0f}, twice or more {summary['covered_twice_or_more']:,.0f}")
+    frac_text = "not reached" if frac == float("inf") else f"{frac:,.0f} s ({frac / 60:.1f} min)"
+    verdict = "meets" if summary["meets_standard"] else "misses"
+    print(f"fractile     {args.fractile * 100:g}th percentile response {frac_text}: {verdict} {std.response_s:,.0f} s")
+    print(
+        f"gaps         {len(areas.gaps)}"
+        + (
+            f"; largest {areas.gaps['population'].iloc[0]:,.0f} {unit}, {areas.gaps['area_km2'].iloc[0]:.1f} km2"
+            if len(areas.gaps)
+            else ""
+        )
+    )
+    print("\nper base (first due)")
+    for r in layers["per_base"].itertuples(index=False):
+        print(
+            f"  {r.base_id:<12}{r.first_due_demand:>12,.0f} {unit} ({r.first_due_share * 100:5.1f} %), "
+            f"sole cover {r.sole_cover:,.0f}"
+        )
+    print(f"\nwrote {args.out}")
+    print(CAUTION)
+    return 0
+
+
+@command("run")
+def _cmd_run(args: argparse.Namespace) -> int:
+    from coverkit.study import headline_lines, run_study
+
+    run = run_study(args.study, args.out)
+    print("\n".join(headline_lines(run)))
+    print(f"\nwrote {len(run.outputs)} outputs to {run.outputs['layers'].parent}")
+    if "report" in run.outputs:
+        print(f"report: {run.outputs['report']}")
+    print(CAUTION)
+    return 0
+
+
+@command("demo")
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from coverkit.demo import write_demo_study
+    from coverkit.study import headline_lines, run_study
+
+    study_path = write_demo_study(args.out)
+    run = run_study(study_path, args.out)
+    print("\n".join(headline_lines(run)))
+    print(f"\ndemo data (fictional) in {args.out / 'data'}; study file {study_path}")
+    print(f"report: {run.outputs.get('report', '')}")
     print(CAUTION)
     return 0
 

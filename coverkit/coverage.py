@@ -71,14 +71,14 @@ class Standard:
         """Turnout plus travel (s)."""
         return self.turnout_s + self.travel_s
 
-    def describe(self) -> str:
-        """One line for maps and reports."""
+    def describe(self, with_source: bool = True) -> str:
+        """One line for maps and reports (the source in brackets unless ``with_source`` is false)."""
         parts = (
             f"{self.turnout_s:g} s turnout + {self.travel_s:g} s travel"
             if self.turnout_s
             else f"{self.travel_s:g} s travel"
         )
-        src = f" ({self.source})" if self.source else ""
+        src = f" ({self.source})" if self.source and with_source else ""
         return f"{self.name}: {parts}, {self.fractile * 100:g} % of demand{src}"
 
 
@@ -166,6 +166,51 @@ class CoverageResult:
         }
 
 
+@dataclass
+class TravelTable:
+    """Travel times from bases to points within a horizon, reusable across standards.
+
+    Attributes
+    ----------
+    base_snap, point_snap
+        Snapped bases and points.
+    times
+        Sparse (n_bases, n_points) travel times (s) within ``horizon_s``.
+    """
+
+    base_snap: object
+    point_snap: object
+    times: sp.csr_matrix
+    horizon_s: float
+    direction: str
+
+
+def travel_table(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame,
+    points: gpd.GeoDataFrame | np.ndarray,
+    horizon_s: float,
+    max_snap_m: float = DEFAULT_DEMAND_SNAP_M,
+    base_snap_m: float = DEFAULT_DEMAND_SNAP_M,
+    direction: str = "out",
+    what: str = "demand points",
+) -> TravelTable:
+    """Snap bases (off-network is an error) and points (off-network is counted) and time every pair in range."""
+    if len(bases) == 0:
+        raise CoverkitError("no bases given; add at least one base (id, lon, lat).")
+    note(f"coverage: snapping {len(bases)} bases and {len(points):,} {what}")
+    base_snap = snap_points(net, bases, max_snap_m=base_snap_m, off_network="raise", what="bases")
+    point_snap = snap_points(net, points, max_snap_m=max_snap_m, off_network="mask", what=what, warn_islands=False)
+    note(f"coverage: searching from {len(bases)} bases (horizon {horizon_s:g} s)")
+    times = point_times(net, base_snap, point_snap, horizon_s, direction=direction)
+    return TravelTable(base_snap, point_snap, times, float(horizon_s), direction)
+
+
+def default_horizon_s(standard: Standard) -> float:
+    """Search horizon: the larger of 3 x the travel standard and :data:`DEFAULT_HORIZON_S`."""
+    return float(max(DEFAULT_HORIZON_S, 3 * standard.travel_s))
+
+
 def evaluate_coverage(
     net: RoadNetwork,
     bases: gpd.GeoDataFrame,
@@ -175,6 +220,7 @@ def evaluate_coverage(
     max_snap_m: float = DEFAULT_DEMAND_SNAP_M,
     base_snap_m: float = DEFAULT_DEMAND_SNAP_M,
     direction: str = "out",
+    table: TravelTable | None = None,
 ) -> CoverageResult:
     """Travel from every base to every demand point; first- and second-due base, depth and coverage.
 
@@ -195,17 +241,20 @@ def evaluate_coverage(
         Snap limits for demand points (off-network ones are counted) and bases (off-network ones are an error).
     direction
         ``"out"`` (base to demand, the default) or ``"in"`` (demand to base).
+    table
+        Travel times already computed by :func:`travel_table` for these bases and demand points (other standards
+        of the same study reuse them); horizon and direction then come from the table.
     """
-    if len(bases) == 0:
-        raise CoverkitError("no bases given; add at least one base (id, lon, lat).")
-    horizon_s = float(horizon_s or max(DEFAULT_HORIZON_S, 3 * standard.travel_s))
-    note(f"coverage: snapping {len(bases)} bases and {len(demand):,} demand points")
-    base_snap = snap_points(net, bases, max_snap_m=base_snap_m, off_network="raise", what="bases")
-    dem_snap = snap_points(
-        net, demand, max_snap_m=max_snap_m, off_network="mask", what="demand points", warn_islands=False
-    )
-    note(f"coverage: searching from {len(bases)} bases (horizon {horizon_s:g} s)")
-    times = point_times(net, base_snap, dem_snap, horizon_s, direction=direction)
+    if table is None:
+        horizon_s = float(horizon_s or default_horizon_s(standard))
+        table = travel_table(net, bases, demand, horizon_s, max_snap_m, base_snap_m, direction)
+    elif standard.travel_s > table.horizon_s:
+        raise CoverkitError(
+            f"standard '{standard.name}' ({standard.travel_s:g} s) exceeds the search horizon {table.horizon_s:g} s; "
+            "raise the horizon."
+        )
+    horizon_s, direction = table.horizon_s, table.direction
+    base_snap, dem_snap, times = table.base_snap, table.point_snap, table.times
     src, t = nearest_sources(times, k=2)
     depth = np.bincount(times.tocoo().col[times.tocoo().data <= standard.travel_s], minlength=len(demand))
     base_ids = bases["id"].astype(str).to_numpy()
@@ -324,6 +373,44 @@ class AreaLayers:
     depth_grid: np.ndarray
     transform: Affine
     demand_gap_id: np.ndarray
+    grid: AreaGrid
+
+
+@dataclass
+class AreaGrid:
+    """The road-near cells of the extent and their travel table (reusable across standards)."""
+
+    nrow: int
+    ncol: int
+    cell_m: float
+    transform: Affine
+    on: np.ndarray  # flat indices of cells within reach of a road
+    table: TravelTable
+
+
+def area_grid(
+    net: RoadNetwork, result: CoverageResult, cell_m: float = DEFAULT_CELL_M, reach_m: float = DEFAULT_REACH_M
+) -> AreaGrid:
+    """Cells of ``cell_m`` over the network extent; those within ``reach_m`` of a road, timed from the bases."""
+    x0, y0, x1, y1 = net.nodes.total_bounds
+    ncol = int(np.ceil((x1 - x0) / cell_m)) + 1
+    nrow = int(np.ceil((y1 - y0) / cell_m)) + 1
+    transform = Affine(cell_m, 0, x0 - cell_m / 2, 0, -cell_m, y1 + cell_m / 2)
+    rr, cc = np.mgrid[0:nrow, 0:ncol]
+    cx = transform.c + (cc.ravel() + 0.5) * cell_m
+    cy = transform.f - (rr.ravel() + 0.5) * cell_m
+    cells = shapely.points(np.column_stack([cx, cy]))
+    snap = snap_points(
+        net, cells, max_snap_m=reach_m, off_network="mask", what="grid cells", warn_islands=False, measure_far=False
+    )
+    on = np.flatnonzero(snap.on_network)
+    note(f"coverage: timing {len(on):,} road-near grid cells of {cell_m:g} m")
+    sub = snap.subset(on)
+    base_snap = result.extra["base_snap"]
+    times = point_times(net, base_snap, sub, result.horizon_s, direction=result.direction)
+    return AreaGrid(
+        nrow, ncol, cell_m, transform, on, TravelTable(base_snap, sub, times, result.horizon_s, result.direction)
+    )
 
 
 def area_layers(
@@ -332,6 +419,7 @@ def area_layers(
     incidents: gpd.GeoDataFrame | None = None,
     cell_m: float = DEFAULT_CELL_M,
     reach_m: float = DEFAULT_REACH_M,
+    grid: AreaGrid | None = None,
 ) -> AreaLayers:
     """First-due areas, gaps (contiguous uncovered areas) and areas covered only once, as polygons.
 
@@ -341,19 +429,11 @@ def area_layers(
     up to the uncovered demand. Gaps are labelled by 8-connectivity and sorted by population, then area.
     """
     crs = result.demand.crs
-    x0, y0, x1, y1 = net.nodes.total_bounds
-    ncol = int(np.ceil((x1 - x0) / cell_m)) + 1
-    nrow = int(np.ceil((y1 - y0) / cell_m)) + 1
-    transform = Affine(cell_m, 0, x0 - cell_m / 2, 0, -cell_m, y1 + cell_m / 2)
-    rr, cc = np.mgrid[0:nrow, 0:ncol]
-    cx = transform.c + (cc.ravel() + 0.5) * cell_m
-    cy = transform.f - (rr.ravel() + 0.5) * cell_m
-    cells = shapely.points(np.column_stack([cx, cy]))
-    snap = snap_points(net, cells, max_snap_m=reach_m, off_network="mask", what="grid cells", warn_islands=False)
-    on = np.flatnonzero(snap.on_network)
-    note(f"coverage: timing {len(on):,} road-near grid cells of {cell_m:g} m")
-    sub = snap.subset(on)
-    times = point_times(net, result.extra["base_snap"], sub, result.horizon_s, direction=result.direction)
+    if grid is None:
+        grid = area_grid(net, result, cell_m, reach_m)
+    nrow, ncol, transform, on = grid.nrow, grid.ncol, grid.transform, grid.on
+    times = grid.table.times
+    cell_m = grid.cell_m
     src, t = nearest_sources(times, k=1)
     coo = times.tocoo()
     depth_on = np.bincount(coo.col[coo.data <= result.standard.travel_s], minlength=len(on))
@@ -416,7 +496,9 @@ def area_layers(
     single = single.dissolve(as_index=False)[["geometry"]] if len(single) else single
     if len(single):
         single["area_km2"] = single.area / 1e6
-    return AreaLayers(first_due, gaps, single, depth_grid.reshape(nrow, ncol), transform, label_to_gap[gap_of_point])
+    return AreaLayers(
+        first_due, gaps, single, depth_grid.reshape(nrow, ncol), transform, label_to_gap[gap_of_point], grid
+    )
 
 
 def _label(mask: np.ndarray) -> np.ndarray:

@@ -121,7 +121,7 @@ def demand_from_polygons(
     poly_ids = gdf[id_field].astype(str).to_numpy() if id_field else np.arange(1, len(gdf) + 1).astype(str)
     pop = pop.to_numpy(dtype=float)
 
-    roads = _undirected_roads(net)
+    roads = net.road_lines().geometry.to_numpy()
     tree = shapely.STRtree(roads)
     poly_idx, road_idx = tree.query(polys, predicate="intersects")
     pieces = shapely.intersection(roads[road_idx], polys[poly_idx])
@@ -158,17 +158,6 @@ def demand_from_polygons(
         geometry=all_pts[nonzero],
         crs=net.crs,
     )
-
-
-def _undirected_roads(net: RoadNetwork) -> np.ndarray:
-    """One geometry per road piece (a two-way street's two directed edges give one)."""
-    e = net.edges
-    lo = np.minimum(e["u"].to_numpy(), e["v"].to_numpy())
-    hi = np.maximum(e["u"].to_numpy(), e["v"].to_numpy())
-    frame = pd.DataFrame({"lo": lo, "hi": hi, "src": e["source_id"].to_numpy(), "len": e["length_m"].to_numpy()})
-    first = ~frame.duplicated(["lo", "hi", "src"])
-    first &= ~e["against_oneway"].to_numpy()
-    return e.geometry.to_numpy()[first.to_numpy()]
 
 
 def demand_from_points(

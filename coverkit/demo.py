@@ -1465,6 +1465,79 @@ def generate_demo(folder: Path, seed: int = DEFAULT_SEED) -> dict[str, Path]:
     return paths
 
 
+#: The demo study file; ``{data}`` is the folder of the demo files and ``{out}`` the output folder, both relative
+#: to the study file. ``examples/demo-study.toml`` is this text with the repository's paths.
+DEMO_STUDY_TEMPLATE = """# The demo study on the fictional Varrowby County (all data invented; see data/demo/README.md).
+# `coverkit run examples/demo-study.toml --out results/` runs it; `coverkit demo` does the same on a fresh copy
+# of the data. Paths are relative to this file.
+
+[study]
+name = "Varrowby County station coverage review (demo)"
+
+[roads]
+source = "{data}varrowby.osm.bz2"
+boundary = "{data}boundary.geojson"
+buffer_m = 3000
+profile = "emergency"
+
+[bases]
+file = "{data}stations.csv"
+
+[[demand]]
+name = "residents"
+raster = "{data}population.tif"
+
+[[demand]]
+name = "calls"
+points = "{data}incidents.csv"
+kind = "incidents"
+
+[[standard]]
+name = "ALS 8 min"
+turnout_s = 60
+travel_s = 480
+fractile = 0.9
+source = "NFPA 1710: ALS unit travel 480 s, EMS turnout 60 s, 90 %"
+
+[[standard]]
+name = "First due 4 min"
+turnout_s = 60
+travel_s = 240
+fractile = 0.9
+source = "NFPA 1710: first-arriving travel 240 s, 60 s turnout, 90 %"
+
+[[standard]]
+name = "Rural 12 min"
+turnout_s = 60
+travel_s = 720
+fractile = 0.8
+source = "example local standard for the rural districts"
+
+[zones]
+file = "{data}districts.geojson"
+id_field = "district"
+
+[outputs]
+folder = "{out}"
+isochrone_minutes = [4, 8, 12]
+surface_cell_m = 50
+"""
+
+
+def demo_study_toml(data_prefix: str = "../data/demo/", out_folder: str = "../results") -> str:
+    """The demo study TOML text with the given data folder prefix and output folder."""
+    return DEMO_STUDY_TEMPLATE.replace("{data}", data_prefix).replace("{out}", out_folder)
+
+
+def write_demo_study(out: Path, seed: int = DEFAULT_SEED) -> Path:
+    """Generate the demo county into ``out/data`` and write ``out/demo-study.toml`` that runs into ``out``."""
+    from coverkit.atomic import write_text_atomic
+
+    out = Path(out)
+    generate_demo(out / "data", seed)
+    return write_text_atomic(out / "demo-study.toml", demo_study_toml("data/", "."))
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Command line: ``python -m coverkit.demo --out data/demo [--seed N] [--quiet]``."""
     parser = argparse.ArgumentParser(prog="python -m coverkit.demo", description="Write the fictional demo county.")

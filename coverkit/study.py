@@ -248,3 +248,251 @@ def load_study(path: str | Path) -> Study:
     if direction not in ("out", "in"):
         raise StudyError(f"{where}: study.direction must be 'out' (base to demand) or 'in', got '{direction}'.")
     return Study(path, raw["study"]["name"], direction, roads, bases, demand, standards, zones, outputs, raw)
+
+
+# -- running ----------------------------------------------------------------------------------------------------------
+@dataclass
+class StandardRun:
+    """Everything computed for one standard."""
+
+    standard: Standard
+    results: dict[str, Any]  # demand name -> CoverageResult
+    areas: Any  # AreaLayers for the residents demand
+    zones: dict[str, Any]  # demand name -> compliance by zone table
+    by_priority: dict[str, Any]
+    per_base: dict[str, Any]
+
+
+@dataclass
+class StudyRun:
+    """The outcome of :func:`run_study`."""
+
+    study: Study
+    network: Any
+    build_summary: str
+    bases: Any
+    demand: dict[str, Any]
+    polygons: Any
+    surface_path: Path
+    runs: list[StandardRun]
+    summary: Any  # DataFrame, one row per standard x demand
+    outputs: dict[str, Path]
+    network_reused: bool
+
+
+def slug(text: str) -> str:
+    """Lower-case ASCII name for layers and files."""
+    out = "".join(ch.lower() if ch.isalnum() else "_" for ch in text)
+    return "_".join(filter(None, out.split("_"))) or "x"
+
+
+def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
+    """Build the study's network, or reuse ``folder/network.gpkg`` when its inputs are unchanged."""
+    from coverkit.network import RoadNetwork, build_network
+    from coverkit.network.centerlines import parse_fields
+    from coverkit.progress import note
+
+    key = study.network_cache_key()
+    path = folder / "network.gpkg"
+    if path.is_file():
+        try:
+            net = RoadNetwork.load(path)
+        except Exception:  # a damaged cache is rebuilt, never trusted
+            net = None
+        if net is not None and net.info.get("cache_key") == key:
+            note(f"network: inputs unchanged, reusing {path}")
+            return net, net.info.get("summary_text", ""), True
+    roads = study.roads
+    fields = roads.get("fields")
+    if isinstance(fields, dict):
+        fields = parse_fields(",".join(f"{k}={v}" for k, v in fields.items()))
+    net, report = build_network(
+        roads["source"],
+        profile=roads.get("profile", "emergency"),
+        boundary=roads.get("boundary"),
+        buffer_m=float(roads.get("buffer_m", 3000.0)),
+        crs=roads.get("crs"),
+        fields=fields,
+        **({"layer": roads["layer"]} if fields and roads.get("layer") else {}),
+    )
+    text = report.summary_text()
+    net.info["cache_key"] = key
+    net.info["summary_text"] = text
+    net.save(path)
+    return net, text, False
+
+
+def run_study(study: Study | str | Path, out: str | Path | None = None) -> StudyRun:
+    """Run a whole study: network, bases, demand, drive-time polygons, surface, coverage per standard, report.
+
+    Every output is written atomically into ``out`` (default: ``outputs.folder`` of the study, relative to the
+    study file, else ``results``).
+    """
+    import pandas as pd
+
+    from coverkit.atomic import write_gpkg_layers, write_text_atomic
+    from coverkit.coverage import (
+        area_layers,
+        compliance_by,
+        compliance_by_zone,
+        default_horizon_s,
+        evaluate_coverage,
+        per_base,
+        travel_table,
+    )
+    from coverkit.demand import load_demand
+    from coverkit.isochrones import drive_time_polygons, write_travel_surface
+    from coverkit.progress import Steps
+    from coverkit.travel import read_points
+
+    if not isinstance(study, Study):
+        study = load_study(study)
+    folder = Path(out) if out else study.folder / study.outputs.get("folder", "results")
+    folder.mkdir(parents=True, exist_ok=True)
+    opts = study.outputs
+    steps = Steps(6, "study")
+
+    steps.step("road network")
+    net, build_text, reused = cached_network(study, folder)
+
+    steps.step("bases and demand")
+    bases = read_points(
+        study.bases["file"],
+        net.crs,
+        id_field=study.bases.get("id_field", "id"),
+        what="bases",
+        layer=study.bases.get("layer"),
+    )
+    demand = {}
+    for spec in study.demand:
+        o = spec.options
+        demand[spec.name] = load_demand(
+            spec.path,
+            net,
+            where=o.get("where"),
+            population_field=o.get("population_field"),
+            weight_field=o.get("weight_field"),
+            id_field=o.get("id_field", "id"),
+            time_field=o.get("time_field"),
+            start=o.get("start"),
+            end=o.get("end"),
+        )
+    kinds = {spec.name: spec.kind for spec in study.demand}
+    snaps = {spec.name: spec.snap_m for spec in study.demand}
+    residents = next((n for n, k in kinds.items() if k == "residents"), study.demand[0].name)
+    incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
+
+    steps.step("drive-time polygons and travel-time surface")
+    minutes = opts["isochrone_minutes"]
+    reach_m = float(opts.get("reach_m", 150.0))
+    polygons = drive_time_polygons(
+        net,
+        bases,
+        minutes,
+        reach_m=reach_m,
+        direction=study.direction,
+        max_snap_m=float(study.bases.get("snap_m", 500.0)),
+    )
+    surface_path = write_travel_surface(
+        net,
+        bases,
+        folder / "travel_minutes.tif",
+        max(minutes),
+        cell_m=float(opts.get("surface_cell_m", 50.0)),
+        reach_m=reach_m,
+        direction=study.direction,
+        max_snap_m=float(study.bases.get("snap_m", 500.0)),
+    )
+
+    steps.step(f"coverage for {len(study.standards)} standards x {len(demand)} demand layers")
+    zones = None
+    if study.zones:
+        import pyogrio
+
+        zones = pyogrio.read_dataframe(study.zones["file"], layer=study.zones.get("layer"))
+        if zones.crs is None:
+            raise StudyError(f"{study.zones['file']}: the zones layer has no CRS; assign one.")
+    runs: list[StandardRun] = []
+    rows = []
+    # one search per demand layer serves every standard: the horizon covers the longest standard
+    horizon_s = float(opts.get("horizon_s") or max(default_horizon_s(s) for s in study.standards))
+    base_snap_m = float(study.bases.get("snap_m", 500.0))
+    tables = {
+        name: travel_table(net, bases, dem, horizon_s, snaps[name], base_snap_m, study.direction)
+        for name, dem in demand.items()
+    }
+    grid = None
+    for std in study.standards:
+        results, zone_tables, prio_tables, base_tables = {}, {}, {}, {}
+        for name, dem in demand.items():
+            res = evaluate_coverage(net, bases, dem, std, table=tables[name])
+            results[name] = res
+            if zones is not None:
+                zone_tables[name] = compliance_by_zone(res, zones, study.zones["id_field"])
+            if "priority" in dem.columns:
+                prio_tables[name] = compliance_by(res, "priority")
+            base_tables[name] = per_base(res)
+            rows.append({"standard": std.name, "demand": name, "kind": kinds[name], **res.summary()})
+        areas = area_layers(
+            net,
+            results[residents],
+            incidents=demand[incidents] if incidents else None,
+            cell_m=float(opts.get("grid_cell_m", 100.0)),
+            reach_m=float(opts.get("reach_m", 150.0)) + 50.0,
+            grid=grid,
+        )
+        grid = areas.grid
+        results[residents].demand["gap_id"] = areas.demand_gap_id
+        runs.append(StandardRun(std, results, areas, zone_tables, prio_tables, base_tables))
+    summary = pd.DataFrame(rows)
+
+    steps.step("writing layers and tables")
+    outputs: dict[str, Path] = {"network": folder / "network.gpkg", "surface": surface_path}
+    layers: dict[str, Any] = {"bases": bases, "drive_time_polygons": polygons}
+    for run in runs:
+        s = slug(run.standard.name)
+        for name, res in run.results.items():
+            layers[f"demand_{slug(name)}_{s}"] = res.demand
+        layers[f"first_due_{s}"] = run.areas.first_due
+        layers[f"gaps_{s}"] = run.areas.gaps
+        layers[f"single_cover_{s}"] = run.areas.single
+        for name, table in run.zones.items():
+            layers[f"zones_{slug(name)}_{s}"] = table
+        for name, table in run.by_priority.items():
+            layers[f"priority_{slug(name)}_{s}"] = table
+        for name, table in run.per_base.items():
+            layers[f"bases_{slug(name)}_{s}"] = table
+    layers["summary"] = summary.drop(columns=["standard_text"])
+    outputs["layers"] = write_gpkg_layers(folder / "coverage.gpkg", layers)
+    outputs["summary_csv"] = write_text_atomic(folder / "summary.csv", summary.to_csv(index=False))
+    result = StudyRun(study, net, build_text, bases, demand, polygons, surface_path, runs, summary, outputs, reused)
+
+    steps.step("maps and report")
+    if opts.get("maps", True) or opts.get("report", True):
+        from coverkit.report.study_report import write_study_report
+
+        outputs.update(write_study_report(result, folder, html=opts.get("report", True)))
+    return result
+
+
+def headline_lines(run: StudyRun) -> list[str]:
+    """The headline numbers of a study, one line each, for the CLI."""
+    lines = [f"{run.study.name}", ""]
+    for r in run.summary.itertuples(index=False):
+        frac = r.fractile_response_s
+        frac_text = "not reached" if frac == float("inf") else f"{frac / 60:.1f} min"
+        unit = "people" if r.kind == "residents" else "calls"
+        lines.append(
+            f"{r.standard:<22} {r.demand:<12} covered {r.covered_share * 100:5.1f} % "
+            f"({r.covered:,.0f} of {r.demand_total:,.0f} {unit}); {r.fractile * 100:g}th percentile response "
+            f"{frac_text} - {'meets' if r.meets_standard else 'misses'} the standard"
+        )
+    for srun in run.runs:
+        gaps = srun.areas.gaps
+        if len(gaps):
+            top = gaps.iloc[0]
+            lines.append(
+                f"{srun.standard.name:<22} {len(gaps)} gaps; largest holds {top['population']:,.0f} people, "
+                f"{int(top['incidents'])} incidents, {top['area_km2']:.1f} km2"
+            )
+    return lines

@@ -149,6 +149,19 @@ class RoadNetwork:
             info["changes"] = [*info.get("changes", []), note]
         return RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
 
+    def road_lines(self) -> gpd.GeoDataFrame:
+        """One row per road piece: the directed edges with a two-way street's reverse twin (and against-one-way
+        copies) left out. For drawing and for placing things along roads."""
+        key = "road_lines"
+        if key not in self._csr_cache:
+            e = self.edges
+            lo = np.minimum(e["u"].to_numpy(), e["v"].to_numpy())
+            hi = np.maximum(e["u"].to_numpy(), e["v"].to_numpy())
+            frame = pd.DataFrame({"lo": lo, "hi": hi, "src": e["source_id"].to_numpy()})
+            first = ~frame.duplicated(["lo", "hi", "src"]).to_numpy() & ~e["against_oneway"].to_numpy()
+            self._csr_cache[key] = e.loc[first, ["edge_id", "road_class", "name", "length_m", "geometry"]]
+        return self._csr_cache[key]
+
     def open_edges(self) -> np.ndarray:
         """Boolean mask of edges with finite travel time."""
         return np.isfinite(self.travel_s)

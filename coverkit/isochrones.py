@@ -1,0 +1,686 @@
+"""Drive-time polygons per base and band, and the travel-time surface (GeoTIFF).
+
+A drive-time polygon for a band of T minutes is the set of places within ``reach_m`` (straight line) of some road
+point that the search reaches within T minutes: reached edges plus partial edges, dilated by the reach distance. It
+hugs the roads and has holes where no reached road comes within ``reach_m``; it is never a convex hull.
+
+Two constructions of the same set:
+
+* **fast** (default): the exact distance from grid nodes (spacing ``cell_m``, default ``reach_m / 3``) to the reached
+  road pieces of each band is splatted into a grid in numpy, accumulated over bands by a running minimum (so bands are
+  nested by construction), and the ``reach_m`` level line is traced with linear interpolation (``contourpy``), which
+  places the outline well inside a cell of the true line.
+* **exact** (``exact=True``): shapely 2 buffer of the reached pieces, unioned band by band; the reference.
+
+In both, holes smaller than ``min_hole_km2`` are filled and the polygon of band k is unioned with band k-1, so bands
+nest exactly. Areas are planar in the network CRS.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import contourpy
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+from coverkit.atomic import atomic_path
+from coverkit.errors import CoverkitError
+from coverkit.network.model import RoadNetwork
+from coverkit.progress import counted
+from coverkit.travel.search import _check_direction, nearest_node_times, node_times, run_s
+from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, road_pieces, snap_points
+
+#: Default reach distance from a reached road (m): how far off the road a place still counts as reached.
+DEFAULT_REACH_M = 150.0
+#: Default: holes smaller than this (km^2) are filled (1 ha).
+DEFAULT_MIN_HOLE_KM2 = 0.01
+#: Default travel-time surface cell size (m).
+DEFAULT_SURFACE_CELL_M = 50.0
+#: ``base_id`` of the rows for the union over all bases.
+ANY_BASE_ID = "(any base)"
+#: Surface nodata value (minutes).
+SURFACE_NODATA = -1.0
+
+COLUMNS = ["base_id", "band_min", "area_km2", "road_km", "geometry"]
+
+_PAIRS_PER_BATCH = 4_000_000
+
+
+def drive_time_polygons(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame | Snapped,
+    minutes: list[float],
+    reach_m: float = DEFAULT_REACH_M,
+    exact: bool = False,
+    cell_m: float | None = None,
+    direction: str = "out",
+    any_base: bool = True,
+    min_hole_km2: float = DEFAULT_MIN_HOLE_KM2,
+    max_snap_m: float = DEFAULT_MAX_SNAP_M,
+) -> gpd.GeoDataFrame:
+    """Drive-time polygons for every base and band, plus an "any base" polygon per band.
+
+    Parameters
+    ----------
+    net
+        Road network.
+    bases
+        Bases: a GeoDataFrame with ``id`` (as from :func:`coverkit.travel.read_points`) or already snapped points.
+    minutes
+        Band limits (minutes), e.g. ``[4, 8, 12]``; sorted and de-duplicated.
+    reach_m
+        Reach distance from a reached road (m), default 150.
+    exact
+        Use the shapely buffer-and-union construction instead of the fast grid one.
+    cell_m
+        Grid spacing of the fast path (m), default ``reach_m / 3``.
+    direction
+        ``"out"`` (from the base) or ``"in"`` (to the base).
+    any_base
+        Also return the union over bases (``base_id = ANY_BASE_ID``).
+    min_hole_km2
+        Holes smaller than this (km²) are filled.
+    max_snap_m
+        Snap limit for the bases (m).
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        Columns ``base_id, band_min, area_km2, road_km, geometry`` (CRS of the network), rows by base (input order,
+        then the any-base rows) and band.
+
+    Raises
+    ------
+    CoverkitError
+        Empty or non-positive band list, non-positive reach; :class:`~coverkit.errors.OffNetworkError` for bases
+        beyond the snap limit.
+    """
+    bands_s = _bands_s(minutes)
+    if not (reach_m > 0 and np.isfinite(reach_m)):
+        raise CoverkitError(f"reach distance {reach_m} m must be a positive number of metres (e.g. 150).")
+    _check_direction(direction)
+    cell_m = float(cell_m) if cell_m else reach_m / 3.0
+    snapped = _snap_bases(net, bases, max_snap_m)
+    times = node_times(net, snapped, float(bands_s[-1]), direction=direction)
+    rows = []
+    jobs = [(str(snapped.ids[i]), i) for i in range(len(snapped))]
+    if any_base:
+        jobs.append((ANY_BASE_ID, -1))
+    for base_id, i in counted(jobs, len(jobs), "drive-time polygons", every=max(1, len(jobs) // 10)):
+        if i >= 0:
+            d = np.full(net.n_nodes, np.inf)
+            sl = slice(times.indptr[i], times.indptr[i + 1])
+            d[times.indices[sl]] = times.data[sl]
+            src = snapped.subset([i])
+        else:
+            d, _ = nearest_node_times(net, snapped, float(bands_s[-1]), direction=direction)
+            src = snapped
+        reached = reached_pieces(net, d, src, bands_s, direction)
+        geoms = band_polygons(reached, bands_s, reach_m, exact=exact, cell_m=cell_m, min_hole_km2=min_hole_km2)
+        km = reached_road_km(reached, len(bands_s))
+        for k, g in enumerate(geoms):
+            rows.append((base_id, float(bands_s[k] / 60.0), g.area / 1e6, km[k], g))
+    df = pd.DataFrame(rows, columns=COLUMNS)
+    return gpd.GeoDataFrame(df, geometry="geometry", crs=net.crs)
+
+
+def summary_table(polygons: gpd.GeoDataFrame) -> pd.DataFrame:
+    """The printed table: base, band (min), area (km²), road reached (km), rounded for display."""
+    out = polygons[["base_id", "band_min", "area_km2", "road_km"]].copy()
+    out.columns = ["base", "band_min", "area_km2", "road_km"]
+    out["area_km2"] = out["area_km2"].round(2)
+    out["road_km"] = out["road_km"].round(1)
+    return out.reset_index(drop=True)
+
+
+def write_polygons(polygons: gpd.GeoDataFrame, path: str | Path) -> Path:
+    """Write polygons to a GeoPackage atomically: layers ``reach_by_base`` and ``reach_any_base``."""
+    path = Path(path)
+    by_base = polygons[polygons["base_id"] != ANY_BASE_ID]
+    anyb = polygons[polygons["base_id"] == ANY_BASE_ID]
+    with atomic_path(path) as tmp:
+        by_base.to_file(tmp, layer="reach_by_base", driver="GPKG")
+        if len(anyb):
+            anyb.to_file(tmp, layer="reach_any_base", driver="GPKG", mode="a")
+    return path
+
+
+# -- reached road pieces ------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Reached:
+    """Reached road, as increments: piece ``piece`` is reached on ``[a, b]`` (fractions along the piece's geometry)
+    from band ``band`` (0-based) on. The reached road of band k is the union of the rows with ``band <= k``."""
+
+    net: RoadNetwork
+    piece: np.ndarray
+    band: np.ndarray
+    a: np.ndarray
+    b: np.ndarray
+
+
+def reached_pieces(
+    net: RoadNetwork, node_s: np.ndarray, sources: Snapped, bands_s: np.ndarray, direction: str = "out"
+) -> Reached:
+    """Reached road increments per band from node times and the sources' own edges.
+
+    Parameters
+    ----------
+    net
+        Road network.
+    node_s
+        Time (s) from the sources to each node (``"out"``) or from each node to the sources (``"in"``); ``inf`` if
+        not reached.
+    sources
+        The snapped sources whose partial edges start the search (time 0 at the source point).
+    bands_s
+        Band limits (s), increasing.
+    direction
+        ``"out"`` or ``"in"``.
+    """
+    pieces = road_pieces(net)
+    run = run_s(net)
+    delay = net.edges["delay_s"].to_numpy(dtype=float)
+    open_e = np.flatnonzero(np.isfinite(run))
+    if direction == "out":
+        t0 = node_s[net.u[open_e]]
+        anchor = np.zeros(len(open_e))
+        sign = 1.0
+    else:
+        t0 = node_s[net.v[open_e]] + delay[open_e]
+        anchor = np.ones(len(open_e))
+        sign = -1.0
+    ok = t0 <= bands_s[-1]
+    e = np.concatenate([open_e[ok], sources.entry_edge])
+    f_a = np.concatenate([anchor[ok], sources.entry_frac])
+    t_a = np.concatenate([t0[ok], np.zeros(len(sources.entry_edge))])
+    span = 1.0 - f_a if sign > 0 else f_a
+    r = run[e]
+    # reached length (fraction) at each band: (B - t0) / run, clipped to what is left of the edge
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ell = np.where(
+            r[:, None] > 0, (bands_s[None, :] - t_a[:, None]) / r[:, None], np.where(bands_s >= t_a[:, None], 1.0, 0.0)
+        )
+    ell = np.clip(ell, 0.0, span[:, None])
+    prev = np.concatenate([np.zeros((len(e), 1)), ell[:, :-1]], axis=1)
+    ri, k = np.nonzero(ell > prev)
+    lo_l, hi_l = prev[ri, k], ell[ri, k]
+    fa = f_a[ri]
+    if sign > 0:
+        a, b = fa + lo_l, fa + hi_l
+    else:
+        a, b = fa - hi_l, fa - lo_l
+    ee = e[ri]
+    rev = pieces.reversed_of_edge[ee]
+    a2 = np.where(rev, 1.0 - b, a)
+    b2 = np.where(rev, 1.0 - a, b)
+    piece = pieces.piece_of_edge[ee]
+    # a piece wholly covered from band j on (e.g. a two-way street reached from both ends) becomes one [0, 1]
+    # row at band j: halves the geometry work without changing the reached set
+    n_b = len(bands_s)
+    n_p = len(pieces.rep_edge)
+    full_band = np.full(n_p, n_b, dtype=np.int64)
+    for j in range(n_b - 1, -1, -1):
+        sel = k <= j
+        full = _covered(piece[sel], a2[sel], b2[sel], n_p) >= 1.0 - 1e-9
+        full_band[full] = j
+    keep = k < full_band[piece]
+    full_p = np.flatnonzero(full_band < n_b)
+    piece = np.concatenate([piece[keep], full_p])
+    band = np.concatenate([k[keep], full_band[full_p]])
+    a = np.concatenate([a2[keep], np.zeros(len(full_p))])
+    b = np.concatenate([b2[keep], np.ones(len(full_p))])
+    order = np.lexsort((a, band, piece))
+    return Reached(net, piece[order], band[order], a[order], b[order])
+
+
+def _covered(p: np.ndarray, a: np.ndarray, b: np.ndarray, n_pieces: int) -> np.ndarray:
+    """Fraction of each piece covered by the union of intervals ``[a, b]`` on piece ``p`` (shape (n_pieces,))."""
+    out = np.zeros(n_pieces)
+    if len(p) == 0:
+        return out
+    order = np.lexsort((a, p))
+    p, a, b = p[order], a[order], b[order]
+    # one running max serves all pieces: offset each piece's fractions by 2 * (rank of the piece)
+    first = np.r_[True, p[1:] != p[:-1]]
+    rank = np.cumsum(first) - 1
+    cm = np.maximum.accumulate(b + 2.0 * rank)
+    prev = np.r_[-np.inf, cm[:-1]] - 2.0 * rank
+    prev[first] = -np.inf
+    np.add.at(out, p, np.maximum(0.0, b - np.maximum(a, prev)))
+    return out
+
+
+def reached_road_km(reached: Reached, n_bands: int) -> np.ndarray:
+    """Length of road reached in each band (km), each physical street counted once."""
+    pieces = road_pieces(reached.net)
+    piece_len = reached.net.length_m[pieces.rep_edge]
+    out = np.zeros(n_bands)
+    for k in range(n_bands):
+        sel = reached.band <= k
+        cov = _covered(reached.piece[sel], reached.a[sel], reached.b[sel], len(piece_len))
+        out[k] = float((cov * piece_len).sum() / 1000.0)
+    return out
+
+
+def reached_segments(reached: Reached) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Straight segments of the reached increments.
+
+    Returns
+    -------
+    xy
+        Shape (S, 4): x0, y0, x1, y1 (m).
+    band
+        Shape (S,): the band from which each segment is reached.
+    row
+        Shape (S,): the increment (row of ``reached``) each segment belongs to, segments in order along it.
+    """
+    seg = _piece_segments(reached.net)
+    p = reached.piece
+    cnt = seg["ptr"][p + 1] - seg["ptr"][p]
+    row = np.repeat(np.arange(len(p)), cnt)
+    s = np.repeat(seg["ptr"][p], cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))
+    s0, s1 = seg["f0"][s], seg["f1"][s]
+    lo = np.maximum(s0, reached.a[row])
+    hi = np.minimum(s1, reached.b[row])
+    keep = hi > lo
+    keep |= (hi == lo) & (reached.a[row] == reached.b[row])
+    row, s, s0, s1, lo, hi = row[keep], s[keep], s0[keep], s1[keep], lo[keep], hi[keep]
+    width = np.where(s1 > s0, s1 - s0, 1.0)
+    t0 = ((lo - s0) / width)[:, None]
+    t1 = ((hi - s0) / width)[:, None]
+    p0, p1 = seg["xy"][s, :2], seg["xy"][s, 2:]
+    out = np.column_stack([p0 + t0 * (p1 - p0), p0 + t1 * (p1 - p0)])
+    return out, reached.band[row], row
+
+
+def _piece_segments(net: RoadNetwork) -> dict:
+    """Straight segments of every piece's geometry with their fraction range along the piece (cached)."""
+    key = "coverkit.isochrones:segments"
+    if key in net._csr_cache:
+        return net._csr_cache[key]
+    pieces = road_pieces(net)
+    geoms = net.edges.geometry.to_numpy()[pieces.rep_edge]
+    coords, idx = shapely.get_coordinates(geoms, return_index=True)
+    same = idx[1:] == idx[:-1]
+    start = np.flatnonzero(same)
+    seg_xy = np.column_stack([coords[start], coords[start + 1]])
+    seg_piece = idx[start]
+    seg_len = np.hypot(seg_xy[:, 2] - seg_xy[:, 0], seg_xy[:, 3] - seg_xy[:, 1])
+    total = np.bincount(seg_piece, weights=seg_len, minlength=len(geoms))
+    cum = np.cumsum(seg_len)
+    first_of_piece = np.r_[True, seg_piece[1:] != seg_piece[:-1]]
+    base = np.maximum.accumulate(np.where(first_of_piece, cum - seg_len, 0.0))
+    start_m = cum - seg_len - base
+    tot = np.where(total[seg_piece] > 0, total[seg_piece], 1.0)
+    f0 = start_m / tot
+    f1 = np.where(total[seg_piece] > 0, (start_m + seg_len) / tot, 1.0)
+    ptr = np.concatenate([[0], np.cumsum(np.bincount(seg_piece, minlength=len(geoms)))])
+    out = {"xy": seg_xy, "f0": f0, "f1": f1, "ptr": ptr}
+    net._csr_cache[key] = out
+    return out
+
+
+# -- polygons ----------------------------------------------------------------------------------------------------
+def band_polygons(
+    reached: Reached,
+    bands_s: np.ndarray,
+    reach_m: float,
+    exact: bool = False,
+    cell_m: float | None = None,
+    min_hole_km2: float = DEFAULT_MIN_HOLE_KM2,
+) -> list[shapely.Geometry]:
+    """One (multi)polygon per band from the reached road increments, nested, valid, small holes filled."""
+    xy, band, row = reached_segments(reached)
+    n_b = len(bands_s)
+    if exact:
+        raw = _exact_polygons(xy, band, row, n_b, reach_m)
+    else:
+        raw = _fast_polygons(xy, band, n_b, reach_m, cell_m or reach_m / 3.0)
+    out: list[shapely.Geometry] = []
+    prev = shapely.Polygon()
+    for g in raw:
+        g = _clean(g, min_hole_km2 * 1e6)
+        if not prev.is_empty:
+            g = _clean(shapely.union(g, prev), min_hole_km2 * 1e6)
+        out.append(g)
+        prev = g
+    return out
+
+
+def _exact_polygons(xy, band, row, n_b, reach_m) -> list[shapely.Geometry]:
+    """Buffer the reached polylines of each band increment and union cumulatively (shapely 2)."""
+    out = []
+    acc = shapely.Polygon()
+    lines = _polylines(xy, row)
+    line_band = np.zeros(len(lines), dtype=np.int64)
+    if len(row):
+        first = np.r_[True, row[1:] != row[:-1]]
+        line_band = band[first]
+    for k in range(n_b):
+        sel = lines[line_band == k]
+        if len(sel):
+            # union of per-line buffers is far faster in GEOS than buffering one multi-line
+            bufs = shapely.buffer(sel, reach_m, quad_segs=8)
+            acc = shapely.union_all(np.append(bufs, acc) if not acc.is_empty else bufs)
+        out.append(acc)
+    return out
+
+
+def _polylines(xy: np.ndarray, row: np.ndarray) -> np.ndarray:
+    """One linestring per increment row from its consecutive straight segments."""
+    if len(row) == 0:
+        return np.empty(0, dtype=object)
+    first = np.r_[True, row[1:] != row[:-1]]
+    n_pts = len(row) + int(first.sum())
+    pts = np.empty((n_pts, 2))
+    ids = np.empty(n_pts, dtype=np.int64)
+    # each segment contributes its end point; the first segment of a row also its start point
+    pos_end = np.arange(len(row)) + np.cumsum(first)
+    pts[pos_end] = xy[:, 2:]
+    ids[pos_end] = row
+    pos_start = pos_end[first] - 1
+    pts[pos_start] = xy[first, :2]
+    ids[pos_start] = row[first]
+    return shapely.linestrings(pts, indices=np.cumsum(np.r_[True, ids[1:] != ids[:-1]]) - 1)
+
+
+def _fast_polygons(xy, band, n_b, reach_m, cell_m) -> list[shapely.Geometry]:
+    """Distance-to-reached-road grid per band (running minimum over bands), traced at ``reach_m``."""
+    if len(xy) == 0:
+        return [shapely.Polygon()] * n_b
+    margin = reach_m + 2.0 * cell_m
+    cap = reach_m + 2.0 * cell_m
+    xy, band = _split_long(xy, band, reach_m)
+    x_min = np.floor((min(xy[:, 0].min(), xy[:, 2].min()) - margin) / cell_m) * cell_m
+    y_min = np.floor((min(xy[:, 1].min(), xy[:, 3].min()) - margin) / cell_m) * cell_m
+    x_max = max(xy[:, 0].max(), xy[:, 2].max()) + margin
+    y_max = max(xy[:, 1].max(), xy[:, 3].max()) + margin
+    nx = int(np.ceil((x_max - x_min) / cell_m)) + 1
+    ny = int(np.ceil((y_max - y_min) / cell_m)) + 1
+    field = np.full(n_b * ny * nx, np.float32(cap), dtype=np.float32)
+    # local coordinates in cell units, float32 is ample at this scale
+    loc = ((xy - np.array([x_min, y_min, x_min, y_min])) / cell_m).astype(np.float32)
+    rad = (reach_m + 1.5 * cell_m) / cell_m  # values are needed up to one diagonal cell beyond the level
+    ix_lo = np.maximum(np.ceil(np.minimum(loc[:, 0], loc[:, 2]) - rad), 0).astype(np.int64)
+    ix_hi = np.minimum(np.floor(np.maximum(loc[:, 0], loc[:, 2]) + rad), nx - 1).astype(np.int64)
+    iy_lo = np.maximum(np.ceil(np.minimum(loc[:, 1], loc[:, 3]) - rad), 0).astype(np.int64)
+    iy_hi = np.minimum(np.floor(np.maximum(loc[:, 1], loc[:, 3]) + rad), ny - 1).astype(np.int64)
+    wx = ix_hi - ix_lo + 1
+    cnt = wx * (iy_hi - iy_lo + 1)
+    ends = np.cumsum(cnt)
+    start = 0
+    while start < len(cnt):
+        base_count = ends[start - 1] if start else 0
+        stop = int(np.searchsorted(ends, base_count + _PAIRS_PER_BATCH, side="right"))
+        stop = max(stop, start + 1)
+        sl = slice(start, stop)
+        c = cnt[sl]
+        seg = np.repeat(np.arange(start, stop), c)
+        local = np.arange(int(c.sum())) - np.repeat(np.cumsum(c) - c, c)
+        gx = ix_lo[seg] + local % wx[seg]
+        gy = iy_lo[seg] + local // wx[seg]
+        x0, y0, x1, y1 = loc[seg, 0], loc[seg, 1], loc[seg, 2], loc[seg, 3]
+        dx, dy = x1 - x0, y1 - y0
+        px, py = gx.astype(np.float32) - x0, gy.astype(np.float32) - y0
+        ll = dx * dx + dy * dy
+        t = np.clip((px * dx + py * dy) / np.where(ll > 0, ll, np.float32(1.0)), 0.0, 1.0)
+        d = np.hypot(px - t * dx, py - t * dy) * np.float32(cell_m)
+        near = d < cap
+        flat = band[seg[near]] * (ny * nx) + gy[near] * nx + gx[near]
+        np.minimum.at(field, flat, d[near])
+        start = stop
+    field = np.minimum.accumulate(field.reshape(n_b, ny, nx), axis=0)
+    xs = x_min + np.arange(nx) * cell_m
+    ys = y_min + np.arange(ny) * cell_m
+    out = []
+    for k in range(n_b):
+        gen = contourpy.contour_generator(xs, ys, field[k], name="serial", fill_type="OuterOffset")
+        points, offsets = gen.filled(-1.0, reach_m)
+        out.append(_polygons_from_contours(points, offsets))
+    return out
+
+
+def _split_long(xy: np.ndarray, band: np.ndarray, max_len: float) -> tuple[np.ndarray, np.ndarray]:
+    """Split segments longer than ``max_len`` so their bounding boxes stay tight around them."""
+    length = np.hypot(xy[:, 2] - xy[:, 0], xy[:, 3] - xy[:, 1])
+    n = np.maximum(np.ceil(length / max_len), 1).astype(np.int64)
+    if (n == 1).all():
+        return xy, band
+    idx = np.repeat(np.arange(len(xy)), n)
+    j = np.arange(n.sum()) - np.repeat(np.cumsum(n) - n, n)
+    t0 = (j / n[idx])[:, None]
+    t1 = ((j + 1) / n[idx])[:, None]
+    p0, p1 = xy[idx, :2], xy[idx, 2:]
+    return np.column_stack([p0 + t0 * (p1 - p0), p0 + t1 * (p1 - p0)]), band[idx]
+
+
+def _polygons_from_contours(points: list, offsets: list) -> shapely.Geometry:
+    """Shapely (multi)polygon from contourpy ``OuterOffset`` output (first ring shell, the rest holes)."""
+    if not points:
+        return shapely.Polygon()
+    ring_pts, ring_ids, poly_of_ring = [], [], []
+    n_ring = 0
+    for poly_i, (pts, off) in enumerate(zip(points, offsets, strict=True)):
+        sizes = np.diff(off)
+        ring_pts.append(pts)
+        ring_ids.append(np.repeat(np.arange(n_ring, n_ring + len(sizes)), sizes))
+        poly_of_ring.append(np.full(len(sizes), poly_i))
+        n_ring += len(sizes)
+    rings = shapely.linearrings(np.concatenate(ring_pts), indices=np.concatenate(ring_ids))
+    polys = shapely.polygons(rings, indices=np.concatenate(poly_of_ring))
+    return shapely.make_valid(shapely.multipolygons(polys))
+
+
+def _clean(geom: shapely.Geometry, min_hole_m2: float) -> shapely.Geometry:
+    """Valid polygonal geometry with holes smaller than ``min_hole_m2`` filled."""
+    if geom.is_empty:
+        return shapely.MultiPolygon()
+    if not geom.is_valid:
+        geom = shapely.make_valid(geom)
+    parts = shapely.get_parts(geom)
+    parts = parts[np.isin(shapely.get_type_id(parts), [3])]  # polygons only (make_valid may add lines)
+    if geom.geom_type == "GeometryCollection":
+        parts = np.concatenate([shapely.get_parts(p) for p in shapely.get_parts(geom) if p.area > 0] or [parts])
+        parts = parts[shapely.get_type_id(parts) == 3]
+    if len(parts) == 0:
+        return shapely.MultiPolygon()
+    rings, idx = shapely.get_rings(parts, return_index=True)
+    first = np.r_[True, idx[1:] != idx[:-1]]
+    ring_area = shapely.area(shapely.polygons(rings))
+    keep = first | (ring_area >= min_hole_m2)
+    polys = shapely.polygons(rings[keep], indices=idx[keep])
+    out = shapely.union_all(polys) if len(polys) > 1 else polys[0]
+    if not out.is_valid:
+        out = shapely.make_valid(out)
+    if out.geom_type == "Polygon":
+        out = shapely.MultiPolygon([out])
+    return out
+
+
+# -- travel-time surface -----------------------------------------------------------------------------------------
+def write_travel_surface(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame | Snapped,
+    path: str | Path,
+    max_minutes: float,
+    cell_m: float = DEFAULT_SURFACE_CELL_M,
+    reach_m: float = DEFAULT_REACH_M,
+    base_id: str | None = None,
+    direction: str = "out",
+    max_snap_m: float = DEFAULT_MAX_SNAP_M,
+) -> Path:
+    """Write a GeoTIFF of minutes to the nearest base (or from one base), atomically.
+
+    A cell's value is the least travel time (minutes) of the reached road in the cells whose centres lie within
+    ``reach_m`` of its centre (road sampled every half cell with exact times) - the polygons' rule at the cell
+    size; cells beyond ``max_minutes`` hold nodata (:data:`SURFACE_NODATA`).
+
+    Parameters
+    ----------
+    net, bases, direction, max_snap_m, reach_m
+        As in :func:`drive_time_polygons`.
+    path
+        Output ``.tif``.
+    max_minutes
+        Largest band (minutes); the search bound.
+    cell_m
+        Cell size (m), default 50.
+    base_id
+        Only this base (default: nearest of all bases).
+    """
+    surface, transform = travel_surface(net, bases, max_minutes, cell_m, reach_m, base_id, direction, max_snap_m)
+    import rasterio
+
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        with rasterio.open(
+            tmp,
+            "w",
+            driver="GTiff",
+            height=surface.shape[0],
+            width=surface.shape[1],
+            count=1,
+            dtype="float32",
+            crs=net.crs.to_wkt(),
+            transform=transform,
+            nodata=SURFACE_NODATA,
+            compress="deflate",
+        ) as dst:
+            dst.write(surface, 1)
+            dst.update_tags(units="minutes", reach_m=str(reach_m), direction=direction)
+            dst.set_band_description(1, "travel time (minutes)")
+    return path
+
+
+def travel_surface(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame | Snapped,
+    max_minutes: float,
+    cell_m: float = DEFAULT_SURFACE_CELL_M,
+    reach_m: float = DEFAULT_REACH_M,
+    base_id: str | None = None,
+    direction: str = "out",
+    max_snap_m: float = DEFAULT_MAX_SNAP_M,
+):
+    """The travel-time surface as a float32 array (minutes, nodata :data:`SURFACE_NODATA`) and its affine transform.
+
+    See :func:`write_travel_surface`.
+    """
+    from affine import Affine
+    from scipy.ndimage import minimum_filter
+
+    limit_s = float(_bands_s([max_minutes])[-1])
+    if not (cell_m > 0 and np.isfinite(cell_m)):
+        raise CoverkitError(f"surface cell size {cell_m} m must be a positive number of metres (e.g. 50).")
+    snapped = _snap_bases(net, bases, max_snap_m)
+    if base_id is not None:
+        match = np.flatnonzero(snapped.ids.astype(str) == str(base_id))
+        if len(match) == 0:
+            raise CoverkitError(f"base '{base_id}' is not in the bases file; give one of its ids.")
+        snapped = snapped.subset(match[:1])
+    d, _ = nearest_node_times(net, snapped, limit_s, direction=direction)
+    reached = reached_pieces(net, d, snapped, np.array([limit_s]), direction)
+    # sample reached road every cell/2 with exact times; the time of a sample is its minimum over increments
+    seg = _piece_segments(net)
+    pieces = road_pieces(net)
+    piece_len = np.maximum(net.length_m[pieces.rep_edge], 1e-9)
+    step_m = cell_m / 2.0
+    n_s = np.maximum(np.ceil((reached.b - reached.a) * piece_len[reached.piece] / step_m), 1).astype(np.int64) + 1
+    r = np.repeat(np.arange(len(reached.piece)), n_s)
+    j = np.arange(n_s.sum()) - np.repeat(np.cumsum(n_s) - n_s, n_s)
+    f = reached.a[r] + (reached.b[r] - reached.a[r]) * j / (n_s[r] - 1)
+    t_s = _time_at(net, d, snapped, reached.piece[r], f, direction)
+    p = reached.piece[r]
+    pts = _interp_on_pieces(seg, p, f)
+    if len(pts) == 0:
+        raise CoverkitError("no road is reached within the surface time; raise max_minutes.")
+    margin = reach_m + cell_m
+    x0 = np.floor((pts[:, 0].min() - margin) / cell_m) * cell_m
+    y1 = np.ceil((pts[:, 1].max() + margin) / cell_m) * cell_m
+    nx = int(np.ceil((pts[:, 0].max() + margin - x0) / cell_m))
+    ny = int(np.ceil((y1 - (pts[:, 1].min() - margin)) / cell_m))
+    col = np.clip(((pts[:, 0] - x0) / cell_m).astype(np.int64), 0, nx - 1)
+    row = np.clip(((y1 - pts[:, 1]) / cell_m).astype(np.int64), 0, ny - 1)
+    grid = np.full(ny * nx, np.inf)
+    np.minimum.at(grid, row * nx + col, t_s)
+    rad = int(np.floor(reach_m / cell_m))
+    yy, xx = np.mgrid[-rad : rad + 1, -rad : rad + 1]
+    footprint = (xx * xx + yy * yy) * cell_m * cell_m <= reach_m * reach_m
+    grid = minimum_filter(grid.reshape(ny, nx), footprint=footprint, mode="constant", cval=np.inf)
+    minutes = np.where(grid <= limit_s, grid / 60.0, SURFACE_NODATA).astype(np.float32)
+    return minutes, Affine(cell_m, 0.0, x0, 0.0, -cell_m, y1)
+
+
+def _time_at(net, node_s, sources, piece, f, direction) -> np.ndarray:
+    """Least time (s) at fraction ``f`` of ``piece`` over the piece's directed edges and the sources on it."""
+    pieces = road_pieces(net)
+    run = run_s(net)
+    delay = net.edges["delay_s"].to_numpy(dtype=float)
+    best = np.full(len(piece), np.inf)
+    cnt = pieces.members_ptr[piece + 1] - pieces.members_ptr[piece]
+    idx = np.repeat(np.arange(len(piece)), cnt)
+    e = pieces.members[
+        np.repeat(pieces.members_ptr[piece], cnt) + np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
+    ]
+    fe = np.where(pieces.reversed_of_edge[e], 1.0 - f[idx], f[idx])
+    if direction == "out":
+        t = node_s[net.u[e]] + fe * run[e]
+    else:
+        t = node_s[net.v[e]] + delay[e] + (1.0 - fe) * run[e]
+    np.minimum.at(best, idx, t)
+    # source points on the piece: along their own edge in the driving direction
+    sp_e = sources.entry_edge
+    sp_piece = pieces.piece_of_edge[sp_e]
+    order = np.argsort(piece, kind="stable")
+    ps = piece[order]
+    lo = np.searchsorted(ps, sp_piece, "left")
+    hi = np.searchsorted(ps, sp_piece, "right")
+    c = hi - lo
+    k = np.repeat(np.arange(len(sp_e)), c)
+    sample = order[np.repeat(lo, c) + np.arange(c.sum()) - np.repeat(np.cumsum(c) - c, c)]
+    ek = sp_e[k]
+    fe = np.where(pieces.reversed_of_edge[ek], 1.0 - f[sample], f[sample])
+    ahead = fe - sources.entry_frac[k] if direction == "out" else sources.entry_frac[k] - fe
+    ok = ahead >= 0
+    np.minimum.at(best, sample[ok], ahead[ok] * run[ek[ok]])
+    return best
+
+
+def _interp_on_pieces(seg: dict, piece: np.ndarray, f: np.ndarray) -> np.ndarray:
+    """Coordinates of fraction ``f`` along each piece's geometry (vectorised)."""
+    if len(piece) == 0:
+        return np.zeros((0, 2))
+    # segment containing f: search within each piece's contiguous segment range
+    lo, hi = seg["ptr"][piece], seg["ptr"][piece + 1] - 1
+    f1 = seg["f1"]
+    # global search on (piece offset + f): f1 increases within a piece; add piece index to make it global
+    seg_piece = np.repeat(np.arange(len(seg["ptr"]) - 1), np.diff(seg["ptr"]))
+    key = seg_piece * 2.0 + f1
+    s = np.clip(np.searchsorted(key, piece * 2.0 + f, side="left"), lo, hi)
+    f0 = seg["f0"][s]
+    w = np.where(f1[s] > f0, f1[s] - f0, 1.0)
+    t = np.clip((f - f0) / w, 0.0, 1.0)[:, None]
+    return seg["xy"][s, :2] + t * (seg["xy"][s, 2:] - seg["xy"][s, :2])
+
+
+# -- helpers ----------------------------------------------------------------------------------------------------
+def _bands_s(minutes) -> np.ndarray:
+    try:
+        m = np.unique(np.asarray(list(minutes), dtype=float))
+    except (TypeError, ValueError):
+        raise CoverkitError(f"bands {minutes!r} are not numbers; give minutes such as 4,8,12.") from None
+    if len(m) == 0 or not np.isfinite(m).all() or (m <= 0).any():
+        raise CoverkitError(f"bands {list(minutes)!r} must be positive minutes, such as 4,8,12.")
+    return m * 60.0
+
+
+def _snap_bases(net: RoadNetwork, bases, max_snap_m: float) -> Snapped:
+    if isinstance(bases, Snapped):
+        return bases
+    if len(bases) == 0:
+        raise CoverkitError("no bases given; the bases file must hold at least one row.")
+    return snap_points(net, bases, max_snap_m=max_snap_m, off_network="raise", what="bases")

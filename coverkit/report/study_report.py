@@ -1,0 +1,188 @@
+"""Maps and the HTML report of a study run (:func:`coverkit.study.run_study`).
+
+Draws and tabulates what the study computed; no number is computed here that the modules do not expose.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pandas as pd
+import rasterio
+
+from coverkit import CAUTION, __version__
+from coverkit.report.html import HtmlReport
+from coverkit.report.maps import coverage_depth_map, first_due_map, gaps_map, travel_surface_map
+
+if TYPE_CHECKING:
+    from coverkit.study import StudyRun
+
+FRACTILE_NOTE = (
+    "Fractile response: the smallest response time such that the stated share of demand (by weight) is reached "
+    "within it (inverted empirical CDF; Hyndman & Fan 1996, definition 1). Demand not reached within the search "
+    "horizon counts as slower than any time."
+)
+
+
+def _minutes(seconds: float) -> str:
+    return "not reached" if not np.isfinite(seconds) else f"{seconds / 60:.1f} min"
+
+
+def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[str, Path]:
+    """Write the study's PNG maps into ``folder/maps`` and, if ``html``, ``folder/report.html``."""
+    from coverkit.study import slug
+
+    maps_dir = folder / "maps"
+    out: dict[str, Path] = {}
+    roads = run.network.road_lines()
+    bases = run.bases.rename(columns={"id": "base_id"})
+    minutes = run.study.outputs["isochrone_minutes"]
+    first_std = run.runs[0].standard
+    with rasterio.open(run.surface_path) as src:
+        surface = src.read(1).astype(float)
+        surface[surface == src.nodata] = np.nan
+        transform = src.transform
+    out["map_surface"] = travel_surface_map(
+        maps_dir / "travel_time.png",
+        surface,
+        transform,
+        run.network.crs,
+        bases,
+        roads,
+        [0.0, *minutes],
+        "Travel time from the nearest base",
+        f"Bands: {', '.join(f'{m:g}' for m in minutes)} min; "
+        f"profile '{run.network.profile.name}'; turnout not included",
+    )
+    images = {"surface": out["map_surface"]}
+    for srun in run.runs:
+        s = slug(srun.standard.name)
+        text = srun.standard.describe(with_source=False)
+        residents = next(iter(srun.results))
+        res = srun.results[residents]
+        out[f"map_depth_{s}"] = coverage_depth_map(
+            maps_dir / f"depth_{s}.png", res.demand, bases, roads, f"Coverage depth - {srun.standard.name}", text
+        )
+        out[f"map_gaps_{s}"] = gaps_map(
+            maps_dir / f"gaps_{s}.png", srun.areas.gaps, bases, roads, f"Gaps - {srun.standard.name}", text
+        )
+        out[f"map_first_due_{s}"] = first_due_map(
+            maps_dir / f"first_due_{s}.png",
+            srun.areas.first_due,
+            bases,
+            roads,
+            f"First-due areas - {srun.standard.name}",
+            text,
+        )
+        images[s] = (out[f"map_depth_{s}"], out[f"map_gaps_{s}"], out[f"map_first_due_{s}"])
+    if not html:
+        return out
+
+    rep = HtmlReport(f"{run.study.name} - coverage study")
+    figures = {}
+    for r in run.summary.itertuples(index=False):
+        if r.standard == first_std.name:
+            figures[f"{r.demand} covered ({r.standard})"] = f"{r.covered_share * 100:.1f} %"
+            figures[f"{r.demand}: {r.fractile * 100:g}th pct response"] = _minutes(r.fractile_response_s)
+    figures["bases"] = str(len(run.bases))
+    rep.add_key_figures(figures)
+
+    rep.add_heading("Inputs")
+    inputs = [
+        f"Roads: {Path(run.study.roads['source']).name} -> {run.network.n_nodes:,} nodes, "
+        f"{run.network.n_edges:,} directed edges (CRS {run.network.crs.name})",
+        f"Speed profile: {run.network.profile.name} - {run.network.profile.description}",
+        f"Bases: {Path(run.study.bases['file']).name} ({len(run.bases)} bases)",
+    ]
+    for spec in run.study.demand:
+        d = run.demand[spec.name]
+        extra = f", filter: {spec.options['where']}" if spec.options.get("where") else ""
+        inputs.append(
+            f"Demand '{spec.name}' ({spec.kind}): {spec.path.name}, {len(d):,} points, total weight "
+            f"{d['weight'].sum():,.0f}{extra}"
+        )
+    if run.study.zones:
+        inputs.append(f"Zones: {Path(run.study.zones['file']).name} by '{run.study.zones['id_field']}'")
+    rep.add_list(inputs)
+    rep.add_heading("Standards evaluated", 3)
+    rep.add_list([s.describe() for s in run.study.standards])
+
+    rep.add_heading("Assumptions")
+    rep.add_list(
+        [
+            "Travel is "
+            + ("outbound, base to demand" if run.study.direction == "out" else "inbound, demand to base")
+            + "; each base is treated as always available (see the availability analysis for busy units).",
+            "Points snap to the nearest road edge; travel includes the partial edge. Demand farther than the snap "
+            "limit is reported as off-network and counted as not covered.",
+            "Speeds: posted speed (or the class default) x the profile's factor, capped; signal delay at signal nodes.",
+            "Response time = turnout + travel. Call processing and dispatch delays are not modelled.",
+            FRACTILE_NOTE,
+            "Gaps and first-due areas are drawn on a grid of road-near cells timed like demand points.",
+        ]
+    )
+
+    rep.add_heading("Summary")
+    table = run.summary[
+        [
+            "standard",
+            "demand",
+            "demand_total",
+            "covered",
+            "covered_share",
+            "covered_once",
+            "covered_twice_or_more",
+            "fractile_response_s",
+            "meets_standard",
+            "off_network",
+        ]
+    ].copy()
+    table["covered_share"] = table["covered_share"] * 100
+    table["fractile_response_s"] = table["fractile_response_s"] / 60
+    table = table.rename(
+        columns={
+            "covered_share": "covered %",
+            "fractile_response_s": "fractile response (min)",
+            "demand_total": "demand",
+            "off_network": "off network",
+        }
+    )
+    rep.add_table(table, caption="Coverage per standard and demand layer")
+    rep.add_heading("Drive-time polygons", 3)
+    poly = run.polygons.drop(columns="geometry")
+    rep.add_table(poly, caption="Area and road reached per base and band")
+    rep.add_image(out["map_surface"], "Travel time from the nearest base")
+
+    for srun in run.runs:
+        s = slug(srun.standard.name)
+        rep.add_heading(f"Standard: {srun.standard.describe()}")
+        for name, table in srun.per_base.items():
+            rep.add_table(table, caption=f"Per base - {name}")
+        for name, table in srun.zones.items():
+            t = table.copy()
+            t["covered_share"] = t["covered_share"] * 100
+            t["fractile_response_s"] = t["fractile_response_s"] / 60
+            rep.add_table(
+                t.rename(columns={"covered_share": "covered %", "fractile_response_s": "fractile (min)"}),
+                caption=f"Compliance by zone - {name}",
+            )
+        for name, table in srun.by_priority.items():
+            t = table.copy()
+            t["covered_share"] = t["covered_share"] * 100
+            t["fractile_response_s"] = t["fractile_response_s"] / 60
+            rep.add_table(
+                t.rename(columns={"covered_share": "covered %", "fractile_response_s": "fractile (min)"}),
+                caption=f"Compliance by priority - {name}",
+            )
+        gaps = srun.areas.gaps.drop(columns="geometry").head(10)
+        rep.add_table(pd.DataFrame(gaps), caption="Largest gaps (people and incidents not covered)")
+        depth, gaps_png, first_png = images[s]
+        rep.add_image(depth, f"Coverage depth - {srun.standard.name}")
+        rep.add_image(gaps_png, f"Gaps - {srun.standard.name}")
+        rep.add_image(first_png, f"First-due areas - {srun.standard.name}")
+    rep.add_heading("About this report")
+    rep.add_paragraph(f"Made with coverkit {__version__}. {CAUTION}")
+    out["report"] = rep.write(folder / "report.html")
+    return out

@@ -1,0 +1,318 @@
+"""Bounded multi-source shortest travel times on the CSR arrays (``scipy.sparse.csgraph.dijkstra``).
+
+Sources are snapped points, so a search starts part-way along an edge. ``csgraph.dijkstra`` has no initial
+distances, so each chunk of sources gets one *virtual node* per source, joined to the end node of each of its entry
+edges by an arc carrying the partial-edge time; the search runs from the virtual nodes with ``limit``. The result is
+exact (Dijkstra on the augmented graph equals Dijkstra with initial labels).
+
+Time conventions (seconds): an edge's ``travel_s`` is its running time plus its ``delay_s`` (signal delay at the end
+node). Running time is spread evenly along the edge; the delay is paid only when the end node is passed, never
+for a point reached part-way along the edge.
+
+``direction="out"`` gives times from sources to targets (base to demand); ``direction="in"`` gives times from
+targets to sources (demand to base), searched on the transposed graph.
+
+Results are sparse: a ``scipy.sparse.csr_matrix`` of shape (n_sources, n_targets) whose *stored* entries are the
+reached times (stored zeros included, so test membership by the sparsity structure, never by ``!= 0``); anything
+not stored lies beyond the limit.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import dijkstra
+
+from coverkit.network.model import MIN_EDGE_S, RoadNetwork
+from coverkit.travel.snap import Snapped
+
+#: Upper bound on the cells of one chunk's dense distance block (float64): ~80 MB.
+CHUNK_CELLS = 10_000_000
+
+DIRECTIONS = ("out", "in")
+
+
+def run_s(net: RoadNetwork) -> np.ndarray:
+    """Running time of each edge without its end-node delay (s); ``inf`` for closed edges."""
+    delay = net.edges["delay_s"].to_numpy(dtype=float)
+    t = net.travel_s
+    return np.where(np.isfinite(t), np.maximum(t - delay, 0.0), np.inf)
+
+
+def graph(net: RoadNetwork, direction: str = "out") -> sp.csr_matrix:
+    """The CSR graph to search: ``net.csr()`` for ``"out"``, its transpose for ``"in"`` (cached)."""
+    _check_direction(direction)
+    if direction == "out":
+        return net.csr()
+    key = "coverkit.travel:csr_T"
+    if key not in net._csr_cache:
+        g = net.csr().T.tocsr()
+        g.sort_indices()
+        net._csr_cache[key] = g
+    return net._csr_cache[key]
+
+
+def seeds(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Initial labels of a search from snapped points: (point index, node, time s) per entry.
+
+    ``"out"``: leaving the point toward the edge's end node ``v`` costs the rest of the run plus the end-node delay.
+    ``"in"`` (reverse search): the point is reached from the edge's start ``u`` after ``frac`` of the run.
+    """
+    _check_direction(direction)
+    e, f = snapped.entry_edge, snapped.entry_frac
+    run = run_s(net)[e]
+    if direction == "out":
+        node = net.v[e]
+        t = (1.0 - f) * run + net.edges["delay_s"].to_numpy(dtype=float)[e]
+    else:
+        node = net.u[e]
+        t = f * run
+    return snapped.entry_point, node, t
+
+
+def exits(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """How a search reaches snapped target points: (point index, node, added time s) per entry.
+
+    ``"out"``: a target is reached from the edge's start ``u`` plus ``frac`` of the run (no end-node delay).
+    ``"in"``: from the target the trip leaves toward ``v``: the rest of the run plus the end-node delay.
+    """
+    _check_direction(direction)
+    other = "in" if direction == "out" else "out"
+    return seeds(net, snapped, other)
+
+
+def node_times(
+    net: RoadNetwork,
+    sources: Snapped,
+    limit_s: float,
+    direction: str = "out",
+    chunk_size: int | None = None,
+) -> sp.csr_matrix:
+    """Shortest travel times between snapped sources and every node, within ``limit_s``.
+
+    Parameters
+    ----------
+    net
+        Road network.
+    sources
+        Snapped sources (bases); off-network sources get empty rows.
+    limit_s
+        Search bound (s); nodes farther than this are not stored.
+    direction
+        ``"out"`` (source to node) or ``"in"`` (node to source).
+    chunk_size
+        Sources per ``dijkstra`` call (default: keep a dense block under :data:`CHUNK_CELLS` cells).
+
+    Returns
+    -------
+    scipy.sparse.csr_matrix
+        Shape (n_sources, n_nodes), stored entries = times (s).
+    """
+    parts = [
+        (src_idx, _dense_to_csr(dist, limit_s))
+        for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes)
+    ]
+    return _assemble(parts, (len(sources), net.n_nodes))
+
+
+def point_times(
+    net: RoadNetwork,
+    sources: Snapped,
+    targets: Snapped,
+    limit_s: float,
+    direction: str = "out",
+    chunk_size: int | None = None,
+) -> sp.csr_matrix:
+    """Shortest travel times between snapped sources and snapped target points, within ``limit_s``.
+
+    Includes the partial edge at both ends (in each direction a two-way street allows) and the direct trip along a
+    shared edge when source and target lie on the same edge in driving order.
+
+    Parameters
+    ----------
+    net, sources, limit_s, direction, chunk_size
+        As in :func:`node_times`.
+    targets
+        Snapped target points (demand); off-network targets get empty columns.
+
+    Returns
+    -------
+    scipy.sparse.csr_matrix
+        Shape (n_sources, n_targets), stored entries = times (s).
+    """
+    n_t = len(targets)
+    t_pt, t_node, t_add = exits(net, targets, direction)
+    # entries are sorted by point: reduceat boundaries per target with at least one entry
+    has = np.zeros(n_t, dtype=bool)
+    has[t_pt] = True
+    starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
+    targets_with = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
+    width = max(net.n_nodes, len(t_pt))
+    parts = []
+    for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
+        block = np.full((len(src_idx), n_t), np.inf)
+        if len(t_pt):
+            vals = dist[:, t_node] + t_add[None, :]
+            block[:, targets_with] = np.minimum.reduceat(vals, starts, axis=1)
+        _same_edge_min(net, sources, targets, src_idx, block, direction)
+        parts.append((src_idx, _dense_to_csr(block, limit_s)))
+    return _assemble(parts, (len(sources), n_t))
+
+
+def nearest_node_times(
+    net: RoadNetwork, sources: Snapped, limit_s: float, direction: str = "out"
+) -> tuple[np.ndarray, np.ndarray]:
+    """Time to (or from) the nearest source for every node, and which source, in one search.
+
+    Returns
+    -------
+    time_s
+        Shape (n_nodes,), ``inf`` beyond ``limit_s``.
+    source
+        Shape (n_nodes,), index of the nearest source, ``-1`` where none is within the limit.
+    """
+    n = net.n_nodes
+    s_pt, s_node, s_t = seeds(net, sources, direction)
+    if len(s_pt) == 0:
+        return np.full(n, np.inf), np.full(n, -1, dtype=np.int64)
+    aug = _augmented(graph(net, direction), s_pt, s_node, s_t, len(sources))
+    dist, _, src = dijkstra(
+        aug,
+        directed=True,
+        indices=n + np.arange(len(sources)),
+        limit=limit_s,
+        min_only=True,
+        return_predecessors=True,
+    )
+    time_s = dist[:n].copy()
+    source = np.where(np.isfinite(time_s), src[:n] - n, -1).astype(np.int64)
+    return time_s, source
+
+
+def nearest_sources(times: sp.csr_matrix, k: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """The ``k`` nearest sources of every target, from a (n_sources, n_targets) sparse time matrix.
+
+    Ties are broken by the lower source index (deterministic).
+
+    Returns
+    -------
+    source
+        Shape (n_targets, k), source indices in order of time, ``-1`` where fewer than ``k`` were reached.
+    time_s
+        Shape (n_targets, k), times (s), ``inf`` where fewer than ``k`` were reached.
+    """
+    n_t = times.shape[1]
+    coo = times.tocoo()
+    order = np.lexsort((coo.row, coo.data, coo.col))
+    col, row, t = coo.col[order], coo.row[order], coo.data[order]
+    counts = np.bincount(col, minlength=n_t)
+    group_start = np.repeat(np.cumsum(counts) - counts, counts)
+    rank = np.arange(len(col)) - group_start
+    keep = rank < k
+    source = np.full((n_t, k), -1, dtype=np.int64)
+    time_s = np.full((n_t, k), np.inf)
+    source[col[keep], rank[keep]] = row[keep]
+    time_s[col[keep], rank[keep]] = t[keep]
+    return source, time_s
+
+
+def count_within(times: sp.csr_matrix, within_s: float) -> np.ndarray:
+    """Coverage depth: how many sources reach each target within ``within_s`` seconds (shape (n_targets,))."""
+    coo = times.tocoo()
+    return np.bincount(coo.col[coo.data <= within_s], minlength=times.shape[1]).astype(np.int64)
+
+
+# -- internals --------------------------------------------------------------------------------------------------------
+def _check_direction(direction: str) -> None:
+    if direction not in DIRECTIONS:
+        raise ValueError(f"direction must be 'out' or 'in', not {direction!r}")
+
+
+def _augmented(g: sp.csr_matrix, pt: np.ndarray, node: np.ndarray, t: np.ndarray, n_virtual: int) -> sp.csr_matrix:
+    """``g`` plus ``n_virtual`` virtual nodes; virtual node ``n + i`` has arcs to ``node`` with weights ``t``."""
+    n = g.shape[0]
+    # keep the smallest weight per (virtual, node): csr construction would otherwise hold duplicates
+    order = np.lexsort((t, node, pt))
+    pt, node, t = pt[order], node[order], t[order]
+    first = np.ones(len(pt), dtype=bool)
+    first[1:] = (pt[1:] != pt[:-1]) | (node[1:] != node[:-1])
+    pt, node, t = pt[first], node[first], t[first]
+    counts = np.bincount(pt, minlength=n_virtual)
+    indptr = np.concatenate([g.indptr.astype(np.int64), g.indptr[-1] + np.cumsum(counts)])
+    indices = np.concatenate([g.indices.astype(np.int64), node])
+    # a zero weight would read as a missing arc in csgraph
+    data = np.concatenate([g.data, np.maximum(t, MIN_EDGE_S)])
+    size = n + n_virtual
+    return sp.csr_matrix((data, indices, indptr), shape=(size, size))
+
+
+def _chunked_search(net, sources, limit_s, direction, chunk_size, width):
+    """Yield (source indices, dense times block (chunk, n_nodes)) per chunk of on-network sources."""
+    _check_direction(direction)
+    n = net.n_nodes
+    g = graph(net, direction)
+    s_pt, s_node, s_t = seeds(net, sources, direction)
+    src_all = np.flatnonzero(sources.on_network)
+    if chunk_size is None:
+        chunk_size = max(1, CHUNK_CELLS // max(width, 1))
+    for start in range(0, len(src_all), chunk_size):
+        src_idx = src_all[start : start + chunk_size]
+        local = np.full(len(sources), -1, dtype=np.int64)
+        local[src_idx] = np.arange(len(src_idx))
+        sel = local[s_pt] >= 0
+        aug = _augmented(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src_idx))
+        dist = dijkstra(aug, directed=True, indices=n + np.arange(len(src_idx)), limit=limit_s)
+        yield src_idx, dist[:, :n]
+
+
+def _same_edge_min(net, sources, targets, src_idx, block, direction) -> None:
+    """Lower ``block`` (chunk, n_targets) with the direct trip along an edge shared by source and target."""
+    local = np.full(len(sources), -1, dtype=np.int64)
+    local[src_idx] = np.arange(len(src_idx))
+    sel = local[sources.entry_point] >= 0
+    s_loc, s_e, s_f = local[sources.entry_point[sel]], sources.entry_edge[sel], sources.entry_frac[sel]
+    t_pt, t_e, t_f = targets.entry_point, targets.entry_edge, targets.entry_frac
+    if len(s_e) == 0 or len(t_e) == 0:
+        return
+    order = np.argsort(t_e, kind="stable")
+    te_sorted = t_e[order]
+    lo = np.searchsorted(te_sorted, s_e, side="left")
+    hi = np.searchsorted(te_sorted, s_e, side="right")
+    cnt = hi - lo
+    if cnt.sum() == 0:
+        return
+    si = np.repeat(np.arange(len(s_e)), cnt)
+    tj = order[np.repeat(lo, cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))]
+    e = s_e[si]
+    # out: drive from source frac forward to target frac; in: from target frac forward to source frac
+    ahead = t_f[tj] - s_f[si] if direction == "out" else s_f[si] - t_f[tj]
+    ok = ahead >= 0
+    t = ahead[ok] * run_s(net)[e[ok]]
+    np.minimum.at(block, (s_loc[si[ok]], t_pt[tj[ok]]), t)
+
+
+def _dense_to_csr(dist: np.ndarray, limit_s: float) -> sp.csr_matrix:
+    """CSR of the entries of ``dist`` that are <= ``limit_s`` (explicit zeros kept)."""
+    mask = dist <= limit_s
+    counts = mask.sum(axis=1)
+    indptr = np.concatenate([[0], np.cumsum(counts)])
+    r, c = np.nonzero(mask)
+    return sp.csr_matrix((dist[r, c], c, indptr), shape=dist.shape)
+
+
+def _assemble(parts: list[tuple[np.ndarray, sp.csr_matrix]], shape: tuple[int, int]) -> sp.csr_matrix:
+    """Place per-chunk row blocks at their source rows; other rows empty (stored zeros are kept)."""
+    counts = np.zeros(shape[0], dtype=np.int64)
+    for src_idx, m in parts:
+        counts[src_idx] = np.diff(m.indptr)
+    indptr = np.concatenate([[0], np.cumsum(counts)])
+    indices = np.empty(indptr[-1], dtype=np.int64)
+    data = np.empty(indptr[-1])
+    for src_idx, m in parts:
+        # rows of a chunk are increasing source indices, so each row's slot is contiguous
+        start = indptr[src_idx]
+        n_row = np.diff(m.indptr)
+        pos = np.repeat(start - m.indptr[:-1], n_row) + np.arange(m.nnz)
+        indices[pos] = m.indices
+        data[pos] = m.data
+    return sp.csr_matrix((data, indices, indptr), shape=shape)

@@ -1,0 +1,347 @@
+"""Snapping points to the nearest open road edge, with the position along it.
+
+A point is snapped to the nearest *physical* road piece (a two-way street is one piece carried by two directed
+edges, ``u -> v`` and its twin ``v -> u``). Every open directed edge of that piece becomes an *entry* of the point,
+with the fraction of the way along that edge, so travel to or from the point includes the partial edge in each
+direction the street allows: a point on a one-way edge has a single entry, so it is entered only from the edge's
+start and left only toward its end. Closed edges (infinite ``travel_s``) are never snapped onto.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from scipy.sparse.csgraph import connected_components
+
+from coverkit.errors import OffNetworkError
+from coverkit.network.model import RoadNetwork
+from coverkit.progress import warn
+
+#: Default snap limit (m): a point farther than this from any open road is off-network.
+DEFAULT_MAX_SNAP_M = 500.0
+
+#: Relative tolerance on length for two opposite directed edges to count as one two-way street.
+_TWIN_REL_TOL = 1e-6
+
+
+@dataclass(frozen=True)
+class Snapped:
+    """Points snapped to a road network.
+
+    Per-point arrays have length ``n`` (one per input point, in input order); entry arrays have one row per
+    usable directed edge of each snapped point, sorted by point then edge.
+
+    Attributes
+    ----------
+    ids
+        Point ids as given (object array).
+    on_network
+        ``True`` where the point lies within the snap limit of an open road.
+    edge
+        The snapped directed edge (lowest edge id of the piece), ``-1`` off-network.
+    frac
+        Fraction of the way along ``edge`` from its start node (0..1), NaN off-network.
+    offset_m
+        Distance along ``edge`` from its start node (m, from the edge's ``length_m``), NaN off-network.
+    dist_m
+        Distance from the point to the nearest open road (m); also filled for off-network points.
+    x, y
+        The snapped position on the road (m, network CRS), NaN off-network.
+    entry_point, entry_edge, entry_frac
+        For each usable directed edge of each on-network point: the point index, the edge id, and the fraction
+        along that edge (the twin of a two-way street has ``1 - frac``).
+    max_snap_m
+        The snap limit used (m).
+    """
+
+    ids: np.ndarray
+    on_network: np.ndarray
+    edge: np.ndarray
+    frac: np.ndarray
+    offset_m: np.ndarray
+    dist_m: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    entry_point: np.ndarray
+    entry_edge: np.ndarray
+    entry_frac: np.ndarray
+    max_snap_m: float
+
+    def __len__(self) -> int:
+        return len(self.ids)
+
+    def subset(self, index: np.ndarray) -> Snapped:
+        """The snapped points at positions ``index`` (renumbered 0..len(index)-1, in that order)."""
+        index = np.asarray(index, dtype=np.int64)
+        new_pos = np.full(len(self), -1, dtype=np.int64)
+        new_pos[index] = np.arange(len(index))
+        keep = new_pos[self.entry_point] >= 0
+        ep = new_pos[self.entry_point[keep]]
+        order = np.lexsort((self.entry_edge[keep], ep))
+        return Snapped(
+            ids=self.ids[index],
+            on_network=self.on_network[index],
+            edge=self.edge[index],
+            frac=self.frac[index],
+            offset_m=self.offset_m[index],
+            dist_m=self.dist_m[index],
+            x=self.x[index],
+            y=self.y[index],
+            entry_point=ep[order],
+            entry_edge=self.entry_edge[keep][order],
+            entry_frac=self.entry_frac[keep][order],
+            max_snap_m=self.max_snap_m,
+        )
+
+
+@dataclass(frozen=True)
+class RoadPieces:
+    """Open directed edges grouped into physical pieces (a two-way street = one piece, two edges).
+
+    Attributes
+    ----------
+    piece_of_edge
+        Piece index of every edge, ``-1`` for closed edges.
+    rep_edge
+        The representative (lowest-id) edge of each piece; its geometry is the piece's geometry.
+    members_ptr, members
+        CSR-style list of the open edges of each piece: ``members[members_ptr[p]:members_ptr[p + 1]]``.
+    reversed_of_edge
+        ``True`` where an edge runs opposite to its piece's representative edge.
+    tree
+        STRtree over the piece geometries.
+    """
+
+    piece_of_edge: np.ndarray
+    rep_edge: np.ndarray
+    members_ptr: np.ndarray
+    members: np.ndarray
+    reversed_of_edge: np.ndarray
+    tree: shapely.STRtree
+
+
+def road_pieces(net: RoadNetwork) -> RoadPieces:
+    """Group the open edges of ``net`` into physical pieces (cached on the network).
+
+    Two directed edges are one piece when they join the same two nodes in opposite (or the same) direction and have
+    the same geometric length (relative tolerance 1e-6): a two-way street, or a one-way street with an added
+    against-one-way edge.
+    """
+    key = "coverkit.travel:pieces"
+    if key in net._csr_cache:
+        return net._csr_cache[key]
+    u, v = net.u, net.v
+    open_e = np.flatnonzero(net.open_edges())
+    geom = net.edges.geometry.to_numpy()
+    length = shapely.length(geom[open_e])
+    a = np.minimum(u[open_e], v[open_e])
+    b = np.maximum(u[open_e], v[open_e])
+    order = np.lexsort((open_e, length, b, a))
+    a_s, b_s, len_s, e_s = a[order], b[order], length[order], open_e[order]
+    new = np.ones(len(order), dtype=bool)
+    if len(order) > 1:
+        same_pair = (a_s[1:] == a_s[:-1]) & (b_s[1:] == b_s[:-1])
+        close = np.abs(len_s[1:] - len_s[:-1]) <= _TWIN_REL_TOL * np.maximum(len_s[1:], 1.0)
+        new[1:] = ~(same_pair & close)
+    piece_sorted = np.cumsum(new) - 1
+    n_pieces = int(piece_sorted[-1] + 1) if len(order) else 0
+    piece_of_edge = np.full(net.n_edges, -1, dtype=np.int64)
+    piece_of_edge[e_s] = piece_sorted
+    # members sorted by piece then edge id, so the representative is the lowest edge id.
+    m_order = np.lexsort((e_s, piece_sorted))
+    members = e_s[m_order]
+    counts = np.bincount(piece_sorted, minlength=n_pieces)
+    members_ptr = np.concatenate([[0], np.cumsum(counts)])
+    rep_edge = members[members_ptr[:-1]]
+    reversed_of_edge = np.zeros(net.n_edges, dtype=bool)
+    rep_of_edge = rep_edge[piece_of_edge[open_e]]
+    reversed_of_edge[open_e] = u[open_e] != u[rep_of_edge]
+    pieces = RoadPieces(
+        piece_of_edge=piece_of_edge,
+        rep_edge=rep_edge,
+        members_ptr=members_ptr,
+        members=members,
+        reversed_of_edge=reversed_of_edge,
+        tree=shapely.STRtree(geom[rep_edge]),
+    )
+    net._csr_cache[key] = pieces
+    return pieces
+
+
+def snap_points(
+    net: RoadNetwork,
+    points: object,
+    ids: object | None = None,
+    max_snap_m: float = DEFAULT_MAX_SNAP_M,
+    off_network: str = "raise",
+    what: str = "points",
+    warn_islands: bool = True,
+    measure_far: bool = True,
+) -> Snapped:
+    """Snap projected points to the nearest open road edge.
+
+    Parameters
+    ----------
+    net
+        The road network.
+    points
+        Point geometries in the network CRS: a GeoSeries/GeoDataFrame (its geometry), an array of shapely points,
+        or an (n, 2) array of x, y in metres. A GeoDataFrame with an ``id`` column gives the ids.
+    ids
+        Point ids (default: the ``id`` column of a GeoDataFrame, else 0..n-1).
+    max_snap_m
+        Snap limit (m). Points farther than this from every open road are off-network.
+    off_network
+        ``"raise"``: raise :class:`OffNetworkError` listing the ids (use for bases and candidates);
+        ``"mask"``: keep them with ``on_network = False`` (use for demand points, which are counted later).
+    what
+        Word used in messages (``"bases"``, ``"demand points"``).
+    measure_far
+        Also measure the distance to the nearest road of off-network points (for messages); grids of many cells
+        that only need on/off skip it (their ``dist_m`` stays inf).
+    warn_islands
+        Warn (``coverkit.progress.warn``) when points snap onto road pieces not connected to the largest connected
+        part of the network, since they reach (or are reached from) only that part.
+
+    Returns
+    -------
+    Snapped
+
+    Raises
+    ------
+    OffNetworkError
+        With ``off_network="raise"``, when any point is beyond the snap limit.
+    """
+    if off_network not in ("raise", "mask"):
+        raise ValueError(f"off_network must be 'raise' or 'mask', not {off_network!r}")
+    if max_snap_m <= 0 or not np.isfinite(max_snap_m):
+        raise OffNetworkError(f"snap limit {max_snap_m} m is not a positive number; give e.g. max_snap_m=500.")
+    geoms, id_arr = _as_points(points, ids, net)
+    n = len(geoms)
+    pieces = road_pieces(net)
+    edge_geom = net.edges.geometry.to_numpy()
+
+    dist_m = np.full(n, np.inf)
+    piece = np.full(n, -1, dtype=np.int64)
+    if n and len(pieces.rep_edge):
+        (pi, ti), d = pieces.tree.query_nearest(geoms, max_distance=max_snap_m, return_distance=True)
+        # query_nearest may return several equidistant pieces per point: keep the lowest piece index.
+        order = np.lexsort((ti, pi))
+        first = np.ones(len(order), dtype=bool)
+        first[1:] = pi[order][1:] != pi[order][:-1]
+        sel = order[first]
+        piece[pi[sel]] = ti[sel]
+        dist_m[pi[sel]] = d[sel]
+        far = np.flatnonzero(piece < 0)
+        if len(far) and measure_far:
+            (fi, _), fd = pieces.tree.query_nearest(geoms[far], return_distance=True)
+            dist_m[far[fi]] = fd
+    on = piece >= 0
+
+    if not on.all() and off_network == "raise":
+        bad = np.flatnonzero(~on)
+        shown = ", ".join(f"{id_arr[i]} ({dist_m[i]:.0f} m)" for i in bad[:10])
+        more = f" and {len(bad) - 10} more" if len(bad) > 10 else ""
+        raise OffNetworkError(
+            f"{len(bad)} {what} lie farther than {max_snap_m:g} m from any open road: {shown}{more}; "
+            "move them onto a road, check their coordinates, or raise the snap limit."
+        )
+
+    # Entries: every open directed edge of the snapped piece, with the fraction along that edge.
+    on_idx = np.flatnonzero(on)
+    p_on = piece[on_idx]
+    cnt = pieces.members_ptr[p_on + 1] - pieces.members_ptr[p_on]
+    entry_point = np.repeat(on_idx, cnt)
+    local = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
+    entry_edge = pieces.members[np.repeat(pieces.members_ptr[p_on], cnt) + local]
+    entry_frac = shapely.line_locate_point(edge_geom[entry_edge], geoms[entry_point], normalized=True)
+    entry_frac = np.clip(np.nan_to_num(entry_frac, nan=0.0), 0.0, 1.0)
+    order = np.lexsort((entry_edge, entry_point))
+    entry_point, entry_edge, entry_frac = entry_point[order], entry_edge[order], entry_frac[order]
+
+    edge = np.full(n, -1, dtype=np.int64)
+    frac = np.full(n, np.nan)
+    first = np.ones(len(entry_point), dtype=bool)
+    first[1:] = entry_point[1:] != entry_point[:-1]
+    edge[entry_point[first]] = entry_edge[first]
+    frac[entry_point[first]] = entry_frac[first]
+    offset_m = np.full(n, np.nan)
+    offset_m[on] = frac[on] * net.length_m[edge[on]]
+    x = np.full(n, np.nan)
+    y = np.full(n, np.nan)
+    if on.any():
+        snapped_pts = shapely.line_interpolate_point(edge_geom[edge[on]], frac[on], normalized=True)
+        xy = shapely.get_coordinates(snapped_pts)
+        x[on], y[on] = xy[:, 0], xy[:, 1]
+
+    result = Snapped(
+        ids=id_arr,
+        on_network=on,
+        edge=edge,
+        frac=frac,
+        offset_m=offset_m,
+        dist_m=dist_m,
+        x=x,
+        y=y,
+        entry_point=entry_point,
+        entry_edge=entry_edge,
+        entry_frac=entry_frac,
+        max_snap_m=float(max_snap_m),
+    )
+    if warn_islands and on.any():
+        _warn_islands(net, result, what)
+    return result
+
+
+def island_mask(net: RoadNetwork, snapped: Snapped) -> np.ndarray:
+    """``True`` for on-network points whose edge lies outside the largest weakly connected part of the network."""
+    key = "coverkit.travel:components"
+    if key not in net._csr_cache:
+        _, labels = connected_components(net.csr(), directed=True, connection="weak")
+        sizes = np.bincount(labels)
+        net._csr_cache[key] = (labels, int(np.argmax(sizes)), sizes)
+    labels, main, _ = net._csr_cache[key]
+    out = np.zeros(len(snapped), dtype=bool)
+    on = snapped.on_network
+    out[on] = labels[net.u[snapped.edge[on]]] != main
+    return out
+
+
+def _warn_islands(net: RoadNetwork, snapped: Snapped, what: str) -> None:
+    isl = np.flatnonzero(island_mask(net, snapped))
+    if len(isl) == 0:
+        return
+    labels, _, sizes = net._csr_cache["coverkit.travel:components"]
+    shown = ", ".join(f"{snapped.ids[i]} ({sizes[labels[net.u[snapped.edge[i]]]]} nodes)" for i in isl[:10])
+    more = f" and {len(isl) - 10} more" if len(isl) > 10 else ""
+    warn(
+        f"{len(isl)} {what} snap onto road pieces not connected to the main network: {shown}{more}; "
+        "they reach and are reached only within that piece - check the road data or the point locations."
+    )
+
+
+def _as_points(points: object, ids: object | None, net: RoadNetwork) -> tuple[np.ndarray, np.ndarray]:
+    """Point geometries (shapely array) and ids (object array) from the accepted inputs."""
+    import geopandas as gpd
+
+    if isinstance(points, gpd.GeoDataFrame):
+        if ids is None and "id" in points.columns:
+            ids = points["id"].to_numpy()
+        points = points.geometry
+    if isinstance(points, gpd.GeoSeries):
+        if points.crs is not None and not net.crs.equals(points.crs):
+            points = points.to_crs(net.crs)
+        geoms = points.to_numpy()
+    else:
+        arr = np.asarray(points)
+        if arr.dtype != object and arr.ndim == 2 and arr.shape[1] == 2:
+            geoms = shapely.points(arr.astype(float))
+        else:
+            geoms = np.asarray(arr, dtype=object)
+    geoms = np.asarray(geoms, dtype=object).reshape(-1)
+    id_arr = np.arange(len(geoms)).astype(object) if ids is None else np.asarray(ids, dtype=object).reshape(-1)
+    if len(id_arr) != len(geoms):
+        raise ValueError(f"{len(id_arr)} ids for {len(geoms)} points")
+    return geoms, id_arr

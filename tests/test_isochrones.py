@@ -1,0 +1,142 @@
+"""Drive-time polygons and the travel-time surface.
+
+Sources of the checks:
+
+* Uniform grid at uniform speed v, budget T, base on a grid node: the reached road is the grid inside the L1 ball of
+  radius R = vT (geometry; exact). Its dilation by the reach r is, up to the gaps between grid lines at the boundary,
+  the diamond dilated by r, whose area is 2R^2 + 4*sqrt(2)*R*r + pi*r^2 (Steiner formula for a convex polygon: area +
+  perimeter*r + pi*r^2, with perimeter 4*sqrt(2)*R; exact). Grid road length inside the ball is 4R^2/s for spacing s
+  dividing R (sum over grid lines; exact).
+* Fast polygons against the exact shapely 2 buffer-and-union construction: intersection-over-union >= 0.98 for every
+  base and band (shapely 2 is the reference library).
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import rasterio
+import shapely
+
+from coverkit.isochrones import ANY_BASE_ID, drive_time_polygons, summary_table, write_travel_surface
+from coverkit.network.model import grid_network
+
+sys.path.insert(0, str(Path(__file__).parent))
+import itertools
+
+from test_travel_search import irregular_network
+
+DEMO = Path(__file__).resolve().parents[1] / "data" / "demo"
+
+
+def _bases(net, xy, ids=None):
+    ids = ids or [f"B{i}" for i in range(len(xy))]
+    return gpd.GeoDataFrame({"id": ids}, geometry=shapely.points(np.asarray(xy)), crs=net.crs)
+
+
+@pytest.fixture(scope="module")
+def grid_case():
+    net = grid_network(61, 61, 100.0, 36.0)  # 10 m/s everywhere, 6 km square
+    centre = net.xy[30 * 61 + 30]
+    return net, _bases(net, [centre])
+
+
+@pytest.mark.parametrize("exact", [True, False])
+def test_uniform_grid_diamond_area_and_road_length(grid_case, exact):
+    """Geometry, exact (see module docstring): area within 2 %, road length equal, reached set the L1 diamond."""
+    net, bases = grid_case
+    reach = 150.0
+    g = drive_time_polygons(net, bases, [2, 4], reach_m=reach, exact=exact, any_base=False)
+    for _, row in g.iterrows():
+        big_r = 10.0 * row.band_min * 60.0
+        expected = 2 * big_r**2 + 4 * np.sqrt(2) * big_r * reach + np.pi * reach**2
+        assert abs(row.area_km2 * 1e6 / expected - 1.0) < 0.02
+        assert abs(row.road_km - 4 * big_r**2 / 100.0 / 1000.0) < 1e-6
+        geom = row.geometry
+        assert geom.is_valid and len(geom.geoms) == 1 and len(geom.geoms[0].interiors) == 0
+        # every node within the L1 radius lies inside; none farther than the reach from the diamond
+        bx, by = bases.geometry.iloc[0].coords[0]
+        l1 = np.abs(net.xy - [bx, by]).sum(axis=1)
+        diamond = shapely.Polygon([(bx + big_r, by), (bx, by + big_r), (bx - big_r, by), (bx, by - big_r)])
+        off = shapely.distance(diamond, shapely.points(net.xy))
+        inside = shapely.contains_xy(geom, net.xy[:, 0], net.xy[:, 1])
+        assert inside[l1 <= big_r].all() and not inside[off > reach + 1e-6].any()
+
+
+def test_bands_nested_and_not_convex_hull(grid_case):
+    """Nesting by construction; a sparse grid (400 m blocks, 100 m reach) leaves holes, unlike a convex hull."""
+    net = grid_network(21, 21, 400.0, 36.0)
+    bases = _bases(net, [net.xy[10 * 21 + 10]])
+    g = drive_time_polygons(net, bases, [3, 6, 9], reach_m=100.0, any_base=False)
+    geoms = g.geometry.to_numpy()
+    for small, big in itertools.pairwise(geoms):
+        assert big.buffer(1e-6).contains(small)
+    last = geoms[-1]
+    assert sum(len(p.interiors) for p in last.geoms) > 10
+    assert last.area < 0.8 * last.convex_hull.area
+
+
+def _iou_check(net, bases, minutes, reach_m=150.0):
+    fast = drive_time_polygons(net, bases, minutes, reach_m=reach_m)
+    exact = drive_time_polygons(net, bases, minutes, reach_m=reach_m, exact=True)
+    assert list(fast["base_id"]) == list(exact["base_id"])
+    assert ANY_BASE_ID in set(fast["base_id"])
+    for a, b in zip(fast.geometry, exact.geometry, strict=True):
+        assert a.is_valid and b.is_valid
+        iou = shapely.intersection(a, b).area / shapely.union(a, b).area
+        assert iou >= 0.98
+    assert np.allclose(fast["road_km"], exact["road_km"])
+    return fast
+
+
+def test_fast_matches_exact_on_irregular_network():
+    """shapely 2 exact construction as reference: IoU >= 0.98 per base and band on a perturbed grid with diagonal,
+    curved and one-way streets and signals."""
+    net = irregular_network(25, 25, 200.0, seed=5)
+    rng = np.random.default_rng(2)
+    lo, hi = net.xy.min(axis=0), net.xy.max(axis=0)
+    fast = _iou_check(net, _bases(net, rng.uniform(lo, hi, (3, 2))), [1, 2, 3])
+    table = summary_table(fast)
+    assert list(table.columns) == ["base", "band_min", "area_km2", "road_km"]
+
+
+def test_fast_matches_exact_on_demo_county():
+    """shapely 2 exact construction as reference, on the demo county: IoU >= 0.98 for every base and band."""
+    roads, bases_path = DEMO / "varrowby.osm.bz2", DEMO / "stations.csv"
+    if not (roads.is_file() and bases_path.is_file()):
+        pytest.skip(f"demo county not generated yet ({roads} or {bases_path} missing)")
+    try:
+        from coverkit.network.build import build_network
+    except ImportError:
+        pytest.skip("coverkit.network.build_network not available yet")
+    from coverkit.travel.points import read_points
+
+    net, _ = build_network(roads, "emergency")
+    bases = read_points(bases_path, net.crs, what="bases")
+    _iou_check(net, bases, [4, 8])
+
+
+def test_travel_surface_geotiff(tmp_path, grid_case):
+    """Surface on the uniform grid: a cell on a road at L1 distance D from the base holds D/v minutes (exact) to
+    within one cell of travel; cells beyond the largest band hold nodata."""
+    net, bases = grid_case
+    out = write_travel_surface(net, bases, tmp_path / "minutes.tif", max_minutes=3, cell_m=50.0, reach_m=60.0)
+    with rasterio.open(out) as src:
+        data = src.read(1)
+        assert src.nodata == -1.0 and src.res == (50.0, 50.0) and src.crs is not None
+        bx, by = bases.geometry.iloc[0].coords[0]
+        for dx, dy in [(0, 0), (500, 0), (700, 300), (1200, 500)]:
+            r, c = src.index(bx + dx, by + dy)
+            expect = (abs(dx) + abs(dy)) / 10.0 / 60.0
+            if expect <= 3:
+                # a cell takes the least time of road within reach of it, measured between cells: at most
+                # reach + one cell diagonal (60 + 71 m) of travel less than at the point itself
+                slack_min = (60.0 + 50.0 * np.sqrt(2)) / 10.0 / 60.0
+                assert expect - slack_min <= data[r, c] <= expect + 1e-6
+            else:
+                assert data[r, c] == -1.0
+    assert not list(tmp_path.glob(".*part*"))  # atomic write left no temporary file

@@ -1,0 +1,300 @@
+"""The one-command demo, the study file, the cover command and their bad-input messages.
+
+The county is invented (data/demo); what is checked here are the rules: an NFPA 1710 standard (60 s turnout,
+240 s travel, 90 %; NFPA 1710 as quoted in the trade) evaluated and reported as such, totals that must add up,
+outputs that must exist with the agreed layer and column names, and one-line errors with exit status 2.
+"""
+
+from __future__ import annotations
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+import rasterio
+
+from coverkit.cli import main
+from coverkit.demand import demand_from_polygons, load_demand, raster_total
+from coverkit.errors import FieldError, InputFileError, StudyError
+from coverkit.network import RoadNetwork, build_network
+from coverkit.study import load_study
+
+from .conftest import DEMO, REPO
+
+
+@pytest.fixture(scope="module")
+def demo_net(tmp_path_factory):
+    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
+    path = tmp_path_factory.mktemp("net") / "net.gpkg"
+    net.save(path)
+    return net, path
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    code = main(["demo", "--out", str(out), "--quiet"])
+    assert code == 0
+    return out
+
+
+def test_demo_writes_report_layers_and_maps(demo_run):
+    out = demo_run
+    for name in ("report.html", "coverage.gpkg", "summary.csv", "travel_minutes.tif", "network.gpkg"):
+        assert (out / name).is_file(), name
+    assert len(list((out / "maps").glob("*.png"))) >= 4
+    html = (out / "report.html").read_text()
+    assert "Planning estimates only" in html and "NFPA 1710" in html
+    assert "http://" not in html and "https://" not in html
+    layers = {name for name, _ in pyogrio.list_layers(out / "coverage.gpkg")}
+    assert {"bases", "drive_time_polygons", "gaps_first_due_4_min", "first_due_als_8_min", "summary"} <= layers
+
+
+def test_nfpa_1710_standard_is_evaluated_and_reported(demo_run):
+    """60 s turnout + 240 s travel for 90 % (NFPA 1710): response = travel + 60 s, covered = travel <= 240 s."""
+    out = demo_run
+    summary = pd.read_csv(out / "summary.csv")
+    row = summary[(summary["standard"] == "First due 4 min") & (summary["demand"] == "residents")].iloc[0]
+    assert "NFPA 1710" in row["standard_text"] and "60 s turnout + 240 s travel, 90 %" in row["standard_text"]
+    demand = gpd.read_file(out / "coverage.gpkg", layer="demand_residents_first_due_4_min")
+    np.testing.assert_allclose(demand["response_s"], demand["travel_s"] + 60.0)
+    assert (demand["covered"] == (demand["travel_s"] <= 240.0)).all()
+    w = demand["weight"].to_numpy()
+    assert row["covered"] == pytest.approx(w[demand["covered"].to_numpy()].sum())
+    # the fractile response is the 90 % point of the weighted response times
+    order = np.argsort(demand["response_s"].to_numpy(), kind="stable")
+    cum = np.cumsum(w[order]) / w.sum()
+    assert row["fractile_response_s"] == pytest.approx(
+        demand["response_s"].to_numpy()[order][np.searchsorted(cum, 0.9 - 1e-12)]
+    )
+    assert bool(row["meets_standard"]) == (row["fractile_response_s"] <= 300.0)
+
+
+def test_raster_demand_total_equals_raster_sum(demo_net):
+    """Demand total equals the raster's sum with nodata excluded (rasterio masked read)."""
+    net, _ = demo_net
+    d = load_demand(DEMO / "population.tif", net)
+    with rasterio.open(DEMO / "population.tif") as src:
+        arr = src.read(1, masked=True)
+    assert d["weight"].sum() == pytest.approx(float(arr.sum()), rel=1e-9)
+    assert raster_total(DEMO / "population.tif") == pytest.approx(float(arr.sum()), rel=1e-9)
+
+
+def test_polygon_demand_total_equals_field_sum(demo_net):
+    net, _ = demo_net
+    blocks = gpd.read_file(DEMO / "blocks.gpkg")
+    d = demand_from_polygons(DEMO / "blocks.gpkg", net, "residents")
+    assert d["weight"].sum() == pytest.approx(blocks["residents"].sum(), rel=1e-12)
+    # each block's population is kept exactly
+    per_zone = d.groupby("zone")["weight"].sum()
+    blocks_pop = blocks["residents"].to_numpy()
+    assert per_zone.reindex([str(i) for i in range(1, len(blocks) + 1)]).fillna(0).to_numpy() == pytest.approx(
+        np.where(blocks_pop > 0, blocks_pop, 0)
+    )
+
+
+def test_cover_command_output_contract(demo_net, tmp_path, capsys):
+    _, net_path = demo_net
+    out = tmp_path / "calls.gpkg"
+    code = main(
+        [
+            "cover",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--demand",
+            str(DEMO / "incidents.csv"),
+            "--where",
+            "priority in (1, 2)",
+            "--minutes",
+            "8",
+            "--turnout-s",
+            "60",
+            "--out",
+            str(out),
+            "--quiet",
+        ]
+    )
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "covered" in text and "Planning estimates only" in text
+    demand = gpd.read_file(out, layer="demand")
+    for col in ("id", "weight", "travel_s", "response_s", "first_base", "second_base", "depth", "covered"):
+        assert col in demand.columns
+    src = pd.read_csv(DEMO / "incidents.csv")
+    assert len(demand) == int(src["priority"].isin([1, 2]).sum())
+    assert set(demand["id"].astype(str)) == set(src.loc[src["priority"].isin([1, 2]), "id"].astype(str))
+    gaps = gpd.read_file(out, layer="gaps")
+    uncovered = demand.loc[~demand["covered"], "weight"].sum()
+    assert gaps["population"].sum() == pytest.approx(uncovered)
+
+
+def test_cover_accepts_id_lon_lat_weight_points(demo_net, tmp_path):
+    _, net_path = demo_net
+    pts = pd.DataFrame({"id": ["a", "b"], "lon": [-35.077, -34.93], "lat": [41.048, 40.97], "weight": [2.5, 4]})
+    path = tmp_path / "pts.csv"
+    pts.to_csv(path, index=False)
+    out = tmp_path / "c.gpkg"
+    assert (
+        main(
+            [
+                "cover",
+                str(net_path),
+                "--bases",
+                str(DEMO / "stations.csv"),
+                "--demand",
+                str(path),
+                "--minutes",
+                "8",
+                "--out",
+                str(out),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
+    demand = gpd.read_file(out, layer="demand")
+    assert list(demand["id"]) == ["a", "b"] and list(demand["weight"]) == [2.5, 4.0]
+    assert demand["covered"].all()
+
+
+@pytest.mark.parametrize(
+    ("make", "needle"),
+    [
+        ("raster_no_crs", "no CRS"),
+        ("polygons_no_field", "population field"),
+        ("swapped", "swapped"),
+        ("empty_filter", "no demand point left"),
+    ],
+)
+def test_cover_bad_input(demo_net, tmp_path, capsys, make, needle):
+    _, net_path = demo_net
+    extra = []
+    if make == "raster_no_crs":
+        path = tmp_path / "pop.tif"
+        with rasterio.open(DEMO / "population.tif") as src:
+            profile = src.profile
+            data = src.read(1)
+        profile.pop("crs")
+        with rasterio.open(path, "w", **profile) as dst:
+            dst.write(data, 1)
+    elif make == "polygons_no_field":
+        path = DEMO / "blocks.gpkg"
+        extra = ["--population-field", "people"]
+    elif make == "swapped":
+        src = pd.read_csv(DEMO / "incidents.csv").head(200)
+        src = src.rename(columns={"lon": "lat", "lat": "lon"})
+        path = tmp_path / "swapped.csv"
+        src.to_csv(path, index=False)
+    else:
+        path = DEMO / "incidents.csv"
+        extra = ["--where", "priority > 7"]
+    out = tmp_path / "x.gpkg"
+    code = main(
+        [
+            "cover",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--demand",
+            str(path),
+            "--minutes",
+            "8",
+            "--out",
+            str(out),
+            "--quiet",
+            *extra,
+        ]
+    )
+    err = capsys.readouterr().err.strip()
+    assert code == 2, err
+    assert needle in err and len(err.splitlines()) == 1
+    assert not out.exists()
+
+
+def _study(tmp_path, text: str):
+    path = tmp_path / "s.toml"
+    path.write_text(text)
+    return path
+
+
+BASE_STUDY = f"""
+[study]
+name = "t"
+[roads]
+source = "{DEMO / "varrowby.osm.bz2"}"
+[bases]
+file = "{DEMO / "stations.csv"}"
+[[demand]]
+name = "residents"
+raster = "{DEMO / "population.tif"}"
+[[standard]]
+name = "8"
+travel_s = 480
+"""
+
+
+@pytest.mark.parametrize(
+    ("edit", "needle"),
+    [
+        (lambda s: s.replace('name = "t"', 'name = "t"\ncolour = "red"'), "study.colour"),
+        (lambda s: s.replace("travel_s = 480", 'travel_s = "eight"'), "standard.travel_s"),
+        (lambda s: s.replace("stations.csv", "nowhere.csv"), "bases.file"),
+        (lambda s: s + "\n[extras]\na = 1\n", "[extras]"),
+        (lambda s: s.replace("travel_s = 480", "travel_s = 480\nfractile = 9"), "fractile"),
+        (lambda s: s.replace('raster = "', 'points = "x.csv"\nraster = "'), "exactly one"),
+        (lambda s: s.replace('[[standard]]\nname = "8"\ntravel_s = 480', ""), "[standard]"),
+        (lambda s: s + "\n[bases\n", "TOML"),
+    ],
+)
+def test_study_file_errors_name_the_key(tmp_path, edit, needle):
+    with pytest.raises(StudyError) as info:
+        load_study(_study(tmp_path, edit(BASE_STUDY)))
+    assert needle in str(info.value) and "\n" not in str(info.value)
+
+
+def test_run_reuses_the_cached_network(tmp_path, capsys):
+    study = _study(tmp_path, BASE_STUDY + "\n[outputs]\nmaps = false\nreport = false\nisochrone_minutes = [4]\n")
+    out = tmp_path / "res"
+    assert main(["run", str(study), "--out", str(out), "--quiet"]) == 0
+    first = (out / "network.gpkg").stat().st_mtime_ns
+    assert main(["run", str(study), "--out", str(out)]) == 0
+    assert "reusing" in capsys.readouterr().err
+    assert (out / "network.gpkg").stat().st_mtime_ns == first
+    # a changed profile invalidates the cache
+    study.write_text(study.read_text().replace("[bases]", 'profile = "normal"\n[bases]'))
+    assert main(["run", str(study), "--out", str(out), "--quiet"]) == 0
+    assert RoadNetwork.load(out / "network.gpkg").profile.name == "normal"
+
+
+def test_example_study_matches_the_demo_template():
+    from coverkit.demo import demo_study_toml
+
+    assert (REPO / "examples" / "demo-study.toml").read_text() == demo_study_toml()
+
+
+def test_missing_network_file(tmp_path, capsys):
+    code = main(
+        [
+            "cover",
+            str(tmp_path / "none.gpkg"),
+            "--bases",
+            "x.csv",
+            "--demand",
+            "y.csv",
+            "--minutes",
+            "8",
+            "--out",
+            str(tmp_path / "o.gpkg"),
+        ]
+    )
+    assert code == 2 and "coverkit network" in capsys.readouterr().err
+
+
+def test_demand_errors_are_field_errors(demo_net):
+    net, _ = demo_net
+    with pytest.raises(InputFileError):
+        load_demand(DEMO / "missing.tif", net)
+    with pytest.raises(FieldError, match="polygons"):
+        load_demand(DEMO / "blocks.gpkg", net)
