@@ -7,6 +7,7 @@ line and the exit status is 2.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -147,6 +148,71 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--zone-field", help="id field of --zones")
     p.add_argument("--demand-snap-m", type=_positive_float, default=500.0, help="demand snap limit, m (500)")
     p.add_argument("--direction", choices=["out", "in"], default="out", help="out: base to demand (default)")
+    _points_options(p)
+    _common(p)
+
+    p = sub.add_parser(
+        "site",
+        help="where new stations should go: covering models on candidate sites",
+        description="Rank candidate sites and choose new ones with a published covering model (MCLP, LSCP, backup "
+        "coverage, MEXCLP, p-median), solved exactly with HiGHS or by a greedy-plus-interchange heuristic.",
+    )
+    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
+    p.add_argument("--bases", type=Path, required=True, help="existing bases: CSV with id, lon, lat or a point layer")
+    p.add_argument("--candidates", type=Path, help="candidate sites: CSV with id, lon, lat or a point layer")
+    p.add_argument(
+        "--generate-candidates",
+        metavar="CLASS",
+        help="generate candidates at nodes on roads of CLASS or better (e.g. tertiary)",
+    )
+    p.add_argument("--spacing-m", type=_positive_float, default=1500.0, help="generated candidate spacing, m (1500)")
+    p.add_argument("--demand", type=Path, required=True, help="population raster, polygons or points")
+    p.add_argument("--population-field", help="population field of a polygon demand layer")
+    p.add_argument("--where", help='filter on point demand fields, e.g. "priority <= 2"')
+    p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
+    p.add_argument("--turnout-s", type=_positive_float, default=0.0, help="turnout added to travel, s (0)")
+    p.add_argument("--fractile", type=float, default=0.9, help="fractile reported for each solution (0.9)")
+    p.add_argument("--model", choices=["mclp", "lscp", "backup", "mexclp", "p-median"], default="mclp")
+    p.add_argument("--add", type=int, help="number of new sites (mclp, backup, p-median) or units (mexclp)")
+    p.add_argument("--target", type=float, help="lscp: share of demand to cover, 0..1 (default all coverable)")
+    p.add_argument("--busy-fraction", type=float, help="mexclp: share of time a unit is busy, 0..1")
+    p.add_argument("--relocate", action="store_true", help="existing bases are free to move (not fixed)")
+    p.add_argument("--rank", action="store_true", help="only rank every candidate alone (what each adds)")
+    p.add_argument("--curve", type=int, help="coverage curve up to this many new sites (default --add, at least 3)")
+    p.add_argument("--method", choices=["auto", "milp", "heuristic"], default="auto", help="solver (auto)")
+    p.add_argument("--time-limit-s", type=_positive_float, default=60.0, help="solver time limit, s (60)")
+    p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layers chosen, ranking, ...)")
+    _points_options(p)
+    _common(p)
+
+    p = sub.add_parser(
+        "availability",
+        help="busy units: hypercube model of who actually responds, and availability-adjusted coverage",
+        description="Closest-available dispatch with the hypercube model (exact for small N, Larson's approximation "
+        "for large N): unit workloads, the chance each unit answers each demand point, expected travel time with "
+        "backup responses, and the share of calls reached within the standard by whichever unit responds.",
+    )
+    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
+    p.add_argument("--bases", type=Path, required=True, help="bases with optional units column")
+    p.add_argument("--demand", type=Path, required=True, help="incidents (points with a time field) or population")
+    p.add_argument("--where", help='filter on point demand fields, e.g. "priority <= 2"')
+    p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
+    p.add_argument("--service-min", type=_positive_float, required=True, help="mean time a unit is busy per call, min")
+    p.add_argument("--calls-per-h", type=_positive_float, help="total call rate (default: from incident timestamps)")
+    p.add_argument("--time-field", default="received_at", help="incident timestamp field (received_at)")
+    p.add_argument(
+        "--queue",
+        choices=["infinite", "zero"],
+        default="infinite",
+        help="infinite: calls wait; zero: calls finding all units busy are lost to mutual aid",
+    )
+    p.add_argument(
+        "--method",
+        choices=["auto", "exact", "approx"],
+        default="auto",
+        help="exact 2^N-state model, Larson's approximation, or auto by size",
+    )
+    p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layers units, demand, summary)")
     _points_options(p)
     _common(p)
 
@@ -322,6 +388,147 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     return 0
 
 
+@command("site")
+def _cmd_site(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from coverkit.atomic import write_gpkg_layers, write_text_atomic
+    from coverkit.coverage import Standard
+    from coverkit.demand import load_demand
+    from coverkit.errors import FieldError
+    from coverkit.network import RoadNetwork
+    from coverkit.report import line_chart
+    from coverkit.site_plan import build_problem, generate_candidates, ranking_table, solve
+    from coverkit.travel import read_points
+
+    if (args.candidates is None) == (args.generate_candidates is None):
+        raise FieldError("give either --candidates FILE or --generate-candidates CLASS (not both, not neither).")
+    net = RoadNetwork.load(args.network)
+    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    if args.candidates:
+        candidates = read_points(args.candidates, net.crs, what="candidates")
+    else:
+        candidates = generate_candidates(net, args.generate_candidates, args.spacing_m)
+    demand = load_demand(args.demand, net, where=args.where, population_field=args.population_field)
+    std = Standard(f"{args.minutes:g} min", args.minutes * 60.0, args.turnout_s, args.fractile)
+    problem = build_problem(net, bases, candidates, demand, std, relocate=args.relocate, base_snap_m=args.snap_m)
+    out_csv = args.out.with_suffix("")
+    if args.rank:
+        ranking = ranking_table(problem)
+        write_gpkg_layers(args.out, {"ranking": ranking, "sites": problem.sites})
+        write_text_atomic(f"{out_csv}-ranking.csv", ranking.to_csv(index=False))
+        print(f"{'candidate':<12}{'adds':>12}{'adds %':>8}  name")
+        for r in ranking.itertuples(index=False):
+            print(f"{r.id:<12}{r.added_weight:>12,.0f}{r.added_share * 100:>8.2f}  {r.name}")
+        print(f"\n{std.describe()}; wrote {args.out}")
+        print(CAUTION)
+        return 0
+    plan = solve(
+        problem,
+        args.model,
+        add=args.add,
+        target=args.target,
+        q=args.busy_fraction,
+        method=args.method,
+        time_limit_s=args.time_limit_s,
+        curve_to=args.curve,
+    )
+    chart = line_chart(
+        f"{out_csv}-curve.png",
+        plan.curve["new_sites"].to_numpy(),
+        {"covered %": plan.curve["covered_share"] * 100},
+        "new sites",
+        "demand covered (%)",
+        f"Coverage curve - {std.describe(with_source=False)}",
+        note="each point is an MCLP optimum (Church & ReVelle 1974)",
+    )
+    write_gpkg_layers(
+        args.out,
+        {
+            "chosen": plan.chosen,
+            "ranking": plan.ranking,
+            "curve": plan.curve,
+            "sites": problem.sites,
+            "summary": pd.DataFrame([plan.summary]),
+        },
+    )
+    write_text_atomic(f"{out_csv}-chosen.csv", pd.DataFrame(plan.chosen.drop(columns="geometry")).to_csv(index=False))
+    write_text_atomic(f"{out_csv}-curve.csv", plan.curve.to_csv(index=False))
+    write_text_atomic(f"{out_csv}-ranking.csv", plan.ranking.to_csv(index=False))
+    s = plan.summary
+    print(
+        f"{s['model']} solved by {s['method']} ({s['status']}, gap {s['mip_gap'] * 100:.3f} % to the "
+        f"{s['bound_source']}, {s['solve_s']:.1f} s)"
+    )
+    print(std.describe())
+    print(
+        f"covered before {s['covered_share_before'] * 100:.1f} %, after {s['covered_share_after'] * 100:.1f} %; "
+        f"{std.fractile * 100:g}th percentile response {s['fractile_response_before_s'] / 60:.1f} -> "
+        f"{s['fractile_response_after_s'] / 60:.1f} min"
+    )
+    print("\nchosen sites")
+    for r in plan.chosen.itertuples(index=False):
+        print(f"  {r.id:<10} adds {r.added_demand:>10,.0f}  only this site {r.only_this_site:>10,.0f}  {r.name}")
+    print("\ncoverage curve (new sites: covered %)")
+    print(
+        "  "
+        + ", ".join(
+            f"{int(n)}: {c * 100:.1f}"
+            for n, c in zip(plan.curve["new_sites"], plan.curve["covered_share"], strict=True)
+        )
+    )
+    print(f"\nwrote {args.out}, {chart}")
+    print(CAUTION)
+    return 0
+
+
+@command("availability")
+def _cmd_availability(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from coverkit.atomic import write_gpkg_layers
+    from coverkit.availability import availability
+    from coverkit.coverage import Standard
+    from coverkit.demand import load_demand
+    from coverkit.network import RoadNetwork
+    from coverkit.travel import read_points
+
+    net = RoadNetwork.load(args.network)
+    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    demand = load_demand(args.demand, net, where=args.where)
+    std = Standard(f"{args.minutes:g} min", args.minutes * 60.0)
+    run = availability(
+        net,
+        bases,
+        demand,
+        std,
+        args.service_min,
+        calls_per_h=args.calls_per_h,
+        queue=args.queue,
+        method=args.method,
+        time_field=args.time_field,
+    )
+    write_gpkg_layers(args.out, {"units": run.units, "demand": run.demand, "summary": pd.DataFrame([run.summary])})
+    s = run.summary
+    print(
+        f"{s['calls_per_h']:.2f} calls/h x {s['mean_service_min']:g} min = {s['offered_load_erlang']:.2f} erlang on "
+        f"{s['units']} units ({s['method']} hypercube, {s['queue']} queue)"
+    )
+    print(f"chance all units are busy: {s['all_busy_probability'] * 100:.2f} %")
+    print(f"\n{'unit':<10}{'base':<8}{'workload':>10}{'calls/h':>9}")
+    for r in run.units.itertuples(index=False):
+        print(f"{r.unit:<10}{r.base_id:<8}{r.workload:>10.3f}{r.calls_per_h:>9.3f}")
+    print(f"\n{std.describe()}")
+    print(f"covered by drive time alone      {s['drive_time_coverage'] * 100:6.1f} % of calls")
+    print(
+        f"covered by the unit that answers {s['availability_coverage'] * 100:6.1f} % of calls (availability-adjusted)"
+    )
+    print(f"mean travel of the answering unit {s['expected_travel_s'] / 60:.1f} min")
+    print(f"\nwrote {args.out}")
+    print(CAUTION)
+    return 0
+
+
 @command("run")
 def _cmd_run(args: argparse.Namespace) -> int:
     from coverkit.study import headline_lines, run_study
@@ -362,6 +569,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CoverkitError as exc:
         print(f"coverkit {args.command}: error: {exc}", file=sys.stderr)
         return exc.exit_code
+    except BrokenPipeError:  # output piped into `head` and the like
+        sys.stdout = open(os.devnull, "w")
+        return 0
     except KeyboardInterrupt:
         print("coverkit: interrupted; no output was written", file=sys.stderr)
         return 130

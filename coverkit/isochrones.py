@@ -26,6 +26,7 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 import shapely
+from scipy.ndimage import distance_transform_edt
 
 from coverkit.atomic import atomic_path
 from coverkit.errors import CoverkitError
@@ -46,8 +47,6 @@ ANY_BASE_ID = "(any base)"
 SURFACE_NODATA = -1.0
 
 COLUMNS = ["base_id", "band_min", "area_km2", "road_km", "geometry"]
-
-_PAIRS_PER_BATCH = 4_000_000
 
 
 def drive_time_polygons(
@@ -339,7 +338,8 @@ def band_polygons(
     if exact:
         raw = _exact_polygons(xy, band, row, n_b, reach_m)
     else:
-        raw = _fast_polygons(xy, band, n_b, reach_m, cell_m or reach_m / 3.0)
+        # nested by construction: the fields only decrease from band to band, and filling small holes keeps that
+        return _fast_polygons(xy, band, row, n_b, reach_m, cell_m or reach_m / 3.0, min_hole_km2 * 1e6)
     out: list[shapely.Geometry] = []
     prev = shapely.Polygon()
     for g in raw:
@@ -388,91 +388,196 @@ def _polylines(xy: np.ndarray, row: np.ndarray) -> np.ndarray:
     return shapely.linestrings(pts, indices=np.cumsum(np.r_[True, ids[1:] != ids[:-1]]) - 1)
 
 
-def _fast_polygons(xy, band, n_b, reach_m, cell_m) -> list[shapely.Geometry]:
-    """Distance-to-reached-road grid per band (running minimum over bands), traced at ``reach_m``."""
+def _fast_polygons(xy, band, row, n_b, reach_m, cell_m, min_hole_m2) -> list[shapely.Geometry]:
+    """Distance fields of the reached road per band (nested), each traced at ``reach_m``."""
+    fields = reach_fields(xy, band, row, n_b, reach_m, cell_m)
+    return [_field_polygons(f, cell_m, reach_m, min_hole_m2) for f in fields]
+
+
+@dataclass
+class Field:
+    """Distance (m) from the nodes of a square grid to a band's reached road.
+
+    Node ``(i, j)`` of ``dist_m`` lies at ``((ix0 + j) * cell_m, (iy0 + i) * cell_m)`` in the network CRS: every
+    field shares one grid anchored at the CRS origin, so fields of different bands and bases line up cell for cell.
+    """
+
+    ix0: int
+    iy0: int
+    dist_m: np.ndarray
+
+    def merge_min(self, other: Field) -> None:
+        """Lower this field to ``min(self, other)``, growing it to cover ``other`` first (for "any base")."""
+        ny, nx = other.dist_m.shape
+        x0, y0 = min(self.ix0, other.ix0), min(self.iy0, other.iy0)
+        x1 = max(self.ix0 + self.dist_m.shape[1], other.ix0 + nx)
+        y1 = max(self.iy0 + self.dist_m.shape[0], other.iy0 + ny)
+        if (x0, y0, x1, y1) != (self.ix0, self.iy0, self.ix0 + self.dist_m.shape[1], self.iy0 + self.dist_m.shape[0]):
+            grown = np.full((y1 - y0, x1 - x0), _FAR, dtype=np.float32)
+            grown[self._slices(x0, y0)] = self.dist_m
+            self.ix0, self.iy0, self.dist_m = x0, y0, grown
+        sl = other._slices(self.ix0, self.iy0)
+        np.minimum(self.dist_m[sl], other.dist_m, out=self.dist_m[sl])
+
+    def _slices(self, x0: int, y0: int) -> tuple[slice, slice]:
+        """Where this field sits inside a grid window whose first node is ``(x0, y0)``."""
+        ny, nx = self.dist_m.shape
+        return slice(self.iy0 - y0, self.iy0 - y0 + ny), slice(self.ix0 - x0, self.ix0 - x0 + nx)
+
+
+#: Value of a node farther than any reach from the road (m): a stand-in for "far", above every level traced.
+_FAR = np.float32(1e9)
+
+
+def reach_fields(
+    xy: np.ndarray, band: np.ndarray, row: np.ndarray, n_b: int, reach_m: float, cell_m: float
+) -> list[Field | None]:
+    """Distance from grid nodes to the reached road of each band, nested (band k never farther than band k-1).
+
+    The reached road is sampled every ``cell_m / 2`` along each increment (``xy, band, row`` as from
+    :func:`reached_segments`). Each grid node takes the samples nearest to it; the samples of one increment in a
+    node's cell form a short chord of the road (its *representative*). For band k a Euclidean feature transform
+    (``scipy.ndimage.distance_transform_edt``, the exact algorithm of C. R. Maurer, R. Qi, V. Raghavan (2003), "A
+    linear time algorithm for computing exact Euclidean distance transforms of binary images in arbitrary
+    dimensions", IEEE PAMI 25(2)) gives every node its nearest road node among the nodes reached by band k; the
+    field is the exact distance (m) to that node's chord. Near a straight or gently curved road this is the
+    distance to the road itself to well under a metre; it never undershoots the distance to the reached road by
+    more than the chord's sagitta, so the ``reach_m`` level line hugs the exact buffer.
+
+    Each band's field covers the bounding box of its road plus ``reach_m + 2 cell_m``, so a band's window grows
+    with the band (work follows the reached extent, not the network). ``None`` for a band that reaches no road.
+    """
+    c = float(cell_m)
+    out: list[Field | None] = [None] * n_b
     if len(xy) == 0:
-        return [shapely.Polygon()] * n_b
-    margin = reach_m + 2.0 * cell_m
-    cap = reach_m + 2.0 * cell_m
-    xy, band = _split_long(xy, band, reach_m)
-    x_min = np.floor((min(xy[:, 0].min(), xy[:, 2].min()) - margin) / cell_m) * cell_m
-    y_min = np.floor((min(xy[:, 1].min(), xy[:, 3].min()) - margin) / cell_m) * cell_m
-    x_max = max(xy[:, 0].max(), xy[:, 2].max()) + margin
-    y_max = max(xy[:, 1].max(), xy[:, 3].max()) + margin
-    nx = int(np.ceil((x_max - x_min) / cell_m)) + 1
-    ny = int(np.ceil((y_max - y_min) / cell_m)) + 1
-    field = np.full(n_b * ny * nx, np.float32(cap), dtype=np.float32)
-    # local coordinates in cell units, float32 is ample at this scale
-    loc = ((xy - np.array([x_min, y_min, x_min, y_min])) / cell_m).astype(np.float32)
-    rad = (reach_m + 1.5 * cell_m) / cell_m  # values are needed up to one diagonal cell beyond the level
-    ix_lo = np.maximum(np.ceil(np.minimum(loc[:, 0], loc[:, 2]) - rad), 0).astype(np.int64)
-    ix_hi = np.minimum(np.floor(np.maximum(loc[:, 0], loc[:, 2]) + rad), nx - 1).astype(np.int64)
-    iy_lo = np.maximum(np.ceil(np.minimum(loc[:, 1], loc[:, 3]) - rad), 0).astype(np.int64)
-    iy_hi = np.minimum(np.floor(np.maximum(loc[:, 1], loc[:, 3]) + rad), ny - 1).astype(np.int64)
-    wx = ix_hi - ix_lo + 1
-    cnt = wx * (iy_hi - iy_lo + 1)
-    ends = np.cumsum(cnt)
-    start = 0
-    while start < len(cnt):
-        base_count = ends[start - 1] if start else 0
-        stop = int(np.searchsorted(ends, base_count + _PAIRS_PER_BATCH, side="right"))
-        stop = max(stop, start + 1)
-        sl = slice(start, stop)
-        c = cnt[sl]
-        seg = np.repeat(np.arange(start, stop), c)
-        local = np.arange(int(c.sum())) - np.repeat(np.cumsum(c) - c, c)
-        gx = ix_lo[seg] + local % wx[seg]
-        gy = iy_lo[seg] + local // wx[seg]
-        x0, y0, x1, y1 = loc[seg, 0], loc[seg, 1], loc[seg, 2], loc[seg, 3]
-        dx, dy = x1 - x0, y1 - y0
-        px, py = gx.astype(np.float32) - x0, gy.astype(np.float32) - y0
-        ll = dx * dx + dy * dy
-        t = np.clip((px * dx + py * dy) / np.where(ll > 0, ll, np.float32(1.0)), 0.0, 1.0)
-        d = np.hypot(px - t * dx, py - t * dy) * np.float32(cell_m)
-        near = d < cap
-        flat = band[seg[near]] * (ny * nx) + gy[near] * nx + gx[near]
-        np.minimum.at(field, flat, d[near])
-        start = stop
-    field = np.minimum.accumulate(field.reshape(n_b, ny, nx), axis=0)
-    xs = x_min + np.arange(nx) * cell_m
-    ys = y_min + np.arange(ny) * cell_m
-    out = []
+        return out
+    sx, sy, lab, srow = _road_samples(xy, band, row, c / 2.0)
+    jx = np.rint(sx / c).astype(np.int64)
+    jy = np.rint(sy / c).astype(np.int64)
+    margin = int(np.ceil((reach_m + 2.0 * c) / c))
+    ids = np.arange(len(sx))
+    prev: Field | None = None
     for k in range(n_b):
-        gen = contourpy.contour_generator(xs, ys, field[k], name="serial", fill_type="OuterOffset")
-        points, offsets = gen.filled(-1.0, reach_m)
-        out.append(_polygons_from_contours(points, offsets))
+        sel = np.flatnonzero(lab <= k)
+        if len(sel) == 0:
+            continue
+        x0, y0 = int(jx[sel].min()) - margin, int(jy[sel].min()) - margin
+        nx, ny = int(jx[sel].max()) + margin - x0 + 1, int(jy[sel].max()) + margin - y0 + 1
+        cell = (jy[sel] - y0) * nx + (jx[sel] - x0)
+        # representative of a road node: the chord from the first to the last sample, in road order, of the
+        # increment holding the node's last sample
+        hi = np.full(ny * nx, -1, dtype=np.int64)
+        np.maximum.at(hi, cell, ids[sel])
+        same = srow[sel] == srow[hi[cell]]
+        lo = np.full(ny * nx, len(sx), dtype=np.int64)
+        np.minimum.at(lo, cell[same], ids[sel][same])
+        road = hi >= 0
+        # one sample further each way along the same increment, so the chord also spans the cell's neighbours
+        lo_r, hi_r = lo[road], hi[road]
+        lo_r = np.where((lo_r > 0) & (srow[np.maximum(lo_r - 1, 0)] == srow[lo_r]), lo_r - 1, lo_r)
+        hi_r = np.where((hi_r < len(sx) - 1) & (srow[np.minimum(hi_r + 1, len(sx) - 1)] == srow[hi_r]), hi_r + 1, hi_r)
+        lo[road], hi[road] = lo_r, hi_r
+        ox, oy = x0 * c, y0 * c
+        ax = np.zeros(ny * nx, dtype=np.float32)
+        ay, bx, by = ax.copy(), ax.copy(), ax.copy()
+        ax[road], ay[road] = sx[lo[road]] - ox, sy[lo[road]] - oy
+        bx[road], by[road] = sx[hi[road]] - ox, sy[hi[road]] - oy
+        idx = distance_transform_edt(~road.reshape(ny, nx), return_distances=False, return_indices=True)
+        near = (idx[0] * nx + idx[1]).ravel()
+        dist = _chord_distance(ax[near], ay[near], bx[near], by[near], nx, ny, c)
+        if prev is not None:
+            sl = prev._slices(x0, y0)
+            np.minimum(dist[sl], prev.dist_m, out=dist[sl])
+        prev = out[k] = Field(x0, y0, dist)
     return out
 
 
-def _split_long(xy: np.ndarray, band: np.ndarray, max_len: float) -> tuple[np.ndarray, np.ndarray]:
-    """Split segments longer than ``max_len`` so their bounding boxes stay tight around them."""
+def _chord_distance(ax, ay, bx, by, nx: int, ny: int, c: float) -> np.ndarray:
+    """Distance (m, float32, shape (ny, nx)) from each grid node to the chord ``a -> b`` it was given."""
+    ax, ay = ax.reshape(ny, nx), ay.reshape(ny, nx)
+    dx, dy = bx.reshape(ny, nx) - ax, by.reshape(ny, nx) - ay
+    px = np.arange(nx, dtype=np.float32)[None, :] * np.float32(c) - ax
+    py = np.arange(ny, dtype=np.float32)[:, None] * np.float32(c) - ay
+    ll = dx * dx + dy * dy
+    t = (px * dx + py * dy) / np.maximum(ll, np.float32(1e-12))
+    np.clip(t, 0.0, 1.0, out=t)
+    return np.hypot(px - t * dx, py - t * dy)
+
+
+def _road_samples(xy: np.ndarray, band: np.ndarray, row: np.ndarray, step_m: float):
+    """Points along the reached segments at most ``step_m`` apart, both ends of each increment included.
+
+    Returns x, y (m), band and increment row per point; points of an increment are consecutive, in road order.
+    """
     length = np.hypot(xy[:, 2] - xy[:, 0], xy[:, 3] - xy[:, 1])
-    n = np.maximum(np.ceil(length / max_len), 1).astype(np.int64)
-    if (n == 1).all():
-        return xy, band
-    idx = np.repeat(np.arange(len(xy)), n)
-    j = np.arange(n.sum()) - np.repeat(np.cumsum(n) - n, n)
-    t0 = (j / n[idx])[:, None]
-    t1 = ((j + 1) / n[idx])[:, None]
-    p0, p1 = xy[idx, :2], xy[idx, 2:]
-    return np.column_stack([p0 + t0 * (p1 - p0), p0 + t1 * (p1 - p0)]), band[idx]
+    n = np.maximum(np.ceil(length / step_m), 1).astype(np.int64)
+    # each segment gives its start and the points inside it; the last segment of an increment also its end
+    last = np.r_[row[1:] != row[:-1], True]
+    cnt = n + last
+    seg = np.repeat(np.arange(len(xy)), cnt)
+    j = np.arange(len(seg)) - np.repeat(np.cumsum(cnt) - cnt, cnt)
+    t = j / n[seg]
+    x = xy[seg, 0] + t * (xy[seg, 2] - xy[seg, 0])
+    y = xy[seg, 1] + t * (xy[seg, 3] - xy[seg, 1])
+    return x, y, band[seg], row[seg]
 
 
-def _polygons_from_contours(points: list, offsets: list) -> shapely.Geometry:
-    """Shapely (multi)polygon from contourpy ``OuterOffset`` output (first ring shell, the rest holes)."""
-    if not points:
-        return shapely.Polygon()
-    ring_pts, ring_ids, poly_of_ring = [], [], []
-    n_ring = 0
-    for poly_i, (pts, off) in enumerate(zip(points, offsets, strict=True)):
-        sizes = np.diff(off)
-        ring_pts.append(pts)
-        ring_ids.append(np.repeat(np.arange(n_ring, n_ring + len(sizes)), sizes))
-        poly_of_ring.append(np.full(len(sizes), poly_i))
-        n_ring += len(sizes)
-    rings = shapely.linearrings(np.concatenate(ring_pts), indices=np.concatenate(ring_ids))
-    polys = shapely.polygons(rings, indices=np.concatenate(poly_of_ring))
-    return shapely.make_valid(shapely.multipolygons(polys))
+def _field_polygons(field: Field | None, cell_m: float, level_m: float, min_hole_m2: float) -> shapely.Geometry:
+    """The region ``dist <= level_m`` of a field as a valid MultiPolygon, holes under ``min_hole_m2`` filled.
+
+    The level line is traced by marching squares with linear interpolation (``contourpy``), so it falls between
+    grid nodes where the distance crosses the level. contourpy returns disjoint polygons, shell first, so the
+    MultiPolygon is assembled directly from its coordinate arrays (no union).
+    """
+    if field is None:
+        return shapely.MultiPolygon()
+    ny, nx = field.dist_m.shape
+    xs = (field.ix0 + np.arange(nx)) * cell_m
+    ys = (field.iy0 + np.arange(ny)) * cell_m
+    gen = contourpy.contour_generator(
+        xs, ys, field.dist_m, name="serial", fill_type="ChunkCombinedOffsetOffset", chunk_size=0
+    )
+    pts_l, offs_l, outer_l = gen.filled(-1.0, level_m)
+    if not pts_l or pts_l[0] is None or len(pts_l[0]) == 0:
+        return shapely.MultiPolygon()
+    pts, offs, outer = pts_l[0], offs_l[0].astype(np.int64), outer_l[0].astype(np.int64)
+    n_ring = len(offs) - 1
+    shell = np.zeros(n_ring, dtype=bool)
+    shell[outer[:-1]] = True
+    poly_of_ring = np.repeat(np.arange(len(outer) - 1), np.diff(outer))
+    area = _ring_areas(pts, offs)
+    keep = shell | (area >= min_hole_m2)
+    ring_of_pt = np.repeat(np.arange(n_ring), np.diff(offs))
+    kept_pt = keep[ring_of_pt]
+    new_ring = np.cumsum(keep) - 1
+    rings = shapely.linearrings(pts[kept_pt], indices=new_ring[ring_of_pt[kept_pt]])
+    polys = shapely.polygons(rings, indices=poly_of_ring[keep])
+    filled = ~keep
+    if filled.any() and len(polys) > 1:
+        # a polygon lying inside a hole that was just filled is now covered twice: drop it
+        holes = shapely.polygons(
+            shapely.linearrings(
+                pts[filled[ring_of_pt]], indices=(np.cumsum(filled) - 1)[ring_of_pt[filled[ring_of_pt]]]
+            )
+        )
+        first_pt = shapely.points(pts[offs[outer[:-1]]])
+        inside, _ = shapely.STRtree(holes).query(first_pt, predicate="within")
+        polys = np.delete(polys, np.unique(inside))
+    out = shapely.multipolygons(polys)
+    if not shapely.is_valid(out):
+        out = _clean(out, min_hole_m2)
+    return out
+
+
+def _ring_areas(pts: np.ndarray, offs: np.ndarray) -> np.ndarray:
+    """Unsigned area (m²) of each closed ring ``pts[offs[i]:offs[i + 1]]`` (shoelace formula)."""
+    ring_of_pt = np.repeat(np.arange(len(offs) - 1), np.diff(offs))
+    # relative to each ring's first point: keeps the products small, hence precise
+    rel = pts - pts[offs[:-1]][ring_of_pt]
+    cross = rel[:-1, 0] * rel[1:, 1] - rel[1:, 0] * rel[:-1, 1]
+    cross = np.append(cross, 0.0)
+    cross[offs[1:] - 1] = 0.0  # the step from a ring's last point to the next ring's first is not an edge
+    return np.abs(np.add.reduceat(cross, offs[:-1])) / 2.0
 
 
 def _clean(geom: shapely.Geometry, min_hole_m2: float) -> shapely.Geometry:

@@ -1,0 +1,170 @@
+"""Busy units: availability-adjusted coverage from the hypercube model on the travel engine's times.
+
+Glue between :mod:`coverkit.coverage` (travel tables) and :mod:`coverkit.queueing` (the models). The call rate
+comes from the incidents' timestamps (calls over the span of the record) or is given; each demand point's share of
+the calls is its share of the demand weight.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+
+from coverkit.coverage import Standard, travel_table, weighted_fractile
+from coverkit.errors import FieldError, ModelError
+from coverkit.network.model import RoadNetwork
+from coverkit.queueing import (
+    availability_coverage,
+    erlang_b,
+    erlang_c,
+    expand_station_units,
+    expected_travel_s,
+    hypercube,
+    offered_load,
+    preference_lists,
+    unit_travel_s,
+)
+
+
+def call_rate_per_h(demand: gpd.GeoDataFrame, time_field: str = "received_at") -> float:
+    """Calls per hour from incident timestamps: (number of calls) / (span of the record in hours).
+
+    The span is from the first to the last timestamp; for a record of one calendar year this is close to
+    8,760 h. Raises :class:`FieldError` when the timestamps are missing or span less than one day.
+    """
+    if time_field not in demand.columns:
+        raise FieldError(
+            f"demand has no time field '{time_field}' to derive the call rate; give --calls-per-h or a time field."
+        )
+    stamps = pd.to_datetime(demand[time_field], errors="coerce", format="ISO8601")
+    if stamps.isna().any():
+        raise FieldError(
+            f"field '{time_field}' has values that are not ISO 8601 times; fix them or give --calls-per-h."
+        )
+    span_h = (stamps.max() - stamps.min()).total_seconds() / 3600.0
+    if span_h < 24:
+        raise FieldError(f"the incidents span only {span_h:.1f} h; give --calls-per-h for so short a record.")
+    return float(demand["weight"].sum()) / span_h
+
+
+@dataclass
+class AvailabilityRun:
+    """Per unit and per demand point results of the hypercube model."""
+
+    units: pd.DataFrame  # base_id, unit, workload
+    demand: gpd.GeoDataFrame  # id, weight, drive_time_covered, availability_covered, expected_travel_s, ...
+    summary: dict
+    result: object  # HypercubeResult
+
+
+def availability(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame,
+    demand: gpd.GeoDataFrame,
+    standard: Standard,
+    mean_service_min: float,
+    calls_per_h: float | None = None,
+    queue: str = "infinite",
+    method: str = "auto",
+    time_field: str = "received_at",
+    max_snap_m: float = 500.0,
+) -> AvailabilityRun:
+    """Hypercube model with closest-available dispatch on the road network's travel times.
+
+    Parameters
+    ----------
+    bases
+        Bases with an optional ``units`` column (units per station, default 1).
+    demand
+        Demand points (incidents, or population with ``calls_per_h`` given); weight sets each point's call share.
+    standard
+        Travel standard used for "reached within the standard".
+    mean_service_min
+        Mean time a unit is busy per call (minutes): travel, on scene, transport, return.
+    calls_per_h
+        Total call rate; default from the incidents' timestamps (:func:`call_rate_per_h`).
+    queue
+        ``"infinite"`` (calls wait) or ``"zero"`` (calls that find every unit busy are lost, e.g. to mutual aid).
+    method
+        ``"exact"`` (2^N states), ``"approx"`` (Larson 1975) or ``"auto"`` (exact for small N).
+    """
+    if not mean_service_min > 0:
+        raise ModelError(f"--service-min must be positive minutes, got {mean_service_min}.")
+    units_per_station = (
+        pd.to_numeric(bases["units"], errors="coerce").fillna(1).astype(int).to_numpy()
+        if "units" in bases.columns
+        else np.ones(len(bases), dtype=int)
+    )
+    if units_per_station.sum() == 0:
+        raise ModelError("no units: every base has units = 0; give at least one unit.")
+    rate = float(calls_per_h) if calls_per_h else call_rate_per_h(demand, time_field)
+    # no horizon: a backup unit may come from far away, and its full travel time counts
+    table = travel_table(net, bases, demand, np.inf, max_snap_m)
+    dense = np.full((len(bases), len(demand)), np.inf)
+    coo = table.times.tocoo()
+    dense[coo.row, coo.col] = coo.data
+    station_t = dense.T  # (n_atoms, n_stations)
+    w_all = demand["weight"].to_numpy(dtype=float)
+    # demand off the network, or on a piece no base reaches, cannot be served: it stays uncovered and out of the model
+    ok = np.isfinite(station_t).all(axis=1)
+    if not ok.any():
+        raise ModelError("no demand point is reachable from every base; check the bases and the demand area.")
+    unit_t = unit_travel_s(station_t[ok], units_per_station)
+    pref = preference_lists(unit_t)
+    w = w_all[ok]
+    # every call still occupies a unit: the calls of unserved points are spread over the served ones
+    atom_rate = rate * w / w.sum()
+    res = hypercube(atom_rate, pref, mean_service_min, queue=queue, method=method)
+    cov = np.zeros(len(demand))
+    cov[ok] = availability_coverage(res, unit_t, standard.travel_s)
+    exp_t = np.full(len(demand), np.inf)
+    exp_t[ok] = expected_travel_s(res, unit_t)
+    first_share = np.zeros(len(demand))
+    first_share[ok] = res.dispatch_fraction[np.arange(len(pref)), pref[:, 0]]
+    station_of_unit, unit_no = expand_station_units(units_per_station)
+    base_ids = bases["id"].astype(str).to_numpy()
+    units = pd.DataFrame(
+        {
+            "base_id": base_ids[station_of_unit],
+            "unit": [f"{base_ids[s]}-{n}" for s, n in zip(station_of_unit, unit_no, strict=True)],
+            "workload": res.workload,
+            "calls_per_h": (res.dispatch_fraction * atom_rate[:, None]).sum(axis=0),
+        }
+    )
+    nearest = np.min(station_t, axis=1)
+    drive_cov = nearest <= standard.travel_s
+    out = demand[["id", "weight", "geometry"]].copy()
+    out["travel_s"] = nearest
+    out["drive_time_covered"] = drive_cov
+    out["availability_covered"] = cov
+    out["expected_travel_s"] = exp_t
+    out["first_unit_share"] = first_share
+    wait = np.zeros(len(demand))
+    wait[ok] = res.wait_probability
+    loss = np.zeros(len(demand))
+    loss[ok] = res.loss_probability
+    out["wait_probability"] = wait
+    out["loss_probability"] = loss
+    w = w_all
+    load = offered_load(rate, mean_service_min)
+    n_units = int(units_per_station.sum())
+    summary = {
+        "calls_per_h": rate,
+        "mean_service_min": mean_service_min,
+        "offered_load_erlang": load,
+        "units": n_units,
+        "mean_workload": float(res.workload.mean()),
+        "method": res.method,
+        "queue": queue,
+        "all_busy_probability": erlang_b(load, n_units) if queue == "zero" else erlang_c(load, n_units),
+        "drive_time_coverage": float(np.average(drive_cov, weights=w)),
+        "availability_coverage": float(np.average(cov, weights=w)),
+        "drive_time_fractile_s": weighted_fractile(nearest + standard.turnout_s, w, standard.fractile),
+        "expected_travel_s": float(np.average(exp_t[ok], weights=w[ok])),
+        "unserved_points": int((~ok).sum()),
+        "standard": standard.describe(),
+    }
+    return AvailabilityRun(units, out, summary, res)

@@ -1,0 +1,271 @@
+"""Shortest routes between snapped source/target pairs, as sparse edge-use matrices.
+
+A route is kept as two rows of sparse (n_pairs, n_edges) matrices rather than as a list of edges: ``run_use`` holds
+the share of each edge's running time that the route drives (1 for a whole edge, ``1 - frac`` for the partial edge
+leaving the source, ``frac`` for the partial edge reaching the target) and ``delay_use`` holds 1 for every edge
+whose end-node delay (signal) the route pays. Then, for any per-edge running times ``run_s`` and delays ``delay_s``,
+the route's time is ``run_use @ run_s + delay_use @ delay_s`` and its length ``run_use @ length_m``: a calibration
+can re-price a fixed set of routes with new speeds by one sparse product.
+
+The search is :func:`scipy.sparse.csgraph.dijkstra` with predecessors on the same augmented graph as
+:mod:`coverkit.travel.search` (one virtual node per source), so times equal :func:`~coverkit.travel.search.point_times`.
+Paths are read back for all targets of a chunk of sources at once, one path step per numpy operation (the number
+of operations is the depth of the deepest route, not the number of routes).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import dijkstra
+
+from coverkit.network.model import RoadNetwork
+from coverkit.travel.search import CHUNK_CELLS, _augmented, exits, graph, run_s, seeds
+from coverkit.travel.snap import Snapped
+
+
+@dataclass(frozen=True)
+class Routes:
+    """Shortest routes (outbound: source to target) for a list of pairs.
+
+    Attributes
+    ----------
+    source, target
+        Index of each pair's source and target point (into the ``Snapped`` objects given).
+    found
+        ``True`` where the target is reachable from the source.
+    time_s
+        Route travel time (s); ``inf`` where not found.
+    run_use
+        Sparse (n_pairs, n_edges): share of each edge's running time driven (see the module docstring).
+    delay_use
+        Sparse (n_pairs, n_edges): 1 where the route passes the edge's end node and pays its delay.
+    direct
+        ``True`` where the route is the direct trip along one edge shared by source and target.
+    """
+
+    source: np.ndarray
+    target: np.ndarray
+    found: np.ndarray
+    time_s: np.ndarray
+    run_use: sp.csr_matrix
+    delay_use: sp.csr_matrix
+    direct: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.source)
+
+    def length_m(self, net: RoadNetwork) -> np.ndarray:
+        """Route length (m), partial edges included; NaN where not found."""
+        out = self.run_use @ net.length_m
+        return np.where(self.found, out, np.nan)
+
+    def priced_s(self, run_edge_s: np.ndarray, delay_edge_s: np.ndarray) -> np.ndarray:
+        """Time of each route (s) for other per-edge running times and delays (same edge set); NaN where not found."""
+        out = self.run_use @ run_edge_s + self.delay_use @ delay_edge_s
+        return np.where(self.found, out, np.nan)
+
+    def same_paths(self, other: Routes) -> bool:
+        """Whether ``other`` drives the same edges, in the same shares, for every pair."""
+        a, b = self.run_use, other.run_use
+        return (
+            a.shape == b.shape
+            and np.array_equal(a.indptr, b.indptr)
+            and np.array_equal(a.indices, b.indices)
+            and np.allclose(a.data, b.data, rtol=0.0, atol=1e-12)
+            and np.array_equal(self.direct, other.direct)
+        )
+
+
+def shortest_routes(
+    net: RoadNetwork,
+    sources: Snapped,
+    targets: Snapped,
+    source_index: np.ndarray,
+    target_index: np.ndarray,
+    chunk_size: int | None = None,
+) -> Routes:
+    """Shortest outbound routes from ``sources[source_index[k]]`` to ``targets[target_index[k]]``.
+
+    Parameters
+    ----------
+    net
+        Road network; routes minimise its ``travel_s``.
+    sources, targets
+        Snapped points (off-network points give routes that are not found).
+    source_index, target_index
+        One pair per position (int arrays of equal length).
+    chunk_size
+        Sources per ``dijkstra`` call (default: keep the dense block under the search module's cell budget).
+
+    Returns
+    -------
+    Routes
+        Time conventions as in :mod:`coverkit.travel.search`: a partial edge is charged its share of the running
+        time; an end-node delay is paid when the node is passed (also when leaving the source's edge), never at the
+        target.
+    """
+    source_index = np.asarray(source_index, dtype=np.int64).reshape(-1)
+    target_index = np.asarray(target_index, dtype=np.int64).reshape(-1)
+    if source_index.shape != target_index.shape:
+        raise ValueError("source_index and target_index must have the same length")
+    n, n_pairs, n_edges = net.n_nodes, len(source_index), net.n_edges
+    run = run_s(net)
+    g = graph(net, "out")
+    edge_key, edge_of_key = _edge_lookup(net)
+
+    s_pt, s_node, s_t = seeds(net, sources, "out")
+    s_edge = sources.entry_edge
+    # the cheapest entry of each (source point, first node) pair: the arc the virtual node actually uses
+    s_key = s_pt * np.int64(n) + s_node
+    order = np.lexsort((s_edge, s_t, s_key))
+    first = np.r_[True, s_key[order][1:] != s_key[order][:-1]] if len(order) else np.zeros(0, dtype=bool)
+    start_key, start_edge = s_key[order][first], s_edge[order][first]
+    start_frac = sources.entry_frac[order][first]
+
+    t_pt, t_node, t_add = exits(net, targets, "out")
+    t_edge, t_frac = targets.entry_edge, targets.entry_frac
+    t_count = np.bincount(t_pt, minlength=len(targets))
+    t_ptr = np.concatenate([[0], np.cumsum(t_count)])
+
+    time_s = np.full(n_pairs, np.inf)
+    direct = np.zeros(n_pairs, dtype=bool)
+    rows: list[np.ndarray] = []
+    cols: list[np.ndarray] = []
+    run_w: list[np.ndarray] = []
+    delay_w: list[np.ndarray] = []
+
+    direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run)
+
+    usable = sources.on_network[source_index] & targets.on_network[target_index]
+    src_all = np.unique(source_index[usable])
+    if chunk_size is None:
+        chunk_size = max(1, CHUNK_CELLS // max(n, 1))
+    for start in range(0, len(src_all), chunk_size):
+        src = src_all[start : start + chunk_size]
+        local = np.full(len(sources), -1, dtype=np.int64)
+        local[src] = np.arange(len(src))
+        sel = local[s_pt] >= 0
+        aug = _augmented(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src))
+        dist, pred = dijkstra(aug, directed=True, indices=n + np.arange(len(src)), return_predecessors=True)
+
+        pairs = np.flatnonzero(usable & (local[source_index] >= 0))
+        ls = local[source_index[pairs]]
+        # every exit entry of each pair's target; pick the cheapest (ties: lowest edge id, entries are edge-sorted)
+        cnt = t_count[target_index[pairs]]
+        rep = np.repeat(np.arange(len(pairs)), cnt)
+        ent = np.repeat(t_ptr[target_index[pairs]], cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))
+        cand = dist[ls[rep], t_node[ent]] + t_add[ent]
+        best = np.full(len(pairs), -1, dtype=np.int64)
+        best_s = np.full(len(pairs), np.inf)
+        if len(rep):
+            o = np.lexsort((ent, cand, rep))
+            head = np.r_[True, rep[o][1:] != rep[o][:-1]]
+            best[rep[o][head]] = ent[o][head]
+            best_s[rep[o][head]] = cand[o][head]
+        # the direct trip along a shared edge wins ties: it passes no node
+        use_direct = direct_s[pairs] <= best_s
+        net_ok = np.isfinite(best_s) & ~use_direct
+        time_s[pairs] = np.minimum(best_s, direct_s[pairs])
+        direct[pairs[use_direct]] = True
+
+        dp = pairs[use_direct]
+        rows.append(dp)
+        cols.append(direct_edge[dp])
+        run_w.append(direct_share[dp])
+        delay_w.append(np.zeros(len(dp)))
+
+        p_idx = np.flatnonzero(net_ok)
+        e_end = t_edge[best[p_idx]]
+        rows.append(pairs[p_idx])
+        cols.append(e_end)
+        run_w.append(t_frac[best[p_idx]])
+        delay_w.append(np.zeros(len(p_idx)))
+        # walk the predecessor arrays back from the exit node, one step for all routes at once
+        cur = net.u[e_end]
+        row_local = ls[p_idx]
+        row_pair = pairs[p_idx]
+        while len(cur):
+            prev = pred[row_local, cur]
+            at_source = prev >= n
+            if at_source.any():
+                key = source_index[row_pair[at_source]] * np.int64(n) + cur[at_source]
+                k = np.searchsorted(start_key, key)
+                rows.append(row_pair[at_source])
+                cols.append(start_edge[k])
+                run_w.append(1.0 - start_frac[k])
+                delay_w.append(np.ones(int(at_source.sum())))
+            inner = ~at_source
+            if inner.any():
+                key = prev[inner] * np.int64(n) + cur[inner]
+                rows.append(row_pair[inner])
+                cols.append(edge_of_key[np.searchsorted(edge_key, key)])
+                run_w.append(np.ones(int(inner.sum())))
+                delay_w.append(np.ones(int(inner.sum())))
+            cur, row_local, row_pair = prev[inner], row_local[inner], row_pair[inner]
+
+    r = np.concatenate(rows) if rows else np.zeros(0, dtype=np.int64)
+    c = np.concatenate(cols) if cols else np.zeros(0, dtype=np.int64)
+    run_use = sp.csr_matrix((np.concatenate(run_w) if run_w else np.zeros(0), (r, c)), shape=(n_pairs, n_edges))
+    delay_use = sp.csr_matrix((np.concatenate(delay_w) if delay_w else np.zeros(0), (r, c)), shape=(n_pairs, n_edges))
+    delay_use.eliminate_zeros()
+    run_use.sort_indices()
+    delay_use.sort_indices()
+    return Routes(
+        source=source_index,
+        target=target_index,
+        found=np.isfinite(time_s),
+        time_s=time_s,
+        run_use=run_use,
+        delay_use=delay_use,
+        direct=direct,
+    )
+
+
+def _edge_lookup(net: RoadNetwork) -> tuple[np.ndarray, np.ndarray]:
+    """Sorted keys ``u * n + v`` of the edges the CSR graph keeps (lowest time among parallels), and their ids."""
+    m = net.csr_edge_index().tocoo()
+    key = m.row.astype(np.int64) * np.int64(net.n_nodes) + m.col.astype(np.int64)
+    order = np.argsort(key, kind="stable")
+    return key[order], m.data[order].astype(np.int64) - 1
+
+
+def _direct_trips(
+    sources: Snapped, targets: Snapped, source_index: np.ndarray, target_index: np.ndarray, run: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per pair: time (s) of the direct trip along an edge shared by source and target (target ahead of source in
+    the edge's direction), the edge, and the share of its running time; ``inf`` / -1 / 0 where there is none."""
+    n_pairs = len(source_index)
+    out_s = np.full(n_pairs, np.inf)
+    out_e = np.full(n_pairs, -1, dtype=np.int64)
+    out_w = np.zeros(n_pairs)
+    s_count = np.bincount(sources.entry_point, minlength=len(sources))
+    s_ptr = np.concatenate([[0], np.cumsum(s_count)])
+    cnt = s_count[source_index]
+    rep = np.repeat(np.arange(n_pairs), cnt)
+    ent = np.repeat(s_ptr[source_index], cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))
+    if len(rep) == 0 or len(targets.entry_edge) == 0:
+        return out_s, out_e, out_w
+    # target entries keyed by (target point, edge): entries are sorted that way already
+    t_key = targets.entry_point * np.int64(run.size) + targets.entry_edge
+    s_edge = sources.entry_edge[ent]
+    want = target_index[rep] * np.int64(run.size) + s_edge
+    k = np.minimum(np.searchsorted(t_key, want), len(t_key) - 1)
+    hit = t_key[k] == want
+    share = targets.entry_frac[k] - sources.entry_frac[ent]
+    ok = hit & (share >= 0)
+    t = np.where(ok, share * run[s_edge], np.inf)
+    o = np.lexsort((s_edge, t, rep))
+    head = np.r_[True, rep[o][1:] != rep[o][:-1]]
+    sel = o[head]
+    good = np.isfinite(t[sel])
+    pr = rep[sel][good]
+    out_s[pr] = t[sel][good]
+    out_e[pr] = s_edge[sel][good]
+    out_w[pr] = share[sel][good]
+    return out_s, out_e, out_w
+
+
+__all__ = ["Routes", "shortest_routes"]

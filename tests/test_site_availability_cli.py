@@ -1,0 +1,192 @@
+"""`coverkit site` and `coverkit availability` on the demo county, checked against independent computations.
+
+Sources: MCLP optimum by exhaustive enumeration (Church & ReVelle 1974 define the objective); coverage after the
+chosen sites by the separate coverage module; in an M/M/N queue with waiting the mean number of busy servers equals
+the offered load lambda/mu (Erlang 1917; Little's law) - so unit workloads must sum to it.
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pytest
+
+from coverkit.cli import main
+from coverkit.coverage import Standard, evaluate_coverage
+from coverkit.demand import load_demand
+from coverkit.network import RoadNetwork, build_network
+from coverkit.site_plan import build_problem
+from coverkit.travel import read_points
+
+from .conftest import DEMO
+
+
+@pytest.fixture(scope="module")
+def net_path(tmp_path_factory):
+    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
+    path = tmp_path_factory.mktemp("n") / "net.gpkg"
+    net.save(path)
+    return path
+
+
+def _site(net_path, out, *extra):
+    return main(
+        [
+            "site",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--candidates",
+            str(DEMO / "candidates.csv"),
+            "--demand",
+            str(DEMO / "population.tif"),
+            "--minutes",
+            "8",
+            "--out",
+            str(out),
+            "--quiet",
+            *extra,
+        ]
+    )
+
+
+def test_mclp_choice_is_the_enumerated_optimum_and_coverage_agrees(net_path, tmp_path):
+    out = tmp_path / "site.gpkg"
+    assert _site(net_path, out, "--add", "2", "--model", "mclp") == 0
+    chosen = gpd.read_file(out, layer="chosen")
+    assert len(chosen) == 2
+    net = RoadNetwork.load(net_path)
+    bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
+    cands = read_points(DEMO / "candidates.csv", net.crs, what="candidates")
+    demand = load_demand(DEMO / "population.tif", net)
+    std = Standard("8", 480.0)
+    prob = build_problem(net, bases, cands, demand, std)
+    cov = prob.covers.toarray()
+    w = prob.weights
+    fixed_cov = cov[:, prob.fixed].any(axis=1)
+    free = np.flatnonzero(~prob.fixed)
+    best = max((w[fixed_cov | cov[:, list(pair)].any(axis=1)].sum(), pair) for pair in itertools.combinations(free, 2))
+    summary = gpd.read_file(out, layer="summary")
+    assert summary["covered_share_after"].iloc[0] * w.sum() == pytest.approx(best[0], rel=1e-9)
+    # an independent evaluation with the chosen sites as bases gives the same covered share
+    chosen_pts = cands[cands["id"].isin(chosen["id"].astype(str))]
+    all_bases = pd.concat([bases[["id", "geometry"]], chosen_pts[["id", "geometry"]]], ignore_index=True)
+    res = evaluate_coverage(net, gpd.GeoDataFrame(all_bases, crs=net.crs), demand, std)
+    assert res.summary()["covered_share"] == pytest.approx(summary["covered_share_after"].iloc[0], rel=1e-9)
+    curve = gpd.read_file(out, layer="curve")
+    assert list(curve["new_sites"]) == [0, 1, 2, 3]
+    assert curve["covered_share"].is_monotonic_increasing
+    assert (tmp_path / "site-curve.png").is_file()
+
+
+def test_rank_lists_every_candidate_alone(net_path, tmp_path):
+    out = tmp_path / "rank.gpkg"
+    assert _site(net_path, out, "--rank") == 0
+    ranking = gpd.read_file(out, layer="ranking")
+    src = pd.read_csv(DEMO / "candidates.csv")
+    assert sorted(ranking["id"].astype(str)) == sorted(src["id"].astype(str))
+    assert ranking["added_weight"].is_monotonic_decreasing
+
+
+def test_lscp_target_is_reached_with_fewest_sites(net_path, tmp_path):
+    out = tmp_path / "lscp.gpkg"
+    assert _site(net_path, out, "--model", "lscp", "--target", "0.95") == 0
+    summary = gpd.read_file(out, layer="summary").iloc[0]
+    curve = gpd.read_file(out, layer="curve")
+    assert summary["covered_share_after"] >= 0.95
+    n = int(summary["new_sites"])
+    # one site fewer cannot reach the target: the MCLP optimum with n - 1 sites is below it
+    assert curve.loc[curve["new_sites"] == n - 1, "covered_share"].iloc[0] < 0.95
+
+
+def test_site_bad_input(net_path, tmp_path, capsys):
+    far = pd.DataFrame({"id": ["X1"], "name": ["at sea"], "lon": [-36.5], "lat": [41.0]})
+    path = tmp_path / "far.csv"
+    far.to_csv(path, index=False)
+    out = tmp_path / "x.gpkg"
+    code = main(
+        [
+            "site",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--candidates",
+            str(path),
+            "--demand",
+            str(DEMO / "population.tif"),
+            "--minutes",
+            "8",
+            "--add",
+            "1",
+            "--out",
+            str(out),
+            "-q",
+        ]
+    )
+    assert code == 2 and "X1" in capsys.readouterr().err
+    assert _site(net_path, out, "--add", "20") == 2
+    err = capsys.readouterr().err
+    assert "--add 20" in err and len(err.strip().splitlines()) == 1
+    assert not out.exists()
+
+
+def test_availability_units_table_and_workloads(net_path, tmp_path, capsys):
+    out = tmp_path / "avail.gpkg"
+    code = main(
+        [
+            "availability",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--demand",
+            str(DEMO / "incidents.csv"),
+            "--minutes",
+            "8",
+            "--service-min",
+            "45",
+            "--calls-per-h",
+            "3",
+            "--out",
+            str(out),
+            "-q",
+        ]
+    )
+    assert code == 0
+    units = gpd.read_file(out, layer="units")
+    stations = pd.read_csv(DEMO / "stations.csv")
+    assert len(units) == stations["units"].sum()
+    assert list(units.columns[:3]) == ["base_id", "unit", "workload"]
+    offered = 3 * 45 / 60  # erlangs
+    assert units["workload"].sum() == pytest.approx(offered, rel=1e-6)
+    demand = gpd.read_file(out, layer="demand")
+    # whichever unit answers is never closer than the nearest one: availability coverage <= drive-time coverage
+    assert (demand["availability_covered"] <= demand["drive_time_covered"].astype(float) + 1e-9).all()
+    text = capsys.readouterr().out
+    assert "availability-adjusted" in text and "Planning estimates only" in text
+
+
+def test_availability_unstable_queue_is_a_clear_error(net_path, tmp_path, capsys):
+    code = main(
+        [
+            "availability",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--demand",
+            str(DEMO / "incidents.csv"),
+            "--minutes",
+            "8",
+            "--service-min",
+            "60",
+            "--calls-per-h",
+            "9",
+            "--out",
+            str(tmp_path / "a.gpkg"),
+            "-q",
+        ]
+    )
+    err = capsys.readouterr().err
+    assert code == 2 and "unstable" in err and len(err.strip().splitlines()) == 1
