@@ -1517,6 +1517,19 @@ source = "example local standard for the rural districts"
 file = "{data}districts.geojson"
 id_field = "district"
 
+[siting]
+candidates = "{data}candidates.csv"
+model = "mclp"
+add = 2
+standard = "ALS 8 min"
+demand = "residents"
+
+[availability]
+service_min = 45
+queue = "infinite"
+demand = "calls"
+standard = "ALS 8 min"
+
 [outputs]
 folder = "{out}"
 isochrone_minutes = [4, 8, 12]

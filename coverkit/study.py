@@ -56,6 +56,30 @@ SCHEMA: dict[str, dict[str, tuple[tuple[type, ...] | type, bool]]] = {
         "source": (str, False),
     },
     "zones": {"file": (str, True), "id_field": (str, True), "layer": (str, False)},
+    "siting": {
+        "candidates": (str, False),
+        "generate": (str, False),
+        "spacing_m": (_NUM, False),
+        "model": (str, False),
+        "add": (int, False),
+        "target": (_NUM, False),
+        "busy_fraction": (_NUM, False),
+        "relocate": (bool, False),
+        "method": (str, False),
+        "time_limit_s": (_NUM, False),
+        "curve": (int, False),
+        "standard": (str, False),
+        "demand": (str, False),
+    },
+    "availability": {
+        "service_min": (_NUM, True),
+        "calls_per_h": (_NUM, False),
+        "queue": (str, False),
+        "method": (str, False),
+        "time_field": (str, False),
+        "standard": (str, False),
+        "demand": (str, False),
+    },
     "outputs": {
         "folder": (str, False),
         "isochrone_minutes": (list, False),
@@ -98,6 +122,29 @@ class Study:
     zones: dict[str, Any] | None
     outputs: dict[str, Any]
     raw: dict[str, Any]
+    siting: dict[str, Any] | None = None
+    availability: dict[str, Any] | None = None
+
+    def standard_named(self, name: str | None, key: str) -> Standard:
+        """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
+        if name is None:
+            return self.standards[0]
+        for std in self.standards:
+            if std.name == name:
+                return std
+        raise StudyError(
+            f"{self.path}: {key} = '{name}' is not a [[standard]] name; use one of "
+            f"{', '.join(s.name for s in self.standards)}."
+        )
+
+    def demand_named(self, name: str | None, key: str, kind: str) -> str:
+        """The demand layer called ``name`` (the first of ``kind`` when None)."""
+        names = [d.name for d in self.demand]
+        if name is None:
+            return next((d.name for d in self.demand if d.kind == kind), names[0])
+        if name not in names:
+            raise StudyError(f"{self.path}: {key} = '{name}' is not a [[demand]] name; use one of {', '.join(names)}.")
+        return name
 
     @property
     def folder(self) -> Path:
@@ -244,10 +291,49 @@ def load_study(path: str | Path) -> Study:
     if not all(isinstance(m, int | float) and not isinstance(m, bool) and m > 0 for m in minutes) or not minutes:
         raise StudyError(f"{where}: outputs.isochrone_minutes must be a list of positive numbers, e.g. [4, 8, 12].")
     outputs["isochrone_minutes"] = sorted(float(m) for m in minutes)
+    siting_cfg = None
+    if "siting" in raw:
+        siting_cfg = dict(raw["siting"])
+        if ("candidates" in siting_cfg) == ("generate" in siting_cfg):
+            raise StudyError(f"{where}: [siting] needs exactly one of candidates (a file) or generate (a road class).")
+        if "candidates" in siting_cfg:
+            siting_cfg["candidates"] = str(_file(folder, siting_cfg["candidates"], "siting.candidates", where))
+        model = siting_cfg.get("model", "mclp")
+        if model not in ("mclp", "lscp", "backup", "mexclp", "p-median"):
+            raise StudyError(f"{where}: siting.model '{model}' is unknown; use mclp, lscp, backup, mexclp or p-median.")
+        if model != "lscp" and "add" not in siting_cfg:
+            raise StudyError(f"{where}: [siting] with model {model} needs add (the number of new sites).")
+    availability_cfg = None
+    if "availability" in raw:
+        availability_cfg = dict(raw["availability"])
+        if availability_cfg.get("queue", "infinite") not in ("infinite", "zero"):
+            raise StudyError(f"{where}: availability.queue must be 'infinite' or 'zero'.")
+        if availability_cfg.get("method", "auto") not in ("auto", "exact", "approx"):
+            raise StudyError(f"{where}: availability.method must be 'auto', 'exact' or 'approx'.")
     direction = raw["study"].get("direction", "out")
     if direction not in ("out", "in"):
         raise StudyError(f"{where}: study.direction must be 'out' (base to demand) or 'in', got '{direction}'.")
-    return Study(path, raw["study"]["name"], direction, roads, bases, demand, standards, zones, outputs, raw)
+    study = Study(
+        path,
+        raw["study"]["name"],
+        direction,
+        roads,
+        bases,
+        demand,
+        standards,
+        zones,
+        outputs,
+        raw,
+        siting_cfg,
+        availability_cfg,
+    )
+    if siting_cfg:
+        study.standard_named(siting_cfg.get("standard"), "siting.standard")
+        study.demand_named(siting_cfg.get("demand"), "siting.demand", "residents")
+    if availability_cfg:
+        study.standard_named(availability_cfg.get("standard"), "availability.standard")
+        study.demand_named(availability_cfg.get("demand"), "availability.demand", "incidents")
+    return study
 
 
 # -- running ----------------------------------------------------------------------------------------------------------
@@ -278,6 +364,8 @@ class StudyRun:
     summary: Any  # DataFrame, one row per standard x demand
     outputs: dict[str, Path]
     network_reused: bool
+    site_plan: Any = None
+    availability: Any = None
 
 
 def slug(text: str) -> str:
@@ -404,7 +492,11 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         max_snap_m=float(study.bases.get("snap_m", 500.0)),
     )
 
-    steps.step(f"coverage for {len(study.standards)} standards x {len(demand)} demand layers")
+    steps.step(
+        f"coverage for {len(study.standards)} standards x {len(demand)} demand layers"
+        + (", siting" if study.siting else "")
+        + (", availability" if study.availability else "")
+    )
     zones = None
     if study.zones:
         import pyogrio
@@ -462,10 +554,70 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             layers[f"priority_{slug(name)}_{s}"] = table
         for name, table in run.per_base.items():
             layers[f"bases_{slug(name)}_{s}"] = table
+    site_plan = None
+    if study.siting:
+        from coverkit.site_plan import build_problem, generate_candidates, solve
+
+        cfg = study.siting
+        std = study.standard_named(cfg.get("standard"), "siting.standard")
+        dname = study.demand_named(cfg.get("demand"), "siting.demand", "residents")
+        if "candidates" in cfg:
+            candidates = read_points(cfg["candidates"], net.crs, what="candidates")
+        else:
+            candidates = generate_candidates(net, cfg["generate"], float(cfg.get("spacing_m", 1500.0)))
+        problem = build_problem(
+            net,
+            bases,
+            candidates,
+            demand[dname],
+            std,
+            relocate=cfg.get("relocate", False),
+            max_snap_m=snaps[dname],
+            base_snap_m=base_snap_m,
+        )
+        site_plan = solve(
+            problem,
+            cfg.get("model", "mclp"),
+            add=cfg.get("add"),
+            target=cfg.get("target"),
+            q=cfg.get("busy_fraction"),
+            method=cfg.get("method", "auto"),
+            time_limit_s=float(cfg.get("time_limit_s", 60.0)),
+            curve_to=cfg.get("curve"),
+        )
+        site_plan.summary["demand"] = dname
+        layers["site_chosen"] = site_plan.chosen
+        layers["site_ranking"] = site_plan.ranking
+        layers["site_curve"] = site_plan.curve
+        outputs["site_curve_csv"] = write_text_atomic(folder / "site_curve.csv", site_plan.curve.to_csv(index=False))
+    avail = None
+    if study.availability:
+        from coverkit.availability import availability as run_availability
+
+        cfg = study.availability
+        std = study.standard_named(cfg.get("standard"), "availability.standard")
+        dname = study.demand_named(cfg.get("demand"), "availability.demand", "incidents")
+        avail = run_availability(
+            net,
+            bases,
+            demand[dname],
+            std,
+            float(cfg["service_min"]),
+            calls_per_h=cfg.get("calls_per_h"),
+            queue=cfg.get("queue", "infinite"),
+            method=cfg.get("method", "auto"),
+            time_field=cfg.get("time_field", "received_at"),
+            max_snap_m=snaps[dname],
+        )
+        avail.summary["demand"] = dname
+        layers["units"] = avail.units
+        layers["availability_demand"] = avail.demand
     layers["summary"] = summary.drop(columns=["standard_text"])
     outputs["layers"] = write_gpkg_layers(folder / "coverage.gpkg", layers)
     outputs["summary_csv"] = write_text_atomic(folder / "summary.csv", summary.to_csv(index=False))
-    result = StudyRun(study, net, build_text, bases, demand, polygons, surface_path, runs, summary, outputs, reused)
+    result = StudyRun(
+        study, net, build_text, bases, demand, polygons, surface_path, runs, summary, outputs, reused, site_plan, avail
+    )
 
     steps.step("maps and report")
     if opts.get("maps", True) or opts.get("report", True):
@@ -486,6 +638,20 @@ def headline_lines(run: StudyRun) -> list[str]:
             f"{r.standard:<22} {r.demand:<12} covered {r.covered_share * 100:5.1f} % "
             f"({r.covered:,.0f} of {r.demand_total:,.0f} {unit}); {r.fractile * 100:g}th percentile response "
             f"{frac_text} - {'meets' if r.meets_standard else 'misses'} the standard"
+        )
+    if run.site_plan is not None:
+        s = run.site_plan.summary
+        ids = ", ".join(run.site_plan.chosen["id"].astype(str))
+        lines.append(
+            f"siting ({s['model']}, {s['method']}): new sites {ids or '-'}; {s['demand']} covered "
+            f"{s['covered_share_before'] * 100:.1f} % -> {s['covered_share_after'] * 100:.1f} %"
+        )
+    if run.availability is not None:
+        a = run.availability.summary
+        lines.append(
+            f"busy units ({a['calls_per_h']:.2f} calls/h, {a['mean_service_min']:g} min each): {a['demand']} reached "
+            f"in standard {a['drive_time_coverage'] * 100:.1f} % by drive time, "
+            f"{a['availability_coverage'] * 100:.1f} % by the unit that actually answers"
         )
     for srun in run.runs:
         gaps = srun.areas.gaps

@@ -46,9 +46,11 @@ def test_demo_writes_report_layers_and_maps(demo_run):
     assert len(list((out / "maps").glob("*.png"))) >= 4
     html = (out / "report.html").read_text()
     assert "Planning estimates only" in html and "NFPA 1710" in html
+    assert "Where a new station would help" in html and "Busy units" in html
     assert "http://" not in html and "https://" not in html
     layers = {name for name, _ in pyogrio.list_layers(out / "coverage.gpkg")}
     assert {"bases", "drive_time_polygons", "gaps_first_due_4_min", "first_due_als_8_min", "summary"} <= layers
+    assert {"site_chosen", "site_curve", "site_ranking", "units"} <= layers
 
 
 def test_nfpa_1710_standard_is_evaluated_and_reported(demo_run):
@@ -246,6 +248,14 @@ travel_s = 480
         (lambda s: s.replace('raster = "', 'points = "x.csv"\nraster = "'), "exactly one"),
         (lambda s: s.replace('[[standard]]\nname = "8"\ntravel_s = 480', ""), "[standard]"),
         (lambda s: s + "\n[bases\n", "TOML"),
+        (
+            lambda s: s + f'\n[siting]\ncandidates = "{DEMO / "candidates.csv"}"\nadd = 1\nstandard = "nine"\n',
+            "siting.standard",
+        ),
+        (lambda s: s + f'\n[siting]\ncandidates = "{DEMO / "candidates.csv"}"\n', "needs add"),
+        (lambda s: s + '\n[siting]\ngenerate = "tertiary"\nadd = 1\nmodel = "best"\n', "siting.model"),
+        (lambda s: s + '\n[availability]\nqueue = "zero"\n', "service_min"),
+        (lambda s: s + '\n[availability]\nservice_min = 45\ndemand = "calls"\n', "availability.demand"),
     ],
 )
 def test_study_file_errors_name_the_key(tmp_path, edit, needle):

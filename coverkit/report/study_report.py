@@ -19,6 +19,14 @@ from coverkit.report.maps import coverage_depth_map, first_due_map, gaps_map, tr
 if TYPE_CHECKING:
     from coverkit.study import StudyRun
 
+_MODEL_SOURCES = {
+    "mclp": "Church & ReVelle 1974",
+    "lscp": "Toregas, Swain, ReVelle & Bergman 1971",
+    "backup": "Hogan & ReVelle 1986",
+    "mexclp": "Daskin 1983",
+    "p-median": "Hakimi 1964",
+}
+
 FRACTILE_NOTE = (
     "Fractile response: the smallest response time such that the stated share of demand (by weight) is reached "
     "within it (inverted empirical CDF; Hyndman & Fan 1996, definition 1). Demand not reached within the search "
@@ -182,6 +190,65 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         rep.add_image(depth, f"Coverage depth - {srun.standard.name}")
         rep.add_image(gaps_png, f"Gaps - {srun.standard.name}")
         rep.add_image(first_png, f"First-due areas - {srun.standard.name}")
+    if run.site_plan is not None:
+        plan = run.site_plan
+        sm = plan.summary
+        rep.add_heading("Where a new station would help")
+        rep.add_paragraph(
+            f"Model {sm['model']} ({_MODEL_SOURCES.get(sm['model'], '')}) on demand '{sm['demand']}', "
+            f"{sm['standard']}. Solved by {sm['method']}: {sm['status']}, gap {sm['mip_gap'] * 100:.3f} % to the "
+            f"{sm['bound_source']}. Covered {sm['covered_share_before'] * 100:.1f} % with the existing bases, "
+            f"{sm['covered_share_after'] * 100:.1f} % with the chosen sites."
+        )
+        rep.add_table(pd.DataFrame(plan.chosen.drop(columns="geometry")), caption="Chosen sites and what each adds")
+        curve = plan.curve[["new_sites", "covered_share", "gain_share", "fractile_response_s", "site_ids"]].copy()
+        curve["covered_share"] *= 100
+        curve["gain_share"] *= 100
+        curve["fractile_response_s"] /= 60
+        rep.add_table(
+            curve.rename(
+                columns={"covered_share": "covered %", "gain_share": "gain %", "fractile_response_s": "fractile (min)"}
+            ),
+            caption="Coverage curve: best sites for each number of new stations (MCLP optima)",
+        )
+        from coverkit.report.maps import line_chart
+
+        out["site_curve"] = line_chart(
+            maps_dir / "site_curve.png",
+            plan.curve["new_sites"].to_numpy(),
+            {"covered %": plan.curve["covered_share"].to_numpy() * 100},
+            "new sites",
+            "demand covered (%)",
+            "Coverage curve",
+            note="each point an MCLP optimum (Church & ReVelle 1974)",
+        )
+        rep.add_image(out["site_curve"], "Coverage curve")
+        rank = plan.ranking.copy()
+        rank["added_share"] *= 100
+        rank["share_with_site"] *= 100
+        rep.add_table(
+            rank.rename(columns={"added_share": "adds %", "share_with_site": "covered with it %"}),
+            caption="Every candidate alone: what it adds to the existing bases",
+        )
+    if run.availability is not None:
+        av = run.availability
+        a = av.summary
+        rep.add_heading("Busy units: who actually responds")
+        rep.add_paragraph(
+            f"Hypercube model ({a['method']}, {a['queue']} queue; Larson 1974, 1975) with closest-available "
+            f"dispatch on the network's travel times: {a['calls_per_h']:.2f} calls per hour on demand "
+            f"'{a['demand']}', {a['mean_service_min']:g} min busy per call ({a['offered_load_erlang']:.2f} erlang) "
+            f"over {a['units']} units. {a['standard']}."
+        )
+        rep.add_key_figures(
+            {
+                "reached in standard, drive time only": f"{a['drive_time_coverage'] * 100:.1f} %",
+                "reached by the unit that answers": f"{a['availability_coverage'] * 100:.1f} %",
+                "mean travel of the answering unit": f"{a['expected_travel_s'] / 60:.1f} min",
+                "chance all units busy": f"{a['all_busy_probability'] * 100:.2f} %",
+            }
+        )
+        rep.add_table(av.units, caption="Unit workloads (busy fraction) and calls answered per hour")
     rep.add_heading("About this report")
     rep.add_paragraph(f"Made with coverkit {__version__}. {CAUTION}")
     out["report"] = rep.write(folder / "report.html")
