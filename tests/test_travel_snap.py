@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import shapely
 
 from coverkit.errors import CoverkitError, FieldError, InputFileError, OffNetworkError
 from coverkit.network.model import grid_network, network_from_arrays
@@ -110,3 +111,37 @@ def test_read_points_layer_with_id_field(tmp_path):
         read_points(f, "EPSG:32633", id_field="station")
     with pytest.raises(InputFileError, match="not found"):
         read_points(tmp_path / "none.csv", "EPSG:32633")
+
+
+def test_vectorised_nearest_piece_equals_shapely_strtree():
+    """The k-d tree nearest search equals shapely's STRtree.query_nearest (GEOS) on random curved lines, including
+    points in dense clusters of lines where the fallback path is needed."""
+    from coverkit.travel.nearest import nearest_pieces, segment_index
+
+    rng = np.random.default_rng(3)
+    starts = rng.uniform(0, 5000, (400, 2))
+    mids = starts + rng.normal(0, 150, (400, 2))
+    ends = mids + rng.normal(0, 150, (400, 2))
+    lines = shapely.linestrings(np.stack([starts, mids, ends], axis=1))
+    dense = shapely.linestrings(
+        np.stack(
+            [
+                np.full((60, 2), 2500.0),
+                np.full((60, 2), 2500.0) + rng.normal(0, 3, (60, 2)),
+                np.full((60, 2), 2510.0) + rng.normal(0, 3, (60, 2)),
+            ],
+            axis=1,
+        )
+    )
+    geoms = np.concatenate([lines, dense])
+    tree = shapely.STRtree(geoms)
+    xy = np.vstack([rng.uniform(-300, 5300, (3000, 2)), 2505 + rng.normal(0, 4, (200, 2))])
+    piece, dist = nearest_pieces(segment_index(geoms), xy, 250.0, tree, geoms)
+    (pi, _ti), d = tree.query_nearest(shapely.points(xy), max_distance=250.0, return_distance=True)
+    ref_d = np.full(len(xy), np.inf)
+    np.minimum.at(ref_d, pi, d)
+    np.testing.assert_allclose(dist, ref_d, atol=1e-7)
+    hit = np.isfinite(ref_d)
+    assert (piece[~hit] == -1).all()
+    # the chosen piece is at the minimum distance
+    np.testing.assert_allclose(shapely.distance(geoms[piece[hit]], shapely.points(xy[hit])), ref_d[hit], atol=1e-7)

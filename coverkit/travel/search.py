@@ -31,6 +31,9 @@ CHUNK_CELLS = 10_000_000
 
 DIRECTIONS = ("out", "in")
 
+#: Up to this many cells (sources x targets), nearest sources are found on a dense array.
+DENSE_NEAREST_CELLS = 20_000_000
+
 
 def run_s(net: RoadNetwork) -> np.ndarray:
     """Running time of each edge without its end-node delay (s); ``inf`` for closed edges."""
@@ -152,8 +155,7 @@ def point_times(
     for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
         block = np.full((len(src_idx), n_t), np.inf)
         if len(t_pt):
-            vals = dist[:, t_node] + t_add[None, :]
-            block[:, targets_with] = np.minimum.reduceat(vals, starts, axis=1)
+            block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
         _same_edge_min(net, sources, targets, src_idx, block, direction)
         parts.append((src_idx, _dense_to_csr(block, limit_s)))
     return _assemble(parts, (len(sources), n_t))
@@ -201,7 +203,21 @@ def nearest_sources(times: sp.csr_matrix, k: int = 1) -> tuple[np.ndarray, np.nd
     time_s
         Shape (n_targets, k), times (s), ``inf`` where fewer than ``k`` were reached.
     """
-    n_t = times.shape[1]
+    n_s, n_t = times.shape
+    if n_s * n_t <= DENSE_NEAREST_CELLS:
+        # few sources (bases): a dense stable sort down each column is faster than sorting all entries
+        dense = np.full((n_s, n_t), np.inf)
+        coo = times.tocoo()
+        dense[coo.row, coo.col] = coo.data
+        kk = min(k, n_s)
+        order = np.argsort(dense, axis=0, kind="stable")[:kk]
+        t_k = np.take_along_axis(dense, order, axis=0)
+        source = np.full((n_t, k), -1, dtype=np.int64)
+        time_s = np.full((n_t, k), np.inf)
+        reached = np.isfinite(t_k)
+        source[:, :kk] = np.where(reached, order, -1).T
+        time_s[:, :kk] = t_k.T
+        return source, time_s
     coo = times.tocoo()
     order = np.lexsort((coo.row, coo.data, coo.col))
     col, row, t = coo.col[order], coo.row[order], coo.data[order]
@@ -223,6 +239,25 @@ def count_within(times: sp.csr_matrix, within_s: float) -> np.ndarray:
 
 
 # -- internals --------------------------------------------------------------------------------------------------------
+def _group_min(dist: np.ndarray, node: np.ndarray, add: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """Per group of entries (groups start at ``starts``): min over entries of ``dist[:, node] + add``.
+
+    Most points have one or two entries (a one-way or a two-way street), so the first and last entry of each group
+    are combined directly; only larger groups go through ``reduceat``.
+    """
+    ends = np.r_[starts[1:], len(node)] - 1
+    out = dist[:, node[starts]] + add[starts]
+    two = ends > starts
+    if two.any():
+        out[:, two] = np.minimum(out[:, two], dist[:, node[ends[two]]] + add[ends[two]])
+    many = np.flatnonzero(ends - starts > 1)
+    if len(many):
+        vals = dist[:, node] + add[None, :]
+        red = np.minimum.reduceat(vals, starts, axis=1)
+        out[:, many] = red[:, many]
+    return out
+
+
 def _check_direction(direction: str) -> None:
     if direction not in DIRECTIONS:
         raise ValueError(f"direction must be 'out' or 'in', not {direction!r}")

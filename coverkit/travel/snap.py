@@ -18,6 +18,7 @@ from scipy.sparse.csgraph import connected_components
 from coverkit.errors import OffNetworkError
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import warn
+from coverkit.travel.nearest import nearest_pieces, segment_index
 
 #: Default snap limit (m): a point farther than this from any open road is off-network.
 DEFAULT_MAX_SNAP_M = 500.0
@@ -226,14 +227,12 @@ def snap_points(
     dist_m = np.full(n, np.inf)
     piece = np.full(n, -1, dtype=np.int64)
     if n and len(pieces.rep_edge):
-        (pi, ti), d = pieces.tree.query_nearest(geoms, max_distance=max_snap_m, return_distance=True)
-        # query_nearest may return several equidistant pieces per point: keep the lowest piece index.
-        order = np.lexsort((ti, pi))
-        first = np.ones(len(order), dtype=bool)
-        first[1:] = pi[order][1:] != pi[order][:-1]
-        sel = order[first]
-        piece[pi[sel]] = ti[sel]
-        dist_m[pi[sel]] = d[sel]
+        key = "coverkit.travel:segment_index"
+        if key not in net._csr_cache:
+            net._csr_cache[key] = segment_index(pieces.tree.geometries)
+        piece, dist_m = nearest_pieces(
+            net._csr_cache[key], shapely.get_coordinates(geoms), max_snap_m, pieces.tree, pieces.tree.geometries
+        )
         far = np.flatnonzero(piece < 0)
         if len(far) and measure_far:
             (fi, _), fd = pieces.tree.query_nearest(geoms[far], return_distance=True)

@@ -1,0 +1,113 @@
+"""Exact nearest road piece for many points, vectorised: a k-d tree over short segment midpoints, then exact
+point-to-segment distances in numpy, with a proof of exactness per point (and a fallback where it fails).
+
+Why: GEOS' nearest query costs tens of microseconds per point; demand layers have 10^5 points or more.
+
+Exactness: every piece is cut into straight sub-segments no longer than ``max_len_m``. Any point of a sub-segment
+lies within ``max_len_m / 2`` of its midpoint, so the sub-segment nearest to a point p (distance d*) has its midpoint
+within d* + max_len_m / 2. Querying the k nearest midpoints and computing exact distances to those k sub-segments
+gives the minimum d; it is the true minimum whenever the k-th midpoint lies farther than d + max_len_m / 2 (no
+unseen sub-segment can be closer). Points that fail this check go to the STRtree nearest query.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from scipy.spatial import cKDTree
+
+#: Longest sub-segment (m). Shorter means more midpoints but fewer candidates needed per point.
+MAX_SUBSEGMENT_M = 50.0
+#: Midpoints examined per point before falling back.
+K_CANDIDATES = 8
+
+
+@dataclass(frozen=True)
+class SegmentIndex:
+    """Sub-segments of the piece geometries and a k-d tree over their midpoints."""
+
+    a: np.ndarray  # (S, 2) start
+    b: np.ndarray  # (S, 2) end
+    piece: np.ndarray  # (S,) piece index
+    max_len_m: float
+    tree: cKDTree
+
+
+def segment_index(geoms: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> SegmentIndex:
+    """Cut line geometries into straight sub-segments of at most ``max_len_m`` and index their midpoints."""
+    coords, owner = shapely.get_coordinates(geoms, return_index=True)
+    same = owner[1:] == owner[:-1]
+    a, b, piece = coords[:-1][same], coords[1:][same], owner[1:][same]
+    seg_len = np.hypot(*(b - a).T)
+    parts = np.maximum(1, np.ceil(seg_len / max_len_m).astype(np.int64))
+    rep = np.repeat(np.arange(len(a)), parts)
+    k = np.arange(parts.sum()) - np.repeat(np.cumsum(parts) - parts, parts)
+    t0 = (k / parts[rep])[:, None]
+    t1 = ((k + 1) / parts[rep])[:, None]
+    d = (b - a)[rep]
+    sa = a[rep] + t0 * d
+    sb = a[rep] + t1 * d
+    return SegmentIndex(sa, sb, piece[rep], float(max_len_m), cKDTree((sa + sb) / 2.0))
+
+
+def _point_segment_distance(p: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    ab = b - a
+    denom = np.einsum("...i,...i->...", ab, ab)
+    t = np.where(denom > 0, np.einsum("...i,...i->...", p - a, ab) / np.where(denom > 0, denom, 1.0), 0.0)
+    t = np.clip(t, 0.0, 1.0)
+    closest = a + t[..., None] * ab
+    diff = p - closest
+    return np.sqrt(np.einsum("...i,...i->...", diff, diff))
+
+
+def nearest_pieces(
+    index: SegmentIndex, xy: np.ndarray, max_distance_m: float, tree: shapely.STRtree, geoms: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Nearest piece (lowest index among equidistant ones) and its distance for each point within the limit.
+
+    Returns
+    -------
+    piece
+        Shape (n,), ``-1`` where no piece lies within ``max_distance_m``.
+    dist_m
+        Shape (n,), distance to that piece, ``inf`` where none.
+    """
+    n = len(xy)
+    piece = np.full(n, -1, dtype=np.int64)
+    dist = np.full(n, np.inf)
+    if n == 0 or len(index.piece) == 0:
+        return piece, dist
+    k = min(K_CANDIDATES, len(index.piece))
+    half = index.max_len_m / 2.0
+    dk, ik = index.tree.query(xy, k=k, distance_upper_bound=max_distance_m + half, workers=-1)
+    dk = dk.reshape(n, k)
+    ik = ik.reshape(n, k)
+    valid = ik < len(index.piece)
+    safe = np.where(valid, ik, 0)
+    seg_d = _point_segment_distance(xy[:, None, :], index.a[safe], index.b[safe])
+    seg_d = np.where(valid, seg_d, np.inf)
+    cand_piece = np.where(valid, index.piece[safe], np.iinfo(np.int64).max)
+    best = seg_d.min(axis=1)
+    # lowest piece index among candidates at the minimum distance (ties within 1e-9 m)
+    at_min = seg_d <= best[:, None] + 1e-9
+    best_piece = np.where(at_min, cand_piece, np.iinfo(np.int64).max).min(axis=1)
+    # proven exact when the k-th midpoint is beyond best + half (or the query ran out of midpoints in range)
+    kth = dk[:, -1]
+    proven = (kth > best + half + 1e-9) | ~valid[:, -1]
+    within = best <= max_distance_m
+    ok = proven & within
+    piece[ok] = best_piece[ok]
+    dist[ok] = best[ok]
+    # points with nothing in range: proven off-network when the nearest midpoint is beyond the limit + half
+    redo = np.flatnonzero(~proven & (best <= max_distance_m + half))
+    if len(redo):
+        (pi, ti), d = tree.query_nearest(shapely.points(xy[redo]), max_distance=max_distance_m, return_distance=True)
+        order = np.lexsort((ti, pi))
+        first = np.ones(len(order), dtype=bool)
+        first[1:] = pi[order][1:] != pi[order][:-1]
+        sel = order[first]
+        piece[redo[pi[sel]]] = ti[sel]
+        dist[redo[pi[sel]]] = d[sel]
+    return piece, dist
