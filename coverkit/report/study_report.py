@@ -149,14 +149,9 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
     ].copy()
     table["covered_share"] = table["covered_share"] * 100
     table["fractile_response_s"] = table["fractile_response_s"] / 60
-    table = table.rename(
-        columns={
-            "covered_share": "covered %",
-            "fractile_response_s": "fractile response (min)",
-            "demand_total": "demand",
-            "off_network": "off network",
-        }
-    )
+    table["meets_standard"] = table["meets_standard"].map({True: "yes", False: "no"})
+    table.columns = ["standard", "layer", "total", "covered", "covered %", "by one base", "by 2+ bases",
+                     "fractile (min)", "meets", "off network"]  # fmt: skip
     rep.add_table(table, caption="Coverage per standard and demand layer")
     rep.add_heading("Drive-time polygons", 3)
     poly = run.polygons.drop(columns="geometry")
