@@ -1530,6 +1530,9 @@ queue = "infinite"
 demand = "calls"
 standard = "ALS 8 min"
 
+[calibration]
+observed = "{data}observed_times.csv"
+
 [outputs]
 folder = "{out}"
 isochrone_minutes = [4, 8, 12]

@@ -80,6 +80,7 @@ SCHEMA: dict[str, dict[str, tuple[tuple[type, ...] | type, bool]]] = {
         "standard": (str, False),
         "demand": (str, False),
     },
+    "calibration": {"observed": (str, True), "hours": (list, False)},
     "outputs": {
         "folder": (str, False),
         "isochrone_minutes": (list, False),
@@ -124,6 +125,7 @@ class Study:
     raw: dict[str, Any]
     siting: dict[str, Any] | None = None
     availability: dict[str, Any] | None = None
+    calibration: dict[str, Any] | None = None
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -310,6 +312,13 @@ def load_study(path: str | Path) -> Study:
             raise StudyError(f"{where}: availability.queue must be 'infinite' or 'zero'.")
         if availability_cfg.get("method", "auto") not in ("auto", "exact", "approx"):
             raise StudyError(f"{where}: availability.method must be 'auto', 'exact' or 'approx'.")
+    calibration_cfg = None
+    if "calibration" in raw:
+        calibration_cfg = dict(raw["calibration"])
+        calibration_cfg["observed"] = str(_file(folder, calibration_cfg["observed"], "calibration.observed", where))
+        hours = calibration_cfg.get("hours")
+        if hours is not None and not all(isinstance(h, int) and 0 <= h <= 23 for h in hours):
+            raise StudyError(f"{where}: calibration.hours must be a list of whole hours 0..23.")
     direction = raw["study"].get("direction", "out")
     if direction not in ("out", "in"):
         raise StudyError(f"{where}: study.direction must be 'out' (base to demand) or 'in', got '{direction}'.")
@@ -326,6 +335,7 @@ def load_study(path: str | Path) -> Study:
         raw,
         siting_cfg,
         availability_cfg,
+        calibration_cfg,
     )
     if siting_cfg:
         study.standard_named(siting_cfg.get("standard"), "siting.standard")
@@ -366,6 +376,7 @@ class StudyRun:
     network_reused: bool
     site_plan: Any = None
     availability: Any = None
+    calibration: Any = None
 
 
 def slug(text: str) -> str:
@@ -612,11 +623,37 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         avail.summary["demand"] = dname
         layers["units"] = avail.units
         layers["availability_demand"] = avail.demand
+    calibration = None
+    if study.calibration:
+        from coverkit.calibrate import calibrate_speeds, calibration_chart, read_observed, write_calibrated_profile
+
+        cfg = study.calibration
+        observed = read_observed(
+            cfg["observed"], base_ids=bases["id"].astype(str).tolist(), bases_name=Path(study.bases["file"]).name
+        )
+        calibration = calibrate_speeds(net, bases, observed, hours=cfg.get("hours"), source=Path(cfg["observed"]).name)
+        outputs["calibrated_profile"] = write_calibrated_profile(calibration, folder / "calibrated-profile.toml")
+        outputs["calibration_chart"] = calibration_chart(calibration, folder / "maps" / "calibration.png")
+        layers["calibration_classes"] = calibration.classes
+        layers["calibration_errors"] = calibration.errors
     layers["summary"] = summary.drop(columns=["standard_text"])
     outputs["layers"] = write_gpkg_layers(folder / "coverage.gpkg", layers)
     outputs["summary_csv"] = write_text_atomic(folder / "summary.csv", summary.to_csv(index=False))
     result = StudyRun(
-        study, net, build_text, bases, demand, polygons, surface_path, runs, summary, outputs, reused, site_plan, avail
+        study,
+        net,
+        build_text,
+        bases,
+        demand,
+        polygons,
+        surface_path,
+        runs,
+        summary,
+        outputs,
+        reused,
+        site_plan,
+        avail,
+        calibration,
     )
 
     steps.step("maps and report")
@@ -652,6 +689,13 @@ def headline_lines(run: StudyRun) -> list[str]:
             f"busy units ({a['calls_per_h']:.2f} calls/h, {a['mean_service_min']:g} min each): {a['demand']} reached "
             f"in standard {a['drive_time_coverage'] * 100:.1f} % by drive time, "
             f"{a['availability_coverage'] * 100:.1f} % by the unit that actually answers"
+        )
+    if run.calibration is not None:
+        c = run.calibration
+        lines.append(
+            f"calibration on {c.n_used} observed responses: mean absolute error "
+            f"{c.error('before', 'mae_s', 'all'):.0f} s -> {c.error('after', 'mae_s', 'all'):.0f} s "
+            f"(profile written to {run.outputs['calibrated_profile'].name})"
         )
     for srun in run.runs:
         gaps = srun.areas.gaps

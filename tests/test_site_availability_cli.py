@@ -190,3 +190,59 @@ def test_availability_unstable_queue_is_a_clear_error(net_path, tmp_path, capsys
     )
     err = capsys.readouterr().err
     assert code == 2 and "unstable" in err and len(err.strip().splitlines()) == 1
+
+
+def test_calibrate_writes_a_profile_the_network_builder_accepts(net_path, tmp_path, capsys):
+    """The written profile loads and builds; its factors are the starting factors times the fitted multipliers."""
+    from coverkit.network import load_profile
+
+    out = tmp_path / "cal.toml"
+    code = main(
+        [
+            "calibrate",
+            str(net_path),
+            "--observed",
+            str(DEMO / "observed_times.csv"),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--out",
+            str(out),
+            "--chart",
+            str(tmp_path / "c.png"),
+            "-q",
+        ]
+    )
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "MAE" in text and "Kolesar" in text
+    prof = load_profile(out)
+    start = load_profile("emergency")
+    assert set(prof.speeds) == set(start.speeds)
+    assert any(abs(prof.speeds[c].factor - start.speeds[c].factor) > 1e-3 for c in prof.speeds)
+    net, _ = build_network(DEMO / "varrowby.osm.bz2", out)
+    assert net.profile.name == prof.name
+    assert (tmp_path / "c.png").is_file()
+
+
+def test_calibrate_unknown_base_id_names_the_row(net_path, tmp_path, capsys):
+    obs = pd.read_csv(DEMO / "observed_times.csv").head(30)
+    obs.loc[4, "base_id"] = "S99"
+    path = tmp_path / "obs.csv"
+    obs.to_csv(path, index=False)
+    out = tmp_path / "cal.toml"
+    code = main(
+        [
+            "calibrate",
+            str(net_path),
+            "--observed",
+            str(path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--out",
+            str(out),
+            "-q",
+        ]
+    )
+    err = capsys.readouterr().err
+    assert code == 2 and "S99" in err and "line 6" in err and len(err.strip().splitlines()) == 1
+    assert not out.exists()

@@ -244,6 +244,17 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
             }
         )
         rep.add_table(av.units, caption="Unit workloads (busy fraction) and calls answered per hour")
+    if run.calibration is not None:
+        cal = run.calibration
+        rep.add_heading("Modelled against observed travel times")
+        rep.add_paragraph(
+            f"{cal.n_used} observed responses matched to modelled routes; one speed multiplier per road class fitted "
+            "by bounded robust least squares with re-routing. The calibrated profile is written beside this report; "
+            "the coverage above uses the study's profile, not the calibrated one."
+        )
+        rep.add_table(cal.errors, caption="Errors before and after calibration, by route length")
+        rep.add_table(cal.classes, caption="Fitted factors per road class")
+        rep.add_image(run.outputs["calibration_chart"], "Observed and modelled travel times")
     rep.add_heading("About this report")
     rep.add_paragraph(f"Made with coverkit {__version__}. {CAUTION}")
     out["report"] = rep.write(folder / "report.html")
