@@ -22,7 +22,7 @@ from affine import Affine
 from coverkit.errors import CoverkitError, FieldError
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
-from coverkit.travel import nearest_sources, point_times, snap_points
+from coverkit.travel import NO_ACCESS_CLASSES, nearest_sources, point_times, snap_points
 
 #: Default search horizon beyond the standard, so response times past the standard are still measured (s).
 DEFAULT_HORIZON_S = 3600.0
@@ -32,6 +32,8 @@ DEFAULT_DEMAND_SNAP_M = 500.0
 DEFAULT_CELL_M = 100.0
 #: Grid cells farther than this from a road carry no area (m): nobody is reached off the road network's reach.
 DEFAULT_REACH_M = 200.0
+#: Grid cells up to this far from a road are assigned a first-due base (m); farther cells are left unassigned.
+DEFAULT_ASSIGN_M = 3000.0
 
 
 @dataclass(frozen=True)
@@ -200,7 +202,23 @@ def travel_table(
         raise CoverkitError("no bases given; add at least one base (id, lon, lat).")
     note(f"coverage: snapping {len(bases)} bases and {len(points):,} {what}")
     base_snap = snap_points(net, bases, max_snap_m=base_snap_m, off_network="raise", what="bases")
-    point_snap = snap_points(net, points, max_snap_m=max_snap_m, off_network="mask", what=what, warn_islands=False)
+    # population (raster cells, polygon shares) lives beside the roads it is reached from, never on a carriageway;
+    # incident points keep every class (crashes happen on motorways)
+    area_demand = (
+        isinstance(points, gpd.GeoDataFrame)
+        and "source" in points.columns
+        and len(points) > 0
+        and (points["source"].iloc[0] in ("raster", "polygons"))
+    )
+    point_snap = snap_points(
+        net,
+        points,
+        max_snap_m=max_snap_m,
+        off_network="mask",
+        what=what,
+        warn_islands=False,
+        exclude_classes=NO_ACCESS_CLASSES if area_demand else (),
+    )
     note(f"coverage: searching from {len(bases)} bases (horizon {horizon_s:g} s)")
     times = point_times(net, base_snap, point_snap, horizon_s, direction=direction)
     return TravelTable(base_snap, point_snap, times, float(horizon_s), direction)
@@ -384,14 +402,23 @@ class AreaGrid:
     ncol: int
     cell_m: float
     transform: Affine
-    on: np.ndarray  # flat indices of cells within reach of a road
+    on: np.ndarray  # flat indices of cells assigned to the road network (within ``assign_m`` of a road)
+    near: np.ndarray  # per entry of ``on``: within ``reach_m`` of a road (counts for depth, gaps, single cover)
     table: TravelTable
 
 
 def area_grid(
-    net: RoadNetwork, result: CoverageResult, cell_m: float = DEFAULT_CELL_M, reach_m: float = DEFAULT_REACH_M
+    net: RoadNetwork,
+    result: CoverageResult,
+    cell_m: float = DEFAULT_CELL_M,
+    reach_m: float = DEFAULT_REACH_M,
+    assign_m: float = DEFAULT_ASSIGN_M,
 ) -> AreaGrid:
-    """Cells of ``cell_m`` over the network extent; those within ``reach_m`` of a road, timed from the bases."""
+    """Cells of ``cell_m`` over the network extent, each timed from the bases through its nearest road point.
+
+    Cells within ``reach_m`` of a road count for coverage depth, gaps and single coverage; every cell within
+    ``assign_m`` of a road is given a first-due base, so that first-due areas tile the served area.
+    """
     x0, y0, x1, y1 = net.nodes.total_bounds
     ncol = int(np.ceil((x1 - x0) / cell_m)) + 1
     nrow = int(np.ceil((y1 - y0) / cell_m)) + 1
@@ -401,15 +428,24 @@ def area_grid(
     cy = transform.f - (rr.ravel() + 0.5) * cell_m
     cells = shapely.points(np.column_stack([cx, cy]))
     snap = snap_points(
-        net, cells, max_snap_m=reach_m, off_network="mask", what="grid cells", warn_islands=False, measure_far=False
+        net,
+        cells,
+        max_snap_m=max(assign_m, reach_m),
+        off_network="mask",
+        what="grid cells",
+        warn_islands=False,
+        measure_far=False,
     )
     on = np.flatnonzero(snap.on_network)
-    note(f"coverage: timing {len(on):,} road-near grid cells of {cell_m:g} m")
+    near = snap.dist_m[on] <= reach_m
+    note(
+        f"coverage: timing {len(on):,} grid cells of {cell_m:g} m ({int(near.sum()):,} within {reach_m:g} m of a road)"
+    )
     sub = snap.subset(on)
     base_snap = result.extra["base_snap"]
     times = point_times(net, base_snap, sub, result.horizon_s, direction=result.direction)
     return AreaGrid(
-        nrow, ncol, cell_m, transform, on, TravelTable(base_snap, sub, times, result.horizon_s, result.direction)
+        nrow, ncol, cell_m, transform, on, near, TravelTable(base_snap, sub, times, result.horizon_s, result.direction)
     )
 
 
@@ -437,13 +473,13 @@ def area_layers(
     src, t = nearest_sources(times, k=1)
     coo = times.tocoo()
     depth_on = np.bincount(coo.col[coo.data <= result.standard.travel_s], minlength=len(on))
-    first_on = src[:, 0]
+    near = grid.near
     first_grid = np.full(nrow * ncol, -1, dtype=np.int32)
-    first_grid[on] = first_on
+    first_grid[on] = src[:, 0]
     depth_grid = np.full(nrow * ncol, -1, dtype=np.int32)  # -1: no road within reach
-    depth_grid[on] = depth_on
+    depth_grid[on[near]] = depth_on[near]
     uncovered = np.zeros(nrow * ncol, dtype=bool)
-    uncovered[on] = t[:, 0] > result.standard.travel_s
+    uncovered[on[near]] = t[near, 0] > result.standard.travel_s
 
     d = result.demand
     dxy = shapely.get_coordinates(d.geometry.to_numpy())

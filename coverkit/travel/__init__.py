@@ -8,10 +8,11 @@ from coverkit.travel.search import (
     node_times,
     point_times,
 )
-from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, island_mask, snap_points
+from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, NO_ACCESS_CLASSES, Snapped, island_mask, snap_points
 
 __all__ = [
     "DEFAULT_MAX_SNAP_M",
+    "NO_ACCESS_CLASSES",
     "Snapped",
     "count_within",
     "island_mask",

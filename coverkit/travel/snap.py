@@ -180,6 +180,7 @@ def snap_points(
     what: str = "points",
     warn_islands: bool = True,
     measure_far: bool = True,
+    exclude_classes: tuple[str, ...] = (),
 ) -> Snapped:
     """Snap projected points to the nearest open road edge.
 
@@ -199,6 +200,9 @@ def snap_points(
         ``"mask"``: keep them with ``on_network = False`` (use for demand points, which are counted later).
     what
         Word used in messages (``"bases"``, ``"demand points"``).
+    exclude_classes
+        Road classes never snapped onto, e.g. ``NO_ACCESS_CLASSES`` for population cells, which are not reached
+        from a motorway carriageway (incidents and bases keep the default: every class).
     measure_far
         Also measure the distance to the nearest road of off-network points (for messages); grids of many cells
         that only need on/off skip it (their ``dist_m`` stays inf).
@@ -227,15 +231,12 @@ def snap_points(
     dist_m = np.full(n, np.inf)
     piece = np.full(n, -1, dtype=np.int64)
     if n and len(pieces.rep_edge):
-        key = "coverkit.travel:segment_index"
-        if key not in net._csr_cache:
-            net._csr_cache[key] = segment_index(pieces.tree.geometries)
-        piece, dist_m = nearest_pieces(
-            net._csr_cache[key], shapely.get_coordinates(geoms), max_snap_m, pieces.tree, pieces.tree.geometries
-        )
+        allowed, index, tree = _snap_targets(net, pieces, tuple(sorted(exclude_classes)))
+        sub_piece, dist_m = nearest_pieces(index, shapely.get_coordinates(geoms), max_snap_m, tree, tree.geometries)
+        piece = np.where(sub_piece >= 0, allowed[np.maximum(sub_piece, 0)], -1)
         far = np.flatnonzero(piece < 0)
-        if len(far) and measure_far:
-            (fi, _), fd = pieces.tree.query_nearest(geoms[far], return_distance=True)
+        if len(far) and measure_far and len(allowed):
+            (fi, _), fd = tree.query_nearest(geoms[far], return_distance=True)
             dist_m[far[fi]] = fd
     on = piece >= 0
 
@@ -292,6 +293,22 @@ def snap_points(
     if warn_islands and on.any():
         _warn_islands(net, result, what)
     return result
+
+
+#: Road classes with no access from the land beside them: population is not served from a carriageway.
+NO_ACCESS_CLASSES = ("motorway", "motorway_link", "trunk_link")
+
+
+def _snap_targets(net: RoadNetwork, pieces: RoadPieces, exclude: tuple[str, ...]):
+    """Pieces that may be snapped onto (indices), their segment index and STRtree; cached per exclusion set."""
+    key = f"coverkit.travel:snap_targets:{','.join(exclude)}"
+    if key not in net._csr_cache:
+        classes = net.edges["road_class"].to_numpy(dtype=object)[pieces.rep_edge]
+        allowed = np.flatnonzero(~np.isin(classes, list(exclude))) if exclude else np.arange(len(pieces.rep_edge))
+        geoms = pieces.tree.geometries[allowed] if exclude else pieces.tree.geometries
+        tree = shapely.STRtree(geoms) if exclude else pieces.tree
+        net._csr_cache[key] = (allowed, segment_index(geoms), tree)
+    return net._csr_cache[key]
 
 
 def island_mask(net: RoadNetwork, snapped: Snapped) -> np.ndarray:

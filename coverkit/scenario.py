@@ -1,0 +1,1553 @@
+"""Scenarios: closures, slowdowns and base changes, and the before/after comparison of coverage.
+
+A scenario file (TOML, keys our own, paths relative to the file) lists changes::
+
+    [scenario]
+    name = "Ambrel Bridge closed"
+    description = "..."
+
+    [[closure]]                 # one selector per entry: edge_ids, way_ids, road_name or polygon
+    way_ids = [90]              # OSM way ids (the edges' source_id)
+    only_bridges = false        # true: keep only the bridge edges among those selected
+
+    [[slowdown]]                # road_class and/or polygon (both given: edges matching both)
+    road_class = ["residential", "unclassified"]
+    factor = 1.5                # multiplies the running time; > 1 slows, < 1 speeds up
+
+    [[base_change]]             # one of add, remove, move, units
+    add = { id = "S5", lon = -35.0, lat = 41.0, units = 1 }
+
+:func:`load_scenario` validates the file; :func:`apply_scenario` gives the changed network and bases and a
+:class:`ChangeLog`; :func:`compare_results` and :func:`changed_areas` compare coverage before and after;
+:func:`compare_study` runs a study's coverage before and after a scenario and writes the layers and a table.
+:class:`WhatIf` keeps a computed base study and answers a closure or a base change by searching again only from the
+bases whose shortest-path trees the change can alter.
+
+Time conventions follow :mod:`coverkit.travel.search`: an edge's ``travel_s`` is its running time plus its end-node
+delay (signals); a slowdown factor multiplies the running time only, never the delay.
+"""
+
+from __future__ import annotations
+
+import difflib
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+import shapely
+
+from coverkit.coverage import (
+    AreaGrid,
+    AreaLayers,
+    CoverageResult,
+    Standard,
+    TravelTable,
+    _label,
+    _polygons,
+    area_grid,
+    area_layers,
+    default_horizon_s,
+    evaluate_coverage,
+    per_base,
+    travel_table,
+)
+from coverkit.errors import CoverkitError, StudyError
+from coverkit.network.model import MIN_EDGE_S, RoadNetwork
+from coverkit.progress import note
+from coverkit.travel import nearest_sources, node_times, snap_points
+from coverkit.travel.search import CHUNK_CELLS, _dense_to_csr, _same_edge_min, exits, run_s
+from coverkit.travel.snap import Snapped
+
+#: Message of a what-if closure that no base's search reaches.
+NO_REACH_NOTE = "no base's search reaches the closed roads; coverage unchanged"
+
+# -- the scenario file ------------------------------------------------------------------------------------------------
+_NUM = (int, float)
+_SCHEMA: dict[str, dict[str, tuple[tuple[type, ...], bool]]] = {
+    "scenario": {"name": ((str,), True), "description": ((str,), False)},
+    "closure": {
+        "edge_ids": ((list,), False),
+        "way_ids": ((list,), False),
+        "road_name": ((str, list), False),
+        "polygon": ((str,), False),
+        "only_bridges": ((bool,), False),
+        "note": ((str,), False),
+    },
+    "slowdown": {
+        "road_class": ((str, list), False),
+        "polygon": ((str,), False),
+        "factor": (_NUM, True),
+        "note": ((str,), False),
+    },
+    "base_change": {
+        "add": ((dict,), False),
+        "remove": ((str,), False),
+        "move": ((dict,), False),
+        "units": ((dict,), False),
+        "note": ((str,), False),
+    },
+}
+_BASE_CHANGE_KEYS: dict[str, dict[str, tuple[tuple[type, ...], bool]]] = {
+    "add": {"id": ((str,), True), "lon": (_NUM, True), "lat": (_NUM, True), "units": ((int,), False),
+            "name": ((str,), False)},
+    "move": {"id": ((str,), True), "lon": (_NUM, True), "lat": (_NUM, True)},
+    "units": {"id": ((str,), True), "units": ((int,), True)},
+}  # fmt: skip
+_CLOSURE_SELECTORS = ("edge_ids", "way_ids", "road_name", "polygon")
+_LIST_SECTIONS = ("closure", "slowdown", "base_change")
+
+
+@dataclass(frozen=True)
+class Closure:
+    """One ``[[closure]]`` entry: the selector given and its value.
+
+    ``kind`` is ``"edge_ids"`` (directed edge ids: a two-way street has two), ``"way_ids"`` (OSM way ids, both
+    directions), ``"road_name"`` (exact name, case-insensitive, every way of that name) or ``"polygon"`` (every
+    edge whose geometry intersects the polygon). ``only_bridges`` keeps the bridge edges among those selected.
+    """
+
+    index: int
+    kind: str
+    values: tuple
+    polygon: Any = None  # shapely geometry in EPSG:4326 (or the file's CRS, kept in ``polygon_crs``)
+    polygon_crs: Any = None
+    only_bridges: bool = False
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class Slowdown:
+    """One ``[[slowdown]]`` entry: running time x ``factor`` on the edges of ``road_classes`` and/or in a polygon."""
+
+    index: int
+    factor: float
+    road_classes: tuple[str, ...] = ()
+    polygon: Any = None
+    polygon_crs: Any = None
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class BaseChange:
+    """One ``[[base_change]]`` entry: ``action`` is ``add``, ``remove``, ``move`` or ``units``."""
+
+    index: int
+    action: str
+    base_id: str
+    lon: float | None = None
+    lat: float | None = None
+    units: int | None = None
+    name: str | None = None
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated scenario file (changes in file order)."""
+
+    path: Path
+    name: str
+    description: str
+    closures: tuple[Closure, ...]
+    slowdowns: tuple[Slowdown, ...]
+    base_changes: tuple[BaseChange, ...]
+
+
+def _type_name(types: tuple[type, ...]) -> str:
+    names = {"str": "a string", "list": "a list", "int": "a whole number", "float": "a number", "bool": "true/false",
+             "dict": "a table"}  # fmt: skip
+    return " or ".join(dict.fromkeys(names[t.__name__] for t in types))
+
+
+def _check_keys(table: Any, schema: dict, key_prefix: str, where: str) -> None:
+    if not isinstance(table, dict):
+        raise StudyError(f"{where}: '{key_prefix}' must be a table of keys.")
+    for key, value in table.items():
+        if key not in schema:
+            raise StudyError(f"{where}: unknown key '{key_prefix}.{key}'; allowed keys: {', '.join(schema)}.")
+        types, _ = schema[key]
+        ok = isinstance(value, types) and not (isinstance(value, bool) and bool not in types)
+        if not ok:
+            raise StudyError(
+                f"{where}: key '{key_prefix}.{key}' must be {_type_name(types)}, got {type(value).__name__} {value!r}."
+            )
+    for key, (_, required) in schema.items():
+        if required and key not in table:
+            raise StudyError(f"{where}: '{key_prefix}' is missing the required key '{key}'.")
+
+
+def _read_polygon(folder: Path, value: str, key: str, where: str) -> tuple[Any, Any]:
+    """Union of the polygons of a file, with its CRS; a missing, empty or non-polygon file is a StudyError."""
+    path = (folder / value).resolve()
+    if not path.is_file():
+        raise StudyError(f"{where}: file for '{key}' not found: {path}; fix the path (relative to the scenario).")
+    try:
+        gdf = gpd.read_file(path)
+    except Exception as exc:  # pyogrio raises several types for unreadable files
+        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise StudyError(f"{where}: '{key}' file {path} cannot be read ({first}); give a polygon layer.") from None
+    geoms = gdf.geometry[~(gdf.geometry.isna() | gdf.geometry.is_empty)] if len(gdf) else gdf.geometry
+    if len(geoms) == 0:
+        raise StudyError(f"{where}: '{key}' file {path} holds no polygon; draw at least one polygon in it.")
+    kinds = set(geoms.geom_type)
+    if not kinds <= {"Polygon", "MultiPolygon"}:
+        bad = sorted(kinds - {"Polygon", "MultiPolygon"})[0]
+        raise StudyError(f"{where}: '{key}' file {path} holds a {bad}, not polygons; give a polygon layer.")
+    if gdf.crs is None:
+        raise StudyError(f"{where}: '{key}' file {path} has no coordinate reference system; save it with one.")
+    geom = shapely.union_all(shapely.make_valid(geoms.to_numpy()))
+    if geom.is_empty or geom.area == 0:
+        raise StudyError(f"{where}: '{key}' file {path} holds only empty polygons (zero area); fix the polygon.")
+    return geom, gdf.crs
+
+
+def _int_list(values: list, key: str, where: str) -> tuple[int, ...]:
+    if not values:
+        raise StudyError(f"{where}: key '{key}' is an empty list; give at least one id.")
+    if not all(isinstance(v, int) and not isinstance(v, bool) for v in values):
+        bad = next(v for v in values if not isinstance(v, int) or isinstance(v, bool))
+        raise StudyError(f"{where}: key '{key}' must list whole numbers, got {bad!r}.")
+    return tuple(int(v) for v in values)
+
+
+def _str_list(value: str | list, key: str, where: str) -> tuple[str, ...]:
+    values = [value] if isinstance(value, str) else value
+    if not values or not all(isinstance(v, str) and v.strip() for v in values):
+        raise StudyError(f"{where}: key '{key}' must be a name or a list of names (non-empty strings).")
+    return tuple(v.strip() for v in values)
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a scenario TOML file.
+
+    Every key is checked (unknown key, wrong type, missing required key, missing or unusable polygon file); ids and
+    names are checked against the network by :func:`apply_scenario`.
+
+    Raises
+    ------
+    StudyError
+        One line naming the file and the key.
+    """
+    path = Path(path).resolve()
+    where = str(path)
+    if not path.is_file():
+        raise StudyError(f"scenario file {path} not found; give a .toml scenario file.")
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise StudyError(f"{where}: not valid TOML ({exc}); fix the syntax.") from None
+    except UnicodeDecodeError:
+        raise StudyError(f"{where}: not a UTF-8 text file; save the scenario as UTF-8 TOML.") from None
+    for section in raw:
+        if section not in _SCHEMA:
+            raise StudyError(f"{where}: unknown section [{section}]; sections are {', '.join(_SCHEMA)}.")
+    if "scenario" not in raw:
+        raise StudyError(f'{where}: missing section [scenario] (with name = "...").')
+    _check_keys(raw["scenario"], _SCHEMA["scenario"], "scenario", where)
+    for section in _LIST_SECTIONS:
+        if section in raw and not isinstance(raw[section], list):
+            raise StudyError(f"{where}: [{section}] must be written [[{section}]] (one or more entries).")
+    if not any(raw.get(s) for s in _LIST_SECTIONS):
+        raise StudyError(f"{where}: the scenario changes nothing; add a [[closure]], [[slowdown]] or [[base_change]].")
+    folder = path.parent
+
+    closures = []
+    for i, item in enumerate(raw.get("closure", [])):
+        key = f"closure[{i}]"
+        _check_keys(item, _SCHEMA["closure"], key, where)
+        given = [k for k in _CLOSURE_SELECTORS if k in item]
+        if len(given) != 1:
+            raise StudyError(
+                f"{where}: {key} needs exactly one of {', '.join(_CLOSURE_SELECTORS)}"
+                + (f" (got {', '.join(given)}); write one [[closure]] per selector." if given else ".")
+            )
+        kind = given[0]
+        poly = crs = None
+        if kind in ("edge_ids", "way_ids"):
+            values: tuple = _int_list(item[kind], f"{key}.{kind}", where)
+        elif kind == "road_name":
+            values = _str_list(item[kind], f"{key}.road_name", where)
+        else:
+            poly, crs = _read_polygon(folder, item["polygon"], f"{key}.polygon", where)
+            values = (str((folder / item["polygon"]).resolve()),)
+        closures.append(
+            Closure(i, kind, values, poly, crs, bool(item.get("only_bridges", False)), item.get("note", ""))
+        )
+
+    slowdowns = []
+    for i, item in enumerate(raw.get("slowdown", [])):
+        key = f"slowdown[{i}]"
+        _check_keys(item, _SCHEMA["slowdown"], key, where)
+        if "road_class" not in item and "polygon" not in item:
+            raise StudyError(f"{where}: {key} needs road_class, polygon or both to say which roads slow down.")
+        factor = float(item["factor"])
+        if not (np.isfinite(factor) and factor > 0):
+            raise StudyError(f"{where}: key '{key}.factor' must be a number > 0 (1.5 = 50 % slower), got {factor}.")
+        classes = _str_list(item["road_class"], f"{key}.road_class", where) if "road_class" in item else ()
+        poly = crs = None
+        if "polygon" in item:
+            poly, crs = _read_polygon(folder, item["polygon"], f"{key}.polygon", where)
+        slowdowns.append(Slowdown(i, factor, classes, poly, crs, item.get("note", "")))
+
+    changes = []
+    for i, item in enumerate(raw.get("base_change", [])):
+        key = f"base_change[{i}]"
+        _check_keys(item, _SCHEMA["base_change"], key, where)
+        given = [k for k in ("add", "remove", "move", "units") if k in item]
+        if len(given) != 1:
+            raise StudyError(f"{where}: {key} needs exactly one of add, remove, move, units; write one per entry.")
+        action = given[0]
+        if action == "remove":
+            if not item["remove"].strip():
+                raise StudyError(f"{where}: key '{key}.remove' must name a base id.")
+            changes.append(BaseChange(i, "remove", item["remove"].strip(), note=item.get("note", "")))
+            continue
+        sub = item[action]
+        _check_keys(sub, _BASE_CHANGE_KEYS[action], f"{key}.{action}", where)
+        for coord, bound in (("lon", 180.0), ("lat", 90.0)):
+            if coord in sub and not (-bound <= float(sub[coord]) <= bound):
+                raise StudyError(
+                    f"{where}: key '{key}.{action}.{coord}' is {sub[coord]}, outside -{bound:g}..{bound:g}; give "
+                    "degrees (EPSG:4326)."
+                )
+        if "units" in sub and sub["units"] < 0:
+            raise StudyError(f"{where}: key '{key}.{action}.units' must be a whole number >= 0, got {sub['units']}.")
+        changes.append(
+            BaseChange(
+                i,
+                action,
+                sub["id"].strip(),
+                float(sub["lon"]) if "lon" in sub else None,
+                float(sub["lat"]) if "lat" in sub else None,
+                int(sub["units"]) if "units" in sub else None,
+                sub.get("name"),
+                item.get("note", ""),
+            )
+        )
+    scen = raw["scenario"]
+    return Scenario(path, scen["name"], scen.get("description", ""), tuple(closures), tuple(slowdowns), tuple(changes))
+
+
+# -- applying a scenario ----------------------------------------------------------------------------------------------
+@dataclass
+class ChangeLog:
+    """What a scenario changed.
+
+    Attributes
+    ----------
+    closed_edge_ids
+        Directed edge ids closed (sorted).
+    closed
+        GeoDataFrame, one row per closed road piece (a two-way street once): ``edge_id`` (lowest of the piece),
+        ``way_id`` (OSM way id), ``name``, ``road_class``, ``bridge``, ``length_m``, geometry.
+    closed_km
+        Road length closed (km), each road piece counted once.
+    slowed_edge_ids, slowed, slowed_km
+        The same for slowed edges (``slowed`` adds ``factor``: the product of the factors applied).
+    base_changes
+        DataFrame: ``action``, ``base_id``, ``detail``.
+    notes
+        Lines for the user (e.g. :data:`NO_REACH_NOTE`).
+    """
+
+    closed_edge_ids: np.ndarray
+    closed: gpd.GeoDataFrame
+    closed_km: float
+    slowed_edge_ids: np.ndarray
+    slowed: gpd.GeoDataFrame
+    slowed_km: float
+    base_changes: pd.DataFrame
+    notes: list[str] = field(default_factory=list)
+
+    def closed_roads(self) -> pd.DataFrame:
+        """Closed length per road name and way: ``name``, ``way_id``, ``bridge``, ``km``."""
+        c = self.closed
+        if len(c) == 0:
+            return pd.DataFrame({"name": [], "way_id": [], "bridge": [], "km": []})
+        g = c.groupby(["name", "way_id"], sort=True, as_index=False).agg(
+            bridge=("bridge", "any"), km=("length_m", "sum")
+        )
+        g["km"] = g["km"] / 1000.0
+        return pd.DataFrame(g)
+
+    def lines(self) -> list[str]:
+        """Plain lines describing the changes (for the CLI and the report)."""
+        out = []
+        if len(self.closed_edge_ids):
+            roads = self.closed_roads()
+            names = ", ".join(dict.fromkeys(n or "(unnamed)" for n in roads["name"]))
+            out.append(f"closed {self.closed_km:.2f} km of road ({len(self.closed_edge_ids)} directed edges): {names}")
+        if len(self.slowed_edge_ids):
+            out.append(f"slowed {self.slowed_km:.2f} km of road ({len(self.slowed_edge_ids)} directed edges)")
+        for r in self.base_changes.itertuples(index=False):
+            out.append(f"base {r.base_id}: {r.action} ({r.detail})")
+        return out + list(self.notes)
+
+
+def _pieces_frame(net: RoadNetwork, edge_ids: np.ndarray, extra: dict | None = None) -> gpd.GeoDataFrame:
+    """One row per physical road piece among ``edge_ids`` (a two-way street's twins counted once)."""
+    e = net.edges.iloc[edge_ids]
+    u, v = e["u"].to_numpy(), e["v"].to_numpy()
+    frame = pd.DataFrame({"lo": np.minimum(u, v), "hi": np.maximum(u, v), "src": e["source_id"].to_numpy()})
+    first = ~frame.duplicated(["lo", "hi", "src"]).to_numpy()
+    sel = e[first]
+    out = gpd.GeoDataFrame(
+        {
+            "edge_id": sel["edge_id"].to_numpy(dtype=np.int64),
+            "way_id": sel["source_id"].to_numpy(dtype=np.int64),
+            "name": sel["name"].fillna("").astype(str).to_numpy(dtype=object),
+            "road_class": sel["road_class"].astype(str).to_numpy(dtype=object),
+            "bridge": sel["bridge"].to_numpy(dtype=bool),
+            "length_m": sel["length_m"].to_numpy(dtype=float),
+        },
+        geometry=sel.geometry.to_numpy(),
+        crs=net.crs,
+    )
+    for name, values in (extra or {}).items():
+        out[name] = np.asarray(values)[first]
+    return out
+
+
+def _polygon_edges(net: RoadNetwork, polygon: Any, crs: Any) -> np.ndarray:
+    """Edge ids whose geometry intersects ``polygon`` (given in ``crs``), via an STRtree query."""
+    poly = gpd.GeoSeries([polygon], crs=crs).to_crs(net.crs).iloc[0]
+    tree = shapely.STRtree(net.edges.geometry.to_numpy())
+    return np.unique(tree.query(poly, predicate="intersects")).astype(np.int64)
+
+
+def _name_choices(names: list[str], wanted: str) -> str:
+    close = difflib.get_close_matches(wanted, names, n=3, cutoff=0.6)
+    return f" (did you mean {', '.join(repr(c) for c in close)}?)" if close else ""
+
+
+def closure_edges(net: RoadNetwork, closure: Closure, where: str = "scenario") -> np.ndarray:
+    """The directed edge ids a closure selects (sorted); unknown ids or names raise :class:`StudyError`."""
+    key = f"closure[{closure.index}].{closure.kind}"
+    if closure.kind == "edge_ids":
+        ids = np.asarray(closure.values, dtype=np.int64)
+        bad = ids[(ids < 0) | (ids >= net.n_edges)]
+        if len(bad):
+            raise StudyError(
+                f"{where}: {key}: edge {int(bad[0])} is not in the network (edge ids run 0..{net.n_edges - 1})."
+            )
+        sel = np.unique(ids)
+    elif closure.kind == "way_ids":
+        src = net.edges["source_id"].to_numpy(dtype=np.int64)
+        ways = np.asarray(closure.values, dtype=np.int64)
+        missing = ways[~np.isin(ways, src)]
+        if len(missing):
+            raise StudyError(
+                f"{where}: {key}: no road edge has way id {int(missing[0])}; check the id (OSM way ids of drivable "
+                "roads only)."
+            )
+        sel = np.flatnonzero(np.isin(src, ways))
+    elif closure.kind == "road_name":
+        names = net.edges["name"].fillna("").astype(str)
+        lower = names.str.strip().str.lower().to_numpy()
+        sel_parts = []
+        for wanted in closure.values:
+            hit = np.flatnonzero(lower == wanted.lower())
+            if len(hit) == 0:
+                choices = sorted(n for n in set(names) if n)
+                hint = _name_choices(choices, wanted)
+                if not hint and "bridge" in wanted.lower():
+                    hint = " (a bridge carries its road's name: close it by way_ids, or by polygon with only_bridges)"
+                raise StudyError(f"{where}: {key}: no road is named '{wanted}'{hint}.")
+            sel_parts.append(hit)
+        sel = np.unique(np.concatenate(sel_parts))
+    else:
+        sel = _polygon_edges(net, closure.polygon, closure.polygon_crs)
+        if len(sel) == 0:
+            raise StudyError(f"{where}: {key}: the polygon {closure.values[0]} touches no road of the network.")
+    if closure.only_bridges:
+        sel = sel[net.edges["bridge"].to_numpy(dtype=bool)[sel]]
+        if len(sel) == 0:
+            raise StudyError(f"{where}: {key}: none of the roads selected is a bridge (only_bridges = true).")
+    return sel.astype(np.int64)
+
+
+def slowdown_edges(net: RoadNetwork, slowdown: Slowdown, where: str = "scenario") -> np.ndarray:
+    """The directed edge ids a slowdown applies to (sorted); unknown road classes raise :class:`StudyError`."""
+    key = f"slowdown[{slowdown.index}]"
+    mask = np.ones(net.n_edges, dtype=bool)
+    if slowdown.road_classes:
+        classes = net.edges["road_class"].astype(str).to_numpy()
+        present = set(classes)
+        for c in slowdown.road_classes:
+            if c not in present:
+                known = sorted(present)
+                raise StudyError(
+                    f"{where}: {key}.road_class: no road of class '{c}' in the network (classes: {', '.join(known)})."
+                )
+        mask &= np.isin(classes, list(slowdown.road_classes))
+    if slowdown.polygon is not None:
+        inside = np.zeros(net.n_edges, dtype=bool)
+        inside[_polygon_edges(net, slowdown.polygon, slowdown.polygon_crs)] = True
+        if not inside.any():
+            raise StudyError(f"{where}: {key}.polygon touches no road of the network.")
+        mask &= inside
+    sel = np.flatnonzero(mask)
+    if len(sel) == 0:
+        raise StudyError(f"{where}: {key}: no road has both the class and lies in the polygon; nothing slows down.")
+    return sel.astype(np.int64)
+
+
+def slowed_travel_s(net: RoadNetwork, edge_ids: np.ndarray, factor: np.ndarray | float) -> np.ndarray:
+    """Edge travel times with the running time of ``edge_ids`` multiplied by ``factor`` (delays kept).
+
+    ``new travel_s = running_s x factor + delay_s`` on those edges; every other edge keeps its exact value, and
+    closed edges stay closed.
+    """
+    t = net.travel_s.copy()
+    edge_ids = np.asarray(edge_ids, dtype=np.int64)
+    delay = net.edges["delay_s"].to_numpy(dtype=float)
+    run = run_s(net)
+    new = run[edge_ids] * np.asarray(factor, dtype=float) + delay[edge_ids]
+    t[edge_ids] = np.where(np.isfinite(t[edge_ids]), new, np.inf)
+    return t
+
+
+def _empty_pieces(net: RoadNetwork, extra: tuple[str, ...] = ()) -> gpd.GeoDataFrame:
+    return _pieces_frame(net, np.zeros(0, dtype=np.int64), {k: np.zeros(0) for k in extra})
+
+
+def _change_log(
+    net: RoadNetwork,
+    closed: np.ndarray,
+    slowed: np.ndarray | None = None,
+    factors: np.ndarray | None = None,
+    base_rows: list[dict] | None = None,
+) -> ChangeLog:
+    closed = np.unique(np.asarray(closed, dtype=np.int64))
+    slowed = np.zeros(0, dtype=np.int64) if slowed is None else np.asarray(slowed, dtype=np.int64)
+    closed_gdf = _pieces_frame(net, closed)
+    slowed_gdf = _pieces_frame(net, slowed, {"factor": factors}) if len(slowed) else _empty_pieces(net, ("factor",))
+    bases = pd.DataFrame(base_rows or [], columns=["action", "base_id", "detail"])
+    return ChangeLog(
+        closed,
+        closed_gdf,
+        float(closed_gdf["length_m"].sum() / 1000.0),
+        slowed,
+        slowed_gdf,
+        float(slowed_gdf["length_m"].sum() / 1000.0),
+        bases,
+    )
+
+
+def apply_base_changes(
+    bases: gpd.GeoDataFrame, changes: tuple[BaseChange, ...] | list[BaseChange], where: str = "scenario"
+) -> tuple[gpd.GeoDataFrame, list[dict]]:
+    """Bases after the changes (in order: a later change may refer to a base added earlier), and one log row each.
+
+    Kept bases stay in their input order; an added base goes last; a moved base keeps its place. A base with
+    ``units`` changed keeps its searches: units do not change drive times (they matter for availability); a base
+    with 0 units still counts in drive-time coverage, so take a base out of service with ``remove``.
+    """
+    out = bases.copy()
+    if "units" not in out.columns:
+        out["units"] = 1
+    if "name" not in out.columns:
+        out["name"] = out["id"]
+    rows: list[dict] = []
+    for ch in changes:
+        key = f"base_change[{ch.index}].{ch.action}"
+        ids = out["id"].astype(str).tolist()
+        if ch.action == "add":
+            if ch.base_id in ids:
+                raise StudyError(f"{where}: {key}: base '{ch.base_id}' already exists; give a new id or use move.")
+            pt = gpd.GeoSeries(gpd.points_from_xy([ch.lon], [ch.lat]), crs="EPSG:4326").to_crs(out.crs)
+            row = gpd.GeoDataFrame(
+                {"id": [ch.base_id], "name": [ch.name or ch.base_id], "units": [1 if ch.units is None else ch.units]},
+                geometry=pt.to_numpy(),
+                crs=out.crs,
+            )
+            out = gpd.GeoDataFrame(pd.concat([out, row], ignore_index=True), crs=out.crs)
+            rows.append({"action": "added", "base_id": ch.base_id, "detail": f"at {ch.lon:.6f}, {ch.lat:.6f}"})
+            continue
+        if ch.base_id not in ids:
+            raise StudyError(f"{where}: {key}: no base has id '{ch.base_id}' (bases: {', '.join(ids)}).")
+        pos = ids.index(ch.base_id)
+        if ch.action == "remove":
+            if len(out) == 1:
+                raise StudyError(f"{where}: {key}: removing '{ch.base_id}' leaves no base; keep at least one.")
+            out = out.drop(index=out.index[pos]).reset_index(drop=True)
+            rows.append({"action": "removed", "base_id": ch.base_id, "detail": "taken out of service"})
+        elif ch.action == "move":
+            pt = gpd.GeoSeries(gpd.points_from_xy([ch.lon], [ch.lat]), crs="EPSG:4326").to_crs(out.crs)
+            geoms = out.geometry.to_numpy().copy()
+            geoms[pos] = pt.iloc[0]
+            out = out.set_geometry(gpd.GeoSeries(geoms, crs=out.crs, index=out.index))
+            rows.append({"action": "moved", "base_id": ch.base_id, "detail": f"to {ch.lon:.6f}, {ch.lat:.6f}"})
+        else:
+            before = out.loc[out.index[pos], "units"]
+            out.loc[out.index[pos], "units"] = int(ch.units)
+            rows.append({"action": "units", "base_id": ch.base_id, "detail": f"units {before} -> {ch.units}"})
+    return out.reset_index(drop=True), rows
+
+
+def scenario_travel_s(net: RoadNetwork, scenario: Scenario) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Edge travel times after the scenario's closures and slowdowns.
+
+    Returns
+    -------
+    travel_s, closed_ids, slowed_ids, slowed_factor
+        New edge times (s; inf = closed), the closed edge ids, the slowed (still open) edge ids and the product of
+        the factors applied to each.
+    """
+    where = str(scenario.path)
+    closed = [closure_edges(net, c, where) for c in scenario.closures]
+    closed_ids = np.unique(np.concatenate(closed)) if closed else np.zeros(0, dtype=np.int64)
+    factor = np.ones(net.n_edges)
+    for s in scenario.slowdowns:
+        factor[slowdown_edges(net, s, where)] *= s.factor
+    is_closed = np.zeros(net.n_edges, dtype=bool)
+    is_closed[closed_ids] = True
+    slowed_ids = np.flatnonzero((factor != 1.0) & ~is_closed & net.open_edges())
+    t = slowed_travel_s(net, slowed_ids, factor[slowed_ids])
+    t[closed_ids] = np.inf
+    return t, closed_ids.astype(np.int64), slowed_ids, factor[slowed_ids]
+
+
+def apply_scenario(
+    net: RoadNetwork, bases: gpd.GeoDataFrame, scenario: Scenario
+) -> tuple[RoadNetwork, gpd.GeoDataFrame, ChangeLog]:
+    """The network and bases after a scenario, with a log of what changed.
+
+    Closures set ``travel_s`` to inf (the edges stay in the network, so edge ids are stable); slowdowns multiply
+    the running time (several slowdowns on one edge multiply); base changes apply in file order.
+
+    Raises
+    ------
+    StudyError
+        An edge id, way id, road name, road class or base id the network or the bases do not have; a polygon that
+        touches no road.
+    """
+    t, closed, slowed, factors = scenario_travel_s(net, scenario)
+    new_bases, rows = apply_base_changes(bases, scenario.base_changes, str(scenario.path))
+    changed = bool(len(closed) or len(slowed))
+    new_net = net.with_travel_s(t, note=f"scenario: {scenario.name}") if changed else net
+    return new_net, new_bases, _change_log(net, closed, slowed, factors, rows)
+
+
+# -- comparing coverage -----------------------------------------------------------------------------------------------
+CHANGE_KINDS = ("lost", "gained", "same_covered", "same_uncovered")
+
+
+@dataclass
+class Comparison:
+    """Coverage before and after a change, for one standard and one demand layer.
+
+    Attributes
+    ----------
+    standard
+        The standard compared.
+    table
+        DataFrame with ``measure``, ``before``, ``after``, ``change``: demand total, covered weight and share,
+        uncovered, covered twice or more, fractile response (s), off-network weight.
+    points
+        GeoDataFrame per demand point: ``id``, ``weight``, ``travel_s_before``, ``travel_s_after``, ``delta_s``
+        (after - before; inf when the point is no longer reached within the horizon, -inf when newly reached,
+        NaN when reached in neither), ``covered_before``, ``covered_after``, ``change`` (one of
+        :data:`CHANGE_KINDS`), ``first_base_before``, ``first_base_after``, geometry.
+    bases
+        DataFrame per base id (before and after): ``status`` (kept, added, removed, moved), first-due demand,
+        first-due covered demand and demand reached within the standard, each ``_before``, ``_after``,
+        ``_change``.
+    lost_weight, lost_points, gained_weight, gained_points
+        Demand (weight and count) that loses / gains coverage.
+    """
+
+    standard: Standard
+    before: dict
+    after: dict
+    table: pd.DataFrame
+    points: gpd.GeoDataFrame
+    bases: pd.DataFrame
+    lost_weight: float
+    lost_points: int
+    gained_weight: float
+    gained_points: int
+
+    @property
+    def unchanged(self) -> bool:
+        """True when no demand point's travel time or first-due base changed."""
+        p = self.points
+        same_t = np.array_equal(p["travel_s_before"].to_numpy(), p["travel_s_after"].to_numpy(), equal_nan=True)
+        return bool(same_t and (p["first_base_before"] == p["first_base_after"]).all())
+
+    def lines(self, unit: str = "people") -> list[str]:
+        """Headline lines (covered share and fractile before/after, loss and gain)."""
+        b, a = self.before, self.after
+
+        def mins(s: float) -> str:
+            return "not reached" if not np.isfinite(s) else f"{s / 60:.1f} min"
+
+        return [
+            f"{self.standard.name}: covered {b['covered_share'] * 100:.1f} % -> {a['covered_share'] * 100:.1f} % "
+            f"({a['covered'] - b['covered']:+,.0f} {unit}); {self.standard.fractile * 100:g}th percentile response "
+            f"{mins(b['fractile_response_s'])} -> {mins(a['fractile_response_s'])}",
+            f"{self.standard.name}: {self.lost_weight:,.0f} {unit} ({self.lost_points} points) lose coverage, "
+            f"{self.gained_weight:,.0f} {unit} ({self.gained_points} points) gain it",
+        ]
+
+
+def compare_results(before: CoverageResult, after: CoverageResult) -> Comparison:
+    """Compare two coverage results of the same demand points under the same standard.
+
+    Raises
+    ------
+    ValueError
+        The two results hold different demand points or different standards (a programming error, not input).
+    """
+    db, da = before.demand, after.demand
+    if len(db) != len(da) or not np.array_equal(db["id"].astype(str).to_numpy(), da["id"].astype(str).to_numpy()):
+        raise ValueError("compare_results needs the same demand points, in the same order, before and after")
+    if before.standard != after.standard:
+        raise ValueError("compare_results needs the same standard before and after")
+    sb, sa = before.summary(), after.summary()
+    measures = [
+        ("demand_total", "demand_total"),
+        ("covered", "covered"),
+        ("covered_share", "covered_share"),
+        ("uncovered", "uncovered"),
+        ("covered_twice_or_more", "covered_twice_or_more"),
+        ("fractile_response_s", "fractile_response_s"),
+        ("off_network", "off_network"),
+    ]
+    table = pd.DataFrame(
+        {
+            "measure": [m for m, _ in measures],
+            "before": [float(sb[k]) for _, k in measures],
+            "after": [float(sa[k]) for _, k in measures],
+        }
+    )
+    with np.errstate(invalid="ignore"):
+        table["change"] = table["after"] - table["before"]
+    tb, ta = db["travel_s"].to_numpy(dtype=float), da["travel_s"].to_numpy(dtype=float)
+    with np.errstate(invalid="ignore"):
+        delta = ta - tb  # inf - inf is NaN: reached in neither
+    cb, ca = db["covered"].to_numpy(dtype=bool), da["covered"].to_numpy(dtype=bool)
+    change = np.select(
+        [cb & ~ca, ~cb & ca, cb & ca], ["lost", "gained", "same_covered"], default="same_uncovered"
+    ).astype(object)
+    w = db["weight"].to_numpy(dtype=float)
+    points = gpd.GeoDataFrame(
+        {
+            "id": db["id"].to_numpy(),
+            "weight": w,
+            "travel_s_before": tb,
+            "travel_s_after": ta,
+            "delta_s": delta,
+            "covered_before": cb,
+            "covered_after": ca,
+            "change": change,
+            "first_base_before": db["first_base"].to_numpy(dtype=object),
+            "first_base_after": da["first_base"].to_numpy(dtype=object),
+        },
+        geometry=db.geometry.to_numpy(),
+        crs=db.crs,
+    )
+    lost, gained = change == "lost", change == "gained"
+    return Comparison(
+        before.standard,
+        sb,
+        sa,
+        table,
+        points,
+        _base_changes(before, after),
+        float(w[lost].sum()),
+        int(lost.sum()),
+        float(w[gained].sum()),
+        int(gained.sum()),
+    )
+
+
+def _base_changes(before: CoverageResult, after: CoverageResult) -> pd.DataFrame:
+    cols = ["first_due_demand", "first_due_covered", "reaches_in_standard"]
+    pb, pa = per_base(before)[["base_id", *cols]], per_base(after)[["base_id", *cols]]
+    merged = pb.merge(pa, on="base_id", how="outer", suffixes=("_before", "_after"), sort=False)
+    order = list(dict.fromkeys([*pb["base_id"], *pa["base_id"]]))
+    merged = merged.set_index("base_id").loc[order].reset_index()
+    for c in cols:
+        merged[f"{c}_before"] = merged[f"{c}_before"].fillna(0.0)
+        merged[f"{c}_after"] = merged[f"{c}_after"].fillna(0.0)
+        merged[f"{c}_change"] = merged[f"{c}_after"] - merged[f"{c}_before"]
+    geo_b = dict(zip(before.bases["id"].astype(str), before.bases.geometry, strict=True))
+    geo_a = dict(zip(after.bases["id"].astype(str), after.bases.geometry, strict=True))
+    status = []
+    for b in merged["base_id"]:
+        if b not in geo_a:
+            status.append("removed")
+        elif b not in geo_b:
+            status.append("added")
+        else:
+            status.append("kept" if geo_b[b].equals_exact(geo_a[b], 1e-6) else "moved")
+    merged.insert(1, "status", status)
+    return merged[["base_id", "status", *[f"{c}_{s}" for c in cols for s in ("before", "after", "change")]]]
+
+
+@dataclass
+class ChangedAreas:
+    """Areas whose covered status changed, as polygons for a diverging difference map.
+
+    Attributes
+    ----------
+    polygons
+        GeoDataFrame: ``area_id``, ``change`` (``lost`` or ``gained``), ``weight`` (demand that lost / gained
+        coverage inside: population for residents), ``points``, ``incidents`` (incident points inside, when
+        given), ``area_km2``; lost areas first, each kind by weight then area.
+    delta_grid
+        Response-time change per grid cell (s, after - before; NaN where no road is within reach or not reached
+        before nor after; inf where no longer reached) for a diverging raster map.
+    status_grid
+        Per cell: -1 lost, +1 gained, 0 unchanged, -2 no road within reach (int8).
+    transform
+        Affine transform of the grids (network CRS).
+    before, after
+        The :class:`coverkit.coverage.AreaLayers` (first-due areas, gaps, single cover) before and after.
+    """
+
+    polygons: gpd.GeoDataFrame
+    delta_grid: np.ndarray
+    status_grid: np.ndarray
+    transform: Any
+    before: AreaLayers
+    after: AreaLayers
+
+
+def _cell_nearest(grid: AreaGrid) -> np.ndarray:
+    """Nearest base time (s) per grid cell (flat, nrow*ncol), inf where not reached or no road within reach."""
+    out = np.full(grid.nrow * grid.ncol, np.inf)
+    _, t = nearest_sources(grid.table.times, k=1)
+    out[grid.on] = t[:, 0]
+    return out
+
+
+def changed_areas(
+    net_before: RoadNetwork,
+    net_after: RoadNetwork,
+    before: CoverageResult,
+    after: CoverageResult,
+    incidents: gpd.GeoDataFrame | None = None,
+    cell_m: float = 100.0,
+    reach_m: float = 200.0,
+    grid_before: AreaGrid | None = None,
+    grid_after: AreaGrid | None = None,
+) -> ChangedAreas:
+    """Polygons of the areas that lose or gain coverage, from the road-near grids before and after.
+
+    The grid of :func:`coverkit.coverage.area_grid` is timed on each network (same cells: the networks share their
+    nodes). A cell is *lost* when it was covered before and is not after (or its road closed), or when it holds a
+    demand point that lost coverage; *gained* the other way round. Lost and gained cells are grouped into polygons
+    by 8-connectivity. Every demand point that loses (gains) coverage lies in exactly one lost (gained) polygon, so
+    the polygon weights add up to the comparison's lost (gained) demand; a cell holding both lost and gained points
+    appears in one polygon of each kind.
+    """
+    gb = grid_before or area_grid(net_before, before, cell_m, reach_m)
+    ga = grid_after or area_grid(net_after, after, cell_m, reach_m)
+    if (gb.nrow, gb.ncol, gb.cell_m) != (ga.nrow, ga.ncol, ga.cell_m) or gb.transform != ga.transform:
+        raise ValueError("changed_areas needs the same grid before and after (networks sharing their nodes)")
+    nrow, ncol, transform, cell = gb.nrow, gb.ncol, gb.transform, gb.cell_m
+    travel = before.standard.travel_s
+    tb, ta = _cell_nearest(gb), _cell_nearest(ga)
+    on_any = np.zeros(nrow * ncol, dtype=bool)
+    on_any[gb.on] = True
+    on_any[ga.on] = True
+    cov_b, cov_a = tb <= travel, ta <= travel
+    lost = on_any & cov_b & ~cov_a
+    gained = on_any & ~cov_b & cov_a
+    d = before.demand
+    xy = shapely.get_coordinates(d.geometry.to_numpy())
+    col = np.clip(((xy[:, 0] - transform.c) / cell).astype(int), 0, ncol - 1)
+    row = np.clip(((transform.f - xy[:, 1]) / cell).astype(int), 0, nrow - 1)
+    dcell = row * ncol + col
+    p_lost = d["covered"].to_numpy(dtype=bool) & ~after.demand["covered"].to_numpy(dtype=bool)
+    p_gain = ~d["covered"].to_numpy(dtype=bool) & after.demand["covered"].to_numpy(dtype=bool)
+    lost[dcell[p_lost]] = True
+    gained[dcell[p_gain]] = True
+    # a cell holding a lost point is drawn as gained only when it also holds a gained point
+    has_gain = np.zeros(nrow * ncol, dtype=bool)
+    has_gain[dcell[p_gain]] = True
+    gained &= ~lost | has_gain
+    w = d["weight"].to_numpy(dtype=float)
+    inc_cell = None
+    if incidents is not None and len(incidents):
+        ixy = shapely.get_coordinates(incidents.to_crs(d.crs).geometry.to_numpy())
+        icol = ((ixy[:, 0] - transform.c) / cell).astype(int)
+        irow = ((transform.f - ixy[:, 1]) / cell).astype(int)
+        inside = (icol >= 0) & (icol < ncol) & (irow >= 0) & (irow < nrow)
+        inc_cell = irow[inside] * ncol + icol[inside]
+    parts = []
+    for kind, mask, pts in (("lost", lost, p_lost), ("gained", gained, p_gain)):
+        labels = _label(mask.reshape(nrow, ncol)).ravel()
+        n_lab = int(labels.max())
+        if n_lab == 0:
+            continue
+        weight = np.bincount(labels[dcell[pts]], weights=w[pts], minlength=n_lab + 1)
+        count = np.bincount(labels[dcell[pts]], minlength=n_lab + 1)
+        inc = np.bincount(labels[inc_cell], minlength=n_lab + 1) if inc_cell is not None else np.zeros(n_lab + 1)
+        poly = _polygons(labels.reshape(nrow, ncol), transform, d.crs, valid=labels.reshape(nrow, ncol) > 0)
+        poly = poly.dissolve("value", as_index=False)
+        lab = poly["value"].to_numpy(dtype=int)
+        poly["change"] = kind
+        poly["weight"] = weight[lab]
+        poly["points"] = count[lab].astype(np.int64)
+        poly["incidents"] = inc[lab].astype(np.int64)
+        poly["area_km2"] = poly.area / 1e6
+        parts.append(poly.sort_values(["weight", "area_km2", "value"], ascending=[False, False, True]))
+    if parts:
+        polys = gpd.GeoDataFrame(pd.concat(parts, ignore_index=True), crs=d.crs).drop(columns="value")
+        polys.insert(0, "area_id", np.arange(1, len(polys) + 1))
+        polys = polys[["area_id", "change", "weight", "points", "incidents", "area_km2", "geometry"]]
+    else:
+        polys = gpd.GeoDataFrame(
+            {"area_id": [], "change": [], "weight": [], "points": [], "incidents": [], "area_km2": []},
+            geometry=[],
+            crs=d.crs,
+        )
+    with np.errstate(invalid="ignore"):
+        delta = np.where(on_any, ta - tb, np.nan)
+    status = np.zeros(nrow * ncol, dtype=np.int8)
+    status[~on_any] = -2
+    status[gained] = 1
+    status[lost] = -1
+    layers_b = area_layers(net_before, before, incidents=incidents, grid=gb)
+    layers_a = area_layers(net_after, after, incidents=incidents, grid=ga)
+    return ChangedAreas(polys, delta.reshape(nrow, ncol), status.reshape(nrow, ncol), transform, layers_b, layers_a)
+
+
+# -- quick what-if ----------------------------------------------------------------------------------------------------
+def _dense_rows(m: sp.csr_matrix, rows: np.ndarray) -> np.ndarray:
+    """Rows of a sparse time matrix as a dense array, inf where nothing is stored (stored zeros stay zeros)."""
+    sub = m[rows].tocoo()
+    out = np.full((len(rows), m.shape[1]), np.inf)
+    out[sub.row, sub.col] = sub.data
+    return out
+
+
+def _merge_snap(old: Snapped, new_sub: Snapped, idx: np.ndarray) -> Snapped:
+    """``old`` with the points at ``idx`` replaced by ``new_sub`` (their snap on the changed network)."""
+    idx = np.asarray(idx, dtype=np.int64)
+    per = {}
+    for name in ("on_network", "edge", "frac", "offset_m", "dist_m", "x", "y"):
+        arr = getattr(old, name).copy()
+        arr[idx] = getattr(new_sub, name)
+        per[name] = arr
+    keep = ~np.isin(old.entry_point, idx)
+    ep = np.concatenate([old.entry_point[keep], idx[new_sub.entry_point]])
+    ee = np.concatenate([old.entry_edge[keep], new_sub.entry_edge])
+    ef = np.concatenate([old.entry_frac[keep], new_sub.entry_frac])
+    order = np.lexsort((ee, ep))
+    return Snapped(
+        ids=old.ids,
+        entry_point=ep[order],
+        entry_edge=ee[order],
+        entry_frac=ef[order],
+        max_snap_m=old.max_snap_m,
+        **per,
+    )
+
+
+def _far_near_closed(net: RoadNetwork, snap: Snapped, geoms: np.ndarray, closed: np.ndarray) -> np.ndarray:
+    """Off-network points whose measured distance to the nearest road may have been to a road now closed.
+
+    Their ``dist_m`` must be measured again; the others' nearest road is still open, so their distance stands.
+    """
+    far = np.flatnonzero(~snap.on_network & np.isfinite(snap.dist_m))
+    closed_ids = np.flatnonzero(closed)
+    if len(far) == 0 or len(closed_ids) == 0:
+        return np.zeros(0, dtype=np.int64)
+    tree = shapely.STRtree(net.edges.geometry.to_numpy()[closed_ids])
+    (pi, _), d = tree.query_nearest(geoms[far], return_distance=True, all_matches=False)
+    near = d <= snap.dist_m[far[pi]] * (1 + 1e-9) + 1e-6  # ties count: measure again rather than keep
+    return far[pi[near]]
+
+
+def _times_from_nodes(
+    net: RoadNetwork,
+    node_t: sp.csr_matrix,
+    base_snap: Snapped,
+    rows: np.ndarray,
+    targets: Snapped,
+    cols: np.ndarray,
+    limit_s: float,
+    direction: str,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Point times of bases ``rows`` to targets ``cols`` from stored node times: the arithmetic of
+    :func:`coverkit.travel.point_times` (partial edges at the target, same-edge trips) without a new search.
+
+    Returns COO triplets (base row, target column, time s) within ``limit_s``.
+    """
+    rows = np.asarray(rows, dtype=np.int64)
+    cols = np.asarray(cols, dtype=np.int64)
+    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
+    if len(rows) == 0 or len(cols) == 0:
+        return empty
+    sub = targets.subset(cols)
+    t_pt, t_node, t_add = exits(net, sub, direction)
+    starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
+    with_entries = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
+    chunk = max(1, CHUNK_CELLS // max(net.n_nodes, len(t_pt), 1))
+    out_r, out_c, out_t = [], [], []
+    for start in range(0, len(rows), chunk):
+        r = rows[start : start + chunk]
+        dist = _dense_rows(node_t, r)
+        block = np.full((len(r), len(cols)), np.inf)
+        if len(t_pt):
+            block[:, with_entries] = np.minimum.reduceat(dist[:, t_node] + t_add[None, :], starts, axis=1)
+        _same_edge_min(net, base_snap, sub, r, block, direction)
+        m = _dense_to_csr(block, limit_s).tocoo()
+        out_r.append(r[m.row])
+        out_c.append(cols[m.col])
+        out_t.append(m.data)
+    return np.concatenate(out_r), np.concatenate(out_c), np.concatenate(out_t)
+
+
+@dataclass
+class WhatIfOutcome:
+    """The result of one what-if.
+
+    Attributes
+    ----------
+    results
+        ``{(standard name, demand name): CoverageResult}`` after the change.
+    network, bases
+        The changed network and bases.
+    changes
+        The :class:`ChangeLog` (its notes say when coverage is unchanged).
+    recomputed_bases
+        Ids of the bases searched again (changed, added or moved bases, and bases whose shortest-path trees the
+        change can alter); the others kept their stored times exactly.
+    resnapped_points
+        ``{demand name: number of points snapped again}`` (points on closed roads).
+    """
+
+    results: dict
+    network: RoadNetwork
+    bases: gpd.GeoDataFrame
+    changes: ChangeLog
+    recomputed_bases: list[str]
+    resnapped_points: dict
+
+    @property
+    def result(self) -> CoverageResult:
+        """The first result (the only one for a what-if on one standard and one demand layer)."""
+        return next(iter(self.results.values()))
+
+
+class WhatIf:
+    """A computed base study that answers closures, slowdowns and base changes incrementally.
+
+    The base state keeps, per base, the node times of its bounded search (sparse, within the horizon), and per
+    demand layer the snapped points and the base-to-point times. A change that only makes edges slower or closes
+    them (or makes some faster) can alter base ``b``'s times only if some changed edge ``(x, y)`` is *tight* in
+    ``b``'s search: ``d_b(x) + w(x, y) <= min(d_b(y), horizon)`` with ``w`` the smaller of the old and new weight.
+    Every shortest path consists of tight edges only, so when no changed edge is tight the old distances remain
+    shortest (slower edges lie on no shortest path; faster ones create none), and the base's stored row is exact.
+    Such bases are not searched again; the rest are. Demand points snapped onto a closed edge are snapped again,
+    and points on a changed edge get their partial-edge times from the stored node times. An added or moved base
+    adds one search; a removed base drops a row. The outcome equals a full recomputation (tested to exact
+    equality).
+
+    Parameters
+    ----------
+    net, bases
+        Network and bases of the base study.
+    demand
+        One demand GeoDataFrame or ``{name: GeoDataFrame}``.
+    standards
+        One :class:`Standard` or a list.
+    horizon_s
+        Search bound (s); default from the longest standard (:func:`coverkit.coverage.default_horizon_s`).
+    direction
+        ``"out"`` (base to demand) or ``"in"``.
+    demand_snap_m
+        Snap limit of demand points (m), one value or ``{name: value}``.
+    base_snap_m
+        Snap limit of bases (m).
+    """
+
+    def __init__(
+        self,
+        net: RoadNetwork,
+        bases: gpd.GeoDataFrame,
+        demand: gpd.GeoDataFrame | dict[str, gpd.GeoDataFrame],
+        standards: Standard | list[Standard],
+        horizon_s: float | None = None,
+        direction: str = "out",
+        demand_snap_m: float | dict[str, float] = 500.0,
+        base_snap_m: float = 500.0,
+    ) -> None:
+        self.net = net
+        self.bases = bases.reset_index(drop=True)
+        self.demand = dict(demand) if isinstance(demand, dict) else {"demand": demand}
+        self.standards = [standards] if isinstance(standards, Standard) else list(standards)
+        self.horizon_s = float(horizon_s or max(default_horizon_s(s) for s in self.standards))
+        self.direction = direction
+        self.base_snap_m = float(base_snap_m)
+        snaps = demand_snap_m if isinstance(demand_snap_m, dict) else dict.fromkeys(self.demand, demand_snap_m)
+        self.demand_snap_m = {k: float(snaps.get(k, 500.0)) for k in self.demand}
+        self.base_snap = snap_points(net, self.bases, max_snap_m=self.base_snap_m, off_network="raise", what="bases")
+        note(f"what-if: searching from {len(self.bases)} bases (horizon {self.horizon_s:g} s)")
+        self.node_t = node_times(net, self.base_snap, self.horizon_s, direction)
+        self.point_snap: dict[str, Snapped] = {}
+        self.tables: dict[str, TravelTable] = {}
+        all_rows = np.arange(len(self.bases))
+        for name, dem in self.demand.items():
+            snap = snap_points(
+                net, dem, max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
+                warn_islands=False,
+            )  # fmt: skip
+            r, c, t = _times_from_nodes(
+                net, self.node_t, self.base_snap, all_rows, snap, np.arange(len(dem)), self.horizon_s, direction
+            )
+            times = sp.csr_matrix((t, (r, c)), shape=(len(self.bases), len(dem)))
+            self.point_snap[name] = snap
+            self.tables[name] = TravelTable(self.base_snap, snap, times, self.horizon_s, direction)
+        self.results = {
+            (s.name, name): evaluate_coverage(net, self.bases, dem, s, table=self.tables[name])
+            for s in self.standards
+            for name, dem in self.demand.items()
+        }
+
+    # -- constructors -------------------------------------------------------------------------------------------------
+    @classmethod
+    def from_study(cls, study_path: str | Path, cache_folder: str | Path | None = None) -> WhatIf:
+        """The base state of a study file: its network (cached), bases, demand layers and standards."""
+        inputs = study_inputs(study_path, cache_folder)
+        s = inputs["study"]
+        return cls(
+            inputs["network"],
+            inputs["bases"],
+            inputs["demand"],
+            s.standards,
+            horizon_s=inputs["horizon_s"],
+            direction=s.direction,
+            demand_snap_m={d.name: d.snap_m for d in s.demand},
+            base_snap_m=float(s.bases.get("snap_m", 500.0)),
+        )
+
+    # -- questions ----------------------------------------------------------------------------------------------------
+    def close_edges(self, edge_ids: np.ndarray | list[int]) -> WhatIfOutcome:
+        """Coverage with the directed edges ``edge_ids`` closed (a two-way street has two edges)."""
+        ids = np.unique(np.asarray(edge_ids, dtype=np.int64))
+        bad = ids[(ids < 0) | (ids >= self.net.n_edges)]
+        if len(bad):
+            raise CoverkitError(f"edge {int(bad[0])} is not in the network (edge ids run 0..{self.net.n_edges - 1}).")
+        t = self.net.travel_s.copy()
+        t[ids] = np.inf
+        return self._evaluate(t, self.bases, _change_log(self.net, ids))
+
+    def close_ways(self, way_ids: list[int]) -> WhatIfOutcome:
+        """Coverage with every edge of the OSM ways ``way_ids`` closed (both directions)."""
+        closure = Closure(0, "way_ids", tuple(int(w) for w in way_ids))
+        return self.close_edges(closure_edges(self.net, closure, "what-if"))
+
+    def slow_edges(self, edge_ids: np.ndarray | list[int], factor: float) -> WhatIfOutcome:
+        """Coverage with the running time of ``edge_ids`` multiplied by ``factor`` (> 0)."""
+        if not (np.isfinite(factor) and factor > 0):
+            raise CoverkitError(f"slowdown factor must be a number > 0 (1.5 = 50 % slower), got {factor}.")
+        ids = np.unique(np.asarray(edge_ids, dtype=np.int64))
+        ids = ids[np.isfinite(self.net.travel_s[ids])]
+        t = slowed_travel_s(self.net, ids, factor)
+        return self._evaluate(t, self.bases, _change_log(self.net, [], ids, np.full(len(ids), factor)))
+
+    def change_base(
+        self,
+        action: str,
+        base_id: str,
+        lon: float | None = None,
+        lat: float | None = None,
+        units: int | None = None,
+        name: str | None = None,
+    ) -> WhatIfOutcome:
+        """Coverage after one base change: ``action`` is ``"add"`` / ``"move"`` (lon, lat in degrees), ``"remove"``
+        or ``"units"``."""
+        if action not in ("add", "remove", "move", "units"):
+            raise CoverkitError(f"base change '{action}' is not one of add, remove, move, units.")
+        if action in ("add", "move") and (lon is None or lat is None):
+            raise CoverkitError(f"base change '{action}' of '{base_id}' needs lon and lat (degrees, EPSG:4326).")
+        if action == "units" and (units is None or units < 0):
+            raise CoverkitError(f"base change 'units' of '{base_id}' needs units >= 0.")
+        change = BaseChange(0, action, str(base_id), lon, lat, units, name)
+        bases, rows = apply_base_changes(self.bases, [change], "what-if")
+        return self._evaluate(self.net.travel_s, bases, _change_log(self.net, [], base_rows=rows))
+
+    def run(self, scenario: Scenario) -> WhatIfOutcome:
+        """Coverage after a whole scenario (closures, slowdowns and base changes together)."""
+        t, closed, slowed, factors = scenario_travel_s(self.net, scenario)
+        bases, rows = apply_base_changes(self.bases, scenario.base_changes, str(scenario.path))
+        return self._evaluate(t, bases, _change_log(self.net, closed, slowed, factors, rows))
+
+    # -- the incremental recomputation ---------------------------------------------------------------------------------
+    def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
+        """Boolean per base: can the edge times ``travel_s`` change this base's searches? (see the class notes)"""
+        old = self.net.travel_s
+        new = np.asarray(travel_s, dtype=float)
+        changed = np.flatnonzero(old != new)
+        hit = np.zeros(len(self.bases), dtype=bool)
+        if len(changed) == 0:
+            return hit
+        u, v = self.net.u[changed], self.net.v[changed]
+        tail, head = (u, v) if self.direction == "out" else (v, u)
+        w = np.maximum(np.minimum(old[changed], new[changed]), MIN_EDGE_S)
+        # a base seated on a changed edge starts differently
+        hit[np.unique(self.base_snap.entry_point[np.isin(self.base_snap.entry_edge, changed)])] = True
+        chunk = max(1, CHUNK_CELLS // max(self.net.n_nodes, 1))
+        tol_s = 1e-7  # conservative: a near-tie counts as tight, so a base is searched again rather than skipped
+        for start in range(0, len(self.bases), chunk):
+            r = np.arange(start, min(start + chunk, len(self.bases)))
+            d = _dense_rows(self.node_t, r)
+            dt, dh = d[:, tail], np.minimum(d[:, head], self.horizon_s)
+            with np.errstate(invalid="ignore"):
+                tight = np.isfinite(dt) & (dt + w[None, :] <= dh + tol_s)
+            hit[r] |= tight.any(axis=1)
+        return hit
+
+    def _evaluate(self, travel_s: np.ndarray, bases_after: gpd.GeoDataFrame, log: ChangeLog) -> WhatIfOutcome:
+        old_t = self.net.travel_s
+        changed = np.flatnonzero(old_t != travel_s)
+        net2 = self.net.with_travel_s(travel_s) if len(changed) else self.net
+        reopened = bool(np.any(~np.isfinite(old_t[changed]) & np.isfinite(travel_s[changed])))
+        old_ids = self.bases["id"].astype(str).tolist()
+        new_ids = bases_after["id"].astype(str).tolist()
+        # a base keeps its stored searches only under the same id at the same place (a moved or re-added one not)
+        old_geom = self.bases.geometry.to_numpy()
+        new_geom = bases_after.to_crs(self.bases.crs).geometry.to_numpy()
+        old_pos = {
+            b: i
+            for i, b in enumerate(old_ids)
+            if b in new_ids and shapely.equals_exact(old_geom[i], new_geom[new_ids.index(b)], 0.0)
+        }
+        aff_old = self.affected_bases(travel_s)
+        base_snap2 = (
+            snap_points(net2, bases_after, max_snap_m=self.base_snap_m, off_network="raise", what="bases")
+            if len(changed) or new_ids != old_ids or len(old_pos) < len(old_ids)
+            else self.base_snap
+        )
+        search = np.array([b not in old_pos or bool(aff_old[old_pos[b]]) for b in new_ids], dtype=bool)
+        rows_new = np.flatnonzero(search)
+        # node times after: stored rows for untouched bases, a new search for the others
+        keep_src = np.array([old_pos.get(b, -1) for b in new_ids])
+        kept = np.flatnonzero(~search)
+        stored = self.node_t[keep_src[kept]].tocoo()
+        parts_r, parts_c, parts_t = [kept[stored.row]], [stored.col], [stored.data]
+        if len(rows_new):
+            note(f"what-if: searching again from {len(rows_new)} of {len(new_ids)} bases")
+            fresh = node_times(net2, base_snap2.subset(rows_new), self.horizon_s, self.direction).tocoo()
+            parts_r.append(rows_new[fresh.row])
+            parts_c.append(fresh.col)
+            parts_t.append(fresh.data)
+        node_t2 = sp.csr_matrix(
+            (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
+            shape=(len(new_ids), net2.n_nodes),
+        )
+        closed_now = np.zeros(net2.n_edges, dtype=bool)
+        closed_now[changed] = ~np.isfinite(travel_s[changed])
+        is_changed = np.zeros(net2.n_edges, dtype=bool)
+        is_changed[changed] = True
+        results, resnapped = {}, {}
+        for name, dem in self.demand.items():
+            old_snap = self.point_snap[name]
+            old_times = self.tables[name].times
+            if reopened:  # an opened road can become any point's nearest: snap every point again
+                resnap = np.arange(len(dem))
+            else:
+                resnap = np.unique(
+                    np.concatenate(
+                        [
+                            old_snap.entry_point[closed_now[old_snap.entry_edge]],
+                            _far_near_closed(net2, old_snap, dem.geometry.to_numpy(), closed_now),
+                        ]
+                    )
+                )
+            snap2 = old_snap
+            if len(resnap):
+                sub = snap_points(
+                    net2, dem.geometry.to_numpy()[resnap], ids=old_snap.ids[resnap],
+                    max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
+                    warn_islands=False,
+                )  # fmt: skip
+                snap2 = _merge_snap(old_snap, sub, resnap)
+            resnapped[name] = len(resnap)
+            cols = np.unique(np.concatenate([resnap, old_snap.entry_point[is_changed[old_snap.entry_edge]]]))
+            # stored times of untouched bases on untouched points; derived times for the rest
+            src = old_times[keep_src[kept]].tocoo()
+            ok = ~np.isin(src.col, cols)
+            r_parts, c_parts, t_parts = [kept[src.row[ok]]], [src.col[ok]], [src.data[ok]]
+            for rr, cc in ((rows_new, np.arange(len(dem))), (kept, cols)):
+                r, c, t = _times_from_nodes(net2, node_t2, base_snap2, rr, snap2, cc, self.horizon_s, self.direction)
+                r_parts.append(r)
+                c_parts.append(c)
+                t_parts.append(t)
+            times = sp.csr_matrix(
+                (np.concatenate(t_parts), (np.concatenate(r_parts), np.concatenate(c_parts))),
+                shape=(len(new_ids), len(dem)),
+            )
+            table = TravelTable(base_snap2, snap2, times, self.horizon_s, self.direction)
+            for s in self.standards:
+                results[(s.name, name)] = evaluate_coverage(net2, bases_after, dem, s, table=table)
+        identical = all(
+            np.array_equal(results[k].demand["travel_s"].to_numpy(), self.results[k].demand["travel_s"].to_numpy())
+            and (results[k].demand["first_base"] == self.results[k].demand["first_base"]).all()
+            for k in results
+        )
+        if identical and new_ids == old_ids:
+            if len(log.closed_edge_ids) and not len(rows_new):
+                tails = self.net.u[changed] if self.direction == "out" else self.net.v[changed]
+                reached = self.node_t[:, tails].nnz > 0
+                log.notes.append(
+                    "no base's shortest paths use the closed roads; coverage unchanged" if reached else NO_REACH_NOTE
+                )
+            else:
+                log.notes.append("coverage unchanged")
+        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new], resnapped)
+
+
+# -- a study compared before and after a scenario ---------------------------------------------------------------------
+def study_inputs(study_path: str | Path, cache_folder: str | Path | None = None) -> dict[str, Any]:
+    """The inputs of a study, loaded as :func:`coverkit.study.run_study` does: network (cached), bases, demand.
+
+    The network is reused from the study's own output folder when a valid cache is there (read only), otherwise
+    built and cached in ``cache_folder`` (default: the study's output folder).
+
+    Returns
+    -------
+    dict
+        ``study``, ``network``, ``bases``, ``demand`` (``{name: GeoDataFrame}``), ``kinds`` (``{name: kind}``),
+        ``horizon_s``.
+    """
+    from coverkit.demand import load_demand
+    from coverkit.study import cached_network, load_study
+    from coverkit.travel import read_points
+
+    study = load_study(study_path)
+    own = study.folder / study.outputs.get("folder", "results")
+    net = None
+    if (own / "network.gpkg").is_file():
+        try:
+            cand = RoadNetwork.load(own / "network.gpkg")
+            if cand.info.get("cache_key") == study.network_cache_key():
+                net = cand
+                note(f"network: inputs unchanged, reusing {own / 'network.gpkg'}")
+        except CoverkitError:
+            net = None
+    if net is None:
+        net, _, _ = cached_network(study, Path(cache_folder) if cache_folder else own)
+    bases = read_points(
+        study.bases["file"], net.crs, id_field=study.bases.get("id_field", "id"), what="bases",
+        layer=study.bases.get("layer"),
+    )  # fmt: skip
+    demand = {}
+    for spec in study.demand:
+        o = spec.options
+        demand[spec.name] = load_demand(
+            spec.path, net, where=o.get("where"), population_field=o.get("population_field"),
+            weight_field=o.get("weight_field"), id_field=o.get("id_field", "id"), time_field=o.get("time_field"),
+            start=o.get("start"), end=o.get("end"),
+        )  # fmt: skip
+    horizon_s = float(study.outputs.get("horizon_s") or max(default_horizon_s(s) for s in study.standards))
+    return {
+        "study": study,
+        "network": net,
+        "bases": bases,
+        "demand": demand,
+        "kinds": {spec.name: spec.kind for spec in study.demand},
+        "horizon_s": horizon_s,
+    }
+
+
+@dataclass
+class CompareRun:
+    """The outcome of :func:`compare_study`.
+
+    Attributes
+    ----------
+    study, scenario
+        The study and the scenario compared.
+    network_before, network_after, bases_before, bases_after
+        Inputs before and after.
+    changes
+        The :class:`ChangeLog`.
+    comparisons
+        ``{(standard name, demand name): Comparison}``.
+    areas
+        ``{standard name: ChangedAreas}`` for the residents demand layer (the first layer if none is residents).
+    before, after
+        ``{(standard name, demand name): CoverageResult}``.
+    summary
+        DataFrame, one row per standard x demand: covered share and fractile response before/after, lost and
+        gained demand.
+    outputs
+        Paths written: ``layers`` (GeoPackage) and ``table`` (CSV).
+    """
+
+    study: Any
+    scenario: Scenario
+    network_before: RoadNetwork
+    network_after: RoadNetwork
+    bases_before: gpd.GeoDataFrame
+    bases_after: gpd.GeoDataFrame
+    changes: ChangeLog
+    comparisons: dict
+    areas: dict
+    before: dict
+    after: dict
+    summary: pd.DataFrame
+    outputs: dict[str, Path]
+
+    def lines(self) -> list[str]:
+        """Headline lines: the changes, then each standard x demand before/after."""
+        from coverkit import CAUTION
+
+        out = [f"{self.scenario.name} vs {self.study.name}", *self.changes.lines()]
+        kinds = {d.name: d.kind for d in self.study.demand}
+        for (_std, dem), comp in self.comparisons.items():
+            unit = "people" if kinds.get(dem) == "residents" else "calls"
+            out.extend(f"[{dem}] {line}" for line in comp.lines(unit))
+        return [*out, CAUTION]
+
+
+def compare_study(
+    study_path: str | Path,
+    scenario_path: str | Path,
+    out_folder: str | Path,
+    cell_m: float | None = None,
+    reach_m: float | None = None,
+) -> CompareRun:
+    """Run a study's coverage before and after a scenario, compare, and write layers and a table.
+
+    Writes ``compare.gpkg`` (layers ``bases_before``, ``bases_after``, ``closed_roads``, ``slowed_roads``,
+    ``comparison``, ``about`` and per standard ``points_<demand>_<standard>``, ``base_changes_<demand>_<standard>``,
+    ``changed_areas_<standard>``, ``gaps_before_<standard>``, ``gaps_after_<standard>``) and ``comparison.csv``
+    into ``out_folder``, atomically. The report is not written here.
+    """
+    from coverkit import CAUTION
+    from coverkit.atomic import write_gpkg_layers, write_text_atomic
+    from coverkit.progress import Steps
+    from coverkit.study import slug
+
+    out = Path(out_folder)
+    out.mkdir(parents=True, exist_ok=True)
+    steps = Steps(5, "compare")
+    steps.step("study inputs")
+    scenario = load_scenario(scenario_path)
+    inputs = study_inputs(study_path, cache_folder=out)
+    study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
+    kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]
+    steps.step("applying the scenario")
+    net2, bases2, log = apply_scenario(net, bases, scenario)
+    snap_of = {d.name: d.snap_m for d in study.demand}
+    base_snap_m = float(study.bases.get("snap_m", 500.0))
+    steps.step("coverage before and after")
+    before, after = {}, {}
+    for name, dem in demand.items():
+        tb = travel_table(net, bases, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
+        ta = travel_table(net2, bases2, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
+        for s in study.standards:
+            before[(s.name, name)] = evaluate_coverage(net, bases, dem, s, table=tb)
+            after[(s.name, name)] = evaluate_coverage(net2, bases2, dem, s, table=ta)
+    comparisons = {k: compare_results(before[k], after[k]) for k in before}
+    if all(c.unchanged for c in comparisons.values()) and not len(log.base_changes):
+        log.notes.append("coverage unchanged: no travel time to any demand point changed")
+    steps.step("changed areas")
+    residents = next((n for n, k in kinds.items() if k == "residents"), next(iter(demand)))
+    incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
+    opts = study.outputs
+    cell = float(cell_m or opts.get("grid_cell_m", 100.0))
+    reach = float(reach_m or float(opts.get("reach_m", 150.0)) + 50.0)
+    areas = {}
+    gb = ga = None
+    for s in study.standards:
+        ca = changed_areas(
+            net, net2, before[(s.name, residents)], after[(s.name, residents)],
+            incidents=demand[incidents] if incidents else None, cell_m=cell, reach_m=reach, grid_before=gb,
+            grid_after=ga,
+        )  # fmt: skip
+        gb, ga = ca.before.grid, ca.after.grid
+        areas[s.name] = ca
+    rows = []
+    for (std, dem), comp in comparisons.items():
+        b, a = comp.before, comp.after
+        rows.append(
+            {
+                "scenario": scenario.name,
+                "standard": std,
+                "demand": dem,
+                "kind": kinds[dem],
+                "demand_total": b["demand_total"],
+                "covered_before": b["covered"],
+                "covered_after": a["covered"],
+                "covered_share_before": b["covered_share"],
+                "covered_share_after": a["covered_share"],
+                "fractile": b["fractile"],
+                "fractile_response_s_before": b["fractile_response_s"],
+                "fractile_response_s_after": a["fractile_response_s"],
+                "lost_weight": comp.lost_weight,
+                "lost_points": comp.lost_points,
+                "gained_weight": comp.gained_weight,
+                "gained_points": comp.gained_points,
+            }
+        )
+    summary = pd.DataFrame(rows)
+    steps.step("writing layers and table")
+    about = pd.DataFrame(
+        {
+            "key": ["study", "scenario", "description", "caution", *[f"change_{i}" for i in range(len(log.lines()))]],
+            "value": [study.name, scenario.name, scenario.description, CAUTION, *log.lines()],
+        }
+    )
+    layers: dict[str, Any] = {
+        "bases_before": bases,
+        "bases_after": bases2,
+        "closed_roads": log.closed,
+        "slowed_roads": log.slowed,
+        "comparison": summary,
+        "about": about,
+    }
+    for (std, dem), comp in comparisons.items():
+        layers[f"points_{slug(dem)}_{slug(std)}"] = comp.points
+        layers[f"base_changes_{slug(dem)}_{slug(std)}"] = comp.bases
+    for std, ca in areas.items():
+        layers[f"changed_areas_{slug(std)}"] = ca.polygons
+        layers[f"gaps_before_{slug(std)}"] = ca.before.gaps
+        layers[f"gaps_after_{slug(std)}"] = ca.after.gaps
+    outputs = {
+        "layers": write_gpkg_layers(out / "compare.gpkg", layers),
+        "table": write_text_atomic(out / "comparison.csv", summary.to_csv(index=False)),
+    }
+    return CompareRun(
+        study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, outputs
+    )
+
+
+__all__ = [
+    "CHANGE_KINDS",
+    "NO_REACH_NOTE",
+    "BaseChange",
+    "ChangeLog",
+    "ChangedAreas",
+    "Closure",
+    "CompareRun",
+    "Comparison",
+    "Scenario",
+    "Slowdown",
+    "WhatIf",
+    "WhatIfOutcome",
+    "apply_base_changes",
+    "apply_scenario",
+    "changed_areas",
+    "closure_edges",
+    "compare_results",
+    "compare_study",
+    "load_scenario",
+    "scenario_travel_s",
+    "slowdown_edges",
+    "slowed_travel_s",
+    "study_inputs",
+]
