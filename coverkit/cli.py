@@ -233,6 +233,17 @@ def build_parser() -> argparse.ArgumentParser:
     _common(p)
 
     p = sub.add_parser(
+        "compare",
+        help="before/after coverage for a scenario: closures, slowdowns, station changes",
+        description="Run a study's coverage before and after a scenario file ([[closure]], [[slowdown]], "
+        "[[base_change]]) and report who loses or gains coverage, per-base changes, and a difference map.",
+    )
+    p.add_argument("study", type=Path, help="study TOML file")
+    p.add_argument("scenario", type=Path, help="scenario TOML file (see examples/scenarios/)")
+    p.add_argument("--out", "-o", type=Path, required=True, help="output folder")
+    _common(p)
+
+    p = sub.add_parser(
         "run",
         help="run a whole study from a TOML file",
         description="Run a study file (see examples/demo-study.toml): network (cached), drive-time polygons, "
@@ -576,6 +587,19 @@ def _cmd_calibrate(args: argparse.Namespace) -> int:
         calibration_chart(result, args.chart)
     print(f"\nwrote {args.out}" + (f" and {args.chart}" if args.chart else ""))
     print(f"use it with: coverkit network <roads> --profile {args.out} --out calibrated-net.gpkg")
+    return 0
+
+
+@command("compare")
+def _cmd_compare(args: argparse.Namespace) -> int:
+    from coverkit.report.compare_report import write_compare_report
+    from coverkit.scenario import compare_study
+
+    run = compare_study(args.study, args.scenario, args.out)
+    run.outputs.update(write_compare_report(run, args.out))
+    print("\n".join(line for line in run.lines() if line != CAUTION))
+    print(f"\nwrote {run.outputs['layers']}, {run.outputs['table']} and {run.outputs['report']}")
+    print(CAUTION)
     return 0
 
 

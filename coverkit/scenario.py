@@ -824,7 +824,7 @@ def _cell_nearest(grid: AreaGrid) -> np.ndarray:
     """Nearest base time (s) per grid cell (flat, nrow*ncol), inf where not reached or no road within reach."""
     out = np.full(grid.nrow * grid.ncol, np.inf)
     _, t = nearest_sources(grid.table.times, k=1)
-    out[grid.on] = t[:, 0]
+    out[grid.on[grid.near]] = t[grid.near, 0]
     return out
 
 
@@ -856,8 +856,8 @@ def changed_areas(
     travel = before.standard.travel_s
     tb, ta = _cell_nearest(gb), _cell_nearest(ga)
     on_any = np.zeros(nrow * ncol, dtype=bool)
-    on_any[gb.on] = True
-    on_any[ga.on] = True
+    on_any[gb.on[gb.near]] = True
+    on_any[ga.on[ga.near]] = True
     cov_b, cov_a = tb <= travel, ta <= travel
     lost = on_any & cov_b & ~cov_a
     gained = on_any & ~cov_b & cov_a

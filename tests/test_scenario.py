@@ -135,8 +135,8 @@ def test_bridge_closure_equals_network_without_the_bridges(demo, tmp_path):
     net2, bases2, log = apply_scenario(net, bases, scen)
     closed = log.closed_edge_ids
     assert set(net.edges["source_id"].to_numpy()[closed]) == set(ways)
-    # road names come from the OSM name tags of the bridge ways
-    assert set(log.closed["name"]) == {demo["bridges"][w]["name"] for w in ways}
+    # a bridge is named by its OSM bridge:name tag (the road's name tag otherwise)
+    assert set(log.closed["name"]) == {demo["bridges"][w]["bridge:name"] for w in ways}
     before = evaluate_coverage(net, bases, dem, ALS)
     after = evaluate_coverage(net2, bases2, dem, ALS)
     ref = evaluate_coverage(_without_edges(net, closed), bases, dem, ALS)
@@ -510,7 +510,7 @@ def test_bad_scenario_files_give_one_line(tmp_path, case):
 BAD_REFS = {
     "edge id": ("[[closure]]\nedge_ids = [99999]\n", "edge 99999"),
     "way id": ("[[closure]]\nway_ids = [777777]\n", "way id 777777"),
-    "road name": ('[[closure]]\nroad_name = "Ambrel Bridge"\n', "Ambrel Bridge"),
+    "road name": ('[[closure]]\nroad_name = "Ambrel Viaduct"\n', "Ambrel Viaduct"),
     "base id": ('[[base_change]]\nremove = "S9"\n', "S9"),
     "road class": ('[[slowdown]]\nroad_class = ["residental"]\nfactor = 1.2\n', "residental"),
     "not a bridge": ("[[closure]]\nedge_ids = [0]\nonly_bridges = true\n", "bridge"),
@@ -565,3 +565,11 @@ def test_whatif_rejects_bad_requests(whatif):
         whatif.change_base("remove", "S9")
     with pytest.raises(StudyError, match="way id 777777"):
         whatif.close_ways([777777])
+
+
+def test_closure_by_bridge_name(demo, tmp_path):
+    """road_name = "Ambrel Bridge" closes exactly the way carrying that bridge:name in the OSM file."""
+    scen = _scenario(tmp_path, '[[closure]]\nroad_name = "ambrel bridge"\n', "by name")
+    _, _, log = apply_scenario(demo["net"], demo["bases"], scen)
+    ambrel = [w for w, t in demo["bridges"].items() if t["bridge:name"] == "Ambrel Bridge"]
+    assert set(demo["net"].edges["source_id"].to_numpy()[log.closed_edge_ids]) == set(ambrel)

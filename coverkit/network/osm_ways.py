@@ -27,6 +27,7 @@ WAY_TAGS = (
     "bridge",
     "tunnel",
     "name",
+    "bridge:name",
 )
 
 #: ``access`` values that close a way to ordinary traffic (OSM wiki, key:access; common practice in routing).
@@ -165,7 +166,11 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
             "access": access.to_numpy(dtype=object),
             "bridge": _yes(tags["bridge"]),
             "tunnel": _yes(tags["tunnel"]),
-            "name": tags["name"].fillna("").to_numpy(dtype=object),
+            # a bridge's own name ("Ferry Bridge") is what a closure names; the road's name otherwise
+            "name": tags["bridge:name"]
+            .where(tags["bridge:name"].notna(), tags["name"])
+            .fillna("")
+            .to_numpy(dtype=object),
         }
     )
     segments = segments.astype({k: v for k, v in SEGMENT_COLUMNS.items() if v != "object"})
