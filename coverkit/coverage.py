@@ -187,6 +187,17 @@ class TravelTable:
     direction: str
 
 
+def demand_exclude_classes(points: object) -> tuple[str, ...]:
+    """Road classes demand points must not snap onto.
+
+    Population (raster cells, polygon shares) lives beside the roads it is reached from, never on a carriageway, so
+    it skips :data:`~coverkit.travel.NO_ACCESS_CLASSES`; incident points keep every class (crashes happen on
+    motorways).
+    """
+    area = isinstance(points, gpd.GeoDataFrame) and "source" in points.columns and len(points) > 0
+    return NO_ACCESS_CLASSES if area and points["source"].iloc[0] in ("raster", "polygons") else ()
+
+
 def travel_table(
     net: RoadNetwork,
     bases: gpd.GeoDataFrame,
@@ -202,14 +213,6 @@ def travel_table(
         raise CoverkitError("no bases given; add at least one base (id, lon, lat).")
     note(f"coverage: snapping {len(bases)} bases and {len(points):,} {what}")
     base_snap = snap_points(net, bases, max_snap_m=base_snap_m, off_network="raise", what="bases")
-    # population (raster cells, polygon shares) lives beside the roads it is reached from, never on a carriageway;
-    # incident points keep every class (crashes happen on motorways)
-    area_demand = (
-        isinstance(points, gpd.GeoDataFrame)
-        and "source" in points.columns
-        and len(points) > 0
-        and (points["source"].iloc[0] in ("raster", "polygons"))
-    )
     point_snap = snap_points(
         net,
         points,
@@ -217,7 +220,7 @@ def travel_table(
         off_network="mask",
         what=what,
         warn_islands=False,
-        exclude_classes=NO_ACCESS_CLASSES if area_demand else (),
+        exclude_classes=demand_exclude_classes(points),
     )
     note(f"coverage: searching from {len(bases)} bases (horizon {horizon_s:g} s)")
     times = point_times(net, base_snap, point_snap, horizon_s, direction=direction)

@@ -52,6 +52,7 @@ from coverkit.coverage import (
     area_grid,
     area_layers,
     default_horizon_s,
+    demand_exclude_classes,
     evaluate_coverage,
     per_base,
     travel_table,
@@ -1101,7 +1102,7 @@ class WhatIf:
         for name, dem in self.demand.items():
             snap = snap_points(
                 net, dem, max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
-                warn_islands=False,
+                warn_islands=False, exclude_classes=demand_exclude_classes(dem),
             )  # fmt: skip
             r, c, t = _times_from_nodes(
                 net, self.node_t, self.base_snap, all_rows, snap, np.arange(len(dem)), self.horizon_s, direction
@@ -1271,7 +1272,7 @@ class WhatIf:
                 sub = snap_points(
                     net2, dem.geometry.to_numpy()[resnap], ids=old_snap.ids[resnap],
                     max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
-                    warn_islands=False,
+                    warn_islands=False, exclude_classes=demand_exclude_classes(dem),
                 )  # fmt: skip
                 snap2 = _merge_snap(old_snap, sub, resnap)
             resnapped[name] = len(resnap)
