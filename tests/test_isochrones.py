@@ -67,22 +67,36 @@ def test_uniform_grid_diamond_area_and_road_length(grid_case, exact):
         assert inside[l1 <= big_r].all() and not inside[off > reach + 1e-6].any()
 
 
-def test_bands_nested_and_not_convex_hull(grid_case):
-    """Nesting by construction; a sparse grid (400 m blocks, 100 m reach) leaves holes, unlike a convex hull."""
+@pytest.mark.parametrize("exact", [False, True])
+def test_bands_nested_and_not_convex_hull(exact):
+    """Nesting by construction; a sparse grid (400 m blocks, 100 m reach) leaves holes, unlike a convex hull.
+
+    Geometry, exact: a 400 m block less 100 m along each side leaves a 200 m x 200 m square hole (4 ha; its corners
+    are square, as they lie at distance 100 m from both streets), so with holes under 1 ha filled the holes stay,
+    and with holes under 10 ha filled none is left.
+    """
     net = grid_network(21, 21, 400.0, 36.0)
     bases = _bases(net, [net.xy[10 * 21 + 10]])
-    g = drive_time_polygons(net, bases, [3, 6, 9], reach_m=100.0, any_base=False)
+    g = drive_time_polygons(net, bases, [3, 6, 9], reach_m=100.0, any_base=False, exact=exact)
     geoms = g.geometry.to_numpy()
     for small, big in itertools.pairwise(geoms):
         assert big.buffer(1e-6).contains(small)
     last = geoms[-1]
-    assert sum(len(p.interiors) for p in last.geoms) > 10
+    assert last.is_valid
+    holes = [shapely.Polygon(r) for p in last.geoms for r in p.interiors]
+    assert len(holes) > 10
+    # the fast path's marching squares cut each square corner of a hole by up to about a cell (33 m here)
+    tol = 0.01 if exact else 0.08
+    assert all(abs(h.area / 4.0e4 - 1.0) < tol for h in holes)
     assert last.area < 0.8 * last.convex_hull.area
+    filled = drive_time_polygons(net, bases, [3, 6, 9], reach_m=100.0, any_base=False, exact=exact, min_hole_km2=0.1)
+    for geom in filled.geometry:
+        assert geom.is_valid and sum(len(p.interiors) for p in geom.geoms) == 0
 
 
-def _iou_check(net, bases, minutes, reach_m=150.0):
-    fast = drive_time_polygons(net, bases, minutes, reach_m=reach_m)
-    exact = drive_time_polygons(net, bases, minutes, reach_m=reach_m, exact=True)
+def _iou_check(net, bases, minutes, reach_m=150.0, direction="out"):
+    fast = drive_time_polygons(net, bases, minutes, reach_m=reach_m, direction=direction)
+    exact = drive_time_polygons(net, bases, minutes, reach_m=reach_m, exact=True, direction=direction)
     assert list(fast["base_id"]) == list(exact["base_id"])
     assert ANY_BASE_ID in set(fast["base_id"])
     for a, b in zip(fast.geometry, exact.geometry, strict=True):
@@ -90,22 +104,31 @@ def _iou_check(net, bases, minutes, reach_m=150.0):
         iou = shapely.intersection(a, b).area / shapely.union(a, b).area
         assert iou >= 0.98
     assert np.allclose(fast["road_km"], exact["road_km"])
+    # bands nested for every base and for "any base"; each base's polygon lies inside the any-base one
+    for _, grp in fast.groupby("base_id", sort=False):
+        for small, big in itertools.pairwise(grp.geometry):
+            assert big.buffer(1e-6).contains(small)
+    anyb = fast[fast["base_id"] == ANY_BASE_ID].set_index("band_min").geometry
+    for _, row in fast[fast["base_id"] != ANY_BASE_ID].iterrows():
+        assert anyb[row.band_min].buffer(1e-6).contains(row.geometry)
     return fast
 
 
 def test_fast_matches_exact_on_irregular_network():
-    """shapely 2 exact construction as reference: IoU >= 0.98 per base and band on a perturbed grid with diagonal,
-    curved and one-way streets and signals."""
+    """shapely 2 exact construction as reference: IoU >= 0.98 per base and band (and any base) on a perturbed grid
+    with diagonal, curved and one-way streets and signals, travel from and to the bases."""
     net = irregular_network(25, 25, 200.0, seed=5)
     rng = np.random.default_rng(2)
     lo, hi = net.xy.min(axis=0), net.xy.max(axis=0)
     fast = _iou_check(net, _bases(net, rng.uniform(lo, hi, (3, 2))), [1, 2, 3])
+    _iou_check(net, _bases(net, rng.uniform(lo, hi, (2, 2))), [1, 2, 3], direction="in")
     table = summary_table(fast)
     assert list(table.columns) == ["base", "band_min", "area_km2", "road_km"]
 
 
 def test_fast_matches_exact_on_demo_county():
-    """shapely 2 exact construction as reference, on the demo county: IoU >= 0.98 for every base and band."""
+    """shapely 2 exact construction as reference, on the demo county: IoU >= 0.98 for every base and band (the
+    issue's bands 4, 8, 12 min) and for the any-base polygons."""
     roads, bases_path = DEMO / "varrowby.osm.bz2", DEMO / "stations.csv"
     if not (roads.is_file() and bases_path.is_file()):
         pytest.skip(f"demo county not generated yet ({roads} or {bases_path} missing)")
@@ -117,7 +140,7 @@ def test_fast_matches_exact_on_demo_county():
 
     net, _ = build_network(roads, "emergency")
     bases = read_points(bases_path, net.crs, what="bases")
-    _iou_check(net, bases, [4, 8])
+    _iou_check(net, bases, [4, 8, 12])
 
 
 def test_travel_surface_geotiff(tmp_path, grid_case):
@@ -140,3 +163,24 @@ def test_travel_surface_geotiff(tmp_path, grid_case):
             else:
                 assert data[r, c] == -1.0
     assert not list(tmp_path.glob(".*part*"))  # atomic write left no temporary file
+
+
+def test_filled_hole_swallows_island():
+    """A square ring road (side 1000 m) with a road point at its centre, reach 150 m: the hole (700 m square less
+    the island) is under 1 km², so filling it leaves one polygon, the square dilated by the reach, area
+    1000² + 4·1000·150 + π·150² m² (Steiner formula; exact), with the island dropped, not overlapping."""
+    from coverkit.isochrones import Field, _field_polygons
+
+    cell = 25.0
+    xs = np.arange(-40, 41) * cell
+    gx, gy = np.meshgrid(xs, xs)
+    ring = shapely.Polygon([(-500, -500), (500, -500), (500, 500), (-500, 500)]).exterior
+    dist = np.minimum(
+        shapely.distance(ring, shapely.points(gx.ravel(), gy.ravel())).reshape(gx.shape), np.hypot(gx, gy)
+    )
+    field = Field(-40, -40, dist)
+    kept = _field_polygons(field, cell, 150.0, 1e4)
+    assert kept.is_valid and len(kept.geoms) == 2 and sorted(len(p.interiors) for p in kept.geoms) == [0, 1]
+    filled = _field_polygons(field, cell, 150.0, 1e6)
+    assert filled.is_valid and len(filled.geoms) == 1 and len(filled.geoms[0].interiors) == 0
+    assert abs(filled.area / (1000.0**2 + 4 * 1000.0 * 150.0 + np.pi * 150.0**2) - 1.0) < 0.005
