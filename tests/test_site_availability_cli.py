@@ -246,3 +246,19 @@ def test_calibrate_unknown_base_id_names_the_row(net_path, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2 and "S99" in err and "line 6" in err and len(err.strip().splitlines()) == 1
     assert not out.exists()
+
+
+@pytest.mark.parametrize("model", ["mclp", "p-median"])
+def test_heuristic_is_within_one_percent_of_the_exact_optimum_on_the_demo(net_path, model):
+    """Greedy plus interchange against HiGHS on the demo county (stated gap: 1 % of the objective)."""
+    from coverkit.site_plan import solve
+
+    net = RoadNetwork.load(net_path)
+    bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
+    cands = read_points(DEMO / "candidates.csv", net.crs, what="candidates")
+    demand = load_demand(DEMO / "population.tif", net)
+    prob = build_problem(net, bases, cands, demand, Standard("8", 480.0))
+    exact = solve(prob, model, add=3, method="milp", curve_to=0).result
+    heur = solve(prob, model, add=3, method="heuristic", curve_to=0).result
+    assert exact.status == "optimal"
+    assert abs(heur.objective - exact.objective) <= 0.01 * abs(exact.objective)
