@@ -308,3 +308,39 @@ def test_demand_errors_are_field_errors(demo_net):
         load_demand(DEMO / "missing.tif", net)
     with pytest.raises(FieldError, match="polygons"):
         load_demand(DEMO / "blocks.gpkg", net)
+
+
+def test_same_inputs_give_the_same_outputs(demo_net, tmp_path):
+    """Determinism: two runs of `cover` give identical layers (values, order and geometry)."""
+    _, net_path = demo_net
+    outs = []
+    for k in range(2):
+        out = tmp_path / f"c{k}.gpkg"
+        assert (
+            main(
+                [
+                    "cover",
+                    str(net_path),
+                    "--bases",
+                    str(DEMO / "stations.csv"),
+                    "--demand",
+                    str(DEMO / "incidents.csv"),
+                    "--minutes",
+                    "8",
+                    "--out",
+                    str(out),
+                    "--quiet",
+                ]
+            )
+            == 0
+        )
+        outs.append(out)
+    for layer in ("demand", "gaps", "first_due", "per_base"):
+        a = gpd.read_file(outs[0], layer=layer)
+        b = gpd.read_file(outs[1], layer=layer)
+        pd.testing.assert_frame_equal(
+            pd.DataFrame(a.drop(columns="geometry", errors="ignore")),
+            pd.DataFrame(b.drop(columns="geometry", errors="ignore")),
+        )
+        if "geometry" in a.columns:
+            assert a.geometry.geom_equals_exact(b.geometry, tolerance=0).all()
