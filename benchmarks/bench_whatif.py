@@ -3,7 +3,7 @@
 Run: ``python benchmarks/bench_whatif.py [--study examples/demo-study.toml] [--repeat 3]``.
 
 The base state is the demo study (both demand layers, every standard, the study's horizon). Each case is answered
-twice: by :class:`coverkit.scenario.WhatIf` (searches again only from the bases the change can affect, snaps
+twice: by :class:`coverkit.whatif.WhatIf` (searches again only from the bases the change can affect, snaps
 again only the points on closed roads) and by the full path a study run takes (``travel_table`` on the changed
 network for every demand layer, then ``evaluate_coverage`` for every standard). Both give the same results (the
 tests check it bit for bit; here the covered weight is compared as a guard). Prints the best of ``--repeat`` runs
@@ -21,9 +21,10 @@ import numpy as np
 import pandas as pd
 
 from coverkit import CAUTION
+from coverkit.compare_run import whatif_from_study
 from coverkit.coverage import evaluate_coverage, travel_table
 from coverkit.progress import set_quiet
-from coverkit.scenario import WhatIf
+from coverkit.whatif import WhatIf
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -54,7 +55,7 @@ def main() -> None:
     set_quiet(True)
     with tempfile.TemporaryDirectory() as cache:
         t0 = time.perf_counter()
-        wi = WhatIf.from_study(args.study, cache_folder=cache)
+        wi = whatif_from_study(args.study, cache_folder=cache)
         t_base = time.perf_counter() - t0
     net = wi.net
     e = net.edges
@@ -64,9 +65,9 @@ def main() -> None:
         f"in {len(wi.demand)} layers, {len(wi.standards)} standards, horizon {wi.horizon_s:g} s "
         f"(network, inputs and base searches {t_base:.2f} s)"
     )
-    bridge_ways = sorted(set(e.loc[e["bridge"] & e["name"].isin(["Ambrel Way", "Ferry Road", "Oxle Road"]),
+    bridge_ways = sorted(set(e.loc[e["bridge"] & e["name"].isin(["Ambrel Bridge", "Ferry Bridge", "Oxle Bridge"]),
                                    "source_id"]))  # fmt: skip
-    ambrel = int(e.loc[e["bridge"] & (e["name"] == "Ambrel Way"), "source_id"].iloc[0])
+    ambrel = int(e.loc[e["bridge"] & (e["name"] == "Ambrel Bridge"), "source_id"].iloc[0])
     cand = pd.read_csv(REPO / "data" / "demo" / "candidates.csv").iloc[0]
     cases = {
         "close Ambrel Bridge (one way id)": lambda: wi.close_ways([ambrel]),

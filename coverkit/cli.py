@@ -592,8 +592,8 @@ def _cmd_calibrate(args: argparse.Namespace) -> int:
 
 @command("compare")
 def _cmd_compare(args: argparse.Namespace) -> int:
+    from coverkit.compare_run import compare_study
     from coverkit.report.compare_report import write_compare_report
-    from coverkit.scenario import compare_study
 
     run = compare_study(args.study, args.scenario, args.out)
     run.outputs.update(write_compare_report(run, args.out))

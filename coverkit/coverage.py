@@ -494,13 +494,13 @@ def area_layers(
     # a cell holding covered demand only and no timed road stays out of the gaps
     base_ids = result.bases["id"].astype(str).to_numpy()
 
-    first_due = _polygons(first_grid.reshape(nrow, ncol), transform, crs, valid=first_grid.reshape(nrow, ncol) >= 0)
+    first_due = grid_polygons(first_grid.reshape(nrow, ncol), transform, crs, valid=first_grid.reshape(nrow, ncol) >= 0)
     first_due["base_id"] = base_ids[first_due["value"].to_numpy(dtype=int)] if len(first_due) else []
     first_due = first_due.dissolve("base_id", as_index=False)[["base_id", "geometry"]] if len(first_due) else first_due
     if len(first_due):
         first_due["area_km2"] = first_due.area / 1e6
 
-    labels_grid = _label(uncovered.reshape(nrow, ncol))
+    labels_grid = label_regions(uncovered.reshape(nrow, ncol))
     gap_of_point = np.where(d_unc, labels_grid.ravel()[dcell], 0)
     w = d["weight"].to_numpy(dtype=float)
     n_lab = int(labels_grid.max())
@@ -513,7 +513,7 @@ def area_layers(
         inside = (icol >= 0) & (icol < ncol) & (irow >= 0) & (irow < nrow)
         lab = labels_grid[irow[inside], icol[inside]]
         inc = np.bincount(lab, minlength=n_lab + 1).astype(float)
-    gaps = _polygons(labels_grid, transform, crs, valid=labels_grid > 0)
+    gaps = grid_polygons(labels_grid, transform, crs, valid=labels_grid > 0)
     label_to_gap = np.zeros(n_lab + 1, dtype=np.int64)
     if len(gaps):
         gaps = gaps.dissolve("value", as_index=False)
@@ -531,7 +531,7 @@ def area_layers(
         gaps = gpd.GeoDataFrame({"gap_id": [], "population": [], "incidents": [], "area_km2": []}, geometry=[], crs=crs)
 
     single_mask = (depth_grid == 1).reshape(nrow, ncol)
-    single = _polygons(single_mask.astype(np.int32), transform, crs, valid=single_mask)
+    single = grid_polygons(single_mask.astype(np.int32), transform, crs, valid=single_mask)
     single = single.dissolve(as_index=False)[["geometry"]] if len(single) else single
     if len(single):
         single["area_km2"] = single.area / 1e6
@@ -540,14 +540,16 @@ def area_layers(
     )
 
 
-def _label(mask: np.ndarray) -> np.ndarray:
+def label_regions(mask: np.ndarray) -> np.ndarray:
+    """Label the 8-connected regions of a boolean grid: 1, 2, ... per region, 0 outside (int32, same shape)."""
     from scipy.ndimage import label
 
     labels, _ = label(mask, structure=np.ones((3, 3), dtype=int))
     return labels.astype(np.int32)
 
 
-def _polygons(grid: np.ndarray, transform: Affine, crs, valid: np.ndarray) -> gpd.GeoDataFrame:
+def grid_polygons(grid: np.ndarray, transform: Affine, crs: object, valid: np.ndarray) -> gpd.GeoDataFrame:
+    """Polygons of the 8-connected cells of equal value in ``grid`` where ``valid``: column ``value``, in ``crs``."""
     shapes = list(rasterio.features.shapes(grid.astype(np.int32), mask=valid, transform=transform, connectivity=8))
     geoms = [shapely.geometry.shape(g) for g, _ in shapes]
     values = [int(v) for _, v in shapes]

@@ -18,10 +18,9 @@ A scenario file (TOML, keys our own, paths relative to the file) lists changes::
     add = { id = "S5", lon = -35.0, lat = 41.0, units = 1 }
 
 :func:`load_scenario` validates the file; :func:`apply_scenario` gives the changed network and bases and a
-:class:`ChangeLog`; :func:`compare_results` and :func:`changed_areas` compare coverage before and after;
-:func:`compare_study` runs a study's coverage before and after a scenario and writes the layers and a table.
-:class:`WhatIf` keeps a computed base study and answers a closure or a base change by searching again only from the
-bases whose shortest-path trees the change can alter.
+:class:`ChangeLog`; :func:`compare_results` and :func:`changed_areas` compare coverage before and after.
+:func:`coverkit.compare_run.compare_study` runs a whole study before and after a scenario (study level).
+:class:`coverkit.whatif.WhatIf` answers the same changes incrementally on a computed base study.
 
 Time conventions follow :mod:`coverkit.travel.search`: an edge's ``travel_s`` is its running time plus its end-node
 delay (signals); a slowdown factor multiplies the running time only, never the delay.
@@ -30,7 +29,6 @@ delay (signals); a slowdown factor multiplies the running time only, never the d
 from __future__ import annotations
 
 import difflib
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -38,7 +36,6 @@ from typing import Any
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import scipy.sparse as sp
 import shapely
 
 from coverkit.coverage import (
@@ -46,30 +43,21 @@ from coverkit.coverage import (
     AreaLayers,
     CoverageResult,
     Standard,
-    TravelTable,
-    _label,
-    _polygons,
     area_grid,
     area_layers,
-    default_horizon_s,
-    demand_exclude_classes,
-    evaluate_coverage,
+    grid_polygons,
+    label_regions,
     per_base,
-    travel_table,
 )
-from coverkit.errors import CoverkitError, StudyError
-from coverkit.network.model import MIN_EDGE_S, RoadNetwork
-from coverkit.progress import note
-from coverkit.travel import nearest_sources, node_times, snap_points
-from coverkit.travel.search import CHUNK_CELLS, _dense_to_csr, _same_edge_min, exits, run_s
-from coverkit.travel.snap import Snapped
-
-#: Message of a what-if closure that no base's search reaches.
-NO_REACH_NOTE = "no base's search reaches the closed roads; coverage unchanged"
+from coverkit.errors import StudyError
+from coverkit.network.model import RoadNetwork
+from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
+from coverkit.travel import nearest_sources
+from coverkit.travel.search import run_s
 
 # -- the scenario file ------------------------------------------------------------------------------------------------
 _NUM = (int, float)
-_SCHEMA: dict[str, dict[str, tuple[tuple[type, ...], bool]]] = {
+_SCHEMA: dict[str, Schema] = {
     "scenario": {"name": ((str,), True), "description": ((str,), False)},
     "closure": {
         "edge_ids": ((list,), False),
@@ -93,7 +81,7 @@ _SCHEMA: dict[str, dict[str, tuple[tuple[type, ...], bool]]] = {
         "note": ((str,), False),
     },
 }
-_BASE_CHANGE_KEYS: dict[str, dict[str, tuple[tuple[type, ...], bool]]] = {
+_BASE_CHANGE_KEYS: dict[str, Schema] = {
     "add": {"id": ((str,), True), "lon": (_NUM, True), "lat": (_NUM, True), "units": ((int,), False),
             "name": ((str,), False)},
     "move": {"id": ((str,), True), "lon": (_NUM, True), "lat": (_NUM, True)},
@@ -159,29 +147,6 @@ class Scenario:
     base_changes: tuple[BaseChange, ...]
 
 
-def _type_name(types: tuple[type, ...]) -> str:
-    names = {"str": "a string", "list": "a list", "int": "a whole number", "float": "a number", "bool": "true/false",
-             "dict": "a table"}  # fmt: skip
-    return " or ".join(dict.fromkeys(names[t.__name__] for t in types))
-
-
-def _check_keys(table: Any, schema: dict, key_prefix: str, where: str) -> None:
-    if not isinstance(table, dict):
-        raise StudyError(f"{where}: '{key_prefix}' must be a table of keys.")
-    for key, value in table.items():
-        if key not in schema:
-            raise StudyError(f"{where}: unknown key '{key_prefix}.{key}'; allowed keys: {', '.join(schema)}.")
-        types, _ = schema[key]
-        ok = isinstance(value, types) and not (isinstance(value, bool) and bool not in types)
-        if not ok:
-            raise StudyError(
-                f"{where}: key '{key_prefix}.{key}' must be {_type_name(types)}, got {type(value).__name__} {value!r}."
-            )
-    for key, (_, required) in schema.items():
-        if required and key not in table:
-            raise StudyError(f"{where}: '{key_prefix}' is missing the required key '{key}'.")
-
-
 def _read_polygon(folder: Path, value: str, key: str, where: str) -> tuple[Any, Any]:
     """Union of the polygons of a file, with its CRS; a missing, empty or non-polygon file is a StudyError."""
     path = (folder / value).resolve()
@@ -234,22 +199,12 @@ def load_scenario(path: str | Path) -> Scenario:
     StudyError
         One line naming the file and the key.
     """
-    path = Path(path).resolve()
+    path, raw = read_toml(path, "scenario", "give a .toml scenario file.")
     where = str(path)
-    if not path.is_file():
-        raise StudyError(f"scenario file {path} not found; give a .toml scenario file.")
-    try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise StudyError(f"{where}: not valid TOML ({exc}); fix the syntax.") from None
-    except UnicodeDecodeError:
-        raise StudyError(f"{where}: not a UTF-8 text file; save the scenario as UTF-8 TOML.") from None
-    for section in raw:
-        if section not in _SCHEMA:
-            raise StudyError(f"{where}: unknown section [{section}]; sections are {', '.join(_SCHEMA)}.")
+    check_sections(raw, _SCHEMA, where)
     if "scenario" not in raw:
         raise StudyError(f'{where}: missing section [scenario] (with name = "...").')
-    _check_keys(raw["scenario"], _SCHEMA["scenario"], "scenario", where)
+    check_table(raw["scenario"], _SCHEMA["scenario"], "scenario", where, "[scenario]")
     for section in _LIST_SECTIONS:
         if section in raw and not isinstance(raw[section], list):
             raise StudyError(f"{where}: [{section}] must be written [[{section}]] (one or more entries).")
@@ -260,7 +215,7 @@ def load_scenario(path: str | Path) -> Scenario:
     closures = []
     for i, item in enumerate(raw.get("closure", [])):
         key = f"closure[{i}]"
-        _check_keys(item, _SCHEMA["closure"], key, where)
+        check_table(item, _SCHEMA["closure"], key, where)
         given = [k for k in _CLOSURE_SELECTORS if k in item]
         if len(given) != 1:
             raise StudyError(
@@ -283,7 +238,7 @@ def load_scenario(path: str | Path) -> Scenario:
     slowdowns = []
     for i, item in enumerate(raw.get("slowdown", [])):
         key = f"slowdown[{i}]"
-        _check_keys(item, _SCHEMA["slowdown"], key, where)
+        check_table(item, _SCHEMA["slowdown"], key, where)
         if "road_class" not in item and "polygon" not in item:
             raise StudyError(f"{where}: {key} needs road_class, polygon or both to say which roads slow down.")
         factor = float(item["factor"])
@@ -298,7 +253,7 @@ def load_scenario(path: str | Path) -> Scenario:
     changes = []
     for i, item in enumerate(raw.get("base_change", [])):
         key = f"base_change[{i}]"
-        _check_keys(item, _SCHEMA["base_change"], key, where)
+        check_table(item, _SCHEMA["base_change"], key, where)
         given = [k for k in ("add", "remove", "move", "units") if k in item]
         if len(given) != 1:
             raise StudyError(f"{where}: {key} needs exactly one of add, remove, move, units; write one per entry.")
@@ -309,7 +264,7 @@ def load_scenario(path: str | Path) -> Scenario:
             changes.append(BaseChange(i, "remove", item["remove"].strip(), note=item.get("note", "")))
             continue
         sub = item[action]
-        _check_keys(sub, _BASE_CHANGE_KEYS[action], f"{key}.{action}", where)
+        check_table(sub, _BASE_CHANGE_KEYS[action], f"{key}.{action}", where)
         for coord, bound in (("lon", 180.0), ("lat", 90.0)):
             if coord in sub and not (-bound <= float(sub[coord]) <= bound):
                 raise StudyError(
@@ -353,7 +308,7 @@ class ChangeLog:
     base_changes
         DataFrame: ``action``, ``base_id``, ``detail``.
     notes
-        Lines for the user (e.g. :data:`NO_REACH_NOTE`).
+        Lines for the user (e.g. :data:`coverkit.whatif.NO_REACH_NOTE`).
     """
 
     closed_edge_ids: np.ndarray
@@ -517,13 +472,14 @@ def _empty_pieces(net: RoadNetwork, extra: tuple[str, ...] = ()) -> gpd.GeoDataF
     return _pieces_frame(net, np.zeros(0, dtype=np.int64), {k: np.zeros(0) for k in extra})
 
 
-def _change_log(
+def change_log(
     net: RoadNetwork,
     closed: np.ndarray,
     slowed: np.ndarray | None = None,
     factors: np.ndarray | None = None,
     base_rows: list[dict] | None = None,
 ) -> ChangeLog:
+    """The :class:`ChangeLog` of closed and slowed edge ids (with their factors) and base-change log rows."""
     closed = np.unique(np.asarray(closed, dtype=np.int64))
     slowed = np.zeros(0, dtype=np.int64) if slowed is None else np.asarray(slowed, dtype=np.int64)
     closed_gdf = _pieces_frame(net, closed)
@@ -632,7 +588,7 @@ def apply_scenario(
     new_bases, rows = apply_base_changes(bases, scenario.base_changes, str(scenario.path))
     changed = bool(len(closed) or len(slowed))
     new_net = net.with_travel_s(t, note=f"scenario: {scenario.name}") if changed else net
-    return new_net, new_bases, _change_log(net, closed, slowed, factors, rows)
+    return new_net, new_bases, change_log(net, closed, slowed, factors, rows)
 
 
 # -- comparing coverage -----------------------------------------------------------------------------------------------
@@ -885,14 +841,14 @@ def changed_areas(
         inc_cell = irow[inside] * ncol + icol[inside]
     parts = []
     for kind, mask, pts in (("lost", lost, p_lost), ("gained", gained, p_gain)):
-        labels = _label(mask.reshape(nrow, ncol)).ravel()
+        labels = label_regions(mask.reshape(nrow, ncol)).ravel()
         n_lab = int(labels.max())
         if n_lab == 0:
             continue
         weight = np.bincount(labels[dcell[pts]], weights=w[pts], minlength=n_lab + 1)
         count = np.bincount(labels[dcell[pts]], minlength=n_lab + 1)
         inc = np.bincount(labels[inc_cell], minlength=n_lab + 1) if inc_cell is not None else np.zeros(n_lab + 1)
-        poly = _polygons(labels.reshape(nrow, ncol), transform, d.crs, valid=labels.reshape(nrow, ncol) > 0)
+        poly = grid_polygons(labels.reshape(nrow, ncol), transform, d.crs, valid=labels.reshape(nrow, ncol) > 0)
         poly = poly.dissolve("value", as_index=False)
         lab = poly["value"].to_numpy(dtype=int)
         poly["change"] = kind
@@ -922,633 +878,23 @@ def changed_areas(
     return ChangedAreas(polys, delta.reshape(nrow, ncol), status.reshape(nrow, ncol), transform, layers_b, layers_a)
 
 
-# -- quick what-if ----------------------------------------------------------------------------------------------------
-def _dense_rows(m: sp.csr_matrix, rows: np.ndarray) -> np.ndarray:
-    """Rows of a sparse time matrix as a dense array, inf where nothing is stored (stored zeros stay zeros)."""
-    sub = m[rows].tocoo()
-    out = np.full((len(rows), m.shape[1]), np.inf)
-    out[sub.row, sub.col] = sub.data
-    return out
-
-
-def _merge_snap(old: Snapped, new_sub: Snapped, idx: np.ndarray) -> Snapped:
-    """``old`` with the points at ``idx`` replaced by ``new_sub`` (their snap on the changed network)."""
-    idx = np.asarray(idx, dtype=np.int64)
-    per = {}
-    for name in ("on_network", "edge", "frac", "offset_m", "dist_m", "x", "y"):
-        arr = getattr(old, name).copy()
-        arr[idx] = getattr(new_sub, name)
-        per[name] = arr
-    keep = ~np.isin(old.entry_point, idx)
-    ep = np.concatenate([old.entry_point[keep], idx[new_sub.entry_point]])
-    ee = np.concatenate([old.entry_edge[keep], new_sub.entry_edge])
-    ef = np.concatenate([old.entry_frac[keep], new_sub.entry_frac])
-    order = np.lexsort((ee, ep))
-    return Snapped(
-        ids=old.ids,
-        entry_point=ep[order],
-        entry_edge=ee[order],
-        entry_frac=ef[order],
-        max_snap_m=old.max_snap_m,
-        **per,
-    )
-
-
-def _far_near_closed(net: RoadNetwork, snap: Snapped, geoms: np.ndarray, closed: np.ndarray) -> np.ndarray:
-    """Off-network points whose measured distance to the nearest road may have been to a road now closed.
-
-    Their ``dist_m`` must be measured again; the others' nearest road is still open, so their distance stands.
-    """
-    far = np.flatnonzero(~snap.on_network & np.isfinite(snap.dist_m))
-    closed_ids = np.flatnonzero(closed)
-    if len(far) == 0 or len(closed_ids) == 0:
-        return np.zeros(0, dtype=np.int64)
-    tree = shapely.STRtree(net.edges.geometry.to_numpy()[closed_ids])
-    (pi, _), d = tree.query_nearest(geoms[far], return_distance=True, all_matches=False)
-    near = d <= snap.dist_m[far[pi]] * (1 + 1e-9) + 1e-6  # ties count: measure again rather than keep
-    return far[pi[near]]
-
-
-def _times_from_nodes(
-    net: RoadNetwork,
-    node_t: sp.csr_matrix,
-    base_snap: Snapped,
-    rows: np.ndarray,
-    targets: Snapped,
-    cols: np.ndarray,
-    limit_s: float,
-    direction: str,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Point times of bases ``rows`` to targets ``cols`` from stored node times: the arithmetic of
-    :func:`coverkit.travel.point_times` (partial edges at the target, same-edge trips) without a new search.
-
-    Returns COO triplets (base row, target column, time s) within ``limit_s``.
-    """
-    rows = np.asarray(rows, dtype=np.int64)
-    cols = np.asarray(cols, dtype=np.int64)
-    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
-    if len(rows) == 0 or len(cols) == 0:
-        return empty
-    sub = targets.subset(cols)
-    t_pt, t_node, t_add = exits(net, sub, direction)
-    starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
-    with_entries = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
-    chunk = max(1, CHUNK_CELLS // max(net.n_nodes, len(t_pt), 1))
-    out_r, out_c, out_t = [], [], []
-    for start in range(0, len(rows), chunk):
-        r = rows[start : start + chunk]
-        dist = _dense_rows(node_t, r)
-        block = np.full((len(r), len(cols)), np.inf)
-        if len(t_pt):
-            block[:, with_entries] = np.minimum.reduceat(dist[:, t_node] + t_add[None, :], starts, axis=1)
-        _same_edge_min(net, base_snap, sub, r, block, direction)
-        m = _dense_to_csr(block, limit_s).tocoo()
-        out_r.append(r[m.row])
-        out_c.append(cols[m.col])
-        out_t.append(m.data)
-    return np.concatenate(out_r), np.concatenate(out_c), np.concatenate(out_t)
-
-
-@dataclass
-class WhatIfOutcome:
-    """The result of one what-if.
-
-    Attributes
-    ----------
-    results
-        ``{(standard name, demand name): CoverageResult}`` after the change.
-    network, bases
-        The changed network and bases.
-    changes
-        The :class:`ChangeLog` (its notes say when coverage is unchanged).
-    recomputed_bases
-        Ids of the bases searched again (changed, added or moved bases, and bases whose shortest-path trees the
-        change can alter); the others kept their stored times exactly.
-    resnapped_points
-        ``{demand name: number of points snapped again}`` (points on closed roads).
-    """
-
-    results: dict
-    network: RoadNetwork
-    bases: gpd.GeoDataFrame
-    changes: ChangeLog
-    recomputed_bases: list[str]
-    resnapped_points: dict
-
-    @property
-    def result(self) -> CoverageResult:
-        """The first result (the only one for a what-if on one standard and one demand layer)."""
-        return next(iter(self.results.values()))
-
-
-class WhatIf:
-    """A computed base study that answers closures, slowdowns and base changes incrementally.
-
-    The base state keeps, per base, the node times of its bounded search (sparse, within the horizon), and per
-    demand layer the snapped points and the base-to-point times. A change that only makes edges slower or closes
-    them (or makes some faster) can alter base ``b``'s times only if some changed edge ``(x, y)`` is *tight* in
-    ``b``'s search: ``d_b(x) + w(x, y) <= min(d_b(y), horizon)`` with ``w`` the smaller of the old and new weight.
-    Every shortest path consists of tight edges only, so when no changed edge is tight the old distances remain
-    shortest (slower edges lie on no shortest path; faster ones create none), and the base's stored row is exact.
-    Such bases are not searched again; the rest are. Demand points snapped onto a closed edge are snapped again,
-    and points on a changed edge get their partial-edge times from the stored node times. An added or moved base
-    adds one search; a removed base drops a row. The outcome equals a full recomputation (tested to exact
-    equality).
-
-    Parameters
-    ----------
-    net, bases
-        Network and bases of the base study.
-    demand
-        One demand GeoDataFrame or ``{name: GeoDataFrame}``.
-    standards
-        One :class:`Standard` or a list.
-    horizon_s
-        Search bound (s); default from the longest standard (:func:`coverkit.coverage.default_horizon_s`).
-    direction
-        ``"out"`` (base to demand) or ``"in"``.
-    demand_snap_m
-        Snap limit of demand points (m), one value or ``{name: value}``.
-    base_snap_m
-        Snap limit of bases (m).
-    """
-
-    def __init__(
-        self,
-        net: RoadNetwork,
-        bases: gpd.GeoDataFrame,
-        demand: gpd.GeoDataFrame | dict[str, gpd.GeoDataFrame],
-        standards: Standard | list[Standard],
-        horizon_s: float | None = None,
-        direction: str = "out",
-        demand_snap_m: float | dict[str, float] = 500.0,
-        base_snap_m: float = 500.0,
-    ) -> None:
-        self.net = net
-        self.bases = bases.reset_index(drop=True)
-        self.demand = dict(demand) if isinstance(demand, dict) else {"demand": demand}
-        self.standards = [standards] if isinstance(standards, Standard) else list(standards)
-        self.horizon_s = float(horizon_s or max(default_horizon_s(s) for s in self.standards))
-        self.direction = direction
-        self.base_snap_m = float(base_snap_m)
-        snaps = demand_snap_m if isinstance(demand_snap_m, dict) else dict.fromkeys(self.demand, demand_snap_m)
-        self.demand_snap_m = {k: float(snaps.get(k, 500.0)) for k in self.demand}
-        self.base_snap = snap_points(net, self.bases, max_snap_m=self.base_snap_m, off_network="raise", what="bases")
-        note(f"what-if: searching from {len(self.bases)} bases (horizon {self.horizon_s:g} s)")
-        self.node_t = node_times(net, self.base_snap, self.horizon_s, direction)
-        self.point_snap: dict[str, Snapped] = {}
-        self.tables: dict[str, TravelTable] = {}
-        all_rows = np.arange(len(self.bases))
-        for name, dem in self.demand.items():
-            snap = snap_points(
-                net, dem, max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
-                warn_islands=False, exclude_classes=demand_exclude_classes(dem),
-            )  # fmt: skip
-            r, c, t = _times_from_nodes(
-                net, self.node_t, self.base_snap, all_rows, snap, np.arange(len(dem)), self.horizon_s, direction
-            )
-            times = sp.csr_matrix((t, (r, c)), shape=(len(self.bases), len(dem)))
-            self.point_snap[name] = snap
-            self.tables[name] = TravelTable(self.base_snap, snap, times, self.horizon_s, direction)
-        self.results = {
-            (s.name, name): evaluate_coverage(net, self.bases, dem, s, table=self.tables[name])
-            for s in self.standards
-            for name, dem in self.demand.items()
-        }
-
-    # -- constructors -------------------------------------------------------------------------------------------------
-    @classmethod
-    def from_study(cls, study_path: str | Path, cache_folder: str | Path | None = None) -> WhatIf:
-        """The base state of a study file: its network (cached), bases, demand layers and standards."""
-        inputs = study_inputs(study_path, cache_folder)
-        s = inputs["study"]
-        return cls(
-            inputs["network"],
-            inputs["bases"],
-            inputs["demand"],
-            s.standards,
-            horizon_s=inputs["horizon_s"],
-            direction=s.direction,
-            demand_snap_m={d.name: d.snap_m for d in s.demand},
-            base_snap_m=float(s.bases.get("snap_m", 500.0)),
-        )
-
-    # -- questions ----------------------------------------------------------------------------------------------------
-    def close_edges(self, edge_ids: np.ndarray | list[int]) -> WhatIfOutcome:
-        """Coverage with the directed edges ``edge_ids`` closed (a two-way street has two edges)."""
-        ids = np.unique(np.asarray(edge_ids, dtype=np.int64))
-        bad = ids[(ids < 0) | (ids >= self.net.n_edges)]
-        if len(bad):
-            raise CoverkitError(f"edge {int(bad[0])} is not in the network (edge ids run 0..{self.net.n_edges - 1}).")
-        t = self.net.travel_s.copy()
-        t[ids] = np.inf
-        return self._evaluate(t, self.bases, _change_log(self.net, ids))
-
-    def close_ways(self, way_ids: list[int]) -> WhatIfOutcome:
-        """Coverage with every edge of the OSM ways ``way_ids`` closed (both directions)."""
-        closure = Closure(0, "way_ids", tuple(int(w) for w in way_ids))
-        return self.close_edges(closure_edges(self.net, closure, "what-if"))
-
-    def slow_edges(self, edge_ids: np.ndarray | list[int], factor: float) -> WhatIfOutcome:
-        """Coverage with the running time of ``edge_ids`` multiplied by ``factor`` (> 0)."""
-        if not (np.isfinite(factor) and factor > 0):
-            raise CoverkitError(f"slowdown factor must be a number > 0 (1.5 = 50 % slower), got {factor}.")
-        ids = np.unique(np.asarray(edge_ids, dtype=np.int64))
-        ids = ids[np.isfinite(self.net.travel_s[ids])]
-        t = slowed_travel_s(self.net, ids, factor)
-        return self._evaluate(t, self.bases, _change_log(self.net, [], ids, np.full(len(ids), factor)))
-
-    def change_base(
-        self,
-        action: str,
-        base_id: str,
-        lon: float | None = None,
-        lat: float | None = None,
-        units: int | None = None,
-        name: str | None = None,
-    ) -> WhatIfOutcome:
-        """Coverage after one base change: ``action`` is ``"add"`` / ``"move"`` (lon, lat in degrees), ``"remove"``
-        or ``"units"``."""
-        if action not in ("add", "remove", "move", "units"):
-            raise CoverkitError(f"base change '{action}' is not one of add, remove, move, units.")
-        if action in ("add", "move") and (lon is None or lat is None):
-            raise CoverkitError(f"base change '{action}' of '{base_id}' needs lon and lat (degrees, EPSG:4326).")
-        if action == "units" and (units is None or units < 0):
-            raise CoverkitError(f"base change 'units' of '{base_id}' needs units >= 0.")
-        change = BaseChange(0, action, str(base_id), lon, lat, units, name)
-        bases, rows = apply_base_changes(self.bases, [change], "what-if")
-        return self._evaluate(self.net.travel_s, bases, _change_log(self.net, [], base_rows=rows))
-
-    def run(self, scenario: Scenario) -> WhatIfOutcome:
-        """Coverage after a whole scenario (closures, slowdowns and base changes together)."""
-        t, closed, slowed, factors = scenario_travel_s(self.net, scenario)
-        bases, rows = apply_base_changes(self.bases, scenario.base_changes, str(scenario.path))
-        return self._evaluate(t, bases, _change_log(self.net, closed, slowed, factors, rows))
-
-    # -- the incremental recomputation ---------------------------------------------------------------------------------
-    def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
-        """Boolean per base: can the edge times ``travel_s`` change this base's searches? (see the class notes)"""
-        old = self.net.travel_s
-        new = np.asarray(travel_s, dtype=float)
-        changed = np.flatnonzero(old != new)
-        hit = np.zeros(len(self.bases), dtype=bool)
-        if len(changed) == 0:
-            return hit
-        u, v = self.net.u[changed], self.net.v[changed]
-        tail, head = (u, v) if self.direction == "out" else (v, u)
-        w = np.maximum(np.minimum(old[changed], new[changed]), MIN_EDGE_S)
-        # a base seated on a changed edge starts differently
-        hit[np.unique(self.base_snap.entry_point[np.isin(self.base_snap.entry_edge, changed)])] = True
-        chunk = max(1, CHUNK_CELLS // max(self.net.n_nodes, 1))
-        tol_s = 1e-7  # conservative: a near-tie counts as tight, so a base is searched again rather than skipped
-        for start in range(0, len(self.bases), chunk):
-            r = np.arange(start, min(start + chunk, len(self.bases)))
-            d = _dense_rows(self.node_t, r)
-            dt, dh = d[:, tail], np.minimum(d[:, head], self.horizon_s)
-            with np.errstate(invalid="ignore"):
-                tight = np.isfinite(dt) & (dt + w[None, :] <= dh + tol_s)
-            hit[r] |= tight.any(axis=1)
-        return hit
-
-    def _evaluate(self, travel_s: np.ndarray, bases_after: gpd.GeoDataFrame, log: ChangeLog) -> WhatIfOutcome:
-        old_t = self.net.travel_s
-        changed = np.flatnonzero(old_t != travel_s)
-        net2 = self.net.with_travel_s(travel_s) if len(changed) else self.net
-        reopened = bool(np.any(~np.isfinite(old_t[changed]) & np.isfinite(travel_s[changed])))
-        old_ids = self.bases["id"].astype(str).tolist()
-        new_ids = bases_after["id"].astype(str).tolist()
-        # a base keeps its stored searches only under the same id at the same place (a moved or re-added one not)
-        old_geom = self.bases.geometry.to_numpy()
-        new_geom = bases_after.to_crs(self.bases.crs).geometry.to_numpy()
-        old_pos = {
-            b: i
-            for i, b in enumerate(old_ids)
-            if b in new_ids and shapely.equals_exact(old_geom[i], new_geom[new_ids.index(b)], 0.0)
-        }
-        aff_old = self.affected_bases(travel_s)
-        base_snap2 = (
-            snap_points(net2, bases_after, max_snap_m=self.base_snap_m, off_network="raise", what="bases")
-            if len(changed) or new_ids != old_ids or len(old_pos) < len(old_ids)
-            else self.base_snap
-        )
-        search = np.array([b not in old_pos or bool(aff_old[old_pos[b]]) for b in new_ids], dtype=bool)
-        rows_new = np.flatnonzero(search)
-        # node times after: stored rows for untouched bases, a new search for the others
-        keep_src = np.array([old_pos.get(b, -1) for b in new_ids])
-        kept = np.flatnonzero(~search)
-        stored = self.node_t[keep_src[kept]].tocoo()
-        parts_r, parts_c, parts_t = [kept[stored.row]], [stored.col], [stored.data]
-        if len(rows_new):
-            note(f"what-if: searching again from {len(rows_new)} of {len(new_ids)} bases")
-            fresh = node_times(net2, base_snap2.subset(rows_new), self.horizon_s, self.direction).tocoo()
-            parts_r.append(rows_new[fresh.row])
-            parts_c.append(fresh.col)
-            parts_t.append(fresh.data)
-        node_t2 = sp.csr_matrix(
-            (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
-            shape=(len(new_ids), net2.n_nodes),
-        )
-        closed_now = np.zeros(net2.n_edges, dtype=bool)
-        closed_now[changed] = ~np.isfinite(travel_s[changed])
-        is_changed = np.zeros(net2.n_edges, dtype=bool)
-        is_changed[changed] = True
-        results, resnapped = {}, {}
-        for name, dem in self.demand.items():
-            old_snap = self.point_snap[name]
-            old_times = self.tables[name].times
-            if reopened:  # an opened road can become any point's nearest: snap every point again
-                resnap = np.arange(len(dem))
-            else:
-                resnap = np.unique(
-                    np.concatenate(
-                        [
-                            old_snap.entry_point[closed_now[old_snap.entry_edge]],
-                            _far_near_closed(net2, old_snap, dem.geometry.to_numpy(), closed_now),
-                        ]
-                    )
-                )
-            snap2 = old_snap
-            if len(resnap):
-                sub = snap_points(
-                    net2, dem.geometry.to_numpy()[resnap], ids=old_snap.ids[resnap],
-                    max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
-                    warn_islands=False, exclude_classes=demand_exclude_classes(dem),
-                )  # fmt: skip
-                snap2 = _merge_snap(old_snap, sub, resnap)
-            resnapped[name] = len(resnap)
-            cols = np.unique(np.concatenate([resnap, old_snap.entry_point[is_changed[old_snap.entry_edge]]]))
-            # stored times of untouched bases on untouched points; derived times for the rest
-            src = old_times[keep_src[kept]].tocoo()
-            ok = ~np.isin(src.col, cols)
-            r_parts, c_parts, t_parts = [kept[src.row[ok]]], [src.col[ok]], [src.data[ok]]
-            for rr, cc in ((rows_new, np.arange(len(dem))), (kept, cols)):
-                r, c, t = _times_from_nodes(net2, node_t2, base_snap2, rr, snap2, cc, self.horizon_s, self.direction)
-                r_parts.append(r)
-                c_parts.append(c)
-                t_parts.append(t)
-            times = sp.csr_matrix(
-                (np.concatenate(t_parts), (np.concatenate(r_parts), np.concatenate(c_parts))),
-                shape=(len(new_ids), len(dem)),
-            )
-            table = TravelTable(base_snap2, snap2, times, self.horizon_s, self.direction)
-            for s in self.standards:
-                results[(s.name, name)] = evaluate_coverage(net2, bases_after, dem, s, table=table)
-        identical = all(
-            np.array_equal(results[k].demand["travel_s"].to_numpy(), self.results[k].demand["travel_s"].to_numpy())
-            and (results[k].demand["first_base"] == self.results[k].demand["first_base"]).all()
-            for k in results
-        )
-        if identical and new_ids == old_ids:
-            if len(log.closed_edge_ids) and not len(rows_new):
-                tails = self.net.u[changed] if self.direction == "out" else self.net.v[changed]
-                reached = self.node_t[:, tails].nnz > 0
-                log.notes.append(
-                    "no base's shortest paths use the closed roads; coverage unchanged" if reached else NO_REACH_NOTE
-                )
-            else:
-                log.notes.append("coverage unchanged")
-        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new], resnapped)
-
-
-# -- a study compared before and after a scenario ---------------------------------------------------------------------
-def study_inputs(study_path: str | Path, cache_folder: str | Path | None = None) -> dict[str, Any]:
-    """The inputs of a study, loaded as :func:`coverkit.study.run_study` does: network (cached), bases, demand.
-
-    The network is reused from the study's own output folder when a valid cache is there (read only), otherwise
-    built and cached in ``cache_folder`` (default: the study's output folder).
-
-    Returns
-    -------
-    dict
-        ``study``, ``network``, ``bases``, ``demand`` (``{name: GeoDataFrame}``), ``kinds`` (``{name: kind}``),
-        ``horizon_s``.
-    """
-    from coverkit.demand import load_demand
-    from coverkit.study import cached_network, load_study
-    from coverkit.travel import read_points
-
-    study = load_study(study_path)
-    own = study.folder / study.outputs.get("folder", "results")
-    net = None
-    if (own / "network.gpkg").is_file():
-        try:
-            cand = RoadNetwork.load(own / "network.gpkg")
-            if cand.info.get("cache_key") == study.network_cache_key():
-                net = cand
-                note(f"network: inputs unchanged, reusing {own / 'network.gpkg'}")
-        except CoverkitError:
-            net = None
-    if net is None:
-        net, _, _ = cached_network(study, Path(cache_folder) if cache_folder else own)
-    bases = read_points(
-        study.bases["file"], net.crs, id_field=study.bases.get("id_field", "id"), what="bases",
-        layer=study.bases.get("layer"),
-    )  # fmt: skip
-    demand = {}
-    for spec in study.demand:
-        o = spec.options
-        demand[spec.name] = load_demand(
-            spec.path, net, where=o.get("where"), population_field=o.get("population_field"),
-            weight_field=o.get("weight_field"), id_field=o.get("id_field", "id"), time_field=o.get("time_field"),
-            start=o.get("start"), end=o.get("end"),
-        )  # fmt: skip
-    horizon_s = float(study.outputs.get("horizon_s") or max(default_horizon_s(s) for s in study.standards))
-    return {
-        "study": study,
-        "network": net,
-        "bases": bases,
-        "demand": demand,
-        "kinds": {spec.name: spec.kind for spec in study.demand},
-        "horizon_s": horizon_s,
-    }
-
-
-@dataclass
-class CompareRun:
-    """The outcome of :func:`compare_study`.
-
-    Attributes
-    ----------
-    study, scenario
-        The study and the scenario compared.
-    network_before, network_after, bases_before, bases_after
-        Inputs before and after.
-    changes
-        The :class:`ChangeLog`.
-    comparisons
-        ``{(standard name, demand name): Comparison}``.
-    areas
-        ``{standard name: ChangedAreas}`` for the residents demand layer (the first layer if none is residents).
-    before, after
-        ``{(standard name, demand name): CoverageResult}``.
-    summary
-        DataFrame, one row per standard x demand: covered share and fractile response before/after, lost and
-        gained demand.
-    outputs
-        Paths written: ``layers`` (GeoPackage) and ``table`` (CSV).
-    """
-
-    study: Any
-    scenario: Scenario
-    network_before: RoadNetwork
-    network_after: RoadNetwork
-    bases_before: gpd.GeoDataFrame
-    bases_after: gpd.GeoDataFrame
-    changes: ChangeLog
-    comparisons: dict
-    areas: dict
-    before: dict
-    after: dict
-    summary: pd.DataFrame
-    outputs: dict[str, Path]
-
-    def lines(self) -> list[str]:
-        """Headline lines: the changes, then each standard x demand before/after."""
-        from coverkit import CAUTION
-
-        out = [f"{self.scenario.name} vs {self.study.name}", *self.changes.lines()]
-        kinds = {d.name: d.kind for d in self.study.demand}
-        for (_std, dem), comp in self.comparisons.items():
-            unit = "people" if kinds.get(dem) == "residents" else "calls"
-            out.extend(f"[{dem}] {line}" for line in comp.lines(unit))
-        return [*out, CAUTION]
-
-
-def compare_study(
-    study_path: str | Path,
-    scenario_path: str | Path,
-    out_folder: str | Path,
-    cell_m: float | None = None,
-    reach_m: float | None = None,
-) -> CompareRun:
-    """Run a study's coverage before and after a scenario, compare, and write layers and a table.
-
-    Writes ``compare.gpkg`` (layers ``bases_before``, ``bases_after``, ``closed_roads``, ``slowed_roads``,
-    ``comparison``, ``about`` and per standard ``points_<demand>_<standard>``, ``base_changes_<demand>_<standard>``,
-    ``changed_areas_<standard>``, ``gaps_before_<standard>``, ``gaps_after_<standard>``) and ``comparison.csv``
-    into ``out_folder``, atomically. The report is not written here.
-    """
-    from coverkit import CAUTION
-    from coverkit.atomic import write_gpkg_layers, write_text_atomic
-    from coverkit.progress import Steps
-    from coverkit.study import slug
-
-    out = Path(out_folder)
-    out.mkdir(parents=True, exist_ok=True)
-    steps = Steps(5, "compare")
-    steps.step("study inputs")
-    scenario = load_scenario(scenario_path)
-    inputs = study_inputs(study_path, cache_folder=out)
-    study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
-    kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]
-    steps.step("applying the scenario")
-    net2, bases2, log = apply_scenario(net, bases, scenario)
-    snap_of = {d.name: d.snap_m for d in study.demand}
-    base_snap_m = float(study.bases.get("snap_m", 500.0))
-    steps.step("coverage before and after")
-    before, after = {}, {}
-    for name, dem in demand.items():
-        tb = travel_table(net, bases, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
-        ta = travel_table(net2, bases2, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
-        for s in study.standards:
-            before[(s.name, name)] = evaluate_coverage(net, bases, dem, s, table=tb)
-            after[(s.name, name)] = evaluate_coverage(net2, bases2, dem, s, table=ta)
-    comparisons = {k: compare_results(before[k], after[k]) for k in before}
-    if all(c.unchanged for c in comparisons.values()) and not len(log.base_changes):
-        log.notes.append("coverage unchanged: no travel time to any demand point changed")
-    steps.step("changed areas")
-    residents = next((n for n, k in kinds.items() if k == "residents"), next(iter(demand)))
-    incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
-    opts = study.outputs
-    cell = float(cell_m or opts.get("grid_cell_m", 100.0))
-    reach = float(reach_m or float(opts.get("reach_m", 150.0)) + 50.0)
-    areas = {}
-    gb = ga = None
-    for s in study.standards:
-        ca = changed_areas(
-            net, net2, before[(s.name, residents)], after[(s.name, residents)],
-            incidents=demand[incidents] if incidents else None, cell_m=cell, reach_m=reach, grid_before=gb,
-            grid_after=ga,
-        )  # fmt: skip
-        gb, ga = ca.before.grid, ca.after.grid
-        areas[s.name] = ca
-    rows = []
-    for (std, dem), comp in comparisons.items():
-        b, a = comp.before, comp.after
-        rows.append(
-            {
-                "scenario": scenario.name,
-                "standard": std,
-                "demand": dem,
-                "kind": kinds[dem],
-                "demand_total": b["demand_total"],
-                "covered_before": b["covered"],
-                "covered_after": a["covered"],
-                "covered_share_before": b["covered_share"],
-                "covered_share_after": a["covered_share"],
-                "fractile": b["fractile"],
-                "fractile_response_s_before": b["fractile_response_s"],
-                "fractile_response_s_after": a["fractile_response_s"],
-                "lost_weight": comp.lost_weight,
-                "lost_points": comp.lost_points,
-                "gained_weight": comp.gained_weight,
-                "gained_points": comp.gained_points,
-            }
-        )
-    summary = pd.DataFrame(rows)
-    steps.step("writing layers and table")
-    about = pd.DataFrame(
-        {
-            "key": ["study", "scenario", "description", "caution", *[f"change_{i}" for i in range(len(log.lines()))]],
-            "value": [study.name, scenario.name, scenario.description, CAUTION, *log.lines()],
-        }
-    )
-    layers: dict[str, Any] = {
-        "bases_before": bases,
-        "bases_after": bases2,
-        "closed_roads": log.closed,
-        "slowed_roads": log.slowed,
-        "comparison": summary,
-        "about": about,
-    }
-    for (std, dem), comp in comparisons.items():
-        layers[f"points_{slug(dem)}_{slug(std)}"] = comp.points
-        layers[f"base_changes_{slug(dem)}_{slug(std)}"] = comp.bases
-    for std, ca in areas.items():
-        layers[f"changed_areas_{slug(std)}"] = ca.polygons
-        layers[f"gaps_before_{slug(std)}"] = ca.before.gaps
-        layers[f"gaps_after_{slug(std)}"] = ca.after.gaps
-    outputs = {
-        "layers": write_gpkg_layers(out / "compare.gpkg", layers),
-        "table": write_text_atomic(out / "comparison.csv", summary.to_csv(index=False)),
-    }
-    return CompareRun(
-        study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, outputs
-    )
-
-
 __all__ = [
     "CHANGE_KINDS",
-    "NO_REACH_NOTE",
     "BaseChange",
     "ChangeLog",
     "ChangedAreas",
     "Closure",
-    "CompareRun",
     "Comparison",
     "Scenario",
     "Slowdown",
-    "WhatIf",
-    "WhatIfOutcome",
     "apply_base_changes",
     "apply_scenario",
+    "change_log",
     "changed_areas",
     "closure_edges",
     "compare_results",
-    "compare_study",
     "load_scenario",
     "scenario_travel_s",
     "slowdown_edges",
     "slowed_travel_s",
-    "study_inputs",
 ]

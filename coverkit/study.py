@@ -9,19 +9,19 @@ from __future__ import annotations
 
 import hashlib
 import json
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from coverkit import __version__
-from coverkit.coverage import Standard
+from coverkit.coverage import Standard, default_horizon_s
 from coverkit.errors import StudyError
+from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
 
 # -- schema -----------------------------------------------------------------------------------------------------------
 # key -> (type(s), required). Types are Python types accepted after TOML parsing.
 _NUM = (int, float)
-SCHEMA: dict[str, dict[str, tuple[tuple[type, ...] | type, bool]]] = {
+SCHEMA: dict[str, Schema] = {
     "study": {"name": (str, True), "direction": (str, False), "description": (str, False)},
     "roads": {
         "source": (str, True),
@@ -152,6 +152,11 @@ class Study:
     def folder(self) -> Path:
         return self.path.parent
 
+    @property
+    def horizon_s(self) -> float:
+        """Search bound (s): ``outputs.horizon_s``, else the default for the longest standard."""
+        return float(self.outputs.get("horizon_s") or max(default_horizon_s(s) for s in self.standards))
+
     def network_cache_key(self) -> str:
         """Digest of everything the network build depends on."""
         from coverkit.network.build import file_digest
@@ -166,26 +171,6 @@ class Study:
         rest = {k: v for k, v in self.roads.items() if k not in ("source", "boundary", "profile")}
         h.update(json.dumps(rest, sort_keys=True, default=str).encode())
         return h.hexdigest()
-
-
-def _check_table(table: Any, section: str, where: str) -> None:
-    if not isinstance(table, dict):
-        raise StudyError(f"{where}: [{section}] must be a table of keys.")
-    schema = SCHEMA[section]
-    for key, value in table.items():
-        if key not in schema:
-            raise StudyError(
-                f"{where}: unknown key '{section}.{key}'; allowed keys in [{section}]: {', '.join(schema)}."
-            )
-        types, _ = schema[key]
-        if isinstance(value, bool) and bool not in (types if isinstance(types, tuple) else (types,)):
-            raise StudyError(f"{where}: key '{section}.{key}' has the wrong type (got true/false).")
-        if not isinstance(value, types):
-            want = "/".join(t.__name__ for t in (types if isinstance(types, tuple) else (types,)))
-            raise StudyError(f"{where}: key '{section}.{key}' must be {want}, got {type(value).__name__} {value!r}.")
-    for key, (_, required) in schema.items():
-        if required and key not in table:
-            raise StudyError(f"{where}: [{section}] is missing the required key '{key}'.")
 
 
 def _file(folder: Path, value: str, key: str, where: str) -> Path:
@@ -203,19 +188,9 @@ def load_study(path: str | Path) -> Study:
     StudyError
         Syntax error, unknown section or key, wrong type, missing required key or file (one line naming it).
     """
-    path = Path(path).resolve()
+    path, raw = read_toml(path, "study", "give a .toml study file (see examples/).")
     where = str(path)
-    if not path.is_file():
-        raise StudyError(f"study file {path} not found; give a .toml study file (see examples/).")
-    try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise StudyError(f"{where}: not valid TOML ({exc}); fix the syntax.") from None
-    except UnicodeDecodeError:
-        raise StudyError(f"{where}: not a UTF-8 text file; save the study as UTF-8 TOML.") from None
-    for section in raw:
-        if section not in SCHEMA:
-            raise StudyError(f"{where}: unknown section [{section}]; sections are {', '.join(SCHEMA)}.")
+    check_sections(raw, SCHEMA, where)
     for section in REQUIRED_SECTIONS:
         if section not in raw:
             raise StudyError(
@@ -228,9 +203,9 @@ def load_study(path: str | Path) -> Study:
             if not isinstance(table, list) or not table:
                 raise StudyError(f"{where}: [[{section}]] must be one or more tables (write [[{section}]]).")
             for item in table:
-                _check_table(item, section, where)
+                check_table(item, SCHEMA[section], section, where, f"[{section}]")
         else:
-            _check_table(table, section, where)
+            check_table(table, SCHEMA[section], section, where, f"[{section}]")
     folder = path.parent
     roads = dict(raw["roads"])
     roads["source"] = str(_file(folder, roads["source"], "roads.source", where))
@@ -421,40 +396,18 @@ def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
     return net, text, False
 
 
-def run_study(study: Study | str | Path, out: str | Path | None = None) -> StudyRun:
-    """Run a whole study: network, bases, demand, drive-time polygons, surface, coverage per standard, report.
+def load_inputs(study: Study, net: Any) -> tuple[Any, dict[str, Any], dict[str, str], dict[str, float]]:
+    """The bases and demand layers of a study, projected to the network's CRS.
 
-    Every output is written atomically into ``out`` (default: ``outputs.folder`` of the study, relative to the
-    study file, else ``results``).
+    Returns
+    -------
+    bases, demand, kinds, snaps
+        Bases GeoDataFrame; ``{name: demand GeoDataFrame}``, ``{name: kind}`` (``residents`` / ``incidents``) and
+        ``{name: snap limit (m)}`` per ``[[demand]]`` entry, in file order.
     """
-    import pandas as pd
-
-    from coverkit.atomic import write_gpkg_layers, write_text_atomic
-    from coverkit.coverage import (
-        area_layers,
-        compliance_by,
-        compliance_by_zone,
-        default_horizon_s,
-        evaluate_coverage,
-        per_base,
-        travel_table,
-    )
     from coverkit.demand import load_demand
-    from coverkit.isochrones import drive_time_polygons, write_travel_surface
-    from coverkit.progress import Steps
     from coverkit.travel import read_points
 
-    if not isinstance(study, Study):
-        study = load_study(study)
-    folder = Path(out) if out else study.folder / study.outputs.get("folder", "results")
-    folder.mkdir(parents=True, exist_ok=True)
-    opts = study.outputs
-    steps = Steps(6, "study")
-
-    steps.step("road network")
-    net, build_text, reused = cached_network(study, folder)
-
-    steps.step("bases and demand")
     bases = read_points(
         study.bases["file"],
         net.crs,
@@ -478,6 +431,42 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         )
     kinds = {spec.name: spec.kind for spec in study.demand}
     snaps = {spec.name: spec.snap_m for spec in study.demand}
+    return bases, demand, kinds, snaps
+
+
+def run_study(study: Study | str | Path, out: str | Path | None = None) -> StudyRun:
+    """Run a whole study: network, bases, demand, drive-time polygons, surface, coverage per standard, report.
+
+    Every output is written atomically into ``out`` (default: ``outputs.folder`` of the study, relative to the
+    study file, else ``results``).
+    """
+    import pandas as pd
+
+    from coverkit.atomic import write_gpkg_layers, write_text_atomic
+    from coverkit.coverage import (
+        area_layers,
+        compliance_by,
+        compliance_by_zone,
+        evaluate_coverage,
+        per_base,
+        travel_table,
+    )
+    from coverkit.isochrones import drive_time_polygons, write_travel_surface
+    from coverkit.progress import Steps
+    from coverkit.travel import read_points
+
+    if not isinstance(study, Study):
+        study = load_study(study)
+    folder = Path(out) if out else study.folder / study.outputs.get("folder", "results")
+    folder.mkdir(parents=True, exist_ok=True)
+    opts = study.outputs
+    steps = Steps(6, "study")
+
+    steps.step("road network")
+    net, build_text, reused = cached_network(study, folder)
+
+    steps.step("bases and demand")
+    bases, demand, kinds, snaps = load_inputs(study, net)
     residents = next((n for n, k in kinds.items() if k == "residents"), study.demand[0].name)
     incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
 
@@ -518,7 +507,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     runs: list[StandardRun] = []
     rows = []
     # one search per demand layer serves every standard: the horizon covers the longest standard
-    horizon_s = float(opts.get("horizon_s") or max(default_horizon_s(s) for s in study.standards))
+    horizon_s = study.horizon_s
     base_snap_m = float(study.bases.get("snap_m", 500.0))
     tables = {
         name: travel_table(net, bases, dem, horizon_s, snaps[name], base_snap_m, study.direction)

@@ -21,23 +21,22 @@ import pytest
 import shapely
 from scipy.sparse.csgraph import connected_components
 
+from coverkit.compare_run import compare_study
 from coverkit.coverage import Standard, evaluate_coverage, travel_table
 from coverkit.errors import CoverkitError, StudyError
 from coverkit.network import RoadNetwork, build_network
 from coverkit.network.model import grid_network
 from coverkit.scenario import (
     CHANGE_KINDS,
-    NO_REACH_NOTE,
-    WhatIf,
     apply_scenario,
     changed_areas,
     compare_results,
-    compare_study,
     load_scenario,
 )
 from coverkit.study import load_study
 from coverkit.travel import read_points, snap_points
 from coverkit.travel.search import seeds
+from coverkit.whatif import NO_REACH_NOTE, WhatIf
 
 from .conftest import DEMO
 

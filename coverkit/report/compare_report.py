@@ -1,4 +1,4 @@
-"""Maps and the HTML report of a scenario comparison (:func:`coverkit.scenario.compare_study`).
+"""Maps and the HTML report of a scenario comparison (:func:`coverkit.compare_run.compare_study`).
 
 Draws and tabulates what the comparison computed: the changes applied, coverage before and after, who loses and
 gains coverage, per-base changes, and a diverging difference map of the areas whose coverage changed.
@@ -17,7 +17,7 @@ from coverkit.report.html import HtmlReport
 from coverkit.report.maps import difference_map, gaps_map
 
 if TYPE_CHECKING:
-    from coverkit.scenario import CompareRun
+    from coverkit.compare_run import CompareRun
 
 
 def _minutes(seconds: float) -> str:

@@ -77,6 +77,44 @@ def read_points(
     return gdf.to_crs(CRS.from_user_input(crs)).reset_index(drop=True)
 
 
+def lonlat_columns(df: pd.DataFrame, path: Path, give: str = "degrees") -> tuple[np.ndarray, np.ndarray]:
+    """The ``lon`` and ``lat`` text columns of a CSV read as strings, as float degrees (EPSG:4326).
+
+    Parameters
+    ----------
+    df
+        The CSV as read with ``dtype=str``; row ``i`` is line ``i + 2`` of the file (the header is line 1).
+    path
+        The file, for messages.
+    give
+        What the user should give, for messages (``"degrees"``, ``"the incident position in degrees"``).
+
+    Raises
+    ------
+    FieldError
+        One line naming the file, the line and the column: a value that is not a number, or one outside
+        -180..180 (lon) / -90..90 (lat).
+    """
+    coords = {}
+    for col, bound in (("lon", 180.0), ("lat", 90.0)):
+        val = pd.to_numeric(df[col].str.strip(), errors="coerce").to_numpy(dtype=float)
+        bad = ~np.isfinite(val)
+        if bad.any():
+            row = int(np.flatnonzero(bad)[0])
+            raise FieldError(
+                f"{path}: line {row + 2} has {col} '{df[col].iloc[row]}', not a number; give {give} (EPSG:4326)."
+            )
+        out = np.abs(val) > bound
+        if out.any():
+            row = int(np.flatnonzero(out)[0])
+            raise FieldError(
+                f"{path}: line {row + 2} has {col} {val[row]:g}, outside -{bound:g}..{bound:g}; "
+                f"give {give} (EPSG:4326) and check that lon and lat are not swapped."
+            )
+        coords[col] = val
+    return coords["lon"], coords["lat"]
+
+
 def _row_label(path: Path, row: int) -> str:
     """Human row number: the CSV line (header is line 1), or the 1-based feature number."""
     return f"{row + 2} (line)" if path.suffix.lower() in _CSV_SUFFIXES else str(row + 1)
@@ -100,23 +138,7 @@ def _read_csv(path: Path, id_field: str, what: str) -> gpd.GeoDataFrame:
             f"{path} has no column '{missing[0]}' (columns: {', '.join(df.columns)}); "
             f"a {what} CSV needs {id_field}, lon, lat (degrees, EPSG:4326)."
         )
-    coords = {}
-    for col, bound in (("lon", 180.0), ("lat", 90.0)):
-        val = pd.to_numeric(df[col].str.strip(), errors="coerce").to_numpy(dtype=float)
-        bad = ~np.isfinite(val)
-        if bad.any():
-            row = int(np.flatnonzero(bad)[0])
-            raise FieldError(
-                f"{path}: line {row + 2} has {col} '{df[col].iloc[row]}', not a number; give degrees (EPSG:4326)."
-            )
-        out = np.abs(val) > bound
-        if out.any():
-            row = int(np.flatnonzero(out)[0])
-            raise FieldError(
-                f"{path}: line {row + 2} has {col} {val[row]:g}, outside -{bound:g}..{bound:g}; "
-                "give degrees (EPSG:4326) and check that lon and lat are not swapped."
-            )
-        coords[col] = val
+    lon, lat = lonlat_columns(df, path)
     for col in ("units",):
         if col in df.columns:
             units = pd.to_numeric(df[col].replace("", "1"), errors="coerce")
@@ -125,7 +147,7 @@ def _read_csv(path: Path, id_field: str, what: str) -> gpd.GeoDataFrame:
                 raise FieldError(f"{path}: line {row + 2} has units '{df[col].iloc[row]}'; give a whole number >= 0.")
             df[col] = units.astype(int)
     df = df.drop(columns=["lon", "lat"])
-    return gpd.GeoDataFrame(df, geometry=gpd.points_from_xy(coords["lon"], coords["lat"]), crs="EPSG:4326")
+    return gpd.GeoDataFrame(df, geometry=gpd.points_from_xy(lon, lat), crs="EPSG:4326")
 
 
 def _read_layer(path: Path, id_field: str, what: str, layer: str | None) -> gpd.GeoDataFrame:

@@ -22,7 +22,7 @@ import scipy.sparse as sp
 from scipy.sparse.csgraph import dijkstra
 
 from coverkit.network.model import RoadNetwork
-from coverkit.travel.search import CHUNK_CELLS, _augmented, exits, graph, run_s, seeds
+from coverkit.travel.search import CHUNK_CELLS, augmented_graph, exits, graph, run_s, seeds
 from coverkit.travel.snap import Snapped
 
 
@@ -148,7 +148,7 @@ def shortest_routes(
         local = np.full(len(sources), -1, dtype=np.int64)
         local[src] = np.arange(len(src))
         sel = local[s_pt] >= 0
-        aug = _augmented(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src))
+        aug = augmented_graph(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src))
         dist, pred = dijkstra(aug, directed=True, indices=n + np.arange(len(src)), return_predecessors=True)
 
         pairs = np.flatnonzero(usable & (local[source_index] >= 0))

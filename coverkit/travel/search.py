@@ -112,7 +112,7 @@ def node_times(
         Shape (n_sources, n_nodes), stored entries = times (s).
     """
     parts = [
-        (src_idx, _dense_to_csr(dist, limit_s))
+        (src_idx, dense_to_csr(dist, limit_s))
         for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes)
     ]
     return _assemble(parts, (len(sources), net.n_nodes))
@@ -156,8 +156,8 @@ def point_times(
         block = np.full((len(src_idx), n_t), np.inf)
         if len(t_pt):
             block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
-        _same_edge_min(net, sources, targets, src_idx, block, direction)
-        parts.append((src_idx, _dense_to_csr(block, limit_s)))
+        same_edge_min(net, sources, targets, src_idx, block, direction)
+        parts.append((src_idx, dense_to_csr(block, limit_s)))
     return _assemble(parts, (len(sources), n_t))
 
 
@@ -177,7 +177,7 @@ def nearest_node_times(
     s_pt, s_node, s_t = seeds(net, sources, direction)
     if len(s_pt) == 0:
         return np.full(n, np.inf), np.full(n, -1, dtype=np.int64)
-    aug = _augmented(graph(net, direction), s_pt, s_node, s_t, len(sources))
+    aug = augmented_graph(graph(net, direction), s_pt, s_node, s_t, len(sources))
     dist, _, src = dijkstra(
         aug,
         directed=True,
@@ -238,7 +238,7 @@ def count_within(times: sp.csr_matrix, within_s: float) -> np.ndarray:
     return np.bincount(coo.col[coo.data <= within_s], minlength=times.shape[1]).astype(np.int64)
 
 
-# -- internals --------------------------------------------------------------------------------------------------------
+# -- building blocks (also used by coverkit.travel.routes and coverkit.whatif) and internals --------------------------
 def _group_min(dist: np.ndarray, node: np.ndarray, add: np.ndarray, starts: np.ndarray) -> np.ndarray:
     """Per group of entries (groups start at ``starts``): min over entries of ``dist[:, node] + add``.
 
@@ -263,7 +263,7 @@ def _check_direction(direction: str) -> None:
         raise ValueError(f"direction must be 'out' or 'in', not {direction!r}")
 
 
-def _augmented(g: sp.csr_matrix, pt: np.ndarray, node: np.ndarray, t: np.ndarray, n_virtual: int) -> sp.csr_matrix:
+def augmented_graph(g: sp.csr_matrix, pt: np.ndarray, node: np.ndarray, t: np.ndarray, n_virtual: int) -> sp.csr_matrix:
     """``g`` plus ``n_virtual`` virtual nodes; virtual node ``n + i`` has arcs to ``node`` with weights ``t``."""
     n = g.shape[0]
     # keep the smallest weight per (virtual, node): csr construction would otherwise hold duplicates
@@ -295,12 +295,19 @@ def _chunked_search(net, sources, limit_s, direction, chunk_size, width):
         local = np.full(len(sources), -1, dtype=np.int64)
         local[src_idx] = np.arange(len(src_idx))
         sel = local[s_pt] >= 0
-        aug = _augmented(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src_idx))
+        aug = augmented_graph(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src_idx))
         dist = dijkstra(aug, directed=True, indices=n + np.arange(len(src_idx)), limit=limit_s)
         yield src_idx, dist[:, :n]
 
 
-def _same_edge_min(net, sources, targets, src_idx, block, direction) -> None:
+def same_edge_min(
+    net: RoadNetwork,
+    sources: Snapped,
+    targets: Snapped,
+    src_idx: np.ndarray,
+    block: np.ndarray,
+    direction: str,
+) -> None:
     """Lower ``block`` (chunk, n_targets) with the direct trip along an edge shared by source and target."""
     local = np.full(len(sources), -1, dtype=np.int64)
     local[src_idx] = np.arange(len(src_idx))
@@ -326,7 +333,7 @@ def _same_edge_min(net, sources, targets, src_idx, block, direction) -> None:
     np.minimum.at(block, (s_loc[si[ok]], t_pt[tj[ok]]), t)
 
 
-def _dense_to_csr(dist: np.ndarray, limit_s: float) -> sp.csr_matrix:
+def dense_to_csr(dist: np.ndarray, limit_s: float) -> sp.csr_matrix:
     """CSR of the entries of ``dist`` that are <= ``limit_s`` (explicit zeros kept)."""
     mask = dist <= limit_s
     counts = mask.sum(axis=1)

@@ -1,0 +1,251 @@
+"""A study compared before and after a scenario, and the what-if base state of a study file.
+
+Study-level orchestration on top of :mod:`coverkit.scenario` (scenario files, applying them, comparing coverage)
+and :mod:`coverkit.study` (study files, their inputs and network cache): :func:`compare_study` runs a study's
+coverage before and after a scenario and writes the layers and a table; :func:`whatif_from_study` builds a
+:class:`coverkit.whatif.WhatIf` from a study file.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import pandas as pd
+
+from coverkit import CAUTION
+from coverkit.atomic import write_gpkg_layers, write_text_atomic
+from coverkit.coverage import evaluate_coverage, travel_table
+from coverkit.errors import CoverkitError
+from coverkit.network.model import RoadNetwork
+from coverkit.progress import Steps, note
+from coverkit.scenario import (
+    ChangeLog,
+    Scenario,
+    apply_scenario,
+    changed_areas,
+    compare_results,
+    load_scenario,
+)
+from coverkit.study import Study, cached_network, load_inputs, load_study, slug
+from coverkit.whatif import WhatIf
+
+
+def _study_network(study: Study, cache_folder: str | Path | None) -> RoadNetwork:
+    """The study's network: its own output folder's cache when valid (read only), else built and cached."""
+    own = study.folder / study.outputs.get("folder", "results")
+    if (own / "network.gpkg").is_file():
+        try:
+            cand = RoadNetwork.load(own / "network.gpkg")
+            if cand.info.get("cache_key") == study.network_cache_key():
+                note(f"network: inputs unchanged, reusing {own / 'network.gpkg'}")
+                return cand
+        except CoverkitError:
+            pass
+    net, _, _ = cached_network(study, Path(cache_folder) if cache_folder else own)
+    return net
+
+
+def study_inputs(study_path: str | Path, cache_folder: str | Path | None = None) -> dict[str, Any]:
+    """The inputs of a study, loaded as :func:`coverkit.study.run_study` does: network (cached), bases, demand.
+
+    The network is reused from the study's own output folder when a valid cache is there (read only), otherwise
+    built and cached in ``cache_folder`` (default: the study's output folder). Bases and demand come from
+    :func:`coverkit.study.load_inputs`, the loader :func:`coverkit.study.run_study` uses.
+
+    Returns
+    -------
+    dict
+        ``study``, ``network``, ``bases``, ``demand`` (``{name: GeoDataFrame}``), ``kinds`` (``{name: kind}``),
+        ``snaps`` (``{name: snap limit m}``), ``horizon_s``.
+    """
+    study = load_study(study_path)
+    net = _study_network(study, cache_folder)
+    bases, demand, kinds, snaps = load_inputs(study, net)
+    return {
+        "study": study,
+        "network": net,
+        "bases": bases,
+        "demand": demand,
+        "kinds": kinds,
+        "snaps": snaps,
+        "horizon_s": study.horizon_s,
+    }
+
+
+def whatif_from_study(study_path: str | Path, cache_folder: str | Path | None = None) -> WhatIf:
+    """The what-if base state of a study file: its network (cached), bases, demand layers and standards."""
+    inputs = study_inputs(study_path, cache_folder)
+    s = inputs["study"]
+    return WhatIf(
+        inputs["network"],
+        inputs["bases"],
+        inputs["demand"],
+        s.standards,
+        horizon_s=inputs["horizon_s"],
+        direction=s.direction,
+        demand_snap_m=inputs["snaps"],
+        base_snap_m=float(s.bases.get("snap_m", 500.0)),
+    )
+
+
+@dataclass
+class CompareRun:
+    """The outcome of :func:`compare_study`.
+
+    Attributes
+    ----------
+    study, scenario
+        The study and the scenario compared.
+    network_before, network_after, bases_before, bases_after
+        Inputs before and after.
+    changes
+        The :class:`coverkit.scenario.ChangeLog`.
+    comparisons
+        ``{(standard name, demand name): Comparison}``.
+    areas
+        ``{standard name: ChangedAreas}`` for the residents demand layer (the first layer if none is residents).
+    before, after
+        ``{(standard name, demand name): CoverageResult}``.
+    summary
+        DataFrame, one row per standard x demand: covered share and fractile response before/after, lost and
+        gained demand.
+    outputs
+        Paths written: ``layers`` (GeoPackage) and ``table`` (CSV).
+    """
+
+    study: Study
+    scenario: Scenario
+    network_before: RoadNetwork
+    network_after: RoadNetwork
+    bases_before: gpd.GeoDataFrame
+    bases_after: gpd.GeoDataFrame
+    changes: ChangeLog
+    comparisons: dict
+    areas: dict
+    before: dict
+    after: dict
+    summary: pd.DataFrame
+    outputs: dict[str, Path]
+
+    def lines(self) -> list[str]:
+        """Headline lines: the changes, then each standard x demand before/after."""
+        out = [f"{self.scenario.name} vs {self.study.name}", *self.changes.lines()]
+        kinds = {d.name: d.kind for d in self.study.demand}
+        for (_std, dem), comp in self.comparisons.items():
+            unit = "people" if kinds.get(dem) == "residents" else "calls"
+            out.extend(f"[{dem}] {line}" for line in comp.lines(unit))
+        return [*out, CAUTION]
+
+
+def compare_study(
+    study_path: str | Path,
+    scenario_path: str | Path,
+    out_folder: str | Path,
+    cell_m: float | None = None,
+    reach_m: float | None = None,
+) -> CompareRun:
+    """Run a study's coverage before and after a scenario, compare, and write layers and a table.
+
+    Writes ``compare.gpkg`` (layers ``bases_before``, ``bases_after``, ``closed_roads``, ``slowed_roads``,
+    ``comparison``, ``about`` and per standard ``points_<demand>_<standard>``, ``base_changes_<demand>_<standard>``,
+    ``changed_areas_<standard>``, ``gaps_before_<standard>``, ``gaps_after_<standard>``) and ``comparison.csv``
+    into ``out_folder``, atomically. The report is not written here.
+    """
+    out = Path(out_folder)
+    out.mkdir(parents=True, exist_ok=True)
+    steps = Steps(5, "compare")
+    steps.step("study inputs")
+    scenario = load_scenario(scenario_path)
+    inputs = study_inputs(study_path, cache_folder=out)
+    study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
+    kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]
+    steps.step("applying the scenario")
+    net2, bases2, log = apply_scenario(net, bases, scenario)
+    snap_of = inputs["snaps"]
+    base_snap_m = float(study.bases.get("snap_m", 500.0))
+    steps.step("coverage before and after")
+    before, after = {}, {}
+    for name, dem in demand.items():
+        tb = travel_table(net, bases, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
+        ta = travel_table(net2, bases2, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
+        for s in study.standards:
+            before[(s.name, name)] = evaluate_coverage(net, bases, dem, s, table=tb)
+            after[(s.name, name)] = evaluate_coverage(net2, bases2, dem, s, table=ta)
+    comparisons = {k: compare_results(before[k], after[k]) for k in before}
+    if all(c.unchanged for c in comparisons.values()) and not len(log.base_changes):
+        log.notes.append("coverage unchanged: no travel time to any demand point changed")
+    steps.step("changed areas")
+    residents = next((n for n, k in kinds.items() if k == "residents"), next(iter(demand)))
+    incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
+    opts = study.outputs
+    cell = float(cell_m or opts.get("grid_cell_m", 100.0))
+    reach = float(reach_m or float(opts.get("reach_m", 150.0)) + 50.0)
+    areas = {}
+    gb = ga = None
+    for s in study.standards:
+        ca = changed_areas(
+            net, net2, before[(s.name, residents)], after[(s.name, residents)],
+            incidents=demand[incidents] if incidents else None, cell_m=cell, reach_m=reach, grid_before=gb,
+            grid_after=ga,
+        )  # fmt: skip
+        gb, ga = ca.before.grid, ca.after.grid
+        areas[s.name] = ca
+    rows = []
+    for (std, dem), comp in comparisons.items():
+        b, a = comp.before, comp.after
+        rows.append(
+            {
+                "scenario": scenario.name,
+                "standard": std,
+                "demand": dem,
+                "kind": kinds[dem],
+                "demand_total": b["demand_total"],
+                "covered_before": b["covered"],
+                "covered_after": a["covered"],
+                "covered_share_before": b["covered_share"],
+                "covered_share_after": a["covered_share"],
+                "fractile": b["fractile"],
+                "fractile_response_s_before": b["fractile_response_s"],
+                "fractile_response_s_after": a["fractile_response_s"],
+                "lost_weight": comp.lost_weight,
+                "lost_points": comp.lost_points,
+                "gained_weight": comp.gained_weight,
+                "gained_points": comp.gained_points,
+            }
+        )
+    summary = pd.DataFrame(rows)
+    steps.step("writing layers and table")
+    about = pd.DataFrame(
+        {
+            "key": ["study", "scenario", "description", "caution", *[f"change_{i}" for i in range(len(log.lines()))]],
+            "value": [study.name, scenario.name, scenario.description, CAUTION, *log.lines()],
+        }
+    )
+    layers: dict[str, Any] = {
+        "bases_before": bases,
+        "bases_after": bases2,
+        "closed_roads": log.closed,
+        "slowed_roads": log.slowed,
+        "comparison": summary,
+        "about": about,
+    }
+    for (std, dem), comp in comparisons.items():
+        layers[f"points_{slug(dem)}_{slug(std)}"] = comp.points
+        layers[f"base_changes_{slug(dem)}_{slug(std)}"] = comp.bases
+    for std, ca in areas.items():
+        layers[f"changed_areas_{slug(std)}"] = ca.polygons
+        layers[f"gaps_before_{slug(std)}"] = ca.before.gaps
+        layers[f"gaps_after_{slug(std)}"] = ca.after.gaps
+    outputs = {
+        "layers": write_gpkg_layers(out / "compare.gpkg", layers),
+        "table": write_text_atomic(out / "comparison.csv", summary.to_csv(index=False)),
+    }
+    return CompareRun(
+        study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, outputs
+    )
+
+
+__all__ = ["CompareRun", "compare_study", "study_inputs", "whatif_from_study"]

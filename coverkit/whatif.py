@@ -1,0 +1,419 @@
+"""Quick what-if: a computed base study that answers closures, slowdowns and base changes incrementally.
+
+:class:`WhatIf` keeps a computed base study and answers a closure or a base change by searching again only from the
+bases whose shortest-path trees the change can alter; :class:`WhatIfOutcome` holds the answer. Scenario entries,
+their edge selection and the change log come from :mod:`coverkit.scenario`; the result equals a full recomputation.
+:func:`coverkit.compare_run.whatif_from_study` builds the base state from a study file. Edge times follow the
+conventions stated in :mod:`coverkit.scenario`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import geopandas as gpd
+import numpy as np
+import scipy.sparse as sp
+import shapely
+
+from coverkit.coverage import (
+    CoverageResult,
+    Standard,
+    TravelTable,
+    default_horizon_s,
+    demand_exclude_classes,
+    evaluate_coverage,
+)
+from coverkit.errors import CoverkitError
+from coverkit.network.model import MIN_EDGE_S, RoadNetwork
+from coverkit.progress import note
+from coverkit.scenario import (
+    BaseChange,
+    ChangeLog,
+    Closure,
+    Scenario,
+    apply_base_changes,
+    change_log,
+    closure_edges,
+    scenario_travel_s,
+    slowed_travel_s,
+)
+from coverkit.travel import node_times, snap_points
+from coverkit.travel.search import CHUNK_CELLS, dense_to_csr, exits, same_edge_min
+from coverkit.travel.snap import Snapped
+
+#: Message of a what-if closure that no base's search reaches.
+NO_REACH_NOTE = "no base's search reaches the closed roads; coverage unchanged"
+
+
+def _dense_rows(m: sp.csr_matrix, rows: np.ndarray) -> np.ndarray:
+    """Rows of a sparse time matrix as a dense array, inf where nothing is stored (stored zeros stay zeros)."""
+    sub = m[rows].tocoo()
+    out = np.full((len(rows), m.shape[1]), np.inf)
+    out[sub.row, sub.col] = sub.data
+    return out
+
+
+def _merge_snap(old: Snapped, new_sub: Snapped, idx: np.ndarray) -> Snapped:
+    """``old`` with the points at ``idx`` replaced by ``new_sub`` (their snap on the changed network)."""
+    idx = np.asarray(idx, dtype=np.int64)
+    per = {}
+    for name in ("on_network", "edge", "frac", "offset_m", "dist_m", "x", "y"):
+        arr = getattr(old, name).copy()
+        arr[idx] = getattr(new_sub, name)
+        per[name] = arr
+    keep = ~np.isin(old.entry_point, idx)
+    ep = np.concatenate([old.entry_point[keep], idx[new_sub.entry_point]])
+    ee = np.concatenate([old.entry_edge[keep], new_sub.entry_edge])
+    ef = np.concatenate([old.entry_frac[keep], new_sub.entry_frac])
+    order = np.lexsort((ee, ep))
+    return Snapped(
+        ids=old.ids,
+        entry_point=ep[order],
+        entry_edge=ee[order],
+        entry_frac=ef[order],
+        max_snap_m=old.max_snap_m,
+        **per,
+    )
+
+
+def _far_near_closed(net: RoadNetwork, snap: Snapped, geoms: np.ndarray, closed: np.ndarray) -> np.ndarray:
+    """Off-network points whose measured distance to the nearest road may have been to a road now closed.
+
+    Their ``dist_m`` must be measured again; the others' nearest road is still open, so their distance stands.
+    """
+    far = np.flatnonzero(~snap.on_network & np.isfinite(snap.dist_m))
+    closed_ids = np.flatnonzero(closed)
+    if len(far) == 0 or len(closed_ids) == 0:
+        return np.zeros(0, dtype=np.int64)
+    tree = shapely.STRtree(net.edges.geometry.to_numpy()[closed_ids])
+    (pi, _), d = tree.query_nearest(geoms[far], return_distance=True, all_matches=False)
+    near = d <= snap.dist_m[far[pi]] * (1 + 1e-9) + 1e-6  # ties count: measure again rather than keep
+    return far[pi[near]]
+
+
+def _times_from_nodes(
+    net: RoadNetwork,
+    node_t: sp.csr_matrix,
+    base_snap: Snapped,
+    rows: np.ndarray,
+    targets: Snapped,
+    cols: np.ndarray,
+    limit_s: float,
+    direction: str,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Point times of bases ``rows`` to targets ``cols`` from stored node times: the arithmetic of
+    :func:`coverkit.travel.point_times` (partial edges at the target, same-edge trips) without a new search.
+
+    Returns COO triplets (base row, target column, time s) within ``limit_s``.
+    """
+    rows = np.asarray(rows, dtype=np.int64)
+    cols = np.asarray(cols, dtype=np.int64)
+    empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
+    if len(rows) == 0 or len(cols) == 0:
+        return empty
+    sub = targets.subset(cols)
+    t_pt, t_node, t_add = exits(net, sub, direction)
+    starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
+    with_entries = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
+    chunk = max(1, CHUNK_CELLS // max(net.n_nodes, len(t_pt), 1))
+    out_r, out_c, out_t = [], [], []
+    for start in range(0, len(rows), chunk):
+        r = rows[start : start + chunk]
+        dist = _dense_rows(node_t, r)
+        block = np.full((len(r), len(cols)), np.inf)
+        if len(t_pt):
+            block[:, with_entries] = np.minimum.reduceat(dist[:, t_node] + t_add[None, :], starts, axis=1)
+        same_edge_min(net, base_snap, sub, r, block, direction)
+        m = dense_to_csr(block, limit_s).tocoo()
+        out_r.append(r[m.row])
+        out_c.append(cols[m.col])
+        out_t.append(m.data)
+    return np.concatenate(out_r), np.concatenate(out_c), np.concatenate(out_t)
+
+
+@dataclass
+class WhatIfOutcome:
+    """The result of one what-if.
+
+    Attributes
+    ----------
+    results
+        ``{(standard name, demand name): CoverageResult}`` after the change.
+    network, bases
+        The changed network and bases.
+    changes
+        The :class:`ChangeLog` (its notes say when coverage is unchanged).
+    recomputed_bases
+        Ids of the bases searched again (changed, added or moved bases, and bases whose shortest-path trees the
+        change can alter); the others kept their stored times exactly.
+    resnapped_points
+        ``{demand name: number of points snapped again}`` (points on closed roads).
+    """
+
+    results: dict
+    network: RoadNetwork
+    bases: gpd.GeoDataFrame
+    changes: ChangeLog
+    recomputed_bases: list[str]
+    resnapped_points: dict
+
+    @property
+    def result(self) -> CoverageResult:
+        """The first result (the only one for a what-if on one standard and one demand layer)."""
+        return next(iter(self.results.values()))
+
+
+class WhatIf:
+    """A computed base study that answers closures, slowdowns and base changes incrementally.
+
+    The base state keeps, per base, the node times of its bounded search (sparse, within the horizon), and per
+    demand layer the snapped points and the base-to-point times. A change that only makes edges slower or closes
+    them (or makes some faster) can alter base ``b``'s times only if some changed edge ``(x, y)`` is *tight* in
+    ``b``'s search: ``d_b(x) + w(x, y) <= min(d_b(y), horizon)`` with ``w`` the smaller of the old and new weight.
+    Every shortest path consists of tight edges only, so when no changed edge is tight the old distances remain
+    shortest (slower edges lie on no shortest path; faster ones create none), and the base's stored row is exact.
+    Such bases are not searched again; the rest are. Demand points snapped onto a closed edge are snapped again,
+    and points on a changed edge get their partial-edge times from the stored node times. An added or moved base
+    adds one search; a removed base drops a row. The outcome equals a full recomputation (tested to exact
+    equality).
+
+    Parameters
+    ----------
+    net, bases
+        Network and bases of the base study.
+    demand
+        One demand GeoDataFrame or ``{name: GeoDataFrame}``.
+    standards
+        One :class:`Standard` or a list.
+    horizon_s
+        Search bound (s); default from the longest standard (:func:`coverkit.coverage.default_horizon_s`).
+    direction
+        ``"out"`` (base to demand) or ``"in"``.
+    demand_snap_m
+        Snap limit of demand points (m), one value or ``{name: value}``.
+    base_snap_m
+        Snap limit of bases (m).
+    """
+
+    def __init__(
+        self,
+        net: RoadNetwork,
+        bases: gpd.GeoDataFrame,
+        demand: gpd.GeoDataFrame | dict[str, gpd.GeoDataFrame],
+        standards: Standard | list[Standard],
+        horizon_s: float | None = None,
+        direction: str = "out",
+        demand_snap_m: float | dict[str, float] = 500.0,
+        base_snap_m: float = 500.0,
+    ) -> None:
+        self.net = net
+        self.bases = bases.reset_index(drop=True)
+        self.demand = dict(demand) if isinstance(demand, dict) else {"demand": demand}
+        self.standards = [standards] if isinstance(standards, Standard) else list(standards)
+        self.horizon_s = float(horizon_s or max(default_horizon_s(s) for s in self.standards))
+        self.direction = direction
+        self.base_snap_m = float(base_snap_m)
+        snaps = demand_snap_m if isinstance(demand_snap_m, dict) else dict.fromkeys(self.demand, demand_snap_m)
+        self.demand_snap_m = {k: float(snaps.get(k, 500.0)) for k in self.demand}
+        self.base_snap = snap_points(net, self.bases, max_snap_m=self.base_snap_m, off_network="raise", what="bases")
+        note(f"what-if: searching from {len(self.bases)} bases (horizon {self.horizon_s:g} s)")
+        self.node_t = node_times(net, self.base_snap, self.horizon_s, direction)
+        self.point_snap: dict[str, Snapped] = {}
+        self.tables: dict[str, TravelTable] = {}
+        all_rows = np.arange(len(self.bases))
+        for name, dem in self.demand.items():
+            snap = snap_points(
+                net, dem, max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
+                warn_islands=False, exclude_classes=demand_exclude_classes(dem),
+            )  # fmt: skip
+            r, c, t = _times_from_nodes(
+                net, self.node_t, self.base_snap, all_rows, snap, np.arange(len(dem)), self.horizon_s, direction
+            )
+            times = sp.csr_matrix((t, (r, c)), shape=(len(self.bases), len(dem)))
+            self.point_snap[name] = snap
+            self.tables[name] = TravelTable(self.base_snap, snap, times, self.horizon_s, direction)
+        self.results = {
+            (s.name, name): evaluate_coverage(net, self.bases, dem, s, table=self.tables[name])
+            for s in self.standards
+            for name, dem in self.demand.items()
+        }
+
+    # -- questions ----------------------------------------------------------------------------------------------------
+    def close_edges(self, edge_ids: np.ndarray | list[int]) -> WhatIfOutcome:
+        """Coverage with the directed edges ``edge_ids`` closed (a two-way street has two edges)."""
+        ids = np.unique(np.asarray(edge_ids, dtype=np.int64))
+        bad = ids[(ids < 0) | (ids >= self.net.n_edges)]
+        if len(bad):
+            raise CoverkitError(f"edge {int(bad[0])} is not in the network (edge ids run 0..{self.net.n_edges - 1}).")
+        t = self.net.travel_s.copy()
+        t[ids] = np.inf
+        return self._evaluate(t, self.bases, change_log(self.net, ids))
+
+    def close_ways(self, way_ids: list[int]) -> WhatIfOutcome:
+        """Coverage with every edge of the OSM ways ``way_ids`` closed (both directions)."""
+        closure = Closure(0, "way_ids", tuple(int(w) for w in way_ids))
+        return self.close_edges(closure_edges(self.net, closure, "what-if"))
+
+    def slow_edges(self, edge_ids: np.ndarray | list[int], factor: float) -> WhatIfOutcome:
+        """Coverage with the running time of ``edge_ids`` multiplied by ``factor`` (> 0)."""
+        if not (np.isfinite(factor) and factor > 0):
+            raise CoverkitError(f"slowdown factor must be a number > 0 (1.5 = 50 % slower), got {factor}.")
+        ids = np.unique(np.asarray(edge_ids, dtype=np.int64))
+        ids = ids[np.isfinite(self.net.travel_s[ids])]
+        t = slowed_travel_s(self.net, ids, factor)
+        return self._evaluate(t, self.bases, change_log(self.net, [], ids, np.full(len(ids), factor)))
+
+    def change_base(
+        self,
+        action: str,
+        base_id: str,
+        lon: float | None = None,
+        lat: float | None = None,
+        units: int | None = None,
+        name: str | None = None,
+    ) -> WhatIfOutcome:
+        """Coverage after one base change: ``action`` is ``"add"`` / ``"move"`` (lon, lat in degrees), ``"remove"``
+        or ``"units"``."""
+        if action not in ("add", "remove", "move", "units"):
+            raise CoverkitError(f"base change '{action}' is not one of add, remove, move, units.")
+        if action in ("add", "move") and (lon is None or lat is None):
+            raise CoverkitError(f"base change '{action}' of '{base_id}' needs lon and lat (degrees, EPSG:4326).")
+        if action == "units" and (units is None or units < 0):
+            raise CoverkitError(f"base change 'units' of '{base_id}' needs units >= 0.")
+        change = BaseChange(0, action, str(base_id), lon, lat, units, name)
+        bases, rows = apply_base_changes(self.bases, [change], "what-if")
+        return self._evaluate(self.net.travel_s, bases, change_log(self.net, [], base_rows=rows))
+
+    def run(self, scenario: Scenario) -> WhatIfOutcome:
+        """Coverage after a whole scenario (closures, slowdowns and base changes together)."""
+        t, closed, slowed, factors = scenario_travel_s(self.net, scenario)
+        bases, rows = apply_base_changes(self.bases, scenario.base_changes, str(scenario.path))
+        return self._evaluate(t, bases, change_log(self.net, closed, slowed, factors, rows))
+
+    # -- the incremental recomputation ---------------------------------------------------------------------------------
+    def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
+        """Boolean per base: can the edge times ``travel_s`` change this base's searches? (see the class notes)"""
+        old = self.net.travel_s
+        new = np.asarray(travel_s, dtype=float)
+        changed = np.flatnonzero(old != new)
+        hit = np.zeros(len(self.bases), dtype=bool)
+        if len(changed) == 0:
+            return hit
+        u, v = self.net.u[changed], self.net.v[changed]
+        tail, head = (u, v) if self.direction == "out" else (v, u)
+        w = np.maximum(np.minimum(old[changed], new[changed]), MIN_EDGE_S)
+        # a base seated on a changed edge starts differently
+        hit[np.unique(self.base_snap.entry_point[np.isin(self.base_snap.entry_edge, changed)])] = True
+        chunk = max(1, CHUNK_CELLS // max(self.net.n_nodes, 1))
+        tol_s = 1e-7  # conservative: a near-tie counts as tight, so a base is searched again rather than skipped
+        for start in range(0, len(self.bases), chunk):
+            r = np.arange(start, min(start + chunk, len(self.bases)))
+            d = _dense_rows(self.node_t, r)
+            dt, dh = d[:, tail], np.minimum(d[:, head], self.horizon_s)
+            with np.errstate(invalid="ignore"):
+                tight = np.isfinite(dt) & (dt + w[None, :] <= dh + tol_s)
+            hit[r] |= tight.any(axis=1)
+        return hit
+
+    def _evaluate(self, travel_s: np.ndarray, bases_after: gpd.GeoDataFrame, log: ChangeLog) -> WhatIfOutcome:
+        old_t = self.net.travel_s
+        changed = np.flatnonzero(old_t != travel_s)
+        net2 = self.net.with_travel_s(travel_s) if len(changed) else self.net
+        reopened = bool(np.any(~np.isfinite(old_t[changed]) & np.isfinite(travel_s[changed])))
+        old_ids = self.bases["id"].astype(str).tolist()
+        new_ids = bases_after["id"].astype(str).tolist()
+        # a base keeps its stored searches only under the same id at the same place (a moved or re-added one not)
+        old_geom = self.bases.geometry.to_numpy()
+        new_geom = bases_after.to_crs(self.bases.crs).geometry.to_numpy()
+        old_pos = {
+            b: i
+            for i, b in enumerate(old_ids)
+            if b in new_ids and shapely.equals_exact(old_geom[i], new_geom[new_ids.index(b)], 0.0)
+        }
+        aff_old = self.affected_bases(travel_s)
+        base_snap2 = (
+            snap_points(net2, bases_after, max_snap_m=self.base_snap_m, off_network="raise", what="bases")
+            if len(changed) or new_ids != old_ids or len(old_pos) < len(old_ids)
+            else self.base_snap
+        )
+        search = np.array([b not in old_pos or bool(aff_old[old_pos[b]]) for b in new_ids], dtype=bool)
+        rows_new = np.flatnonzero(search)
+        # node times after: stored rows for untouched bases, a new search for the others
+        keep_src = np.array([old_pos.get(b, -1) for b in new_ids])
+        kept = np.flatnonzero(~search)
+        stored = self.node_t[keep_src[kept]].tocoo()
+        parts_r, parts_c, parts_t = [kept[stored.row]], [stored.col], [stored.data]
+        if len(rows_new):
+            note(f"what-if: searching again from {len(rows_new)} of {len(new_ids)} bases")
+            fresh = node_times(net2, base_snap2.subset(rows_new), self.horizon_s, self.direction).tocoo()
+            parts_r.append(rows_new[fresh.row])
+            parts_c.append(fresh.col)
+            parts_t.append(fresh.data)
+        node_t2 = sp.csr_matrix(
+            (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
+            shape=(len(new_ids), net2.n_nodes),
+        )
+        closed_now = np.zeros(net2.n_edges, dtype=bool)
+        closed_now[changed] = ~np.isfinite(travel_s[changed])
+        is_changed = np.zeros(net2.n_edges, dtype=bool)
+        is_changed[changed] = True
+        results, resnapped = {}, {}
+        for name, dem in self.demand.items():
+            old_snap = self.point_snap[name]
+            old_times = self.tables[name].times
+            if reopened:  # an opened road can become any point's nearest: snap every point again
+                resnap = np.arange(len(dem))
+            else:
+                resnap = np.unique(
+                    np.concatenate(
+                        [
+                            old_snap.entry_point[closed_now[old_snap.entry_edge]],
+                            _far_near_closed(net2, old_snap, dem.geometry.to_numpy(), closed_now),
+                        ]
+                    )
+                )
+            snap2 = old_snap
+            if len(resnap):
+                sub = snap_points(
+                    net2, dem.geometry.to_numpy()[resnap], ids=old_snap.ids[resnap],
+                    max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
+                    warn_islands=False, exclude_classes=demand_exclude_classes(dem),
+                )  # fmt: skip
+                snap2 = _merge_snap(old_snap, sub, resnap)
+            resnapped[name] = len(resnap)
+            cols = np.unique(np.concatenate([resnap, old_snap.entry_point[is_changed[old_snap.entry_edge]]]))
+            # stored times of untouched bases on untouched points; derived times for the rest
+            src = old_times[keep_src[kept]].tocoo()
+            ok = ~np.isin(src.col, cols)
+            r_parts, c_parts, t_parts = [kept[src.row[ok]]], [src.col[ok]], [src.data[ok]]
+            for rr, cc in ((rows_new, np.arange(len(dem))), (kept, cols)):
+                r, c, t = _times_from_nodes(net2, node_t2, base_snap2, rr, snap2, cc, self.horizon_s, self.direction)
+                r_parts.append(r)
+                c_parts.append(c)
+                t_parts.append(t)
+            times = sp.csr_matrix(
+                (np.concatenate(t_parts), (np.concatenate(r_parts), np.concatenate(c_parts))),
+                shape=(len(new_ids), len(dem)),
+            )
+            table = TravelTable(base_snap2, snap2, times, self.horizon_s, self.direction)
+            for s in self.standards:
+                results[(s.name, name)] = evaluate_coverage(net2, bases_after, dem, s, table=table)
+        identical = all(
+            np.array_equal(results[k].demand["travel_s"].to_numpy(), self.results[k].demand["travel_s"].to_numpy())
+            and (results[k].demand["first_base"] == self.results[k].demand["first_base"]).all()
+            for k in results
+        )
+        if identical and new_ids == old_ids:
+            if len(log.closed_edge_ids) and not len(rows_new):
+                tails = self.net.u[changed] if self.direction == "out" else self.net.v[changed]
+                reached = self.node_t[:, tails].nnz > 0
+                log.notes.append(
+                    "no base's shortest paths use the closed roads; coverage unchanged" if reached else NO_REACH_NOTE
+                )
+            else:
+                log.notes.append("coverage unchanged")
+        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new], resnapped)
+
+
+__all__ = ["NO_REACH_NOTE", "WhatIf", "WhatIfOutcome"]
