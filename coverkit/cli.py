@@ -58,9 +58,16 @@ def _points_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--snap-m", type=_positive_float, default=500.0, help="base snap limit, m (500)")
 
 
+class _Parser(argparse.ArgumentParser):
+    """Argument errors as one line (what is wrong and where to look), exit status 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.exit(2, f"{self.prog}: error: {message}; see `{self.prog} --help`.\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every sub-command."""
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="coverkit",
         description="Drive-time polygons and coverage for fire and EMS planning. " + CAUTION,
     )
