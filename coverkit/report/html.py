@@ -43,6 +43,7 @@ p.meta { color: var(--muted); font-size: 0.85rem; margin: 0 0 1rem; }
 .figure-card { border: 1px solid var(--rule); padding: 0.5rem 0.7rem; border-radius: 3px; }
 .figure-card .value { font-size: 1.45rem; font-weight: bold; display: block; }
 .figure-card .label { font-size: 0.85rem; color: var(--muted); display: block; }
+.table-wrap { overflow-x: auto; max-width: 100%; }
 table { border-collapse: collapse; margin: 0.8rem 0 1.2rem; font-size: 0.9rem; }
 caption { caption-side: top; text-align: left; font-weight: bold; padding-bottom: 0.3rem; }
 th, td { border-bottom: 1px solid var(--rule); padding: 0.25rem 0.6rem; text-align: left; vertical-align: top; }
@@ -137,7 +138,10 @@ class HtmlReport:
                 cells.append(f'<td class="num">{text}</td>' if is_num else f"<td>{text}</td>")
             rows.append("<tr>" + "".join(cells) + "</tr>")
         cap = f"<caption>{_esc(caption)}</caption>" if caption else ""
-        self._body.append(f"<table>{cap}<thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>")
+        self._body.append(
+            f'<div class="table-wrap"><table>{cap}<thead><tr>{head}</tr></thead>'
+            f"<tbody>{''.join(rows)}</tbody></table></div>"
+        )
 
     def add_image(self, png_path: str | os.PathLike[str], caption: str) -> None:
         """A PNG embedded as a base64 data URI, with a caption (also its alt text)."""
