@@ -244,8 +244,9 @@ def snap_points(
         bad = np.flatnonzero(~on)
         shown = ", ".join(f"{id_arr[i]} ({dist_m[i]:.0f} m)" for i in bad[:10])
         more = f" and {len(bad) - 10} more" if len(bad) > 10 else ""
+        count = f"{len(bad)} {what} lie" if len(bad) > 1 else f"1 of the {what} lies"
         raise OffNetworkError(
-            f"{len(bad)} {what} lie farther than {max_snap_m:g} m from any open road: {shown}{more}; "
+            f"{count} farther than {max_snap_m:g} m from any open road: {shown}{more}; "
             "move them onto a road, check their coordinates, or raise the snap limit."
         )
 
