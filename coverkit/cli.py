@@ -328,7 +328,7 @@ def _cmd_isochrones(args: argparse.Namespace) -> int:
         )
     print(f"{'base':<16}{'band min':>9}{'area km2':>10}{'road km':>10}")
     for r in table.itertuples(index=False):
-        print(f"{r.base_id!s:<16}{r.band_min:>9g}{r.area_km2:>10.2f}{r.road_km:>10.1f}")
+        print(f"{r.base!s:<16}{r.band_min:>9g}{r.area_km2:>10.2f}{r.road_km:>10.1f}")
     print(f"\nwrote {args.out}" + (f" and {args.surface}" if args.surface else ""))
     print(
         f"profile '{net.profile.name}', reach {args.reach_m:g} m from the road, travel {args.direction}bound; "

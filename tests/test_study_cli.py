@@ -344,3 +344,43 @@ def test_same_inputs_give_the_same_outputs(demo_net, tmp_path):
         )
         if "geometry" in a.columns:
             assert a.geometry.geom_equals_exact(b.geometry, tolerance=0).all()
+
+
+def test_isochrones_command_writes_nested_polygons_and_surface(demo_net, tmp_path, capsys):
+    """The isochrones command: polygons per base and band nested (shapely covers), the any-base layer, a GeoTIFF
+    in the network CRS with nodata beyond the largest band, and the printed table."""
+    import shapely
+
+    _, net_path = demo_net
+    out, tif = tmp_path / "reach.gpkg", tmp_path / "minutes.tif"
+    code = main(
+        [
+            "isochrones",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--minutes",
+            "4,8,12",
+            "--out",
+            str(out),
+            "--surface",
+            str(tif),
+            "--quiet",
+        ]
+    )
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "area km2" in text and "S1" in text and "Planning estimates only" in text
+    layers = {name for name, _ in pyogrio.list_layers(out)}
+    assert {"reach_by_base", "reach_any_base"} <= layers
+    reach = gpd.read_file(out, layer="reach_by_base")
+    for base, grp in reach.groupby("base_id"):
+        grp = grp.sort_values("band_min")
+        geoms = grp.geometry.to_numpy()
+        assert list(grp["band_min"]) == [4.0, 8.0, 12.0], base
+        assert all(shapely.covers(geoms[i + 1].buffer(1e-6), geoms[i]) for i in range(2)), base
+    with rasterio.open(tif) as src:
+        arr = src.read(1)
+        assert src.nodata == -1 and src.crs is not None
+        valid = arr[arr != src.nodata]
+        assert valid.min() >= 0 and valid.max() <= 12.0 + 1e-6
