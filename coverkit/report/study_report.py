@@ -162,7 +162,9 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         s = slug(srun.standard.name)
         rep.add_heading(f"Standard: {srun.standard.describe()}")
         for name, table in srun.per_base.items():
-            rep.add_table(table, caption=f"Per base - {name}")
+            t = table.copy()
+            t["first_due_share"] = t["first_due_share"] * 100
+            rep.add_table(t.rename(columns={"first_due_share": "first-due %"}), caption=f"Per base - {name}")
         for name, table in srun.zones.items():
             t = table.copy()
             t["covered_share"] = t["covered_share"] * 100
