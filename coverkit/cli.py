@@ -271,6 +271,15 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _network_and_bases(args: argparse.Namespace):
+    """The saved network and the bases projected to its CRS (commands taking NETWORK and --bases)."""
+    from coverkit.network import RoadNetwork
+    from coverkit.travel import read_points
+
+    net = RoadNetwork.load(args.network)
+    return net, read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+
+
 @command("network")
 def _cmd_network(args: argparse.Namespace) -> int:
     from coverkit.network import build_network
@@ -299,11 +308,8 @@ def _cmd_network(args: argparse.Namespace) -> int:
 @command("isochrones")
 def _cmd_isochrones(args: argparse.Namespace) -> int:
     from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons, write_travel_surface
-    from coverkit.network import RoadNetwork
-    from coverkit.travel import read_points
 
-    net = RoadNetwork.load(args.network)
-    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    net, bases = _network_and_bases(args)
     polygons = drive_time_polygons(
         net,
         bases,
@@ -346,14 +352,11 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     from coverkit.coverage import Standard, area_layers, compliance_by, compliance_by_zone, evaluate_coverage, per_base
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
-    from coverkit.network import RoadNetwork
-    from coverkit.travel import read_points
 
     if (args.zones is None) != (args.zone_field is None):
         raise FieldError("--zones and --zone-field go together: give the polygon layer and its id field.")
     std = Standard(f"{args.minutes:g} min", args.minutes * 60.0, args.turnout_s, args.fractile)
-    net = RoadNetwork.load(args.network)
-    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    net, bases = _network_and_bases(args)
     demand = load_demand(
         args.demand,
         net,
@@ -430,15 +433,13 @@ def _cmd_site(args: argparse.Namespace) -> int:
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
-    from coverkit.network import RoadNetwork
     from coverkit.report import line_chart
     from coverkit.site_plan import build_problem, generate_candidates, ranking_table, solve
     from coverkit.travel import read_points
 
     if (args.candidates is None) == (args.generate_candidates is None):
         raise FieldError("give either --candidates FILE or --generate-candidates CLASS (not both, not neither).")
-    net = RoadNetwork.load(args.network)
-    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    net, bases = _network_and_bases(args)
     if args.candidates:
         candidates = read_points(args.candidates, net.crs, what="candidates")
     else:
@@ -524,11 +525,8 @@ def _cmd_availability(args: argparse.Namespace) -> int:
     from coverkit.availability import availability
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
-    from coverkit.network import RoadNetwork
-    from coverkit.travel import read_points
 
-    net = RoadNetwork.load(args.network)
-    bases = read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
+    net, bases = _network_and_bases(args)
     demand = load_demand(args.demand, net, where=args.where)
     std = Standard(f"{args.minutes:g} min", args.minutes * 60.0)
     run = availability(
