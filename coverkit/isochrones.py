@@ -645,8 +645,14 @@ def reach_fields(
     cell = (jy - gy0) * gnx + (jx - gx0)
     rn, rlab, chords = _road_nodes(cell, lab, srow, sx - gx0 * c, sy - gy0 * c, n_b)
     rx, ry = rn % gnx, rn // gnx
-    slot = np.full((int(jy.max()) + margin - gy0 + 1) * gnx, -1, dtype=np.int64)
+    gny = int(jy.max()) + margin - gy0 + 1
+    slot = np.full(gny * gnx, -1, dtype=np.int64)
     slot[rn] = np.arange(len(rn))
+    # earliest band of each grid node's road (n_b: no road), as a grid: a band's road mask is one comparison
+    # on a window of it, and the 3 x 3 neighbours' bands are one small gather
+    lab_grid = np.full(gny * gnx, n_b, dtype=np.int8 if n_b < 127 else np.int32)
+    lab_grid[rn] = rlab
+    lab_2d = lab_grid.reshape(gny, gnx)
     prev: Field | None = None
     for k in range(n_b):
         sel = np.flatnonzero(rlab <= k)
@@ -654,21 +660,28 @@ def reach_fields(
             continue
         x0, y0 = int(rx[sel].min()) - margin, int(ry[sel].min()) - margin
         nx, ny = int(rx[sel].max()) + margin - x0 + 1, int(ry[sel].max()) + margin - y0 + 1
-        background = np.ones((ny, nx), dtype=bool)
-        background[ry[sel] - y0, rx[sel] - x0] = False
+        background = lab_2d[y0 : y0 + ny, x0 : x0 + nx] > k
         idx = distance_transform_edt(background, return_distances=False, return_indices=True)
-        # squared distance to the nearest road node, in cells (exact integers)
-        dyy = idx[0] - np.arange(ny, dtype=np.int32)[:, None]
-        dxx = idx[1] - np.arange(nx, dtype=np.int32)[None, :]
-        d2 = (dyy * dyy + dxx * dxx).reshape(-1)
         fy, fx = idx[0].reshape(-1), idx[1].reshape(-1)
+        # squared distance to the nearest road node, in cells (exact integers), built in place (few full passes)
+        dyy = idx[0] - np.arange(ny, dtype=np.int32)[:, None]
+        np.multiply(dyy, dyy, out=dyy)
+        dxx = idx[1] - np.arange(nx, dtype=np.int32)[None, :]
+        np.multiply(dxx, dxx, out=dxx)
+        d2 = np.add(dyy, dxx, out=dyy).reshape(-1)
+        del dxx
         # stand-ins on the right side of the level for nodes clearly inside or outside; only the zone around the
         # level, where the traced line falls, gets distances. A node's road-node distance exceeds its distance
         # to the road by at most ~1.2 cells and falls short by at most ~0.7 (see above); the line crosses grid
-        # edges whose ends lie within one cell of the level.
+        # edges whose ends lie within one cell of the level. On integer d2: d2 <= lo2 inside, lo2 < d2 < hi2 zone.
         lo_c, hi_c = max(reach_m / c - 1.75, 0.0), reach_m / c + 2.25
-        dist = np.where(d2 <= lo_c * lo_c, 0.0, _FAR)
-        zone = np.flatnonzero((d2 > lo_c * lo_c) & (d2 < hi_c * hi_c))
+        lo2 = int(np.floor(lo_c * lo_c))
+        hi2 = int(np.ceil(hi_c * hi_c))
+        dist = np.where(d2 <= lo2, 0.0, _FAR)
+        # lo2 < d2 < hi2 in one unsigned comparison (values at or below lo2 wrap round to large ones)
+        shifted = np.subtract(d2, lo2 + 1, out=d2).view(f"u{d2.itemsize}")
+        zone = np.flatnonzero(shifted < hi2 - lo2 - 1)
+        del shifted, d2, dyy
         if len(zone):
             own = (fy[zone].astype(np.int64) + y0) * gnx + fx[zone] + x0
             px = ((zone % nx + x0) * c).astype(np.float32)
@@ -680,10 +693,9 @@ def reach_fields(
             dist[zone[deep]] = 0.0
             zone, own, px, py, d0 = zone[~deep], own[~deep], px[~deep], py[~deep], d0[~deep]
             # the 3 x 3 road nodes around the nearest one (inside the window: the margin is > 2 cells)
-            sl = slot[own[:, None] + (_NEIGHBOURS_3X3[0] * gnx + _NEIGHBOURS_3X3[1])[None, :]]
-            ok = sl >= 0
-            sl[~ok] = 0
-            ok &= rlab[sl] <= k
+            nb = own[:, None] + (_NEIGHBOURS_3X3[0] * gnx + _NEIGHBOURS_3X3[1])[None, :]
+            ok = lab_grid[nb] <= k
+            sl = slot[nb]  # -1 (no road node) picks the last chord, masked by ``ok``
             d = _chord_distance(px[:, None], py[:, None], [ch[sl] for ch in chords])
             d[~ok] = np.inf
             dist[zone] = np.minimum(d.min(axis=1), d0)
@@ -740,12 +752,12 @@ def _road_samples(xy: np.ndarray, band: np.ndarray, row: np.ndarray, step_m: flo
     # each segment gives its start and the points inside it; the last segment of an increment also its end
     last = np.r_[row[1:] != row[:-1], True]
     cnt = n + last
-    seg = np.repeat(np.arange(len(xy)), cnt)
-    j = np.arange(len(seg)) - np.repeat(np.cumsum(cnt) - cnt, cnt)
-    t = j / n[seg]
-    x = xy[seg, 0] + t * (xy[seg, 2] - xy[seg, 0])
-    y = xy[seg, 1] + t * (xy[seg, 3] - xy[seg, 1])
-    return x, y, band[seg], row[seg]
+    # per-segment values repeated per point (np.repeat on 1-d arrays is cheaper than gathers from the 2-d table)
+    j = np.arange(int(cnt.sum())) - np.repeat(np.cumsum(cnt) - cnt, cnt)
+    t = j / np.repeat(n, cnt)
+    x = np.repeat(xy[:, 0], cnt) + t * np.repeat(xy[:, 2] - xy[:, 0], cnt)
+    y = np.repeat(xy[:, 1], cnt) + t * np.repeat(xy[:, 3] - xy[:, 1], cnt)
+    return x, y, np.repeat(band, cnt), np.repeat(row, cnt)
 
 
 def _field_polygons(field: Field | None, cell_m: float, level_m: float, min_hole_m2: float) -> shapely.Geometry:
