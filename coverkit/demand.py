@@ -312,11 +312,6 @@ def load_demand(
     return demand
 
 
-def total_weight(demand: gpd.GeoDataFrame) -> float:
-    """Sum of demand weights."""
-    return float(demand["weight"].sum()) if len(demand) else 0.0
-
-
 __all__ = [
     "check_extent",
     "demand_from_points",
@@ -324,5 +319,4 @@ __all__ = [
     "demand_from_raster",
     "load_demand",
     "raster_total",
-    "total_weight",
 ]

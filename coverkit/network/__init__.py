@@ -16,8 +16,3 @@ __all__ = [
     "read_roads",
     "shipped_profiles",
 ]
-
-
-def load_network(path):
-    """Load a network GeoPackage written by ``coverkit network`` (alias of :meth:`RoadNetwork.load`)."""
-    return RoadNetwork.load(path)

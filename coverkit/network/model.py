@@ -7,7 +7,6 @@ Nodes are numbered 0..N-1 and edges 0..E-1. Every edge is directed: a two-way st
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -382,8 +381,3 @@ def grid_network(
     u = np.concatenate([right, right + 1, up, up + nx_nodes])
     v = np.concatenate([right + 1, right, up + nx_nodes, up])
     return network_from_arrays(xy, u, v, speed_kph, crs=crs)
-
-
-def finite_or_nan(value: float) -> float:
-    """``value`` if finite else NaN (for tables)."""
-    return value if math.isfinite(value) else math.nan
