@@ -38,6 +38,14 @@ def _minutes(seconds: float) -> str:
     return "not reached" if not np.isfinite(seconds) else f"{seconds / 60:.1f} min"
 
 
+def _compliance_for_display(table: pd.DataFrame) -> pd.DataFrame:
+    """A compliance table with the share in percent and the fractile in minutes."""
+    t = table.copy()
+    t["covered_share"] = t["covered_share"] * 100
+    t["fractile_response_s"] = t["fractile_response_s"] / 60
+    return t.rename(columns={"covered_share": "covered %", "fractile_response_s": "fractile (min)"})
+
+
 def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[str, Path]:
     """Write the study's PNG maps into ``folder/maps`` and, if ``html``, ``folder/report.html``."""
     from coverkit.study import slug
@@ -165,22 +173,9 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
             t = table.copy()
             t["first_due_share"] = t["first_due_share"] * 100
             rep.add_table(t.rename(columns={"first_due_share": "first-due %"}), caption=f"Per base - {name}")
-        for name, table in srun.zones.items():
-            t = table.copy()
-            t["covered_share"] = t["covered_share"] * 100
-            t["fractile_response_s"] = t["fractile_response_s"] / 60
-            rep.add_table(
-                t.rename(columns={"covered_share": "covered %", "fractile_response_s": "fractile (min)"}),
-                caption=f"Compliance by zone - {name}",
-            )
-        for name, table in srun.by_priority.items():
-            t = table.copy()
-            t["covered_share"] = t["covered_share"] * 100
-            t["fractile_response_s"] = t["fractile_response_s"] / 60
-            rep.add_table(
-                t.rename(columns={"covered_share": "covered %", "fractile_response_s": "fractile (min)"}),
-                caption=f"Compliance by priority - {name}",
-            )
+        for label, tables in (("zone", srun.zones), ("priority", srun.by_priority)):
+            for name, table in tables.items():
+                rep.add_table(_compliance_for_display(table), caption=f"Compliance by {label} - {name}")
         gaps = srun.areas.gaps.drop(columns="geometry").head(10)
         rep.add_table(pd.DataFrame(gaps), caption="Largest gaps (people and incidents not covered)")
         depth, gaps_png, first_png = images[s]
