@@ -53,6 +53,24 @@ def _minutes_list(text: str) -> list[float]:
     return values
 
 
+def _coverage_inputs(
+    p: argparse.ArgumentParser,
+    bases_help: str,
+    demand_help: str = "population raster, polygons (with --population-field) or points",
+    standard: bool = True,
+) -> None:
+    """The arguments every coverage-like command takes: network, bases, demand and the response standard."""
+    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
+    p.add_argument("--bases", type=Path, required=True, help=bases_help)
+    p.add_argument("--demand", type=Path, required=True, help=demand_help)
+    p.add_argument("--where", help='filter on point demand fields, e.g. "priority in (1, 2)"')
+    p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
+    if standard:
+        p.add_argument("--population-field", help="population field of a polygon demand layer")
+        p.add_argument("--turnout-s", type=_positive_float, default=0.0, help="turnout added to travel, s (0)")
+        p.add_argument("--fractile", type=float, default=0.9, help="share of demand to reach, 0..1 (0.9)")
+
+
 def _points_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--id-field", default="id", help="id field of --bases (id)")
     p.add_argument("--snap-m", type=_positive_float, default=500.0, help="base snap limit, m (500)")
@@ -137,15 +155,8 @@ def build_parser() -> argparse.ArgumentParser:
         "are. Demand: a population raster (.tif), a polygon layer with --population-field, or points (CSV with "
         "id, lon, lat[, weight] or a point layer).",
     )
-    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
-    p.add_argument("--bases", type=Path, required=True, help="bases: CSV with id, lon, lat or a point layer")
-    p.add_argument("--demand", type=Path, required=True, help="population raster, polygons or points")
-    p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
-    p.add_argument("--turnout-s", type=_positive_float, default=0.0, help="turnout time added to travel, s (0)")
-    p.add_argument("--fractile", type=float, default=0.9, help="share of demand to reach, 0..1 (0.9)")
+    _coverage_inputs(p, bases_help="bases: CSV with id, lon, lat or a point layer")
     p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layer demand, gaps, ...)")
-    p.add_argument("--where", help='filter on point fields, e.g. "priority in (1, 2)"')
-    p.add_argument("--population-field", help="population field of a polygon demand layer")
     p.add_argument("--weight-field", help="weight field of point demand (default: weight column or 1)")
     p.add_argument("--demand-id-field", default="id", help="id field of point demand (id)")
     p.add_argument("--time-field", help="timestamp field for --start/--end (received_at)")
@@ -164,8 +175,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Rank candidate sites and choose new ones with a published covering model (MCLP, LSCP, backup "
         "coverage, MEXCLP, p-median), solved exactly with HiGHS or by a greedy-plus-interchange heuristic.",
     )
-    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
-    p.add_argument("--bases", type=Path, required=True, help="existing bases: CSV with id, lon, lat or a point layer")
+    _coverage_inputs(p, bases_help="existing bases: CSV with id, lon, lat or a point layer")
     p.add_argument("--candidates", type=Path, help="candidate sites: CSV with id, lon, lat or a point layer")
     p.add_argument(
         "--generate-candidates",
@@ -173,12 +183,6 @@ def build_parser() -> argparse.ArgumentParser:
         help="generate candidates at nodes on roads of CLASS or better (e.g. tertiary)",
     )
     p.add_argument("--spacing-m", type=_positive_float, default=1500.0, help="generated candidate spacing, m (1500)")
-    p.add_argument("--demand", type=Path, required=True, help="population raster, polygons or points")
-    p.add_argument("--population-field", help="population field of a polygon demand layer")
-    p.add_argument("--where", help='filter on point demand fields, e.g. "priority <= 2"')
-    p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
-    p.add_argument("--turnout-s", type=_positive_float, default=0.0, help="turnout added to travel, s (0)")
-    p.add_argument("--fractile", type=float, default=0.9, help="fractile reported for each solution (0.9)")
     p.add_argument("--model", choices=["mclp", "lscp", "backup", "mexclp", "p-median"], default="mclp")
     p.add_argument("--add", type=int, help="number of new sites (mclp, backup, p-median) or units (mexclp)")
     p.add_argument("--target", type=float, help="lscp: share of demand to cover, 0..1 (default all coverable)")
@@ -199,11 +203,12 @@ def build_parser() -> argparse.ArgumentParser:
         "for large N): unit workloads, the chance each unit answers each demand point, expected travel time with "
         "backup responses, and the share of calls reached within the standard by whichever unit responds.",
     )
-    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
-    p.add_argument("--bases", type=Path, required=True, help="bases with optional units column")
-    p.add_argument("--demand", type=Path, required=True, help="incidents (points with a time field) or population")
-    p.add_argument("--where", help='filter on point demand fields, e.g. "priority <= 2"')
-    p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
+    _coverage_inputs(
+        p,
+        bases_help="bases with optional units column",
+        demand_help="incidents (points with a time field)",
+        standard=False,
+    )
     p.add_argument("--service-min", type=_positive_float, required=True, help="mean time a unit is busy per call, min")
     p.add_argument("--calls-per-h", type=_positive_float, help="total call rate (default: from incident timestamps)")
     p.add_argument("--time-field", default="received_at", help="incident timestamp field (received_at)")

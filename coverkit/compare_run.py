@@ -17,33 +17,25 @@ import pandas as pd
 
 from coverkit import CAUTION
 from coverkit.atomic import write_gpkg_layers, write_text_atomic
-from coverkit.coverage import evaluate_coverage, travel_table
-from coverkit.errors import CoverkitError
 from coverkit.network.model import RoadNetwork
-from coverkit.progress import Steps, note
+from coverkit.progress import Steps
 from coverkit.scenario import (
     ChangeLog,
     Scenario,
-    apply_scenario,
     changed_areas,
     compare_results,
     load_scenario,
 )
-from coverkit.study import Study, cached_network, load_inputs, load_study, slug
+from coverkit.study import Study, cached_network, load_inputs, load_study, reusable_network, slug
 from coverkit.whatif import WhatIf
 
 
 def _study_network(study: Study, cache_folder: str | Path | None) -> RoadNetwork:
     """The study's network: its own output folder's cache when valid (read only), else built and cached."""
     own = study.folder / study.outputs.get("folder", "results")
-    if (own / "network.gpkg").is_file():
-        try:
-            cand = RoadNetwork.load(own / "network.gpkg")
-            if cand.info.get("cache_key") == study.network_cache_key():
-                note(f"network: inputs unchanged, reusing {own / 'network.gpkg'}")
-                return cand
-        except CoverkitError:
-            pass
+    net = reusable_network(own / "network.gpkg", study.network_cache_key())
+    if net is not None:
+        return net
     net, _, _ = cached_network(study, Path(cache_folder) if cache_folder else own)
     return net
 
@@ -162,18 +154,17 @@ def compare_study(
     inputs = study_inputs(study_path, cache_folder=out)
     study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
     kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]
-    steps.step("applying the scenario")
-    net2, bases2, log = apply_scenario(net, bases, scenario)
-    snap_of = inputs["snaps"]
+    steps.step("coverage before")
     base_snap_m = float(study.bases.get("snap_m", 500.0))
-    steps.step("coverage before and after")
-    before, after = {}, {}
-    for name, dem in demand.items():
-        tb = travel_table(net, bases, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
-        ta = travel_table(net2, bases2, dem, horizon_s, snap_of[name], base_snap_m, study.direction)
-        for s in study.standards:
-            before[(s.name, name)] = evaluate_coverage(net, bases, dem, s, table=tb)
-            after[(s.name, name)] = evaluate_coverage(net2, bases2, dem, s, table=ta)
+    # the incremental what-if snaps each demand layer once and searches again only from the bases the scenario can
+    # touch; it equals a full recomputation (tests/test_scenario.py)
+    whatif = WhatIf(net, bases, demand, study.standards, horizon_s, study.direction, inputs["snaps"], base_snap_m)
+    steps.step("coverage after the scenario")
+    outcome = whatif.run(scenario)
+    net2, bases2, log = outcome.network, outcome.bases, outcome.changes
+    keys = [(s.name, name) for name in demand for s in study.standards]
+    before = {k: whatif.results[k] for k in keys}
+    after = {k: outcome.results[k] for k in keys}
     comparisons = {k: compare_results(before[k], after[k]) for k in before}
     if all(c.unchanged for c in comparisons.values()) and not len(log.base_changes):
         log.notes.append("coverage unchanged: no travel time to any demand point changed")

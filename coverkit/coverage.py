@@ -22,7 +22,7 @@ from affine import Affine
 from coverkit.errors import CoverkitError, FieldError
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
-from coverkit.travel import NO_ACCESS_CLASSES, nearest_sources, point_times, snap_points
+from coverkit.travel import NO_ACCESS_CLASSES, count_within, nearest_sources, point_times, snap_points
 
 #: Default search horizon beyond the standard, so response times past the standard are still measured (s).
 DEFAULT_HORIZON_S = 3600.0
@@ -277,7 +277,7 @@ def evaluate_coverage(
     horizon_s, direction = table.horizon_s, table.direction
     base_snap, dem_snap, times = table.base_snap, table.point_snap, table.times
     src, t = nearest_sources(times, k=2)
-    depth = np.bincount(times.tocoo().col[times.tocoo().data <= standard.travel_s], minlength=len(demand))
+    depth = count_within(times, standard.travel_s)
     base_ids = bases["id"].astype(str).to_numpy()
     first = np.where(src[:, 0] >= 0, base_ids[np.maximum(src[:, 0], 0)], "")
     second = np.where(src[:, 1] >= 0, base_ids[np.maximum(src[:, 1], 0)], "")
@@ -474,8 +474,7 @@ def area_layers(
     times = grid.table.times
     cell_m = grid.cell_m
     src, t = nearest_sources(times, k=1)
-    coo = times.tocoo()
-    depth_on = np.bincount(coo.col[coo.data <= result.standard.travel_s], minlength=len(on))
+    depth_on = count_within(times, result.standard.travel_s)
     near = grid.near
     first_grid = np.full(nrow * ncol, -1, dtype=np.int32)
     first_grid[on] = src[:, 0]

@@ -146,7 +146,7 @@ def demand_from_polygons(
     order = np.lexsort((np.arange(len(all_poly)), all_poly))
     all_pts, all_poly, all_w = all_pts[order], all_poly[order], all_w[order]
     seq = np.arange(len(all_poly)) - np.searchsorted(all_poly, all_poly)
-    ids = [f"{poly_ids[p]}:{s}" for p, s in zip(all_poly, seq, strict=True)]
+    ids = np.char.add(np.char.add(poly_ids[all_poly].astype(str), ":"), seq.astype(str))
     nonzero = all_w > 0
     return gpd.GeoDataFrame(
         {

@@ -255,12 +255,9 @@ def chosen_table(
     """The chosen new sites with the demand each adds beyond the fixed sites and the demand only it covers."""
     covers = problem.covers.tocsc()
     w = problem.weights
-    fixed_cov = np.zeros(covers.shape[0], dtype=bool)
-    for j in np.flatnonzero(problem.fixed):
-        fixed_cov[covers[:, [j]].indices] = True
-    open_count = np.zeros(covers.shape[0], dtype=int)
-    for j in res.open_sites:
-        open_count[covers[:, [j]].indices] += 1
+    counts = covers.astype(np.int64)
+    fixed_cov = np.asarray(counts[:, np.flatnonzero(problem.fixed)].sum(axis=1)).ravel() > 0
+    open_count = np.asarray(counts[:, np.asarray(res.open_sites, dtype=int)].sum(axis=1)).ravel()
     rows = []
     for j in res.sites:
         idx = covers[:, [j]].indices

@@ -360,22 +360,36 @@ def slug(text: str) -> str:
     return "_".join(filter(None, out.split("_"))) or "x"
 
 
+def reusable_network(path: Path, key: str) -> Any:
+    """The network cached at ``path`` when it was built from inputs with digest ``key``, else None.
+
+    Only the small ``build_info`` layer is read to compare the key; a damaged cache is never trusted.
+    """
+    from coverkit.network import RoadNetwork
+    from coverkit.progress import note
+
+    if not path.is_file():
+        return None
+    try:
+        if RoadNetwork.read_info(path).get("cache_key") != key:
+            return None
+        net = RoadNetwork.load(path)
+    except Exception:  # a damaged or foreign file is rebuilt over, never trusted
+        return None
+    note(f"network: inputs unchanged, reusing {path}")
+    return net
+
+
 def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
     """Build the study's network, or reuse ``folder/network.gpkg`` when its inputs are unchanged."""
-    from coverkit.network import RoadNetwork, build_network
+    from coverkit.network import build_network
     from coverkit.network.centerlines import parse_fields
-    from coverkit.progress import note
 
     key = study.network_cache_key()
     path = folder / "network.gpkg"
-    if path.is_file():
-        try:
-            net = RoadNetwork.load(path)
-        except Exception:  # a damaged cache is rebuilt, never trusted
-            net = None
-        if net is not None and net.info.get("cache_key") == key:
-            note(f"network: inputs unchanged, reusing {path}")
-            return net, net.info.get("summary_text", ""), True
+    net = reusable_network(path, key)
+    if net is not None:
+        return net, net.info.get("summary_text", ""), True
     roads = study.roads
     fields = roads.get("fields")
     if isinstance(fields, dict):

@@ -227,6 +227,13 @@ class RoadNetwork:
             pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
         return path
 
+    @staticmethod
+    def read_info(path: str | Path) -> dict:
+        """The build summary saved with a network (its ``build_info`` layer only, without reading the graph)."""
+        info_df = pyogrio.read_dataframe(path, layer=INFO_LAYER)
+        meta = dict(zip(info_df["key"], info_df["value"], strict=True))
+        return json.loads(meta.get("info_json", "{}"))
+
     @classmethod
     def load(cls, path: str | Path) -> RoadNetwork:
         """Read a network written by :meth:`save`.
