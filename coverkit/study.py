@@ -180,6 +180,21 @@ def _file(folder: Path, value: str, key: str, where: str) -> Path:
     return path
 
 
+def _check_zone_field(zones: dict[str, Any], where: str) -> None:
+    """The zones layer must be readable and hold ``zones.id_field`` (checked before any work is done)."""
+    import pyogrio
+
+    try:
+        fields = list(pyogrio.read_info(zones["file"], layer=zones.get("layer"))["fields"])
+    except Exception as exc:
+        raise StudyError(f"{where}: zones.file {zones['file']} is not a readable layer ({str(exc)[:60]}).") from None
+    if zones["id_field"] not in fields:
+        raise StudyError(
+            f"{where}: zones.id_field '{zones['id_field']}' is not a field of {Path(zones['file']).name}; "
+            f"its fields are {', '.join(fields)}."
+        )
+
+
 def load_study(path: str | Path) -> Study:
     """Read and validate a study TOML file.
 
@@ -263,6 +278,7 @@ def load_study(path: str | Path) -> Study:
     if "zones" in raw:
         zones = dict(raw["zones"])
         zones["file"] = str(_file(folder, zones["file"], "zones.file", where))
+        _check_zone_field(zones, where)
     outputs = dict(raw.get("outputs", {}))
     minutes = outputs.get("isochrone_minutes", [4, 8, 12])
     if not all(isinstance(m, int | float) and not isinstance(m, bool) and m > 0 for m in minutes) or not minutes:
@@ -483,6 +499,13 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     bases, demand, kinds, snaps = load_inputs(study, net)
     residents = next((n for n, k in kinds.items() if k == "residents"), study.demand[0].name)
     incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
+    zones = None
+    if study.zones:
+        import pyogrio
+
+        zones = pyogrio.read_dataframe(study.zones["file"], layer=study.zones.get("layer"))
+        if zones.crs is None:
+            raise StudyError(f"{study.zones['file']}: the zones layer has no CRS; assign one.")
 
     steps.step("drive-time polygons and travel-time surface")
     minutes = opts["isochrone_minutes"]
@@ -511,13 +534,6 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         + (", siting" if study.siting else "")
         + (", availability" if study.availability else "")
     )
-    zones = None
-    if study.zones:
-        import pyogrio
-
-        zones = pyogrio.read_dataframe(study.zones["file"], layer=study.zones.get("layer"))
-        if zones.crs is None:
-            raise StudyError(f"{study.zones['file']}: the zones layer has no CRS; assign one.")
     runs: list[StandardRun] = []
     rows = []
     # one search per demand layer serves every standard: the horizon covers the longest standard

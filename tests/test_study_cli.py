@@ -384,3 +384,36 @@ def test_isochrones_command_writes_nested_polygons_and_surface(demo_net, tmp_pat
         assert src.nodata == -1 and src.crs is not None
         valid = arr[arr != src.nodata]
         assert valid.min() >= 0 and valid.max() <= 12.0 + 1e-6
+
+
+def test_bad_zone_field_stops_before_any_output(tmp_path):
+    """A zones id_field missing from the layer is caught when the study is read, so nothing is written."""
+    text = BASE_STUDY + f'\n[zones]\nfile = "{DEMO / "districts.geojson"}"\nid_field = "zone"\n'
+    study = _study(tmp_path, text)
+    out = tmp_path / "never"
+    assert main(["run", str(study), "--out", str(out), "--quiet"]) == 2
+    assert not out.exists()
+
+
+def test_swapped_base_coordinates_get_a_hint(demo_net, tmp_path, capsys):
+    _, net_path = demo_net
+    bases = pd.read_csv(DEMO / "stations.csv").rename(columns={"lon": "lat", "lat": "lon"})
+    path = tmp_path / "swapped.csv"
+    bases.to_csv(path, index=False)
+    code = main(
+        [
+            "cover",
+            str(net_path),
+            "--bases",
+            str(path),
+            "--demand",
+            str(DEMO / "population.tif"),
+            "--minutes",
+            "8",
+            "--out",
+            str(tmp_path / "x.gpkg"),
+            "--quiet",
+        ]
+    )
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and "swapped" in err and len(err.splitlines()) == 1

@@ -61,13 +61,13 @@ def read_points(
     blank = ids.isna() | (ids.astype(str).str.strip() == "")
     if blank.any():
         row = int(np.flatnonzero(blank.to_numpy())[0])
-        raise FieldError(f"{path}: row {_row_label(path, row)} has no '{id_field}'; give every {what[:-1]} an id.")
+        raise FieldError(f"{path}: {_row_label(path, row)} has no '{id_field}'; give every {what[:-1]} an id.")
     ids = ids.astype(str).str.strip()
     dup = ids.duplicated(keep="first")
     if dup.any():
         row = int(np.flatnonzero(dup.to_numpy())[0])
         raise FieldError(
-            f"{path}: id '{ids.iloc[row]}' appears more than once (again at row {_row_label(path, row)}); "
+            f"{path}: id '{ids.iloc[row]}' appears more than once (again at {_row_label(path, row)}); "
             f"ids in '{id_field}' must be unique."
         )
     gdf = gdf.drop(columns=[id_field]).copy()
@@ -117,7 +117,7 @@ def lonlat_columns(df: pd.DataFrame, path: Path, give: str = "degrees") -> tuple
 
 def _row_label(path: Path, row: int) -> str:
     """Human row number: the CSV line (header is line 1), or the 1-based feature number."""
-    return f"{row + 2} (line)" if path.suffix.lower() in _CSV_SUFFIXES else str(row + 1)
+    return f"line {row + 2}" if path.suffix.lower() in _CSV_SUFFIXES else f"feature {row + 1}"
 
 
 def _read_csv(path: Path, id_field: str, what: str) -> gpd.GeoDataFrame:

@@ -242,13 +242,16 @@ def snap_points(
 
     if not on.all() and off_network == "raise":
         bad = np.flatnonzero(~on)
-        shown = ", ".join(f"{id_arr[i]} ({dist_m[i]:.0f} m)" for i in bad[:10])
+        shown = ", ".join(f"{id_arr[i]} ({_distance_text(dist_m[i])})" for i in bad[:10])
         more = f" and {len(bad) - 10} more" if len(bad) > 10 else ""
         count = f"{len(bad)} {what} lie" if len(bad) > 1 else f"1 of the {what} lies"
-        raise OffNetworkError(
-            f"{count} farther than {max_snap_m:g} m from any open road: {shown}{more}; "
-            "move them onto a road, check their coordinates, or raise the snap limit."
+        # tens of kilometres off is a coordinate mistake, not a point beside the road
+        hint = (
+            "check that lon and lat are not swapped and that the network covers them"
+            if np.nanmax(np.where(np.isfinite(dist_m[bad]), dist_m[bad], np.nan), initial=0.0) > FAR_OFF_M
+            else "move them onto a road, check their coordinates, or raise the snap limit"
         )
+        raise OffNetworkError(f"{count} farther than {max_snap_m:g} m from any open road: {shown}{more}; {hint}.")
 
     # Entries: every open directed edge of the snapped piece, with the fraction along that edge.
     on_idx = np.flatnonzero(on)
@@ -296,6 +299,9 @@ def snap_points(
     return result
 
 
+#: A point this far from every road (m) is taken as a coordinate mistake in messages.
+FAR_OFF_M = 50_000.0
+
 #: Road classes with no access from the land beside them: population is not served from a carriageway.
 NO_ACCESS_CLASSES = ("motorway", "motorway_link", "trunk_link")
 
@@ -310,6 +316,13 @@ def _snap_targets(net: RoadNetwork, pieces: RoadPieces, exclude: tuple[str, ...]
         tree = shapely.STRtree(geoms) if exclude else pieces.tree
         net._csr_cache[key] = (allowed, segment_index(geoms), tree)
     return net._csr_cache[key]
+
+
+def _distance_text(metres: float) -> str:
+    """A distance for messages: metres up to 10 km, kilometres beyond."""
+    if not np.isfinite(metres):
+        return "no road"
+    return f"{metres:.0f} m" if metres < 10_000 else f"{metres / 1000:,.0f} km"
 
 
 def island_mask(net: RoadNetwork, snapped: Snapped) -> np.ndarray:
