@@ -7,9 +7,9 @@ hugs the roads and has holes where no reached road comes within ``reach_m``; it 
 Two constructions of the same set:
 
 * **fast** (default): per base, on a square grid (spacing ``cell_m``, default ``reach_m / 3``, i.e. 50 m for the
-  default 150 m reach) over the reached extent only, a Euclidean feature transform (``scipy.ndimage``) finds each
-  node's nearest reached road node; near the ``reach_m`` level the distance is taken to short chords of the road
-  itself (see :func:`reach_fields`). One field per band, each never above the previous one, so the traced regions
+  default 150 m reach) over the reached extent only, compiled kernels (:mod:`coverkit.polygon_kernels`) find each
+  node's nearest reached road node and, near the ``reach_m`` level, its exact distance to the reached road
+  segments (see :func:`reach_fields`). One field per band, each never above the previous one, so the traced regions
   are nested by construction. The ``reach_m`` level line is traced by marching squares with linear interpolation
   (``contourpy``) into valid polygons directly; holes smaller than ``min_hole_km2`` are filled (which keeps the
   nesting: a hole of band k lies inside a hole of band k-1). The "any base" field is the least of the bases'
@@ -33,11 +33,18 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 import shapely
-from scipy.ndimage import distance_transform_edt
 
 from coverkit.atomic import atomic_path
 from coverkit.errors import CoverkitError
 from coverkit.network.model import RoadNetwork
+from coverkit.polygon_kernels import (
+    FAR_M,
+    band_distance,
+    clip_segments,
+    piece_stretches,
+    road_grid,
+    segment_cells,
+)
 from coverkit.progress import counted
 from coverkit.travel.search import _check_direction, nearest_node_times, node_times, run_s
 from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, road_pieces, snap_points
@@ -142,7 +149,7 @@ def drive_time_polygons(
             lap("exact polygons")
         else:
             if i < len(snapped):
-                fields = reach_fields(*reached_segments(reached), n_b, reach_m, cell_m)
+                fields = reach_fields(reached, n_b, reach_m, cell_m)
                 lap("distance fields")
                 if any_base:
                     for k, f in enumerate(fields):
@@ -244,30 +251,26 @@ def reached_pieces(
     n_b = len(bands_s)
     node_s = np.asarray(node_s, dtype=float)
     nodes = np.flatnonzero(node_s <= bands_s[-1])
-    e = _edges_at(net, nodes, direction)
-    if direction == "out":
-        t0 = node_s[_u(net)[e]]
-    else:
-        t0 = node_s[_v(net)[e]] + delay[e]
-    ok = (t0 <= bands_s[-1]) & np.isfinite(run[e])
-    e, t0 = e[ok], t0[ok]
-    # reached fraction of each edge at each band, from the end it is entered by
-    ell = _reached_fraction(run[e], t0, bands_s, np.ones(len(e)))
-    # anchored at the piece's start (0) or end (1): out-edges along the piece and in-edges against it start at 0
-    at_start = pieces.reversed_of_edge[e] == (direction == "in")
-    pc = pieces.piece_of_edge[e]
+    ptr, e_run, e_delay, e_piece, e_rev = _edge_lists(net, direction)
     n_p = len(pieces.rep_edge)
+    # per touched piece and band, the longest stretch reached from each end (the union of stretches anchored at
+    # one end is the longest of them), in one compiled pass over the edges at the reached nodes
+    touched, lf, rt = piece_stretches(
+        nodes.astype(np.int64),
+        node_s,
+        direction == "in",
+        ptr,
+        e_run,
+        e_delay,
+        e_piece,
+        e_rev,
+        np.asarray(bands_s, dtype=np.float64),
+        n_p,
+    )
     mark = np.zeros(n_p, dtype=bool)
-    mark[pc] = True
-    touched = np.flatnonzero(mark)
+    mark[touched] = True
     local = np.zeros(n_p, dtype=np.int64)
     local[touched] = np.arange(len(touched))
-    # per piece, end and band: the longest stretch from that end (flat index: one fast 1-d ufunc.at)
-    flat = ((local[pc] * 2 + (~at_start)) * n_b)[:, None] + np.arange(n_b)
-    stretch = np.zeros(len(touched) * 2 * n_b)
-    np.maximum.at(stretch, flat.ravel(), ell.ravel())
-    stretch = stretch.reshape(-1, 2, n_b)
-    lf, rt = stretch[:, 0], stretch[:, 1]
     is_full = lf + rt >= 1.0 - 1e-9
     full_band = np.where(is_full.any(axis=1), np.argmax(is_full, axis=1), n_b)
     piece_len = _piece_length(net)
@@ -382,18 +385,24 @@ def _piece_length(net: RoadNetwork) -> np.ndarray:
     return net._csr_cache[key]
 
 
-def _edges_at(net: RoadNetwork, nodes: np.ndarray, direction: str) -> np.ndarray:
-    """The edges leaving (``"out"``) or entering (``"in"``) ``nodes`` (an edge list grouped by node, cached)."""
-    key = f"coverkit.isochrones:edges_at:{direction}"
+def _edge_lists(net: RoadNetwork, direction: str) -> tuple[np.ndarray, ...]:
+    """The edges leaving (``"out"``) or entering (``"in"``) each node, grouped by node (cached): ``ptr`` and, in
+    that order, each edge's running time, end-node delay, road piece and whether it runs against the piece."""
+    key = f"coverkit.isochrones:edge_lists:{direction}"
     if key not in net._csr_cache:
         end = _u(net) if direction == "out" else _v(net)
         order = np.argsort(end, kind="stable")
-        ptr = np.concatenate([[0], np.cumsum(np.bincount(end, minlength=net.n_nodes))])
-        net._csr_cache[key] = (order, ptr)
-    order, ptr = net._csr_cache[key]
-    cnt = ptr[nodes + 1] - ptr[nodes]
-    pos = np.repeat(ptr[nodes], cnt) + np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
-    return order[pos]
+        ptr = np.concatenate([[0], np.cumsum(np.bincount(end, minlength=net.n_nodes))]).astype(np.int64)
+        run, delay, _ = _edge_arrays(net)
+        pieces = road_pieces(net)
+        net._csr_cache[key] = (
+            ptr,
+            np.ascontiguousarray(run[order], dtype=np.float64),
+            np.ascontiguousarray(delay[order], dtype=np.float64),
+            pieces.piece_of_edge[order].astype(np.int64),
+            pieces.reversed_of_edge[order].copy(),
+        )
+    return net._csr_cache[key]
 
 
 def _u(net: RoadNetwork) -> np.ndarray:
@@ -455,23 +464,31 @@ def reached_segments(reached: Reached) -> tuple[np.ndarray, np.ndarray, np.ndarr
     row
         Shape (S,): the increment (row of ``reached``) each segment belongs to, segments in order along it.
     """
+    xy, band, row, _, _ = _clipped_segments(reached)
+    return xy, band, row
+
+
+def _clipped_segments(reached: Reached):
+    """:func:`reached_segments` plus, per segment, the piece segment it was cut from and whether it is whole."""
     seg = _piece_segments(reached.net)
-    p = reached.piece
-    cnt = seg["ptr"][p + 1] - seg["ptr"][p]
-    row = np.repeat(np.arange(len(p)), cnt)
-    s = np.repeat(seg["ptr"][p], cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))
-    s0, s1 = seg["f0"][s], seg["f1"][s]
-    lo = np.maximum(s0, reached.a[row])
-    hi = np.minimum(s1, reached.b[row])
-    keep = hi > lo
-    keep |= (hi == lo) & (reached.a[row] == reached.b[row])
-    row, s, s0, s1, lo, hi = row[keep], s[keep], s0[keep], s1[keep], lo[keep], hi[keep]
-    width = np.where(s1 > s0, s1 - s0, 1.0)
-    t0 = ((lo - s0) / width)[:, None]
-    t1 = ((hi - s0) / width)[:, None]
-    p0, p1 = seg["xy"][s, :2], seg["xy"][s, 2:]
-    out = np.column_stack([p0 + t0 * (p1 - p0), p0 + t1 * (p1 - p0)])
-    return out, reached.band[row], row
+    xy, row, src, whole = clip_segments(
+        reached.piece.astype(np.int64),
+        reached.a.astype(np.float64),
+        reached.b.astype(np.float64),
+        seg["ptr"],
+        seg["f0"],
+        seg["f1"],
+        seg["xy"],
+    )
+    return xy, reached.band[row].astype(np.int64), row, src, whole
+
+
+def _segment_cells(net: RoadNetwork, cell_m: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Grid cells of every piece segment at ``cell_m`` (cached per network and cell size)."""
+    key = f"coverkit.isochrones:segment_cells:{float(cell_m)!r}"
+    if key not in net._csr_cache:
+        net._csr_cache[key] = segment_cells(_piece_segments(net)["xy"], float(cell_m))
+    return net._csr_cache[key]
 
 
 def _piece_segments(net: RoadNetwork) -> dict:
@@ -512,13 +529,14 @@ def band_polygons(
 ) -> list[shapely.Geometry]:
     """One MultiPolygon per band from the reached road increments, nested, valid, small holes filled (fast grid
     construction by default, shapely buffer-and-union with ``exact=True``)."""
-    xy, band, row = reached_segments(reached)
     n_b = len(bands_s)
     if exact:
-        raw = _exact_polygons(xy, band, row, n_b, reach_m)
+        raw = _exact_polygons(*reached_segments(reached), n_b, reach_m)
     else:
         # nested by construction: the fields only decrease from band to band, and filling small holes keeps that
-        return _fast_polygons(xy, band, row, n_b, reach_m, cell_m or reach_m / 3.0, min_hole_km2 * 1e6)
+        cell_m = cell_m or reach_m / 3.0
+        fields = reach_fields(reached, n_b, reach_m, cell_m)
+        return [_field_polygons(f, cell_m, reach_m, min_hole_km2 * 1e6) for f in fields]
     out: list[shapely.Geometry] = []
     prev = shapely.Polygon()
     for g in raw:
@@ -567,12 +585,6 @@ def _polylines(xy: np.ndarray, row: np.ndarray) -> np.ndarray:
     return shapely.linestrings(pts, indices=np.cumsum(np.r_[True, ids[1:] != ids[:-1]]) - 1)
 
 
-def _fast_polygons(xy, band, row, n_b, reach_m, cell_m, min_hole_m2) -> list[shapely.Geometry]:
-    """Distance fields of the reached road per band (nested), each traced at ``reach_m``."""
-    fields = reach_fields(xy, band, row, n_b, reach_m, cell_m)
-    return [_field_polygons(f, cell_m, reach_m, min_hole_m2) for f in fields]
-
-
 @dataclass
 class Field:
     """Distance (m) from the nodes of a square grid to a band's reached road.
@@ -604,160 +616,49 @@ class Field:
         return slice(self.iy0 - y0, self.iy0 - y0 + ny), slice(self.ix0 - x0, self.ix0 - x0 + nx)
 
 
-#: Offsets (dy, dx) of the 3 x 3 neighbourhood, shape (2, 9).
-_NEIGHBOURS_3X3 = np.array([[dy, dx] for dy in (-1, 0, 1) for dx in (-1, 0, 1)]).T
-
 #: Value of a node farther than any reach from the road (m): a stand-in for "far", above every level traced.
-_FAR = 1e9
+_FAR = FAR_M
 
 
-def reach_fields(
-    xy: np.ndarray, band: np.ndarray, row: np.ndarray, n_b: int, reach_m: float, cell_m: float
-) -> list[Field | None]:
+def reach_fields(reached: Reached, n_b: int, reach_m: float, cell_m: float) -> list[Field | None]:
     """Distance from grid nodes to the reached road of each band, nested (band k never farther than band k-1).
 
-    The reached road is sampled every ``cell_m`` (and at both ends) along each increment (``xy, band, row`` as from
-    :func:`reached_segments`); a grid node whose cell holds samples is a *road node*. Its *chord* runs from the
-    first to the last sample, in road order, of the earliest-band increment in its cell, one sample further each
-    way. For band k a Euclidean feature transform (``scipy.ndimage.distance_transform_edt``; C. R. Maurer, R. Qi,
-    V. Raghavan (2003), "A linear time algorithm for computing exact Euclidean distance transforms of binary images
-    in arbitrary dimensions", IEEE PAMI 25(2)) gives every node its nearest road node of band k and the distance
-    to it, within about a cell of the distance to the road. Where that is within about two cells of ``reach_m``
-    (the only nodes the traced line depends on), it is replaced by the least distance to the chords of the 3 x 3 road
-    nodes around the nearest one: the feature transform ranks road nodes by grid position, up to half a cell off
-    the road, so the nearest road node may sit along the road from the true foot point, and a neighbour's chord
-    covers it. On straight or gently curved roads this is the distance to the road to well under a metre.
-
-    Each band's field covers the bounding box of its road nodes plus ``reach_m + 2 cell_m``, so the work follows
-    the reached extent, not the network. ``None`` for a band that reaches no road.
+    The reached segments (:func:`reached_segments`) are put on one grid anchored at the CRS origin
+    (:func:`coverkit.polygon_kernels.road_grid`); per band, a lower-envelope distance transform over the band's road
+    nodes gives each grid node its nearest one, and the nodes where the traced ``reach_m`` line can fall get their
+    exact distance to the band's segments around it (:func:`coverkit.polygon_kernels.band_distance`). Each band's field
+    covers the extent of its road nodes plus ``reach_m + 2 cell_m``, so the work follows the reached extent, not the
+    network. ``None`` for a band that reaches no road.
     """
     c = float(cell_m)
     out: list[Field | None] = [None] * n_b
+    xy, band, _, src, whole = _clipped_segments(reached)
     if len(xy) == 0:
         return out
-    sx, sy, lab, srow = _road_samples(xy, band, row, c)
-    jx = np.rint(sx / c).astype(np.int64)
-    jy = np.rint(sy / c).astype(np.int64)
-    margin = int(np.ceil((reach_m + 2.0 * c) / c))
-    # the window of the largest band holds every other
-    gx0, gy0 = int(jx.min()) - margin, int(jy.min()) - margin
-    gnx = int(jx.max()) + margin - gx0 + 1
-    cell = (jy - gy0) * gnx + (jx - gx0)
-    rn, rlab, chords = _road_nodes(cell, lab, srow, sx - gx0 * c, sy - gy0 * c, n_b)
-    rx, ry = rn % gnx, rn // gnx
-    gny = int(jy.max()) + margin - gy0 + 1
-    slot = np.full(gny * gnx, -1, dtype=np.int64)
-    slot[rn] = np.arange(len(rn))
-    # earliest band of each grid node's road (n_b: no road), as a grid: a band's road mask is one comparison
-    # on a window of it, and the 3 x 3 neighbours' bands are one small gather
-    lab_grid = np.full(gny * gnx, n_b, dtype=np.int8 if n_b < 127 else np.int32)
-    lab_grid[rn] = rlab
-    lab_2d = lab_grid.reshape(gny, gnx)
+    # the margin keeps every window edge beyond the level (and one cell of grid around each road node)
+    margin = int(np.ceil((reach_m + 2.0 * c) / c)) + 1
+    gx0 = int(np.floor(min(xy[:, 0].min(), xy[:, 2].min()) / c)) - margin
+    gy0 = int(np.floor(min(xy[:, 1].min(), xy[:, 3].min()) / c)) - margin
+    gnx = int(np.ceil(max(xy[:, 0].max(), xy[:, 2].max()) / c)) + margin - gx0 + 1
+    gny = int(np.ceil(max(xy[:, 1].max(), xy[:, 3].max()) / c)) + margin - gy0 + 1
+    cell_ptr, cell_x, cell_y = _segment_cells(reached.net, c)
+    label, head, link, link_seg, extent = road_grid(
+        xy, band, src, whole, cell_ptr, cell_x, cell_y, n_b, c, gx0, gy0, gnx, gny
+    )
     prev: Field | None = None
     for k in range(n_b):
-        sel = np.flatnonzero(rlab <= k)
-        if len(sel) == 0:
+        if extent[k, 0] < 0:
             continue
-        x0, y0 = int(rx[sel].min()) - margin, int(ry[sel].min()) - margin
-        nx, ny = int(rx[sel].max()) + margin - x0 + 1, int(ry[sel].max()) + margin - y0 + 1
-        background = lab_2d[y0 : y0 + ny, x0 : x0 + nx] > k
-        idx = distance_transform_edt(background, return_distances=False, return_indices=True)
-        fy, fx = idx[0].reshape(-1), idx[1].reshape(-1)
-        # squared distance to the nearest road node, in cells (exact integers), built in place (few full passes)
-        dyy = idx[0] - np.arange(ny, dtype=np.int32)[:, None]
-        np.multiply(dyy, dyy, out=dyy)
-        dxx = idx[1] - np.arange(nx, dtype=np.int32)[None, :]
-        np.multiply(dxx, dxx, out=dxx)
-        d2 = np.add(dyy, dxx, out=dyy).reshape(-1)
-        del dxx
-        # stand-ins on the right side of the level for nodes clearly inside or outside; only the zone around the
-        # level, where the traced line falls, gets distances. A node's road-node distance exceeds its distance
-        # to the road by at most ~1.2 cells and falls short by at most ~0.7 (see above); the line crosses grid
-        # edges whose ends lie within one cell of the level. On integer d2: d2 <= lo2 inside, lo2 < d2 < hi2 zone.
-        lo_c, hi_c = max(reach_m / c - 1.75, 0.0), reach_m / c + 2.25
-        lo2 = int(np.floor(lo_c * lo_c))
-        hi2 = int(np.ceil(hi_c * hi_c))
-        dist = np.where(d2 <= lo2, 0.0, _FAR)
-        # lo2 < d2 < hi2 in one unsigned comparison (values at or below lo2 wrap round to large ones)
-        shifted = np.subtract(d2, lo2 + 1, out=d2).view(f"u{d2.itemsize}")
-        zone = np.flatnonzero(shifted < hi2 - lo2 - 1)
-        del shifted, d2, dyy
-        if len(zone):
-            own = (fy[zone].astype(np.int64) + y0) * gnx + fx[zone] + x0
-            px = ((zone % nx + x0) * c).astype(np.float32)
-            py = ((zone // nx + y0) * c).astype(np.float32)
-            d0 = _chord_distance(px, py, [ch[slot[own]] for ch in chords])
-            # the chord lies on reached road (up to its sagitta), so d0 bounds the distance from above: more than
-            # a cell below the level means clearly inside
-            deep = d0 < reach_m - 1.25 * c
-            dist[zone[deep]] = 0.0
-            zone, own, px, py, d0 = zone[~deep], own[~deep], px[~deep], py[~deep], d0[~deep]
-            # the 3 x 3 road nodes around the nearest one (inside the window: the margin is > 2 cells)
-            nb = own[:, None] + (_NEIGHBOURS_3X3[0] * gnx + _NEIGHBOURS_3X3[1])[None, :]
-            ok = lab_grid[nb] <= k
-            sl = slot[nb]  # -1 (no road node) picks the last chord, masked by ``ok``
-            d = _chord_distance(px[:, None], py[:, None], [ch[sl] for ch in chords])
-            d[~ok] = np.inf
-            dist[zone] = np.minimum(d.min(axis=1), d0)
-        dist = dist.reshape(ny, nx)
+        wx0, wy0 = int(extent[k, 0]) - margin, int(extent[k, 1]) - margin
+        wnx = int(extent[k, 2] - extent[k, 0]) + 2 * margin + 1
+        wny = int(extent[k, 3] - extent[k, 1]) + 2 * margin + 1
+        dist = band_distance(label, k, wx0, wy0, wnx, wny, head, link, link_seg, xy, band, gx0, gy0, c, float(reach_m))
+        field = Field(wx0 + gx0, wy0 + gy0, dist)
         if prev is not None:
-            s_ = prev._slices(x0 + gx0, y0 + gy0)
+            s_ = prev._slices(field.ix0, field.iy0)
             np.minimum(dist[s_], prev.dist_m, out=dist[s_])
-        prev = out[k] = Field(x0 + gx0, y0 + gy0, dist)
+        prev = out[k] = field
     return out
-
-
-def _road_nodes(cell, lab, srow, sx, sy, n_b):
-    """Road nodes (cells holding samples), the earliest band reaching each, and each one's chord.
-
-    A *run* is a stretch of consecutive samples of one increment in one cell; each road node keeps the first run
-    of its earliest band, and its chord spans that run plus one sample each way along the increment.
-
-    Returns the cell index of each road node, its band, and the chord end points ``(ax, ay, bx, by)`` (float32,
-    in the coordinates given).
-    """
-    n = len(cell)
-    start = np.flatnonzero(np.r_[True, (cell[1:] != cell[:-1]) | (srow[1:] != srow[:-1])])
-    end = np.r_[start[1:], n] - 1
-    # earliest band first, then first run: one minimum per cell over a combined key
-    key = lab[start].astype(np.int64) * (len(start) + 1) + np.arange(len(start))
-    best = np.full(int(cell.max()) + 1, np.iinfo(np.int64).max, dtype=np.int64)
-    np.minimum.at(best, cell[start], key)
-    rn = np.flatnonzero(best < np.iinfo(np.int64).max)
-    run = best[rn] % (len(start) + 1)
-    lo, hi = start[run], end[run]
-    lo = np.where((lo > 0) & (srow[np.maximum(lo - 1, 0)] == srow[lo]), lo - 1, lo)
-    hi = np.where((hi < n - 1) & (srow[np.minimum(hi + 1, n - 1)] == srow[hi]), hi + 1, hi)
-    chords = tuple(v.astype(np.float32) for v in (sx[lo], sy[lo], sx[hi], sy[hi]))
-    return rn, lab[lo], chords
-
-
-def _chord_distance(px, py, chord) -> np.ndarray:
-    """Distance (m, float32) from points ``(px, py)`` to chords ``(ax, ay, bx, by)`` (broadcast)."""
-    ax, ay, bx, by = chord
-    dx, dy = bx - ax, by - ay
-    qx, qy = px - ax, py - ay
-    t = (qx * dx + qy * dy) / np.maximum(dx * dx + dy * dy, np.float32(1e-12))
-    np.clip(t, 0.0, 1.0, out=t)
-    return np.hypot(qx - t * dx, qy - t * dy)
-
-
-def _road_samples(xy: np.ndarray, band: np.ndarray, row: np.ndarray, step_m: float):
-    """Points along the reached segments at most ``step_m`` apart, both ends of each increment included.
-
-    Returns x, y (m), band and increment row per point; points of an increment are consecutive, in road order.
-    """
-    length = np.hypot(xy[:, 2] - xy[:, 0], xy[:, 3] - xy[:, 1])
-    n = np.maximum(np.ceil(length / step_m), 1).astype(np.int64)
-    # each segment gives its start and the points inside it; the last segment of an increment also its end
-    last = np.r_[row[1:] != row[:-1], True]
-    cnt = n + last
-    # per-segment values repeated per point (np.repeat on 1-d arrays is cheaper than gathers from the 2-d table)
-    j = np.arange(int(cnt.sum())) - np.repeat(np.cumsum(cnt) - cnt, cnt)
-    t = j / np.repeat(n, cnt)
-    x = np.repeat(xy[:, 0], cnt) + t * np.repeat(xy[:, 2] - xy[:, 0], cnt)
-    y = np.repeat(xy[:, 1], cnt) + t * np.repeat(xy[:, 3] - xy[:, 1], cnt)
-    return x, y, np.repeat(band, cnt), np.repeat(row, cnt)
 
 
 def _field_polygons(field: Field | None, cell_m: float, level_m: float, min_hole_m2: float) -> shapely.Geometry:

@@ -1,0 +1,470 @@
+"""Compiled kernels (numba) for the fast drive-time polygons: road on a grid and per-band distance fields.
+
+The fast path of :mod:`coverkit.isochrones` needs, per base and band, the distance from the nodes of a square grid
+to the reached road, exact near the ``reach_m`` level line that is traced. Done in numpy this costs many full
+passes over every grid node per band; here it is one pass per band in compiled code:
+
+1. :func:`road_grid` puts the reached segments on the grid: a node whose cell a segment passes through is a
+   *road node*, labelled with the earliest band reaching it, and keeps the list of segments through its cell.
+2. :func:`band_distance` runs the Felzenszwalb-Huttenlocher lower-envelope transform (P. F. Felzenszwalb,
+   D. P. Huttenlocher (2012), "Distance transforms of sampled functions", Theory of Computing 8, 415-428) over the
+   road nodes of a band, which gives every grid node its nearest road node. Only nodes whose distance to the road
+   can lie within a cell of the level get their exact distance, to the band's segments listed in the 3 x 3 cells
+   around that nearest road node; nodes clearly inside or outside get stand-in values on the right side of the
+   level, which is all that linear-interpolation contouring of the level needs (see :func:`band_distance`).
+
+Kernels are compiled on first use and cached on disk by numba (``cache=True``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+#: Stand-in distance (m) for grid nodes clearly beyond the level line.
+FAR_M = 1e9
+
+
+@njit(cache=True, nogil=True)
+def _cells_of_segment(x0, y0, x1, y1, inv_cell, out_x, out_y, at):
+    """Cells a segment passes through, in order, by grid traversal (J. Amanatides, A. Woo (1987), "A fast voxel
+    traversal algorithm for ray tracing", Eurographics); a cell is the square around a grid node, ``(ix, iy)`` the
+    node at ``(ix * cell, iy * cell)``. Writes them to ``out_x, out_y`` from position ``at`` (which must have room
+    for ``|dix| + |diy| + 1`` cells) and returns how many."""
+    fx = x0 * inv_cell + 0.5
+    fy = y0 * inv_cell + 0.5
+    ex = x1 * inv_cell + 0.5
+    ey = y1 * inv_cell + 0.5
+    ix = int(np.floor(fx))
+    iy = int(np.floor(fy))
+    n = abs(int(np.floor(ex)) - ix) + abs(int(np.floor(ey)) - iy) + 1
+    dx = ex - fx
+    dy = ey - fy
+    step_x = 1 if dx > 0 else -1
+    step_y = 1 if dy > 0 else -1
+    t_dx = abs(1.0 / dx) if dx != 0.0 else np.inf
+    t_dy = abs(1.0 / dy) if dy != 0.0 else np.inf
+    t_x = (((ix + 1 - fx) if dx > 0 else (fx - ix)) * t_dx) if dx != 0.0 else np.inf
+    t_y = (((iy + 1 - fy) if dy > 0 else (fy - iy)) * t_dy) if dy != 0.0 else np.inf
+    for m in range(n):
+        out_x[at + m] = ix
+        out_y[at + m] = iy
+        if t_x < t_y:
+            t_x += t_dx
+            ix += step_x
+        else:
+            t_y += t_dy
+            iy += step_y
+    return n
+
+
+@njit(cache=True, nogil=True)
+def _cell_count(x0, y0, x1, y1, inv_cell):
+    """Upper bound on the cells :func:`_cells_of_segment` writes."""
+    return int(abs(x1 - x0) * inv_cell + abs(y1 - y0) * inv_cell) + 3
+
+
+@njit(cache=True, nogil=True)
+def segment_cells(seg_xy, cell_m):
+    """Cells each segment passes through (see :func:`_cells_of_segment`): segment ``s`` has the cells
+    ``ix[ptr[s]:ptr[s + 1]], iy[...]`` (grid nodes counted from the CRS origin). Computed once per network and
+    cell size, so that per base only the partly reached segments are traversed."""
+    inv = 1.0 / cell_m
+    n_seg = seg_xy.shape[0]
+    ptr = np.zeros(n_seg + 1, dtype=np.int64)
+    for s in range(n_seg):
+        ptr[s + 1] = ptr[s] + _cell_count(seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3], inv)
+    ix = np.empty(ptr[n_seg], dtype=np.int64)
+    iy = np.empty(ptr[n_seg], dtype=np.int64)
+    end = np.empty(n_seg + 1, dtype=np.int64)
+    end[0] = 0
+    m = 0
+    for s in range(n_seg):
+        m += _cells_of_segment(seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3], inv, ix, iy, m)
+        end[s + 1] = m
+    return end, ix[:m], iy[:m]
+
+
+@njit(cache=True, nogil=True)
+def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_bands, cell_m, gx0, gy0, gnx, gny):
+    """Road nodes of a grid, the segments through each cell, and each band's extent.
+
+    Parameters
+    ----------
+    seg_xy : float64 array (S, 4)
+        Segments ``x0, y0, x1, y1`` (m, network CRS).
+    seg_band : int64 array (S,)
+        Band (0-based) from which each segment is reached.
+    seg_src, seg_whole : arrays (S,)
+        The network segment each one was cut from, and whether it is the whole of it.
+    cell_ptr, cell_x, cell_y : int64 arrays
+        Cells of the network segments, as from :func:`segment_cells` (used for whole segments).
+    n_bands : int
+        Number of bands; the label of a node that is not a road node.
+    cell_m : float
+        Grid spacing (m); node ``(i, j)`` lies at ``((gx0 + j) * cell_m, (gy0 + i) * cell_m)``.
+    gx0, gy0, gnx, gny : int
+        Grid origin (in cells) and size.
+
+    Returns
+    -------
+    label : int8 array (gny, gnx)
+        Earliest band reaching each node's cell, ``n_bands`` if none.
+    head, link, link_seg : int64 arrays
+        Segments through cell ``c``, as a linked list: ``t = head[c]``, then ``link_seg[t]`` while ``t >= 0``,
+        ``t = link[t]``.
+    extent : int64 array (n_bands, 4)
+        Per band, the least and greatest column and row of the road nodes of that band and the earlier ones
+        (``-1`` rows for a band without road).
+    """
+    inv = 1.0 / cell_m
+    n_cells = gnx * gny
+    n_seg = seg_xy.shape[0]
+    label = np.full(n_cells, n_bands, dtype=np.int8)
+    head = np.full(n_cells, -1, dtype=np.int64)
+    cap = 4 * n_seg + 16
+    link = np.empty(cap, dtype=np.int64)
+    link_seg = np.empty(cap, dtype=np.int64)
+    bx = np.empty(64, dtype=np.int64)
+    by = np.empty(64, dtype=np.int64)
+    n_pair = 0
+    for s in range(n_seg):
+        if seg_whole[s]:
+            lo = cell_ptr[seg_src[s]]
+            m = cell_ptr[seg_src[s] + 1] - lo
+            xs = cell_x[lo : lo + m]
+            ys = cell_y[lo : lo + m]
+        else:
+            need = _cell_count(seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3], inv)
+            if need > bx.shape[0]:
+                bx = np.empty(2 * need, dtype=np.int64)
+                by = np.empty(2 * need, dtype=np.int64)
+            m = _cells_of_segment(seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3], inv, bx, by, 0)
+            xs = bx[:m]
+            ys = by[:m]
+        if n_pair + m > cap:
+            cap = 2 * (n_pair + m)
+            link = _grown(link, cap)
+            link_seg = _grown(link_seg, cap)
+        b = seg_band[s]
+        for j in range(m):
+            x = xs[j] - gx0
+            y = ys[j] - gy0
+            if x < 0 or y < 0 or x >= gnx or y >= gny:
+                continue
+            c = y * gnx + x
+            link[n_pair] = head[c]
+            link_seg[n_pair] = s
+            head[c] = n_pair
+            n_pair += 1
+            if b < label[c]:
+                label[c] = b
+    extent = np.full((n_bands, 4), -1, dtype=np.int64)
+    big = 1 << 40
+    lo_x = np.full(n_bands, big, dtype=np.int64)
+    lo_y = np.full(n_bands, big, dtype=np.int64)
+    hi_x = np.full(n_bands, -big, dtype=np.int64)
+    hi_y = np.full(n_bands, -big, dtype=np.int64)
+    for y in range(gny):
+        for x in range(gnx):
+            b = label[y * gnx + x]
+            if b < n_bands:
+                lo_x[b] = min(lo_x[b], x)
+                hi_x[b] = max(hi_x[b], x)
+                lo_y[b] = min(lo_y[b], y)
+                hi_y[b] = max(hi_y[b], y)
+    for b in range(1, n_bands):
+        lo_x[b] = min(lo_x[b], lo_x[b - 1])
+        lo_y[b] = min(lo_y[b], lo_y[b - 1])
+        hi_x[b] = max(hi_x[b], hi_x[b - 1])
+        hi_y[b] = max(hi_y[b], hi_y[b - 1])
+    for b in range(n_bands):
+        if hi_x[b] >= 0:
+            extent[b, 0] = lo_x[b]
+            extent[b, 1] = lo_y[b]
+            extent[b, 2] = hi_x[b]
+            extent[b, 3] = hi_y[b]
+    return label.reshape(gny, gnx), head, link, link_seg, extent
+
+
+@njit(cache=True, nogil=True)
+def _grown(a, n):
+    out = np.empty(n, dtype=a.dtype)
+    out[: a.shape[0]] = a
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _segment_distance(px, py, x0, y0, x1, y1):
+    """Distance (m) from a point to a segment."""
+    dx = x1 - x0
+    dy = y1 - y0
+    qx = px - x0
+    qy = py - y0
+    den = dx * dx + dy * dy
+    t = 0.0
+    if den > 0.0:
+        t = (qx * dx + qy * dy) / den
+        if t < 0.0:
+            t = 0.0
+        elif t > 1.0:
+            t = 1.0
+    ex = qx - t * dx
+    ey = qy - t * dy
+    return np.sqrt(ex * ex + ey * ey)
+
+
+@njit(cache=True, nogil=True)
+def _cell_distance(px, py, c, band, head, link, link_seg, seg_xy, seg_band, best):
+    """Least of ``best`` and the distances (m) from a point to the segments of bands ``<= band`` through cell
+    ``c``."""
+    t = head[c]
+    while t >= 0:
+        s = link_seg[t]
+        if seg_band[s] <= band:
+            d = _segment_distance(px, py, seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3])
+            if d < best:
+                best = d
+        t = link[t]
+    return best
+
+
+@njit(cache=True, nogil=True)
+def band_distance(label, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy, seg_band, gx0, gy0, cell_m, reach_m):
+    """Distance (m) from the nodes of a window of the grid to the road of bands ``<= band``, exact near
+    ``reach_m``.
+
+    Parameters
+    ----------
+    label, head, link, link_seg
+        As from :func:`road_grid` (grid origin ``gx0, gy0`` in cells).
+    band : int
+        The band (0-based): road nodes are those with ``label <= band``.
+    wx0, wy0, wnx, wny : int
+        The window, in grid cells relative to the grid origin; it must lie inside the grid with at least one
+        cell to spare around every road node in it.
+    seg_xy, seg_band
+        The segments (as for :func:`road_grid`).
+    cell_m, reach_m : float
+        Grid spacing and the traced level (m).
+
+    Returns
+    -------
+    float32 array (wny, wnx)
+        Exact distance to the band's segments (3 x 3 cells around the nearest road node) where it may lie within
+        a cell of ``reach_m``; 0 where it is surely more than a cell inside, :data:`FAR_M` where surely more than a
+        cell beyond (so no grid edge crossing the level touches a stand-in).
+
+    Notes
+    -----
+    Bounds, for a node at true distance ``D`` from the road and grid distance ``G`` to its nearest road node:
+    ``D <= G + 0.71 cell`` (a road node's cell holds road, half a diagonal away) and
+    ``G <= D + 0.71 cell`` (the cell of the foot point is a road node: the traversal visits every cell the road
+    passes through). A grid edge is
+    crossed by the level only if one end has ``D`` within a cell of ``reach_m``.
+    """
+    out = np.empty((wny, wnx), dtype=np.float32)
+    lo_c = reach_m / cell_m - 1.71
+    hi_c = reach_m / cell_m + 1.72
+    lo2 = lo_c * lo_c if lo_c > 0.0 else -1.0
+    hi2 = hi_c * hi_c
+    deep_m = reach_m - cell_m
+    # only grid distances up to ``reach`` cells matter (beyond ``hi_c`` a node is outside): the transform is
+    # bounded, which turns its row pass into a few contiguous (vectorised) min passes
+    reach = int(np.ceil(hi_c))
+    big = 1 << 20
+    # vertical distance to the nearest road node above and below, row by row (contiguous)
+    above = np.empty((wny, wnx), dtype=np.int32)
+    below = np.empty((wny, wnx), dtype=np.int32)
+    for i in range(wny):
+        for j in range(wnx):
+            if label[wy0 + i, wx0 + j] <= band:
+                above[i, j] = 0
+            elif i == 0:
+                above[i, j] = big
+            else:
+                above[i, j] = min(above[i - 1, j] + 1, big)
+    for i in range(wny - 1, -1, -1):
+        for j in range(wnx):
+            if above[i, j] == 0:
+                below[i, j] = 0
+            elif i == wny - 1:
+                below[i, j] = big
+            else:
+                below[i, j] = min(below[i + 1, j] + 1, big)
+    pad = np.empty(wnx + 2 * reach, dtype=np.int32)
+    acc = np.empty(wnx, dtype=np.int32)
+    gnx = label.shape[1]
+    for i in range(wny):
+        pad[:] = big
+        for j in range(wnx):
+            v = min(above[i, j], below[i, j])
+            if v <= reach:
+                pad[reach + j] = v * v
+        acc[:] = big
+        for d in range(-reach, reach + 1):
+            dd = d * d
+            for q in range(wnx):
+                w = pad[q + reach + d] + dd
+                if w < acc[q]:
+                    acc[q] = w
+        py = (gy0 + wy0 + i) * cell_m
+        for q in range(wnx):
+            d2 = acc[q]
+            if d2 <= lo2:
+                out[i, q] = 0.0
+            elif d2 >= hi2:
+                out[i, q] = FAR_M
+            else:
+                # the nearest road node: the column that gave the least, then its row
+                p = q
+                for d in range(-reach, reach + 1):
+                    if pad[q + reach + d] + d * d == d2:
+                        p = q + d
+                        break
+                fr = wy0 + (i - above[i, p] if above[i, p] <= below[i, p] else i + below[i, p])
+                c0 = fr * gnx + wx0 + p
+                px = (gx0 + wx0 + q) * cell_m
+                best = _cell_distance(px, py, c0, band, head, link, link_seg, seg_xy, seg_band, np.inf)
+                # the own cell's road bounds the distance from above: often it is already clearly inside
+                if best >= deep_m:
+                    for dy in range(-1, 2):
+                        for dx in range(-1, 2):
+                            if dy != 0 or dx != 0:
+                                best = _cell_distance(
+                                    px, py, c0 + dy * gnx + dx, band, head, link, link_seg, seg_xy, seg_band, best
+                                )
+                    if best < deep_m:
+                        best = 0.0
+                else:
+                    best = 0.0
+                out[i, q] = best
+    return out
+
+
+@njit(cache=True, nogil=True)
+def clip_segments(piece, a, b, ptr, f0, f1, seg_xy):
+    """Straight segments of road stretches: stretch ``r`` covers fractions ``[a[r], b[r]]`` along piece
+    ``piece[r]``, whose segments are ``ptr[p]:ptr[p + 1]`` of ``seg_xy`` with fraction ranges ``[f0, f1]``.
+
+    Returns the clipped segments (S, 4), the stretch each came from (S,), in order along each stretch, the
+    segment of ``seg_xy`` it was cut from and whether it is the whole of it. A segment that the stretch only
+    touches is dropped, except for a stretch of zero length (kept as a point).
+    """
+    n = 0
+    for r in range(piece.shape[0]):
+        n += ptr[piece[r] + 1] - ptr[piece[r]]
+    out = np.empty((n, 4), dtype=np.float64)
+    row = np.empty(n, dtype=np.int64)
+    src = np.empty(n, dtype=np.int64)
+    whole = np.empty(n, dtype=np.bool_)
+    m = 0
+    for r in range(piece.shape[0]):
+        ar = a[r]
+        br = b[r]
+        for s in range(ptr[piece[r]], ptr[piece[r] + 1]):
+            lo = max(f0[s], ar)
+            hi = min(f1[s], br)
+            if hi > lo or (hi == lo and ar == br):
+                width = f1[s] - f0[s]
+                if width <= 0.0:
+                    width = 1.0
+                t0 = (lo - f0[s]) / width
+                t1 = (hi - f0[s]) / width
+                dx = seg_xy[s, 2] - seg_xy[s, 0]
+                dy = seg_xy[s, 3] - seg_xy[s, 1]
+                out[m, 0] = seg_xy[s, 0] + t0 * dx
+                out[m, 1] = seg_xy[s, 1] + t0 * dy
+                out[m, 2] = seg_xy[s, 0] + t1 * dx
+                out[m, 3] = seg_xy[s, 1] + t1 * dy
+                row[m] = r
+                src[m] = s
+                whole[m] = lo == f0[s] and hi == f1[s]
+                m += 1
+    return out[:m], row[:m], src[:m], whole[:m]
+
+
+@njit(cache=True, nogil=True)
+def piece_stretches(
+    nodes, node_s, direction_in, edge_ptr, run, delay, piece_of_edge, reversed_of_edge, bands_s, n_pieces
+):
+    """Longest reached stretch from each end of every touched road piece, per band.
+
+    Parameters
+    ----------
+    nodes : int64 array
+        Nodes within the largest band.
+    node_s : float64 array (n_nodes,)
+        Time (s) from the sources to each node (``"out"``) or from each node to the sources (``"in"``).
+    direction_in : bool
+        True for ``"in"``: the edges entering a node are looked at, entered at the node's time plus the edge's
+        end-node delay; else the edges leaving it, at the node's time.
+    edge_ptr : int64 array (n_nodes + 1,)
+        The edges at node ``n`` are ``edge_ptr[n]:edge_ptr[n + 1]`` of the edge arrays below, which are grouped by
+        node (so that the pass reads them in order).
+    run, delay : float64 arrays
+        Running time (s, ``inf`` when closed) and end-node delay (s) of each edge.
+    piece_of_edge, reversed_of_edge : arrays
+        The road piece of each edge and whether the edge runs against the piece's geometry.
+    bands_s : float64 array
+        Band limits (s), increasing.
+    n_pieces : int
+        Number of road pieces.
+
+    Returns
+    -------
+    touched : int64 array (P,)
+        Touched pieces, in order of first touch.
+    left, right : float64 arrays (P, n_bands)
+        Reached fraction anchored at the piece's start and at its end, per band.
+    """
+    n_b = bands_s.shape[0]
+    limit = bands_s[n_b - 1]
+    slot = np.full(n_pieces, -1, dtype=np.int64)
+    cap = 1024
+    touched = np.empty(cap, dtype=np.int64)
+    left = np.zeros((cap, n_b), dtype=np.float64)
+    right = np.zeros((cap, n_b), dtype=np.float64)
+    n_t = 0
+    for n in nodes:
+        for e in range(edge_ptr[n], edge_ptr[n + 1]):
+            t0 = node_s[n] + delay[e] if direction_in else node_s[n]
+            r = run[e]
+            if not (t0 <= limit) or not np.isfinite(r):
+                continue
+            p = piece_of_edge[e]
+            j = slot[p]
+            if j < 0:
+                if n_t == cap:
+                    cap *= 2
+                    touched = _grown(touched, cap)
+                    left = _grown_2d(left, cap)
+                    right = _grown_2d(right, cap)
+                j = n_t
+                slot[p] = j
+                touched[j] = p
+                for k in range(n_b):
+                    left[j, k] = 0.0
+                    right[j, k] = 0.0
+                n_t += 1
+            # out-edges along the piece and in-edges against it grow from the piece's start
+            from_start = reversed_of_edge[e] == direction_in
+            for k in range(n_b):
+                if r > 0.0:
+                    ell = (bands_s[k] - t0) / r
+                    ell = min(max(ell, 0.0), 1.0)
+                else:
+                    ell = 1.0 if bands_s[k] >= t0 else 0.0
+                if from_start:
+                    if ell > left[j, k]:
+                        left[j, k] = ell
+                elif ell > right[j, k]:
+                    right[j, k] = ell
+    return touched[:n_t], left[:n_t], right[:n_t]
+
+
+@njit(cache=True, nogil=True)
+def _grown_2d(a, n):
+    out = np.zeros((n, a.shape[1]), dtype=a.dtype)
+    out[: a.shape[0]] = a
+    return out
