@@ -8,10 +8,10 @@ Two constructions of the same set:
 
 * **fast** (default): per base, on a square grid (spacing ``cell_m``, default ``reach_m / 3``, i.e. 50 m for the
   default 150 m reach) over the reached extent only, compiled kernels (:mod:`coverkit.polygon_kernels`) find each
-  node's nearest reached road node and, near the ``reach_m`` level, its exact distance to the reached road
-  segments (see :func:`reach_fields`). One field per band, each never above the previous one, so the traced regions
+  node's nearest reached road node and, near the ``reach_m`` level, its distance to the reached road segments in
+  the cells around that node (see :func:`reach_fields`). One field per band, each never above the previous one, so the traced regions
   are nested by construction. The ``reach_m`` level line is traced by marching squares with linear interpolation
-  (``contourpy``) into valid polygons directly; holes smaller than ``min_hole_km2`` are filled (which keeps the
+  (compiled too) into valid polygons directly; holes smaller than ``min_hole_km2`` are filled (which keeps the
   nesting: a hole of band k lies inside a hole of band k-1). The "any base" field is the least of the bases'
   fields node by node (all fields share one grid anchored at the CRS origin), so it is traced once, with no union.
 * **exact** (``exact=True``): shapely 2 buffer of the reached pieces, unioned band by band; the reference. Holes
@@ -28,7 +28,6 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-import contourpy
 import geopandas as gpd
 import numpy as np
 import pandas as pd
@@ -38,12 +37,15 @@ from coverkit.atomic import atomic_path
 from coverkit.errors import CoverkitError
 from coverkit.network.model import RoadNetwork
 from coverkit.polygon_kernels import (
+    _CASE_SEGMENTS,
+    _SADDLE_JOINED,
     FAR_M,
     band_distance,
     clip_segments,
     piece_stretches,
     road_grid,
     segment_cells,
+    trace_level,
 )
 from coverkit.progress import counted
 from coverkit.travel.search import _check_direction, nearest_node_times, node_times, run_s
@@ -55,6 +57,8 @@ DEFAULT_REACH_M = 150.0
 DEFAULT_MIN_HOLE_KM2 = 0.01
 #: Default travel-time surface cell size (m).
 DEFAULT_SURFACE_CELL_M = 50.0
+#: Most bands in one call (band labels are 16-bit on the grid).
+MAX_BANDS = 1000
 #: ``base_id`` of the rows for the union over all bases.
 ANY_BASE_ID = "(any base)"
 #: Surface nodata value (minutes).
@@ -247,7 +251,6 @@ def reached_pieces(
         ``"out"`` or ``"in"``.
     """
     pieces = road_pieces(net)
-    run, delay, _ = _edge_arrays(net)
     n_b = len(bands_s)
     node_s = np.asarray(node_s, dtype=float)
     nodes = np.flatnonzero(node_s <= bands_s[-1])
@@ -664,59 +667,57 @@ def reach_fields(reached: Reached, n_b: int, reach_m: float, cell_m: float) -> l
 def _field_polygons(field: Field | None, cell_m: float, level_m: float, min_hole_m2: float) -> shapely.Geometry:
     """The region ``dist <= level_m`` of a field as a valid MultiPolygon, holes under ``min_hole_m2`` filled.
 
-    The level line is traced by marching squares with linear interpolation (``contourpy``), so it falls between
-    grid nodes where the distance crosses the level. contourpy returns disjoint polygons, shell first, so the
-    MultiPolygon is assembled directly from its coordinate arrays (no union).
+    The level line is traced by marching squares with linear interpolation
+    (:func:`coverkit.polygon_kernels.trace_level`), so it falls between grid nodes where the distance crosses the
+    level. Its rings are disjoint, anticlockwise around the region and clockwise around holes, so the MultiPolygon is
+    assembled directly: each hole goes to the smallest outer ring that contains it (no union).
     """
     if field is None:
         return shapely.MultiPolygon()
-    ny, nx = field.dist_m.shape
-    xs = (field.ix0 + np.arange(nx)) * cell_m
-    ys = (field.iy0 + np.arange(ny)) * cell_m
-    gen = contourpy.contour_generator(
-        xs, ys, field.dist_m, name="serial", fill_type="ChunkCombinedOffsetOffset", chunk_size=0
+    pts, offs, area = trace_level(
+        np.ascontiguousarray(field.dist_m, dtype=np.float32),
+        float(level_m),
+        field.ix0 * cell_m,
+        field.iy0 * cell_m,
+        float(cell_m),
+        _CASE_SEGMENTS,
+        _SADDLE_JOINED,
     )
-    pts_l, offs_l, outer_l = gen.filled(-1.0, level_m)
-    if not pts_l or pts_l[0] is None or len(pts_l[0]) == 0:
+    if len(area) == 0:
         return shapely.MultiPolygon()
-    pts, offs, outer = pts_l[0], offs_l[0].astype(np.int64), outer_l[0].astype(np.int64)
-    n_ring = len(offs) - 1
-    shell = np.zeros(n_ring, dtype=bool)
-    shell[outer[:-1]] = True
-    poly_of_ring = np.repeat(np.arange(len(outer) - 1), np.diff(outer))
-    area = _ring_areas(pts, offs)
-    keep = shell | (area >= min_hole_m2)
-    ring_of_pt = np.repeat(np.arange(n_ring), np.diff(offs))
-    kept_pt = keep[ring_of_pt]
-    new_ring = np.cumsum(keep) - 1
-    rings = shapely.linearrings(pts[kept_pt], indices=new_ring[ring_of_pt[kept_pt]])
-    polys = shapely.polygons(rings, indices=poly_of_ring[keep])
-    filled = ~keep
-    if filled.any() and len(polys) > 1:
-        # a polygon lying inside a hole that was just filled is now covered twice: drop it
-        holes = shapely.polygons(
-            shapely.linearrings(
-                pts[filled[ring_of_pt]], indices=(np.cumsum(filled) - 1)[ring_of_pt[filled[ring_of_pt]]]
-            )
+    n_ring = len(area)
+    rings = shapely.linearrings(pts, indices=np.repeat(np.arange(n_ring), np.diff(offs)))
+    shell = np.flatnonzero(area > 0)
+    kept_hole = np.flatnonzero((area < 0) & (-area >= min_hole_m2))
+    filled = np.flatnonzero((area < 0) & (-area < min_hole_m2))
+    owner = np.full(n_ring, -1, dtype=np.int64)
+    owner[shell] = shell
+    if len(shell) > 1 and len(filled):
+        # an outer ring lying inside a hole that is filled is covered twice: drop it (its holes go with it)
+        inside, _ = shapely.STRtree(shapely.polygons(rings[filled])).query(
+            shapely.points(pts[offs[shell]]), predicate="within"
         )
-        first_pt = shapely.points(pts[offs[outer[:-1]]])
-        inside, _ = shapely.STRtree(holes).query(first_pt, predicate="within")
-        polys = np.delete(polys, np.unique(inside))
+        owner[shell[np.unique(inside)]] = -1
+    if len(kept_hole) and len(shell) == 1:
+        owner[kept_hole] = shell[0]
+    elif len(kept_hole):
+        live = shell[owner[shell] >= 0]
+        h, sh = shapely.STRtree(shapely.polygons(rings[live])).query(
+            shapely.points(pts[offs[kept_hole]]), predicate="within"
+        )
+        # nested islands: the smallest containing outer ring is the hole's own
+        order = np.lexsort((area[live[sh]], h))
+        h, sh = h[order], sh[order]
+        first = np.r_[True, h[1:] != h[:-1]]
+        owner[kept_hole[h[first]]] = live[sh[first]]
+    sel = np.flatnonzero(owner >= 0)
+    # each polygon's outer ring first, then its holes
+    sel = sel[np.lexsort((area[sel] < 0, owner[sel]))]
+    polys = shapely.polygons(rings[sel], indices=np.unique(owner[sel], return_inverse=True)[1])
     out = shapely.multipolygons(polys)
     if not shapely.is_valid(out):
         out = _clean(out, min_hole_m2)
     return out
-
-
-def _ring_areas(pts: np.ndarray, offs: np.ndarray) -> np.ndarray:
-    """Unsigned area (m²) of each closed ring ``pts[offs[i]:offs[i + 1]]`` (shoelace formula)."""
-    ring_of_pt = np.repeat(np.arange(len(offs) - 1), np.diff(offs))
-    # relative to each ring's first point: keeps the products small, hence precise
-    rel = pts - pts[offs[:-1]][ring_of_pt]
-    cross = rel[:-1, 0] * rel[1:, 1] - rel[1:, 0] * rel[:-1, 1]
-    cross = np.append(cross, 0.0)
-    cross[offs[1:] - 1] = 0.0  # the step from a ring's last point to the next ring's first is not an edge
-    return np.abs(np.add.reduceat(cross, offs[:-1])) / 2.0
 
 
 def _clean(geom: shapely.Geometry, min_hole_m2: float) -> shapely.Geometry:
@@ -919,6 +920,8 @@ def _bands_s(minutes) -> np.ndarray:
         raise CoverkitError(f"bands {minutes!r} are not numbers; give minutes such as 4,8,12.") from None
     if len(m) == 0 or not np.isfinite(m).all() or (m <= 0).any():
         raise CoverkitError(f"bands {list(minutes)!r} must be positive minutes, such as 4,8,12.")
+    if len(m) > MAX_BANDS:
+        raise CoverkitError(f"{len(m)} bands given; at most {MAX_BANDS} are supported (e.g. one per minute to 60).")
     return m * 60.0
 
 

@@ -108,9 +108,9 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
 
     Returns
     -------
-    label : int8 array (gny, gnx)
+    label : int16 array (gny, gnx)
         Earliest band reaching each node's cell, ``n_bands`` if none.
-    head, link, link_seg : int64 arrays
+    head, link, link_seg : int32 arrays
         Segments through cell ``c``, as a linked list: ``t = head[c]``, then ``link_seg[t]`` while ``t >= 0``,
         ``t = link[t]``.
     extent : int64 array (n_bands, 4)
@@ -120,11 +120,11 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
     inv = 1.0 / cell_m
     n_cells = gnx * gny
     n_seg = seg_xy.shape[0]
-    label = np.full(n_cells, n_bands, dtype=np.int8)
-    head = np.full(n_cells, -1, dtype=np.int64)
+    label = np.full(n_cells, n_bands, dtype=np.int16)
+    head = np.full(n_cells, -1, dtype=np.int32)
     cap = 4 * n_seg + 16
-    link = np.empty(cap, dtype=np.int64)
-    link_seg = np.empty(cap, dtype=np.int64)
+    link = np.empty(cap, dtype=np.int32)
+    link_seg = np.empty(cap, dtype=np.int32)
     bx = np.empty(64, dtype=np.int64)
     by = np.empty(64, dtype=np.int64)
     n_pair = 0
@@ -328,6 +328,8 @@ def band_distance(label, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy,
                 best = _cell_distance(px, py, c0, band, head, link, link_seg, seg_xy, seg_band, np.inf)
                 # the own cell's road bounds the distance from above: often it is already clearly inside
                 if best >= deep_m:
+                    # the 3 x 3 cells around the nearest road node nearly always hold the nearest road (a cell
+                    # farther off can hold nearer road only where two roads lie at about the same distance)
                     for dy in range(-1, 2):
                         for dx in range(-1, 2):
                             if dy != 0 or dx != 0:
@@ -468,3 +470,162 @@ def _grown_2d(a, n):
     out = np.zeros((n, a.shape[1]), dtype=a.dtype)
     out[: a.shape[0]] = a
     return out
+
+
+# Marching squares: per cell case (bit 0: lower-left corner inside, 1: lower-right, 2: upper-right, 3: upper-left),
+# the boundary segments as (from edge, to edge), inside on the left, so outer rings run anticlockwise and holes
+# clockwise. Edges: 0 bottom, 1 right, 2 top, 3 left. Saddles (5, 10) get their first pair when the cell centre is
+# outside and the second when it is inside. -1: no segment.
+_CASE_SEGMENTS = np.array(
+    [
+        [-1, -1, -1, -1],
+        [0, 3, -1, -1],
+        [1, 0, -1, -1],
+        [1, 3, -1, -1],
+        [2, 1, -1, -1],
+        [0, 3, 2, 1],
+        [2, 0, -1, -1],
+        [2, 3, -1, -1],
+        [3, 2, -1, -1],
+        [0, 2, -1, -1],
+        [1, 0, 3, 2],
+        [1, 2, -1, -1],
+        [3, 1, -1, -1],
+        [0, 1, -1, -1],
+        [3, 0, -1, -1],
+        [-1, -1, -1, -1],
+    ],
+    dtype=np.int64,
+)
+_SADDLE_JOINED = np.array([[0, 1, 2, 3], [3, 0, 1, 2]], dtype=np.int64)  # case 5, case 10 with the centre inside
+
+
+@njit(cache=True, nogil=True)
+def _edge_id(i, j, side, nx, n_h):
+    """Id of side ``side`` of cell ``(i, j)``: horizontal edges ``i * nx + j``, vertical ``n_h + i * nx + j``."""
+    if side == 0:
+        return i * nx + j
+    if side == 1:
+        return n_h + i * nx + j + 1
+    if side == 2:
+        return (i + 1) * nx + j
+    return n_h + i * nx + j
+
+
+@njit(cache=True, nogil=True)
+def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
+    """Rings of the region ``z <= level`` of a grid (marching squares with linear interpolation; W. E. Lorensen,
+    H. E. Cline (1987), "Marching cubes", SIGGRAPH, in its 2-d form), the grid taken as outside beyond its edge.
+
+    Parameters
+    ----------
+    z : float32 array (ny, nx)
+        Values at the nodes; node ``(i, j)`` lies at ``(x0 + j * cell_m, y0 + i * cell_m)``.
+    level : float
+        The level.
+    x0, y0, cell_m : float
+        Position of node ``(0, 0)`` and the spacing (m).
+    case_segments, saddle_joined
+        The marching-squares tables (:data:`_CASE_SEGMENTS`, :data:`_SADDLE_JOINED`).
+
+    Returns
+    -------
+    pts : float64 array (N, 2)
+        Ring vertices, ring after ring (not repeated at the end).
+    offsets : int64 array (R + 1,)
+        Ring ``r`` is ``pts[offsets[r]:offsets[r + 1]]``.
+    area : float64 array (R,)
+        Signed area (m²): positive for outer rings (anticlockwise), negative for holes.
+    """
+    ny0, nx0 = z.shape
+    # one node of outside all round, so that every ring closes
+    ny = ny0 + 2
+    nx = nx0 + 2
+    zp = np.full((ny, nx), np.inf, dtype=np.float32)
+    zp[1 : ny - 1, 1 : nx - 1] = z
+    n_h = ny * nx
+    nxt = np.empty(2 * n_h, dtype=np.int64)
+    starts = np.empty(64, dtype=np.int64)
+    n_start = 0
+    for i in range(ny - 1):
+        for j in range(nx - 1):
+            case = 0
+            if zp[i, j] <= level:
+                case |= 1
+            if zp[i, j + 1] <= level:
+                case |= 2
+            if zp[i + 1, j + 1] <= level:
+                case |= 4
+            if zp[i + 1, j] <= level:
+                case |= 8
+            if case == 0 or case == 15:
+                continue
+            a0 = case_segments[case, 0]
+            b0 = case_segments[case, 1]
+            a1 = case_segments[case, 2]
+            b1 = case_segments[case, 3]
+            if case == 5 or case == 10:
+                centre = 0.25 * (float(zp[i, j]) + float(zp[i, j + 1]) + float(zp[i + 1, j + 1]) + float(zp[i + 1, j]))
+                if centre <= level:
+                    s = 0 if case == 5 else 1
+                    a0 = saddle_joined[s, 0]
+                    b0 = saddle_joined[s, 1]
+                    a1 = saddle_joined[s, 2]
+                    b1 = saddle_joined[s, 3]
+            for k in range(2):
+                a = a0 if k == 0 else a1
+                b = b0 if k == 0 else b1
+                if a < 0:
+                    break
+                ea = _edge_id(i, j, a, nx, n_h)
+                nxt[ea] = _edge_id(i, j, b, nx, n_h)
+                if n_start == starts.shape[0]:
+                    starts = _grown(starts, 2 * n_start)
+                starts[n_start] = ea
+                n_start += 1
+    pts = np.empty((n_start, 2), dtype=np.float64)
+    offsets = np.empty(n_start + 1, dtype=np.int64)
+    area = np.empty(n_start, dtype=np.float64)
+    offsets[0] = 0
+    n_ring = 0
+    m = 0
+    for t in range(n_start):
+        e = starts[t]
+        if nxt[e] < 0:
+            continue
+        first = m
+        while nxt[e] >= 0:
+            # the crossing on edge e, linearly interpolated
+            if e < n_h:
+                i = e // nx
+                j = e % nx
+                za = float(zp[i, j])
+                zb = float(zp[i, j + 1])
+                f = (level - za) / (zb - za) if np.isfinite(zb) and np.isfinite(za) else (0.0 if za <= level else 1.0)
+                px = x0 + (j - 1 + f) * cell_m
+                py = y0 + (i - 1) * cell_m
+            else:
+                i = (e - n_h) // nx
+                j = (e - n_h) % nx
+                za = float(zp[i, j])
+                zb = float(zp[i + 1, j])
+                f = (level - za) / (zb - za) if np.isfinite(zb) and np.isfinite(za) else (0.0 if za <= level else 1.0)
+                px = x0 + (j - 1) * cell_m
+                py = y0 + (i - 1 + f) * cell_m
+            pts[m, 0] = px
+            pts[m, 1] = py
+            m += 1
+            e2 = nxt[e]
+            nxt[e] = -1
+            e = e2
+        # shoelace, relative to the ring's first point (keeps the products small)
+        acc = 0.0
+        bx = pts[first, 0]
+        by = pts[first, 1]
+        for u in range(first, m):
+            w = u + 1 if u + 1 < m else first
+            acc += (pts[u, 0] - bx) * (pts[w, 1] - by) - (pts[w, 0] - bx) * (pts[u, 1] - by)
+        area[n_ring] = 0.5 * acc
+        n_ring += 1
+        offsets[n_ring] = m
+    return pts[:m], offsets[: n_ring + 1], area[:n_ring]
