@@ -8,11 +8,11 @@ Two constructions of the same set:
 
 * **fast** (default): per base, on a square grid (spacing ``cell_m``, default ``reach_m / 3``, i.e. 50 m for the
   default 150 m reach) over the reached extent only, compiled kernels (:mod:`coverkit.polygon_kernels`) find each
-  node's nearest reached road node and, near the ``reach_m`` level, its distance to the reached road segments in
-  the cells around that node (see :func:`reach_fields`). One field per band, each never above the previous one, so the traced regions
-  are nested by construction. The ``reach_m`` level line is traced by marching squares with linear interpolation
-  (compiled too) into valid polygons directly; holes smaller than ``min_hole_km2`` are filled (which keeps the
-  nesting: a hole of band k lies inside a hole of band k-1). The "any base" field is the least of the bases'
+  node's nearest reached road node and, near the ``reach_m`` level, its distance to the reached road segments in the
+  cells around that node (see :func:`reach_fields`). One field per band, each never above the previous one, so the
+  traced regions are nested by construction. The ``reach_m`` level line is traced by marching squares with linear
+  interpolation (compiled too) into valid polygons directly; holes smaller than ``min_hole_km2`` are filled (which
+  keeps the nesting: a hole of band k lies inside a hole of band k-1). The "any base" field is the least of the bases'
   fields node by node (all fields share one grid anchored at the CRS origin), so it is traced once, with no union.
 * **exact** (``exact=True``): shapely 2 buffer of the reached pieces, unioned band by band; the reference. Holes
   smaller than ``min_hole_km2`` are filled and the polygon of band k is unioned with band k-1, so bands nest exactly.
@@ -40,6 +40,7 @@ from coverkit.polygon_kernels import (
     _CASE_SEGMENTS,
     _SADDLE_JOINED,
     FAR_M,
+    anchored_rows,
     band_distance,
     clip_segments,
     piece_stretches,
@@ -274,24 +275,21 @@ def reached_pieces(
     mark[touched] = True
     local = np.zeros(n_p, dtype=np.int64)
     local[touched] = np.arange(len(touched))
-    is_full = lf + rt >= 1.0 - 1e-9
-    full_band = np.where(is_full.any(axis=1), np.argmax(is_full, axis=1), n_b)
     piece_len = _piece_length(net)
-    cover_m = np.minimum(lf + rt, 1.0) * piece_len[touched][:, None]
-    km = cover_m.sum(axis=0)
-    piece, band, a, b = _anchored_rows(touched, lf, rt, full_band)
+    piece, band, a, b, km = anchored_rows(touched, lf, rt, True, piece_len)
     # pieces holding a source take the general interval union (a source's stretch starts part-way)
     src_piece = np.unique(pieces.piece_of_edge[sources.entry_edge])
     if len(src_piece):
         held = src_piece[mark[src_piece]]
-        km = km - cover_m[local[held]].sum(axis=0)
+        lr = lf[local[held]] + rt[local[held]]
+        km = km - (np.minimum(lr, 1.0) * piece_len[held][:, None]).sum(axis=0)
         is_src = np.zeros(n_p, dtype=bool)
         is_src[src_piece] = True
         keep = ~is_src[piece]
         lf_s = np.zeros((len(src_piece), n_b))
         rt_s = np.zeros((len(src_piece), n_b))
         lf_s[mark[src_piece]], rt_s[mark[src_piece]] = lf[local[held]], rt[local[held]]
-        sp, sk, sa, sb = _anchored_rows(src_piece, lf_s, rt_s, np.full(len(src_piece), n_b))
+        sp, sk, sa, sb, _ = anchored_rows(src_piece.astype(np.int64), lf_s, rt_s, False, piece_len)
         qp, qk, qa, qb = _source_rows(net, sources, bands_s, direction)
         rows, km_src = _merge_general(
             np.concatenate([sp, qp]),
@@ -315,24 +313,6 @@ def _reached_fraction(run: np.ndarray, t0: np.ndarray, bands_s: np.ndarray, span
         # an edge without running time is reached whole once its entry time is within the band
         ell[zero] = np.where(bands_s[None, :] >= t0[zero, None], 1.0, 0.0)
     return np.clip(ell, 0.0, span[:, None], out=ell)
-
-
-def _anchored_rows(p, lf, rt, full_band):
-    """Increment rows of pieces covered by ``[0, lf[:, k]]`` and ``[1 - rt[:, k], 1]`` at band k; a piece wholly
-    covered from band j on becomes one ``[0, 1]`` row at band j (halves the geometry work)."""
-    n_b = lf.shape[1]
-    k = np.arange(n_b)[None, :]
-    before = k < full_band[:, None]
-    lprev = np.concatenate([np.zeros((len(p), 1)), lf[:, :-1]], axis=1)
-    rprev = np.concatenate([np.zeros((len(p), 1)), rt[:, :-1]], axis=1)
-    li, lk = np.nonzero((lf > lprev) & before)
-    ri, rk = np.nonzero((rt > rprev) & before)
-    fi = np.flatnonzero(full_band < n_b)
-    piece = np.concatenate([p[li], p[ri], p[fi]])
-    band = np.concatenate([lk, rk, full_band[fi]])
-    a = np.concatenate([lprev[li, lk], 1.0 - rt[ri, rk], np.zeros(len(fi))])
-    b = np.concatenate([lf[li, lk], 1.0 - rprev[ri, rk], np.ones(len(fi))])
-    return piece, band, a, b
 
 
 def _source_rows(net, sources, bands_s, direction):

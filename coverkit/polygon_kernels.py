@@ -629,3 +629,69 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
         n_ring += 1
         offsets[n_ring] = m
     return pts[:m], offsets[: n_ring + 1], area[:n_ring]
+
+
+@njit(cache=True, nogil=True)
+def anchored_rows(pieces, left, right, detect_full, piece_len):
+    """Reached-road increment rows of pieces covered by ``[0, left[:, k]]`` and ``[1 - right[:, k], 1]`` at band k.
+
+    With ``detect_full``, a piece wholly covered from band j on becomes one ``[0, 1]`` row at band j (which halves
+    the geometry work downstream). Rows come left stretches first, then right ones, then whole pieces, each piece by
+    piece and band by band.
+
+    Returns
+    -------
+    piece, band : int64 arrays; a, b : float64 arrays
+        The rows: piece, band from which it is reached, and the covered fractions ``[a, b]`` along the piece.
+    covered_m : float64 array (n_bands,)
+        Road length covered at each band (m), ``piece_len`` being each piece's length (m).
+    """
+    n = pieces.shape[0]
+    n_b = left.shape[1]
+    full = np.full(n, n_b, dtype=np.int64)
+    covered_m = np.zeros(n_b, dtype=np.float64)
+    n_rows = 0
+    for i in range(n):
+        for k in range(n_b):
+            cov = left[i, k] + right[i, k]
+            covered_m[k] += min(cov, 1.0) * piece_len[pieces[i]]
+            if detect_full and full[i] == n_b and cov >= 1.0 - 1e-9:
+                full[i] = k
+        for k in range(full[i]):
+            lp = left[i, k - 1] if k > 0 else 0.0
+            rp = right[i, k - 1] if k > 0 else 0.0
+            n_rows += int(left[i, k] > lp) + int(right[i, k] > rp)
+        n_rows += int(full[i] < n_b)
+    piece = np.empty(n_rows, dtype=np.int64)
+    band = np.empty(n_rows, dtype=np.int64)
+    a = np.empty(n_rows, dtype=np.float64)
+    b = np.empty(n_rows, dtype=np.float64)
+    m = 0
+    for side in range(3):
+        for i in range(n):
+            if side == 2:
+                if full[i] < n_b:
+                    piece[m] = pieces[i]
+                    band[m] = full[i]
+                    a[m] = 0.0
+                    b[m] = 1.0
+                    m += 1
+                continue
+            for k in range(full[i]):
+                if side == 0:
+                    lp = left[i, k - 1] if k > 0 else 0.0
+                    if left[i, k] > lp:
+                        piece[m] = pieces[i]
+                        band[m] = k
+                        a[m] = lp
+                        b[m] = left[i, k]
+                        m += 1
+                else:
+                    rp = right[i, k - 1] if k > 0 else 0.0
+                    if right[i, k] > rp:
+                        piece[m] = pieces[i]
+                        band[m] = k
+                        a[m] = 1.0 - right[i, k]
+                        b[m] = 1.0 - rp
+                        m += 1
+    return piece, band, a, b, covered_m
