@@ -273,74 +273,96 @@ def band_distance(label, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy,
     # bounded, which turns its row pass into a few contiguous (vectorised) min passes
     reach = int(np.ceil(hi_c))
     big = 1 << 20
-    # vertical distance to the nearest road node above and below, row by row (contiguous)
-    above = np.empty((wny, wnx), dtype=np.int32)
-    below = np.empty((wny, wnx), dtype=np.int32)
-    for i in range(wny):
+    # signed vertical offset to the nearest road node in the column (road at row ``i - vert``), in two sweeps
+    # written as contiguous selects so that they vectorise
+    vert = np.empty((wny, wnx), dtype=np.int32)
+    lab = label[wy0, wx0 : wx0 + wnx]
+    cur = vert[0]
+    for j in range(wnx):
+        cur[j] = 0 if lab[j] <= band else big
+    for i in range(1, wny):
+        lab = label[wy0 + i, wx0 : wx0 + wnx]
+        prev = vert[i - 1]
+        cur = vert[i]
         for j in range(wnx):
-            if label[wy0 + i, wx0 + j] <= band:
-                above[i, j] = 0
-            elif i == 0:
-                above[i, j] = big
-            else:
-                above[i, j] = min(above[i - 1, j] + 1, big)
+            cur[j] = 0 if lab[j] <= band else min(prev[j] + 1, big)
+    carry = np.full(wnx, big, dtype=np.int32)
     for i in range(wny - 1, -1, -1):
+        cur = vert[i]
         for j in range(wnx):
-            if above[i, j] == 0:
-                below[i, j] = 0
-            elif i == wny - 1:
-                below[i, j] = big
-            else:
-                below[i, j] = min(below[i + 1, j] + 1, big)
+            cj = 0 if cur[j] == 0 else min(carry[j] + 1, big)
+            carry[j] = cj
+            cur[j] = -cj if cj < cur[j] else cur[j]
     pad = np.empty(wnx + 2 * reach, dtype=np.int32)
-    acc = np.empty(wnx, dtype=np.int32)
+    pad[:] = big
+    acc_pad = np.empty(wnx + 2 * reach, dtype=np.int32)
     gnx = label.shape[1]
     for i in range(wny):
-        pad[:] = big
+        cur = vert[i]
+        row_pad = pad[reach : reach + wnx]
+        n_near = 0
         for j in range(wnx):
-            v = min(above[i, j], below[i, j])
-            if v <= reach:
-                pad[reach + j] = v * v
-        acc[:] = big
-        for d in range(-reach, reach + 1):
-            dd = d * d
-            for q in range(wnx):
-                w = pad[q + reach + d] + dd
-                if w < acc[q]:
-                    acc[q] = w
-        py = (gy0 + wy0 + i) * cell_m
+            v = abs(cur[j])
+            ok = v <= reach
+            row_pad[j] = v * v if ok else big
+            n_near += ok
+        o = out[i]
+        if n_near == 0:
+            o[:] = FAR_M
+            continue
+        acc_pad[:] = big
+        acc = acc_pad[reach : reach + wnx]
+        if 3 * n_near < wnx:
+            # few columns with road near: spread each one's parabola (sparse roads)
+            for j in range(wnx):
+                pj = row_pad[j]
+                if pj < big:
+                    for d in range(-reach, reach + 1):
+                        acc_pad[reach + j + d] = min(acc_pad[reach + j + d], pj + d * d)
+        else:
+            # many: one contiguous min pass per offset (dense roads)
+            for d in range(-reach, reach + 1):
+                dd = d * d
+                for q in range(wnx):
+                    acc[q] = min(acc[q], pad[q + reach + d] + dd)
+        n_zone = 0
         for q in range(wnx):
             d2 = acc[q]
-            if d2 <= lo2:
-                out[i, q] = 0.0
-            elif d2 >= hi2:
-                out[i, q] = FAR_M
-            else:
-                # the nearest road node: the column that gave the least, then its row
-                p = q
-                for d in range(-reach, reach + 1):
-                    if pad[q + reach + d] + d * d == d2:
-                        p = q + d
-                        break
-                fr = wy0 + (i - above[i, p] if above[i, p] <= below[i, p] else i + below[i, p])
-                c0 = fr * gnx + wx0 + p
-                px = (gx0 + wx0 + q) * cell_m
-                best = _cell_distance(px, py, c0, band, head, link, link_seg, seg_xy, seg_band, np.inf)
-                # the own cell's road bounds the distance from above: often it is already clearly inside
-                if best >= deep_m:
-                    # the 3 x 3 cells around the nearest road node nearly always hold the nearest road (a cell
-                    # farther off can hold nearer road only where two roads lie at about the same distance)
-                    for dy in range(-1, 2):
-                        for dx in range(-1, 2):
-                            if dy != 0 or dx != 0:
-                                best = _cell_distance(
-                                    px, py, c0 + dy * gnx + dx, band, head, link, link_seg, seg_xy, seg_band, best
-                                )
-                    if best < deep_m:
-                        best = 0.0
-                else:
+            zone = d2 > lo2 and d2 < hi2
+            o[q] = 0.0 if d2 <= lo2 else (FAR_M if d2 >= hi2 else -1.0)
+            n_zone += zone
+        if n_zone == 0:
+            continue
+        py = (gy0 + wy0 + i) * cell_m
+        for q in range(wnx):
+            if o[q] >= 0.0:
+                continue
+            d2 = acc[q]
+            # the nearest road node: the column that gave the least, then its row
+            p = q
+            for d in range(-reach, reach + 1):
+                if pad[q + reach + d] + d * d == d2:
+                    p = q + d
+                    break
+            fr = wy0 + i - cur[p]
+            c0 = fr * gnx + wx0 + p
+            px = (gx0 + wx0 + q) * cell_m
+            best = _cell_distance(px, py, c0, band, head, link, link_seg, seg_xy, seg_band, np.inf)
+            # the own cell's road bounds the distance from above: often it is already clearly inside; else the
+            # 3 x 3 cells around the nearest road node nearly always hold the nearest road (a cell farther off can
+            # hold nearer road only where two roads lie at about the same distance)
+            if best >= deep_m:
+                for dy in range(-1, 2):
+                    for dx in range(-1, 2):
+                        if dy != 0 or dx != 0:
+                            best = _cell_distance(
+                                px, py, c0 + dy * gnx + dx, band, head, link, link_seg, seg_xy, seg_band, best
+                            )
+                if best < deep_m:
                     best = 0.0
-                out[i, q] = best
+            else:
+                best = 0.0
+            o[q] = best
     return out
 
 
