@@ -122,34 +122,33 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
     n_seg = seg_xy.shape[0]
     label = np.full(n_cells, n_bands, dtype=np.int16)
     head = np.full(n_cells, -1, dtype=np.int32)
-    cap = 4 * n_seg + 16
-    link = np.empty(cap, dtype=np.int32)
-    link_seg = np.empty(cap, dtype=np.int32)
-    bx = np.empty(64, dtype=np.int64)
-    by = np.empty(64, dtype=np.int64)
-    n_pair = 0
+    # sized once (arrays regrown inside the loop keep numba from optimising it)
+    cap = 0
+    need_max = 0
     for s in range(n_seg):
         if seg_whole[s]:
-            lo = cell_ptr[seg_src[s]]
-            m = cell_ptr[seg_src[s] + 1] - lo
-            xs = cell_x[lo : lo + m]
-            ys = cell_y[lo : lo + m]
+            cap += cell_ptr[seg_src[s] + 1] - cell_ptr[seg_src[s]]
         else:
             need = _cell_count(seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3], inv)
-            if need > bx.shape[0]:
-                bx = np.empty(2 * need, dtype=np.int64)
-                by = np.empty(2 * need, dtype=np.int64)
+            cap += need
+            need_max = max(need_max, need)
+    link = np.empty(cap, dtype=np.int32)
+    link_seg = np.empty(cap, dtype=np.int32)
+    bx = np.empty(need_max, dtype=np.int64)
+    by = np.empty(need_max, dtype=np.int64)
+    n_pair = 0
+    for s in range(n_seg):
+        whole = seg_whole[s]
+        if whole:
+            lo = cell_ptr[seg_src[s]]
+            m = cell_ptr[seg_src[s] + 1] - lo
+        else:
+            lo = 0
             m = _cells_of_segment(seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3], inv, bx, by, 0)
-            xs = bx[:m]
-            ys = by[:m]
-        if n_pair + m > cap:
-            cap = 2 * (n_pair + m)
-            link = _grown(link, cap)
-            link_seg = _grown(link_seg, cap)
         b = seg_band[s]
         for j in range(m):
-            x = xs[j] - gx0
-            y = ys[j] - gy0
+            x = (cell_x[lo + j] if whole else bx[j]) - gx0
+            y = (cell_y[lo + j] if whole else by[j]) - gy0
             if x < 0 or y < 0 or x >= gnx or y >= gny:
                 continue
             c = y * gnx + x
@@ -445,7 +444,11 @@ def piece_stretches(
     n_b = bands_s.shape[0]
     limit = bands_s[n_b - 1]
     slot = np.full(n_pieces, -1, dtype=np.int64)
-    cap = 1024
+    # at most one piece per edge looked at: sized once (arrays that may be regrown inside the loop keep numba from
+    # optimising it, at several times the cost)
+    cap = 0
+    for n in nodes:
+        cap += edge_ptr[n + 1] - edge_ptr[n]
     touched = np.empty(cap, dtype=np.int64)
     left = np.zeros((cap, n_b), dtype=np.float64)
     right = np.zeros((cap, n_b), dtype=np.float64)
@@ -459,11 +462,6 @@ def piece_stretches(
             p = piece_of_edge[e]
             j = slot[p]
             if j < 0:
-                if n_t == cap:
-                    cap *= 2
-                    touched = _grown(touched, cap)
-                    left = _grown_2d(left, cap)
-                    right = _grown_2d(right, cap)
                 j = n_t
                 slot[p] = j
                 touched[j] = p
@@ -485,13 +483,6 @@ def piece_stretches(
                 elif ell > right[j, k]:
                     right[j, k] = ell
     return touched[:n_t], left[:n_t], right[:n_t]
-
-
-@njit(cache=True, nogil=True)
-def _grown_2d(a, n):
-    out = np.zeros((n, a.shape[1]), dtype=a.dtype)
-    out[: a.shape[0]] = a
-    return out
 
 
 # Marching squares: per cell case (bit 0: lower-left corner inside, 1: lower-right, 2: upper-right, 3: upper-left),
@@ -566,20 +557,24 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
     zp = np.full((ny, nx), np.inf, dtype=np.float32)
     zp[1 : ny - 1, 1 : nx - 1] = z
     n_h = ny * nx
+    inside = np.empty((ny, nx), dtype=np.uint8)
+    for i in range(ny):
+        for j in range(nx):
+            inside[i, j] = zp[i, j] <= level
+    # one segment leaves each edge whose ends differ: counted first so that every array is sized once
+    n_cross = 0
+    for i in range(ny):
+        for j in range(nx - 1):
+            n_cross += inside[i, j] != inside[i, j + 1]
+    for i in range(ny - 1):
+        for j in range(nx):
+            n_cross += inside[i, j] != inside[i + 1, j]
     nxt = np.empty(2 * n_h, dtype=np.int64)
-    starts = np.empty(64, dtype=np.int64)
+    starts = np.empty(n_cross, dtype=np.int64)
     n_start = 0
     for i in range(ny - 1):
         for j in range(nx - 1):
-            case = 0
-            if zp[i, j] <= level:
-                case |= 1
-            if zp[i, j + 1] <= level:
-                case |= 2
-            if zp[i + 1, j + 1] <= level:
-                case |= 4
-            if zp[i + 1, j] <= level:
-                case |= 8
+            case = inside[i, j] | (inside[i, j + 1] << 1) | (inside[i + 1, j + 1] << 2) | (inside[i + 1, j] << 3)
             if case == 0 or case == 15:
                 continue
             a0 = case_segments[case, 0]
@@ -601,8 +596,6 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
                     break
                 ea = _edge_id(i, j, a, nx, n_h)
                 nxt[ea] = _edge_id(i, j, b, nx, n_h)
-                if n_start == starts.shape[0]:
-                    starts = _grown(starts, 2 * n_start)
                 starts[n_start] = ea
                 n_start += 1
     pts = np.empty((n_start, 2), dtype=np.float64)
