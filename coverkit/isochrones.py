@@ -49,7 +49,7 @@ from coverkit.polygon_kernels import (
     trace_level,
 )
 from coverkit.progress import counted
-from coverkit.travel.search import _check_direction, nearest_node_times, node_times, run_s
+from coverkit.travel.search import _check_direction, nearest_node_times, node_time_blocks, run_s
 from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, road_pieces, snap_points
 
 #: Default reach distance from a reached road (m): how far off the road a place still counts as reached.
@@ -131,8 +131,15 @@ def drive_time_polygons(
     lap = _Laps(timings)
     snapped = _snap_bases(net, bases, max_snap_m)
     lap("snap bases")
-    times = node_times(net, snapped, float(bands_s[-1]), direction=direction)
-    lap("search")
+    limit_s = float(bands_s[-1])
+    # one source's row at a time from chunked dense blocks; the "any base" times are their running least (the
+    # multi-source search from all bases at once)
+    d_any = np.full(net.n_nodes, np.inf) if any_base else None
+    rows_by_base = (
+        (int(i), block[r])
+        for src, block in node_time_blocks(net, snapped, limit_s, direction)
+        for r, i in enumerate(src)
+    )
     rows = []
     # fast path: the "any base" field is the least of the bases' fields, node by node (fields share one grid)
     mosaic: list[Field | None] = [None] * n_b
@@ -140,14 +147,14 @@ def drive_time_polygons(
     for i in counted(range(n_jobs), n_jobs, "drive-time polygons", every=max(1, n_jobs // 10)):
         if i < len(snapped):
             base_id = str(snapped.ids[i])
-            d = np.full(net.n_nodes, np.inf)
-            sl = slice(times.indptr[i], times.indptr[i + 1])
-            d[times.indices[sl]] = times.data[sl]
-            reached = reached_pieces(net, d, snapped.subset([i]), bands_s, direction)
+            i_src, d = next(rows_by_base)
+            lap("search")
+            if d_any is not None:
+                np.minimum(d_any, d, out=d_any)
+            reached = reached_pieces(net, d, snapped.subset([i_src]), bands_s, direction)
         else:
             base_id = ANY_BASE_ID
-            d, _ = nearest_node_times(net, snapped, float(bands_s[-1]), direction=direction)
-            reached = reached_pieces(net, d, snapped, bands_s, direction)
+            reached = reached_pieces(net, d_any, snapped, bands_s, direction)
         lap("reached road")
         if exact:
             geoms = band_polygons(reached, bands_s, reach_m, exact=True, min_hole_km2=min_hole_km2)

@@ -118,6 +118,27 @@ def node_times(
     return _assemble(parts, (len(sources), net.n_nodes))
 
 
+def node_time_blocks(
+    net: RoadNetwork,
+    sources: Snapped,
+    limit_s: float,
+    direction: str = "out",
+    chunk_size: int | None = None,
+):
+    """Dense times between on-network sources and every node, chunk by chunk (for callers that use each source's
+    row once and let it go: memory stays at one chunk).
+
+    Yields
+    ------
+    src_idx : numpy.ndarray
+        Indices (into ``sources``) of the chunk's sources, increasing.
+    block : numpy.ndarray
+        Shape (len(src_idx), n_nodes): time (s) from each source (``"out"``) or to it (``"in"``); ``inf`` beyond
+        ``limit_s``.
+    """
+    yield from _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes)
+
+
 def point_times(
     net: RoadNetwork,
     sources: Snapped,
