@@ -632,7 +632,7 @@ def reach_fields(reached: Reached, n_b: int, reach_m: float, cell_m: float) -> l
     gnx = int(np.ceil(max(xy[:, 0].max(), xy[:, 2].max()) / c)) + margin - gx0 + 1
     gny = int(np.ceil(max(xy[:, 1].max(), xy[:, 3].max()) / c)) + margin - gy0 + 1
     cell_ptr, cell_x, cell_y = _segment_cells(reached.net, c)
-    label, head, link, link_seg, extent = road_grid(
+    label, bits, head, link, link_seg, extent = road_grid(
         xy, band, src, whole, cell_ptr, cell_x, cell_y, n_b, c, gx0, gy0, gnx, gny
     )
     prev: Field | None = None
@@ -642,7 +642,9 @@ def reach_fields(reached: Reached, n_b: int, reach_m: float, cell_m: float) -> l
         wx0, wy0 = int(extent[k, 0]) - margin, int(extent[k, 1]) - margin
         wnx = int(extent[k, 2] - extent[k, 0]) + 2 * margin + 1
         wny = int(extent[k, 3] - extent[k, 1]) + 2 * margin + 1
-        dist = band_distance(label, k, wx0, wy0, wnx, wny, head, link, link_seg, xy, band, gx0, gy0, c, float(reach_m))
+        dist = band_distance(
+            label, bits, k, wx0, wy0, wnx, wny, head, link, link_seg, xy, band, gx0, gy0, c, float(reach_m)
+        )
         field = Field(wx0 + gx0, wy0 + gy0, dist)
         if prev is not None:
             s_ = prev._slices(field.ix0, field.iy0)

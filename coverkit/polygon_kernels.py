@@ -23,6 +23,8 @@ from numba import njit
 
 #: Stand-in distance (m) for grid nodes clearly beyond the level line.
 FAR_M = 1e9
+#: Bands below this one are treated one increment at a time (a bit each in a 64-bit mask); later ones cumulatively.
+MAX_BAND_BIT = 63
 
 
 @njit(cache=True, nogil=True)
@@ -110,6 +112,8 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
     -------
     label : int16 array (gny, gnx)
         Earliest band reaching each node's cell, ``n_bands`` if none.
+    bits : uint64 array (gny, gnx)
+        The bands with segments in each cell, one bit per band (bit :data:`MAX_BAND_BIT` for that band and later).
     head, link, link_seg : int32 arrays
         Segments through cell ``c``, as a linked list: ``t = head[c]``, then ``link_seg[t]`` while ``t >= 0``,
         ``t = link[t]``.
@@ -121,6 +125,7 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
     n_cells = gnx * gny
     n_seg = seg_xy.shape[0]
     label = np.full(n_cells, n_bands, dtype=np.int16)
+    bits = np.zeros(n_cells, dtype=np.uint64)
     head = np.full(n_cells, -1, dtype=np.int32)
     # sized once (arrays regrown inside the loop keep numba from optimising it)
     cap = 0
@@ -158,6 +163,7 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
             n_pair += 1
             if b < label[c]:
                 label[c] = b
+            bits[c] |= np.uint64(1) << np.uint64(min(b, MAX_BAND_BIT))
     extent = np.full((n_bands, 4), -1, dtype=np.int64)
     big = 1 << 40
     lo_x = np.full(n_bands, big, dtype=np.int64)
@@ -183,7 +189,7 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
             extent[b, 1] = lo_y[b]
             extent[b, 2] = hi_x[b]
             extent[b, 3] = hi_y[b]
-    return label.reshape(gny, gnx), head, link, link_seg, extent
+    return label.reshape(gny, gnx), bits.reshape(gny, gnx), head, link, link_seg, extent
 
 
 @njit(cache=True, nogil=True)
@@ -214,13 +220,13 @@ def _segment_distance(px, py, x0, y0, x1, y1):
 
 
 @njit(cache=True, nogil=True)
-def _cell_distance(px, py, c, band, head, link, link_seg, seg_xy, seg_band, best):
-    """Least of ``best`` and the distances (m) from a point to the segments of bands ``<= band`` through cell
-    ``c``."""
+def _cell_distance(px, py, c, band, only, head, link, link_seg, seg_xy, seg_band, best):
+    """Least of ``best`` and the distances (m) from a point to the segments through cell ``c`` of band ``band``
+    (``only``) or of bands ``<= band``."""
     t = head[c]
     while t >= 0:
         s = link_seg[t]
-        if seg_band[s] <= band:
+        if seg_band[s] == band or (not only and seg_band[s] < band):
             d = _segment_distance(px, py, seg_xy[s, 0], seg_xy[s, 1], seg_xy[s, 2], seg_xy[s, 3])
             if d < best:
                 best = d
@@ -229,16 +235,21 @@ def _cell_distance(px, py, c, band, head, link, link_seg, seg_xy, seg_band, best
 
 
 @njit(cache=True, nogil=True)
-def band_distance(label, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy, seg_band, gx0, gy0, cell_m, reach_m):
-    """Distance (m) from the nodes of a window of the grid to the road of bands ``<= band``, exact near
-    ``reach_m``.
+def band_distance(
+    label, bits, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy, seg_band, gx0, gy0, cell_m, reach_m
+):
+    """Distance (m) from the nodes of a window of the grid to the road first reached in band ``band`` (its
+    increment; for bands from :data:`MAX_BAND_BIT` on, to the road of all bands up to it), exact near ``reach_m``.
+
+    The field of a band is the least of this and the previous band's field (see ``reach_fields``): each road's
+    exact distances are worked out once, in the band that first reaches it.
 
     Parameters
     ----------
-    label, head, link, link_seg
+    label, bits, head, link, link_seg
         As from :func:`road_grid` (grid origin ``gx0, gy0`` in cells).
     band : int
-        The band (0-based): road nodes are those with ``label <= band``.
+        The band (0-based).
     wx0, wy0, wnx, wny : int
         The window, in grid cells relative to the grid origin; it must lie inside the grid with at least one
         cell to spare around every road node in it.
@@ -274,17 +285,27 @@ def band_distance(label, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy,
     big = 1 << 20
     # signed vertical offset to the nearest road node in the column (road at row ``i - vert``), in two sweeps
     # written as contiguous selects so that they vectorise
+    only = band < MAX_BAND_BIT
+    bit = np.uint64(1) << np.uint64(min(band, MAX_BAND_BIT))
+    is_road = np.empty(wnx, dtype=np.bool_)
     vert = np.empty((wny, wnx), dtype=np.int32)
-    lab = label[wy0, wx0 : wx0 + wnx]
-    cur = vert[0]
-    for j in range(wnx):
-        cur[j] = 0 if lab[j] <= band else big
-    for i in range(1, wny):
-        lab = label[wy0 + i, wx0 : wx0 + wnx]
-        prev = vert[i - 1]
+    for i in range(wny):
+        if only:
+            row_bits = bits[wy0 + i, wx0 : wx0 + wnx]
+            for j in range(wnx):
+                is_road[j] = (row_bits[j] & bit) != 0
+        else:
+            lab = label[wy0 + i, wx0 : wx0 + wnx]
+            for j in range(wnx):
+                is_road[j] = lab[j] <= band
         cur = vert[i]
-        for j in range(wnx):
-            cur[j] = 0 if lab[j] <= band else min(prev[j] + 1, big)
+        if i == 0:
+            for j in range(wnx):
+                cur[j] = 0 if is_road[j] else big
+        else:
+            prev = vert[i - 1]
+            for j in range(wnx):
+                cur[j] = 0 if is_road[j] else min(prev[j] + 1, big)
     carry = np.full(wnx, big, dtype=np.int32)
     for i in range(wny - 1, -1, -1):
         cur = vert[i]
@@ -346,7 +367,7 @@ def band_distance(label, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy,
             fr = wy0 + i - cur[p]
             c0 = fr * gnx + wx0 + p
             px = (gx0 + wx0 + q) * cell_m
-            best = _cell_distance(px, py, c0, band, head, link, link_seg, seg_xy, seg_band, np.inf)
+            best = _cell_distance(px, py, c0, band, only, head, link, link_seg, seg_xy, seg_band, np.inf)
             # the own cell's road bounds the distance from above: often it is already clearly inside; else the
             # 3 x 3 cells around the nearest road node nearly always hold the nearest road (a cell farther off can
             # hold nearer road only where two roads lie at about the same distance)
@@ -355,7 +376,7 @@ def band_distance(label, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy,
                     for dx in range(-1, 2):
                         if dy != 0 or dx != 0:
                             best = _cell_distance(
-                                px, py, c0 + dy * gnx + dx, band, head, link, link_seg, seg_xy, seg_band, best
+                                px, py, c0 + dy * gnx + dx, band, only, head, link, link_seg, seg_xy, seg_band, best
                             )
                 if best < deep_m:
                     best = 0.0

@@ -5,7 +5,8 @@ Sources of the checks:
 * Grid traversal (Amanatides & Woo 1987): the cells a segment passes through are the node-centred squares its
   interior meets, which GEOS ``intersects`` decides independently. With random real coordinates a segment touching a
   square only at a corner or along a side has probability zero, so the two sets must be equal.
-* Per-band distance field: the distance from a point to a set of segments is GEOS ``distance``. The field must never
+* Per-band distance field (to the road a band first reaches): the distance from a point to a set of segments is GEOS
+  ``distance``. The field must never
   be below it (its values are distances to some of the band's segments), its stand-ins must be on the right side
   (0 only where the road is surely closer than ``reach - cell``, far only where it is surely farther than
   ``reach + cell``: the property the level tracing relies on), and it must equal GEOS at nearly every node within a
@@ -68,7 +69,7 @@ def test_band_distance_against_geos_distance():
     gnx = int(np.ceil(seg[:, [0, 2]].max() / cell)) + margin - gx0 + 1
     gny = int(np.ceil(seg[:, [1, 3]].max() / cell)) + margin - gy0 + 1
     whole = np.ones(len(seg), dtype=bool)
-    label, head, link, link_seg, extent = road_grid(
+    label, bits, head, link, link_seg, extent = road_grid(
         seg, band, np.arange(len(seg)), whole, ptr, ix, iy, n_b, cell, gx0, gy0, gnx, gny
     )
     lines = shapely.linestrings(seg.reshape(-1, 2, 2))
@@ -77,8 +78,8 @@ def test_band_distance_against_geos_distance():
         wx0, wy0 = int(extent[k, 0]) - margin, int(extent[k, 1]) - margin
         wnx = int(extent[k, 2] - extent[k, 0]) + 2 * margin + 1
         wny = int(extent[k, 3] - extent[k, 1]) + 2 * margin + 1
-        dist = band_distance(label, k, wx0, wy0, wnx, wny, head, link, link_seg, seg, band, gx0, gy0, cell, reach)
-        road = shapely.union_all(lines[band <= k])
+        dist = band_distance(label, bits, k, wx0, wy0, wnx, wny, head, link, link_seg, seg, band, gx0, gy0, cell, reach)
+        road = shapely.union_all(lines[band == k])  # the band's increment (the field nests by taking minima)
         jj, ii = np.meshgrid(np.arange(wnx), np.arange(wny))
         px, py = (gx0 + wx0 + jj) * cell, (gy0 + wy0 + ii) * cell
         true = shapely.distance(shapely.points(px.ravel(), py.ravel()), road).reshape(dist.shape)
