@@ -144,6 +144,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--surface-cell-m", type=_positive_float, default=50.0, help="surface cell size, m (50)")
     p.add_argument("--reach-m", type=_positive_float, default=150.0, help="reach from a reached road, m (150)")
     p.add_argument("--exact", action="store_true", help="exact vector construction (slower reference path)")
+    p.add_argument(
+        "--grid-m", type=_positive_float, help="grid spacing of the fast polygons, m (default: half the reach)"
+    )
     p.add_argument("--direction", choices=["out", "in"], default="out", help="out: from base (default); in: to base")
     _points_options(p)
     _common(p)
@@ -321,6 +324,7 @@ def _cmd_isochrones(args: argparse.Namespace) -> int:
         args.minutes,
         reach_m=args.reach_m,
         exact=args.exact,
+        cell_m=args.grid_m,
         direction=args.direction,
         max_snap_m=args.snap_m,
     )
