@@ -41,7 +41,6 @@ from coverkit.errors import CoverkitError
 from coverkit.network.model import RoadNetwork
 from coverkit.polygon_kernels import (
     _CASE_SEGMENTS,
-    _SADDLE_JOINED,
     FAR_M,
     anchored_rows,
     band_distance,
@@ -724,7 +723,6 @@ def _field_polygons(field: Field | None, cell_m: float, level_m: float, min_hole
         field.iy0 * cell_m,
         float(cell_m),
         _CASE_SEGMENTS,
-        _SADDLE_JOINED,
     )
     if len(area) == 0:
         return shapely.MultiPolygon()

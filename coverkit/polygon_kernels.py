@@ -508,8 +508,8 @@ def piece_stretches(
 
 # Marching squares: per cell case (bit 0: lower-left corner inside, 1: lower-right, 2: upper-right, 3: upper-left),
 # the boundary segments as (from edge, to edge), inside on the left, so outer rings run anticlockwise and holes
-# clockwise. Edges: 0 bottom, 1 right, 2 top, 3 left. Saddles (5, 10) get their first pair when the cell centre is
-# outside and the second when it is inside. -1: no segment.
+# clockwise. Edges: 0 bottom, 1 right, 2 top, 3 left; -1: no segment. The saddles (5, 10) as listed hold when the
+# cell centre is outside; rows 16 and 17 are cases 5 and 10 with the centre inside.
 _CASE_SEGMENTS = np.array(
     [
         [-1, -1, -1, -1],
@@ -528,10 +528,11 @@ _CASE_SEGMENTS = np.array(
         [0, 1, -1, -1],
         [3, 0, -1, -1],
         [-1, -1, -1, -1],
+        [0, 1, 2, 3],
+        [3, 0, 1, 2],
     ],
     dtype=np.int64,
 )
-_SADDLE_JOINED = np.array([[0, 1, 2, 3], [3, 0, 1, 2]], dtype=np.int64)  # case 5, case 10 with the centre inside
 
 
 @njit(cache=True, nogil=True)
@@ -546,8 +547,19 @@ def _edge_id(i, j, side, nx, n_h):
     return n_h + i * nx + j
 
 
+#: Value of the ring of nodes put round a grid before tracing (outside any level); finite, so interpolation needs no
+#: special case.
+_OUTSIDE = np.float32(1e30)
+
+
 @njit(cache=True, nogil=True)
-def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
+def _crossing(za, zb, level):
+    """Fraction from node a to node b where the linear interpolation of ``za, zb`` meets ``level``."""
+    return (level - za) / (zb - za)
+
+
+@njit(cache=True, nogil=True)
+def trace_level(z, level, x0, y0, cell_m, case_segments):
     """Rings of the region ``z <= level`` of a grid (marching squares with linear interpolation; W. E. Lorensen,
     H. E. Cline (1987), "Marching cubes", SIGGRAPH, in its 2-d form), the grid taken as outside beyond its edge.
 
@@ -559,8 +571,8 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
         The level.
     x0, y0, cell_m : float
         Position of node ``(0, 0)`` and the spacing (m).
-    case_segments, saddle_joined
-        The marching-squares tables (:data:`_CASE_SEGMENTS`, :data:`_SADDLE_JOINED`).
+    case_segments
+        The marching-squares table (:data:`_CASE_SEGMENTS`).
 
     Returns
     -------
@@ -575,13 +587,13 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
     # one node of outside all round, so that every ring closes
     ny = ny0 + 2
     nx = nx0 + 2
-    zp = np.full((ny, nx), np.inf, dtype=np.float32)
+    zp = np.full((ny, nx), _OUTSIDE, dtype=np.float32)
     zp[1 : ny - 1, 1 : nx - 1] = z
     n_h = ny * nx
-    inside = np.empty((ny, nx), dtype=np.uint8)
+    inside = np.empty((ny, nx), dtype=np.int64)
     for i in range(ny):
         for j in range(nx):
-            inside[i, j] = zp[i, j] <= level
+            inside[i, j] = 1 if zp[i, j] <= level else 0
     # one segment leaves each edge whose ends differ: counted first so that every array is sized once
     n_cross = 0
     for i in range(ny):
@@ -592,33 +604,42 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
             n_cross += inside[i, j] != inside[i + 1, j]
     nxt = np.empty(2 * n_h, dtype=np.int64)
     starts = np.empty(n_cross, dtype=np.int64)
+    n_start = _link_crossings(zp, inside, level, case_segments, nxt, starts)
+    return _walk_rings(zp, nxt, starts, n_start, level, x0, y0, cell_m)
+
+
+@njit(cache=True, nogil=True)
+def _link_crossings(zp, inside, level, case_segments, nxt, starts):
+    """Marching-squares cases of every cell: ``nxt[edge]`` is the edge where the boundary leaving ``edge`` goes
+    next, and ``starts`` the edges that boundary leaves from (returns how many)."""
+    ny, nx = zp.shape
+    n_h = ny * nx
     n_start = 0
     for i in range(ny - 1):
         for j in range(nx - 1):
-            case = inside[i, j] | (inside[i, j + 1] << 1) | (inside[i + 1, j + 1] << 2) | (inside[i + 1, j] << 3)
+            case = inside[i, j] + 2 * inside[i, j + 1] + 4 * inside[i + 1, j + 1] + 8 * inside[i + 1, j]
             if case == 0 or case == 15:
                 continue
-            a0 = case_segments[case, 0]
-            b0 = case_segments[case, 1]
-            a1 = case_segments[case, 2]
-            b1 = case_segments[case, 3]
             if case == 5 or case == 10:
                 centre = 0.25 * (float(zp[i, j]) + float(zp[i, j + 1]) + float(zp[i + 1, j + 1]) + float(zp[i + 1, j]))
                 if centre <= level:
-                    s = 0 if case == 5 else 1
-                    a0 = saddle_joined[s, 0]
-                    b0 = saddle_joined[s, 1]
-                    a1 = saddle_joined[s, 2]
-                    b1 = saddle_joined[s, 3]
-            for k in range(2):
-                a = a0 if k == 0 else a1
-                b = b0 if k == 0 else b1
+                    case = 16 if case == 5 else 17
+            for k in range(0, 4, 2):
+                a = case_segments[case, k]
                 if a < 0:
                     break
                 ea = _edge_id(i, j, a, nx, n_h)
-                nxt[ea] = _edge_id(i, j, b, nx, n_h)
+                nxt[ea] = _edge_id(i, j, case_segments[case, k + 1], nx, n_h)
                 starts[n_start] = ea
                 n_start += 1
+    return n_start
+
+
+@njit(cache=True, nogil=True)
+def _walk_rings(zp, nxt, starts, n_start, level, x0, y0, cell_m):
+    """Rings from the linked crossings (see :func:`trace_level`), with their signed areas."""
+    ny, nx = zp.shape
+    n_h = ny * nx
     pts = np.empty((n_start, 2), dtype=np.float64)
     offsets = np.empty(n_start + 1, dtype=np.int64)
     area = np.empty(n_start, dtype=np.float64)
@@ -637,7 +658,7 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
                 j = e % nx
                 za = float(zp[i, j])
                 zb = float(zp[i, j + 1])
-                f = (level - za) / (zb - za) if np.isfinite(zb) and np.isfinite(za) else (0.0 if za <= level else 1.0)
+                f = _crossing(za, zb, level)
                 px = x0 + (j - 1 + f) * cell_m
                 py = y0 + (i - 1) * cell_m
             else:
@@ -645,7 +666,7 @@ def trace_level(z, level, x0, y0, cell_m, case_segments, saddle_joined):
                 j = (e - n_h) % nx
                 za = float(zp[i, j])
                 zb = float(zp[i + 1, j])
-                f = (level - za) / (zb - za) if np.isfinite(zb) and np.isfinite(za) else (0.0 if za <= level else 1.0)
+                f = _crossing(za, zb, level)
                 px = x0 + (j - 1) * cell_m
                 py = y0 + (i - 1 + f) * cell_m
             pts[m, 0] = px

@@ -116,7 +116,7 @@ def _contourpy_region(z, level, x0, y0, cell):
 def test_trace_level_matches_contourpy_and_circle_area():
     """Traced rings: anticlockwise outer rings and clockwise holes; the region equals contourpy's filled contour on a
     random smooth field (IoU > 0.999; saddles may be split differently), and a disk's area is pi r^2 within 0.5 %."""
-    from coverkit.isochrones import _CASE_SEGMENTS, _SADDLE_JOINED
+    from coverkit.isochrones import _CASE_SEGMENTS
     from coverkit.polygon_kernels import trace_level
 
     rng = np.random.default_rng(5)
@@ -128,7 +128,7 @@ def test_trace_level_matches_contourpy_and_circle_area():
         z += a * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * s * s))
     z = z.astype(np.float32)
     for level in (-0.2, 0.0, 0.3):
-        pts, offs, area = trace_level(z, level, x0, y0, cell, _CASE_SEGMENTS, _SADDLE_JOINED)
+        pts, offs, area = trace_level(z, level, x0, y0, cell, _CASE_SEGMENTS)
         rings = [shapely.LinearRing(pts[offs[i] : offs[i + 1]]) for i in range(len(area))]
         assert np.allclose([shapely.Polygon(r).area for r in rings], np.abs(area), rtol=1e-9)
         assert all(r.is_ccw == (a > 0) for r, a in zip(rings, area, strict=True))
@@ -142,5 +142,5 @@ def test_trace_level_matches_contourpy_and_circle_area():
         assert shapely.intersection(ours, ref).area / shapely.union(ours, ref).area > 0.999
     # a cone: the region within 300 m of a point is a disk
     d = np.hypot(xx - 75.3, yy - 60.7).astype(np.float32) * cell
-    pts, offs, area = trace_level(d, 300.0, x0, y0, cell, _CASE_SEGMENTS, _SADDLE_JOINED)
+    pts, offs, area = trace_level(d, 300.0, x0, y0, cell, _CASE_SEGMENTS)
     assert len(area) == 1 and abs(area[0] / (np.pi * 300.0**2) - 1.0) < 0.005
