@@ -25,9 +25,11 @@ in the network CRS.
 from __future__ import annotations
 
 import os
+import threading
 import time
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -50,7 +52,7 @@ from coverkit.polygon_kernels import (
     segment_cells,
     trace_level,
 )
-from coverkit.progress import counted
+from coverkit.progress import counted, note
 from coverkit.travel.search import _check_direction, nearest_node_times, node_time_blocks, run_s
 from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, road_pieces, snap_points
 
@@ -150,6 +152,10 @@ def drive_time_polygons(
 
     def one_base(i: int, d: np.ndarray):
         """Road km, polygons and (fast path) fields of base ``i`` from its node times ``d``."""
+        with _compile_notice():
+            return base_work(i, d)
+
+    def base_work(i: int, d: np.ndarray):
         reached = reached_pieces(net, d, snapped.subset([i]), bands_s, direction)
         lap("reached road")
         fields = None
@@ -235,6 +241,30 @@ class _Laps:
             now = time.perf_counter()
             self.timings[step] = self.timings.get(step, 0.0) + now - self.t
             self.t = now
+
+
+_KERNELS = {"ready": False, "lock": threading.Lock()}
+
+
+@contextmanager
+def _compile_notice():
+    """Around the first use of the compiled kernels in a process: if it takes over 2 s (numba compiling them, once
+    after installing, rather than loading them from its cache), say so on stderr, so that the pause is explained."""
+    with _KERNELS["lock"]:
+        first = not _KERNELS["ready"]
+        _KERNELS["ready"] = True
+    if not first:
+        yield
+        return
+    timer = threading.Timer(
+        2.0, note, args=("\ncompiling the drive-time polygon kernels (numba; once after installing, about 20 s)",)
+    )
+    timer.daemon = True
+    timer.start()
+    try:
+        yield
+    finally:
+        timer.cancel()
 
 
 def _warm_caches(net: RoadNetwork, direction: str, cell_m: float | None) -> None:
@@ -869,7 +899,8 @@ def travel_surface(
             raise CoverkitError(f"base '{base_id}' is not in the bases file; give one of its ids.")
         snapped = snapped.subset(match[:1])
     d, _ = nearest_node_times(net, snapped, limit_s, direction=direction)
-    reached = reached_pieces(net, d, snapped, np.array([limit_s]), direction)
+    with _compile_notice():
+        reached = reached_pieces(net, d, snapped, np.array([limit_s]), direction)
     # sample reached road every cell/2 with exact times; the time of a sample is its minimum over increments
     seg = _piece_segments(net)
     pieces = road_pieces(net)

@@ -151,6 +151,18 @@ def test_fast_matches_exact_on_demo_county():
     _iou_check(net, bases, [4, 8, 12])
 
 
+def test_same_polygons_on_one_thread_and_several():
+    """Determinism (common practice): the worker threads change the time taken, not one coordinate."""
+    net = irregular_network(40, 40, seed=11)
+    lo, hi = net.xy.min(axis=0), net.xy.max(axis=0)
+    xy = lo + (hi - lo) * np.array([[0.3, 0.3], [0.7, 0.6], [0.5, 0.8], [0.2, 0.7]])
+    one = drive_time_polygons(net, _bases(net, xy), [2, 4, 6], workers=1)
+    many = drive_time_polygons(net, _bases(net, xy), [2, 4, 6], workers=3)
+    assert list(one["base_id"]) == list(many["base_id"]) and (one["area_km2"] > 0).all()
+    assert np.array_equal(one["road_km"], many["road_km"])
+    assert all(shapely.equals_exact(a, b, tolerance=0.0) for a, b in zip(one.geometry, many.geometry, strict=True))
+
+
 def test_travel_surface_geotiff(tmp_path, grid_case):
     """Surface on the uniform grid: a cell on a road at L1 distance D from the base holds D/v minutes (exact) to
     within one cell of travel; cells beyond the largest band hold nodata."""
