@@ -145,7 +145,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--reach-m", type=_positive_float, default=150.0, help="reach from a reached road, m (150)")
     p.add_argument("--exact", action="store_true", help="exact vector construction (slower reference path)")
     p.add_argument(
-        "--grid-m", type=_positive_float, help="grid spacing of the fast polygons, m (default: half the reach)"
+        "--grid-m", type=_positive_float, help="grid spacing of the fast polygons, m (default: a third of the reach)"
     )
     p.add_argument("--direction", choices=["out", "in"], default="out", help="out: from base (default); in: to base")
     _points_options(p)

@@ -6,7 +6,7 @@ hugs the roads and has holes where no reached road comes within ``reach_m``; it 
 
 Two constructions of the same set:
 
-* **fast** (default): per base, on a square grid (spacing ``cell_m``, default ``reach_m / 2``, i.e. 75 m for the
+* **fast** (default): per base, on a square grid (spacing ``cell_m``, default ``reach_m / 3``, i.e. 50 m for the
   default 150 m reach) over the reached extent only, compiled kernels (:mod:`coverkit.polygon_kernels`) find each
   node's nearest reached road node and, near the ``reach_m`` level, its distance to the reached road segments in the
   cells around that node (see :func:`reach_fields`). One field per band, each never above the previous one, so the
@@ -18,7 +18,8 @@ Two constructions of the same set:
   smaller than ``min_hole_km2`` are filled and the polygon of band k is unioned with band k-1, so bands nest exactly.
 
 The fast outline matches the exact one to intersection-over-union >= 0.99 on the demo county and on synthetic
-networks (tests and benchmark); it cuts concave corners of the exact outline by up to about a cell. Areas are planar
+networks for bands of a few minutes, and >= 0.98 for polygons of a few tenths of a km² (tests and benchmark); it cuts
+concave corners of the exact outline by up to about a cell. Areas are planar
 in the network CRS.
 """
 
@@ -59,9 +60,10 @@ from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, road_pieces, snap_
 #: Default reach distance from a reached road (m): how far off the road a place still counts as reached.
 DEFAULT_REACH_M = 150.0
 #: Default grid spacing of the fast polygons, as a share of the reach: the traced outline interpolates exact road
-#: distances, so it stays within intersection-over-union 0.99 of the exact polygons at half the reach (tests and
-#: benchmark), while the work falls with the square of the spacing on sparse rural roads.
-DEFAULT_CELL_PER_REACH = 0.5
+#: distances, so at a third of the reach it stays within intersection-over-union 0.98 of the exact polygons even for
+#: polygons of a few tenths of a km² (0.99 and up for bands of a few minutes; tests and benchmark). At half the reach
+#: it is about twice as fast on sparse rural roads but drops to about 0.96 on such small polygons.
+DEFAULT_CELL_PER_REACH = 1.0 / 3.0
 #: Default: holes smaller than this (km^2) are filled (1 ha).
 DEFAULT_MIN_HOLE_KM2 = 0.01
 #: Default travel-time surface cell size (m).
@@ -105,7 +107,7 @@ def drive_time_polygons(
     exact
         Use the shapely buffer-and-union construction instead of the fast grid one.
     cell_m
-        Grid spacing of the fast path (m), default ``reach_m / 2`` (75 m for the default reach).
+        Grid spacing of the fast path (m), default ``reach_m / 3`` (50 m for the default reach).
     direction
         ``"out"`` (from the base) or ``"in"`` (to the base).
     any_base

@@ -134,6 +134,20 @@ def test_fast_matches_exact_on_irregular_network():
     assert list(table.columns) == ["base", "band_min", "area_km2", "road_km"]
 
 
+def test_fast_matches_exact_on_small_polygons():
+    """shapely 2 exact construction as reference for the smallest polygons (bands of a few seconds, a few tenths of a
+    km²), where a grid cell is largest against the polygon: IoU >= 0.98 at the default grid."""
+    net = irregular_network(30, 30, seed=5)
+    lo, hi = net.xy.min(axis=0), net.xy.max(axis=0)
+    bases = _bases(net, lo + (hi - lo) * np.array([[0.4, 0.4], [0.6, 0.7]]))
+    minutes = [0.1, 0.2, 0.3, 0.4, 0.5]
+    fast = drive_time_polygons(net, bases, minutes)
+    exact = drive_time_polygons(net, bases, minutes, exact=True)
+    assert (exact.loc[exact["base_id"] != ANY_BASE_ID, "area_km2"] < 0.6).all()
+    for a, b in zip(fast.geometry, exact.geometry, strict=True):
+        assert shapely.intersection(a, b).area / shapely.union(a, b).area >= 0.98
+
+
 def test_fast_matches_exact_on_demo_county():
     """shapely 2 exact construction as reference, on the demo county: IoU >= 0.98 for every base and band (the
     issue's bands 4, 8, 12 min) and for the any-base polygons."""
