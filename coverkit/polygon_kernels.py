@@ -584,44 +584,54 @@ def trace_level(z, level, x0, y0, cell_m, case_segments):
         Signed area (m²): positive for outer rings (anticlockwise), negative for holes.
     """
     ny0, nx0 = z.shape
-    # one node of outside all round, so that every ring closes
+    # one node of outside all round (in the inside mask and :func:`_z_at`), so that every ring closes
     ny = ny0 + 2
     nx = nx0 + 2
-    zp = np.full((ny, nx), _OUTSIDE, dtype=np.float32)
-    zp[1 : ny - 1, 1 : nx - 1] = z
     n_h = ny * nx
-    inside = np.empty((ny, nx), dtype=np.int64)
-    for i in range(ny):
-        for j in range(nx):
-            inside[i, j] = 1 if zp[i, j] <= level else 0
+    inside = np.zeros((ny, nx), dtype=np.int8)
+    for i in range(ny0):
+        row = z[i]
+        mask = inside[i + 1]
+        for j in range(nx0):
+            mask[j + 1] = 1 if row[j] <= level else 0
     # one segment leaves each edge whose ends differ: counted first so that every array is sized once
     n_cross = 0
     for i in range(ny):
         for j in range(nx - 1):
-            n_cross += inside[i, j] != inside[i, j + 1]
+            n_cross += abs(np.int64(inside[i, j]) - np.int64(inside[i, j + 1]))
     for i in range(ny - 1):
         for j in range(nx):
-            n_cross += inside[i, j] != inside[i + 1, j]
-    nxt = np.empty(2 * n_h, dtype=np.int64)
-    starts = np.empty(n_cross, dtype=np.int64)
-    n_start = _link_crossings(zp, inside, level, case_segments, nxt, starts)
-    return _walk_rings(zp, nxt, starts, n_start, level, x0, y0, cell_m)
+            n_cross += abs(np.int64(inside[i, j]) - np.int64(inside[i + 1, j]))
+    nxt = np.empty(2 * n_h, dtype=np.int32)
+    starts = np.empty(n_cross, dtype=np.int32)
+    n_start = _link_crossings(z, inside, level, case_segments, nxt, starts)
+    return _walk_rings(z, nxt, starts, n_start, level, x0, y0, cell_m)
 
 
 @njit(cache=True, nogil=True)
-def _link_crossings(zp, inside, level, case_segments, nxt, starts):
-    """Marching-squares cases of every cell: ``nxt[edge]`` is the edge where the boundary leaving ``edge`` goes
-    next, and ``starts`` the edges that boundary leaves from (returns how many)."""
-    ny, nx = zp.shape
+def _z_at(z, i, j):
+    """Value at node ``(i, j)`` of the grid padded by one outside node all round."""
+    if i < 1 or j < 1 or i > z.shape[0] or j > z.shape[1]:
+        return float(_OUTSIDE)
+    return float(z[i - 1, j - 1])
+
+
+@njit(cache=True, nogil=True)
+def _link_crossings(z, inside, level, case_segments, nxt, starts):
+    """Marching-squares cases of every cell of the padded grid: ``nxt[edge]`` is the edge where the boundary
+    leaving ``edge`` goes next, and ``starts`` the edges that boundary leaves from (returns how many)."""
+    ny, nx = inside.shape
     n_h = ny * nx
     n_start = 0
     for i in range(ny - 1):
+        lower = inside[i]
+        upper = inside[i + 1]
         for j in range(nx - 1):
-            case = inside[i, j] + 2 * inside[i, j + 1] + 4 * inside[i + 1, j + 1] + 8 * inside[i + 1, j]
+            case = np.int64(lower[j]) + 2 * np.int64(lower[j + 1]) + 4 * np.int64(upper[j + 1]) + 8 * np.int64(upper[j])
             if case == 0 or case == 15:
                 continue
             if case == 5 or case == 10:
-                centre = 0.25 * (float(zp[i, j]) + float(zp[i, j + 1]) + float(zp[i + 1, j + 1]) + float(zp[i + 1, j]))
+                centre = 0.25 * (_z_at(z, i, j) + _z_at(z, i, j + 1) + _z_at(z, i + 1, j + 1) + _z_at(z, i + 1, j))
                 if centre <= level:
                     case = 16 if case == 5 else 17
             for k in range(0, 4, 2):
@@ -636,9 +646,10 @@ def _link_crossings(zp, inside, level, case_segments, nxt, starts):
 
 
 @njit(cache=True, nogil=True)
-def _walk_rings(zp, nxt, starts, n_start, level, x0, y0, cell_m):
+def _walk_rings(z, nxt, starts, n_start, level, x0, y0, cell_m):
     """Rings from the linked crossings (see :func:`trace_level`), with their signed areas."""
-    ny, nx = zp.shape
+    ny = z.shape[0] + 2
+    nx = z.shape[1] + 2
     n_h = ny * nx
     pts = np.empty((n_start, 2), dtype=np.float64)
     offsets = np.empty(n_start + 1, dtype=np.int64)
@@ -647,7 +658,7 @@ def _walk_rings(zp, nxt, starts, n_start, level, x0, y0, cell_m):
     n_ring = 0
     m = 0
     for t in range(n_start):
-        e = starts[t]
+        e = np.int64(starts[t])
         if nxt[e] < 0:
             continue
         first = m
@@ -656,23 +667,19 @@ def _walk_rings(zp, nxt, starts, n_start, level, x0, y0, cell_m):
             if e < n_h:
                 i = e // nx
                 j = e % nx
-                za = float(zp[i, j])
-                zb = float(zp[i, j + 1])
-                f = _crossing(za, zb, level)
+                f = _crossing(_z_at(z, i, j), _z_at(z, i, j + 1), level)
                 px = x0 + (j - 1 + f) * cell_m
                 py = y0 + (i - 1) * cell_m
             else:
                 i = (e - n_h) // nx
                 j = (e - n_h) % nx
-                za = float(zp[i, j])
-                zb = float(zp[i + 1, j])
-                f = _crossing(za, zb, level)
+                f = _crossing(_z_at(z, i, j), _z_at(z, i + 1, j), level)
                 px = x0 + (j - 1) * cell_m
                 py = y0 + (i - 1 + f) * cell_m
             pts[m, 0] = px
             pts[m, 1] = py
             m += 1
-            e2 = nxt[e]
+            e2 = np.int64(nxt[e])
             nxt[e] = -1
             e = e2
         # shoelace, relative to the ring's first point (keeps the products small)
