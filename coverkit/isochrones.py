@@ -727,8 +727,30 @@ def reach_fields(reached: Reached, n_b: int, reach_m: float, cell_m: float) -> l
         wx0, wy0 = int(extent[k, 0]) - margin, int(extent[k, 1]) - margin
         wnx = int(extent[k, 2] - extent[k, 0]) + 2 * margin + 1
         wny = int(extent[k, 3] - extent[k, 1]) + 2 * margin + 1
+        if prev is None:
+            p_arr, p_dx, p_dy = np.zeros((0, 0), dtype=np.float32), 0, 0
+        else:
+            p_arr, p_dx, p_dy = prev.dist_m, prev.ix0 - (wx0 + gx0), prev.iy0 - (wy0 + gy0)
         dist = band_distance(
-            label, bits, k, wx0, wy0, wnx, wny, head, link, link_seg, xy, band, gx0, gy0, c, float(reach_m)
+            label,
+            bits,
+            k,
+            wx0,
+            wy0,
+            wnx,
+            wny,
+            head,
+            link,
+            link_seg,
+            xy,
+            band,
+            gx0,
+            gy0,
+            c,
+            float(reach_m),
+            p_arr,
+            p_dx,
+            p_dy,
         )
         field = Field(wx0 + gx0, wy0 + gy0, dist)
         if prev is not None:

@@ -236,7 +236,25 @@ def _cell_distance(px, py, c, band, only, head, link, link_seg, seg_xy, seg_band
 
 @njit(cache=True, nogil=True)
 def band_distance(
-    label, bits, band, wx0, wy0, wnx, wny, head, link, link_seg, seg_xy, seg_band, gx0, gy0, cell_m, reach_m
+    label,
+    bits,
+    band,
+    wx0,
+    wy0,
+    wnx,
+    wny,
+    head,
+    link,
+    link_seg,
+    seg_xy,
+    seg_band,
+    gx0,
+    gy0,
+    cell_m,
+    reach_m,
+    prev_field,
+    prev_dx,
+    prev_dy,
 ):
     """Distance (m) from the nodes of a window of the grid to the road first reached in band ``band`` (its
     increment; for bands from :data:`MAX_BAND_BIT` on, to the road of all bands up to it), exact near ``reach_m``.
@@ -257,6 +275,9 @@ def band_distance(
         The segments (as for :func:`road_grid`).
     cell_m, reach_m : float
         Grid spacing and the traced level (m).
+    prev_field : float32 array; prev_dx, prev_dy : int
+        The previous band's field, its node ``(0, 0)`` at window node ``(prev_dy, prev_dx)`` (a 0 x 0 array for
+        none): where it is 0 (surely inside), this band is too, and nothing is worked out there.
 
     Returns
     -------
@@ -354,8 +375,15 @@ def band_distance(
         if n_zone == 0:
             continue
         py = (gy0 + wy0 + i) * cell_m
+        pi = i - prev_dy
+        has_prev = 0 <= pi < prev_field.shape[0]
         for q in range(wnx):
             if o[q] >= 0.0:
+                continue
+            # surely inside the previous band, so inside this one: nothing to work out
+            pq = q - prev_dx
+            if has_prev and 0 <= pq < prev_field.shape[1] and prev_field[pi, pq] == 0.0:
+                o[q] = 0.0
                 continue
             d2 = acc[q]
             # the nearest road node: the column that gave the least, then its row

@@ -78,7 +78,10 @@ def test_band_distance_against_geos_distance():
         wx0, wy0 = int(extent[k, 0]) - margin, int(extent[k, 1]) - margin
         wnx = int(extent[k, 2] - extent[k, 0]) + 2 * margin + 1
         wny = int(extent[k, 3] - extent[k, 1]) + 2 * margin + 1
-        dist = band_distance(label, bits, k, wx0, wy0, wnx, wny, head, link, link_seg, seg, band, gx0, gy0, cell, reach)
+        no_prev = np.zeros((0, 0), dtype=np.float32)
+        dist = band_distance(
+            label, bits, k, wx0, wy0, wnx, wny, head, link, link_seg, seg, band, gx0, gy0, cell, reach, no_prev, 0, 0
+        )
         road = shapely.union_all(lines[band == k])  # the band's increment (the field nests by taking minima)
         jj, ii = np.meshgrid(np.arange(wnx), np.arange(wny))
         px, py = (gx0 + wx0 + jj) * cell, (gy0 + wy0 + ii) * cell
