@@ -679,7 +679,7 @@ class Field:
         x1 = max(self.ix0 + self.dist_m.shape[1], other.ix0 + nx)
         y1 = max(self.iy0 + self.dist_m.shape[0], other.iy0 + ny)
         if (x0, y0, x1, y1) != (self.ix0, self.iy0, self.ix0 + self.dist_m.shape[1], self.iy0 + self.dist_m.shape[0]):
-            grown = np.full((y1 - y0, x1 - x0), _FAR)
+            grown = np.full((y1 - y0, x1 - x0), _FAR, dtype=self.dist_m.dtype)
             grown[self._slices(x0, y0)] = self.dist_m
             self.ix0, self.iy0, self.dist_m = x0, y0, grown
         sl = other._slices(self.ix0, self.iy0)
