@@ -789,8 +789,10 @@ def _field_polygons(field: Field | None, cell_m: float, level_m: float, min_hole
     owner[shell] = shell
     if len(shell) > 1 and len(filled):
         # an outer ring lying inside a hole that is filled is covered twice: drop it (its holes go with it)
+        # whole rings, not their first points: a ring's first point may lie on another ring where the two touch
+        # (a node exactly at the level, e.g. a pinch between two road ends 2 * reach apart)
         inside, _ = shapely.STRtree(shapely.polygons(rings[filled])).query(
-            shapely.points(pts[offs[shell]]), predicate="within"
+            shapely.polygons(rings[shell]), predicate="covered_by"
         )
         owner[shell[np.unique(inside)]] = -1
     if len(kept_hole) and len(shell) == 1:
@@ -798,13 +800,18 @@ def _field_polygons(field: Field | None, cell_m: float, level_m: float, min_hole
     elif len(kept_hole):
         live = shell[owner[shell] >= 0]
         h, sh = shapely.STRtree(shapely.polygons(rings[live])).query(
-            shapely.points(pts[offs[kept_hole]]), predicate="within"
+            shapely.polygons(rings[kept_hole]), predicate="covered_by"
         )
         # nested islands: the smallest containing outer ring is the hole's own
         order = np.lexsort((area[live[sh]], h))
         h, sh = h[order], sh[order]
-        first = np.r_[True, h[1:] != h[:-1]]
+        first = np.ones(len(h), dtype=bool)
+        first[1:] = h[1:] != h[:-1]
         owner[kept_hole[h[first]]] = live[sh[first]]
+        if (owner[kept_hole] < 0).any():
+            # not expected (rings are nested); never drop a hole silently: the region is the xor of its rings
+            keep = np.r_[live, kept_hole]
+            return _clean(shapely.symmetric_difference_all(shapely.polygons(rings[keep])), min_hole_m2)
     sel = np.flatnonzero(owner >= 0)
     # each polygon's outer ring first, then its holes
     sel = sel[np.lexsort((area[sel] < 0, owner[sel]))]

@@ -235,6 +235,48 @@ def _cell_distance(px, py, c, band, only, head, link, link_seg, seg_xy, seg_band
 
 
 @njit(cache=True, nogil=True)
+def _nearest_in_disc(
+    px, py, row, col, g2, best, cap_m, label, bits, band, only, head, link, link_seg, seg_xy, seg_band, cell_m
+):
+    """Distance (m) from grid node ``(row, col)`` at ``(px, py)`` to the band's segments, exact up to ``cap_m``,
+    given an upper bound ``best`` and the squared grid distance ``g2`` (cells²) to the band's nearest road node.
+
+    Road in a cell whose node is ``rho`` cells away lies at least ``rho - 0.71`` cells away, so only road cells with
+    ``rho < min(best, cap_m) / cell + 0.71`` can hold anything nearer than both; the disc shrinks as nearer road is
+    found. A result above ``cap_m`` is only known to be above it.
+    """
+    gny, gnx = label.shape
+    bit = np.uint64(1) << np.uint64(min(band, MAX_BAND_BIT))
+    lim = min(best, cap_m) / cell_m + 0.7072
+    r = int(lim)
+    for dy in range(max(-r, -row), min(r, gny - 1 - row) + 1):
+        w2 = lim * lim - dy * dy
+        if w2 <= 0.0:
+            continue
+        half = int(np.sqrt(w2))
+        # no road node of the band lies nearer than the grid distance ``g2`` (squared cells): skip that inner part
+        inner = g2 - dy * dy
+        skip = int(np.sqrt(inner - 1)) if inner > 0 else -1
+        y = row + dy
+        # two runs of the row: left and right of the skipped inner part
+        for side in range(2):
+            if side == 0:
+                x_lo, x_hi = col - half, col - skip - 1
+            else:
+                x_lo, x_hi = col + skip + 1, col + half
+            for x in range(max(x_lo, 0), min(x_hi, gnx - 1) + 1):
+                has = (bits[y, x] & bit) != 0 if only else label[y, x] <= band
+                if not has:
+                    continue
+                dx = x - col
+                if dy * dy + dx * dx >= lim * lim:
+                    continue
+                best = _cell_distance(px, py, y * gnx + x, band, only, head, link, link_seg, seg_xy, seg_band, best)
+                lim = min(best, cap_m) / cell_m + 0.7072
+    return best
+
+
+@njit(cache=True, nogil=True)
 def band_distance(
     label,
     bits,
@@ -303,7 +345,9 @@ def band_distance(
     # only grid distances up to ``reach`` cells matter (beyond ``hi_c`` a node is outside): the transform is
     # bounded, which turns its row pass into a few contiguous (vectorised) min passes
     reach = int(np.ceil(hi_c))
-    big = 1 << 20
+    # "no road within reach" sentinel: above every squared distance that matters ((reach + 1)^2, with room for
+    # adding d^2 <= reach^2 in int32); a fixed 1 << 20 is below reach^2 once reach_m / cell_m > 1022
+    big = max(1 << 20, 2 * (reach + 2) * (reach + 2))
     # signed vertical offset to the nearest road node in the column (road at row ``i - vert``), in two sweeps
     # written as contiguous selects so that they vectorise
     only = band < MAX_BAND_BIT
@@ -396,9 +440,9 @@ def band_distance(
             c0 = fr * gnx + wx0 + p
             px = (gx0 + wx0 + q) * cell_m
             best = _cell_distance(px, py, c0, band, only, head, link, link_seg, seg_xy, seg_band, np.inf)
-            # the own cell's road bounds the distance from above: often it is already clearly inside; else the
-            # 3 x 3 cells around the nearest road node nearly always hold the nearest road (a cell farther off can
-            # hold nearer road only where two roads lie at about the same distance)
+            # the own cell's road bounds the distance from above: often it is already clearly inside. Else the 3 x 3
+            # cells around the nearest road node give a tight bound (nearly always the distance itself), and the
+            # road cells of the disc that can hold anything nearer are scanned, which makes it exact
             if best >= deep_m:
                 for dy in range(-1, 2):
                     for dx in range(-1, 2):
@@ -406,6 +450,28 @@ def band_distance(
                             best = _cell_distance(
                                 px, py, c0 + dy * gnx + dx, band, only, head, link, link_seg, seg_xy, seg_band, best
                             )
+                if best < deep_m:
+                    o[q] = 0.0
+                    continue
+                best = _nearest_in_disc(
+                    px,
+                    py,
+                    wy0 + i,
+                    wx0 + q,
+                    d2,
+                    best,
+                    reach_m + cell_m,
+                    label,
+                    bits,
+                    band,
+                    only,
+                    head,
+                    link,
+                    link_seg,
+                    seg_xy,
+                    seg_band,
+                    cell_m,
+                )
                 if best < deep_m:
                     best = 0.0
             else:

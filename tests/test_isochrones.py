@@ -148,6 +148,42 @@ def test_fast_matches_exact_on_small_polygons():
         assert shapely.intersection(a, b).area / shapely.union(a, b).area >= 0.98
 
 
+def test_hole_pinched_at_a_node_on_the_level():
+    """Two dead-end road tips exactly 2 x reach apart, with the midpoint on a grid node (the grid is anchored at the
+    CRS origin), close a hole that touches the outer ring at that one node; a second base on a square loop adds an
+    ordinary hole. Reference: shapely 2 exact construction; both holes kept in the any-base polygon, IoU >= 0.98."""
+    from coverkit.network.model import network_from_arrays
+
+    x, y = 500000.0, 5000000.0
+    pinch = [[0, 0], [-1000, 0], [-1000, 1000], [1300, 1000], [1300, 0], [300, 0]]  # tips at x = 0 and 300 m
+    loop = [[5000, 5000], [6200, 5000], [6200, 6200], [5000, 6200]]
+    pts = np.array([*pinch, *loop], dtype=float) + np.array([x, y])
+    a = np.array([0, 1, 2, 3, 4, 6, 7, 8, 9])
+    b = np.array([1, 2, 3, 4, 5, 7, 8, 9, 6])
+    net = network_from_arrays(pts, np.r_[a, b], np.r_[b, a], 36.0)
+    bases = _bases(net, [pts[2], pts[6]])
+    fast = drive_time_polygons(net, bases, [15.0])
+    exact = drive_time_polygons(net, bases, [15.0], exact=True)
+    for g, h in zip(fast.geometry, exact.geometry, strict=True):
+        assert g.is_valid
+        assert sum(len(p.interiors) for p in g.geoms) == sum(len(p.interiors) for p in h.geoms)
+        assert shapely.intersection(g, h).area / shapely.union(g, h).area >= 0.98
+    assert sum(len(p.interiors) for p in fast.geometry.iloc[-1].geoms) == 2
+
+
+def test_fine_grid_against_a_long_reach():
+    """A grid far finer than the reach (reach / cell above 1000) against the exact construction (shapely 2)."""
+    from coverkit.network.model import network_from_arrays
+
+    pts = np.array([[500000.0, 5000000.0], [500080.0, 5000000.0]])
+    net = network_from_arrays(pts, np.array([0, 1]), np.array([1, 0]), 36.0)
+    bases = _bases(net, [pts[0]])
+    fast = drive_time_polygons(net, bases, [1.0], cell_m=0.145, any_base=False)
+    exact = drive_time_polygons(net, bases, [1.0], exact=True, any_base=False)
+    g, h = fast.geometry.iloc[0], exact.geometry.iloc[0]
+    assert shapely.intersection(g, h).area / shapely.union(g, h).area >= 0.98
+
+
 def test_fast_matches_exact_on_demo_county():
     """shapely 2 exact construction as reference, on the demo county: IoU >= 0.98 for every base and band (the
     issue's bands 4, 8, 12 min) and for the any-base polygons."""
