@@ -236,20 +236,40 @@ def _cell_distance(px, py, c, band, only, head, link, link_seg, seg_xy, seg_band
 
 @njit(cache=True, nogil=True)
 def _nearest_in_disc(
-    px, py, row, col, g2, best, cap_m, label, bits, band, only, head, link, link_seg, seg_xy, seg_band, cell_m
+    px,
+    py,
+    row,
+    col,
+    g2,
+    best,
+    cap_m,
+    road_count,
+    wx0,
+    wy0,
+    gnx,
+    band,
+    only,
+    head,
+    link,
+    link_seg,
+    seg_xy,
+    seg_band,
+    cell_m,
 ):
-    """Distance (m) from grid node ``(row, col)`` at ``(px, py)`` to the band's segments, exact up to ``cap_m``,
+    """Distance (m) from window node ``(row, col)`` at ``(px, py)`` to the band's segments, exact up to ``cap_m``,
     given an upper bound ``best`` and the squared grid distance ``g2`` (cells²) to the band's nearest road node.
 
     Road in a cell whose node is ``rho`` cells away lies at least ``rho - 0.71`` cells away, so only road cells with
     ``rho < min(best, cap_m) / cell + 0.71`` can hold anything nearer than both; the disc shrinks as nearer road is
-    found. A result above ``cap_m`` is only known to be above it.
+    found. A result above ``cap_m`` is only known to be above it. ``road_count[i, j]`` counts the band's road nodes
+    in row ``i`` of the window before column ``j`` (so runs without road are skipped at once); the window's node
+    ``(0, 0)`` is grid node ``(wy0, wx0)`` of a grid ``gnx`` nodes wide.
     """
-    gny, gnx = label.shape
-    bit = np.uint64(1) << np.uint64(min(band, MAX_BAND_BIT))
+    wny = road_count.shape[0]
+    wnx = road_count.shape[1] - 1
     lim = min(best, cap_m) / cell_m + 0.7072
     r = int(lim)
-    for dy in range(max(-r, -row), min(r, gny - 1 - row) + 1):
+    for dy in range(max(-r, -row), min(r, wny - 1 - row) + 1):
         w2 = lim * lim - dy * dy
         if w2 <= 0.0:
             continue
@@ -258,20 +278,22 @@ def _nearest_in_disc(
         inner = g2 - dy * dy
         skip = int(np.sqrt(inner - 1)) if inner > 0 else -1
         y = row + dy
-        # two runs of the row: left and right of the skipped inner part
+        counts = road_count[y]
         for side in range(2):
             if side == 0:
-                x_lo, x_hi = col - half, col - skip - 1
+                x_lo, x_hi = max(col - half, 0), min(col - skip - 1, wnx - 1)
             else:
-                x_lo, x_hi = col + skip + 1, col + half
-            for x in range(max(x_lo, 0), min(x_hi, gnx - 1) + 1):
-                has = (bits[y, x] & bit) != 0 if only else label[y, x] <= band
-                if not has:
+                x_lo, x_hi = max(col + skip + 1, 0), min(col + half, wnx - 1)
+            if x_hi < x_lo or counts[x_hi + 1] == counts[x_lo]:
+                continue
+            for x in range(x_lo, x_hi + 1):
+                if counts[x + 1] == counts[x]:
                     continue
                 dx = x - col
                 if dy * dy + dx * dx >= lim * lim:
                     continue
-                best = _cell_distance(px, py, y * gnx + x, band, only, head, link, link_seg, seg_xy, seg_band, best)
+                c = (wy0 + y) * gnx + wx0 + x
+                best = _cell_distance(px, py, c, band, only, head, link, link_seg, seg_xy, seg_band, best)
                 lim = min(best, cap_m) / cell_m + 0.7072
     return best
 
@@ -353,6 +375,7 @@ def band_distance(
     only = band < MAX_BAND_BIT
     bit = np.uint64(1) << np.uint64(min(band, MAX_BAND_BIT))
     is_road = np.empty(wnx, dtype=np.bool_)
+    road_count = np.empty((wny, wnx + 1), dtype=np.int32)
     vert = np.empty((wny, wnx), dtype=np.int32)
     for i in range(wny):
         if only:
@@ -363,6 +386,10 @@ def band_distance(
             lab = label[wy0 + i, wx0 : wx0 + wnx]
             for j in range(wnx):
                 is_road[j] = lab[j] <= band
+        counts = road_count[i]
+        counts[0] = 0
+        for j in range(wnx):
+            counts[j + 1] = counts[j] + (1 if is_road[j] else 0)
         cur = vert[i]
         if i == 0:
             for j in range(wnx):
@@ -456,13 +483,15 @@ def band_distance(
                 best = _nearest_in_disc(
                     px,
                     py,
-                    wy0 + i,
-                    wx0 + q,
+                    i,
+                    q,
                     d2,
                     best,
                     reach_m + cell_m,
-                    label,
-                    bits,
+                    road_count,
+                    wx0,
+                    wy0,
+                    gnx,
                     band,
                     only,
                     head,
