@@ -346,9 +346,11 @@ def band_distance(
     Returns
     -------
     float32 array (wny, wnx)
-        Exact distance to the band's segments (3 x 3 cells around the nearest road node) where it may lie within
-        a cell of ``reach_m``; 0 where it is surely more than a cell inside, :data:`FAR_M` where surely more than a
-        cell beyond (so no grid edge crossing the level touches a stand-in).
+        Where the distance may lie within a cell of ``reach_m``: the distance to the band's segments in the 3 x 3
+        cells around the nearest road node (nearly always the distance itself, never below it), made exact
+        wherever that bound alone could leave the node on the wrong side of ``reach_m``; so every node is on its
+        right side. 0 where it is surely more than a cell inside, :data:`FAR_M` where surely more than a cell
+        beyond (so no grid edge crossing the level touches a stand-in).
 
     Notes
     -----
@@ -468,8 +470,9 @@ def band_distance(
             px = (gx0 + wx0 + q) * cell_m
             best = _cell_distance(px, py, c0, band, only, head, link, link_seg, seg_xy, seg_band, np.inf)
             # the own cell's road bounds the distance from above: often it is already clearly inside. Else the 3 x 3
-            # cells around the nearest road node give a tight bound (nearly always the distance itself), and the
-            # road cells of the disc that can hold anything nearer are scanned, which makes it exact
+            # cells around the nearest road node give a tight bound (nearly always the distance itself), and where
+            # that could leave the node on the wrong side of the level, the road cells of the disc that can hold
+            # anything nearer are scanned, which makes it exact
             if best >= deep_m:
                 for dy in range(-1, 2):
                     for dx in range(-1, 2):
@@ -480,6 +483,12 @@ def band_distance(
                 if best < deep_m:
                     o[q] = 0.0
                     continue
+                # that bound is an upper one: it can put a node on the wrong side of the level only if it lies above
+                # the level while the lower bound (Notes) does not; only then is the road within ``reach_m`` sought
+                # (exact distance if there is any; else the node is outside, and the bound stays)
+                if best <= reach_m or (np.sqrt(d2) - 0.7072) * cell_m > reach_m:
+                    o[q] = best
+                    continue
                 best = _nearest_in_disc(
                     px,
                     py,
@@ -487,7 +496,7 @@ def band_distance(
                     q,
                     d2,
                     best,
-                    reach_m + cell_m,
+                    reach_m,
                     road_count,
                     wx0,
                     wy0,

