@@ -726,16 +726,9 @@ def trace_level(z, level, x0, y0, cell_m, case_segments):
         mask = inside[i + 1]
         for j in range(nx0):
             mask[j + 1] = 1 if row[j] <= level else 0
-    # one segment leaves each edge whose ends differ: counted first so that every array is sized once
-    n_cross = 0
-    for i in range(ny):
-        for j in range(nx - 1):
-            n_cross += abs(np.int64(inside[i, j]) - np.int64(inside[i, j + 1]))
-    for i in range(ny - 1):
-        for j in range(nx):
-            n_cross += abs(np.int64(inside[i, j]) - np.int64(inside[i + 1, j]))
+    # at most one segment leaves each edge: sized for all (the pages never written are never touched)
     nxt = np.empty(2 * n_h, dtype=np.int32)
-    starts = np.empty(n_cross, dtype=np.int32)
+    starts = np.empty(2 * n_h, dtype=np.int32)
     n_start = _link_crossings(z, inside, level, case_segments, nxt, starts)
     return _walk_rings(z, nxt, starts, n_start, level, x0, y0, cell_m)
 
