@@ -51,6 +51,7 @@ from coverkit.polygon_kernels import (
     piece_stretches,
     road_grid,
     segment_cells,
+    stamp_distance,
     trace_level,
 )
 from coverkit.progress import counted, note
@@ -64,6 +65,9 @@ DEFAULT_REACH_M = 150.0
 #: polygons of a few tenths of a km² (0.99 and up for bands of a few minutes; tests and benchmark). At half the reach
 #: it is about twice as fast on sparse rural roads but drops to about 0.96 on such small polygons.
 DEFAULT_CELL_PER_REACH = 1.0 / 3.0
+#: Work of the distance transform per window cell, in segment-to-node distances of the stamping construction
+#: (measured: 3.5 on the demo county's rural roads, 5.4 on a dense synthetic town grid; see ``reach_fields``).
+STAMPS_PER_CELL = 4.5
 #: Default: holes smaller than this (km^2) are filled (1 ha).
 DEFAULT_MIN_HOLE_KM2 = 0.01
 #: Default travel-time surface cell size (m).
@@ -148,7 +152,7 @@ def drive_time_polygons(
     lap("snap bases")
     limit_s = float(bands_s[-1])
     min_hole_m2 = min_hole_km2 * 1e6
-    _warm_caches(net, direction, None if exact else cell_m)
+    _warm_caches(net, direction)
     # laps are only meaningful one step after another
     n_workers = 1 if timings is not None else max(1, min(workers or os.cpu_count() or 1, len(snapped)))
 
@@ -269,7 +273,7 @@ def _compile_notice():
         timer.cancel()
 
 
-def _warm_caches(net: RoadNetwork, direction: str, cell_m: float | None) -> None:
+def _warm_caches(net: RoadNetwork, direction: str) -> None:
     """Build the network-level caches the per-base work reads (so that worker threads only read them)."""
     road_pieces(net)
     _edge_arrays(net)
@@ -278,8 +282,6 @@ def _warm_caches(net: RoadNetwork, direction: str, cell_m: float | None) -> None
     _piece_segments(net)
     _u(net)
     _v(net)
-    if cell_m is not None:
-        _segment_cells(net, cell_m)
 
 
 def summary_table(polygons: gpd.GeoDataFrame) -> pd.DataFrame:
@@ -698,25 +700,92 @@ _FAR = FAR_M
 def reach_fields(reached: Reached, n_b: int, reach_m: float, cell_m: float) -> list[Field | None]:
     """Distance from grid nodes to the reached road of each band, nested (band k never farther than band k-1).
 
-    The reached segments (:func:`reached_segments`) are put on one grid anchored at the CRS origin
-    (:func:`coverkit.polygon_kernels.road_grid`); per band, a lower-envelope distance transform over the band's road
-    nodes gives each grid node its nearest one, and the nodes where the traced ``reach_m`` line can fall get their
-    exact distance to the band's segments around it (:func:`coverkit.polygon_kernels.band_distance`). Each band's field
-    covers the extent of its road nodes plus ``reach_m + 2 cell_m``, so the work follows the reached extent, not the
-    network. ``None`` for a band that reaches no road.
+    Near the traced ``reach_m`` level every node is on its right side of it, with its distance to the road (exact,
+    or an upper bound at a few nodes where two roads lie about equally far). Two constructions, chosen by their
+    estimated work: stamping each segment on the nodes around it (:func:`_stamped_fields`: exact, its work grows
+    with the road in reach of each node, so it suits sparse rural roads) and a distance transform over the road's
+    grid cells (:func:`_transform_fields`: its work grows with the cells, so it suits dense town grids). Each band's
+    field covers the extent of its road plus ``reach_m + 2 cell_m``, so the work follows the reached extent, not the
+    network; all fields share one grid anchored at the CRS origin. ``None`` for a band that reaches no road.
+    """
+    c = float(cell_m)
+    xy, band, _, src, whole = _clipped_segments(reached)
+    if len(xy) == 0:
+        return [None] * n_b
+    # stamping: one distance per node of each segment's box grown by the stamp radius; the transform: about
+    # STAMPS_PER_CELL such distances' worth per window cell (measured on the demo county and a dense synthetic grid)
+    grow = 2.0 * (reach_m + c) / c
+    stamps = float(np.sum((np.abs(xy[:, 2] - xy[:, 0]) / c + grow + 1) * (np.abs(xy[:, 3] - xy[:, 1]) / c + grow + 1)))
+    lo = np.minimum(xy[:, :2], xy[:, 2:]).min(axis=0)
+    hi = np.maximum(xy[:, :2], xy[:, 2:]).max(axis=0)
+    window_cells = float(np.prod((hi - lo) / c + 2 * ((reach_m + 2 * c) / c + 1)))
+    if stamps < STAMPS_PER_CELL * window_cells * _bands_present(band, n_b):
+        return _stamped_fields(xy, band, n_b, reach_m, c)
+    return _transform_fields(reached.net, xy, band, src, whole, n_b, reach_m, c)
+
+
+def _bands_present(band: np.ndarray, n_b: int) -> float:
+    """A rough count of the band windows a transform goes through (the later bands' windows are the larger)."""
+    first = int(band.min())
+    return max(1.0, 0.5 * (n_b - first))
+
+
+def _stamped_fields(xy: np.ndarray, band: np.ndarray, n_b: int, reach_m: float, cell_m: float) -> list[Field | None]:
+    """:func:`reach_fields` by stamping (exact within ``reach_m + cell_m``; for sparse roads).
+
+    Per band, the field of the previous band is carried into the band's window (the extent of its road plus
+    ``reach_m + 2 cell_m``; :data:`_FAR` beyond) and the segments first reached in the band are stamped on it
+    (:func:`coverkit.polygon_kernels.stamp_distance`): every node within ``reach_m + cell_m`` of the road gets its
+    exact distance to it, which is all the traced ``reach_m`` line reads (a grid edge crosses it only where both ends
+    lie within a cell of it). Each segment is stamped once, in the band that first reaches it.
     """
     c = float(cell_m)
     out: list[Field | None] = [None] * n_b
-    xy, band, _, src, whole = _clipped_segments(reached)
-    if len(xy) == 0:
-        return out
+    # the margin keeps every window edge beyond the level
+    margin = int(np.ceil((reach_m + 2.0 * c) / c)) + 1
+    lo = np.floor(np.minimum(xy[:, :2], xy[:, 2:]) / c).astype(np.int64)
+    hi = np.ceil(np.maximum(xy[:, :2], xy[:, 2:]) / c).astype(np.int64)
+    prev: Field | None = None
+    ext_lo = ext_hi = None
+    for k in range(n_b):
+        sel = band == k
+        if sel.any():
+            k_lo, k_hi = lo[sel].min(axis=0), hi[sel].max(axis=0)
+            ext_lo = k_lo if ext_lo is None else np.minimum(ext_lo, k_lo)
+            ext_hi = k_hi if ext_hi is None else np.maximum(ext_hi, k_hi)
+        if ext_lo is None:
+            continue
+        ix0, iy0 = int(ext_lo[0]) - margin, int(ext_lo[1]) - margin
+        nx, ny = int(ext_hi[0] - ext_lo[0]) + 2 * margin + 1, int(ext_hi[1] - ext_lo[1]) + 2 * margin + 1
+        dist = np.full((ny, nx), _FAR, dtype=np.float32)
+        if prev is not None:
+            dist[prev._slices(ix0, iy0)] = prev.dist_m
+        if sel.any():
+            stamp_distance(dist, ix0 * c, iy0 * c, c, xy, band, k, float(reach_m + c))
+        prev = out[k] = Field(ix0, iy0, dist)
+    return out
+
+
+def _transform_fields(
+    net: RoadNetwork, xy, band, src, whole, n_b: int, reach_m: float, cell_m: float
+) -> list[Field | None]:
+    """:func:`reach_fields` by a distance transform (for dense roads).
+
+    The reached segments (:func:`reached_segments`) are put on one grid anchored at the CRS origin
+    (:func:`coverkit.polygon_kernels.road_grid`); per band, a lower-envelope distance transform over the band's road
+    nodes gives each grid node its nearest one, and the nodes where the traced ``reach_m`` line can fall get their
+    distance to the band's segments around it, on the right side of the level everywhere
+    (:func:`coverkit.polygon_kernels.band_distance`).
+    """
+    c = float(cell_m)
+    out: list[Field | None] = [None] * n_b
     # the margin keeps every window edge beyond the level (and one cell of grid around each road node)
     margin = int(np.ceil((reach_m + 2.0 * c) / c)) + 1
     gx0 = int(np.floor(min(xy[:, 0].min(), xy[:, 2].min()) / c)) - margin
     gy0 = int(np.floor(min(xy[:, 1].min(), xy[:, 3].min()) / c)) - margin
     gnx = int(np.ceil(max(xy[:, 0].max(), xy[:, 2].max()) / c)) + margin - gx0 + 1
     gny = int(np.ceil(max(xy[:, 1].max(), xy[:, 3].max()) / c)) + margin - gy0 + 1
-    cell_ptr, cell_x, cell_y = _segment_cells(reached.net, c)
+    cell_ptr, cell_x, cell_y = _segment_cells(net, c)
     label, bits, head, link, link_seg, extent = road_grid(
         xy, band, src, whole, cell_ptr, cell_x, cell_y, n_b, c, gx0, gy0, gnx, gny
     )

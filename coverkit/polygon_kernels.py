@@ -884,3 +884,40 @@ def anchored_rows(pieces, left, right, detect_full, piece_len):
                         b[m] = 1.0 - rp
                         m += 1
     return piece, band, a, b, covered_m
+
+
+@njit(cache=True, nogil=True)
+def stamp_distance(out, x0_m, y0_m, cell_m, seg_xy, seg_band, band, radius_m):
+    """Lower ``out`` to the distance (m) from its nodes to the segments of band ``band``, exactly, wherever that
+    distance is at most ``radius_m``.
+
+    Each segment is stamped onto the nodes of its bounding box grown by ``radius_m``: a node within ``radius_m``
+    of a segment lies in that box, so every such node gets the distance to every such segment, hence its least.
+    Node ``(i, j)`` of ``out`` lies at ``(x0_m + j * cell_m, y0_m + i * cell_m)``; nodes outside the array are not
+    written. The inner loop runs along a row with a clamped projection, which vectorises.
+    """
+    ny, nx = out.shape
+    inv_cell = 1.0 / cell_m
+    for s in range(seg_xy.shape[0]):
+        if seg_band[s] != band:
+            continue
+        ax = seg_xy[s, 0]
+        ay = seg_xy[s, 1]
+        dx = seg_xy[s, 2] - ax
+        dy = seg_xy[s, 3] - ay
+        den = dx * dx + dy * dy
+        inv = 1.0 / den if den > 0.0 else 0.0
+        j_lo = max(int(np.ceil((min(ax, ax + dx) - radius_m - x0_m) * inv_cell)), 0)
+        j_hi = min(int(np.floor((max(ax, ax + dx) + radius_m - x0_m) * inv_cell)), nx - 1)
+        i_lo = max(int(np.ceil((min(ay, ay + dy) - radius_m - y0_m) * inv_cell)), 0)
+        i_hi = min(int(np.floor((max(ay, ay + dy) + radius_m - y0_m) * inv_cell)), ny - 1)
+        for i in range(i_lo, i_hi + 1):
+            qy = y0_m + i * cell_m - ay
+            row = out[i]
+            for j in range(j_lo, j_hi + 1):
+                qx = x0_m + j * cell_m - ax
+                t = min(max((qx * dx + qy * dy) * inv, 0.0), 1.0)
+                ex = qx - t * dx
+                ey = qy - t * dy
+                d = np.float32(np.sqrt(ex * ex + ey * ey))
+                row[j] = min(row[j], d)

@@ -150,3 +150,27 @@ def test_trace_level_matches_contourpy_and_circle_area():
     d = np.hypot(xx - 75.3, yy - 60.7).astype(np.float32) * cell
     pts, offs, area = trace_level(d, 300.0, x0, y0, cell, _CASE_SEGMENTS)
     assert len(area) == 1 and abs(area[0] / (np.pi * 300.0**2) - 1.0) < 0.005
+
+
+def test_stamp_distance_against_geos_distance():
+    """Stamping: every node within the stamp radius of a band's segments holds its GEOS distance to them (float32);
+    nodes beyond keep their value unless a segment's box reaches them (then their true distance)."""
+    from coverkit.polygon_kernels import stamp_distance
+
+    cell, radius = 50.0, 200.0
+    seg = _random_segments(4, 300)
+    band = np.sort(np.random.default_rng(6).integers(0, 2, len(seg)))
+    x0, y0 = np.floor(seg[:, [0, 2]].min() / cell) * cell - 400, np.floor(seg[:, [1, 3]].min() / cell) * cell - 400
+    nx = int((seg[:, [0, 2]].max() - x0 + 400) / cell) + 1
+    ny = int((seg[:, [1, 3]].max() - y0 + 400) / cell) + 1
+    lines = shapely.linestrings(seg.reshape(-1, 2, 2))
+    jj, ii = np.meshgrid(np.arange(nx), np.arange(ny))
+    nodes = shapely.points((x0 + jj * cell).ravel(), (y0 + ii * cell).ravel())
+    for k in (0, 1):
+        out = np.full((ny, nx), 1e9, dtype=np.float32)
+        stamp_distance(out, x0, y0, cell, seg, band, k, radius)
+        true = shapely.distance(nodes, shapely.union_all(lines[band == k])).reshape(out.shape)
+        near = true <= radius
+        assert near.sum() > 1000
+        assert np.allclose(out[near], true[near], rtol=1e-6, atol=1e-3)
+        assert (out[~near] > radius - 1e-3).all()
