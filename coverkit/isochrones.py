@@ -7,13 +7,15 @@ hugs the roads and has holes where no reached road comes within ``reach_m``; it 
 Two constructions of the same set:
 
 * **fast** (default): per base, on a square grid (spacing ``cell_m``, default ``reach_m / 3``, i.e. 50 m for the
-  default 150 m reach) over the reached extent only, compiled kernels (:mod:`coverkit.polygon_kernels`) find each
-  node's nearest reached road node and, near the ``reach_m`` level, its distance to the reached road segments in the
-  cells around that node (see :func:`reach_fields`). One field per band, each never above the previous one, so the
-  traced regions are nested by construction. The ``reach_m`` level line is traced by marching squares with linear
-  interpolation (compiled too) into valid polygons directly; holes smaller than ``min_hole_km2`` are filled (which
-  keeps the nesting: a hole of band k lies inside a hole of band k-1). The "any base" field is the least of the bases'
-  fields node by node (all fields share one grid anchored at the CRS origin), so it is traced once, with no union.
+  default 150 m reach) over the reached extent only, compiled kernels (:mod:`coverkit.polygon_kernels`) give each
+  node near the ``reach_m`` level its distance to the reached road, on the right side of the level everywhere: by
+  stamping each segment on the nodes around it (exact; sparse rural roads) or by a distance transform over the
+  road's grid cells (dense town grids), whichever the estimated work favours (see :func:`reach_fields`). One field
+  per band, each never above the previous one, so the traced regions are nested by construction. The ``reach_m``
+  level line is traced by marching squares with linear interpolation (compiled too) into valid polygons directly;
+  holes smaller than ``min_hole_km2`` are filled (which keeps the nesting: a hole of band k lies inside a hole of
+  band k-1). The "any base" field is the least of the bases' fields node by node (all fields share one grid anchored
+  at the CRS origin), so it is traced once, with no union. Bases are worked on by one thread per core.
 * **exact** (``exact=True``): shapely 2 buffer of the reached pieces, unioned band by band; the reference. Holes
   smaller than ``min_hole_km2`` are filled and the polygon of band k is unioned with band k-1, so bands nest exactly.
 
