@@ -193,13 +193,6 @@ def road_grid(seg_xy, seg_band, seg_src, seg_whole, cell_ptr, cell_x, cell_y, n_
 
 
 @njit(cache=True, nogil=True)
-def _grown(a, n):
-    out = np.empty(n, dtype=a.dtype)
-    out[: a.shape[0]] = a
-    return out
-
-
-@njit(cache=True, nogil=True)
 def _segment_distance(px, py, x0, y0, x1, y1):
     """Distance (m) from a point to a segment."""
     dx = x1 - x0
