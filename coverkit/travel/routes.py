@@ -19,10 +19,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
-from scipy.sparse.csgraph import dijkstra
 
 from coverkit.network.model import RoadNetwork
-from coverkit.travel.search import CHUNK_CELLS, augmented_graph, exits, graph, run_s, seeds
+from coverkit.travel.search import exits, node_time_blocks, run_s, seeds
 from coverkit.travel.snap import Snapped
 
 
@@ -113,7 +112,6 @@ def shortest_routes(
         raise ValueError("source_index and target_index must have the same length")
     n, n_pairs, n_edges = net.n_nodes, len(source_index), net.n_edges
     run = run_s(net)
-    g = graph(net, "out")
     edge_key, edge_of_key = _edge_lookup(net)
 
     s_pt, s_node, s_t = seeds(net, sources, "out")
@@ -140,16 +138,12 @@ def shortest_routes(
     direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run)
 
     usable = sources.on_network[source_index] & targets.on_network[target_index]
-    src_all = np.unique(source_index[usable])
-    if chunk_size is None:
-        chunk_size = max(1, CHUNK_CELLS // max(n, 1))
-    for start in range(0, len(src_all), chunk_size):
-        src = src_all[start : start + chunk_size]
+    chunks = node_time_blocks(
+        net, sources, np.inf, "out", chunk_size, only=np.unique(source_index[usable]), predecessors=True
+    )
+    for src, dist, pred in chunks:
         local = np.full(len(sources), -1, dtype=np.int64)
         local[src] = np.arange(len(src))
-        sel = local[s_pt] >= 0
-        aug = augmented_graph(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src))
-        dist, pred = dijkstra(aug, directed=True, indices=n + np.arange(len(src)), return_predecessors=True)
 
         pairs = np.flatnonzero(usable & (local[source_index] >= 0))
         ls = local[source_index[pairs]]

@@ -124,9 +124,20 @@ def node_time_blocks(
     limit_s: float,
     direction: str = "out",
     chunk_size: int | None = None,
+    only: np.ndarray | None = None,
+    predecessors: bool = False,
 ):
     """Dense times between on-network sources and every node, chunk by chunk (for callers that use each source's
     row once and let it go: memory stays at one chunk).
+
+    Parameters
+    ----------
+    net, sources, limit_s, direction, chunk_size
+        As for :func:`node_times`.
+    only
+        Search from these source indices only (default: every on-network source).
+    predecessors
+        Also yield the shortest-path predecessors.
 
     Yields
     ------
@@ -135,8 +146,11 @@ def node_time_blocks(
     block : numpy.ndarray
         Shape (len(src_idx), n_nodes): time (s) from each source (``"out"``) or to it (``"in"``); ``inf`` beyond
         ``limit_s``.
+    pred : numpy.ndarray
+        With ``predecessors`` only: shape (len(src_idx), n_nodes + len(src_idx)), the previous node on each
+        shortest path; indices from ``n_nodes`` on are the chunk's virtual source nodes.
     """
-    yield from _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes)
+    yield from _chunked_search(net, sources, limit_s, direction, chunk_size, net.n_nodes, only, predecessors)
 
 
 def point_times(
@@ -302,13 +316,15 @@ def augmented_graph(g: sp.csr_matrix, pt: np.ndarray, node: np.ndarray, t: np.nd
     return sp.csr_matrix((data, indices, indptr), shape=(size, size))
 
 
-def _chunked_search(net, sources, limit_s, direction, chunk_size, width):
-    """Yield (source indices, dense times block (chunk, n_nodes)) per chunk of on-network sources."""
+def _chunked_search(net, sources, limit_s, direction, chunk_size, width, only=None, predecessors=False):
+    """Yield ``(source indices, dense times block (chunk, n_nodes))`` per chunk of on-network sources (``only``:
+    these source indices instead); with ``predecessors``, also the predecessor block (chunk, n_nodes + chunk), in
+    which indices from ``n_nodes`` on are the chunk's virtual source nodes."""
     _check_direction(direction)
     n = net.n_nodes
     g = graph(net, direction)
     s_pt, s_node, s_t = seeds(net, sources, direction)
-    src_all = np.flatnonzero(sources.on_network)
+    src_all = np.flatnonzero(sources.on_network) if only is None else np.asarray(only, dtype=np.int64)
     if chunk_size is None:
         chunk_size = max(1, CHUNK_CELLS // max(width, 1))
     for start in range(0, len(src_all), chunk_size):
@@ -317,8 +333,12 @@ def _chunked_search(net, sources, limit_s, direction, chunk_size, width):
         local[src_idx] = np.arange(len(src_idx))
         sel = local[s_pt] >= 0
         aug = augmented_graph(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src_idx))
-        dist = dijkstra(aug, directed=True, indices=n + np.arange(len(src_idx)), limit=limit_s)
-        yield src_idx, dist[:, :n]
+        indices = n + np.arange(len(src_idx))
+        if predecessors:
+            dist, pred = dijkstra(aug, directed=True, indices=indices, limit=limit_s, return_predecessors=True)
+            yield src_idx, dist[:, :n], pred
+        else:
+            yield src_idx, dijkstra(aug, directed=True, indices=indices, limit=limit_s)[:, :n]
 
 
 def same_edge_min(
