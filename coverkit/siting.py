@@ -320,8 +320,9 @@ def _rel_gap(objective: float, bound: float) -> float:
     return abs(bound - objective) / max(abs(objective), 1e-12)
 
 
-def _use_milp(method: str, nnz: int) -> bool:
-    return method == "milp" or (method == "auto" and nnz <= MILP_NNZ_LIMIT)
+def _use_milp(method: str, size: int, limit: int = MILP_NNZ_LIMIT) -> bool:
+    """Solve exactly when asked to, or under ``auto`` when the model is no larger than ``limit``."""
+    return method == "milp" or (method == "auto" and size <= limit)
 
 
 # ---------------------------------------------------------------------------------------------------------------
@@ -1262,7 +1263,7 @@ def p_median(
     )
     wsum = float(h.sum())
     status = None
-    if method == "milp" or (method == "auto" and npair <= MEDIAN_MILP_PAIR_LIMIT):
+    if _use_milp(method, npair, MEDIAN_MILP_PAIR_LIMIT):
         sol = _solve(model, time_limit_s, rel_gap)
         if sol.status == "infeasible":
             raise ModelError(
