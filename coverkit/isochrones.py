@@ -70,6 +70,8 @@ DEFAULT_CELL_PER_REACH = 1.0 / 3.0
 #: Work of the distance transform per window cell, in segment-to-node distances of the stamping construction
 #: (measured: 3.5 on the demo county's rural roads, 5.4 on a dense synthetic town grid; see ``reach_fields``).
 STAMPS_PER_CELL = 4.5
+#: Most grid cells of one base's distance field (float32: 4 bytes each, plus the work arrays): about 1 GB in all.
+MAX_FIELD_CELLS = 100_000_000
 #: Default: holes smaller than this (km^2) are filled (1 ha).
 DEFAULT_MIN_HOLE_KM2 = 0.01
 #: Default travel-time surface cell size (m).
@@ -148,6 +150,11 @@ def drive_time_polygons(
         raise CoverkitError(f"grid cell size {cell_m} m must be a positive number of metres (e.g. 50).")
     _check_direction(direction)
     cell_m = float(cell_m) if cell_m else reach_m * DEFAULT_CELL_PER_REACH
+    if cell_m > reach_m:
+        raise CoverkitError(
+            f"grid spacing {cell_m:g} m is coarser than the reach {reach_m:g} m, so polygons would lose their shape; "
+            f"give at most the reach (default a third of it, {reach_m * DEFAULT_CELL_PER_REACH:g} m)."
+        )
     n_b = len(bands_s)
     lap = _Laps(timings)
     snapped = _snap_bases(net, bases, max_snap_m)
@@ -721,6 +728,12 @@ def reach_fields(reached: Reached, n_b: int, reach_m: float, cell_m: float) -> l
     lo = np.minimum(xy[:, :2], xy[:, 2:]).min(axis=0)
     hi = np.maximum(xy[:, :2], xy[:, 2:]).max(axis=0)
     window_cells = float(np.prod((hi - lo) / c + 2 * ((reach_m + 2 * c) / c + 1)))
+    if window_cells > MAX_FIELD_CELLS:
+        raise CoverkitError(
+            f"a {c:g} m grid over the {(hi[0] - lo[0]) / 1000:.0f} x {(hi[1] - lo[1]) / 1000:.0f} km a base reaches "
+            f"needs {window_cells:,.0f} cells, over the {MAX_FIELD_CELLS:,} allowed; use a coarser grid (e.g. "
+            f"{c * np.sqrt(window_cells / MAX_FIELD_CELLS) * 1.1:.0f} m) or shorter bands."
+        )
     if stamps < STAMPS_PER_CELL * window_cells * _bands_present(band, n_b):
         return _stamped_fields(xy, band, n_b, reach_m, c)
     return _transform_fields(reached.net, xy, band, src, whole, n_b, reach_m, c)

@@ -270,3 +270,16 @@ def test_filled_hole_swallows_island():
     filled = _field_polygons(field, cell, 150.0, 1e6)
     assert filled.is_valid and len(filled.geoms) == 1 and len(filled.geoms[0].interiors) == 0
     assert abs(filled.area / (1000.0**2 + 4 * 1000.0 * 150.0 + np.pi * 150.0**2) - 1.0) < 0.005
+
+
+def test_grid_spacing_out_of_range_is_one_line(grid_case):
+    """Bad input (common practice): a grid coarser than the reach, or one too fine for the reached extent, stops
+    with one line naming the spacing and the fix, before any output."""
+    from coverkit.errors import CoverkitError
+
+    net, bases = grid_case
+    with pytest.raises(CoverkitError, match=r"coarser than the reach 150 m.*at most the reach") as coarse:
+        drive_time_polygons(net, bases, [2], cell_m=200.0)
+    with pytest.raises(CoverkitError, match=r"0\.5 m grid .* cells, over the .* allowed; use a coarser grid") as fine:
+        drive_time_polygons(net, bases, [8], cell_m=0.5)
+    assert "\n" not in str(coarse.value) and "\n" not in str(fine.value)
