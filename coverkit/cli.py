@@ -15,6 +15,7 @@ from pathlib import Path
 from coverkit import CAUTION, __version__
 from coverkit.errors import CoverkitError
 from coverkit.progress import set_quiet
+from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {}
 
@@ -43,6 +44,16 @@ def _positive_float(text: str) -> float:
     return value
 
 
+def _share(text: str) -> float:
+    try:
+        value = float(text.rstrip("%")) / (100.0 if text.endswith("%") else 1.0)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a share, e.g. 0.01 or 1%") from None
+    if not 0.0 <= value <= 1.0:
+        raise argparse.ArgumentTypeError(f"'{text}' must be a share 0..1, e.g. 0.01 or 1%")
+    return value
+
+
 def _minutes_list(text: str) -> list[float]:
     try:
         values = sorted({float(v) for v in text.split(",") if v.strip()})
@@ -63,7 +74,17 @@ def _coverage_inputs(
     p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
     p.add_argument("--bases", type=Path, required=True, help=bases_help)
     p.add_argument("--demand", type=Path, required=True, help=demand_help)
-    p.add_argument("--where", help='filter on point demand fields, e.g. "priority in (1, 2)"')
+    p.add_argument(
+        "--where",
+        help="filter on point demand fields in the usual GIS query syntax, "
+        "e.g. \"priority = 1 AND type <> 'transfer'\"",
+    )
+    p.add_argument(
+        "--max-rejected",
+        type=_share,
+        default=DEFAULT_MAX_REJECTED_SHARE,
+        help="point demand: stop when more than this share of rows has no usable position, 0..1 (0.01 = 1 %%)",
+    )
     p.add_argument("--minutes", type=_positive_float, required=True, help="travel-time standard in minutes")
     if standard:
         p.add_argument("--population-field", help="population field of a polygon demand layer")
@@ -215,6 +236,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--service-min", type=_positive_float, required=True, help="mean time a unit is busy per call, min")
     p.add_argument("--calls-per-h", type=_positive_float, help="total call rate (default: from incident timestamps)")
     p.add_argument("--time-field", default="received_at", help="incident timestamp field (received_at)")
+    p.add_argument("--start", help="keep incidents at or after this ISO time")
+    p.add_argument("--end", help="keep incidents before this ISO time")
     p.add_argument(
         "--queue",
         choices=["infinite", "zero"],
@@ -376,6 +399,7 @@ def _cmd_cover(args: argparse.Namespace) -> int:
         time_field=args.time_field,
         start=args.start,
         end=args.end,
+        max_rejected_share=args.max_rejected,
     )
     res = evaluate_coverage(
         net, bases, demand, std, max_snap_m=args.demand_snap_m, base_snap_m=args.snap_m, direction=args.direction
@@ -398,6 +422,7 @@ def _cmd_cover(args: argparse.Namespace) -> int:
         layers["by_zone"] = zone_table
     if "priority" in out_demand.columns:
         layers["by_priority"] = compliance_by(res, "priority")
+    rejected = _rejected(demand, layers)
     summary = res.summary()
     import pandas as pd
 
@@ -410,6 +435,8 @@ def _cmd_cover(args: argparse.Namespace) -> int:
         f"demand       {summary['demand_total']:,.0f} {unit} in {summary['demand_points']:,} points "
         f"({summary['off_network_points']:,} off the network, {summary['off_network']:,.0f} {unit})"
     )
+    if rejected:
+        print(f"rejected     {rejected}")
     print(f"covered      {summary['covered']:,.0f} {unit} = {summary['covered_share'] * 100:.1f} %")
     print(f"depth        once {summary['covered_once']:,.0f}, twice or more {summary['covered_twice_or_more']:,.0f}")
     frac_text = "not reached" if frac == float("inf") else f"{frac:,.0f} s ({frac / 60:.1f} min)"
@@ -453,7 +480,13 @@ def _cmd_site(args: argparse.Namespace) -> int:
         candidates = read_points(args.candidates, net.crs, what="candidates")
     else:
         candidates = generate_candidates(net, args.generate_candidates, args.spacing_m)
-    demand = load_demand(args.demand, net, where=args.where, population_field=args.population_field)
+    demand = load_demand(
+        args.demand,
+        net,
+        where=args.where,
+        population_field=args.population_field,
+        max_rejected_share=args.max_rejected,
+    )
     std = Standard(f"{args.minutes:g} min", args.minutes * 60.0, args.turnout_s, args.fractile)
     problem = build_problem(net, bases, candidates, demand, std, relocate=args.relocate, base_snap_m=args.snap_m)
     out_csv = args.out.with_suffix("")
@@ -486,16 +519,17 @@ def _cmd_site(args: argparse.Namespace) -> int:
         f"Coverage curve - {std.describe(with_source=False)}",
         note="each point is an MCLP optimum (Church & ReVelle 1974)",
     )
-    write_gpkg_layers(
-        args.out,
-        {
-            "chosen": plan.chosen,
-            "ranking": plan.ranking,
-            "curve": plan.curve,
-            "sites": problem.sites,
-            "summary": pd.DataFrame([plan.summary]),
-        },
-    )
+    layers = {
+        "chosen": plan.chosen,
+        "ranking": plan.ranking,
+        "curve": plan.curve,
+        "sites": problem.sites,
+        "summary": pd.DataFrame([plan.summary]),
+    }
+    rejected = _rejected(demand, layers)
+    write_gpkg_layers(args.out, layers)
+    if rejected:
+        print(f"rejected: {rejected}")
     write_text_atomic(f"{out_csv}-chosen.csv", pd.DataFrame(plan.chosen.drop(columns="geometry")).to_csv(index=False))
     write_text_atomic(f"{out_csv}-curve.csv", plan.curve.to_csv(index=False))
     write_text_atomic(f"{out_csv}-ranking.csv", plan.ranking.to_csv(index=False))
@@ -536,7 +570,15 @@ def _cmd_availability(args: argparse.Namespace) -> int:
     from coverkit.demand import load_demand
 
     net, bases = _network_and_bases(args)
-    demand = load_demand(args.demand, net, where=args.where)
+    demand = load_demand(
+        args.demand,
+        net,
+        where=args.where,
+        time_field=args.time_field,
+        start=args.start,
+        end=args.end,
+        max_rejected_share=args.max_rejected,
+    )
     std = Standard(f"{args.minutes:g} min", args.minutes * 60.0)
     run = availability(
         net,
@@ -549,8 +591,12 @@ def _cmd_availability(args: argparse.Namespace) -> int:
         method=args.method,
         time_field=args.time_field,
     )
-    write_gpkg_layers(args.out, {"units": run.units, "demand": run.demand, "summary": pd.DataFrame([run.summary])})
+    layers = {"units": run.units, "demand": run.demand, "summary": pd.DataFrame([run.summary])}
+    rejected = _rejected(demand, layers)
+    write_gpkg_layers(args.out, layers)
     s = run.summary
+    if rejected:
+        print(f"rejected: {rejected}")
     print(
         f"{s['calls_per_h']:.2f} calls/h x {s['mean_service_min']:g} min = {s['offered_load_erlang']:.2f} erlang on "
         f"{s['units']} units ({s['method']} hypercube, {s['queue']} queue)"
@@ -568,6 +614,19 @@ def _cmd_availability(args: argparse.Namespace) -> int:
     print(f"\nwrote {args.out}")
     print(CAUTION)
     return 0
+
+
+def _rejected(demand, layers: dict) -> str:
+    """Add the ``rejected`` layer when point demand rows were set aside; the summary line about them."""
+    from coverkit.travel.points import rejected_table, rejected_text
+
+    if "rejected" not in demand.attrs:
+        return ""
+    table = rejected_table(demand.attrs["rejected"])
+    if not len(table):
+        return ""
+    layers["rejected"] = table
+    return f"{rejected_text(table, demand.attrs['rows_read'], verb=False)}; see layer rejected"
 
 
 def _hours(text: str | None) -> list[int] | None:

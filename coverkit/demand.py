@@ -19,10 +19,20 @@ from pyproj import CRS, Transformer
 
 from coverkit.errors import FieldError, InputFileError
 from coverkit.network.model import RoadNetwork
-from coverkit.travel.points import read_points
+from coverkit.progress import note, warn
+from coverkit.travel.points import (
+    DEFAULT_MAX_REJECTED_SHARE,
+    check_rejected,
+    read_points,
+    rejected_table,
+    rejected_text,
+)
+from coverkit.where import filter_mask
 
 #: Spacing of demand points along roads when spreading a polygon's population (m).
 POLYGON_SAMPLE_SPACING_M = 100.0
+#: Demand points farther than this outside the road network's extent are outside the study area (m).
+EXTENT_MARGIN_M = 5000.0
 RASTER_SUFFIXES = (".tif", ".tiff", ".vrt", ".img", ".asc")
 
 
@@ -170,19 +180,60 @@ def demand_from_points(
     end: str | None = None,
     id_field: str = "id",
     layer: str | None = None,
+    *,
+    max_rejected_share: float = DEFAULT_MAX_REJECTED_SHARE,
+    area_bounds: tuple[float, float, float, float] | None = None,
 ) -> gpd.GeoDataFrame:
     """Incident points (or any ``id, lon, lat[, weight]`` points) as demand, with an optional filter.
 
     Parameters
     ----------
     where
-        A filter on the file's fields, e.g. ``"priority <= 2"`` or ``"priority in (1, 2)"`` (pandas query syntax).
+        A filter on the file's fields in the usual GIS query syntax, e.g. ``"priority = 1"`` or
+        ``"priority IN (1, 2) AND type <> 'transfer'"`` (see :mod:`coverkit.where`; never evaluated as code).
     weight_field
         Field holding a weight; default each point weighs 1 (or the ``weight`` column when present).
     time_field, start, end
         Keep points whose timestamp in ``time_field`` lies in ``[start, end)`` (ISO 8601).
+    max_rejected_share
+        Rows with no usable position (blank, not a number, out of range, 0,0) or outside ``area_bounds`` are set
+        aside and listed in ``attrs["rejected"]`` (``line``, ``id``, ``reason``); the import stops when more than
+        this share of the rows (0..1, default 1 %) is rejected. Rejected rows are counted before the filter.
+    area_bounds
+        ``(xmin, ymin, xmax, ymax)`` in ``crs``: points outside are rejected as outside the study area.
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        ``id``, ``weight``, ``source``, the file's other fields, point geometry; ``attrs["rejected"]``,
+        ``attrs["rows_read"]`` and ``attrs["read"]`` (one line: rows, delimiter, coordinate columns).
     """
-    gdf = read_points(path, crs, id_field=id_field, what="demand points", layer=layer)
+    gdf = read_points(
+        path, crs, id_field=id_field, what="demand points", layer=layer, max_rejected_share=max_rejected_share
+    )
+    attrs = dict(gdf.attrs)
+    rejected, rows_read = rejected_table(attrs["rejected"]), attrs["rows_read"]
+    if area_bounds is not None:
+        x0, y0, x1, y1 = area_bounds
+        xy = shapely.get_coordinates(gdf.geometry.to_numpy())
+        inside = (xy[:, 0] >= x0) & (xy[:, 0] <= x1) & (xy[:, 1] >= y0) & (xy[:, 1] <= y1)
+        if len(inside) and inside.mean() < 0.5:
+            raise FieldError(
+                f"{path}: {int((~inside).sum()):,} of {len(inside):,} points lie outside the road network's extent; "
+                "check that lon and lat are not swapped and that the points cover the same area as the roads."
+            )
+        if not inside.all():
+            outside = pd.DataFrame(
+                {
+                    "line": np.asarray(attrs["lines"], dtype=np.int64)[~inside],
+                    "id": gdf["id"].to_numpy()[~inside],
+                    "reason": "outside the study area",
+                }
+            )
+            rejected = pd.concat([rejected, outside], ignore_index=True).sort_values("line", kind="stable")
+            rejected = rejected.reset_index(drop=True)
+            gdf = gdf[inside].reset_index(drop=True)
+            check_rejected(rejected, rows_read, max_rejected_share, path, "demand points")
     gdf = _numeric_columns(gdf)
     n_read = len(gdf)
     if where:
@@ -209,33 +260,27 @@ def demand_from_points(
     gdf = gdf.drop(columns=[c for c in ("weight",) if c in gdf.columns])
     gdf.insert(1, "weight", weight)
     gdf.insert(2, "source", "points")
-    return gdf.reset_index(drop=True)
+    gdf = gdf.reset_index(drop=True)
+    gdf.attrs = {"read": attrs["read"], "rejected": rejected.to_dict("records"), "rows_read": rows_read}
+    return gdf
 
 
 def _numeric_columns(gdf: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
-    """Turn text columns that are entirely numeric into numbers (CSV fields arrive as text)."""
+    """Turn text columns that hold only numbers (and blanks, read as missing) into numbers (CSV fields arrive as
+    text)."""
     for col in gdf.columns:
         if col in ("id", "geometry") or gdf[col].dtype.kind in "biuf":
             continue
         text = gdf[col].astype(str).str.strip()
-        num = pd.to_numeric(text, errors="coerce")
-        if num.notna().all() and len(num):
+        blank = (text == "") | gdf[col].isna()
+        num = pd.to_numeric(text.mask(blank), errors="coerce")
+        if len(num) and (num.notna() | blank).all() and num.notna().any():
             gdf[col] = num
     return gdf
 
 
 def _apply_where(gdf: gpd.GeoDataFrame, where: str, path: str | Path) -> gpd.GeoDataFrame:
-    try:
-        mask = gdf.drop(columns="geometry").eval(where)
-    except Exception as exc:
-        fields = ", ".join(c for c in gdf.columns if c != "geometry")
-        raise FieldError(
-            f"filter '{where}' cannot be applied to {path} ({type(exc).__name__}: {str(exc)[:60]}); "
-            f'use the fields {fields}, e.g. "priority <= 2".'
-        ) from None
-    if not isinstance(mask, pd.Series) or mask.dtype != bool:
-        raise FieldError(f"filter '{where}' on {path} is not a condition; write e.g. \"priority in (1, 2)\".")
-    return gdf[mask.to_numpy()]
+    return gdf[filter_mask(gdf, where, source=str(path))]
 
 
 def _apply_time_window(gdf, path, time_field: str, start: str | None, end: str | None) -> gpd.GeoDataFrame:
@@ -259,7 +304,9 @@ def _apply_time_window(gdf, path, time_field: str, start: str | None, end: str |
     return gdf[keep]
 
 
-def check_extent(demand: gpd.GeoDataFrame, net: RoadNetwork, what: str, margin_m: float = 5000.0) -> np.ndarray:
+def check_extent(
+    demand: gpd.GeoDataFrame, net: RoadNetwork, what: str, margin_m: float = EXTENT_MARGIN_M
+) -> np.ndarray:
     """Mask of demand points inside the network's extent (grown by ``margin_m``).
 
     Raises
@@ -289,8 +336,15 @@ def load_demand(
     time_field: str | None = None,
     start: str | None = None,
     end: str | None = None,
+    *,
+    max_rejected_share: float = DEFAULT_MAX_REJECTED_SHARE,
 ) -> gpd.GeoDataFrame:
-    """Read any demand file by its kind: raster, polygons (needs ``population_field``) or points."""
+    """Read any demand file by its kind: raster, polygons (needs ``population_field``) or points.
+
+    Point files keep going past a few bad rows (see :func:`demand_from_points`; points farther than 5 km outside
+    the network's extent count as outside the study area): what was read goes to the progress line, a warning
+    line names the rejected rows, and ``attrs["rejected"]`` lists them.
+    """
     path = Path(spec)
     if path.suffix.lower() in RASTER_SUFFIXES:
         demand = demand_from_raster(path, net.crs)
@@ -305,7 +359,25 @@ def load_demand(
             kinds = set()
         if any("Polygon" in k for k in kinds):
             raise FieldError(f"{path} holds polygons; give population_field (--population-field) to spread them.")
-        demand = demand_from_points(path, net.crs, where, weight_field, time_field, start, end, id_field)
+        x0, y0, x1, y1 = net.nodes.total_bounds
+        m = EXTENT_MARGIN_M
+        demand = demand_from_points(
+            path,
+            net.crs,
+            where,
+            weight_field,
+            time_field,
+            start,
+            end,
+            id_field,
+            max_rejected_share=max_rejected_share,
+            area_bounds=(x0 - m, y0 - m, x1 + m, y1 + m),
+        )
+        note(f"demand {demand.attrs['read']}")
+        rejected = rejected_table(demand.attrs["rejected"])
+        if len(rejected):
+            warn(f"{path}: {rejected_text(rejected, demand.attrs['rows_read'])}")
+        return demand
     if len(demand) == 0:
         raise FieldError(f"{path}: no demand (all cells or features are empty or zero).")
     check_extent(demand, net, str(path))
