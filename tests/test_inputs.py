@@ -1,0 +1,284 @@
+"""The inputs real users bring: attribute filters, CSV dialects and coordinate names, rows without a position.
+
+Sources of the checks:
+
+- Filters: SQLite (Python's standard-library ``sqlite3``, an independent SQL engine) runs the same WHERE clause on
+  the same rows; the rows it keeps are the reference. NULL handling is SQL's three-valued logic (ISO/IEC 9075) as
+  SQLite implements it; ``LIKE`` is case-insensitive for ASCII in SQLite and here.
+- CSV dialects: pandas reading the same file with the delimiter named explicitly is the reference.
+- Rejected rows: ground truth by construction (the test writes the bad rows and knows their lines); placing 0,0
+  and blank positions among the rows a CAD export cannot geocode is common practice, no single source.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from coverkit.cli import main
+from coverkit.demand import demand_from_points
+from coverkit.errors import FieldError
+from coverkit.travel.points import read_points, rejected_table
+from coverkit.where import filter_mask
+
+REPO = Path(__file__).resolve().parents[1]
+DEMO = REPO / "data" / "demo"
+CRS = "EPSG:32625"  # the demo county's UTM zone
+
+
+def _one_line(exc) -> str:
+    text = str(exc.value)
+    assert "\n" not in text
+    return text
+
+
+# -- filters against SQLite ---------------------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def incident_rows():
+    """Seeded rows with numbers, text, blanks (NULL) and quotes, as a DataFrame and as a SQLite table."""
+    rng = np.random.default_rng(10_11)
+    n = 400
+    priority = rng.integers(1, 5, n).astype(float)
+    priority[rng.random(n) < 0.1] = np.nan
+    kinds = np.array(["Fire", "EMS", "ems", "rescue", "O'Brien call", "hazmat_2"], dtype=object)
+    kind = kinds[rng.integers(0, len(kinds), n)]
+    kind[rng.random(n) < 0.1] = None
+    delay = np.round(rng.uniform(0, 300, n), 1)
+    station = np.array([f"S{k}" for k in rng.integers(1, 12, n)], dtype=object)
+    df = pd.DataFrame({"priority": priority, "kind": kind, "delay_s": delay, "station": station})
+    db = sqlite3.connect(":memory:")
+    db.execute("CREATE TABLE t (rid INTEGER, priority INTEGER, kind TEXT, delay_s REAL, station TEXT)")
+    db.executemany(
+        "INSERT INTO t VALUES (?, ?, ?, ?, ?)",
+        [
+            (i, None if np.isnan(p) else int(p), k, float(d), s)
+            for i, (p, k, d, s) in enumerate(zip(priority, kind, delay, station, strict=True))
+        ],
+    )
+    yield df, db
+    db.close()
+
+
+SQL_FILTERS = [
+    "priority = 1",
+    "priority <> 1",
+    "priority != 2",
+    "priority == 3",
+    "priority < 3",
+    "priority <= 2 AND delay_s > 120.5",
+    "priority >= 3 OR kind = 'EMS'",
+    "NOT priority = 1",
+    "NOT (priority = 1 OR kind = 'Fire')",
+    "priority IN (1, 2)",
+    "priority NOT IN (1, 4)",
+    "kind IN ('Fire', 'rescue')",
+    "kind LIKE 'e%'",
+    "kind LIKE '%call'",
+    "kind NOT LIKE 'hazmat__'",
+    "kind LIKE 'hazmat_2'",
+    "kind = 'O''Brien call'",
+    "kind IS NULL",
+    "kind IS NOT NULL AND priority IS NULL",
+    "priority BETWEEN 2 AND 3",
+    "delay_s NOT BETWEEN 10 AND 250.5",
+    "(priority = 1 OR priority = 2) AND (kind <> 'EMS' OR delay_s < 60)",
+    "priority = 1 and kind = 'Fire' or not delay_s >= 200",
+    "station > 'S5'",
+    "delay_s < -1",
+    "priority = '2'",
+    "Priority = 1",
+]
+
+
+@pytest.mark.parametrize("where", SQL_FILTERS)
+def test_filter_keeps_the_rows_sqlite_keeps(incident_rows, where):
+    """SQLite (standard library) runs the same WHERE on the same rows; the kept rows must be the same."""
+    df, db = incident_rows
+    expected = sorted(r for (r,) in db.execute(f"SELECT rid FROM t WHERE {where}"))
+    got = np.flatnonzero(filter_mask(df, where, source="incidents.csv")).tolist()
+    assert got == expected
+
+
+def test_filter_on_a_csv_reads_blanks_as_null(tmp_path, incident_rows):
+    """Through the point reader: a CSV with blank cells; SQLite on the same rows (blanks as NULL) is the reference."""
+    df, db = incident_rows
+    lon = -35.0 + np.arange(len(df)) * 1e-4
+    csv = pd.DataFrame({"id": np.arange(len(df)), "lon": lon, "lat": 41.0, **df})
+    csv["priority"] = csv["priority"].map(lambda p: "" if np.isnan(p) else str(int(p)))
+    path = tmp_path / "calls.csv"
+    csv.to_csv(path, index=False)
+    where = "priority IN (1, 3) AND kind IS NOT NULL"
+    pts = demand_from_points(path, CRS, where=where)
+    expected = sorted(r for (r,) in db.execute(f"SELECT rid FROM t WHERE {where}"))
+    assert sorted(pts["id"].astype(int)) == expected
+
+
+@pytest.mark.parametrize(
+    ("where", "needle"),
+    [
+        ("priority = = 1", "character 12"),
+        ("priority = 1 AND", "character 17"),
+        ("kind = 'Fire", "character 8"),
+        ("priority IN (1, 2", "character 18"),
+        ("priority = NULL", "IS NULL"),
+        ("priority; DROP TABLE t", "character 9"),
+        ("__import__('os').system('true')", "character 17"),
+    ],
+)
+def test_filter_syntax_error_is_one_line_with_the_position(incident_rows, where, needle):
+    df, _ = incident_rows
+    with pytest.raises(FieldError) as exc:
+        filter_mask(df, where)
+    text = _one_line(exc)
+    assert needle in text and "syntax error" in text and "e.g." in text
+
+
+def test_filter_unknown_field_names_it_and_the_fields_there_are(incident_rows):
+    df, _ = incident_rows
+    with pytest.raises(FieldError) as exc:
+        filter_mask(df, "prio = 1", source="calls.csv")
+    text = _one_line(exc)
+    assert "'prio'" in text and "calls.csv" in text
+    for field in df.columns:
+        assert field in text
+
+
+# -- CSV dialects and coordinate names ----------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("sep", "lon", "lat"),
+    [(";", "Longitude", "LATITUDE"), ("\t", "x", "y"), (",", "LONG", "Lat"), (";", "lng", "latitude")],
+)
+def test_delimiter_and_coordinate_names_are_found(tmp_path, sep, lon, lat):
+    """pandas reading the file with the delimiter named explicitly is the reference."""
+    src = pd.read_csv(DEMO / "incidents.csv", dtype=str).head(300).rename(columns={"lon": lon, "lat": lat})
+    path = tmp_path / "calls.csv"
+    src.to_csv(path, sep=sep, index=False)
+    ref = pd.read_csv(path, sep=sep, dtype=str)
+    pts = read_points(path, "EPSG:4326", what="demand points")
+    assert pts["id"].tolist() == ref["id"].tolist()
+    np.testing.assert_allclose(pts.geometry.x, ref[lon].astype(float))
+    np.testing.assert_allclose(pts.geometry.y, ref[lat].astype(float))
+    assert pts["priority"].tolist() == ref["priority"].tolist()
+    sep_name = {";": "semicolon", "\t": "tab", ",": "comma"}[sep]
+    assert pts.attrs["read"] == f"calls.csv: 300 rows, {sep_name}-separated, lon from '{lon}', lat from '{lat}'"
+
+
+def test_missing_coordinates_name_the_accepted_names(tmp_path):
+    path = tmp_path / "calls.csv"
+    pd.DataFrame({"id": [1], "east": [1.0], "north": [2.0]}).to_csv(path, sep=";", index=False)
+    with pytest.raises(FieldError) as exc:
+        read_points(path, "EPSG:4326", what="demand points")
+    text = _one_line(exc)
+    assert "east, north" in text and "semicolon" in text and "longitude" in text and "latitude" in text
+
+
+# -- rows without a usable position -------------------------------------------------------------------------------
+
+
+def _calls_with_bad_rows(tmp_path: Path, n: int, bad: dict[int, tuple[str, str]], name: str = "calls.csv") -> Path:
+    """``n`` good rows near the demo county; ``bad`` maps a row number (0-based) to its (lon, lat) text."""
+    rng = np.random.default_rng(n)
+    df = pd.DataFrame(
+        {
+            "id": np.arange(1, n + 1),
+            "lon": np.round(rng.uniform(-35.1, -34.9, n), 6).astype(str),
+            "lat": np.round(rng.uniform(40.9, 41.05, n), 6).astype(str),
+            "priority": rng.integers(1, 4, n),
+        }
+    )
+    for row, (lon, lat) in bad.items():
+        df.loc[row, ["lon", "lat"]] = [lon, lat]
+    path = tmp_path / name
+    df.to_csv(path, index=False)
+    return path
+
+
+BAD_ROWS = {
+    3: ("", ""),
+    10: ("0", "0"),
+    11: ("-35.0", ""),
+    400: ("abc", "41.0"),
+    20_000: ("-35.0", "95.0"),
+    49_000: ("-36.5", "41.0"),  # about 100 km west of the county
+}
+BAD_REASONS = {
+    3: "blank position",
+    10: "at 0,0",
+    11: "blank position",
+    400: "lon not a number",
+    20_000: "lat outside -90..90",
+    49_000: "outside the study area",
+}
+
+
+def test_a_few_bad_rows_are_set_aside_and_listed(tmp_path):
+    """Ground truth by construction: 6 bad rows in 50,000; the rest is read, the 6 are listed with line and why."""
+    path = _calls_with_bad_rows(tmp_path, 50_000, BAD_ROWS)
+    area = (300_000.0, 4_500_000.0, 350_000.0, 4_560_000.0)  # UTM 25N box around the demo county
+    pts = demand_from_points(path, CRS, area_bounds=area)
+    assert len(pts) == 50_000 - len(BAD_ROWS)
+    rejected = rejected_table(pts.attrs["rejected"])
+    assert rejected["line"].tolist() == [r + 2 for r in sorted(BAD_ROWS)]  # header is line 1
+    assert rejected["id"].astype(int).tolist() == [r + 1 for r in sorted(BAD_ROWS)]
+    assert rejected["reason"].tolist() == [BAD_REASONS[r] for r in sorted(BAD_ROWS)]
+    assert not set(pts["id"].astype(int)) & {r + 1 for r in BAD_ROWS}
+    assert pts.attrs["rows_read"] == 50_000
+
+
+def test_too_many_bad_rows_stop_with_counts_lines_and_the_fix(tmp_path):
+    bad = {r: ("", "") for r in range(5, 60)}  # 55 of 2,000 = 2.75 % > 1 %
+    path = _calls_with_bad_rows(tmp_path, 2_000, bad)
+    with pytest.raises(FieldError) as exc:
+        demand_from_points(path, CRS)
+    text = _one_line(exc)
+    assert "55 of 2,000 rows rejected" in text and "55 blank position" in text
+    assert "at lines 7, 8, 9, 10, 11 ..." in text and "1 % allowed" in text and "max_rejected_share" in text
+    pts = demand_from_points(path, CRS, max_rejected_share=0.03)
+    assert len(pts) == 2_000 - 55
+
+
+def test_bases_stay_strict(tmp_path):
+    path = tmp_path / "stations.csv"
+    pd.DataFrame({"id": ["A", "B"], "lon": ["-35.0", ""], "lat": ["41.0", "41.0"]}).to_csv(path, index=False)
+    with pytest.raises(FieldError) as exc:
+        read_points(path, CRS, what="bases")
+    assert "line 3" in _one_line(exc)
+
+
+def test_cli_cover_reports_and_writes_the_rejected_rows(tmp_path, capsys):
+    """Through the command a new user runs: the rejected rows in the summary and in the ``rejected`` layer."""
+    import pyogrio
+
+    from coverkit.network import build_network
+
+    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
+    net_path = net.save(tmp_path / "net.gpkg")
+    src = pd.read_csv(DEMO / "incidents.csv", dtype=str)
+    src.loc[[4, 9], "lon"] = ["", "0"]
+    src.loc[9, "lat"] = "0"
+    src = src.rename(columns={"lon": "Longitude", "lat": "Latitude"})
+    path = tmp_path / "cad.csv"
+    src.to_csv(path, sep=";", index=False)
+    out = tmp_path / "c.gpkg"
+    args = ["cover", str(net_path), "--bases", str(DEMO / "stations.csv"), "--demand", str(path), "--minutes", "8"]
+    code = main([*args, "--where", "priority = 1", "--out", str(out), "--quiet"])
+    text = capsys.readouterr().out
+    assert code == 0
+    assert f"2 of {len(src):,} rows" in text and "1 at 0,0, 1 blank position" in text and "at lines 6, 11" in text
+    rejected = pyogrio.read_dataframe(out, layer="rejected")
+    assert rejected["line"].tolist() == [6, 11]
+    demand = pyogrio.read_dataframe(out, layer="demand")
+    keep = src.drop(index=[4, 9])
+    assert sorted(demand["id"].astype(int)) == sorted(keep.loc[keep["priority"] == "1", "id"].astype(int))
+    code = main([*args, "--out", str(tmp_path / "d.gpkg"), "--max-rejected", "0.0001", "--quiet"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1 and "rows rejected" in err[0]
+    assert not (tmp_path / "d.gpkg").exists()
