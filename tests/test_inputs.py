@@ -282,3 +282,53 @@ def test_cli_cover_reports_and_writes_the_rejected_rows(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1 and "rows rejected" in err[0]
     assert not (tmp_path / "d.gpkg").exists()
+
+
+# -- centerline class codes ---------------------------------------------------------------------------------------
+
+
+def _coded_centerlines(tmp_path: Path, codes: list[str]) -> Path:
+    """A ladder of 200 m centerline pieces in UTM 33N, piece ``i`` coded ``codes[i]``; counts known by construction."""
+    import geopandas as gpd
+    from shapely.geometry import LineString
+
+    x0, y0 = 500_000.0, 5_500_000.0
+    geoms = [LineString([(x0 + 200 * i, y0), (x0 + 200 * (i + 1), y0)]) for i in range(len(codes))]
+    path = tmp_path / "county_roads.gpkg"
+    gpd.GeoDataFrame({"RDCLASS": codes}, geometry=geoms, crs="EPSG:32633").to_file(path)
+    return path
+
+
+def test_centerlines_mostly_of_unknown_codes_stop_with_the_values_and_the_fix(tmp_path, capsys):
+    """A county layer coded LOC/COL/ART: 30 LOC, 12 COL, 5 ART, 1 residential (known) -> stop, exit 2."""
+    codes = ["LOC"] * 30 + ["COL"] * 12 + ["ART"] * 5 + ["residential"]
+    path = _coded_centerlines(tmp_path, codes)
+    out = tmp_path / "net.gpkg"
+    code = main(["network", str(path), "--fields", "class=RDCLASS", "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1, err
+    assert "47 of 48 features" in err[0] and "'LOC' (30), 'COL' (12), 'ART' (5)" in err[0]
+    assert "class_map=LOC:<class>;COL:<class>;ART:<class>" in err[0] and "residential" in err[0]
+    assert not out.exists()
+
+
+def test_a_partial_class_map_still_stops_when_most_values_are_unknown(tmp_path):
+    codes = ["LOC"] * 10 + ["COL"] * 20 + ["Local"]
+    path = _coded_centerlines(tmp_path, codes)
+    from coverkit.network import build_network
+
+    with pytest.raises(FieldError) as exc:
+        build_network(path, "emergency", fields={"class": "RDCLASS", "class_map": "LOC:residential"})
+    assert "'COL' (20)" in _one_line(exc)
+
+
+def test_a_few_unknown_codes_build_and_are_listed_in_the_summary(tmp_path):
+    from coverkit.network import build_network
+
+    codes = ["LOC"] * 40 + ["XX"] * 3 + ["YY"]
+    path = _coded_centerlines(tmp_path, codes)
+    net, rep = build_network(path, "emergency", fields={"class": "RDCLASS", "class_map": "LOC:residential"})
+    assert rep.read["features_unknown_class"] == 4
+    assert rep.read["class_values_unmapped"] == ["XX (3)", "YY (1)"]
+    assert "XX (3), YY (1)" in rep.summary_text()
+    assert net.length_m.sum() == pytest.approx(2 * 40 * 200, rel=1e-3)  # both directions; UTM scale ~0.9996

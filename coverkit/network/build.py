@@ -82,6 +82,11 @@ class BuildReport:
             lines.append(f"  ways unusable (nodes missing)     {r.get('ways_unusable', 0):>8,}")
         if "features_read" in r:
             lines.append(f"  features not drivable or empty    {r.get('features_dropped', 0):>8,}")
+            if r.get("class_values_unmapped"):
+                lines.append(
+                    f"  of them of unknown class          {r.get('features_unknown_class', 0):>8,}"
+                    f"  ({', '.join(r['class_values_unmapped'])}; map them with class_map=VALUE:class)"
+                )
             lines.append(f"  near-miss endpoints (check data)  {r.get('near_miss_endpoints', 0):>8,}")
         lines.append(f"  segments outside boundary+buffer  {self.outside_boundary:>8,}")
         lines.append(

@@ -82,6 +82,45 @@ def _class_map(fields: dict[str, str], profile: Profile) -> dict[str, str]:
     return mapping
 
 
+#: Above this share of the features or of the road length with class values the mapping does not know, the
+#: reading stops (the class field or its mapping is wrong); below it, the unknown values are built without those
+#: features and listed in the summary. Our choice: a layer half unknown cannot give a trustworthy network.
+MAX_UNKNOWN_CLASS_SHARE = 0.5
+
+
+def _unknown_classes(
+    path: Path, gdf, raw_class: pd.Series, known: np.ndarray, fields: dict[str, str], profile: Profile
+) -> dict[str, int]:
+    """Counts of class values the mapping does not know, most common first; stop when they are most of the layer.
+
+    Raises
+    ------
+    FieldError
+        When more than :data:`MAX_UNKNOWN_CLASS_SHARE` of the features or of their length has an unknown class:
+        one line listing the values (most common first, with counts) and the ``class_map=`` fix.
+    """
+    unknown = ~known
+    if not unknown.any():
+        return {}
+    counts = raw_class[unknown].value_counts()
+    counts = counts.sort_index().sort_values(ascending=False, kind="stable")
+    length = shapely.length(gdf.geometry.to_crs(gdf.crs if gdf.crs.is_projected else gdf.estimate_utm_crs()))
+    length = np.asarray(length, dtype=float)
+    n_share = unknown.mean()
+    len_share = length[unknown].sum() / length.sum() if length.sum() > 0 else n_share
+    if max(n_share, len_share) > MAX_UNKNOWN_CLASS_SHARE:
+        shown = ", ".join(f"'{v}' ({c:,})" for v, c in counts.head(8).items())
+        more = f" and {len(counts) - 8} more" if len(counts) > 8 else ""
+        example = ";".join(f"{v}:<class>" for v in counts.index[:3])
+        raise FieldError(
+            f"{path}: {int(unknown.sum()):,} of {len(unknown):,} features ({len_share * 100:.0f} % of the length) "
+            f"have values in field '{fields['class']}' that are not road classes: {shown}{more}; map them in the "
+            f"field mapping with class_map={example} (classes of profile '{profile.name}': "
+            f"{', '.join(profile.road_classes)})."
+        )
+    return {str(v): int(c) for v, c in counts.items()}
+
+
 def read_centerlines(
     path: str | Path,
     fields: dict[str, str],
@@ -100,7 +139,9 @@ def read_centerlines(
         Field mapping, see :func:`parse_fields`. ``speed_unit`` defaults to mph when the speed field's name
         contains ``MPH``, else km/h.
     profile
-        Profile whose classes are drivable; other classes are dropped and counted.
+        Profile whose classes are drivable; other classes are dropped and counted. Class values that neither the
+        profile, :data:`CLASS_ALIASES` nor ``class_map`` know are listed in ``stats["class_values_unmapped"]``; when
+        they hold more than :data:`MAX_UNKNOWN_CLASS_SHARE` of the features or of the length, reading stops.
     snap_tolerance_m
         Endpoints closer than this (m, in a metric CRS) are the same node.
     near_miss_m
@@ -122,26 +163,23 @@ def read_centerlines(
                 f"fields are {', '.join(map(str, gdf.columns[:12]))}."
             )
     features_read = len(gdf)
+    mapping = _class_map(fields, profile)
+    raw_class = gdf[fields["class"]].astype(str).str.strip()
+    known = raw_class.str.lower().map(mapping).notna().to_numpy()
+    unknown_counts = _unknown_classes(path, gdf, raw_class, known, fields, profile)
     gdf = gdf.explode(index_parts=False)
     gdf = gdf[gdf.geometry.geom_type == "LineString"].reset_index(drop=True)
     # work in metres for snapping tolerances
     metric = gdf.crs if gdf.crs.is_projected else gdf.estimate_utm_crs()
     metric_geom = gdf.geometry.to_crs(metric).to_numpy()
 
-    mapping = _class_map(fields, profile)
-    raw_class = gdf[fields["class"]].astype(str).str.strip()
-    road_class = raw_class.str.lower().map(mapping)
-    unknown = sorted(set(raw_class[road_class.isna()]))
-    if unknown and "class_map" not in fields and len(unknown) == raw_class.nunique():
-        raise FieldError(
-            f"{path}: class values such as '{unknown[0]}' in field '{fields['class']}' are not road classes; "
-            f"map them with --fields ...,class_map={unknown[0]}:residential;..."
-        )
+    road_class = gdf[fields["class"]].astype(str).str.strip().str.lower().map(mapping)
     drivable = road_class.isin(profile.road_classes).to_numpy()
     stats = {
         "features_read": int(features_read),
         "features_dropped": int((~drivable).sum()),
-        "class_values_unmapped": unknown[:20],
+        "features_unknown_class": int(sum(unknown_counts.values())),
+        "class_values_unmapped": [f"{v} ({c:,})" for v, c in list(unknown_counts.items())[:20]],
     }
     gdf, metric_geom, road_class = (
         gdf[drivable].reset_index(drop=True),
