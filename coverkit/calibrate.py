@@ -337,6 +337,10 @@ class CalibrationResult:
         Fit-and-re-route rounds run; ``converged`` whether the routes stopped changing; ``route_status``
         ``"stable"``, ``"alternating"`` (routes came back to an earlier set: the best-fitting state of the cycle is
         kept) or ``"max rounds"`` (the best-fitting round is kept).
+    rounds
+        One row per round: ``round``, ``fit_cost`` (the fit's robust cost per observation on that round's own
+        routes: what decides which round is kept when the routes do not settle), ``mae_s`` (mean absolute error,
+        s), ``routes_unchanged``, ``kept`` (the round whose factors are written; its ``mae_s`` is the error after).
     n_rows, n_off_network, n_unreachable, n_outside_hours
         Rows read, rows dropped because the incident is beyond the snap limit, because no route joins base and
         incident, and because their hour was not selected.
@@ -359,6 +363,7 @@ class CalibrationResult:
     iterations: int
     converged: bool
     route_status: str
+    rounds: pd.DataFrame
     n_rows: int
     n_off_network: int
     n_unreachable: int
@@ -619,7 +624,10 @@ def calibrate_speeds(
     # Each round: fit on the current routes, re-time, re-route. Stop when the routes no longer change (a fixed
     # point); when they come back to an earlier set (routes alternating between near-equal choices) or the rounds
     # run out, keep the visited state whose own routes fit the observations best (the fit's robust cost).
-    states: list[tuple[np.ndarray, float, Routes, float]] = []
+    # The log shows, per round, the quantity that decides (the fit's robust cost per observation, on that round's
+    # own routes) beside the mean absolute error, and says which round is kept.
+    states: list[tuple[np.ndarray, float, Routes, float, int]] = []
+    round_rows: list[dict] = []
     iterations, status = 0, "max rounds"
     for it in range(1, max_iterations + 1):
         mult_new, delay_new = _fit_once(
@@ -641,10 +649,15 @@ def calibrate_speeds(
         same = new_routes.same_paths(routes)
         earlier = [k for k, st in enumerate(states[:-1]) if new_routes.same_paths(st[2])]
         cost = _robust_cost(np.log(np.maximum(new_routes.time_s[usable], 1.0) / obs_s[usable]), loss, f_scale)
-        states.append((mult_new, delay_new, new_routes, cost))
+        cost /= len(usable)
+        states.append((mult_new, delay_new, new_routes, cost, it))
         mult, delay, routes = mult_new, delay_new, new_routes
-        err = np.mean(np.abs(routes.time_s[usable] - obs_s[usable]))
-        note(f"calibrate: round {it}: mean absolute error {err:.1f} s" + (" (routes unchanged)" if same else ""))
+        err = float(np.mean(np.abs(routes.time_s[usable] - obs_s[usable])))
+        round_rows.append({"round": it, "fit_cost": cost, "mae_s": err, "routes_unchanged": bool(same)})
+        note(
+            f"calibrate: round {it}: fit cost {cost:.6f}, mean absolute error {err:.1f} s"
+            + (" (routes unchanged)" if same else "")
+        )
         if same:
             status = "stable"
             break
@@ -653,7 +666,17 @@ def calibrate_speeds(
             states = states[earlier[0] :]
             break
     if status != "stable":
-        mult, delay, routes, _ = min(states, key=lambda st: st[3])
+        mult, delay, routes, _, kept_round = min(states, key=lambda st: (st[3], st[4]))
+    else:
+        kept_round = iterations
+    rounds = pd.DataFrame(round_rows)
+    rounds["kept"] = rounds["round"] == kept_round
+    kept = rounds.loc[rounds["kept"]].iloc[0]
+    note(
+        f"calibrate: kept round {kept_round}"
+        + (", routes stable" if status == "stable" else ", lowest fit cost")
+        + f" {kept['fit_cost']:.6f}: mean absolute error {kept['mae_s']:.1f} s"
+    )
     converged = status == "stable"
 
     prof_after, net_after = network_for(mult, delay)
@@ -736,6 +759,7 @@ def calibrate_speeds(
         iterations=iterations,
         converged=converged,
         route_status=status,
+        rounds=rounds,
         n_rows=n_rows,
         n_off_network=n_off,
         n_unreachable=n_unreach,
@@ -911,7 +935,7 @@ def summary_text(result: CalibrationResult) -> str:
         f"{result.n_unreachable} unreachable"
         + (f", {result.n_outside_hours} outside the chosen hours" if result.n_outside_hours else "")
         + ")",
-        f"fit           {result.iterations} rounds, routes {_STATUS_TEXT[result.route_status]}",
+        f"fit           {result.iterations} rounds, routes {_STATUS_TEXT[result.route_status]}; " + _kept_text(result),
         "",
         f"{'road class':<16}{'exposure':>10}{'routes':>8}{'factor':>9}{'-> new':>9}  note",
     ]
@@ -944,9 +968,16 @@ def summary_text(result: CalibrationResult) -> str:
 
 _STATUS_TEXT = {
     "stable": "stable",
-    "alternating": "alternating between near-equal choices (best-fitting kept)",
-    "max rounds": "still changing after the last round (best-fitting kept)",
+    "alternating": "alternating between near-equal choices",
+    "max rounds": "still changing after the last round",
 }
+
+
+def _kept_text(result: CalibrationResult) -> str:
+    """Which round is kept and why, in the terms of the log."""
+    kept = result.rounds.loc[result.rounds["kept"]].iloc[0]
+    why = "routes stable, fit cost" if result.route_status == "stable" else "lowest fit cost"
+    return f"round {int(kept['round'])} kept ({why} {kept['fit_cost']:.6f}, mean absolute error {kept['mae_s']:.1f} s)"
 
 
 def calibration_chart(result: CalibrationResult, out_png: str | os.PathLike[str]) -> Path:

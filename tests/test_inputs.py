@@ -253,14 +253,19 @@ def test_bases_stay_strict(tmp_path):
     assert "line 3" in _one_line(exc)
 
 
-def test_cli_cover_reports_and_writes_the_rejected_rows(tmp_path, capsys):
-    """Through the command a new user runs: the rejected rows in the summary and in the ``rejected`` layer."""
-    import pyogrio
-
+@pytest.fixture(scope="module")
+def demo_net_path(tmp_path_factory):
     from coverkit.network import build_network
 
     net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
-    net_path = net.save(tmp_path / "net.gpkg")
+    return net.save(tmp_path_factory.mktemp("net") / "net.gpkg")
+
+
+def test_cli_cover_reports_and_writes_the_rejected_rows(demo_net_path, tmp_path, capsys):
+    """Through the command a new user runs: the rejected rows in the summary and in the ``rejected`` layer."""
+    import pyogrio
+
+    net_path = demo_net_path
     src = pd.read_csv(DEMO / "incidents.csv", dtype=str)
     src.loc[[4, 9], "lon"] = ["", "0"]
     src.loc[9, "lat"] = "0"
@@ -332,3 +337,43 @@ def test_a_few_unknown_codes_build_and_are_listed_in_the_summary(tmp_path):
     assert rep.read["class_values_unmapped"] == ["XX (3)", "YY (1)"]
     assert "XX (3), YY (1)" in rep.summary_text()
     assert net.length_m.sum() == pytest.approx(2 * 40 * 200, rel=1e-3)  # both directions; UTM scale ~0.9996
+
+
+# -- calibration log and summary ----------------------------------------------------------------------------------
+
+
+def test_calibration_log_names_the_round_kept_and_agrees_with_the_summary(demo_net_path, tmp_path, capsys):
+    """The demo's observed times do not settle (routes change every round): the round kept must be the one with the
+    lowest logged fit cost, and the error after (recomputed here from the observation table) must be the error
+    logged for that round and printed in the summary."""
+    import re
+
+    from coverkit.progress import set_quiet
+
+    set_quiet(False)
+    out = tmp_path / "cal.toml"
+    code = main(
+        ["calibrate", str(demo_net_path), "--observed", str(DEMO / "observed_times.csv"), "--bases",
+         str(DEMO / "stations.csv"), "--out", str(out)]
+    )  # fmt: skip
+    captured = capsys.readouterr()
+    assert code == 0
+    logged = [
+        (int(m[1]), float(m[2]), float(m[3]))
+        for m in re.finditer(r"round (\d+): fit cost ([\d.]+), mean absolute error ([\d.]+) s", captured.err)
+    ]
+    assert len(logged) >= 2
+    stable = "(routes unchanged)" in captured.err
+    kept = logged[-1] if stable else min(logged, key=lambda r: (r[1], r[0]))
+    assert f"kept round {kept[0]}," in captured.err
+    assert f"round {kept[0]} kept" in captured.out and f"mean absolute error {kept[2]:.1f} s" in captured.out
+
+    from coverkit.calibrate import calibrate_files
+
+    result = calibrate_files(demo_net_path, DEMO / "observed_times.csv", DEMO / "stations.csv")
+    obs = result.observations
+    mae_after = float(np.mean(np.abs(obs["after_s"] - obs["observed_s"])))
+    assert mae_after == pytest.approx(kept[2], abs=0.05)
+    assert result.error("after") == pytest.approx(mae_after)
+    after_line = next(line for line in captured.out.splitlines() if line.startswith("all "))
+    assert float(after_line.split()[3]) == pytest.approx(kept[2], abs=0.05)
