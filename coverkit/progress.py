@@ -62,13 +62,24 @@ class Steps:
 
 
 def counted(items: Iterable[T], total: int, message: str, every: int = 1) -> Iterator[T]:
-    """Yield from ``items`` while printing ``message i/total`` on stderr every ``every`` items."""
+    """Yield from ``items`` while printing ``message i/total`` on stderr every ``every`` items.
+
+    On a terminal the count is rewritten in place on one line; otherwise (a log file, a pipe, a notebook's
+    captured stream) each count is a whole line, so that lines never run together.
+    """
+    stream = sys.stderr
+    in_place = _is_terminal(stream)
     for i, item in enumerate(items, start=1):
         if not _state["quiet"] and (i % every == 0 or i == total):
-            print(
-                f"\r{message} {i}/{total}",
-                end="" if i < total else "\n",
-                file=sys.stderr,
-                flush=True,
-            )
+            if in_place:
+                print(f"\r{message} {i}/{total}", end="" if i < total else "\n", file=stream, flush=True)
+            else:
+                print(f"{message} {i}/{total}", file=stream, flush=True)
         yield item
+
+
+def _is_terminal(stream) -> bool:
+    try:
+        return bool(stream.isatty())
+    except (AttributeError, ValueError):  # closed or replaced streams
+        return False

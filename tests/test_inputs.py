@@ -377,3 +377,29 @@ def test_calibration_log_names_the_round_kept_and_agrees_with_the_summary(demo_n
     assert result.error("after") == pytest.approx(mae_after)
     after_line = next(line for line in captured.out.splitlines() if line.startswith("all "))
     assert float(after_line.split()[3]) == pytest.approx(kept[2], abs=0.05)
+
+
+# -- progress in a log file ---------------------------------------------------------------------------------------
+
+
+def test_progress_counts_are_whole_lines_when_stderr_is_not_a_terminal(capsys):
+    """Common practice for log files: no carriage returns, one complete line per count."""
+    from coverkit.progress import counted, set_quiet
+
+    set_quiet(False)
+    assert list(counted(range(10), 10, "drive-time polygons", every=3)) == list(range(10))
+    err = capsys.readouterr().err
+    assert "\r" not in err
+    assert err.splitlines() == [f"drive-time polygons {i}/10" for i in (3, 6, 9, 10)]
+    assert err.endswith("\n")
+
+
+def test_progress_rewrites_one_line_on_a_terminal(monkeypatch, capsys):
+    import sys
+
+    from coverkit.progress import counted, set_quiet
+
+    set_quiet(False)
+    monkeypatch.setattr(sys.stderr, "isatty", lambda: True, raising=False)
+    list(counted(range(4), 4, "curve", every=2))
+    assert capsys.readouterr().err == "\rcurve 2/4\rcurve 4/4\n"
