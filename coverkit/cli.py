@@ -112,6 +112,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"coverkit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    parser.set_defaults(_commands=sub.choices)
 
     p = sub.add_parser(
         "network",
@@ -706,7 +707,10 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``coverkit`` command."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        # name the sub-command whose options were mistyped (argparse would blame the top-level command)
+        (args._commands.get(args.command) or parser).error(f"unrecognized arguments: {' '.join(extra)}")
     if not args.command:
         parser.print_help()
         return 2

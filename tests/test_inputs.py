@@ -403,3 +403,53 @@ def test_progress_rewrites_one_line_on_a_terminal(monkeypatch, capsys):
     monkeypatch.setattr(sys.stderr, "isatty", lambda: True, raising=False)
     list(counted(range(4), 4, "curve", every=2))
     assert capsys.readouterr().err == "\rcurve 2/4\rcurve 4/4\n"
+
+
+# -- availability time window, option errors ----------------------------------------------------------------------
+
+
+def test_availability_time_window_keeps_the_calls_pandas_keeps(demo_net_path, tmp_path):
+    """Reference: pandas selecting the incidents with start <= received_at < end, run through the same command."""
+    import pyogrio
+
+    src = pd.read_csv(DEMO / "incidents.csv")
+    stamps = pd.to_datetime(src["received_at"])
+    keep = src[(stamps >= "2026-03-01") & (stamps < "2026-06-01")]
+    assert 0 < len(keep) < len(src)
+    pre = tmp_path / "spring.csv"
+    keep.to_csv(pre, index=False)
+    common = ["availability", str(demo_net_path), "--bases", str(DEMO / "stations.csv"), "--minutes", "8",
+              "--service-min", "45", "--quiet"]  # fmt: skip
+    win, ref = tmp_path / "win.gpkg", tmp_path / "ref.gpkg"
+    assert main([*common, "--demand", str(DEMO / "incidents.csv"), "--start", "2026-03-01", "--end", "2026-06-01",
+                 "--out", str(win)]) == 0  # fmt: skip
+    assert main([*common, "--demand", str(pre), "--out", str(ref)]) == 0
+    a = pyogrio.read_dataframe(win, layer="summary")
+    b = pyogrio.read_dataframe(ref, layer="summary")
+    assert a["calls_per_h"].iloc[0] == pytest.approx(b["calls_per_h"].iloc[0])
+    assert a["calls_per_h"].iloc[0] == pytest.approx(len(keep) / ((stamps[keep.index].max() - stamps[keep.index].min())
+                                                                  .total_seconds() / 3600))  # fmt: skip
+    pd.testing.assert_frame_equal(
+        pyogrio.read_dataframe(win, layer="units"), pyogrio.read_dataframe(ref, layer="units")
+    )
+
+
+COVER_ARGS = ["n.gpkg", "--bases", "b.csv", "--demand", "d.csv", "--minutes", "8", "--out", "o.gpkg"]
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["availability", *COVER_ARGS, "--service-min", "45"],
+        ["cover", *COVER_ARGS],
+        ["network", "roads.osm", "--out", "n.gpkg"],
+        ["calibrate", "n.gpkg", "--observed", "o.csv", "--bases", "b.csv", "--out", "p.toml"],
+    ],
+)
+def test_an_unknown_option_names_its_subcommand(args, capsys):
+    with pytest.raises(SystemExit) as exc:
+        main([*args, "--bogus-option", "3"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert exc.value.code == 2 and len(err) == 1
+    assert err[0].startswith(f"coverkit {args[0]}: error: unrecognized arguments: --bogus-option 3")
+    assert f"coverkit {args[0]} --help" in err[0]
