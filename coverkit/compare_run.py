@@ -8,6 +8,7 @@ coverage before and after a scenario and writes the layers and a table; :func:`w
 
 from __future__ import annotations
 
+import shutil
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -17,6 +18,7 @@ import pandas as pd
 
 from coverkit import CAUTION
 from coverkit.atomic import write_gpkg_layers, write_text_atomic
+from coverkit.errors import CoverkitError
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import Steps
 from coverkit.scenario import (
@@ -147,10 +149,30 @@ def compare_study(
     into ``out_folder``, atomically. The report is not written here.
     """
     out = Path(out_folder)
-    out.mkdir(parents=True, exist_ok=True)
     steps = Steps(5, "compare")
     steps.step("study inputs")
+    # both files are checked before the output folder exists; a run that stops on bad input removes a folder it
+    # created (holding at most the network cache), so a rejected scenario leaves nothing behind
+    load_study(study_path)
     scenario = load_scenario(scenario_path)
+    created = not out.exists()
+    out.mkdir(parents=True, exist_ok=True)
+    try:
+        return _compare(study_path, scenario, out, cell_m, reach_m, steps)
+    except CoverkitError:
+        if created:
+            shutil.rmtree(out, ignore_errors=True)
+        raise
+
+
+def _compare(
+    study_path: str | Path,
+    scenario: Scenario,
+    out: Path,
+    cell_m: float | None,
+    reach_m: float | None,
+    steps: Steps,
+) -> CompareRun:
     inputs = study_inputs(study_path, cache_folder=out)
     study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
     kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]

@@ -453,3 +453,58 @@ def test_an_unknown_option_names_its_subcommand(args, capsys):
     assert exc.value.code == 2 and len(err) == 1
     assert err[0].startswith(f"coverkit {args[0]}: error: unrecognized arguments: --bogus-option 3")
     assert f"coverkit {args[0]} --help" in err[0]
+
+
+# -- compare: rejected inputs leave nothing behind ----------------------------------------------------------------
+
+COMPARE_STUDY = f"""
+[study]
+name = "compare inputs test"
+[roads]
+source = "{DEMO / "varrowby.osm.bz2"}"
+boundary = "{DEMO / "boundary.geojson"}"
+[bases]
+file = "{DEMO / "stations.csv"}"
+[[demand]]
+name = "calls"
+points = "{DEMO / "incidents.csv"}"
+kind = "incidents"
+WHERE_LINE
+[[standard]]
+name = "ALS 8 min"
+turnout_s = 60
+travel_s = 480
+"""
+
+
+@pytest.mark.parametrize(
+    ("where", "scenario", "needle"),
+    [
+        ("", '[scenario]\nname = "x"\n', "changes nothing"),
+        ("", '[scenario]\nname = "x"\n[[base_change]]\nremove = "S99"\n', "S99"),
+        ('where = "priorty = 1"', '[scenario]\nname = "x"\n[[base_change]]\nremove = "S3"\n', "'priorty'"),
+        ('where = "priority = = 1"', '[scenario]\nname = "x"\n[[base_change]]\nremove = "S3"\n', "character 12"),
+    ],
+)
+def test_compare_rejected_input_exits_2_and_leaves_no_folder(tmp_path, capsys, where, scenario, needle):
+    study = tmp_path / "study.toml"
+    study.write_text(COMPARE_STUDY.replace("WHERE_LINE", where))
+    scen = tmp_path / "scenario.toml"
+    scen.write_text(scenario)
+    out = tmp_path / "results" / "cmp"
+    code = main(["compare", str(study), str(scen), "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1 and needle in err[0], err
+    assert not out.exists()
+
+
+def test_compare_keeps_a_folder_that_was_there(tmp_path, capsys):
+    study = tmp_path / "study.toml"
+    study.write_text(COMPARE_STUDY.replace("WHERE_LINE", ""))
+    scen = tmp_path / "scenario.toml"
+    scen.write_text('[scenario]\nname = "x"\n[[base_change]]\nremove = "S99"\n')
+    out = tmp_path / "mine"
+    out.mkdir()
+    (out / "notes.txt").write_text("keep me")
+    assert main(["compare", str(study), str(scen), "--out", str(out), "--quiet"]) == 2
+    assert (out / "notes.txt").read_text() == "keep me"
