@@ -47,8 +47,16 @@ from coverkit.distance_time import KolesarFit, fit_kolesar, kolesar_time_s
 from coverkit.errors import FieldError, InputFileError, ModelError, OffNetworkError, ProfileError
 from coverkit.network.model import RoadNetwork
 from coverkit.network.profile import ClassSpeed, Profile, load_profile, profile_to_toml
-from coverkit.progress import note
-from coverkit.travel.points import lonlat_columns, read_points
+from coverkit.progress import note, warn
+from coverkit.travel.points import (
+    DEFAULT_MAX_REJECTED_SHARE,
+    check_rejected,
+    coordinate_fields,
+    lonlat_columns,
+    read_csv_text,
+    read_points,
+    rejected_text,
+)
 from coverkit.travel.routes import Routes, shortest_routes
 from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, snap_points
 
@@ -75,6 +83,8 @@ def read_observed(
     path: str | Path,
     base_ids: Iterable[str] | None = None,
     bases_name: str = "the bases file",
+    *,
+    max_rejected_share: float = DEFAULT_MAX_REJECTED_SHARE,
 ) -> pd.DataFrame:
     """Read an observed-travel-times CSV.
 
@@ -87,12 +97,17 @@ def read_observed(
         Known base ids; a row naming another base is an error. ``None`` skips the check.
     bases_name
         Name of the bases file, for messages.
+    max_rejected_share
+        Rows without a usable incident position (blank, not a number, out of range, 0,0) are left out with a
+        warning line; more than this share of them (0..1, default 1 %) stops the reading. The delimiter and the
+        coordinate column names are found as for any point file (:func:`coverkit.travel.points.read_points`).
 
     Returns
     -------
     pandas.DataFrame
         Columns ``line`` (CSV line number, header = 1), ``base_id`` (str), ``lon``, ``lat``, ``observed_s``
-        (float) and ``hour`` (Int64, missing as <NA>), in file order.
+        (float) and ``hour`` (Int64, missing as <NA>), in file order; ``attrs["rows_read"]`` and
+        ``attrs["rejected"]`` (records of ``line``, ``id`` = base id, ``reason``) for the rows left out.
 
     Raises
     ------
@@ -102,13 +117,10 @@ def read_observed(
     path = Path(path)
     if not path.is_file():
         raise InputFileError(f"observed-times file {path} not found; give a CSV with {', '.join(_REQUIRED)}[, hour].")
-    try:
-        df = pd.read_csv(path, dtype=str, skipinitialspace=True, keep_default_na=False)
-    except pd.errors.EmptyDataError:
-        raise InputFileError(f"{path} is empty; give a CSV with the header {','.join(_REQUIRED)}[,hour].") from None
-    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise InputFileError(f"{path} is not a readable CSV ({str(exc).splitlines()[0]}); fix the file.") from None
+    df, _delimiter = read_csv_text(path, "observed times", ",".join(_REQUIRED) + "[,hour]")
     df.columns = [str(c).strip().lower() for c in df.columns]
+    lon_col, lat_col = coordinate_fields(list(df.columns))
+    df = df.rename(columns={c: n for c, n in ((lon_col, "lon"), (lat_col, "lat")) if c is not None and c != n})
     missing = [c for c in _REQUIRED if c not in df.columns]
     if missing:
         raise FieldError(
@@ -117,13 +129,22 @@ def read_observed(
         )
     if len(df) == 0:
         raise InputFileError(f"{path} holds no observations; add rows of {','.join(_REQUIRED)}.")
-    line = np.arange(len(df)) + 2
+    rows_read = len(df)
+    lon, lat, reasons = lonlat_columns(df, path, give="the incident position in degrees", lenient=True)
+    bad_pos = ~pd.isna(reasons)
+    rejected = pd.DataFrame(
+        {"line": df.index.to_numpy()[bad_pos], "id": df["base_id"].to_numpy()[bad_pos], "reason": reasons[bad_pos]}
+    )
+    check_rejected(rejected, rows_read, max_rejected_share, path, "observations")
+    if len(rejected):
+        warn(f"{path}: {rejected_text(rejected, rows_read)}")
+    df, lon, lat = df[~bad_pos], lon[~bad_pos], lat[~bad_pos]
+    line = df.index.to_numpy()
     base = df["base_id"].astype(str).str.strip()
     blank = (base == "").to_numpy()
     if blank.any():
         i = int(np.flatnonzero(blank)[0])
         raise FieldError(f"{path}: line {line[i]} has no base_id; name the base each trip left from.")
-    lon, lat = lonlat_columns(df, path, give="the incident position in degrees")
     obs = pd.to_numeric(df["observed_s"].str.strip(), errors="coerce").to_numpy(dtype=float)
     bad = ~np.isfinite(obs)
     if bad.any():
@@ -161,7 +182,7 @@ def read_observed(
                 f"{path}: line {line[i]} names base '{base.iloc[i]}', which is not in {bases_name} (ids: {shown}); "
                 "fix the base_id or add the base."
             )
-    return pd.DataFrame(
+    out = pd.DataFrame(
         {
             "line": line,
             "base_id": base.to_numpy(dtype=object),
@@ -171,6 +192,9 @@ def read_observed(
             "hour": hour,
         }
     )
+    # plain values only: pandas compares and copies attrs in its operations
+    out.attrs = {"rows_read": rows_read, "rejected": rejected.to_dict("records")}
+    return out
 
 
 # ------------------------------------------------------------------------------------------------------------------
@@ -343,7 +367,8 @@ class CalibrationResult:
         s), ``routes_unchanged``, ``kept`` (the round whose factors are written; its ``mae_s`` is the error after).
     n_rows, n_off_network, n_unreachable, n_outside_hours
         Rows read, rows dropped because the incident is beyond the snap limit, because no route joins base and
-        incident, and because their hour was not selected.
+        incident, and because their hour was not selected. ``n_rejected``: rows the reader left out for want of
+        a usable position.
     source
         Name of the observed-times file (for the profile header).
     settings
@@ -369,6 +394,7 @@ class CalibrationResult:
     n_unreachable: int
     n_outside_hours: int
     source: str
+    n_rejected: int = 0
     settings: dict = field(default_factory=dict)
     network: RoadNetwork | None = field(default=None, repr=False, compare=False)
 
@@ -519,10 +545,12 @@ def calibrate_speeds(
     if not (0 < lo < 1 < hi and math.isfinite(hi)):
         raise FieldError(f"multiplier bounds ({lo:g}, {hi:g}) must satisfy 0 < low < 1 < high, e.g. (0.3, 3.0).")
     prof0 = net.profile if profile is None else profile if isinstance(profile, Profile) else load_profile(profile)
-    n_rows = len(observed)
+    # rows the reader left out for want of a position count among the rows read (see read_observed)
+    n_rejected = max(0, int(observed.attrs.get("rows_read", len(observed))) - len(observed))
+    n_rows = len(observed) + n_rejected
     obs = observed.reset_index(drop=True)
     if "line" not in obs.columns:
-        obs = obs.assign(line=np.arange(n_rows) + 2)
+        obs = obs.assign(line=np.arange(len(obs)) + 2)
 
     n_outside = 0
     if hours is not None:
@@ -761,6 +789,7 @@ def calibrate_speeds(
         route_status=status,
         rounds=rounds,
         n_rows=n_rows,
+        n_rejected=n_rejected,
         n_off_network=n_off,
         n_unreachable=n_unreach,
         n_outside_hours=n_outside,
@@ -933,6 +962,7 @@ def summary_text(result: CalibrationResult) -> str:
     lines = [
         f"observations  {result.n_used} used of {result.n_rows} ({result.n_off_network} off-network, "
         f"{result.n_unreachable} unreachable"
+        + (f", {result.n_rejected} without a usable position" if result.n_rejected else "")
         + (f", {result.n_outside_hours} outside the chosen hours" if result.n_outside_hours else "")
         + ")",
         f"fit           {result.iterations} rounds, routes {_STATUS_TEXT[result.route_status]}; " + _kept_text(result),

@@ -508,3 +508,21 @@ def test_compare_keeps_a_folder_that_was_there(tmp_path, capsys):
     (out / "notes.txt").write_text("keep me")
     assert main(["compare", str(study), str(scen), "--out", str(out), "--quiet"]) == 2
     assert (out / "notes.txt").read_text() == "keep me"
+
+
+def test_observed_times_with_tabs_xy_and_a_blank_position(tmp_path):
+    """Observed-times files are read like demand: tab-separated, X/Y columns, one row without a position left out
+    (ground truth by construction: the other rows equal the demo file's)."""
+    from coverkit.calibrate import read_observed
+
+    src = pd.read_csv(DEMO / "observed_times.csv", dtype=str)
+    src.loc[3, "lon"] = ""
+    path = tmp_path / "obs.txt"
+    src.rename(columns={"lon": "X", "lat": "Y"}).to_csv(path, sep="\t", index=False)
+    obs = read_observed(path)
+    assert len(obs) == len(src) - 1 and 5 not in set(obs["line"])
+    ref = src.drop(index=3)
+    np.testing.assert_allclose(obs["lon"], ref["lon"].astype(float))
+    np.testing.assert_allclose(obs["observed_s"], ref["observed_s"].astype(float))
+    assert obs.attrs["rows_read"] == len(src)
+    assert obs.attrs["rejected"] == [{"line": 5, "id": src.loc[3, "base_id"], "reason": "blank position"}]

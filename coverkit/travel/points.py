@@ -167,7 +167,8 @@ def rejected_text(rejected: pd.DataFrame, rows_read: int, what: str = "rows", ve
     why = ", ".join(f"{c:,} {r}" for r, c in counts.items())
     first = ", ".join(str(int(x)) for x in np.sort(rejected["line"].to_numpy())[:5]) + (" ..." if n > 5 else "")
     share = n / rows_read * 100 if rows_read else 0.0
-    return f"{n:,} of {rows_read:,} rows{' rejected' if verb else ''} ({share:.2g} %: {why}; at lines {first})"
+    at = "at lines" if n > 1 else "at line"
+    return f"{n:,} of {rows_read:,} rows{' rejected' if verb else ''} ({share:.2g} %: {why}; {at} {first})"
 
 
 def coordinate_fields(columns: list[str]) -> tuple[str | None, str | None]:
