@@ -893,15 +893,23 @@ def calibrate_files(
     observed_path: str | Path,
     bases_path: str | Path,
     profile: str | Path | Profile | None = None,
+    *,
+    max_rejected_share: float = DEFAULT_MAX_REJECTED_SHARE,
     **options: object,
 ) -> CalibrationResult:
     """:func:`calibrate_speeds` from files: a network GeoPackage, an observed-times CSV and a bases file.
 
-    ``options`` are the keyword options of :func:`calibrate_speeds` (``source`` is set to the observed file name).
+    ``max_rejected_share`` goes to :func:`read_observed`; ``options`` are the keyword options of
+    :func:`calibrate_speeds` (``source`` is set to the observed file name).
     """
     net = RoadNetwork.load(network_path)
     bases = read_points(bases_path, net.crs, what="bases")
-    observed = read_observed(observed_path, bases["id"].astype(str), bases_name=Path(bases_path).name)
+    observed = read_observed(
+        observed_path,
+        bases["id"].astype(str),
+        bases_name=Path(bases_path).name,
+        max_rejected_share=max_rejected_share,
+    )
     return calibrate_speeds(net, bases, observed, profile, source=Path(observed_path).name, **options)
 
 

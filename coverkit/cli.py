@@ -269,6 +269,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", "-o", type=Path, required=True, help="calibrated profile TOML to write")
     p.add_argument("--chart", type=Path, help="also write the diagnostic distance-time chart (PNG)")
     p.add_argument("--hours", help="only observations in these hours of day, e.g. 7-19 or 0,1,2")
+    p.add_argument(
+        "--max-rejected",
+        type=_share,
+        default=DEFAULT_MAX_REJECTED_SHARE,
+        help="stop when more than this share of observations has no usable position, 0..1 (0.01 = 1 %%)",
+    )
     _common(p)
 
     p = sub.add_parser(
@@ -654,7 +660,14 @@ def _hours(text: str | None) -> list[int] | None:
 def _cmd_calibrate(args: argparse.Namespace) -> int:
     from coverkit.calibrate import calibrate_files, calibration_chart, summary_text, write_calibrated_profile
 
-    result = calibrate_files(args.network, args.observed, args.bases, args.profile, hours=_hours(args.hours))
+    result = calibrate_files(
+        args.network,
+        args.observed,
+        args.bases,
+        args.profile,
+        hours=_hours(args.hours),
+        max_rejected_share=args.max_rejected,
+    )
     write_calibrated_profile(result, args.out)
     print(summary_text(result))
     if args.chart:

@@ -358,7 +358,7 @@ def load_demand(
         except Exception:
             kinds = set()
         if any("Polygon" in k for k in kinds):
-            raise FieldError(f"{path} holds polygons; give population_field (--population-field) to spread them.")
+            raise FieldError(f"{path} holds polygons; name the population field (population_field) to spread them.")
         x0, y0, x1, y1 = net.nodes.total_bounds
         m = EXTENT_MARGIN_M
         demand = demand_from_points(

@@ -60,14 +60,14 @@ def parse_fields(text: str) -> dict[str, str]:
     out: dict[str, str] = {}
     for part in filter(None, (p.strip() for p in text.split(","))):
         if "=" not in part:
-            raise FieldError(f"--fields: '{part}' is not key=FIELD; write e.g. class=ROADCLASS,speed=SPEED_MPH.")
+            raise FieldError(f"field mapping: '{part}' is not key=FIELD; write e.g. class=ROADCLASS,speed=SPEED_MPH.")
         key, value = (s.strip() for s in part.split("=", 1))
         allowed = (*FIELD_KEYS, "speed_unit", "oneway_forward", "oneway_backward", "class_map")
         if key not in allowed:
-            raise FieldError(f"--fields: unknown key '{key}'; allowed: {', '.join(allowed)}.")
+            raise FieldError(f"field mapping: unknown key '{key}'; allowed: {', '.join(allowed)}.")
         out[key] = value
     if "class" not in out:
-        raise FieldError("--fields must name the road class field, e.g. class=ROADCLASS.")
+        raise FieldError("the field mapping must name the road class field, e.g. class=ROADCLASS.")
     return out
 
 
@@ -76,7 +76,7 @@ def _class_map(fields: dict[str, str], profile: Profile) -> dict[str, str]:
     mapping.update({c: c for c in profile.road_classes})
     for pair in filter(None, fields.get("class_map", "").split(";")):
         if ":" not in pair:
-            raise FieldError(f"--fields class_map: '{pair}' is not VALUE:class; write e.g. class_map=LOC:residential.")
+            raise FieldError(f"field mapping, class_map: '{pair}' is not VALUE:class; write e.g. class_map=LOC:residential.")
         value, cls = (s.strip() for s in pair.split(":", 1))
         mapping[value.lower()] = cls
     return mapping
@@ -198,7 +198,7 @@ def read_centerlines(
     if "speed" in fields:
         unit = fields.get("speed_unit", "mph" if "mph" in fields["speed"].lower() else "kph").lower()
         if unit not in ("mph", "kph", "kmh", "km/h"):
-            raise FieldError(f"--fields speed_unit must be mph or kph, got '{unit}'.")
+            raise FieldError(f"field mapping: speed_unit must be mph or kph, got '{unit}'.")
         values = pd.to_numeric(gdf[fields["speed"]], errors="coerce").to_numpy(dtype=float)
         speed_kph = values * (KPH_PER_MPH if unit == "mph" else 1.0)
         speed_kph[~(speed_kph > 0)] = np.nan
@@ -214,7 +214,7 @@ def read_centerlines(
         if odd:
             raise FieldError(
                 f"{path}: one-way field '{fields['oneway']}' has value '{odd[0]}' that is not understood; "
-                f"name it with --fields ...,oneway_forward={odd[0]} or oneway_backward={odd[0]}."
+                f"add oneway_forward={odd[0]} or oneway_backward={odd[0]} to the field mapping."
             )
 
     def flag(key: str) -> np.ndarray:
