@@ -76,7 +76,7 @@ def _class_map(fields: dict[str, str], profile: Profile) -> dict[str, str]:
     mapping.update({c: c for c in profile.road_classes})
     for pair in filter(None, fields.get("class_map", "").split(";")):
         if ":" not in pair:
-            raise FieldError(f"field mapping, class_map: '{pair}' is not VALUE:class; write e.g. class_map=LOC:residential.")
+            raise FieldError(f"class_map '{pair}' is not VALUE:class; write e.g. class_map=LOC:residential.")
         value, cls = (s.strip() for s in pair.split(":", 1))
         mapping[value.lower()] = cls
     return mapping
