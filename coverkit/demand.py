@@ -346,6 +346,9 @@ def load_demand(
     line names the rejected rows, and ``attrs["rejected"]`` lists them.
     """
     path = Path(spec)
+    if where and (population_field or path.suffix.lower() in RASTER_SUFFIXES):
+        kind = "a population raster" if path.suffix.lower() in RASTER_SUFFIXES else "population polygons"
+        raise FieldError(f"{path} is {kind}; a filter (where) applies to point demand only - leave it out.")
     if path.suffix.lower() in RASTER_SUFFIXES:
         demand = demand_from_raster(path, net.crs)
     elif population_field:

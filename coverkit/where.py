@@ -62,6 +62,8 @@ def _tokens(text: str) -> list[_Tok]:
         if not m:
             if text[i] in "'\"":
                 raise _Syntax(i + 1, f"a quote {text[i]} that is never closed")
+            if text[i] in "&|":
+                raise _Syntax(i + 1, f"'{text[i]}' is not an operator here; write {'AND' if text[i] == '&' else 'OR'}")
             raise _Syntax(i + 1, f"unexpected character '{text[i]}'")
         kind, raw = m.lastgroup, m.group()
         if kind == "number":

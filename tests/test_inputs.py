@@ -129,6 +129,7 @@ def test_filter_on_a_csv_reads_blanks_as_null(tmp_path, incident_rows):
         ("priority = NULL", "IS NULL"),
         ("priority; DROP TABLE t", "character 9"),
         ("__import__('os').system('true')", "character 17"),
+        ("priority = 1 && kind = 'EMS'", "write AND"),
     ],
 )
 def test_filter_syntax_error_is_one_line_with_the_position(incident_rows, where, needle):
@@ -137,6 +138,7 @@ def test_filter_syntax_error_is_one_line_with_the_position(incident_rows, where,
         filter_mask(df, where)
     text = _one_line(exc)
     assert needle in text and "syntax error" in text and "e.g." in text
+    assert text.startswith(f'filter "{where}": syntax error at character ')
 
 
 def test_filter_unknown_field_names_it_and_the_fields_there_are(incident_rows):
@@ -147,6 +149,15 @@ def test_filter_unknown_field_names_it_and_the_fields_there_are(incident_rows):
     assert "'prio'" in text and "calls.csv" in text
     for field in df.columns:
         assert field in text
+
+
+def test_a_filter_on_raster_demand_is_refused(demo_net_path):
+    from coverkit.demand import load_demand
+    from coverkit.network import RoadNetwork
+
+    with pytest.raises(FieldError) as exc:
+        load_demand(DEMO / "population.tif", RoadNetwork.load(demo_net_path), where="priority = 1")
+    assert "point demand only" in _one_line(exc)
 
 
 # -- CSV dialects and coordinate names ----------------------------------------------------------------------------
