@@ -17,6 +17,7 @@ from coverkit import __version__
 from coverkit.coverage import Standard, default_horizon_s
 from coverkit.errors import StudyError
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
+from coverkit.travel.points import rejected_table, rejected_text
 
 # -- schema -----------------------------------------------------------------------------------------------------------
 # key -> (type(s), required). Types are Python types accepted after TOML parsing.
@@ -584,6 +585,9 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             layers[f"priority_{slug(name)}_{s}"] = table
         for name, table in run.per_base.items():
             layers[f"bases_{slug(name)}_{s}"] = table
+    for name, d in demand.items():  # point rows set aside for want of a usable position
+        if d.attrs.get("rejected"):
+            layers[f"rejected_{slug(name)}"] = rejected_table(d.attrs["rejected"])
     site_plan = None
     if study.siting:
         from coverkit.site_plan import build_problem, generate_candidates, solve
@@ -686,6 +690,10 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
 def headline_lines(run: StudyRun) -> list[str]:
     """The headline numbers of a study, one line each, for the CLI."""
     lines = [f"{run.study.name}", ""]
+    for name, d in run.demand.items():
+        if d.attrs.get("rejected"):
+            text = rejected_text(rejected_table(d.attrs["rejected"]), d.attrs["rows_read"], verb=False)
+            lines.append(f"{name}: {text} rejected; see layer rejected_{slug(name)}")
     for r in run.summary.itertuples(index=False):
         frac = r.fractile_response_s
         frac_text = "not reached" if frac == float("inf") else f"{frac / 60:.1f} min"
