@@ -182,6 +182,18 @@ def test_delimiter_and_coordinate_names_are_found(tmp_path, sep, lon, lat):
     assert pts.attrs["read"] == f"calls.csv: 300 rows, {sep_name}-separated, lon from '{lon}', lat from '{lat}'"
 
 
+def test_decimal_commas_and_windows_1252_text(tmp_path):
+    """A semicolon export with decimal commas and a Windows-1252 name; pandas with ``decimal=","`` and
+    ``encoding="cp1252"`` is the reference."""
+    path = tmp_path / "cad.csv"
+    path.write_bytes("id;lon;lat;name\n1;-35,0512;41,0023;Caf\xe9 Rue\n2;-34,98;40,9;Quai\n".encode("cp1252"))
+    ref = pd.read_csv(path, sep=";", decimal=",", encoding="cp1252")
+    pts = read_points(path, "EPSG:4326", what="demand points", max_rejected_share=0.0)
+    np.testing.assert_allclose(pts.geometry.x, ref["lon"])
+    np.testing.assert_allclose(pts.geometry.y, ref["lat"])
+    assert pts["name"].tolist() == ref["name"].tolist()
+
+
 def test_missing_coordinates_name_the_accepted_names(tmp_path):
     path = tmp_path / "calls.csv"
     pd.DataFrame({"id": [1], "east": [1.0], "north": [2.0]}).to_csv(path, sep=";", index=False)
@@ -262,6 +274,10 @@ def test_bases_stay_strict(tmp_path):
     with pytest.raises(FieldError) as exc:
         read_points(path, CRS, what="bases")
     assert "line 3" in _one_line(exc)
+    pd.DataFrame({"id": ["A", "B"], "lon": ["-35.0", "0"], "lat": ["41.0", "0"]}).to_csv(path, index=False)
+    with pytest.raises(FieldError) as exc:
+        read_points(path, CRS, what="bases")
+    assert "line 3 is at 0,0" in _one_line(exc)
 
 
 @pytest.fixture(scope="module")

@@ -17,6 +17,7 @@ import shapely
 from pyproj import CRS
 
 from coverkit.errors import FieldError, InputFileError
+from coverkit.progress import note
 
 _CSV_SUFFIXES = {".csv", ".txt"}
 
@@ -191,11 +192,17 @@ def read_csv_text(path: Path, what: str, header: str) -> tuple[pd.DataFrame, str
     -------
     df, delimiter
     """
+    encoding = "utf-8-sig"
     try:
-        with open(path, encoding="utf-8-sig", newline="") as fh:
+        with open(path, encoding=encoding, newline="") as fh:
             first = fh.readline()
-    except UnicodeDecodeError as exc:
-        raise InputFileError(f"{path} is not a readable CSV ({exc.reason}); save it as UTF-8 text.") from None
+            fh.read()
+    except UnicodeDecodeError:
+        # spreadsheet and CAD exports on Windows are often Windows-1252; every byte decodes, numbers are unchanged
+        encoding = "cp1252"
+        note(f"{path.name}: not UTF-8 text, read as Windows-1252")
+        with open(path, encoding=encoding, errors="replace", newline="") as fh:
+            first = fh.readline()
     counts = {d: first.count(d) for d in CSV_DELIMITERS}
     delimiter = max(CSV_DELIMITERS, key=lambda d: (counts[d], -CSV_DELIMITERS.index(d)))
     try:
@@ -206,11 +213,12 @@ def read_csv_text(path: Path, what: str, header: str) -> tuple[pd.DataFrame, str
             skipinitialspace=True,
             keep_default_na=False,
             skip_blank_lines=False,
-            encoding="utf-8-sig",
+            encoding=encoding,
+            encoding_errors="replace",
         )
     except pd.errors.EmptyDataError:
         raise InputFileError(f"{path} is empty; give a CSV with a header line {header}.") from None
-    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
+    except pd.errors.ParserError as exc:
         raise InputFileError(f"{path} is not a readable CSV ({str(exc).splitlines()[0]}); fix the file.") from None
     df.columns = [str(c).strip() for c in df.columns]
     df.index = np.arange(len(df)) + 2
@@ -247,8 +255,8 @@ def lonlat_columns(
     Raises
     ------
     FieldError
-        (not lenient) One line naming the file, the line and the column: a value that is not a number, or one
-        outside -180..180 (lon) / -90..90 (lat).
+        (not lenient) One line naming the file, the line and the column: a value that is not a number, one
+        outside -180..180 (lon) / -90..90 (lat), or a position at 0,0.
     """
     lines = df.index.to_numpy() if df.index.dtype.kind in "iu" and len(df) and df.index[0] >= 2 else None
     if lines is None:
@@ -257,6 +265,8 @@ def lonlat_columns(
     reasons = np.full(len(df), None, dtype=object)
     for col, name, bound in ((lon_field, "lon", 180.0), (lat_field, "lat", 90.0)):
         text = df[col].astype(str).str.strip()
+        # a decimal comma (41,05), as semicolon-separated exports write numbers in many locales
+        text = text.str.replace(r"^([+-]?\d+),(\d+)$", r"\1.\2", regex=True)
         val = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, copy=True)
         bad = ~np.isfinite(val)
         if lenient:
@@ -278,9 +288,15 @@ def lonlat_columns(
                 f"give {give} (EPSG:4326) and check that lon and lat are not swapped."
             )
         coords[name] = val
-    if not lenient:
-        return coords["lon"], coords["lat"]
     zero = (coords["lon"] == 0) & (coords["lat"] == 0)
+    if not lenient:
+        if zero.any():
+            row = int(np.flatnonzero(zero)[0])
+            raise FieldError(
+                f"{path}: line {lines[row]} is at 0,0, the usual placeholder of a missing position; give {give} "
+                "(EPSG:4326)."
+            )
+        return coords["lon"], coords["lat"]
     reasons[zero & pd.isna(reasons)] = "at 0,0"
     ok = pd.isna(reasons)
     coords["lon"][~ok] = 0.0
@@ -327,7 +343,8 @@ def _read_csv(path: Path, id_field: str, what: str, lenient: bool) -> tuple[gpd.
             df[col] = units.astype(int)
     df = df.drop(columns=[lon_col, lat_col])
     read_text = (
-        f"{path.name}: {len(df):,} rows, {_DELIMITER_NAMES[delimiter]}-separated, lon from '{lon_col}', "
+        f"{path.name}: {len(df):,} row{'' if len(df) == 1 else 's'}, {_DELIMITER_NAMES[delimiter]}-separated, "
+        f"lon from '{lon_col}', "
         f"lat from '{lat_col}'"
     )
     gdf = gpd.GeoDataFrame(df, geometry=gpd.points_from_xy(lon, lat), crs="EPSG:4326", index=df.index)
