@@ -116,7 +116,7 @@ def _unknown_classes(
             f"{path}: {int(unknown.sum()):,} of {len(unknown):,} features ({len_share * 100:.0f} % of the length) "
             f"have values in field '{fields['class']}' that are not road classes: {shown}{more}; map them in the "
             f"field mapping with class_map={example} (classes of profile '{profile.name}': "
-            f"{', '.join(profile.road_classes)})."
+            f"{', '.join(profile.road_classes)}; map values that are not roads to e.g. path to leave them out)."
         )
     return {str(v): int(c) for v, c in counts.items()}
 
