@@ -553,3 +553,13 @@ def test_observed_times_with_tabs_xy_and_a_blank_position(tmp_path):
     np.testing.assert_allclose(obs["observed_s"], ref["observed_s"].astype(float))
     assert obs.attrs["rows_read"] == len(src)
     assert obs.attrs["rejected"] == [{"line": 5, "id": src.loc[3, "base_id"], "reason": "blank position"}]
+
+
+def test_a_class_map_to_a_misspelt_class_is_refused(tmp_path):
+    from coverkit.network import build_network
+
+    path = _coded_centerlines(tmp_path, ["LOC"] * 5)
+    with pytest.raises(FieldError) as exc:
+        build_network(path, "emergency", fields={"class": "RDCLASS", "class_map": "LOC:residentail"})
+    text = _one_line(exc)
+    assert "'residentail' is not a class of profile 'emergency'" in text and "residential" in text

@@ -71,6 +71,13 @@ def parse_fields(text: str) -> dict[str, str]:
     return out
 
 
+#: Classes for ways that are not for motor vehicles (OpenStreetMap ``highway`` values, from memory of the OSM wiki's
+#: Key:highway page): a ``class_map`` may send values there to leave those features out.
+NOT_DRIVABLE_CLASSES = frozenset(
+    {"path", "footway", "cycleway", "bridleway", "steps", "pedestrian", "track", "construction", "proposed", "rail"}
+)
+
+
 def _class_map(fields: dict[str, str], profile: Profile) -> dict[str, str]:
     mapping = {k: v for k, v in CLASS_ALIASES.items()}
     mapping.update({c: c for c in profile.road_classes})
@@ -78,6 +85,11 @@ def _class_map(fields: dict[str, str], profile: Profile) -> dict[str, str]:
         if ":" not in pair:
             raise FieldError(f"class_map '{pair}' is not VALUE:class; write e.g. class_map=LOC:residential.")
         value, cls = (s.strip() for s in pair.split(":", 1))
+        if cls not in profile.road_classes and cls not in NOT_DRIVABLE_CLASSES:
+            raise FieldError(
+                f"class_map {value}:{cls}: '{cls}' is not a class of profile '{profile.name}' "
+                f"({', '.join(profile.road_classes)}); map roads to one of them, or to path to leave features out."
+            )
         mapping[value.lower()] = cls
     return mapping
 
