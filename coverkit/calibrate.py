@@ -50,6 +50,7 @@ from coverkit.network.profile import ClassSpeed, Profile, load_profile, profile_
 from coverkit.progress import note, warn
 from coverkit.travel.points import (
     DEFAULT_MAX_REJECTED_SHARE,
+    DELIMITER_NAMES,
     check_rejected,
     coordinate_fields,
     lonlat_columns,
@@ -117,9 +118,11 @@ def read_observed(
     path = Path(path)
     if not path.is_file():
         raise InputFileError(f"observed-times file {path} not found; give a CSV with {', '.join(_REQUIRED)}[, hour].")
-    df, _delimiter = read_csv_text(path, "observed times", ",".join(_REQUIRED) + "[,hour]")
-    df.columns = [str(c).strip().lower() for c in df.columns]
+    df, delimiter = read_csv_text(path, "observed times", ",".join(_REQUIRED) + "[,hour]")
     lon_col, lat_col = coordinate_fields(list(df.columns))
+    given = {"lon": lon_col, "lat": lat_col}
+    df.columns = [str(c).strip().lower() for c in df.columns]
+    lon_col, lat_col = (c.lower() if c else None for c in (lon_col, lat_col))
     df = df.rename(columns={c: n for c, n in ((lon_col, "lon"), (lat_col, "lat")) if c is not None and c != n})
     missing = [c for c in _REQUIRED if c not in df.columns]
     if missing:
@@ -130,6 +133,10 @@ def read_observed(
     if len(df) == 0:
         raise InputFileError(f"{path} holds no observations; add rows of {','.join(_REQUIRED)}.")
     rows_read = len(df)
+    note(
+        f"observed times {path.name}: {rows_read:,} rows, {DELIMITER_NAMES[delimiter]}-separated, "
+        f"lon from '{given['lon']}', lat from '{given['lat']}'"
+    )
     lon, lat, reasons = lonlat_columns(df, path, give="the incident position in degrees", lenient=True)
     bad_pos = ~pd.isna(reasons)
     rejected = pd.DataFrame(

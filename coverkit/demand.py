@@ -19,7 +19,7 @@ from pyproj import CRS, Transformer
 
 from coverkit.errors import FieldError, InputFileError
 from coverkit.network.model import RoadNetwork
-from coverkit.progress import note, warn
+from coverkit.progress import warn
 from coverkit.travel.points import (
     DEFAULT_MAX_REJECTED_SHARE,
     check_rejected,
@@ -376,7 +376,6 @@ def load_demand(
             max_rejected_share=max_rejected_share,
             area_bounds=(x0 - m, y0 - m, x1 + m, y1 + m),
         )
-        note(f"demand {demand.attrs['read']}")
         rejected = rejected_table(demand.attrs["rejected"])
         if len(rejected):
             warn(f"{path}: {rejected_text(rejected, demand.attrs['rows_read'])}")

@@ -30,7 +30,8 @@ CSV_DELIMITERS = (",", ";", "\t")
 #: Default share of rows a point file may lose to bad coordinates before the import stops (1 %).
 DEFAULT_MAX_REJECTED_SHARE = 0.01
 
-_DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab"}
+#: Names of the delimiters, for messages.
+DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab"}
 
 
 def read_points(
@@ -125,6 +126,7 @@ def read_points(
             raise InputFileError(f"{path} holds no {what} with a position; give lon and lat on every row.")
     out = gdf.to_crs(CRS.from_user_input(crs)).reset_index(drop=True)
     out.attrs["read"] = read_text
+    note(f"{what} {read_text}")
     if lenient:
         # plain lists: pandas compares and deep-copies attrs in its operations, which frames and arrays break
         out.attrs["rejected"] = rejected.to_dict("records")
@@ -323,7 +325,7 @@ def _read_csv(path: Path, id_field: str, what: str, lenient: bool) -> tuple[gpd.
     if missing:
         names = {"lon": "/".join(LON_NAMES), "lat": "/".join(LAT_NAMES)}
         raise FieldError(
-            f"{path} has no column '{missing[0]}' (columns: {', '.join(df.columns)}; {_DELIMITER_NAMES[delimiter]}-"
+            f"{path} has no column '{missing[0]}' (columns: {', '.join(df.columns)}; {DELIMITER_NAMES[delimiter]}-"
             f"separated); a {what} CSV needs {id_field} and the position in degrees (EPSG:4326) in columns named "
             f"{names['lon']} and {names['lat']}."
         )
@@ -343,7 +345,7 @@ def _read_csv(path: Path, id_field: str, what: str, lenient: bool) -> tuple[gpd.
             df[col] = units.astype(int)
     df = df.drop(columns=[lon_col, lat_col])
     read_text = (
-        f"{path.name}: {len(df):,} row{'' if len(df) == 1 else 's'}, {_DELIMITER_NAMES[delimiter]}-separated, "
+        f"{path.name}: {len(df):,} row{'' if len(df) == 1 else 's'}, {DELIMITER_NAMES[delimiter]}-separated, "
         f"lon from '{lon_col}', "
         f"lat from '{lat_col}'"
     )
