@@ -42,7 +42,7 @@ _TOKEN = re.compile(
 
 @dataclass(frozen=True)
 class _Tok:
-    kind: str  # number, string, field, op, punct, kw, end
+    kind: str  # number, string, field, qfield (double-quoted field), op, punct, kw, end
     value: object
     pos: int  # 1-based character position in the filter text
 
@@ -71,7 +71,7 @@ def _tokens(text: str) -> list[_Tok]:
         elif kind == "string":
             out.append(_Tok("string", raw[1:-1].replace("''", "'"), i + 1))
         elif kind == "quoted":
-            out.append(_Tok("field", raw[1:-1].replace('""', '"'), i + 1))
+            out.append(_Tok("qfield", raw[1:-1].replace('""', '"'), i + 1))
         elif kind == "name":
             up = raw.upper()
             out.append(_Tok("kw", up, i + 1) if up in _KEYWORDS else _Tok("field", raw, i + 1))
@@ -86,7 +86,7 @@ def _tokens(text: str) -> list[_Tok]:
 
 # The tree: tuples ("or", a, b), ("and", a, b), ("not", a), ("cmp", op, left, right), ("in", operand, values, negated),
 # ("between", operand, lo, hi, negated), ("like", operand, pattern, negated), ("null", operand, negated);
-# operands are ("field", name) or ("lit", value).
+# operands are ("field", name, position, double-quoted) or ("lit", value).
 
 
 class _Parser:
@@ -192,9 +192,9 @@ class _Parser:
 
     def operand(self, after: str | None = None) -> tuple:
         tok = self.tok
-        if tok.kind == "field":
+        if tok.kind in ("field", "qfield"):
             self.take()
-            return ("field", tok.value, tok.pos)
+            return ("field", tok.value, tok.pos, tok.kind == "qfield")
         if tok.kind == "kw" and tok.value == "NULL":
             fix = "IS NULL" if after == "=" else "IS NOT NULL" if after == "<>" else "IS NULL or IS NOT NULL"
             raise _Syntax(tok.pos, f"a comparison with NULL is never true; write {fix}")
@@ -271,15 +271,16 @@ class _Evaluator:
         self.df, self.fields, self.text, self.source = df, fields, text, source
         self.n = len(df)
 
-    def field(self, name: str, pos: int) -> pd.Series:
+    def field(self, name: str, pos: int, quoted: bool = False) -> pd.Series:
         if name in self.fields:
             col = name
         else:
             same = [f for f in self.fields if f.lower() == name.lower()]
             if len(same) != 1:
+                hint = "; text values go in single quotes, e.g. kind = 'EMS'" if quoted else ""
                 raise FieldError(
                     f"filter \"{self.text}\": {self.source} has no field '{name}' (character {pos}); "
-                    f"fields: {', '.join(self.fields)}."
+                    f"fields: {', '.join(self.fields)}{hint}."
                 )
             col = same[0]
         s = self.df[col]
@@ -289,7 +290,7 @@ class _Evaluator:
         return text.mask(text == "")
 
     def value(self, node: tuple) -> pd.Series | object:
-        return self.field(node[1], node[2]) if node[0] == "field" else node[1]
+        return self.field(node[1], node[2], node[3]) if node[0] == "field" else node[1]
 
     def cond(self, node: tuple) -> tuple[np.ndarray, np.ndarray]:
         kind = node[0]

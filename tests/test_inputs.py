@@ -141,6 +141,14 @@ def test_filter_syntax_error_is_one_line_with_the_position(incident_rows, where,
     assert text.startswith(f'filter "{where}": syntax error at character ')
 
 
+def test_double_quoted_fields_and_a_hint_for_double_quoted_text(tmp_path):
+    df = pd.DataFrame({"call type": ["EMS", "Fire", "EMS"], "kind": ["a", "b", "c"]})
+    assert filter_mask(df, "\"call type\" = 'EMS'").tolist() == [True, False, True]
+    with pytest.raises(FieldError) as exc:
+        filter_mask(df, 'kind = "EMS"')
+    assert "no field 'EMS'" in _one_line(exc) and "single quotes" in _one_line(exc)
+
+
 def test_filter_unknown_field_names_it_and_the_fields_there_are(incident_rows):
     df, _ = incident_rows
     with pytest.raises(FieldError) as exc:
