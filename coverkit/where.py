@@ -218,11 +218,7 @@ class _Parser:
 
 
 def _show(tok: _Tok) -> str:
-    if tok.kind == "end":
-        return "the end of the filter"
-    if tok.kind == "string":
-        return f"'{tok.value}'"
-    return f"'{tok.value}'"
+    return "the end of the filter" if tok.kind == "end" else f"'{tok.value}'"
 
 
 def parse_filter(text: str) -> tuple:
