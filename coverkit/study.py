@@ -15,9 +15,10 @@ from typing import Any
 
 from coverkit import __version__
 from coverkit.coverage import Standard, default_horizon_s
-from coverkit.errors import StudyError
+from coverkit.errors import CoverkitError, StudyError
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
-from coverkit.travel.points import rejected_table, rejected_text
+from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE, rejected_table, rejected_text
+from coverkit.where import parse_filter
 
 # -- schema -----------------------------------------------------------------------------------------------------------
 # key -> (type(s), required). Types are Python types accepted after TOML parsing.
@@ -48,6 +49,7 @@ SCHEMA: dict[str, Schema] = {
         "end": (str, False),
         "kind": (str, False),
         "snap_m": (_NUM, False),
+        "max_rejected_share": (_NUM, False),
     },
     "standard": {
         "name": (str, True),
@@ -248,6 +250,13 @@ def load_study(path: str | Path) -> Study:
         kind = item.get("kind", "incidents" if src_kind == "points" else "residents")
         if kind not in DEMAND_KINDS:
             raise StudyError(f"{where}: {key}.kind must be one of {', '.join(DEMAND_KINDS)}, got '{kind}'.")
+        if "where" in item:  # a filter's syntax is checked before any data is read
+            try:
+                parse_filter(item["where"])
+            except CoverkitError as exc:
+                raise StudyError(f"{where}: {key}.where: {exc}") from None
+        if not 0 <= item.get("max_rejected_share", 0) <= 1:
+            raise StudyError(f"{where}: {key}.max_rejected_share must be a share 0..1 (0.01 = 1 %).")
         opts = {k: v for k, v in item.items() if k not in ("name", "raster", "polygons", "points", "kind", "snap_m")}
         demand.append(
             DemandSpec(
@@ -459,6 +468,7 @@ def load_inputs(study: Study, net: Any) -> tuple[Any, dict[str, Any], dict[str, 
             time_field=o.get("time_field"),
             start=o.get("start"),
             end=o.get("end"),
+            max_rejected_share=float(o.get("max_rejected_share", DEFAULT_MAX_REJECTED_SHARE)),
         )
     kinds = {spec.name: spec.kind for spec in study.demand}
     snaps = {spec.name: spec.snap_m for spec in study.demand}

@@ -571,3 +571,24 @@ def test_a_class_map_to_a_misspelt_class_is_refused(tmp_path):
         build_network(path, "emergency", fields={"class": "RDCLASS", "class_map": "LOC:residentail"})
     text = _one_line(exc)
     assert "'residentail' is not a class of profile 'emergency'" in text and "residential" in text
+
+
+def test_study_demand_takes_its_own_rejected_share(demo_net_path, tmp_path):
+    from coverkit.network import RoadNetwork
+    from coverkit.study import load_inputs, load_study
+
+    src = pd.read_csv(DEMO / "incidents.csv", dtype=str)
+    src.loc[[4, 9], "lon"] = ""
+    calls = tmp_path / "calls.csv"
+    src.to_csv(calls, index=False)
+    text = COMPARE_STUDY.replace(str(DEMO / "incidents.csv"), str(calls))
+    study = tmp_path / "study.toml"
+    study.write_text(text.replace("WHERE_LINE", "max_rejected_share = 0.0001"))
+    net = RoadNetwork.load(demo_net_path)
+    with pytest.raises(FieldError) as exc:
+        load_inputs(load_study(study), net)
+    assert "2 of 6,042 rows rejected" in _one_line(exc) and "0.01 % allowed" in _one_line(exc)
+    study.write_text(text.replace("WHERE_LINE", ""))
+    _, demand, _, _ = load_inputs(load_study(study), net)
+    assert len(demand["calls"]) == len(src) - 2
+    assert [r["line"] for r in demand["calls"].attrs["rejected"]] == [6, 11]
