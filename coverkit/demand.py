@@ -242,7 +242,7 @@ def demand_from_points(
         gdf = _apply_time_window(gdf, path, time_field or "received_at", start, end)
     if len(gdf) == 0:
         cond = " and ".join(x for x in (where, f"time in [{start}, {end})" if (start or end) else None) if x)
-        raise FieldError(f"{path}: no demand point left after the filter ({cond}) out of {n_read}; widen the filter.")
+        raise FieldError(f"{path}: no demand point left after the filter ({cond}) out of {n_read:,}; widen the filter.")
     weight_col = weight_field or ("weight" if "weight" in gdf.columns else None)
     if weight_col:
         if weight_col not in gdf.columns:

@@ -277,9 +277,9 @@ def lonlat_columns(
             reasons[bad & ~blank & pd.isna(reasons)] = f"{name} not a number"
         elif bad.any():
             row = int(np.flatnonzero(bad)[0])
-            raise FieldError(
-                f"{path}: line {lines[row]} has {col} '{df[col].iloc[row]}', not a number; give {give} (EPSG:4326)."
-            )
+            value = str(df[col].iloc[row]).strip()
+            has = f"has {col} '{value}', not a number" if value else f"has no {col}"
+            raise FieldError(f"{path}: line {lines[row]} {has}; give {give} (EPSG:4326).")
         out = np.abs(val) > bound
         if lenient:
             reasons[out & pd.isna(reasons)] = f"{name} outside -{bound:g}..{bound:g}"
