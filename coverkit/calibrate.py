@@ -51,11 +51,13 @@ from coverkit.progress import note, warn
 from coverkit.travel.points import (
     DEFAULT_MAX_REJECTED_SHARE,
     DELIMITER_NAMES,
+    RejectedRows,
     check_rejected,
     coordinate_fields,
     lonlat_columns,
     read_csv_text,
     read_points,
+    rejected_table,
     rejected_text,
 )
 from coverkit.travel.routes import Routes, shortest_routes
@@ -107,8 +109,8 @@ def read_observed(
     -------
     pandas.DataFrame
         Columns ``line`` (CSV line number, header = 1), ``base_id`` (str), ``lon``, ``lat``, ``observed_s``
-        (float) and ``hour`` (Int64, missing as <NA>), in file order; ``attrs["rows_read"]`` and
-        ``attrs["rejected"]`` (records of ``line``, ``id`` = base id, ``reason``) for the rows left out.
+        (float) and ``hour`` (Int64, missing as <NA>), in file order; ``attrs["rejected"]`` (a
+        :class:`~coverkit.travel.points.RejectedRows`, ``id`` = base id) for the rows left out.
 
     Raises
     ------
@@ -199,8 +201,7 @@ def read_observed(
             "hour": hour,
         }
     )
-    # plain values only: pandas compares and copies attrs in its operations
-    out.attrs = {"rows_read": rows_read, "rejected": rejected.to_dict("records")}
+    out.attrs["rejected"] = RejectedRows(rejected_table(rejected), rows_read)
     return out
 
 
@@ -553,7 +554,7 @@ def calibrate_speeds(
         raise FieldError(f"multiplier bounds ({lo:g}, {hi:g}) must satisfy 0 < low < 1 < high, e.g. (0.3, 3.0).")
     prof0 = net.profile if profile is None else profile if isinstance(profile, Profile) else load_profile(profile)
     # rows the reader left out for want of a position count among the rows read (see read_observed)
-    n_rejected = max(0, int(observed.attrs.get("rows_read", len(observed))) - len(observed))
+    n_rejected = len(observed.attrs["rejected"]) if "rejected" in observed.attrs else 0
     n_rows = len(observed) + n_rejected
     obs = observed.reset_index(drop=True)
     if "line" not in obs.columns:

@@ -625,15 +625,11 @@ def _cmd_availability(args: argparse.Namespace) -> int:
 
 def _rejected(demand, layers: dict) -> str:
     """Add the ``rejected`` layer when point demand rows were set aside; the summary line about them."""
-    from coverkit.travel.points import rejected_table, rejected_text
-
-    if "rejected" not in demand.attrs:
+    rejected = demand.attrs.get("rejected")
+    if not rejected:
         return ""
-    table = rejected_table(demand.attrs["rejected"])
-    if not len(table):
-        return ""
-    layers["rejected"] = table
-    return f"{rejected_text(table, demand.attrs['rows_read'], verb=False)}; see layer rejected"
+    layers["rejected"] = rejected.table
+    return f"{rejected.text(verb=False)}; see layer rejected"
 
 
 def _hours(text: str | None) -> list[int] | None:

@@ -22,10 +22,9 @@ from coverkit.network.model import RoadNetwork
 from coverkit.progress import warn
 from coverkit.travel.points import (
     DEFAULT_MAX_REJECTED_SHARE,
+    RejectedRows,
     check_rejected,
-    read_points,
-    rejected_table,
-    rejected_text,
+    read_point_rows,
 )
 from coverkit.where import filter_mask
 
@@ -197,7 +196,8 @@ def demand_from_points(
         Keep points whose timestamp in ``time_field`` lies in ``[start, end)`` (ISO 8601).
     max_rejected_share
         Rows with no usable position (blank, not a number, out of range, 0,0) or outside ``area_bounds`` are set
-        aside and listed in ``attrs["rejected"]`` (``line``, ``id``, ``reason``); the import stops when more than
+        aside and listed in ``attrs["rejected"]`` (a :class:`~coverkit.travel.points.RejectedRows`); the import
+        stops when more than
         this share of the rows (0..1, default 1 %) is rejected. Rejected rows are counted before the filter.
     area_bounds
         ``(xmin, ymin, xmax, ymax)`` in ``crs``: points outside are rejected as outside the study area.
@@ -205,14 +205,15 @@ def demand_from_points(
     Returns
     -------
     geopandas.GeoDataFrame
-        ``id``, ``weight``, ``source``, the file's other fields, point geometry; ``attrs["rejected"]``,
-        ``attrs["rows_read"]`` and ``attrs["read"]`` (one line: rows, delimiter, coordinate columns).
+        ``id``, ``weight``, ``source``, the file's other fields, point geometry; ``attrs["rejected"]`` and
+        ``attrs["read"]`` (one line: rows, delimiter, coordinate columns).
     """
-    gdf = read_points(
+    gdf, kept, lines = read_point_rows(
         path, crs, id_field=id_field, what="demand points", layer=layer, max_rejected_share=max_rejected_share
     )
-    attrs = dict(gdf.attrs)
-    rejected, rows_read = rejected_table(attrs["rejected"]), attrs["rows_read"]
+    read_text = gdf.attrs["read"]
+    gdf.attrs = {}  # set again at the end
+    rejected, rows_read = kept.table, kept.rows_read
     if area_bounds is not None:
         x0, y0, x1, y1 = area_bounds
         xy = shapely.get_coordinates(gdf.geometry.to_numpy())
@@ -225,7 +226,7 @@ def demand_from_points(
         if not inside.all():
             outside = pd.DataFrame(
                 {
-                    "line": np.asarray(attrs["lines"], dtype=np.int64)[~inside],
+                    "line": lines[~inside],
                     "id": gdf["id"].to_numpy()[~inside],
                     "reason": "outside the study area",
                 }
@@ -261,7 +262,7 @@ def demand_from_points(
     gdf.insert(1, "weight", weight)
     gdf.insert(2, "source", "points")
     gdf = gdf.reset_index(drop=True)
-    gdf.attrs = {"read": attrs["read"], "rejected": rejected.to_dict("records"), "rows_read": rows_read}
+    gdf.attrs = {"read": read_text, "rejected": RejectedRows(rejected, rows_read)}
     return gdf
 
 
@@ -376,9 +377,8 @@ def load_demand(
             max_rejected_share=max_rejected_share,
             area_bounds=(x0 - m, y0 - m, x1 + m, y1 + m),
         )
-        rejected = rejected_table(demand.attrs["rejected"])
-        if len(rejected):
-            warn(f"{path}: {rejected_text(rejected, demand.attrs['rows_read'])}")
+        if len(demand.attrs["rejected"]):
+            warn(f"{path}: {demand.attrs['rejected'].text()}")
         return demand
     if len(demand) == 0:
         raise FieldError(f"{path}: no demand (all cells or features are empty or zero).")

@@ -17,7 +17,7 @@ from coverkit import __version__
 from coverkit.coverage import Standard, default_horizon_s
 from coverkit.errors import CoverkitError, StudyError
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
-from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE, rejected_table, rejected_text
+from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 from coverkit.where import parse_filter
 
 # -- schema -----------------------------------------------------------------------------------------------------------
@@ -597,7 +597,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             layers[f"bases_{slug(name)}_{s}"] = table
     for name, d in demand.items():  # point rows set aside for want of a usable position
         if d.attrs.get("rejected"):
-            layers[f"rejected_{slug(name)}"] = rejected_table(d.attrs["rejected"])
+            layers[f"rejected_{slug(name)}"] = d.attrs["rejected"].table
     site_plan = None
     if study.siting:
         from coverkit.site_plan import build_problem, generate_candidates, solve
@@ -702,8 +702,7 @@ def headline_lines(run: StudyRun) -> list[str]:
     lines = [f"{run.study.name}", ""]
     for name, d in run.demand.items():
         if d.attrs.get("rejected"):
-            text = rejected_text(rejected_table(d.attrs["rejected"]), d.attrs["rows_read"], verb=False)
-            lines.append(f"{name}: {text} rejected; see layer rejected_{slug(name)}")
+            lines.append(f"{name}: {d.attrs['rejected'].text(verb=False)} rejected; see layer rejected_{slug(name)}")
     for r in run.summary.itertuples(index=False):
         frac = r.fractile_response_s
         frac_text = "not reached" if frac == float("inf") else f"{frac / 60:.1f} min"

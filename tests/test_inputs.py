@@ -22,7 +22,7 @@ import pytest
 from coverkit.cli import main
 from coverkit.demand import demand_from_points
 from coverkit.errors import FieldError
-from coverkit.travel.points import read_points, rejected_table
+from coverkit.travel.points import read_points
 from coverkit.where import filter_mask
 
 REPO = Path(__file__).resolve().parents[1]
@@ -256,12 +256,12 @@ def test_a_few_bad_rows_are_set_aside_and_listed(tmp_path):
     area = (300_000.0, 4_500_000.0, 350_000.0, 4_560_000.0)  # UTM 25N box around the demo county
     pts = demand_from_points(path, CRS, area_bounds=area)
     assert len(pts) == 50_000 - len(BAD_ROWS)
-    rejected = rejected_table(pts.attrs["rejected"])
+    rejected = pts.attrs["rejected"].table
     assert rejected["line"].tolist() == [r + 2 for r in sorted(BAD_ROWS)]  # header is line 1
     assert rejected["id"].astype(int).tolist() == [r + 1 for r in sorted(BAD_ROWS)]
     assert rejected["reason"].tolist() == [BAD_REASONS[r] for r in sorted(BAD_ROWS)]
     assert not set(pts["id"].astype(int)) & {r + 1 for r in BAD_ROWS}
-    assert pts.attrs["rows_read"] == 50_000
+    assert pts.attrs["rejected"].rows_read == 50_000
 
 
 def test_too_many_bad_rows_stop_with_counts_lines_and_the_fix(tmp_path):
@@ -559,8 +559,10 @@ def test_observed_times_with_tabs_xy_and_a_blank_position(tmp_path):
     ref = src.drop(index=3)
     np.testing.assert_allclose(obs["lon"], ref["lon"].astype(float))
     np.testing.assert_allclose(obs["observed_s"], ref["observed_s"].astype(float))
-    assert obs.attrs["rows_read"] == len(src)
-    assert obs.attrs["rejected"] == [{"line": 5, "id": src.loc[3, "base_id"], "reason": "blank position"}]
+    assert obs.attrs["rejected"].rows_read == len(src)
+    assert obs.attrs["rejected"].table.to_dict("records") == [
+        {"line": 5, "id": src.loc[3, "base_id"], "reason": "blank position"}
+    ]
 
 
 def test_a_class_map_to_a_misspelt_class_is_refused(tmp_path):
@@ -591,4 +593,4 @@ def test_study_demand_takes_its_own_rejected_share(demo_net_path, tmp_path):
     study.write_text(text.replace("WHERE_LINE", ""))
     _, demand, _, _ = load_inputs(load_study(study), net)
     assert len(demand["calls"]) == len(src) - 2
-    assert [r["line"] for r in demand["calls"].attrs["rejected"]] == [6, 11]
+    assert demand["calls"].attrs["rejected"].table["line"].tolist() == [6, 11]

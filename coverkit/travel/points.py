@@ -8,6 +8,7 @@ error); demand and incident files may set a few bad rows aside (``max_rejected_s
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import geopandas as gpd
@@ -62,22 +63,65 @@ def read_points(
     max_rejected_share
         ``None`` (bases, candidates): every row must have a valid position, the first bad one is an error. A share
         0..1 (demand and incident files): rows with a blank, non-numeric, out-of-range or 0,0 position, or without
-        geometry, are set aside and listed in ``attrs["rejected"]`` (columns ``line``, ``id``, ``reason``); the
-        import stops only when more than this share of the rows is rejected.
+        geometry, are set aside and listed in ``attrs["rejected"]`` (a :class:`RejectedRows`); the import stops
+        only when more than this share of the rows is rejected.
 
     Returns
     -------
     geopandas.GeoDataFrame
         Column ``id`` (string) first, the other input columns, point geometry in ``crs``. Row order as in the file.
         ``attrs["read"]`` says what was read (rows, delimiter, coordinate columns) in one line; with
-        ``max_rejected_share`` given, ``attrs["rejected"]``, ``attrs["rows_read"]`` and ``attrs["lines"]`` (the
-        line or feature number of each row kept) are set.
+        ``max_rejected_share`` given, ``attrs["rejected"]`` is a :class:`RejectedRows`.
 
     Raises
     ------
     InputFileError, FieldError
         One-line messages naming the file, the column and the row.
     """
+    return read_point_rows(path, crs, id_field, what, layer, max_rejected_share=max_rejected_share)[0]
+
+
+@dataclass(frozen=True, eq=False)
+class RejectedRows:
+    """Rows of a point file set aside for want of a usable position.
+
+    Attributes
+    ----------
+    table
+        ``line`` (CSV line, header = 1, or feature number), ``id``, ``reason``; sorted by line.
+    rows_read
+        Rows in the file (blank lines not counted).
+
+    Kept in a GeoDataFrame's ``attrs``: treat as read-only. pandas deep-copies and compares ``attrs`` in its
+    operations, so copying returns the same object and equality is identity (a 50,000-row demand layer is not
+    copied row by row at every step).
+    """
+
+    table: pd.DataFrame
+    rows_read: int
+
+    def __deepcopy__(self, memo: dict) -> RejectedRows:
+        return self
+
+    def __len__(self) -> int:
+        return len(self.table)
+
+    def text(self, verb: bool = True) -> str:
+        """One line: how many, why (most common first) and the first line numbers; see :func:`rejected_text`."""
+        return rejected_text(self.table, self.rows_read, verb=verb)
+
+
+def read_point_rows(
+    path: str | Path,
+    crs: CRS | str,
+    id_field: str = "id",
+    what: str = "points",
+    layer: str | None = None,
+    *,
+    max_rejected_share: float | None = None,
+) -> tuple[gpd.GeoDataFrame, RejectedRows | None, np.ndarray]:
+    """:func:`read_points` that also returns the rejected rows (``None`` when strict) and the line (or feature)
+    number of each row kept."""
     path = Path(path)
     if not path.is_file():
         raise InputFileError(f"{what} file {path} not found; give a CSV with id, lon, lat or a point layer.")
@@ -127,16 +171,17 @@ def read_points(
     out = gdf.to_crs(CRS.from_user_input(crs)).reset_index(drop=True)
     out.attrs["read"] = read_text
     note(f"{what} {read_text}")
-    if lenient:
-        # plain lists: pandas compares and deep-copies attrs in its operations, which frames and arrays break
-        out.attrs["rejected"] = rejected.to_dict("records")
-        out.attrs["rows_read"] = rows_read
-        out.attrs["lines"] = lines[~bad].astype(np.int64).tolist()
-    return out
+    if not lenient:
+        return out, None, lines.astype(np.int64)
+    kept = RejectedRows(rejected_table(rejected), rows_read)
+    out.attrs["rejected"] = kept
+    return out, kept, lines[~bad].astype(np.int64)
 
 
-def rejected_table(records: list[dict] | pd.DataFrame | None) -> pd.DataFrame:
-    """The rejected rows kept in ``attrs["rejected"]`` as a table: ``line``, ``id``, ``reason`` (sorted by line)."""
+def rejected_table(records: RejectedRows | list[dict] | pd.DataFrame | None) -> pd.DataFrame:
+    """Rejected rows as a table: ``line``, ``id``, ``reason`` (sorted by line)."""
+    if isinstance(records, RejectedRows):
+        return records.table.copy()
     df = pd.DataFrame(records if records is not None else [], columns=["line", "id", "reason"])
     return df.astype({"line": np.int64}).sort_values("line", kind="stable").reset_index(drop=True)
 
@@ -224,8 +269,13 @@ def read_csv_text(path: Path, what: str, header: str) -> tuple[pd.DataFrame, str
         raise InputFileError(f"{path} is not a readable CSV ({str(exc).splitlines()[0]}); fix the file.") from None
     df.columns = [str(c).strip() for c in df.columns]
     df.index = np.arange(len(df)) + 2
-    empty = (df.apply(lambda col: col.str.strip()) == "").all(axis=1) if len(df.columns) else df.index == df.index
-    return df[~empty.to_numpy()], delimiter
+    if not len(df.columns):
+        return df.iloc[:0], delimiter
+    # wholly blank lines: look only at rows whose first cell is blank
+    empty = (df.iloc[:, 0].str.strip() == "").to_numpy()
+    if empty.any():
+        empty[empty] = (df[empty].apply(lambda col: col.str.strip()) == "").all(axis=1).to_numpy()
+    return df[~empty], delimiter
 
 
 def lonlat_columns(
@@ -268,7 +318,8 @@ def lonlat_columns(
     for col, name, bound in ((lon_field, "lon", 180.0), (lat_field, "lat", 90.0)):
         text = df[col].astype(str).str.strip()
         # a decimal comma (41,05), as semicolon-separated exports write numbers in many locales
-        text = text.str.replace(r"^([+-]?\d+),(\d+)$", r"\1.\2", regex=True)
+        if text.str.contains(",", regex=False).any():
+            text = text.str.replace(r"^([+-]?\d+),(\d+)$", r"\1.\2", regex=True)
         val = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, copy=True)
         bad = ~np.isfinite(val)
         if lenient:
