@@ -197,8 +197,8 @@ def demand_from_points(
     max_rejected_share
         Rows with no usable position (blank, not a number, out of range, 0,0) or outside ``area_bounds`` are set
         aside and listed in ``attrs["rejected"]`` (a :class:`~coverkit.travel.points.RejectedRows`); the import
-        stops when more than
-        this share of the rows (0..1, default 1 %) is rejected. Rejected rows are counted before the filter.
+        stops when more than this share of the rows (0..1, default 1 %) is rejected. Rejected rows are counted
+        before the filter.
     area_bounds
         ``(xmin, ymin, xmax, ymax)`` in ``crs``: points outside are rejected as outside the study area.
 
