@@ -266,3 +266,61 @@ def test_calibrated_times_are_closer_to_the_demo_truth(demo_calibration):
     before = np.abs(o["before_s"].to_numpy() - truth).mean()
     after = np.abs(o["after_s"].to_numpy() - truth).mean()
     assert after <= 0.75 * before, (before, after)
+
+
+@pytest.fixture(scope="module")
+def demo_truth(demo_calibration):
+    net, _ = demo_calibration
+    obs = pd.read_csv(DEMO / "observed_times.csv")
+    from coverkit.demo import TRUE_PEAK_SLOWDOWN
+
+    truth = _true_demo_times(obs, pd.read_csv(DEMO / "stations.csv"), net.crs)
+    return np.where(obs["hour"].isin([7, 8, 16, 17]).to_numpy(), truth / TRUE_PEAK_SLOWDOWN, truth)
+
+
+def _mae_to_truth(res, truth) -> float:
+    o = res.observations.sort_values("line")
+    assert (o["line"].to_numpy() == np.arange(len(truth)) + 2).all()
+    return float(np.abs(o["after_s"].to_numpy() - truth).mean())
+
+
+def test_calibration_with_outliers_stays_near_the_truth(demo_calibration, demo_truth):
+    """Every tenth observed time multiplied by 4 (a unit that stopped on the way, a wrong clock): the robust fit
+    (soft L1, the default) stays within 25 % of the clean fit's error against the demo's true times, and beats a
+    plain least-squares fit of the same corrupted data (truth: ``coverkit.demo`` true speeds, times computed here)."""
+    from coverkit.calibrate import calibrate_speeds, read_observed
+    from coverkit.travel import read_points
+
+    net, clean = demo_calibration
+    bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
+    observed = read_observed(DEMO / "observed_times.csv", bases["id"].astype(str))
+    bad = observed.copy()
+    bad.loc[bad.index[::10], "observed_s"] *= 4.0
+    robust = calibrate_speeds(net, bases, bad)
+    plain = calibrate_speeds(net, bases, bad, loss="linear")
+    e_clean, e_robust, e_plain = (_mae_to_truth(r, demo_truth) for r in (clean, robust, plain))
+    assert e_robust <= 1.25 * e_clean, (e_clean, e_robust)
+    assert e_robust < e_plain, (e_robust, e_plain)
+
+
+def test_calibration_stops_at_its_multiplier_bounds(demo_calibration):
+    """With bounds (0.9, 1.5) a class whose free fit wants less than 0.9 (see the default-bounds run) ends exactly
+    at 0.9 and is flagged, every fitted multiplier lies within the bounds, and classes inside stay off them
+    (bounded least squares: scipy's ``least_squares`` contract)."""
+    from coverkit.calibrate import calibrate_speeds, read_observed
+    from coverkit.travel import read_points
+
+    net, free = demo_calibration
+    bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
+    observed = read_observed(DEMO / "observed_times.csv", bases["id"].astype(str))
+    res = calibrate_speeds(net, bases, observed, bounds=(0.9, 1.5))
+    c = res.classes.set_index("road_class")
+    f = free.classes.set_index("road_class")
+    fitted = c.index[c["fitted"]]
+    low = [k for k in fitted if f.loc[k, "fitted"] and f.loc[k, "multiplier"] < 0.88]
+    assert low, "the check needs a class the free fit puts below the lower bound"
+    for k in fitted:
+        assert 0.9 - 1e-9 <= c.loc[k, "multiplier"] <= 1.5 + 1e-9
+    for k in low:
+        assert c.loc[k, "multiplier"] == pytest.approx(0.9, abs=1e-6)
+        assert "bound" in c.loc[k, "note"]
