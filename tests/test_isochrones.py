@@ -111,6 +111,10 @@ def _iou_check(net, bases, minutes, reach_m=150.0, direction="out"):
         assert a.is_valid and b.is_valid
         iou = shapely.intersection(a, b).area / shapely.union(a, b).area
         assert iou >= 0.98
+        # the README's promise: 0.99 for bands of a few minutes (polygons of a km² and more); 0.98 for the
+        # small polygons of a few tenths of a km²
+        if b.area >= 1e6:
+            assert iou >= 0.99, (iou, b.area / 1e6)
     assert np.allclose(fast["road_km"], exact["road_km"])
     # bands nested for every base and for "any base"; each base's polygon lies inside the any-base one
     for _, grp in fast.groupby("base_id", sort=False):
