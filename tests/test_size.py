@@ -312,6 +312,23 @@ def test_mclp_auto_heuristic_is_no_worse_than_greedy(siting_case):
     assert res.bound >= res.covered_weight - 1e-6
 
 
+def test_mclp_auto_switches_to_the_heuristic_above_the_milp_size_limit():
+    """``method="auto"`` on a model above ``MILP_NNZ_LIMIT`` nonzeros (26,000 distinct demand rows x 120 sites,
+    2.2 million covering pairs) uses the heuristic, says so, covers at least a plain greedy written here, and
+    reports a bound no lower than its answer (design invariant; Church & ReVelle 1974)."""
+    from coverkit.siting import MILP_NNZ_LIMIT, mclp
+
+    rng = np.random.default_rng(4)
+    covers = sp.csc_matrix(rng.random((26_000, 120)) < 0.7)
+    assert covers.nnz > MILP_NNZ_LIMIT
+    w = rng.integers(1, 10, covers.shape[0]).astype(float)
+    res = mclp(sp.csr_array(covers), w, 5, method="auto", time_limit_s=20.0)
+    assert res.method == "heuristic"
+    _, greedy_w = _greedy(covers, w, 5)
+    assert res.covered_weight >= greedy_w - 1e-6
+    assert res.bound >= res.covered_weight - 1e-6
+
+
 # -- hypercube at 16 and 18 units ------------------------------------------------------------------------------
 
 
