@@ -411,8 +411,8 @@ def _ids_to_columns(prob, ids) -> np.ndarray:
 def test_site_backup_through_the_cli_is_the_enumerated_lexicographic_optimum(demo_net, tmp_path, problem):
     """``--model backup --add 2``: the chosen pair maximises demand covered at least once, then demand covered at
     least twice, over every pair of candidates (Hogan & ReVelle 1986; exhaustive enumeration); the summary's
-    objective is the twice-covered weight of the chosen sites and the ``chosen`` table's ``only_this_site`` is the
-    demand no other open site reaches."""
+    objective is the twice-covered weight of the chosen sites; in the ``chosen`` table ``only_this_site`` is the
+    demand no other open site reaches and ``added_demand`` the demand no existing base reaches."""
     import itertools
 
     prob, cov, w = problem
@@ -438,6 +438,8 @@ def test_site_backup_through_the_cli_is_the_enumerated_lexicographic_optimum(dem
     for j, row in zip(cols, chosen.itertuples(), strict=True):
         others = cov[:, [c for c in open_cols if c != j]].any(axis=1)
         assert row.only_this_site == pytest.approx(float(w[cov[:, j] & ~others].sum()), rel=1e-9)
+        # added_demand: what the site reaches that no existing base does
+        assert row.added_demand == pytest.approx(float(w[cov[:, j] & ~cov[:, fixed].any(axis=1)].sum()), rel=1e-9)
 
 
 @pytest.mark.xfail(
