@@ -214,6 +214,45 @@ def target_times(ex: Exported, roads: Roads, dist: np.ndarray, tg: Snap, src: Sn
     return t
 
 
+def reversed_edges(ex: Exported) -> Exported:
+    """The same edges turned round (u and v swapped), for searches toward a point ("in" direction)."""
+    return Exported(ex.xy, ex.v, ex.u, ex.travel_s, ex.delay_s, ex.length_m, ex.geometry, ex.signal)
+
+
+def inbound_seeds(ex: Exported, roads: Roads, sn: Snap, i: int) -> list[tuple[int, float]]:
+    """Initial labels of a search on the reversed edges toward point ``i``: the point is reached from end ``a``
+    after ``s`` of the forward run, from ``b`` after ``1 - s`` of the backward run (no delay: the end node is not
+    passed)."""
+    r, s = sn.road[i], sn.s[i]
+    run = ex.run_s
+    out = []
+    if roads.fwd[r] >= 0:
+        out.append((int(roads.a[r]), s * run[roads.fwd[r]]))
+    if roads.bwd[r] >= 0:
+        out.append((int(roads.b[r]), (1.0 - s) * run[roads.bwd[r]]))
+    return out
+
+
+def inbound_times(ex: Exported, roads: Roads, dist_rev: np.ndarray, tg: Snap, src: Snap, i: int) -> np.ndarray:
+    """Times from target points to source point ``i`` given the reversed search's node times ``dist_rev``: leaving
+    toward ``b`` costs ``1 - s`` of the forward run plus its end delay, toward ``a`` ``s`` of the backward run plus
+    its delay; straight along a shared road in an allowed direction."""
+    run = ex.run_s
+    r, s = tg.road, tg.s
+    f, b = roads.fwd[r], roads.bwd[r]
+    t = np.full(len(r), np.inf)
+    hf, hb = f >= 0, b >= 0
+    t[hf] = dist_rev[roads.b[r[hf]]] + (1.0 - s[hf]) * run[f[hf]] + ex.delay_s[f[hf]]
+    t[hb] = np.minimum(t[hb], dist_rev[roads.a[r[hb]]] + s[hb] * run[b[hb]] + ex.delay_s[b[hb]])
+    same = r == src.road[i]
+    s0 = src.s[i]
+    ahead = same & hf & (s <= s0)
+    t[ahead] = np.minimum(t[ahead], (s0 - s[ahead]) * run[f[ahead]])
+    behind = same & hb & (s >= s0)
+    t[behind] = np.minimum(t[behind], (s[behind] - s0) * run[b[behind]])
+    return t
+
+
 def reached_lines(ex: Exported, roads: Roads, dist: np.ndarray, limit_s: float, src: Snap, i: int) -> np.ndarray:
     """The road stretches reached within ``limit_s`` from source point ``i``, as line geometries.
 

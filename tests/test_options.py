@@ -323,38 +323,17 @@ def test_cover_single_cover_layer_holds_the_once_covered_points(march):
 
 
 def _inbound_reference(net_path, base_xy, dem_xy):
-    """Demand-to-base times from a heap Dijkstra on the reversed exported edges (tests/reference_search.py): a base on
-    a road at share s is reached from end a after s of the forward run (no delay), from b after 1 - s of the
-    backward run; a demand point leaves toward b paying 1 - s of the forward run plus its end delay, toward a
-    paying s of the backward run plus its delay; straight along a shared road in an allowed direction."""
+    """Demand-to-base times from a heap Dijkstra on the reversed exported edges (tests/reference_search.py)."""
     from tests import reference_search as ref
 
     ex = ref.read_exported(net_path)
     roads = ref.roads_of(ex)
-    rev = ref.Exported(ex.xy, ex.v, ex.u, ex.travel_s, ex.delay_s, ex.length_m, ex.geometry, ex.signal)
-    graph = ref.HeapGraph(rev)
+    graph = ref.HeapGraph(ref.reversed_edges(ex))
     bsn, dsn = ref.snap(roads, base_xy), ref.snap(roads, dem_xy)
-    run = ex.run_s
-    f, b = roads.fwd[dsn.road], roads.bwd[dsn.road]
     best = np.full(len(dem_xy), np.inf)
     for i in range(len(base_xy)):
-        r, s = bsn.road[i], bsn.s[i]
-        seeds = []
-        if roads.fwd[r] >= 0:
-            seeds.append((int(roads.a[r]), s * run[roads.fwd[r]]))
-        if roads.bwd[r] >= 0:
-            seeds.append((int(roads.b[r]), (1 - s) * run[roads.bwd[r]]))
-        dist = graph.search(seeds)
-        t = np.full(len(dem_xy), np.inf)
-        hf, hb = f >= 0, b >= 0
-        t[hf] = dist[roads.b[dsn.road[hf]]] + (1 - dsn.s[hf]) * run[f[hf]] + ex.delay_s[f[hf]]
-        t[hb] = np.minimum(t[hb], dist[roads.a[dsn.road[hb]]] + dsn.s[hb] * run[b[hb]] + ex.delay_s[b[hb]])
-        same = dsn.road == r
-        ahead = same & hf & (dsn.s <= s)
-        t[ahead] = np.minimum(t[ahead], (s - dsn.s[ahead]) * run[f[ahead]])
-        behind = same & hb & (dsn.s >= s)
-        t[behind] = np.minimum(t[behind], (dsn.s[behind] - s) * run[b[behind]])
-        best = np.minimum(best, t)
+        dist = graph.search(ref.inbound_seeds(ex, roads, bsn, i))
+        best = np.minimum(best, ref.inbound_times(ex, roads, dist, dsn, bsn, i))
     return best, dsn
 
 

@@ -207,6 +207,37 @@ def test_first_second_due_and_depth(world, reference, coverage):
     assert 0.05 < (depth[clear] == 0).mean() < 0.95 and (depth[clear] >= 2).any()
 
 
+def test_inbound_point_times_match_a_reversed_heap_dijkstra(world, reference, coverage):
+    """Demand-to-base times (``direction="in"``) for 30 bases x 45,000 off-junction points equal a heap Dijkstra
+    on the reversed exported edges, partial edges and end-node delays included, to 1e-6 s (Dijkstra 1959;
+    tests/reference_search.py); on the one-way streets they differ from the outbound times."""
+    from coverkit.travel.search import point_times
+
+    ex, roads = world["ex"], world["roads"]
+    graph = ref.HeapGraph(ref.reversed_edges(ex))
+    bsn, dsn = reference["bsn"], reference["dsn"]
+    want = np.vstack(
+        [
+            ref.inbound_times(ex, roads, graph.search(ref.inbound_seeds(ex, roads, bsn, i)), dsn, bsn, i)
+            for i in range(N_BASES)
+        ]
+    )
+    same = _same_snap(world, reference, coverage)
+    cols = np.flatnonzero(same & (dsn.s > 1e-9) & (dsn.s < 1 - 1e-9))
+    cols = cols[cols < N_FREE]
+    snaps = coverage.extra
+    t_in = point_times(world["net"], snaps["base_snap"], snaps["demand_snap"], HORIZON_S, direction="in")
+    got = np.full(want.shape, np.inf)
+    coo = sp.csr_matrix(t_in).tocoo()
+    got[coo.row, coo.col] = coo.data
+    w, g = want[:, cols], got[:, cols]
+    within = w <= HORIZON_S - TOL_S
+    assert np.isfinite(g[within]).all() and not np.isfinite(g[w > HORIZON_S + TOL_S]).any()
+    np.testing.assert_allclose(g[within], w[within], rtol=0, atol=TOL_S)
+    out = reference["times"][:, cols]
+    assert (np.abs(out[within] - w[within]) > 1.0).mean() > 0.01
+
+
 @pytest.fixture(scope="module")
 def polygons(world, reference):
     """coverkit's fast drive-time polygons for 4 bases, bands 4 and 8 min."""
