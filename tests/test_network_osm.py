@@ -106,7 +106,7 @@ def test_shortest_times_equal_networkx_dijkstra(helsinki_network):
 def test_network_is_strongly_connected(helsinki_network):
     """After the build the network is one strongly connected piece (networkx.is_strongly_connected)."""
     net, report = helsinki_network
-    assert nx.is_strongly_connected(nx.DiGraph(net.to_networkx()))
+    assert nx.is_strongly_connected(_nx_graph(net))
     assert report.pieces_dropped > 0  # the extract's cut edges leave fragments, which must be reported
 
 
