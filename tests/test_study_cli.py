@@ -497,3 +497,17 @@ def test_run_figures_match_the_inputs_and_the_cover_command(tmp_path):
     for key in ("demand_total", "covered", "covered_share", "fractile_response_s"):
         assert row[key] == pytest.approx(other[key], rel=1e-9), key
     assert 0.5 < row["covered_share"] < 1.0
+
+
+@pytest.mark.xfail(strict=True, reason="issue 10 item 4: first-due areas do not tile the county")
+def test_demo_first_due_areas_partition_the_county(demo_run):
+    """First-due areas partition the study area (design invariant): they do not overlap, lie inside the county
+    boundary, and their areas add up to the boundary's area within a 50 m cell along its perimeter (shapely;
+    the county polygon projected with pyproj via geopandas)."""
+    fd = gpd.read_file(demo_run / "coverage.gpkg", layer="first_due_als_8_min")
+    county = gpd.read_file(DEMO / "boundary.geojson").to_crs(fd.crs).geometry.union_all()
+    geoms = fd.geometry.to_numpy()
+    union = shapely.union_all(geoms)
+    assert sum(g.area for g in geoms) == pytest.approx(union.area, rel=1e-6)
+    assert shapely.difference(union, county.buffer(50.0)).area < 1e-6 * county.area
+    assert abs(union.area - county.area) <= 50.0 * county.length
