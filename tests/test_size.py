@@ -351,6 +351,42 @@ def test_mclp_auto_heuristic_is_no_worse_than_greedy(siting_case):
     assert res.bound >= res.covered_weight - 1e-6
 
 
+@pytest.mark.filterwarnings("ignore:Constructing LpVariable:DeprecationWarning")
+def test_mclp_optimum_equals_cbc_at_size(siting_case):
+    """MCLP on 50,000 demand points x 200 candidates, p = 8: the exact solver's covered weight equals the optimum
+    of PuLP's bundled CBC on the Church & ReVelle (1974) formulation written here (identical coverage rows merged
+    with their weights added, which leaves the optimum unchanged), and its sites cover that weight."""
+    import pulp
+
+    from coverkit.siting import mclp
+
+    covers, w = siting_case
+    c = covers[:, :200].tocsr()
+    c.sort_indices()
+    p = 8
+    res = mclp(c, w, p, method="milp", time_limit_s=60.0)
+    assert res.status == "optimal"
+    merged: dict[tuple, float] = {}
+    for i in range(c.shape[0]):
+        key = tuple(c.indices[c.indptr[i] : c.indptr[i + 1]].tolist())
+        if key:
+            merged[key] = merged.get(key, 0.0) + float(w[i])
+    prob = pulp.LpProblem("mclp", pulp.LpMaximize)
+    x = [pulp.LpVariable(f"x{j}", cat="Binary") for j in range(c.shape[1])]
+    terms = []
+    for n, (key, weight) in enumerate(merged.items()):
+        y = pulp.LpVariable(f"y{n}", 0, 1)
+        prob += y <= pulp.lpSum(x[j] for j in key)
+        terms.append(weight * y)
+    prob += pulp.lpSum(terms)
+    prob += pulp.lpSum(x) == p
+    prob.solve(pulp.PULP_CBC_CMD(msg=False, timeLimit=300))
+    assert pulp.LpStatus[prob.status] == "Optimal"
+    assert res.covered_weight == pytest.approx(pulp.value(prob.objective), rel=1e-9)
+    covered = np.asarray(c[:, res.sites].sum(axis=1)).ravel() > 0
+    assert res.covered_weight == pytest.approx(float(w[covered].sum()), rel=1e-9)
+
+
 def test_mclp_auto_switches_to_the_heuristic_above_the_milp_size_limit():
     """``method="auto"`` on a model above ``MILP_NNZ_LIMIT`` nonzeros (26,000 distinct demand rows x 120 sites,
     2.2 million covering pairs) uses the heuristic, says so, covers at least a plain greedy written here, and
