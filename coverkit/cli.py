@@ -14,6 +14,7 @@ from pathlib import Path
 
 from coverkit import CAUTION, __version__
 from coverkit.errors import CoverkitError
+from coverkit.layer_names import demand_name_of, layer_name, map_file, single_standard_name, table_file
 from coverkit.progress import set_quiet
 from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 
@@ -181,7 +182,13 @@ def build_parser() -> argparse.ArgumentParser:
         "id, lon, lat[, weight] or a point layer).",
     )
     _coverage_inputs(p, bases_help="bases: CSV with id, lon, lat or a point layer")
-    p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layer demand, gaps, ...)")
+    p.add_argument(
+        "--out",
+        "-o",
+        type=Path,
+        required=True,
+        help="GeoPackage to write (layers demand_<demand>_<standard>, gaps_<standard>, ...)",
+    )
     p.add_argument("--weight-field", help="weight field of point demand (default: weight column or 1)")
     p.add_argument("--demand-id-field", default="id", help="id field of point demand (id)")
     p.add_argument("--time-field", help="timestamp field for --start/--end (received_at)")
@@ -217,7 +224,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--curve", type=int, help="coverage curve up to this many new sites (default --add, at least 3)")
     p.add_argument("--method", choices=["auto", "milp", "heuristic"], default="auto", help="solver (auto)")
     p.add_argument("--time-limit-s", type=_positive_float, default=60.0, help="solver time limit, s (60)")
-    p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layers chosen, ranking, ...)")
+    p.add_argument(
+        "--out",
+        "-o",
+        type=Path,
+        required=True,
+        help="GeoPackage to write (layers site_chosen, site_ranking, site_curve, ...)",
+    )
     _points_options(p)
     _common(p)
 
@@ -251,7 +264,13 @@ def build_parser() -> argparse.ArgumentParser:
         default="auto",
         help="exact 2^N-state model, Larson's approximation, or auto by size",
     )
-    p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layers units, demand, summary)")
+    p.add_argument(
+        "--out",
+        "-o",
+        type=Path,
+        required=True,
+        help="GeoPackage to write (layers availability_units, availability_demand, ...)",
+    )
     _points_options(p)
     _common(p)
 
@@ -391,10 +410,12 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     from coverkit.coverage import Standard, area_layers, compliance_by, compliance_by_zone, evaluate_coverage, per_base
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
+    from coverkit.study import standard_layers
 
     if (args.zones is None) != (args.zone_field is None):
         raise FieldError("--zones and --zone-field go together: give the polygon layer and its id field.")
-    std = Standard(f"{args.minutes:g} min", args.minutes * 60.0, args.turnout_s, args.fractile)
+    std = Standard(single_standard_name(args.minutes), args.minutes * 60.0, args.turnout_s, args.fractile)
+    dname = demand_name_of(args.demand)
     net, bases = _network_and_bases(args)
     demand = load_demand(
         args.demand,
@@ -414,32 +435,28 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     is_points = demand["source"].iloc[0] == "points"
     areas = area_layers(net, res, incidents=demand if is_points else None)
     out_demand = res.demand.assign(gap_id=areas.demand_gap_id)
-    layers = {
-        "demand": out_demand,
-        "bases": bases,
-        "first_due": areas.first_due,
-        "gaps": areas.gaps,
-        "single_cover": areas.single,
-        "per_base": per_base(res),
-    }
-    zone_table = None
+    by_base = per_base(res)
+    tables = {"by_base": {dname: by_base}}
     if args.zones:
         zones = pyogrio.read_dataframe(args.zones)
-        zone_table = compliance_by_zone(res, zones, args.zone_field)
-        layers["by_zone"] = zone_table
+        tables["by_zone"] = {dname: compliance_by_zone(res, zones, args.zone_field)}
     if "priority" in out_demand.columns:
-        layers["by_priority"] = compliance_by(res, "priority")
-    rejected = _rejected(demand, layers)
+        tables["by_priority"] = {dname: compliance_by(res, "priority")}
+    layers = {layer_name("bases"): bases, **standard_layers(std.name, {dname: out_demand}, areas, tables)}
+    rejected = _rejected(demand, layers, dname)
     summary = res.summary()
     import pandas as pd
 
-    layers["summary"] = pd.DataFrame([summary])
+    kind = "incidents" if is_points else "residents"
+    row = {"standard": std.name, "demand": dname, "kind": kind, **summary}
+    layers[layer_name("summary")] = pd.DataFrame([row]).drop(columns=["standard_text"])
     write_gpkg_layers(args.out, layers)
     unit = "calls" if is_points else "people"
+    where_word = "cells" if demand["source"].iloc[0] == "raster" else "points"
     frac = summary["fractile_response_s"]
     print(std.describe())
     print(
-        f"demand       {summary['demand_total']:,.0f} {unit} in {summary['demand_points']:,} points "
+        f"demand       {summary['demand_total']:,.0f} {unit} in {summary['demand_points']:,} {where_word} "
         f"({summary['off_network_points']:,} off the network, {summary['off_network']:,.0f} {unit})"
     )
     if rejected:
@@ -458,7 +475,7 @@ def _cmd_cover(args: argparse.Namespace) -> int:
         )
     )
     print("\nper base (first due)")
-    for r in layers["per_base"].itertuples(index=False):
+    for r in by_base.itertuples(index=False):
         print(
             f"  {r.base_id:<12}{r.first_due_demand:>12,.0f} {unit} ({r.first_due_share * 100:5.1f} %), "
             f"sole cover {r.sole_cover:,.0f}"
@@ -476,7 +493,7 @@ def _cmd_site(args: argparse.Namespace) -> int:
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
-    from coverkit.report import line_chart
+    from coverkit.report.study_report import site_curve_chart
     from coverkit.site_plan import build_problem, generate_candidates, ranking_table, solve
     from coverkit.travel import read_points
 
@@ -494,13 +511,13 @@ def _cmd_site(args: argparse.Namespace) -> int:
         population_field=args.population_field,
         max_rejected_share=args.max_rejected,
     )
-    std = Standard(f"{args.minutes:g} min", args.minutes * 60.0, args.turnout_s, args.fractile)
+    std = Standard(single_standard_name(args.minutes), args.minutes * 60.0, args.turnout_s, args.fractile)
     problem = build_problem(net, bases, candidates, demand, std, relocate=args.relocate, base_snap_m=args.snap_m)
-    out_csv = args.out.with_suffix("")
+    folder = args.out.parent
     if args.rank:
         ranking = ranking_table(problem)
-        write_gpkg_layers(args.out, {"ranking": ranking, "sites": problem.sites})
-        write_text_atomic(f"{out_csv}-ranking.csv", ranking.to_csv(index=False))
+        write_gpkg_layers(args.out, {layer_name("site_ranking"): ranking, layer_name("site_candidates"): problem.sites})
+        write_text_atomic(table_file(folder, "site_ranking"), ranking.to_csv(index=False))
         print(f"{'candidate':<12}{'adds':>12}{'adds %':>8}  name")
         for r in ranking.itertuples(index=False):
             print(f"{r.id:<12}{r.added_weight:>12,.0f}{r.added_share * 100:>8.2f}  {r.name}")
@@ -517,29 +534,22 @@ def _cmd_site(args: argparse.Namespace) -> int:
         time_limit_s=args.time_limit_s,
         curve_to=args.curve,
     )
-    chart = line_chart(
-        f"{out_csv}-curve.png",
-        plan.curve["new_sites"].to_numpy(),
-        {"covered %": plan.curve["covered_share"] * 100},
-        "new sites",
-        "demand covered (%)",
-        f"Coverage curve - {std.describe(with_source=False)}",
-        note="each point is an MCLP optimum (Church & ReVelle 1974)",
-    )
+    chart = site_curve_chart(plan, map_file(folder, "site_curve"), std.describe(with_source=False))
     layers = {
-        "chosen": plan.chosen,
-        "ranking": plan.ranking,
-        "curve": plan.curve,
-        "sites": problem.sites,
-        "summary": pd.DataFrame([plan.summary]),
+        layer_name("site_chosen"): plan.chosen,
+        layer_name("site_ranking"): plan.ranking,
+        layer_name("site_curve"): plan.curve,
+        layer_name("site_candidates"): problem.sites,
+        layer_name("site_summary"): pd.DataFrame([plan.summary]),
     }
-    rejected = _rejected(demand, layers)
+    rejected = _rejected(demand, layers, demand_name_of(args.demand))
     write_gpkg_layers(args.out, layers)
     if rejected:
         print(f"rejected: {rejected}")
-    write_text_atomic(f"{out_csv}-chosen.csv", pd.DataFrame(plan.chosen.drop(columns="geometry")).to_csv(index=False))
-    write_text_atomic(f"{out_csv}-curve.csv", plan.curve.to_csv(index=False))
-    write_text_atomic(f"{out_csv}-ranking.csv", plan.ranking.to_csv(index=False))
+    chosen_table = pd.DataFrame(plan.chosen.drop(columns="geometry"))
+    write_text_atomic(table_file(folder, "site_chosen"), chosen_table.to_csv(index=False))
+    write_text_atomic(table_file(folder, "site_curve"), plan.curve.to_csv(index=False))
+    write_text_atomic(table_file(folder, "site_ranking"), plan.ranking.to_csv(index=False))
     s = plan.summary
     print(
         f"{s['model']} solved by {s['method']} ({s['status']}, gap {s['mip_gap'] * 100:.3f} % to the "
@@ -586,7 +596,7 @@ def _cmd_availability(args: argparse.Namespace) -> int:
         end=args.end,
         max_rejected_share=args.max_rejected,
     )
-    std = Standard(f"{args.minutes:g} min", args.minutes * 60.0)
+    std = Standard(single_standard_name(args.minutes), args.minutes * 60.0)
     run = availability(
         net,
         bases,
@@ -598,8 +608,12 @@ def _cmd_availability(args: argparse.Namespace) -> int:
         method=args.method,
         time_field=args.time_field,
     )
-    layers = {"units": run.units, "demand": run.demand, "summary": pd.DataFrame([run.summary])}
-    rejected = _rejected(demand, layers)
+    layers = {
+        layer_name("availability_units"): run.units,
+        layer_name("availability_demand"): run.demand,
+        layer_name("availability_summary"): pd.DataFrame([run.summary]),
+    }
+    rejected = _rejected(demand, layers, demand_name_of(args.demand))
     write_gpkg_layers(args.out, layers)
     s = run.summary
     if rejected:
@@ -623,13 +637,14 @@ def _cmd_availability(args: argparse.Namespace) -> int:
     return 0
 
 
-def _rejected(demand, layers: dict) -> str:
-    """Add the ``rejected`` layer when point demand rows were set aside; the summary line about them."""
+def _rejected(demand, layers: dict, name: str) -> str:
+    """Add the ``rejected_<demand>`` layer when point demand rows were set aside; the summary line about them."""
     rejected = demand.attrs.get("rejected")
     if not rejected:
         return ""
-    layers["rejected"] = rejected.table
-    return f"{rejected.text(verb=False)}; see layer rejected"
+    layer = layer_name("rejected", name)
+    layers[layer] = rejected.table
+    return f"{rejected.text(verb=False)}; see layer {layer}"
 
 
 def _hours(text: str | None) -> list[int] | None:

@@ -19,6 +19,7 @@ import pandas as pd
 from coverkit import CAUTION
 from coverkit.atomic import write_gpkg_layers, write_text_atomic
 from coverkit.errors import CoverkitError
+from coverkit.layer_names import layer_name, output_file
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import Steps
 from coverkit.scenario import (
@@ -28,7 +29,7 @@ from coverkit.scenario import (
     compare_results,
     load_scenario,
 )
-from coverkit.study import Study, cached_network, load_inputs, load_study, reusable_network, slug
+from coverkit.study import Study, cached_network, load_inputs, load_study, reusable_network
 from coverkit.whatif import WhatIf
 
 
@@ -128,9 +129,10 @@ class CompareRun:
         """Headline lines: the changes, then each standard x demand before/after."""
         out = [f"{self.scenario.name} vs {self.study.name}", *self.changes.lines()]
         kinds = {d.name: d.kind for d in self.study.demand}
+        words = {d.name: "cells" if d.source_kind == "raster" else "points" for d in self.study.demand}
         for (_std, dem), comp in self.comparisons.items():
             unit = "people" if kinds.get(dem) == "residents" else "calls"
-            out.extend(f"[{dem}] {line}" for line in comp.lines(unit))
+            out.extend(f"[{dem}] {line}" for line in comp.lines(unit, words.get(dem, "points")))
         return [*out, CAUTION]
 
 
@@ -144,9 +146,10 @@ def compare_study(
     """Run a study's coverage before and after a scenario, compare, and write layers and a table.
 
     Writes ``compare.gpkg`` (layers ``bases_before``, ``bases_after``, ``closed_roads``, ``slowed_roads``,
-    ``comparison``, ``about`` and per standard ``points_<demand>_<standard>``, ``base_changes_<demand>_<standard>``,
-    ``changed_areas_<standard>``, ``gaps_before_<standard>``, ``gaps_after_<standard>``) and ``comparison.csv``
-    into ``out_folder``, atomically. The report is not written here.
+    ``comparison``, ``about`` and per standard ``change_points_<demand>_<standard>``,
+    ``change_by_base_<demand>_<standard>``, ``changed_areas_<standard>``, ``gaps_before_<standard>``,
+    ``gaps_after_<standard>``; names from :mod:`coverkit.layer_names`) and ``comparison.csv`` into ``out_folder``,
+    atomically. The report is not written here.
     """
     out = Path(out_folder)
     steps = Steps(5, "compare")
@@ -238,23 +241,23 @@ def _compare(
         }
     )
     layers: dict[str, Any] = {
-        "bases_before": bases,
-        "bases_after": bases2,
-        "closed_roads": log.closed,
-        "slowed_roads": log.slowed,
-        "comparison": summary,
-        "about": about,
+        layer_name("bases_before"): bases,
+        layer_name("bases_after"): bases2,
+        layer_name("closed_roads"): log.closed,
+        layer_name("slowed_roads"): log.slowed,
+        layer_name("comparison"): summary,
+        layer_name("about"): about,
     }
     for (std, dem), comp in comparisons.items():
-        layers[f"points_{slug(dem)}_{slug(std)}"] = comp.points
-        layers[f"base_changes_{slug(dem)}_{slug(std)}"] = comp.bases
+        layers[layer_name("change_points", dem, std)] = comp.points
+        layers[layer_name("change_by_base", dem, std)] = comp.bases
     for std, ca in areas.items():
-        layers[f"changed_areas_{slug(std)}"] = ca.polygons
-        layers[f"gaps_before_{slug(std)}"] = ca.before.gaps
-        layers[f"gaps_after_{slug(std)}"] = ca.after.gaps
+        layers[layer_name("changed_areas", standard=std)] = ca.polygons
+        layers[layer_name("gaps_before", standard=std)] = ca.before.gaps
+        layers[layer_name("gaps_after", standard=std)] = ca.after.gaps
     outputs = {
-        "layers": write_gpkg_layers(out / "compare.gpkg", layers),
-        "table": write_text_atomic(out / "comparison.csv", summary.to_csv(index=False)),
+        "layers": write_gpkg_layers(output_file(out, "compare_layers"), layers),
+        "table": write_text_atomic(output_file(out, "compare_csv"), summary.to_csv(index=False)),
     }
     return CompareRun(
         study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, outputs

@@ -304,13 +304,15 @@ def summary_table(polygons: gpd.GeoDataFrame) -> pd.DataFrame:
 
 def write_polygons(polygons: gpd.GeoDataFrame, path: str | Path) -> Path:
     """Write polygons to a GeoPackage atomically: layers ``reach_by_base`` and ``reach_any_base``."""
+    from coverkit.layer_names import layer_name
+
     path = Path(path)
     by_base = polygons[polygons["base_id"] != ANY_BASE_ID]
     anyb = polygons[polygons["base_id"] == ANY_BASE_ID]
     with atomic_path(path) as tmp:
-        by_base.to_file(tmp, layer="reach_by_base", driver="GPKG")
+        by_base.to_file(tmp, layer=layer_name("reach_by_base"), driver="GPKG")
         if len(anyb):
-            anyb.to_file(tmp, layer="reach_any_base", driver="GPKG", mode="a")
+            anyb.to_file(tmp, layer=layer_name("reach_any_base"), driver="GPKG", mode="a")
     return path
 
 

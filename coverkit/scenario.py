@@ -337,9 +337,11 @@ class ChangeLog:
         if len(self.closed_edge_ids):
             roads = self.closed_roads()
             names = ", ".join(dict.fromkeys(n or "(unnamed)" for n in roads["name"]))
-            out.append(f"closed {self.closed_km:.2f} km of road ({len(self.closed_edge_ids)} directed edges): {names}")
+            out.append(
+                f"closed {self.closed_km:.2f} km of road ({len(self.closed_edge_ids):,} directed edges): {names}"
+            )
         if len(self.slowed_edge_ids):
-            out.append(f"slowed {self.slowed_km:.2f} km of road ({len(self.slowed_edge_ids)} directed edges)")
+            out.append(f"slowed {self.slowed_km:.2f} km of road ({len(self.slowed_edge_ids):,} directed edges)")
         for r in self.base_changes.itertuples(index=False):
             out.append(f"base {r.base_id}: {r.action} ({r.detail})")
         return out + list(self.notes)
@@ -637,8 +639,9 @@ class Comparison:
         same_t = np.array_equal(p["travel_s_before"].to_numpy(), p["travel_s_after"].to_numpy(), equal_nan=True)
         return bool(same_t and (p["first_base_before"] == p["first_base_after"]).all())
 
-    def lines(self, unit: str = "people") -> list[str]:
-        """Headline lines (covered share and fractile before/after, loss and gain)."""
+    def lines(self, unit: str = "people", point_word: str = "points") -> list[str]:
+        """Headline lines (covered share and fractile before/after, loss and gain); ``point_word`` names the
+        demand's units (``"cells"`` for a population raster)."""
         b, a = self.before, self.after
 
         def mins(s: float) -> str:
@@ -648,8 +651,8 @@ class Comparison:
             f"{self.standard.name}: covered {b['covered_share'] * 100:.1f} % -> {a['covered_share'] * 100:.1f} % "
             f"({a['covered'] - b['covered']:+,.0f} {unit}); {self.standard.fractile * 100:g}th percentile response "
             f"{mins(b['fractile_response_s'])} -> {mins(a['fractile_response_s'])}",
-            f"{self.standard.name}: {self.lost_weight:,.0f} {unit} ({self.lost_points} points) lose coverage, "
-            f"{self.gained_weight:,.0f} {unit} ({self.gained_points} points) gain it",
+            f"{self.standard.name}: {self.lost_weight:,.0f} {unit} ({self.lost_points:,} {point_word}) lose "
+            f"coverage, {self.gained_weight:,.0f} {unit} ({self.gained_points:,} {point_word}) gain it",
         ]
 
 

@@ -16,6 +16,7 @@ from typing import Any
 from coverkit import __version__
 from coverkit.coverage import Standard, default_horizon_s
 from coverkit.errors import CoverkitError, StudyError
+from coverkit.layer_names import layer_name, map_file, output_file, table_file
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
 from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 from coverkit.where import parse_filter
@@ -380,10 +381,47 @@ class StudyRun:
     calibration: Any = None
 
 
-def slug(text: str) -> str:
-    """Lower-case ASCII name for layers and files."""
-    out = "".join(ch.lower() if ch.isalnum() else "_" for ch in text)
-    return "_".join(filter(None, out.split("_"))) or "x"
+def standard_layers(
+    standard: str, demand: dict[str, Any], areas: Any, tables: dict[str, dict[str, Any]]
+) -> dict[str, Any]:
+    """The layers of one standard, named by :mod:`coverkit.layer_names` (the same for `run` and `cover`).
+
+    Parameters
+    ----------
+    standard
+        The standard's name.
+    demand
+        ``{demand name: demand points with their coverage}``.
+    areas
+        The standard's :class:`coverkit.coverage.AreaLayers` (first-, second-, third-due areas when present, gaps,
+        single cover).
+    tables
+        ``{kind: {demand name: table}}`` for the kinds ``by_base``, ``by_zone``, ``by_priority``.
+    """
+    out: dict[str, Any] = {}
+    for name, table in demand.items():
+        out[layer_name("demand", name, standard)] = table
+    for kind in ("first_due", "second_due", "third_due"):
+        area = getattr(areas, kind, None)
+        if area is not None:
+            out[layer_name(kind, standard=standard)] = area
+    out[layer_name("gaps", standard=standard)] = areas.gaps
+    out[layer_name("single_cover", standard=standard)] = areas.single
+    for kind in ("by_base", "by_zone", "by_priority"):
+        for name, table in tables.get(kind, {}).items():
+            out[layer_name(kind, name, standard)] = table
+    return out
+
+
+def polygon_layers(polygons: Any) -> dict[str, Any]:
+    """Drive-time polygons as their two layers: per base, and per band from any base (when present)."""
+    from coverkit.isochrones import ANY_BASE_ID
+
+    any_base = (polygons["base_id"] == ANY_BASE_ID).to_numpy()
+    out = {layer_name("reach_by_base"): polygons[~any_base]}
+    if any_base.any():
+        out[layer_name("reach_any_base")] = polygons[any_base]
+    return out
 
 
 def reusable_network(path: Path, key: str) -> Any:
@@ -412,7 +450,7 @@ def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
     from coverkit.network.centerlines import parse_fields
 
     key = study.network_cache_key()
-    path = folder / "network.gpkg"
+    path = output_file(folder, "network")
     net = reusable_network(path, key)
     if net is not None:
         return net, net.info.get("summary_text", ""), True
@@ -532,7 +570,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     surface_path = write_travel_surface(
         net,
         bases,
-        folder / "travel_minutes.tif",
+        output_file(folder, "surface"),
         max(minutes),
         cell_m=float(opts.get("surface_cell_m", 50.0)),
         reach_m=reach_m,
@@ -580,24 +618,15 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     summary = pd.DataFrame(rows)
 
     steps.step("writing layers and tables")
-    outputs: dict[str, Path] = {"network": folder / "network.gpkg", "surface": surface_path}
-    layers: dict[str, Any] = {"bases": bases, "drive_time_polygons": polygons}
+    outputs: dict[str, Path] = {"network": output_file(folder, "network"), "surface": surface_path}
+    layers: dict[str, Any] = {layer_name("bases"): bases, **polygon_layers(polygons)}
     for run in runs:
-        s = slug(run.standard.name)
-        for name, res in run.results.items():
-            layers[f"demand_{slug(name)}_{s}"] = res.demand
-        layers[f"first_due_{s}"] = run.areas.first_due
-        layers[f"gaps_{s}"] = run.areas.gaps
-        layers[f"single_cover_{s}"] = run.areas.single
-        for name, table in run.zones.items():
-            layers[f"zones_{slug(name)}_{s}"] = table
-        for name, table in run.by_priority.items():
-            layers[f"priority_{slug(name)}_{s}"] = table
-        for name, table in run.per_base.items():
-            layers[f"bases_{slug(name)}_{s}"] = table
+        demand_tables = {name: res.demand for name, res in run.results.items()}
+        tables = {"by_base": run.per_base, "by_zone": run.zones, "by_priority": run.by_priority}
+        layers.update(standard_layers(run.standard.name, demand_tables, run.areas, tables))
     for name, d in demand.items():  # point rows set aside for want of a usable position
         if d.attrs.get("rejected"):
-            layers[f"rejected_{slug(name)}"] = d.attrs["rejected"].table
+            layers[layer_name("rejected", name)] = d.attrs["rejected"].table
     site_plan = None
     if study.siting:
         from coverkit.site_plan import build_problem, generate_candidates, solve
@@ -630,10 +659,12 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             curve_to=cfg.get("curve"),
         )
         site_plan.summary["demand"] = dname
-        layers["site_chosen"] = site_plan.chosen
-        layers["site_ranking"] = site_plan.ranking
-        layers["site_curve"] = site_plan.curve
-        outputs["site_curve_csv"] = write_text_atomic(folder / "site_curve.csv", site_plan.curve.to_csv(index=False))
+        layers[layer_name("site_chosen")] = site_plan.chosen
+        layers[layer_name("site_ranking")] = site_plan.ranking
+        layers[layer_name("site_curve")] = site_plan.curve
+        outputs["site_curve_csv"] = write_text_atomic(
+            table_file(folder, "site_curve"), site_plan.curve.to_csv(index=False)
+        )
     avail = None
     if study.availability:
         from coverkit.availability import availability as run_availability
@@ -654,8 +685,8 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             max_snap_m=snaps[dname],
         )
         avail.summary["demand"] = dname
-        layers["units"] = avail.units
-        layers["availability_demand"] = avail.demand
+        layers[layer_name("availability_units")] = avail.units
+        layers[layer_name("availability_demand")] = avail.demand
     calibration = None
     if study.calibration:
         from coverkit.calibrate import calibrate_speeds, calibration_chart, read_observed, write_calibrated_profile
@@ -665,13 +696,13 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             cfg["observed"], base_ids=bases["id"].astype(str).tolist(), bases_name=Path(study.bases["file"]).name
         )
         calibration = calibrate_speeds(net, bases, observed, hours=cfg.get("hours"), source=Path(cfg["observed"]).name)
-        outputs["calibrated_profile"] = write_calibrated_profile(calibration, folder / "calibrated-profile.toml")
-        outputs["calibration_chart"] = calibration_chart(calibration, folder / "maps" / "calibration.png")
-        layers["calibration_classes"] = calibration.classes
-        layers["calibration_errors"] = calibration.errors
-    layers["summary"] = summary.drop(columns=["standard_text"])
-    outputs["layers"] = write_gpkg_layers(folder / "coverage.gpkg", layers)
-    outputs["summary_csv"] = write_text_atomic(folder / "summary.csv", summary.to_csv(index=False))
+        outputs["calibrated_profile"] = write_calibrated_profile(calibration, output_file(folder, "calibrated_profile"))
+        outputs["calibration_chart"] = calibration_chart(calibration, map_file(folder, "calibration"))
+        layers[layer_name("calibration_classes")] = calibration.classes
+        layers[layer_name("calibration_errors")] = calibration.errors
+    layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
+    outputs["layers"] = write_gpkg_layers(output_file(folder, "layers"), layers)
+    outputs["summary_csv"] = write_text_atomic(output_file(folder, "summary_csv"), summary.to_csv(index=False))
     result = StudyRun(
         study,
         net,
@@ -702,7 +733,10 @@ def headline_lines(run: StudyRun) -> list[str]:
     lines = [f"{run.study.name}", ""]
     for name, d in run.demand.items():
         if d.attrs.get("rejected"):
-            lines.append(f"{name}: {d.attrs['rejected'].text(verb=False)} rejected; see layer rejected_{slug(name)}")
+            lines.append(
+                f"{name}: {d.attrs['rejected'].text(verb=False)} rejected; see layer {layer_name('rejected', name)}"
+            )
+    # thousands separated by a comma in every figure, as in the report (coverkit.report.tables.THOUSANDS)
     for r in run.summary.itertuples(index=False):
         frac = r.fractile_response_s
         frac_text = "not reached" if frac == float("inf") else f"{frac / 60:.1f} min"
@@ -739,6 +773,6 @@ def headline_lines(run: StudyRun) -> list[str]:
             top = gaps.iloc[0]
             lines.append(
                 f"{srun.standard.name:<22} {len(gaps)} gaps; largest holds {top['population']:,.0f} people, "
-                f"{int(top['incidents'])} incidents, {top['area_km2']:.1f} km2"
+                f"{top['incidents']:,.0f} incidents, {top['area_km2']:.1f} km2"
             )
     return lines

@@ -25,6 +25,9 @@ file = "{DEMO / "stations.csv"}"
 [[demand]]
 name = "residents"
 raster = "{DEMO / "population.tif"}"
+[[demand]]
+name = "calls"
+points = "{DEMO / "incidents.csv"}"
 [[standard]]
 name = "ALS 8 min"
 turnout_s = 60
@@ -45,15 +48,18 @@ def test_compare_station_change(study, tmp_path, capsys):
     assert main(["compare", str(study), str(scen), "--out", str(out), "--quiet"]) == 0
     text = capsys.readouterr().out
     assert "base S3: removed" in text and "Planning estimates only" in text
-    for name in ("compare.gpkg", "comparison.csv", "compare-report.html"):
+    for name in ("compare.gpkg", "comparison.csv", "compare_report.html"):
         assert (out / name).is_file(), name
     assert list((out / "maps").glob("difference_*.png"))
     table = pd.read_csv(out / "comparison.csv")
     row = table.iloc[0]
     change = row["covered_after"] - row["covered_before"]
     assert change == pytest.approx(row["gained_weight"] - row["lost_weight"], abs=1e-6)
-    html = (out / "compare-report.html").read_text()
+    html = (out / "compare_report.html").read_text()
     assert "What changes" in html and "Planning estimates only" in html
+    # issue 10 item 17: a per-base table for every demand layer, not only the first
+    for layer in ("residents", "calls"):
+        assert f"Per base - {layer}:" in html, layer
 
 
 def test_compare_unknown_base_is_one_line(study, tmp_path, capsys):

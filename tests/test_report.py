@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import shapely
+from matplotlib.collections import LineCollection, PathCollection
 from matplotlib.figure import Figure
 from PIL import Image
 
@@ -76,6 +77,17 @@ def demand() -> gpd.GeoDataFrame:
     )
 
 
+@pytest.fixture(scope="module")
+def depth_grid() -> tuple[np.ndarray, affine.Affine]:
+    """Depth per 100 m cell over the town: 0 in the west third, 1 in the middle, 2 in the east; no road (-1) in
+    the north-west corner."""
+    grid = np.zeros((25, 30), dtype=np.int32)
+    grid[:, 10:20] = 1
+    grid[:, 20:] = 2
+    grid[:3, :3] = -1
+    return grid, affine.Affine(100.0, 0, X0, 0, -100.0, Y0 + 2500)
+
+
 def _big_square_gaps() -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame(
         {"gap_id": ["g1"], "population": [100.0], "incidents": [3]},
@@ -84,8 +96,9 @@ def _big_square_gaps() -> gpd.GeoDataFrame:
     )
 
 
-def _all_maps(tmp: Path, roads, bases, surface, demand) -> dict[str, Path]:
+def _all_maps(tmp: Path, roads, bases, surface, demand, depth_grid) -> dict[str, Path]:
     minutes, transform = surface
+    grid, grid_transform = depth_grid
     areas = gpd.GeoDataFrame(
         {"base_id": ["B1", "B2"]},
         geometry=[shapely.box(X0, Y0, X0 + 1500, Y0 + 2500), shapely.box(X0 + 1500, Y0, X0 + 3000, Y0 + 2500)],
@@ -96,7 +109,9 @@ def _all_maps(tmp: Path, roads, bases, surface, demand) -> dict[str, Path]:
         "surface": maps.travel_surface_map(
             tmp / "s.png", minutes, transform, CRS, bases, roads, [2, 4, 6], "Travel time", STD
         ),
-        "depth": maps.coverage_depth_map(tmp / "d.png", demand, bases, roads, "Depth", STD),
+        "depth": maps.coverage_depth_map(
+            tmp / "d.png", grid, grid_transform, CRS, bases, roads, "Depth", STD, demand=demand
+        ),
         "gaps": maps.gaps_map(tmp / "g.png", _big_square_gaps(), bases, roads, "Gaps", STD),
         "first_due": maps.first_due_map(tmp / "f.png", areas, bases, roads, "First due", STD),
         "difference": maps.difference_map(
@@ -109,8 +124,8 @@ def _all_maps(tmp: Path, roads, bases, surface, demand) -> dict[str, Path]:
 
 
 @pytest.fixture(scope="module")
-def rendered(tmp_path_factory, roads, bases, surface, demand) -> dict[str, Path]:
-    return _all_maps(tmp_path_factory.mktemp("maps"), roads, bases, surface, demand)
+def rendered(tmp_path_factory, roads, bases, surface, demand, depth_grid) -> dict[str, Path]:
+    return _all_maps(tmp_path_factory.mktemp("maps"), roads, bases, surface, demand, depth_grid)
 
 
 # ----------------------------------------------------------------------------------------------------------------
@@ -268,22 +283,154 @@ def _pixel(xy: tuple[float, float], bounds: list[float]) -> tuple[int, int]:
     return round((1 - fy) * PX_H), round(fx * PX_W)
 
 
-def test_gaps_are_outlined_not_filled(tmp_path):
-    """Inside a gap the page stays white; inside a first-due area (filled) it does not."""
-    gaps = _big_square_gaps()
-    areas = gaps[["geometry"]].assign(base_id="B1")
-    inside = (X0 + 700.0, Y0 + 1900.0)  # away from the rank label at the representative point
+def test_gaps_are_filled_and_shaded_by_the_demand_they_hold(tmp_path):
+    """Issue 10 item 16: gaps are filled areas, darker the more demand they hold (BT.709 relative luminance),
+    with decade classes (common cartographic practice for skewed counts, no source)."""
+    west = shapely.box(X0, Y0, X0 + 1400, Y0 + 2500)
+    east = shapely.box(X0 + 1600, Y0, X0 + 3000, Y0 + 2500)
+    gaps = gpd.GeoDataFrame(
+        {"gap_id": [1, 2], "population": [4.0, 2500.0], "incidents": [0, 1]}, geometry=[west, east], crs=CRS
+    )
     bounds = [X0, Y0, X0 + 3000, Y0 + 2500]
-    row, col = _pixel(inside, bounds)
-    g = mpimg.imread(maps.gaps_map(tmp_path / "g.png", gaps, None, None, "Gaps", STD))[..., :3]
-    f = mpimg.imread(maps.first_due_map(tmp_path / "f.png", areas, None, None, "First due", STD))[..., :3]
-    assert np.allclose(g[row - 2 : row + 3, col - 2 : col + 3], 1.0)
-    assert not np.allclose(f[row, col], 1.0)
-    # The gap's outline is drawn: its left edge column carries the outline colour.
-    edge_row, edge_col = _pixel((X0, Y0 + 1250.0), bounds)
-    red = np.asarray(matplotlib.colors.to_rgb(maps.GAP_EDGE_COLOR))
-    patch = g[edge_row - 2 : edge_row + 3, edge_col - 3 : edge_col + 4]
-    assert (np.abs(patch - red).max(axis=2) < 0.1).any()
+    img = mpimg.imread(maps.gaps_map(tmp_path / "g.png", gaps, None, None, "Gaps", STD, label_top=0))[..., :3]
+    r_w, c_w = _pixel((X0 + 700.0, Y0 + 1900.0), bounds)
+    r_e, c_e = _pixel((X0 + 2300.0, Y0 + 1900.0), bounds)
+    west_rgb, east_rgb = img[r_w, c_w], img[r_e, c_e]
+    assert not np.allclose(west_rgb, 1.0) and not np.allclose(east_rgb, 1.0)  # filled, not outlined
+    assert maps.relative_luminance(east_rgb) < maps.relative_luminance(west_rgb)
+    assert maps.demand_classes(np.array([0.0, 4.0, 2500.0])) == [(-np.inf, 0.0), (0.0, 10.0), (10.0, 100.0),
+                                                                  (100.0, 1000.0), (1000.0, 10000.0)]  # fmt: skip
+
+
+def test_depth_map_fills_cells_from_the_timed_grid(rendered, depth_grid):
+    """Issue 10 item 16: the depth map is drawn from the grid, cell by cell: an uncovered cell shows the
+    uncovered colour, a depth-2 cell the depth-2 colour, a cell without a road stays blank."""
+    img = mpimg.imread(rendered["depth"])[..., :3]
+    _, transform = depth_grid
+    bounds = [X0, Y0, X0 + 3000, Y0 + 2500]
+
+    def colour_at(col: int, row: int) -> np.ndarray:
+        x, y = transform @ (col + 0.5, row + 0.5)
+        r, c = _pixel((x, y), bounds)
+        return img[r, c]
+
+    uncovered = np.asarray(matplotlib.colors.to_rgb(maps.UNCOVERED_COLOR))
+    assert np.abs(colour_at(6, 20) - uncovered).max() < 0.03
+    assert np.abs(colour_at(26, 12) - np.asarray(maps.depth_colors(3)[1][:3])).max() < 0.03
+    assert np.allclose(colour_at(1, 1), 1.0, atol=0.02)
+
+
+def _capture(monkeypatch) -> list[Figure]:
+    """Keep the figures the map functions save, to look at their artists."""
+    figures: list[Figure] = []
+    real = maps._save
+
+    def keep(fig, out_png, title):
+        figures.append(fig)
+        return real(fig, out_png, title)
+
+    monkeypatch.setattr(maps, "_save", keep)
+    return figures
+
+
+def test_every_study_map_shows_boundary_and_zones_at_one_extent(
+    tmp_path, monkeypatch, roads, bases, surface, demand, depth_grid
+):
+    """Issue 10 item 16: with a study frame every map draws the boundary and the zones and has the same extent,
+    whatever its own layers cover; the scale bar is true to that extent (same x-limits)."""
+    boundary = gpd.GeoDataFrame(geometry=[shapely.box(X0 - 500, Y0 - 400, X0 + 3400, Y0 + 2900)], crs=CRS)
+    zones = gpd.GeoDataFrame(
+        {"district": ["West", "East"]},
+        geometry=[shapely.box(X0 - 500, Y0 - 400, X0 + 1500, Y0 + 2900), shapely.box(X0 + 1500, Y0 - 400,
+                                                                                    X0 + 3400, Y0 + 2900)],
+        crs=CRS,
+    )  # fmt: skip
+    frame = maps.study_frame(CRS, boundary=boundary, zones=zones, zone_field="district", include=[bases])
+    assert frame.bounds == pytest.approx(tuple(boundary.total_bounds))
+    figures = _capture(monkeypatch)
+    minutes, transform = surface
+    grid, grid_transform = depth_grid
+    small_gap = _big_square_gaps().assign(geometry=[shapely.box(X0, Y0, X0 + 300, Y0 + 300)])
+    areas = gpd.GeoDataFrame({"base_id": ["B1"]}, geometry=[shapely.box(X0, Y0, X0 + 900, Y0 + 900)], crs=CRS)
+    diff = demand[["geometry"]].iloc[:5].assign(delta=np.arange(5.0) - 2)
+    maps.travel_surface_map(tmp_path / "s.png", minutes, transform, CRS, bases, roads, [2, 4], "T", STD, frame=frame)
+    maps.coverage_depth_map(tmp_path / "d.png", grid, grid_transform, CRS, bases, roads, "D", STD, frame=frame)
+    maps.gaps_map(tmp_path / "g.png", small_gap, bases, roads, "G", STD, frame=frame)
+    maps.first_due_map(tmp_path / "f.png", areas, bases, roads, "F", STD, frame=frame)
+    maps.difference_map(tmp_path / "x.png", diff, "delta", bases, bases, roads, "X", STD, "change", frame=frame)
+    assert len(figures) == 5
+    extents = set()
+    boundary_xy = shapely.get_coordinates(boundary.boundary.iloc[0])
+    for fig in figures:
+        ax = fig.axes[0]
+        extents.add((ax.get_xlim(), ax.get_ylim()))
+        colours = [
+            (matplotlib.colors.to_hex(c.get_colors()[0]), c) for c in ax.collections if isinstance(c, LineCollection)
+        ]
+        drawn = [c for hexc, c in colours if hexc == maps.BOUNDARY_COLOR]
+        assert drawn, "boundary not drawn"
+        assert np.allclose(np.vstack(drawn[0].get_segments()).min(axis=0), boundary_xy.min(axis=0))
+        assert any(hexc == maps.ZONE_COLOR for hexc, _ in colours), "zones not drawn"
+        labels = {t.get_text() for t in ax.texts}
+        assert {"West", "East"} <= labels
+        assert fig.axes[2].get_xlim() == ax.get_xlim()  # the scale-bar axis shares the map's x-limits
+    assert len(extents) == 1
+
+
+def test_difference_map_draws_closures_and_keeps_colour_bar_clear_of_legend(tmp_path, monkeypatch, roads, bases):
+    """Issue 10 item 16: closed roads and the closure polygon are drawn and listed; the colour bar, its title and
+    its end words do not overlap the legend (window extents from matplotlib's renderer)."""
+    figures = _capture(monkeypatch)
+    diff = gpd.GeoDataFrame(
+        {"change": [-120.0, 40.0]},
+        geometry=[shapely.box(X0, Y0, X0 + 900, Y0 + 900), shapely.box(X0 + 1500, Y0, X0 + 2500, Y0 + 900)],
+        crs=CRS,
+    )
+    closed = roads.iloc[:3]
+    flood = gpd.GeoDataFrame(geometry=[shapely.box(X0 + 800, Y0 + 800, X0 + 1600, Y0 + 1400)], crs=CRS)
+    maps.difference_map(
+        tmp_path / "x.png", diff, "change", bases, bases.iloc[:1], roads, "Change", STD,
+        "people gaining (+) or losing (-) coverage in each area", increase_label="gains coverage",
+        decrease_label="loses coverage", closed_roads=closed, closure_areas=flood,
+    )  # fmt: skip
+    fig = figures[-1]
+    renderer = fig.canvas.get_renderer()
+    legend = next(a.get_legend() for a in fig.axes if a.get_legend() is not None)
+    labels = [t.get_text() for t in legend.get_texts()]
+    assert "closed road" in labels and "closed area" in labels
+    ax = fig.axes[0]
+    closed_xy = np.vstack([np.asarray(g.coords) for g in closed.geometry])
+    assert any(
+        isinstance(c, LineCollection)
+        and matplotlib.colors.to_hex(c.get_colors()[0]) == maps.CLOSED_ROAD_COLOR
+        and np.allclose(np.vstack(c.get_segments()), closed_xy)
+        for c in ax.collections
+    )
+    assert any(
+        isinstance(c, PathCollection) and c.get_hatch() and np.allclose(c.get_paths()[0].vertices.min(axis=0),
+                                                                        [X0 + 800, Y0 + 800])
+        for c in ax.collections
+    )  # fmt: skip
+    cax = fig.axes[-1]
+    legend_box = legend.get_window_extent(renderer)
+    for artist in (cax, cax.title, *cax.texts):
+        box = artist.get_window_extent(renderer)
+        assert not box.overlaps(legend_box), artist
+    words = [t.get_window_extent(renderer) for t in cax.texts]
+    assert len(words) == 2 and not words[0].overlaps(words[1])
+
+
+def test_siting_curve_ticks_whole_sites_and_names_them(tmp_path, monkeypatch):
+    """Issue 10 item 16: new sites are whole numbers on the axis; each point carries the ids of its sites."""
+    figures = _capture(monkeypatch)
+    maps.line_chart(
+        tmp_path / "c.png", [0, 1, 2, 3], {"covered %": [91.1, 93.6, 95.9, 97.5]}, "new sites", "covered (%)",
+        "Coverage curve", whole_x=True, point_labels=["", "C05", "C03 C05", "C03 C04 C05"],
+    )  # fmt: skip
+    ax = figures[-1].axes[0]
+    ticks = [t for t in ax.get_xticks() if ax.get_xlim()[0] <= t <= ax.get_xlim()[1]]
+    assert ticks == [0, 1, 2, 3]
+    assert {"C05", "C03 C05", "C03 C04 C05"} <= {t.get_text() for t in ax.texts}
 
 
 def test_same_inputs_give_identical_png(tmp_path, roads, bases, surface):
@@ -293,7 +440,7 @@ def test_same_inputs_give_identical_png(tmp_path, roads, bases, surface):
     assert a.read_bytes() == b.read_bytes()
 
 
-def test_failed_map_write_leaves_existing_file(tmp_path, monkeypatch, demand):
+def test_failed_map_write_leaves_existing_file(tmp_path, monkeypatch, depth_grid):
     """A write that fails half-way leaves the previous output byte-for-byte and no temporary file."""
     out = tmp_path / "d.png"
     out.write_bytes(b"previous output")
@@ -304,19 +451,24 @@ def test_failed_map_write_leaves_existing_file(tmp_path, monkeypatch, demand):
 
     monkeypatch.setattr(Figure, "savefig", broken_savefig)
     with pytest.raises(OSError):
-        maps.coverage_depth_map(out, demand, None, None, "Depth", STD)
+        maps.coverage_depth_map(out, *depth_grid, CRS, None, None, "Depth", STD)
     assert out.read_bytes() == b"previous output"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["d.png"]
 
 
-def test_bad_inputs_raise_one_line_errors(tmp_path, demand, bases, surface):
+def test_bad_inputs_raise_one_line_errors(tmp_path, demand, bases, surface, depth_grid):
     minutes, transform = surface
+    grid, gt = depth_grid
     with pytest.raises(CoverkitError, match="not projected"):
-        maps.coverage_depth_map(tmp_path / "a.png", demand.to_crs("EPSG:4326"), None, None, "T", STD)
+        maps.coverage_depth_map(tmp_path / "a.png", grid, gt, "EPSG:4326", None, None, "T", STD)
     with pytest.raises(FieldError, match="depth"):
-        maps.coverage_depth_map(tmp_path / "a.png", demand.drop(columns="depth"), None, None, "T", STD)
+        maps.coverage_depth_map(
+            tmp_path / "a.png", grid, gt, CRS, None, None, "T", STD, demand=demand[["weight", "geometry"]]
+        )
     with pytest.raises(FieldError, match="whole numbers"):
-        maps.coverage_depth_map(tmp_path / "a.png", demand.assign(depth=-1), None, None, "T", STD)
+        maps.coverage_depth_map(tmp_path / "a.png", grid, gt, CRS, None, None, "T", STD, demand=demand.assign(depth=-1))
+    with pytest.raises(FieldError, match="whole numbers"):
+        maps.coverage_depth_map(tmp_path / "a.png", grid + 0.5, gt, CRS, None, None, "T", STD)
     with pytest.raises(CoverkitError, match="strictly increasing"):
         maps.travel_surface_map(tmp_path / "a.png", minutes, transform, CRS, bases, None, [8, 4], "T", STD)
     with pytest.raises(CoverkitError, match="standard_text"):

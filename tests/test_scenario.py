@@ -480,7 +480,7 @@ grid_cell_m = 200
     import pyogrio
 
     layers = {n for n, _ in pyogrio.list_layers(run.outputs["layers"])}
-    assert {"closed_roads", "comparison", "about", "points_calls_first_due", "changed_areas_first_due"} <= layers
+    assert {"closed_roads", "comparison", "about", "change_points_calls_first_due", "changed_areas_first_due"} <= layers
     table = pd.read_csv(run.outputs["table"])
     comp = run.comparisons[("First due", "calls")]
     assert table.loc[0, "lost_points"] == comp.lost_points > 0

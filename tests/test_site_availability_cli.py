@@ -56,7 +56,7 @@ def _site(net_path, out, *extra):
 def test_mclp_choice_is_the_enumerated_optimum_and_coverage_agrees(net_path, tmp_path):
     out = tmp_path / "site.gpkg"
     assert _site(net_path, out, "--add", "2", "--model", "mclp") == 0
-    chosen = gpd.read_file(out, layer="chosen")
+    chosen = gpd.read_file(out, layer="site_chosen")
     assert len(chosen) == 2
     net = RoadNetwork.load(net_path)
     bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
@@ -69,23 +69,23 @@ def test_mclp_choice_is_the_enumerated_optimum_and_coverage_agrees(net_path, tmp
     fixed_cov = cov[:, prob.fixed].any(axis=1)
     free = np.flatnonzero(~prob.fixed)
     best = max((w[fixed_cov | cov[:, list(pair)].any(axis=1)].sum(), pair) for pair in itertools.combinations(free, 2))
-    summary = gpd.read_file(out, layer="summary")
+    summary = gpd.read_file(out, layer="site_summary")
     assert summary["covered_share_after"].iloc[0] * w.sum() == pytest.approx(best[0], rel=1e-9)
     # an independent evaluation with the chosen sites as bases gives the same covered share
     chosen_pts = cands[cands["id"].isin(chosen["id"].astype(str))]
     all_bases = pd.concat([bases[["id", "geometry"]], chosen_pts[["id", "geometry"]]], ignore_index=True)
     res = evaluate_coverage(net, gpd.GeoDataFrame(all_bases, crs=net.crs), demand, std)
     assert res.summary()["covered_share"] == pytest.approx(summary["covered_share_after"].iloc[0], rel=1e-9)
-    curve = gpd.read_file(out, layer="curve")
+    curve = gpd.read_file(out, layer="site_curve")
     assert list(curve["new_sites"]) == [0, 1, 2, 3]
     assert curve["covered_share"].is_monotonic_increasing
-    assert (tmp_path / "site-curve.png").is_file()
+    assert (tmp_path / "maps" / "site_curve.png").is_file()
 
 
 def test_rank_lists_every_candidate_alone(net_path, tmp_path):
     out = tmp_path / "rank.gpkg"
     assert _site(net_path, out, "--rank") == 0
-    ranking = gpd.read_file(out, layer="ranking")
+    ranking = gpd.read_file(out, layer="site_ranking")
     src = pd.read_csv(DEMO / "candidates.csv")
     assert sorted(ranking["id"].astype(str)) == sorted(src["id"].astype(str))
     assert ranking["added_weight"].is_monotonic_decreasing
@@ -94,8 +94,8 @@ def test_rank_lists_every_candidate_alone(net_path, tmp_path):
 def test_lscp_target_is_reached_with_fewest_sites(net_path, tmp_path):
     out = tmp_path / "lscp.gpkg"
     assert _site(net_path, out, "--model", "lscp", "--target", "0.95") == 0
-    summary = gpd.read_file(out, layer="summary").iloc[0]
-    curve = gpd.read_file(out, layer="curve")
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
+    curve = gpd.read_file(out, layer="site_curve")
     assert summary["covered_share_after"] >= 0.95
     n = int(summary["new_sites"])
     assert len(curve) > 0
@@ -177,13 +177,13 @@ def test_availability_units_table_and_workloads(net_path, tmp_path, capsys):
         ]
     )
     assert code == 0
-    units = gpd.read_file(out, layer="units")
+    units = gpd.read_file(out, layer="availability_units")
     stations = pd.read_csv(DEMO / "stations.csv")
     assert len(units) == stations["units"].sum()
     assert list(units.columns[:3]) == ["base_id", "unit", "workload"]
     offered = 3 * 45 / 60  # erlangs
     assert units["workload"].sum() == pytest.approx(offered, rel=1e-6)
-    demand = gpd.read_file(out, layer="demand")
+    demand = gpd.read_file(out, layer="availability_demand")
     # the hypercube's all-busy probability is the M/M/N one (Larson 1974): every call waits with the Erlang C
     # probability, computed here by the Erlang B recursion and C = B / (1 - rho (1 - B)) (Erlang 1917)
     n_units = len(units)

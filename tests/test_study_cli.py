@@ -109,8 +109,49 @@ def test_demo_writes_report_layers_and_maps(demo_run):
     assert "Where a new station would help" in html and "Busy units" in html
     assert "http://" not in html and "https://" not in html
     layers = {name for name, _ in pyogrio.list_layers(out / "coverage.gpkg")}
-    assert {"bases", "drive_time_polygons", "gaps_first_due_4_min", "first_due_als_8_min", "summary"} <= layers
-    assert {"site_chosen", "site_curve", "site_ranking", "units"} <= layers
+    assert {"bases", "reach_by_base", "gaps_first_due_4_min", "first_due_als_8_min", "summary"} <= layers
+    assert {"site_chosen", "site_curve", "site_ranking", "availability_units"} <= layers
+
+
+def test_demo_maps_share_one_extent_and_show_the_boundary(demo_run):
+    """Issue 10 item 16: every map of the study draws the study boundary at the same place on the page (one
+    extent for all maps): on three rows across the map frame, the first and last boundary-coloured pixels sit in
+    the same columns on the surface, depth, gaps and first-due maps."""
+    import matplotlib.image as mpimg
+
+    from coverkit.report import maps
+
+    paths = sorted(p for p in (demo_run / "maps").glob("*.png") if p.stem not in ("site_curve", "calibration"))
+    assert len(paths) >= 10
+    ink = np.array(maps.matplotlib.colors.to_rgb(maps.BOUNDARY_COLOR))
+    px_w = round(maps.FIGSIZE_IN[0] * maps.DPI)
+    left, right = round(maps._MAP_BOX[0] * px_w) + 3, round((maps._MAP_BOX[0] + maps._MAP_BOX[2]) * px_w) - 3
+    found = {}
+    for path in paths:
+        img = mpimg.imread(path)[..., :3]
+        edges = []
+        for row in (300, 500, 700):
+            dark = np.flatnonzero(np.abs(img[row, left:right] - ink).max(axis=1) < 0.06)
+            assert dark.size, f"{path.name}: no boundary on row {row}"
+            edges.append((int(dark[0]), int(dark[-1])))
+        found[path.name] = edges
+    assert len(set(map(tuple, found.values()))) == 1, found
+
+
+def test_demo_report_tables_read_in_words(demo_run):
+    """Issue 10 item 17: headings in words (no raw column names), raster demand counted in cells, one thousands
+    separator (a comma) in every number of 1,000 or more, and '1 call' rather than '1 calls'."""
+    import re
+
+    html = (demo_run / "report.html").read_text()
+    headings = re.findall(r"<th[^>]*>([^<]*)</th>", html)
+    assert headings and not [h for h in headings if "_" in h]
+    assert "25,441 cells" in html and "25,441 points" not in html
+    numbers = re.findall(r'<td class="num">([^<]*)</td>', html)
+    assert numbers and not [n for n in numbers if re.fullmatch(r"-?\d{4,}(\.\d+)?", n)]
+    assert not re.search(r"\b1 (calls|bases|units|points|cells)\b", html)
+    # workloads of a few per cent read as per cent with a decimal, never as 0.0
+    assert "workload (% of time busy)" in html
 
 
 def test_nfpa_1710_standard_is_evaluated_and_reported(demo_run):
@@ -181,13 +222,13 @@ def test_cover_command_output_contract(demo_net, tmp_path, capsys):
     assert code == 0
     text = capsys.readouterr().out
     assert "covered" in text and "Planning estimates only" in text
-    demand = gpd.read_file(out, layer="demand")
+    demand = gpd.read_file(out, layer="demand_incidents_8_min")
     for col in ("id", "weight", "travel_s", "response_s", "first_base", "second_base", "depth", "covered"):
         assert col in demand.columns
     src = pd.read_csv(DEMO / "incidents.csv")
     assert len(demand) == int(src["priority"].isin([1, 2]).sum())
     assert set(demand["id"].astype(str)) == set(src.loc[src["priority"].isin([1, 2]), "id"].astype(str))
-    gaps = gpd.read_file(out, layer="gaps")
+    gaps = gpd.read_file(out, layer="gaps_8_min")
     uncovered = demand.loc[~demand["covered"], "weight"].sum()
     assert gaps["population"].sum() == pytest.approx(uncovered)
 
@@ -216,7 +257,7 @@ def test_cover_accepts_id_lon_lat_weight_points(demo_net, tmp_path):
         )
         == 0
     )
-    demand = gpd.read_file(out, layer="demand")
+    demand = gpd.read_file(out, layer="demand_pts_8_min")
     assert list(demand["id"]) == ["a", "b"] and list(demand["weight"]) == [2.5, 4.0]
     assert demand["covered"].all()
 
@@ -395,7 +436,7 @@ def test_same_inputs_give_the_same_outputs(demo_net, tmp_path):
             == 0
         )
         outs.append(out)
-    for layer in ("demand", "gaps", "first_due", "per_base"):
+    for layer in ("demand_incidents_8_min", "gaps_8_min", "first_due_8_min", "by_base_incidents_8_min"):
         a = gpd.read_file(outs[0], layer=layer)
         b = gpd.read_file(outs[1], layer=layer)
         pd.testing.assert_frame_equal(

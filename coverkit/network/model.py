@@ -50,7 +50,7 @@ NODE_COLUMNS = ["node", "node_id", "x", "y", "signal"]
 MIN_EDGE_S = 1e-9
 
 
-@dataclass
+@dataclass(repr=False)
 class RoadNetwork:
     """A directed drivable road network.
 
@@ -76,6 +76,16 @@ class RoadNetwork:
     profile: Profile
     info: dict = field(default_factory=dict)
     _csr_cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
+
+    def __repr__(self) -> str:
+        # one line: a notebook prints the network, not its tables
+        crs = self.crs.to_string() if self.crs is not None else "no CRS"
+        name = getattr(self.profile, "name", "?")
+        km = float(self.edges["length_m"].sum()) / 1000.0 if "length_m" in self.edges else float("nan")
+        return (
+            f"RoadNetwork({self.n_nodes:,} nodes, {self.n_edges:,} directed edges, {km:,.1f} km, "
+            f"profile '{name}', {crs})"
+        )
 
     # -- sizes and arrays ------------------------------------------------------------------------------------------
     @property

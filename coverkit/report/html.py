@@ -106,6 +106,8 @@ class HtmlReport:
         caption: str | None = None,
         float_format: str | Callable[[float], str] = "{:,.1f}",
         index: bool = False,
+        *,
+        formats: Mapping[str, Callable[[float], str]] | None = None,
     ) -> None:
         """A table from a DataFrame; text escaped, numbers right-aligned, missing values shown as an en dash.
 
@@ -120,6 +122,9 @@ class HtmlReport:
             non-integer numbers; integers always print whole with thousands separators.
         index
             Whether to show the index as the first column.
+        formats
+            Optional number format per column name (overrides ``float_format`` there), e.g. from
+            :func:`coverkit.report.tables.present`.
         """
         if not isinstance(df, pd.DataFrame):
             raise CoverkitError(f"add_table expects a pandas DataFrame, got {type(df).__name__}.")
@@ -130,11 +135,13 @@ class HtmlReport:
             (f'<th scope="col" class="num">{_esc(c)}</th>' if num else f'<th scope="col">{_esc(c)}</th>')
             for c, num in zip(frame.columns, numeric, strict=True)
         )
+        formats = formats or {}
+        fmts = [formats.get(str(c), fmt) for c in frame.columns]
         rows = []
         for values in frame.itertuples(index=False, name=None):
             cells = []
-            for v in values:
-                text, is_num = _cell(v, fmt)
+            for v, f in zip(values, fmts, strict=True):
+                text, is_num = _cell(v, f)
                 cells.append(f'<td class="num">{text}</td>' if is_num else f"<td>{text}</td>")
             rows.append("<tr>" + "".join(cells) + "</tr>")
         cap = f"<caption>{_esc(caption)}</caption>" if caption else ""
@@ -239,6 +246,6 @@ def _cell(value: object, fmt: Callable[[float], str]) -> tuple[str, bool]:
         if math.isnan(v):
             return "–", True
         if math.isinf(v):
-            return ("∞" if v > 0 else "−∞"), True
+            return ("not reached" if v > 0 else "−∞"), True
         return _esc(fmt(v)), True
     return _esc(value), False

@@ -18,6 +18,7 @@ import math
 import os
 import textwrap
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import affine
@@ -40,6 +41,7 @@ import coverkit
 from coverkit.atomic import atomic_path
 from coverkit.errors import CoverkitError, FieldError
 from coverkit.network.crs import parse_crs
+from coverkit.report.tables import plural
 
 #: Output resolution (dots per inch) and page size (inches); fixed so outputs are comparable run to run.
 DPI = 150
@@ -49,11 +51,19 @@ FIGSIZE_IN = (8.0, 7.0)
 SEQUENTIAL_CMAP = "cividis_r"
 #: Diverging colormap for before/after differences, centred on zero.
 DIVERGING_CMAP = "PuOr_r"
-#: Colour of gap outlines (gaps are outlined, never filled).
-GAP_EDGE_COLOR = "#a50f15"
-#: Colour for demand that no base reaches within the standard (depth 0).
-UNCOVERED_COLOR = "#d9d9d9"
-UNCOVERED_EDGE = "#7a0177"
+#: Sequential colormap for the demand a gap holds (light = little, dark = much).
+GAP_CMAP = "OrRd"
+#: Colour of places no base reaches within the standard (depth 0): warm, apart from the cool depth colours.
+UNCOVERED_COLOR = "#c8553d"
+UNCOVERED_EDGE = "#7f2a1a"
+#: Depth colormap (1, 2, 3+ bases within the standard; light to dark).
+DEPTH_CMAP = "GnBu"
+#: Study boundary and zones, drawn over every thematic layer of a study's maps.
+BOUNDARY_COLOR = "#1a1a1a"
+ZONE_COLOR = "#4d4d4d"
+#: Closed roads and closure polygons on comparison maps.
+CLOSED_ROAD_COLOR = "#111111"
+CLOSURE_EDGE_COLOR = "#3b3b3b"
 #: Our own muted qualitative palette for first-due areas (light enough for roads and labels to read on top).
 FIRST_DUE_PALETTE = (
     "#cdbb9b",
@@ -151,8 +161,8 @@ def band_colors(n_bands: int) -> list[tuple[float, float, float, float]]:
 
 def depth_colors(max_depth: int) -> list[tuple[float, float, float, float]]:
     """Colours for coverage depth 1..max_depth (light to dark, sequential); depth 0 uses ``UNCOVERED_COLOR``."""
-    cmap = matplotlib.colormaps["YlGnBu"]
-    return [cmap(float(t)) for t in np.linspace(0.35, 0.9, max_depth)]
+    cmap = matplotlib.colormaps[DEPTH_CMAP]
+    return [cmap(float(t)) for t in np.linspace(0.3, 0.9, max_depth)]
 
 
 def diverging_norm(values: np.ndarray, limit: float | None = None) -> mcolors.Normalize:
@@ -195,12 +205,9 @@ def neighbour_colors(geoms: np.ndarray, group: np.ndarray, n_colors: int) -> dic
     return {k: int(colour[i]) for i, k in enumerate(keys)}
 
 
-def rank_gaps(gaps: gpd.GeoDataFrame) -> np.ndarray:
-    """Row positions of ``gaps`` ordered largest population first (then incidents, then ``gap_id``)."""
-    pop = np.nan_to_num(np.asarray(gaps["population"], dtype=float), nan=0.0)
-    inc = np.nan_to_num(np.asarray(gaps["incidents"], dtype=float), nan=0.0)
-    ids = np.asarray([str(g) for g in gaps["gap_id"]])
-    return np.lexsort((ids, -inc, -pop))
+def rank_gaps(gaps: gpd.GeoDataFrame, value_column: str = "population", count_column: str = "incidents") -> np.ndarray:
+    """Row positions of ``gaps`` ordered by ``value_column`` (largest first), then ``count_column``, then ``gap_id``."""
+    return _rank(gaps, value_column, count_column if count_column in gaps.columns else None)
 
 
 def fit_extent(
@@ -270,6 +277,54 @@ def _bounds_union(*layers: gpd.GeoDataFrame | None, extra: Sequence[float] | Non
     return [stack[:, 0].min(), stack[:, 1].min(), stack[:, 2].max(), stack[:, 3].max()]
 
 
+@dataclass(frozen=True)
+class MapFrame:
+    """What every map of one study shares: one extent, the study boundary and the zones.
+
+    Build it once per study with :func:`study_frame` and pass it to every map function, so that all maps of a
+    study are drawn at the same extent and scale, with the same boundary and zones on top.
+
+    Attributes
+    ----------
+    bounds
+        Map extent ``(xmin, ymin, xmax, ymax)`` in metres of ``crs``.
+    crs
+        The projected CRS of the maps.
+    boundary
+        Study boundary polygons (or None when the study has none).
+    zones
+        Zone polygons (or None), with their id in ``zone_field``.
+    zone_field
+        Name of the zones' id column (labels on the map).
+    """
+
+    bounds: tuple[float, float, float, float]
+    crs: CRS
+    boundary: gpd.GeoDataFrame | None = None
+    zones: gpd.GeoDataFrame | None = None
+    zone_field: str | None = None
+
+
+def study_frame(
+    crs: object,
+    *,
+    boundary: gpd.GeoDataFrame | None = None,
+    zones: gpd.GeoDataFrame | None = None,
+    zone_field: str | None = None,
+    include: Sequence[gpd.GeoDataFrame | None] = (),
+    fallback_bounds: Sequence[float] | None = None,
+) -> MapFrame:
+    """The shared frame of a study's maps: the extent of the boundary (else the zones, else ``fallback_bounds``)
+    together with the layers in ``include`` (e.g. the bases, so that a base outside the boundary still shows)."""
+    crs = _map_crs(crs, "map frame CRS")
+    boundary = _layer(boundary, "study boundary", crs)
+    zones = _layer(zones, "zones", crs, [zone_field] if zone_field else ())
+    layers = [layer for layer in (boundary, zones) if layer is not None and len(layer)]
+    extra = None if layers else fallback_bounds
+    bounds = _bounds_union(*(layers[:1] or [None]), *(_layer(g, "layer", crs) for g in include), extra=extra)
+    return MapFrame(tuple(float(b) for b in bounds), crs, boundary, zones, zone_field)
+
+
 # ----------------------------------------------------------------------------------------------------------------
 # Geometry to matplotlib collections (geopandas' own plotting redraws the whole figure on every call)
 # ----------------------------------------------------------------------------------------------------------------
@@ -319,10 +374,20 @@ def _draw_polygons(ax: object, geoms: np.ndarray, facecolors: object, **style: o
 class _Page:
     """One map page: figure, map axes fitted to the data, legend panel, furniture."""
 
-    def __init__(self, title: str, standard_text: str, crs: CRS | None, bounds: Sequence[float] | None) -> None:
+    def __init__(
+        self,
+        title: str,
+        standard_text: str,
+        crs: CRS | None,
+        bounds: Sequence[float] | None,
+        frame: MapFrame | None = None,
+    ) -> None:
         self.fig = Figure(figsize=FIGSIZE_IN, dpi=DPI)
         FigureCanvasAgg(self.fig)
         self.crs = crs
+        self.frame = frame
+        if frame is not None and bounds is not None:
+            bounds = frame.bounds  # one extent for every map of a study
         self.fig.text(0.035, 0.972, title, ha="left", va="top", fontsize=13, fontweight="bold")
         self.fig.text(
             0.035, 0.937, "\n".join(textwrap.wrap(standard_text, 110)), ha="left", va="top", fontsize=9, color="#222"
@@ -347,6 +412,41 @@ class _Page:
         self._furniture: list[tuple[object, str]] = []
         self._scale_bar()
         self._north_arrow()
+        self._draw_frame()
+
+    def _draw_frame(self) -> None:
+        """Zones (thin dashed, labelled) and the study boundary (dark, with a white halo) above the themes."""
+        frame = self.frame
+        if frame is None:
+            return
+        if frame.zones is not None and len(frame.zones):
+            # each shared edge once: drawn twice, two dash patterns out of phase would read as a solid line
+            edges = shapely.line_merge(shapely.union_all(shapely.boundary(frame.zones.geometry.to_numpy())))
+            segments = _line_segments(np.array([edges], dtype=object))
+            self.ax.add_collection(
+                LineCollection(segments, colors=ZONE_COLOR, linewidths=0.7, linestyles=(0, (4, 2)), zorder=6)
+            )
+            if frame.zone_field:
+                pts = shapely.get_coordinates(frame.zones.geometry.representative_point().to_numpy())
+                for (x, y), zid in zip(pts, frame.zones[frame.zone_field], strict=True):
+                    self.ax.text(
+                        x, y, str(zid), ha="center", va="center", fontsize=7, style="italic", color=ZONE_COLOR,
+                        path_effects=_HALO, zorder=6.5, clip_on=True,
+                    )  # fmt: skip
+            self._furniture.append((Line2D([], [], color=ZONE_COLOR, lw=0.8, ls=(0, (4, 2))), "Zone boundary"))
+        if frame.boundary is not None and len(frame.boundary):
+            segments = _line_segments(frame.boundary.geometry.to_numpy())
+            self.ax.add_collection(LineCollection(segments, colors="white", linewidths=3.2, zorder=6.8))
+            self.ax.add_collection(LineCollection(segments, colors=BOUNDARY_COLOR, linewidths=1.5, zorder=6.9))
+            self._furniture.append((Line2D([], [], color=BOUNDARY_COLOR, lw=1.5), "Study boundary"))
+
+    def clip_to_boundary(self, artist: object) -> None:
+        """Clip a full-extent layer (a raster) to the study boundary, when the frame has one."""
+        frame = self.frame
+        if frame is None or frame.boundary is None or not len(frame.boundary):
+            return
+        paths, _ = _polygon_paths(frame.boundary.geometry.to_numpy())
+        artist.set_clip_path(MplPath.make_compound_path(*paths), self.ax.transData)
 
     # -- furniture --------------------------------------------------------------------------------------------
     def _scale_bar(self) -> None:
@@ -432,9 +532,9 @@ class _Page:
         """A thematic legend entry; roads and bases are listed after all of these."""
         self._entries.append((handle, label))
 
-    def legend(self, title: str) -> None:
+    def legend(self, title: str) -> object:
         items = self._entries + self._furniture
-        self.panel.legend(
+        return self.panel.legend(
             [h for h, _ in items],
             ["\n".join(textwrap.wrap(t, 25)) for _, t in items],
             title=title,
@@ -492,6 +592,8 @@ def travel_surface_map(
     band_edges_minutes: Sequence[float],
     title: str,
     standard_text: str,
+    *,
+    frame: MapFrame | None = None,
 ) -> Path:
     """Travel-time surface in discrete bands (light = near, dark = far).
 
@@ -512,6 +614,8 @@ def travel_surface_map(
         edge show as one further, darkest band.
     title, standard_text
         Map title; the response standard used (shown under the title).
+    frame
+        The study's shared extent, boundary and zones (:func:`study_frame`); the surface is clipped to the boundary.
 
     Returns
     -------
@@ -544,12 +648,12 @@ def travel_surface_map(
     bases = _layer(bases, "bases", crs, ["base_id"])
     roads = _layer(roads, "roads", crs)
 
-    page = _Page(title, standard_text, crs, _bounds_union(bases, extra=[left, bottom, right, top]))
+    page = _Page(title, standard_text, crs, _bounds_union(bases, extra=[left, bottom, right, top]), frame)
     bounds = [0.0, *edges, math.inf]
     colours = band_colors(len(bounds) - 1)
     cmap = mcolors.ListedColormap(colours[:-1]).with_extremes(over=colours[-1], bad=(0, 0, 0, 0))
     norm = mcolors.BoundaryNorm([0.0, *edges], cmap.N)
-    page.ax.imshow(
+    image = page.ax.imshow(
         np.ma.masked_invalid(surface),
         cmap=cmap,
         norm=norm,
@@ -558,6 +662,7 @@ def travel_surface_map(
         interpolation="nearest",
         zorder=1,
     )
+    page.clip_to_boundary(image)
     page.roads(roads)
     page.bases(bases)
     lower = 0.0
@@ -572,72 +677,110 @@ def travel_surface_map(
 
 def coverage_depth_map(
     out_png: str | os.PathLike[str],
-    demand: gpd.GeoDataFrame,
+    depth_grid: np.ndarray,
+    transform: affine.Affine,
+    crs: object,
     bases: gpd.GeoDataFrame | None,
     roads: gpd.GeoDataFrame | None,
     title: str,
     standard_text: str,
+    *,
+    demand: gpd.GeoDataFrame | None = None,
     max_depth: int = 3,
+    frame: MapFrame | None = None,
 ) -> Path:
-    """Demand points coloured by coverage depth (number of bases reaching them within the standard).
+    """Coverage depth (bases reaching a place within the standard) as filled areas from the timed grid.
 
-    Categories 0 (not covered, grey with a dark outline, drawn on top), 1, 2, ..., ``max_depth``+ (sequential,
-    light to dark). The legend gives each category's share of the total demand weight.
+    Categories 0 (not covered, a warm colour apart from the rest), 1, 2, ..., ``max_depth``+ (sequential, light to
+    dark); cells with no road within reach stay blank. With ``demand`` the legend gives each category's share of
+    the demand weight.
 
     Parameters
     ----------
+    depth_grid
+        2-D integer array of depth per cell, rows north to south; -1 where no road is within reach (as in
+        :class:`coverkit.coverage.AreaLayers`).
+    transform
+        Affine transform of the grid (cell edges in metres), north-up.
+    crs
+        Projected CRS in metres of the grid.
     demand
-        Points with integer ``depth`` and numeric ``weight`` (e.g. people or incidents), projected CRS in metres.
+        Optional demand with whole-number ``depth`` and numeric ``weight`` (people or calls) for the legend shares.
     max_depth
-        Highest category; deeper points join it (``3`` gives 0, 1, 2, 3+).
+        Highest category; deeper places join it (``3`` gives 0, 1, 2, 3+).
+    frame
+        The study's shared extent, boundary and zones (:func:`study_frame`).
     """
     standard_text = _check_standard(standard_text)
     if int(max_depth) < 1:
         raise CoverkitError(f"max_depth {max_depth} must be at least 1.")
     max_depth = int(max_depth)
-    crs = _map_crs(getattr(demand, "crs", None), "demand layer")
-    demand = _layer(demand, "demand", crs, ["depth", "weight"])
+    crs = _map_crs(crs, "depth grid CRS")
+    grid = np.asarray(depth_grid)
+    if grid.ndim != 2 or grid.size == 0:
+        raise CoverkitError(f"depth_grid must be a non-empty 2-D array; got shape {grid.shape}.")
+    if not np.issubdtype(grid.dtype, np.integer):
+        raise FieldError("depth_grid must hold whole numbers (bases reaching each cell; -1 where no road is near).")
+    shares = None
+    if demand is not None:
+        demand = _layer(demand, "demand", crs, ["depth", "weight"])
+        depth_raw = np.asarray(demand["depth"], dtype=float)
+        if np.any(~np.isfinite(depth_raw)) or np.any(depth_raw < 0) or np.any(depth_raw != np.round(depth_raw)):
+            raise FieldError("demand: column depth must hold whole numbers >= 0 (bases reaching each point).")
+        weight = np.nan_to_num(np.asarray(demand["weight"], dtype=float), nan=0.0)
+        cat = np.minimum(depth_raw.astype(np.int64), max_depth)
+        total = float(weight.sum())
+        shares = np.bincount(cat, weights=weight, minlength=max_depth + 1) / total * 100 if total > 0 else None
+    t = affine.Affine(*tuple(transform)[:6])
+    if t.b != 0 or t.d != 0 or t.a <= 0 or t.e >= 0:
+        raise CoverkitError("the depth grid transform must be north-up (rows north to south), without rotation.")
+    nrows, ncols = grid.shape
+    extent = (t.c, t.c + t.a * ncols, t.f + t.e * nrows, t.f)
     bases = _layer(bases, "bases", crs, ["base_id"])
     roads = _layer(roads, "roads", crs)
-    depth_raw = np.asarray(demand["depth"], dtype=float)
-    if np.any(~np.isfinite(depth_raw)) or np.any(depth_raw < 0) or np.any(depth_raw != np.round(depth_raw)):
-        raise FieldError("demand: column depth must hold whole numbers >= 0 (bases reaching each point).")
-    depth = np.minimum(depth_raw.astype(np.int64), max_depth)
-    weight = np.nan_to_num(np.asarray(demand["weight"], dtype=float), nan=0.0)
-    total = float(weight.sum())
 
-    page = _Page(title, standard_text, crs, _bounds_union(demand, bases))
+    page = _Page(
+        title, standard_text, crs, _bounds_union(bases, extra=[extent[0], extent[2], extent[1], extent[3]]), frame
+    )
+    colours = [mcolors.to_rgba(UNCOVERED_COLOR), *depth_colors(max_depth)]
+    cmap = mcolors.ListedColormap(colours).with_extremes(bad=(0, 0, 0, 0))
+    shown = np.ma.masked_less(np.minimum(grid, max_depth), 0)
+    image = page.ax.imshow(
+        shown, cmap=cmap, norm=mcolors.NoNorm(vmin=0, vmax=max_depth), extent=extent, origin="upper",
+        interpolation="nearest", zorder=1,
+    )  # fmt: skip
+    page.clip_to_boundary(image)
     page.roads(roads)
-    xy = shapely.get_coordinates(demand.geometry.representative_point().to_numpy())
-    size = float(np.clip(9000.0 / max(len(demand), 1), 3.0, 30.0))
-    colours = [UNCOVERED_COLOR, *depth_colors(max_depth)]
-    entries = []
-    for d in (*range(max_depth, 0, -1), 0):  # deepest first, uncovered last so it is never hidden
-        sel = depth == d
-        if d == 0:
-            page.ax.scatter(
-                xy[sel, 0],
-                xy[sel, 1],
-                s=size * 1.3,
-                c=[UNCOVERED_COLOR],
-                edgecolors=UNCOVERED_EDGE,
-                linewidths=0.8,
-                zorder=6,
-            )
-        else:
-            page.ax.scatter(xy[sel, 0], xy[sel, 1], s=size, c=[colours[d]], edgecolors="none", zorder=5)
-        share = 100.0 * weight[sel].sum() / total if total > 0 else 0.0
-        name = "0, not covered" if d == 0 else (f"{d}+" if d == max_depth else str(d))
-        entries.append((d, f"{name} ({share:.1f} %)"))
-    for d, text in sorted(entries):
-        if d == 0:
-            h = Line2D([], [], ls="none", marker="o", ms=6, mfc=UNCOVERED_COLOR, mec=UNCOVERED_EDGE, mew=1.0)
-        else:
-            h = Line2D([], [], ls="none", marker="o", ms=6, mfc=colours[d], mec="none")
-        page.add_legend(h, text)
+    for d in range(max_depth + 1):
+        name = (
+            "0 - not covered" if d == 0 else (f"{d}+ bases" if d == max_depth else f"{d} base" + ("s" if d > 1 else ""))
+        )
+        if shares is not None:
+            name += f" ({shares[d]:.1f} %)"
+        page.add_legend(Patch(fc=colours[d], ec="#555", lw=0.4), name)
+    page.add_legend(Patch(fc="white", ec="#555", lw=0.4), "no road within reach")
     page.bases(bases)
-    page.legend("Coverage depth: bases\nwithin the standard\n(% of demand weight)")
+    page.legend("Bases within the standard" + ("\n(% of demand)" if shares is not None else ""))
     return page.save(out_png, title)
+
+
+def demand_classes(values: np.ndarray) -> list[tuple[float, float]]:
+    """Class limits for shading areas by the demand they hold: 0, then powers of ten up to the largest value.
+
+    Returns ``[(lo, hi), ...]`` with ``lo < v <= hi`` (the first class is exactly 0). Decades read the same on
+    any study and keep small and large gaps apart (common cartographic practice for skewed counts, no source).
+    """
+    v = np.nan_to_num(np.asarray(values, dtype=float), nan=0.0)
+    top = float(v.max()) if v.size else 0.0
+    classes = [(-math.inf, 0.0)]
+    if top <= 0:
+        return classes
+    hi_exp = max(1, math.ceil(math.log10(top)))
+    edges = [0.0, *(10.0**k for k in range(1, hi_exp + 1))]
+    if top <= 10.0:
+        edges = [0.0, 10.0]
+    classes += list(itertools.pairwise(edges))
+    return classes
 
 
 def gaps_map(
@@ -648,54 +791,114 @@ def gaps_map(
     title: str,
     standard_text: str,
     label_top: int = 5,
+    *,
+    value_column: str = "population",
+    value_unit: str = "people",
+    count_column: str | None = "incidents",
+    count_unit: str = "calls",
+    frame: MapFrame | None = None,
 ) -> Path:
-    """Coverage gaps as outlines (never filled), the largest ``label_top`` numbered by population rank.
+    """Coverage gaps as filled areas shaded by the demand they hold, with a thin outline; the largest
+    ``label_top`` numbered by rank.
 
     Parameters
     ----------
     gaps
-        Polygons with ``gap_id``, ``population`` (people) and ``incidents`` (count), projected CRS in metres.
+        Polygons with ``gap_id`` and numeric ``value_column`` (uncovered demand inside, in ``value_unit``),
+        optionally ``count_column`` (uncovered calls inside), projected CRS in metres.
     label_top
         How many of the largest gaps to number on the map and list in the legend.
+    value_column, value_unit
+        The column that shades the gaps and its unit word for the legend (``"people"``, ``"calls"``).
+    count_column, count_unit
+        A second figure listed for the numbered gaps, or None.
+    frame
+        The study's shared extent, boundary and zones (:func:`study_frame`).
     """
     standard_text = _check_standard(standard_text)
     crs = _map_crs(getattr(gaps, "crs", None), "gaps layer")
-    gaps = _layer(gaps, "gaps", crs, ["gap_id", "population", "incidents"])
+    if count_column is not None and count_column not in gaps.columns:
+        count_column = None
+    gaps = _layer(gaps, "gaps", crs, ["gap_id", value_column, *([count_column] if count_column else [])])
     bases = _layer(bases, "bases", crs, ["base_id"])
     roads = _layer(roads, "roads", crs)
 
-    page = _Page(title, standard_text, crs, _bounds_union(gaps, bases))
-    page.roads(roads)
+    page = _Page(title, standard_text, crs, _bounds_union(gaps, bases), frame)
+    values = np.nan_to_num(np.asarray(gaps[value_column], dtype=float), nan=0.0)
+    classes = demand_classes(values)
+    cmap = matplotlib.colormaps[GAP_CMAP]
+    shades = [cmap(float(t)) for t in np.linspace(0.12, 0.9, len(classes))]
+    cls = np.zeros(len(values), dtype=np.int64)
     if len(gaps):
-        segments = _line_segments(shapely.boundary(gaps.geometry.to_numpy()))
-        page.ax.add_collection(LineCollection(segments, colors=GAP_EDGE_COLOR, linewidths=1.4, zorder=4))
-    page.add_legend(Patch(fc="none", ec=GAP_EDGE_COLOR, lw=1.4), "Gap: not covered within the standard")
-    order = rank_gaps(gaps)[: max(int(label_top), 0)]
+        for i, (lo, hi) in enumerate(classes):
+            cls[(values > lo) & (values <= hi)] = i
+        faces = [shades[c] for c in cls.tolist()]
+        # each gap outlined in a darker tone of its own shade, so that empty ribbons along roads stay quiet
+        edges = [_darker(shades[c]) for c in cls.tolist()]
+        _draw_polygons(page.ax, gaps.geometry.to_numpy(), faces, zorder=3, linewidths=0.0)
+        paths, row = _polygon_paths(gaps.geometry.to_numpy())
+        page.ax.add_collection(
+            PathCollection(paths, facecolors="none", edgecolors=np.asarray(edges)[row], linewidths=0.5, zorder=3.1)
+        )
+    page.roads(roads)
+    present = set(cls.tolist()) if len(gaps) else set()
+    for i, ((lo, hi), colour) in enumerate(zip(classes, shades, strict=True)):
+        if i not in present:  # the legend lists the classes the map shows
+            continue
+        if hi == 0:
+            text = f"no {value_unit} (0)"
+        elif lo <= 0:
+            text = f"up to {hi:,.0f} {value_unit}"
+        else:
+            text = f"{lo:,.0f}\u2013{hi:,.0f} {value_unit}"
+        page.add_legend(Patch(fc=colour, ec=_darker(colour), lw=0.5), text)
+    order = _rank(gaps, value_column, count_column)[: max(int(label_top), 0)]
     if len(order):
-        points = shapely.get_coordinates(gaps.geometry.iloc[order].representative_point().to_numpy())
+        points = _label_points(gaps.geometry.iloc[order].to_numpy())
         for rank, (row, (x, y)) in enumerate(zip(order, points, strict=True), start=1):
             page.ax.text(
-                x,
-                y,
-                str(rank),
-                ha="center",
-                va="center",
-                fontsize=9,
-                fontweight="bold",
-                color=GAP_EDGE_COLOR,
-                path_effects=_HALO,
-                zorder=7,
-            )
-            pop = float(np.nan_to_num(gaps["population"].iloc[row]))
-            inc = float(np.nan_to_num(gaps["incidents"].iloc[row]))
-            page.add_legend(
-                Line2D([], [], ls="none", marker=f"${rank}$", ms=7, color=GAP_EDGE_COLOR),
-                f"{pop:,.0f} people, {inc:,.0f} incidents",
-            )
+                x, y, str(rank), ha="center", va="center", fontsize=8, fontweight="bold", color="#111",
+                bbox={"boxstyle": "circle,pad=0.25", "fc": "white", "ec": "#111", "lw": 0.8}, zorder=7,
+                clip_on=True,
+            )  # fmt: skip
+            text = _count_text(float(values[row]), value_unit)
+            if count_column:
+                text += ", " + _count_text(float(np.nan_to_num(gaps[count_column].iloc[row])), count_unit)
+            page.add_legend(Line2D([], [], ls="none", marker=f"${rank}$", ms=7, color="#111"), f"gap {rank}: {text}")
     page.bases(bases)
-    title_text = "Coverage gaps" + (f"\n({len(order)} largest numbered)" if len(order) else "")
-    page.legend(title_text)
+    page.legend(f"Gaps: {value_unit} not covered" + (f"\n({len(order)} largest numbered)" if len(order) else ""))
     return page.save(out_png, title)
+
+
+_SINGULAR = {"people": "person", "calls": "call", "incidents": "incident"}
+
+
+def _count_text(n: float, unit: str) -> str:
+    """``'1 person'``, ``'2,194 people'``, ``'1 call'``."""
+    return plural(n, _SINGULAR.get(unit, unit), unit)
+
+
+def _label_points(geoms: np.ndarray) -> np.ndarray:
+    """A point inside the largest part of each geometry (a gap of many pieces is labelled on its main piece)."""
+    parts, row = shapely.get_parts(geoms, return_index=True)
+    area = shapely.area(parts)
+    order = np.lexsort((-area, row))  # by row, largest part first
+    first = order[np.r_[True, np.diff(row[order]) != 0]]
+    return shapely.get_coordinates(shapely.point_on_surface(parts[first]))
+
+
+def _darker(colour: object, amount: float = 0.35) -> tuple[float, float, float, float]:
+    """``colour`` mixed towards black by ``amount`` (0..1)."""
+    r, g, b, a = mcolors.to_rgba(colour)
+    k = 1.0 - amount
+    return (r * k, g * k, b * k, a)
+
+
+def _rank(gaps: gpd.GeoDataFrame, value_column: str, count_column: str | None) -> np.ndarray:
+    value = np.nan_to_num(np.asarray(gaps[value_column], dtype=float), nan=0.0)
+    count = np.nan_to_num(np.asarray(gaps[count_column], dtype=float), nan=0.0) if count_column else np.zeros(len(gaps))
+    ids = np.asarray([str(g) for g in gaps["gap_id"]])
+    return np.lexsort((ids, -count, -value))
 
 
 def first_due_map(
@@ -705,6 +908,9 @@ def first_due_map(
     roads: gpd.GeoDataFrame | None,
     title: str,
     standard_text: str,
+    *,
+    frame: MapFrame | None = None,
+    what: str = "first due",
 ) -> Path:
     """First-due areas (the part of the map each base reaches first), in a muted qualitative palette.
 
@@ -715,6 +921,10 @@ def first_due_map(
     ----------
     areas
         Polygons with ``base_id`` (several rows per base allowed), projected CRS in metres.
+    frame
+        The study's shared extent, boundary and zones (:func:`study_frame`).
+    what
+        The legend's words for an area (``"first due"``, ``"second due"``, ...).
     """
     standard_text = _check_standard(standard_text)
     crs = _map_crs(getattr(areas, "crs", None), "first-due areas layer")
@@ -722,7 +932,7 @@ def first_due_map(
     bases = _layer(bases, "bases", crs, ["base_id"])
     roads = _layer(roads, "roads", crs)
 
-    page = _Page(title, standard_text, crs, _bounds_union(areas, bases))
+    page = _Page(title, standard_text, crs, _bounds_union(areas, bases), frame)
     palette = FIRST_DUE_PALETTE
     groups = np.asarray(areas["base_id"].to_numpy(), dtype=object)
     colour_of = neighbour_colors(areas.geometry.to_numpy(), groups, len(palette)) if len(areas) else {}
@@ -734,10 +944,10 @@ def first_due_map(
     keys = sorted(colour_of, key=str)
     if len(keys) <= len(palette):
         for k in keys:
-            page.add_legend(Patch(fc=palette[colour_of[k]], ec="#777", lw=0.4), f"first due from {k}")
+            page.add_legend(Patch(fc=palette[colour_of[k]], ec="#777", lw=0.4), f"{what} from {k}")
     else:
-        page.add_legend(Patch(fc=palette[0], ec="#777", lw=0.4), "first-due area (colours separate neighbours)")
-    page.legend("First-due areas")
+        page.add_legend(Patch(fc=palette[0], ec="#777", lw=0.4), f"{what} area (colours separate neighbours)")
+    page.legend(f"{what[:1].upper()}{what[1:]} areas")
     return page.save(out_png, title)
 
 
@@ -754,6 +964,10 @@ def difference_map(
     limit: float | None = None,
     increase_label: str | None = None,
     decrease_label: str | None = None,
+    *,
+    closed_roads: gpd.GeoDataFrame | None = None,
+    closure_areas: gpd.GeoDataFrame | None = None,
+    frame: MapFrame | None = None,
 ) -> Path:
     """Before/after difference on a diverging colormap with symmetric limits (zero at the neutral midpoint).
 
@@ -768,6 +982,12 @@ def difference_map(
         Fixed half-range of the colour scale (same units); default the largest absolute value.
     increase_label, decrease_label
         Optional words for the two ends of the scale, e.g. ``"slower"`` / ``"faster"``.
+    closed_roads
+        Road lines the scenario closes, drawn dark and thick over the roads.
+    closure_areas
+        Polygons the scenario closes (e.g. a flood zone), drawn hatched with an outline.
+    frame
+        The study's shared extent, boundary and zones (:func:`study_frame`).
     """
     standard_text = _check_standard(standard_text)
     crs = _map_crs(getattr(diff, "crs", None), "difference layer")
@@ -775,6 +995,8 @@ def difference_map(
     before = _layer(bases_before, "bases before", crs, ["base_id"])
     after = _layer(bases_after, "bases after", crs, ["base_id"])
     roads = _layer(roads, "roads", crs)
+    closed_roads = _layer(closed_roads, "closed roads", crs)
+    closure_areas = _layer(closure_areas, "closure areas", crs)
     try:
         values = np.asarray(diff[value_column], dtype=float)
     except (TypeError, ValueError):
@@ -782,7 +1004,7 @@ def difference_map(
     norm = diverging_norm(values, limit)
     cmap = matplotlib.colormaps[DIVERGING_CMAP]
 
-    page = _Page(title, standard_text, crs, _bounds_union(diff, before, after))
+    page = _Page(title, standard_text, crs, _bounds_union(diff, before, after, closure_areas), frame)
     ok = np.isfinite(values)
     geom_types = set(diff.geometry.geom_type.dropna().unique().tolist())
     is_points = bool(geom_types) and geom_types <= {"Point", "MultiPoint"}
@@ -813,22 +1035,42 @@ def difference_map(
         page.roads(roads)
     if np.any(~ok):
         page.add_legend(Patch(fc="#eee", ec="#aaa", hatch="///"), "no value")
+    if closure_areas is not None and len(closure_areas):
+        geoms = closure_areas.geometry.to_numpy()
+        _draw_polygons(page.ax, geoms, "none", edgecolors=CLOSURE_EDGE_COLOR, hatch="\\\\", linewidths=1.0, zorder=4)
+        page.add_legend(Patch(fc="none", ec=CLOSURE_EDGE_COLOR, hatch="\\\\", lw=1.0), "closed area")
+    if closed_roads is not None and len(closed_roads):
+        segments = _line_segments(closed_roads.geometry.to_numpy())
+        # a dark casing broken by white dashes: apart from the boundary's solid line and from any road
+        page.ax.add_collection(LineCollection(segments, colors=CLOSED_ROAD_COLOR, linewidths=3.0, zorder=4.5))
+        page.ax.add_collection(
+            LineCollection(segments, colors="white", linewidths=1.4, linestyles=(0, (2, 2)), zorder=4.6)
+        )
+        page.add_legend(
+            (Line2D([], [], color=CLOSED_ROAD_COLOR, lw=3.0), Line2D([], [], color="white", lw=1.4, ls=(0, (2, 2)))),
+            "closed road",
+        )
     page.bases(before, label="Base before", filled=False, annotate=after is None or not len(after))
     page.bases(after, label="Base after", filled=True)
     if before is not None and after is not None and len(before) and len(after):
         _label_removed_bases(page, before, after)
-    page.legend("Bases and roads")
+    legend = page.legend("Changes, bases and roads")
 
-    # Colour bar low in the legend panel, its own axes so the legend above cannot overlap it.
-    cax = page.fig.add_axes((_PANEL_BOX[0] + 0.01, _PANEL_BOX[1] + 0.03, 0.03, 0.3))
-    bar = page.fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=cax)
-    bar.set_label(units_label, fontsize=8)
-    bar.ax.tick_params(labelsize=7.5)
-    bar.ax.axhline(0.0, color="#333", lw=0.6)
-    if increase_label:
-        cax.text(1.0, 1.03, f"+ {increase_label}", transform=cax.transAxes, ha="left", va="bottom", fontsize=7.5)
+    # A horizontal colour bar under the legend, placed from the legend's drawn size so the two never overlap.
+    renderer = page.fig.canvas.get_renderer()
+    box = legend.get_window_extent(renderer).transformed(page.fig.transFigure.inverted())
+    bar_h, title_h, words_h = 0.022, 0.05, 0.075
+    bar_y = max(box.y0 - 0.02 - title_h - bar_h, _PANEL_BOX[1] + words_h)
+    cax = page.fig.add_axes((_PANEL_BOX[0] + 0.01, bar_y, _PANEL_BOX[2] - 0.03, bar_h))
+    bar = page.fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=cax, orientation="horizontal")
+    bar.ax.tick_params(labelsize=7)
+    bar.ax.axvline(0.0, color="#333", lw=0.6)
+    cax.set_title("\n".join(textwrap.wrap(units_label, 30)), fontsize=8, loc="left", pad=4)
+    # the two end words on rows of their own, so that long words never run into each other
     if decrease_label:
-        cax.text(1.0, -0.03, f"\u2212 {decrease_label}", transform=cax.transAxes, ha="left", va="top", fontsize=7.5)
+        cax.text(0.0, -1.7, f"\u2212 {decrease_label}", transform=cax.transAxes, ha="left", va="top", fontsize=7)
+    if increase_label:
+        cax.text(1.0, -3.0, f"+ {increase_label}", transform=cax.transAxes, ha="right", va="top", fontsize=7)
     return page.save(out_png, title)
 
 
@@ -868,6 +1110,9 @@ def line_chart(
     ylabel: str,
     title: str,
     note: str = "",
+    *,
+    whole_x: bool = False,
+    point_labels: Sequence[str] | None = None,
 ) -> Path:
     """A line chart (e.g. share of demand covered against the time standard), with the caution footnote.
 
@@ -882,6 +1127,10 @@ def line_chart(
         Axis labels with units.
     note
         One line under the title, e.g. the standard or the demand layer used.
+    whole_x
+        Ticks at whole numbers only (counts such as new sites).
+    point_labels
+        A label per x value, written beside the first series' points (e.g. the site ids chosen).
     """
     xs = np.asarray(x, dtype=float)
     if xs.ndim != 1 or xs.size == 0:
@@ -894,7 +1143,7 @@ def line_chart(
     if note:
         fig.text(0.035, 0.937, "\n".join(textwrap.wrap(note, 110)), ha="left", va="top", fontsize=9, color="#222")
     _caution(fig)
-    ax = fig.add_axes((0.1, 0.15, 0.86, 0.74))
+    ax = fig.add_axes((0.1, 0.15, 0.86, 0.70 if len(textwrap.wrap(note, 110)) > 1 else 0.74))
     for i, (label, y) in enumerate(ys.items()):
         yv = np.asarray(y, dtype=float)
         if yv.shape != xs.shape:
@@ -909,6 +1158,24 @@ def line_chart(
             ms=3.5,
             label=str(label),
         )
+    if point_labels is not None:
+        if len(point_labels) != xs.size:
+            raise CoverkitError(f"line_chart: {len(point_labels)} point labels for {xs.size} x values.")
+        first = np.asarray(next(iter(ys.values())), dtype=float)
+        for xi, yi, text in zip(xs, first, point_labels, strict=True):
+            if text:
+                ax.annotate(
+                    "\n".join(textwrap.wrap(str(text), 18)), (xi, yi), xytext=(-7, 6), textcoords="offset points",
+                    ha="right", va="bottom", fontsize=7.5, color="#333", path_effects=_HALO,
+                )  # fmt: skip
+        lo, hi = ax.get_ylim()
+        ax.set_ylim(lo, hi + 0.06 * (hi - lo))  # room for the label of the highest point
+    if whole_x:
+        from matplotlib.ticker import MaxNLocator
+
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+        pad = 0.3 if xs.size > 1 else 0.5
+        ax.set_xlim(xs.min() - pad, xs.max() + pad)
     ax.set_xlabel(xlabel, fontsize=9.5)
     ax.set_ylabel(ylabel, fontsize=9.5)
     ax.grid(True, color="#ddd", lw=0.6)
@@ -916,5 +1183,5 @@ def line_chart(
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
     ax.tick_params(labelsize=8.5)
-    ax.legend(fontsize=8.5, frameon=False, loc="best")
+    ax.legend(fontsize=8.5, frameon=False, loc="lower right")
     return _save(fig, out_png, title)

@@ -8,13 +8,24 @@ from __future__ import annotations
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import geopandas as gpd
 import numpy as np
 import pandas as pd
 import rasterio
 
 from coverkit import CAUTION, __version__
+from coverkit.layer_names import map_file, output_file, slug
 from coverkit.report.html import HtmlReport
-from coverkit.report.maps import coverage_depth_map, first_due_map, gaps_map, travel_surface_map
+from coverkit.report.maps import (
+    MapFrame,
+    coverage_depth_map,
+    first_due_map,
+    gaps_map,
+    line_chart,
+    study_frame,
+    travel_surface_map,
+)
+from coverkit.report.tables import plural, present
 
 if TYPE_CHECKING:
     from coverkit.study import StudyRun
@@ -38,30 +49,59 @@ def _minutes(seconds: float) -> str:
     return "not reached" if not np.isfinite(seconds) else f"{seconds / 60:.1f} min"
 
 
-def _compliance_for_display(table: pd.DataFrame) -> pd.DataFrame:
-    """A compliance table with the share in percent and the fractile in minutes."""
-    t = table.copy()
-    t["covered_share"] = t["covered_share"] * 100
-    t["fractile_response_s"] = t["fractile_response_s"] / 60
-    return t.rename(columns={"covered_share": "covered %", "fractile_response_s": "fractile (min)"})
+def gap_columns(gaps: pd.DataFrame, kind: str) -> tuple[str, str, str | None]:
+    """The column shading gaps on the map, its unit word, and the calls column (names differ by demand kind)."""
+    numeric = [c for c in gaps.columns if c not in ("gap_id", "area_km2", "geometry")]
+    people = [c for c in ("population", "people", "uncovered_people", "residents") if c in gaps.columns]
+    calls = [c for c in ("incidents", "calls", "uncovered_calls") if c in gaps.columns]
+    if kind == "incidents" and calls:
+        return calls[0], "calls", None
+    if people:
+        return people[0], "people", calls[0] if calls else None
+    return (numeric[0] if numeric else "gap_id"), "demand", None
+
+
+def _table(rep: HtmlReport, df: pd.DataFrame, caption: str, point_word: str = "points") -> None:
+    table, formats = present(df, point_word=point_word)
+    rep.add_table(table, caption=caption, formats=formats)
+
+
+def study_map_frame(run: StudyRun, bases: gpd.GeoDataFrame) -> MapFrame:
+    """One extent, the boundary and the zones for every map of a study."""
+    crs = run.network.crs
+    boundary = zones = None
+    if run.study.roads.get("boundary"):
+        boundary = gpd.read_file(run.study.roads["boundary"]).to_crs(crs)
+    zone_field = None
+    if run.study.zones:
+        zones = gpd.read_file(run.study.zones["file"], layer=run.study.zones.get("layer")).to_crs(crs)
+        zone_field = run.study.zones["id_field"]
+    return study_frame(
+        crs,
+        boundary=boundary,
+        zones=zones,
+        zone_field=zone_field,
+        include=[bases],
+        fallback_bounds=run.network.nodes.total_bounds,
+    )
 
 
 def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[str, Path]:
     """Write the study's PNG maps into ``folder/maps`` and, if ``html``, ``folder/report.html``."""
-    from coverkit.study import slug
-
-    maps_dir = folder / "maps"
     out: dict[str, Path] = {}
     roads = run.network.road_lines()
     bases = run.bases.rename(columns={"id": "base_id"})
     minutes = run.study.outputs["isochrone_minutes"]
     first_std = run.runs[0].standard
+    frame = study_map_frame(run, bases)
+    kinds = {spec.name: spec.kind for spec in run.study.demand}
+    words = {spec.name: ("cells" if spec.source_kind == "raster" else "points") for spec in run.study.demand}
     with rasterio.open(run.surface_path) as src:
         surface = src.read(1).astype(float)
         surface[surface == src.nodata] = np.nan
         transform = src.transform
     out["map_surface"] = travel_surface_map(
-        maps_dir / "travel_time.png",
+        map_file(folder, "travel_time"),
         surface,
         transform,
         run.network.crs,
@@ -71,6 +111,7 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         "Travel time from the nearest base",
         f"Bands: {', '.join(f'{m:g}' for m in minutes)} min; "
         f"profile '{run.network.profile.name}'; turnout not included",
+        frame=frame,
     )
     images = {"surface": out["map_surface"]}
     for srun in run.runs:
@@ -79,20 +120,47 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         residents = next(iter(srun.results))
         res = srun.results[residents]
         out[f"map_depth_{s}"] = coverage_depth_map(
-            maps_dir / f"depth_{s}.png", res.demand, bases, roads, f"Coverage depth - {srun.standard.name}", text
+            map_file(folder, "depth", srun.standard.name),
+            srun.areas.depth_grid,
+            srun.areas.transform,
+            run.network.crs,
+            bases,
+            roads,
+            f"Coverage depth - {srun.standard.name}",
+            text,
+            demand=res.demand,
+            frame=frame,
         )
+        value, unit, count = gap_columns(srun.areas.gaps, kinds.get(residents, "residents"))
         out[f"map_gaps_{s}"] = gaps_map(
-            maps_dir / f"gaps_{s}.png", srun.areas.gaps, bases, roads, f"Gaps - {srun.standard.name}", text
+            map_file(folder, "gaps", srun.standard.name),
+            srun.areas.gaps,
+            bases,
+            roads,
+            f"Gaps - {srun.standard.name}",
+            text,
+            value_column=value,
+            value_unit=unit,
+            count_column=count,
+            frame=frame,
         )
         out[f"map_first_due_{s}"] = first_due_map(
-            maps_dir / f"first_due_{s}.png",
+            map_file(folder, "first_due", srun.standard.name),
             srun.areas.first_due,
             bases,
             roads,
             f"First-due areas - {srun.standard.name}",
             text,
+            frame=frame,
         )
         images[s] = (out[f"map_depth_{s}"], out[f"map_gaps_{s}"], out[f"map_first_due_{s}"])
+        for kind, what in (("second_due", "second due"), ("third_due", "third due")):
+            layer = getattr(srun.areas, kind, None)
+            if layer is not None and len(layer):
+                out[f"map_{kind}_{s}"] = first_due_map(
+                    map_file(folder, kind, srun.standard.name), layer, bases, roads,
+                    f"{what[:1].upper()}{what[1:]} areas - {srun.standard.name}", text, frame=frame, what=what,
+                )  # fmt: skip
     if not html:
         return out
 
@@ -102,7 +170,7 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         if r.standard == first_std.name:
             figures[f"{r.demand} covered ({r.standard})"] = f"{r.covered_share * 100:.1f} %"
             figures[f"{r.demand}: {r.fractile * 100:g}th pct response"] = _minutes(r.fractile_response_s)
-    figures["bases"] = str(len(run.bases))
+    figures["bases"] = f"{len(run.bases):,}"
     rep.add_key_figures(figures)
 
     rep.add_heading("Inputs")
@@ -110,14 +178,16 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         f"Roads: {Path(run.study.roads['source']).name} -> {run.network.n_nodes:,} nodes, "
         f"{run.network.n_edges:,} directed edges (CRS {run.network.crs.name})",
         f"Speed profile: {run.network.profile.name} - {run.network.profile.description}",
-        f"Bases: {Path(run.study.bases['file']).name} ({len(run.bases)} bases)",
+        f"Bases: {Path(run.study.bases['file']).name} ({plural(len(run.bases), 'base')})",
     ]
     for spec in run.study.demand:
         d = run.demand[spec.name]
         extra = f", filter: {spec.options['where']}" if spec.options.get("where") else ""
+        unit = ("person", "people") if spec.kind == "residents" else ("call", "calls")
+        word = words[spec.name]
         inputs.append(
-            f"Demand '{spec.name}' ({spec.kind}): {spec.path.name}, {len(d):,} points, total weight "
-            f"{d['weight'].sum():,.0f}{extra}"
+            f"Demand '{spec.name}' ({spec.kind}): {spec.path.name}, {plural(len(d), word[:-1], word)}, "
+            f"{plural(float(d['weight'].sum()), *unit)}{extra}"
         )
     if run.study.zones:
         inputs.append(f"Zones: {Path(run.study.zones['file']).name} by '{run.study.zones['id_field']}'")
@@ -136,7 +206,7 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
             "Speeds: posted speed (or the class default) x the profile's factor, capped; signal delay at signal nodes.",
             "Response time = turnout + travel. Call processing and dispatch delays are not modelled.",
             FRACTILE_NOTE,
-            "Gaps and first-due areas are drawn on a grid of road-near cells timed like demand points.",
+            "Gaps, coverage depth and first-due areas are drawn on a grid of road-near cells timed like demand points.",
         ]
     )
 
@@ -154,34 +224,29 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
             "meets_standard",
             "off_network",
         ]
-    ].copy()
-    table["covered_share"] = table["covered_share"] * 100
-    table["fractile_response_s"] = table["fractile_response_s"] / 60
-    table["meets_standard"] = table["meets_standard"].map({True: "yes", False: "no"})
-    table.columns = ["standard", "layer", "total", "covered", "covered %", "by one base", "by 2+ bases",
-                     "fractile (min)", "meets", "off network"]  # fmt: skip
-    rep.add_table(table, caption="Coverage per standard and demand layer")
+    ].rename(columns={"demand": "demand layer"})
+    _table(rep, table, "Coverage per standard and demand layer")
     rep.add_heading("Drive-time polygons", 3)
-    poly = run.polygons.drop(columns="geometry")
-    rep.add_table(poly, caption="Area and road reached per base and band")
+    _table(rep, run.polygons, "Area and road reached per base and band")
     rep.add_image(out["map_surface"], "Travel time from the nearest base")
 
     for srun in run.runs:
         s = slug(srun.standard.name)
         rep.add_heading(f"Standard: {srun.standard.describe()}")
         for name, table in srun.per_base.items():
-            t = table.copy()
-            t["first_due_share"] = t["first_due_share"] * 100
-            rep.add_table(t.rename(columns={"first_due_share": "first-due %"}), caption=f"Per base - {name}")
+            _table(rep, table, f"Per base - {name}", words.get(name, "points"))
         for label, tables in (("zone", srun.zones), ("priority", srun.by_priority)):
             for name, table in tables.items():
-                rep.add_table(_compliance_for_display(table), caption=f"Compliance by {label} - {name}")
-        gaps = srun.areas.gaps.drop(columns="geometry").head(10)
-        rep.add_table(pd.DataFrame(gaps), caption="Largest gaps (people and incidents not covered)")
+                _table(rep, table, f"Compliance by {label} - {name}", words.get(name, "points"))
+        gaps = srun.areas.gaps.head(10)
+        _table(rep, gaps, "Largest gaps (demand not covered inside each)")
         depth, gaps_png, first_png = images[s]
         rep.add_image(depth, f"Coverage depth - {srun.standard.name}")
         rep.add_image(gaps_png, f"Gaps - {srun.standard.name}")
         rep.add_image(first_png, f"First-due areas - {srun.standard.name}")
+        for kind, what in (("second_due", "Second-due"), ("third_due", "Third-due")):
+            if f"map_{kind}_{s}" in out:
+                rep.add_image(out[f"map_{kind}_{s}"], f"{what} areas - {srun.standard.name}")
     if run.site_plan is not None:
         plan = run.site_plan
         sm = plan.summary
@@ -192,36 +257,12 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
             f"{sm['bound_source']}. Covered {sm['covered_share_before'] * 100:.1f} % with the existing bases, "
             f"{sm['covered_share_after'] * 100:.1f} % with the chosen sites."
         )
-        rep.add_table(pd.DataFrame(plan.chosen.drop(columns="geometry")), caption="Chosen sites and what each adds")
-        curve = plan.curve[["new_sites", "covered_share", "gain_share", "fractile_response_s", "site_ids"]].copy()
-        curve["covered_share"] *= 100
-        curve["gain_share"] *= 100
-        curve["fractile_response_s"] /= 60
-        rep.add_table(
-            curve.rename(
-                columns={"covered_share": "covered %", "gain_share": "gain %", "fractile_response_s": "fractile (min)"}
-            ),
-            caption="Coverage curve: best sites for each number of new stations (MCLP optima)",
-        )
-        from coverkit.report.maps import line_chart
-
-        out["site_curve"] = line_chart(
-            maps_dir / "site_curve.png",
-            plan.curve["new_sites"].to_numpy(),
-            {"covered %": plan.curve["covered_share"].to_numpy() * 100},
-            "new sites",
-            "demand covered (%)",
-            "Coverage curve",
-            note="each point an MCLP optimum (Church & ReVelle 1974)",
-        )
+        _table(rep, plan.chosen, "Chosen sites and what each adds")
+        curve = plan.curve[["new_sites", "covered_share", "gain_share", "fractile_response_s", "site_ids"]]
+        _table(rep, curve, "Coverage curve: best sites for each number of new stations")
+        out["site_curve"] = site_curve_chart(plan, map_file(folder, "site_curve"), str(sm["standard"]))
         rep.add_image(out["site_curve"], "Coverage curve")
-        rank = plan.ranking.copy()
-        rank["added_share"] *= 100
-        rank["share_with_site"] *= 100
-        rep.add_table(
-            rank.rename(columns={"added_share": "adds %", "share_with_site": "covered with it %"}),
-            caption="Every candidate alone: what it adds to the existing bases",
-        )
+        _table(rep, plan.ranking, "Every candidate alone: what it adds to the existing bases")
     if run.availability is not None:
         av = run.availability
         a = av.summary
@@ -230,7 +271,7 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
             f"Hypercube model ({a['method']}, {a['queue']} queue; Larson 1974, 1975) with closest-available "
             f"dispatch on the network's travel times: {a['calls_per_h']:.2f} calls per hour on demand "
             f"'{a['demand']}', {a['mean_service_min']:g} min busy per call ({a['offered_load_erlang']:.2f} erlang) "
-            f"over {a['units']} units. {a['standard']}."
+            f"over {plural(a['units'], 'unit')}. {a['standard']}."
         )
         rep.add_key_figures(
             {
@@ -240,19 +281,39 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
                 "chance all units busy": f"{a['all_busy_probability'] * 100:.2f} %",
             }
         )
-        rep.add_table(av.units, caption="Unit workloads (busy fraction) and calls answered per hour")
+        _table(rep, av.units, "Unit workloads (share of time busy) and calls answered per hour")
     if run.calibration is not None:
         cal = run.calibration
         rep.add_heading("Modelled against observed travel times")
         rep.add_paragraph(
-            f"{cal.n_used} observed responses matched to modelled routes; one speed multiplier per road class fitted "
-            "by bounded robust least squares with re-routing. The calibrated profile is written beside this report; "
-            "the coverage above uses the study's profile, not the calibrated one."
+            f"{plural(cal.n_used, 'observed response')} matched to modelled routes; one speed multiplier per road "
+            "class fitted by bounded robust least squares with re-routing. The calibrated profile is written beside "
+            "this report; the coverage above uses the study's profile, not the calibrated one."
         )
-        rep.add_table(cal.errors, caption="Errors before and after calibration, by route length")
-        rep.add_table(cal.classes, caption="Fitted factors per road class")
+        _table(rep, cal.errors, "Errors before and after calibration, by route length")
+        _table(rep, cal.classes, "Fitted factors per road class")
         rep.add_image(run.outputs["calibration_chart"], "Observed and modelled travel times")
     rep.add_heading("About this report")
     rep.add_paragraph(f"Made with coverkit {__version__}. {CAUTION}")
-    out["report"] = rep.write(folder / "report.html")
+    out["report"] = rep.write(output_file(folder, "report"))
     return out
+
+
+def site_curve_chart(plan: object, out_png: Path, standard_text: str = "") -> Path:
+    """The siting curve: covered share against whole numbers of new sites, each point labelled with its sites."""
+    curve = plan.curve
+    model = plan.summary.get("model", "mclp")
+    labels = [str(v) if v else "" for v in curve.get("site_ids", pd.Series([""] * len(curve))).fillna("")]
+    return line_chart(
+        out_png,
+        curve["new_sites"].to_numpy(),
+        {"covered %": curve["covered_share"].to_numpy() * 100},
+        "new sites",
+        "demand covered (%)",
+        "Coverage curve",
+        note=(f"{standard_text}. " if standard_text else "")
+        + f"Each point is the best {model.upper()} choice for that many new sites "
+        f"({_MODEL_SOURCES.get(model, '')}); labels name the sites.",
+        whole_x=True,
+        point_labels=labels,
+    )
