@@ -297,7 +297,7 @@ def demo_net_path(tmp_path_factory):
 
 
 def test_cli_cover_reports_and_writes_the_rejected_rows(demo_net_path, tmp_path, capsys):
-    """Through the command a new user runs: the rejected rows in the summary and in the ``rejected`` layer."""
+    """Through the command a new user runs: the rejected rows in the summary and in the ``rejected_<demand>`` layer."""
     import pyogrio
 
     net_path = demo_net_path
@@ -313,9 +313,9 @@ def test_cli_cover_reports_and_writes_the_rejected_rows(demo_net_path, tmp_path,
     text = capsys.readouterr().out
     assert code == 0
     assert f"2 of {len(src):,} rows" in text and "1 at 0,0, 1 blank position" in text and "at lines 6, 11" in text
-    rejected = pyogrio.read_dataframe(out, layer="rejected")
+    rejected = pyogrio.read_dataframe(out, layer="rejected_cad")
     assert rejected["line"].tolist() == [6, 11]
-    demand = pyogrio.read_dataframe(out, layer="demand")
+    demand = pyogrio.read_dataframe(out, layer="demand_cad_8_min")
     keep = src.drop(index=[4, 9])
     assert sorted(demand["id"].astype(int)) == sorted(keep.loc[keep["priority"] == "1", "id"].astype(int))
     code = main([*args, "--out", str(tmp_path / "d.gpkg"), "--max-rejected", "0.0001", "--quiet"])
@@ -459,13 +459,13 @@ def test_availability_time_window_keeps_the_calls_pandas_keeps(demo_net_path, tm
     assert main([*common, "--demand", str(DEMO / "incidents.csv"), "--start", "2026-03-01", "--end", "2026-06-01",
                  "--out", str(win)]) == 0  # fmt: skip
     assert main([*common, "--demand", str(pre), "--out", str(ref)]) == 0
-    a = pyogrio.read_dataframe(win, layer="summary")
-    b = pyogrio.read_dataframe(ref, layer="summary")
+    a = pyogrio.read_dataframe(win, layer="availability_summary")
+    b = pyogrio.read_dataframe(ref, layer="availability_summary")
     assert a["calls_per_h"].iloc[0] == pytest.approx(b["calls_per_h"].iloc[0])
     assert a["calls_per_h"].iloc[0] == pytest.approx(len(keep) / ((stamps[keep.index].max() - stamps[keep.index].min())
                                                                   .total_seconds() / 3600))  # fmt: skip
     pd.testing.assert_frame_equal(
-        pyogrio.read_dataframe(win, layer="units"), pyogrio.read_dataframe(ref, layer="units")
+        pyogrio.read_dataframe(win, layer="availability_units"), pyogrio.read_dataframe(ref, layer="availability_units")
     )
 
 

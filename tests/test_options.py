@@ -261,7 +261,7 @@ def test_cover_start_end_keeps_the_time_window(march):
     src = pd.read_csv(DEMO / "incidents.csv", parse_dates=["received_at"])
     keep = (src["received_at"] >= "2026-03-01") & (src["received_at"] < "2026-04-01")
     assert 0 < keep.sum() < len(src)
-    demand = gpd.read_file(march, layer="demand")
+    demand = gpd.read_file(march, layer="demand_incidents_8_min")
     assert sorted(demand["id"].astype(str)) == sorted(src.loc[keep, "id"].astype(str))
     summary = gpd.read_file(march, layer="summary").iloc[0]
     assert summary["demand_points"] == keep.sum()
@@ -270,11 +270,11 @@ def test_cover_start_end_keeps_the_time_window(march):
 def test_cover_zones_match_a_shapely_point_in_polygon_join(march):
     """``--zones --zone-field``: per district, the number of points and the covered share equal a point-in-polygon
     join done here (geopandas/shapely) of the written demand points with the district polygons."""
-    demand = gpd.read_file(march, layer="demand")
+    demand = gpd.read_file(march, layer="demand_incidents_8_min")
     zones = gpd.read_file(DEMO / "districts.geojson").to_crs(demand.crs)
     joined = gpd.sjoin(demand, zones[["district", "geometry"]], how="inner", predicate="within")
     want = joined.groupby("district").agg(points=("id", "size"), covered=("covered", "mean"))
-    got = gpd.read_file(march, layer="by_zone").set_index("district")
+    got = gpd.read_file(march, layer="by_zone_incidents_8_min").set_index("district")
     assert set(want.index) <= set(got.index)
     for d, row in want.iterrows():
         assert got.loc[d, "points"] == row["points"], d
@@ -284,7 +284,7 @@ def test_cover_zones_match_a_shapely_point_in_polygon_join(march):
 def test_cover_gaps_are_contiguous_and_apart(march):
     """Gaps (design card: areas not reached within the standard): each gap is one connected polygon and no two
     gaps touch (touching pieces would be one gap) (shapely)."""
-    gaps = gpd.read_file(march, layer="gaps")
+    gaps = gpd.read_file(march, layer="gaps_8_min")
     assert len(gaps) > 1
     geoms = gaps.geometry.to_numpy()
     assert all(g.geom_type == "Polygon" for g in geoms)
@@ -296,8 +296,8 @@ def test_cover_gaps_are_contiguous_and_apart(march):
 @pytest.mark.xfail(strict=True, reason="issue 10 item 5: gap figures count covered calls too")
 def test_cover_gap_counts_only_uncovered_calls(march):
     """A gap's call count is the number of uncovered demand points inside it (design invariant)."""
-    gaps = gpd.read_file(march, layer="gaps")
-    demand = gpd.read_file(march, layer="demand")
+    gaps = gpd.read_file(march, layer="gaps_8_min")
+    demand = gpd.read_file(march, layer="demand_incidents_8_min")
     count_col = next(c for c in ("incidents", "calls", "demand") if c in gaps.columns)
     unc = demand.loc[~demand["covered"].astype(bool), ["id", "geometry"]]
     shapes = gaps[["gap_id", "geometry"]].rename(columns={"gap_id": "the_gap"})
@@ -310,8 +310,8 @@ def test_cover_gap_counts_only_uncovered_calls(march):
 def test_cover_single_cover_layer_holds_the_once_covered_points(march):
     """The single_cover area holds the demand points reached by exactly one base within the standard and not the
     points reached by two or more (at least 95 % each way; the area is traced on a grid) (shapely containment)."""
-    layer = gpd.read_file(march, layer="single_cover")
-    demand = gpd.read_file(march, layer="demand")
+    layer = gpd.read_file(march, layer="single_cover_8_min")
+    demand = gpd.read_file(march, layer="demand_incidents_8_min")
     area = shapely.union_all(layer.geometry.to_numpy())
     inside = shapely.contains_xy(area, demand.geometry.x.to_numpy(), demand.geometry.y.to_numpy())
     depth = demand["depth"].to_numpy()
@@ -344,8 +344,8 @@ def test_cover_direction_in_matches_a_reversed_heap_search(demo_net, tmp_path):
     out_in, out_out = tmp_path / "in.gpkg", tmp_path / "out.gpkg"
     assert _cover(demo_net, out_in, "--direction", "in") == 0
     assert _cover(demo_net, out_out) == 0
-    d_in = gpd.read_file(out_in, layer="demand")
-    d_out = gpd.read_file(out_out, layer="demand")
+    d_in = gpd.read_file(out_in, layer="demand_incidents_8_min")
+    d_out = gpd.read_file(out_out, layer="demand_incidents_8_min")
     bases = gpd.read_file(out_in, layer="bases")
     want, dsn = _inbound_reference(
         demo_net, shapely.get_coordinates(bases.geometry.to_numpy()), shapely.get_coordinates(d_in.geometry.to_numpy())
@@ -406,8 +406,8 @@ def test_site_backup_through_the_cli_is_the_enumerated_lexicographic_optimum(dem
         return float(w[k >= 1].sum()), float(w[k >= 2].sum())
 
     best = max(pair_value(c) for c in itertools.combinations(free, 2))
-    chosen = gpd.read_file(out, layer="chosen")
-    summary = gpd.read_file(out, layer="summary").iloc[0]
+    chosen = gpd.read_file(out, layer="site_chosen")
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
     cols = _ids_to_columns(prob, chosen["id"])
     single, double = pair_value(cols)
     assert (single, double) == (pytest.approx(best[0], rel=1e-9), pytest.approx(best[1], rel=1e-9))
@@ -451,8 +451,8 @@ def test_site_mexclp_through_the_cli_is_the_enumerated_expected_coverage_optimum
         u[a] += 1
         u[b] += 1
         best = max(best, expected(u))
-    summary = gpd.read_file(out, layer="summary").iloc[0]
-    chosen = gpd.read_file(out, layer="chosen")
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
+    chosen = gpd.read_file(out, layer="site_chosen")
     assert summary["objective"] == pytest.approx(best, rel=1e-9)
     u = units0.copy()
     for j, n in zip(_ids_to_columns(prob, chosen["id"]), chosen["units"], strict=True):
@@ -473,8 +473,8 @@ def test_site_relocate_is_never_worse_than_the_existing_layout(demo_net, tmp_pat
     extra = ["--candidates", str(DEMO / "candidates.csv"), "--model", "mclp", "--relocate", "--add", str(n_bases)]
     assert _site(demo_net, out, *extra) == 0
     existing = float(w[cov[:, prob.fixed].any(axis=1)].sum()) / w.sum()
-    summary = gpd.read_file(out, layer="summary").iloc[0]
-    chosen = gpd.read_file(out, layer="chosen")
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
+    chosen = gpd.read_file(out, layer="site_chosen")
     assert summary["covered_share_after"] >= existing - 1e-12
     cols = _ids_to_columns(prob, chosen["id"])
     got = float(w[cov[:, cols].any(axis=1)].sum())
@@ -491,7 +491,7 @@ def test_site_relocate_baseline_is_the_existing_layout(demo_net, tmp_path, probl
     extra = ["--candidates", str(DEMO / "candidates.csv"), "--model", "mclp", "--relocate", "--add", "4"]
     assert _site(demo_net, out, *extra) == 0
     existing = float(w[cov[:, prob.fixed].any(axis=1)].sum()) / w.sum()
-    assert gpd.read_file(out, layer="summary").iloc[0]["covered_share_before"] == pytest.approx(existing, rel=1e-9)
+    assert gpd.read_file(out, layer="site_summary").iloc[0]["covered_share_before"] == pytest.approx(existing, rel=1e-9)
 
 
 def test_site_generated_candidates_follow_class_and_spacing(demo_net, tmp_path):
@@ -505,7 +505,7 @@ def test_site_generated_candidates_follow_class_and_spacing(demo_net, tmp_path):
     for spacing in (1500, 3000):
         out = tmp_path / f"gen{spacing}.gpkg"
         assert _site(demo_net, out, "--generate-candidates", "tertiary", "--spacing-m", str(spacing), "--add", "1") == 0
-        sites = gpd.read_file(out, layer="sites")
+        sites = gpd.read_file(out, layer="site_candidates")
         gen = sites[sites["kind"] == "candidate"]
         xy = shapely.get_coordinates(gen.geometry.to_numpy())
         pairs = cKDTree(xy).query_pairs(spacing - 1e-6)
@@ -528,7 +528,7 @@ def test_site_hit_time_limit_is_reported_and_no_worse_than_greedy(demo_net, tmp_
     out = tmp_path / "limit.gpkg"
     extra = ["--candidates", str(DEMO / "candidates.csv"), "--add", "2", "--method", "milp"]
     assert _site(demo_net, out, *extra, "--time-limit-s", "0.000001") == 0
-    summary = gpd.read_file(out, layer="summary").iloc[0]
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
     assert summary["status"] != "optimal"
     left = np.where(cov[:, prob.fixed].any(axis=1), 0.0, w)
     free = list(np.flatnonzero(~prob.fixed))
@@ -563,8 +563,8 @@ def test_availability_zero_queue_loses_the_erlang_b_share(demo_net, tmp_path):
     E (1 - B) (Erlang 1917)."""
     out = tmp_path / "zero.gpkg"
     assert _availability(demo_net, out, "--calls-per-h", "6", "--queue", "zero") == 0
-    units = gpd.read_file(out, layer="units")
-    demand = gpd.read_file(out, layer="demand")
+    units = gpd.read_file(out, layer="availability_units")
+    demand = gpd.read_file(out, layer="availability_demand")
     load, n = 6 * 45 / 60, len(units)
     b = _erlang_b(load, n)
     reached = np.isfinite(demand["travel_s"].to_numpy(dtype=float))
@@ -583,7 +583,7 @@ def test_availability_method_approx_is_close_to_exact(demo_net, tmp_path):
     for method in ("exact", "approx"):
         out = tmp_path / f"{method}.gpkg"
         assert _availability(demo_net, out, "--calls-per-h", "4", "--method", method) == 0
-        got[method] = gpd.read_file(out, layer="units")["workload"].to_numpy()
+        got[method] = gpd.read_file(out, layer="availability_units")["workload"].to_numpy()
     err = np.abs(got["approx"] - got["exact"])
     assert err.mean() <= 0.015 and err.max() <= 0.03
     for w in got.values():
@@ -599,6 +599,6 @@ def test_availability_call_rate_from_timestamps(demo_net, tmp_path):
     src = pd.read_csv(DEMO / "incidents.csv", parse_dates=["received_at"])
     span_h = (src["received_at"].max() - src["received_at"].min()).total_seconds() / 3600.0
     rate = len(src) / span_h
-    units = gpd.read_file(out, layer="units")
+    units = gpd.read_file(out, layer="availability_units")
     assert units["workload"].sum() == pytest.approx(rate * 45 / 60, rel=1e-3)
     assert units["calls_per_h"].sum() == pytest.approx(rate, rel=1e-3)

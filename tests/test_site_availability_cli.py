@@ -115,7 +115,7 @@ def test_lscp_target_is_reached_with_fewest_sites(net_path, tmp_path):
         default=w[fixed_cov].sum(),
     )
     assert best / w.sum() < 0.95
-    chosen = gpd.read_file(out, layer="chosen")
+    chosen = gpd.read_file(out, layer="site_chosen")
     assert len(chosen) == n
     site_ids = prob.sites["id"].astype(str).to_numpy()
     picked = np.flatnonzero(~prob.fixed & np.isin(site_ids, chosen["id"].astype(str).to_numpy()))

@@ -73,7 +73,7 @@ def test_demo_busy_units_follow_the_call_rate_of_the_incident_file(demo_run):
     here with pandas) x 45 min service (Erlang 1917; Little's law); the printed rate is the same figure."""
     src = pd.read_csv(DEMO / "incidents.csv", parse_dates=["received_at"])
     rate = len(src) / ((src["received_at"].max() - src["received_at"].min()).total_seconds() / 3600.0)
-    units = gpd.read_file(demo_run / "coverage.gpkg", layer="units")
+    units = gpd.read_file(demo_run / "coverage.gpkg", layer="availability_units")
     assert units["workload"].sum() == pytest.approx(rate * 45 / 60, rel=1e-6)
     assert f"busy units ({rate:.2f} calls/h, 45 min each)" in _printed(demo_run)
 
@@ -81,7 +81,7 @@ def test_demo_busy_units_follow_the_call_rate_of_the_incident_file(demo_run):
 def test_demo_reached_residents_lie_inside_the_any_base_polygon(demo_run):
     """Every resident point reached within 8 min (with 15 s to spare) whose snap distance is under 100 m lies in
     the 8-min any-base drive-time polygon (its definition: reached road plus the 150 m reach; shapely)."""
-    polys = gpd.read_file(demo_run / "coverage.gpkg", layer="drive_time_polygons")
+    polys = gpd.read_file(demo_run / "coverage.gpkg", layer="reach_any_base")
     any8 = polys[(polys["base_id"] == "(any base)") & (polys["band_min"] == 8)].geometry.iloc[0]
     dem = gpd.read_file(demo_run / "coverage.gpkg", layer="demand_residents_als_8_min")
     sel = (dem["travel_s"] <= 480 - 15) & (dem["snap_m"] < 100)
