@@ -7,6 +7,7 @@ new one is complete.
 from __future__ import annotations
 
 import contextlib
+import math
 import os
 import tempfile
 from collections.abc import Iterator
@@ -54,11 +55,48 @@ def write_bytes_atomic(target: str | os.PathLike[str], data: bytes) -> Path:
     return Path(target)
 
 
+def null_missing(frame: object) -> object:
+    """A copy of a table ready to be written: "no value" as a missing value (NULL), never a stand-in.
+
+    Times and distances of places not reached are ``inf`` in memory and ids of bases not found are ``""``; a file
+    holds NULL for both (an empty CSV field, SQL NULL in a GeoPackage), so that a desktop GIS or a spreadsheet
+    never averages ``inf`` nor groups by an empty id. Other values of text (object) columns are written as text.
+    The geometry column is left as it is.
+    """
+    import numpy as np
+    import pandas as pd
+
+    out = frame.copy()
+    geometry = getattr(frame, "_geometry_column_name", None)
+    for col in out.columns:
+        if col == geometry or col == "geometry":
+            continue
+        values = out[col]
+        if pd.api.types.is_float_dtype(values.dtype):
+            out[col] = values.where(np.isfinite(values.to_numpy(dtype=float, na_value=np.nan)))
+        elif values.dtype == object or pd.api.types.is_string_dtype(values.dtype):
+            raw = values.to_numpy(dtype=object)
+            missing = pd.isna(raw) | np.fromiter((_is_blank(v) for v in raw), dtype=bool, count=len(raw))
+            text = np.array([None if m else str(v) for v, m in zip(raw, missing, strict=True)], dtype=object)
+            out[col] = pd.Series(text, index=out.index, dtype=object)
+    return out
+
+
+def _is_blank(value: object) -> bool:
+    """An empty string or an infinite float (the in-memory stand-ins for "none")."""
+    return (isinstance(value, str) and value == "") or (isinstance(value, float) and math.isinf(value))
+
+
+def write_csv_atomic(target: str | os.PathLike[str], frame: object) -> Path:
+    """Write a table as CSV (UTF-8, no index) atomically; missing values (``inf``, NaN, ``""``) as empty fields."""
+    return write_text_atomic(target, null_missing(frame).to_csv(index=False))
+
+
 def write_gpkg_layers(target: str | os.PathLike[str], layers: dict) -> Path:
     """Write several named layers (GeoDataFrames, or DataFrames as attribute tables) into one GeoPackage atomically.
 
     Layers are written in the order given; empty layers are written with their columns so that readers always
-    find every layer name.
+    find every layer name. Missing values (``inf``, NaN, ``""``, None) are written as NULL (:func:`null_missing`).
     """
     import geopandas as gpd
     import pyogrio
@@ -67,10 +105,7 @@ def write_gpkg_layers(target: str | os.PathLike[str], layers: dict) -> Path:
     with atomic_path(target) as tmp:
         first = True
         for name, frame in layers.items():
-            frame = frame.reset_index(drop=True)
-            for col in frame.columns:
-                if frame[col].dtype == object and col != "geometry":
-                    frame[col] = frame[col].astype(str)
+            frame = null_missing(frame.reset_index(drop=True))
             if isinstance(frame, gpd.GeoDataFrame) and len(frame) == 0:
                 # GDAL needs a geometry type for an empty spatial layer
                 pyogrio.write_dataframe(

@@ -489,7 +489,7 @@ def _cmd_cover(args: argparse.Namespace) -> int:
 def _cmd_site(args: argparse.Namespace) -> int:
     import pandas as pd
 
-    from coverkit.atomic import write_gpkg_layers, write_text_atomic
+    from coverkit.atomic import write_csv_atomic, write_gpkg_layers
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
@@ -517,7 +517,7 @@ def _cmd_site(args: argparse.Namespace) -> int:
     if args.rank:
         ranking = ranking_table(problem)
         write_gpkg_layers(args.out, {layer_name("site_ranking"): ranking, layer_name("site_candidates"): problem.sites})
-        write_text_atomic(table_file(folder, "site_ranking"), ranking.to_csv(index=False))
+        write_csv_atomic(table_file(folder, "site_ranking"), ranking)
         print(f"{'candidate':<12}{'adds':>12}{'adds %':>8}  name")
         for r in ranking.itertuples(index=False):
             print(f"{r.id:<12}{r.added_weight:>12,.0f}{r.added_share * 100:>8.2f}  {r.name}")
@@ -547,9 +547,9 @@ def _cmd_site(args: argparse.Namespace) -> int:
     if rejected:
         print(f"rejected: {rejected}")
     chosen_table = pd.DataFrame(plan.chosen.drop(columns="geometry"))
-    write_text_atomic(table_file(folder, "site_chosen"), chosen_table.to_csv(index=False))
-    write_text_atomic(table_file(folder, "site_curve"), plan.curve.to_csv(index=False))
-    write_text_atomic(table_file(folder, "site_ranking"), plan.ranking.to_csv(index=False))
+    write_csv_atomic(table_file(folder, "site_chosen"), chosen_table)
+    write_csv_atomic(table_file(folder, "site_curve"), plan.curve)
+    write_csv_atomic(table_file(folder, "site_ranking"), plan.ranking)
     s = plan.summary
     print(
         f"{s['model']} solved by {s['method']} ({s['status']}, gap {s['mip_gap'] * 100:.3f} % to the "

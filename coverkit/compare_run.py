@@ -17,7 +17,7 @@ import geopandas as gpd
 import pandas as pd
 
 from coverkit import CAUTION
-from coverkit.atomic import write_gpkg_layers, write_text_atomic
+from coverkit.atomic import write_csv_atomic, write_gpkg_layers
 from coverkit.errors import CoverkitError
 from coverkit.layer_names import layer_name, output_file
 from coverkit.network.model import RoadNetwork
@@ -257,7 +257,7 @@ def _compare(
         layers[layer_name("gaps_after", standard=std)] = ca.after.gaps
     outputs = {
         "layers": write_gpkg_layers(output_file(out, "compare_layers"), layers),
-        "table": write_text_atomic(output_file(out, "compare_csv"), summary.to_csv(index=False)),
+        "table": write_csv_atomic(output_file(out, "compare_csv"), summary),
     }
     return CompareRun(
         study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, outputs

@@ -125,7 +125,8 @@ class CoverageResult:
         GeoDataFrame, one row per demand point in input order: the input's ``id`` and ``weight``, ``travel_s``
         (to the first-due base; inf when none within the horizon), ``response_s`` (turnout + travel),
         ``first_base``, ``second_base`` (base ids, "" when none), ``second_travel_s``, ``depth`` (bases within
-        the travel standard), ``covered``, ``on_network``, ``snap_m`` and the input's other columns.
+        the travel standard), ``covered``, ``on_network``, ``snap_m`` and the input's other columns. Files get
+        NULL for both inf and "" (:func:`coverkit.atomic.null_missing`).
     bases
         The bases used (GeoDataFrame with ``id``).
     standard

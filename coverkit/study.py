@@ -521,7 +521,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     """
     import pandas as pd
 
-    from coverkit.atomic import write_gpkg_layers, write_text_atomic
+    from coverkit.atomic import write_csv_atomic, write_gpkg_layers
     from coverkit.coverage import (
         area_layers,
         compliance_by,
@@ -662,9 +662,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         layers[layer_name("site_chosen")] = site_plan.chosen
         layers[layer_name("site_ranking")] = site_plan.ranking
         layers[layer_name("site_curve")] = site_plan.curve
-        outputs["site_curve_csv"] = write_text_atomic(
-            table_file(folder, "site_curve"), site_plan.curve.to_csv(index=False)
-        )
+        outputs["site_curve_csv"] = write_csv_atomic(table_file(folder, "site_curve"), site_plan.curve)
     avail = None
     if study.availability:
         from coverkit.availability import availability as run_availability
@@ -702,7 +700,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         layers[layer_name("calibration_errors")] = calibration.errors
     layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
     outputs["layers"] = write_gpkg_layers(output_file(folder, "layers"), layers)
-    outputs["summary_csv"] = write_text_atomic(output_file(folder, "summary_csv"), summary.to_csv(index=False))
+    outputs["summary_csv"] = write_csv_atomic(output_file(folder, "summary_csv"), summary)
     result = StudyRun(
         study,
         net,

@@ -1,0 +1,102 @@
+"""Places not reached and bases not found are written as NULL, never as ``inf`` or an empty string.
+
+The reference is the file formats themselves, read back by independent readers: SQLite's own ``IS NULL`` on the
+GeoPackage tables (a GeoPackage is an SQLite database, OGC 12-128r18, 2021) and Python's ``csv`` module, where a
+missing value is an empty field (RFC 4180 has no other way to write one; common practice, no source).
+"""
+
+from __future__ import annotations
+
+import csv
+import sqlite3
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+import shapely
+
+from coverkit.atomic import null_missing, write_csv_atomic, write_gpkg_layers
+from coverkit.cli import main
+from coverkit.network import build_network
+
+from .conftest import DEMO
+
+
+def _table(crs="EPSG:32633"):
+    return gpd.GeoDataFrame(
+        {
+            "id": ["a", "b", "c"],
+            "travel_s": [120.0, np.inf, np.nan],
+            "first_base": ["S1", "", None],
+            "depth": [1, 0, 0],
+            "covered": [True, False, False],
+        },
+        geometry=shapely.points([[0, 0], [1, 1], [2, 2]]),
+        crs=crs,
+    )
+
+
+def test_gpkg_writer_stores_null_for_inf_and_empty_ids(tmp_path):
+    path = write_gpkg_layers(
+        tmp_path / "t.gpkg", {"demand": _table(), "attributes": pd.DataFrame(_table()).drop(columns="geometry")}
+    )
+    with sqlite3.connect(path) as db:
+        for layer in ("demand", "attributes"):
+            rows = db.execute(
+                f"SELECT id, travel_s IS NULL, first_base IS NULL, depth, covered FROM {layer} ORDER BY id"
+            ).fetchall()
+            assert rows == [("a", 0, 0, 1, 1), ("b", 1, 1, 0, 0), ("c", 1, 1, 0, 0)]
+            # nothing infinite nor an empty string survives anywhere in the table
+            assert db.execute(f"SELECT COUNT(*) FROM {layer} WHERE travel_s > 1e308 OR first_base = ''").fetchone() == (
+                0,
+            )
+    back = pyogrio.read_dataframe(path, layer="demand")
+    assert back["first_base"].isna().tolist() == [False, True, True]
+    assert back["travel_s"].isna().tolist() == [False, True, True]
+
+
+def test_csv_writer_leaves_missing_fields_empty(tmp_path):
+    path = write_csv_atomic(tmp_path / "t.csv", pd.DataFrame(_table()).drop(columns="geometry"))
+    with open(path, newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [r["travel_s"] for r in rows] == ["120.0", "", ""]
+    assert [r["first_base"] for r in rows] == ["S1", "", ""]
+    assert "inf" not in path.read_text(encoding="utf-8").lower()
+
+
+def test_null_missing_keeps_the_input_unchanged():
+    t = _table()
+    null_missing(t)
+    assert np.isinf(t["travel_s"].iloc[1]) and t["first_base"].iloc[1] == ""
+
+
+@pytest.fixture(scope="module")
+def demo_net_path(tmp_path_factory):
+    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
+    path = tmp_path_factory.mktemp("net") / "net.gpkg"
+    net.save(path)
+    return path
+
+
+def test_cover_writes_unreached_demand_as_null(demo_net_path, tmp_path):
+    """A call far off every road (0.5 degree south of the county) is not reached: its times and its first- and
+    second-due bases are NULL in the written GeoPackage; a reached call keeps its values."""
+    pts = pd.DataFrame({"id": ["near", "far"], "lon": [-35.077, -35.0], "lat": [41.048, 40.4]})
+    src = tmp_path / "calls.csv"
+    pts.to_csv(src, index=False)
+    out = tmp_path / "c.gpkg"
+    args = ["cover", str(demo_net_path), "--bases", str(DEMO / "stations.csv"), "--demand", str(src)]
+    assert main([*args, "--minutes", "8", "--out", str(out), "--quiet"]) == 0
+    with sqlite3.connect(out) as db:
+        far = db.execute(
+            "SELECT travel_s IS NULL, response_s IS NULL, second_travel_s IS NULL, first_base IS NULL, "
+            "second_base IS NULL FROM demand WHERE id = 'far'"
+        ).fetchone()
+        near = db.execute("SELECT travel_s, first_base FROM demand WHERE id = 'near'").fetchone()
+        fractile = db.execute("SELECT fractile_response_s IS NULL FROM summary").fetchone()
+    assert far == (1, 1, 1, 1, 1)
+    assert np.isfinite(near[0]) and near[1]
+    # half the calls are never reached, so the 90th percentile response is not reached either
+    assert fractile == (1,)
