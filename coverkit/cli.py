@@ -196,6 +196,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--end", help="keep points before this ISO time")
     p.add_argument("--zones", type=Path, help="polygon layer for compliance by zone")
     p.add_argument("--zone-field", help="id field of --zones")
+    p.add_argument(
+        "--boundary",
+        type=Path,
+        help="study area polygon layer that the first-, second- and third-due areas tile (default: the network's "
+        "extent)",
+    )
     p.add_argument("--demand-snap-m", type=_positive_float, default=500.0, help="demand snap limit, m (500)")
     p.add_argument("--direction", choices=["out", "in"], default="out", help="out: base to demand (default)")
     _points_options(p)
@@ -410,6 +416,7 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     from coverkit.coverage import Standard, area_layers, compliance_by, compliance_by_zone, evaluate_coverage, per_base
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
+    from coverkit.network.build import read_boundary
     from coverkit.study import standard_layers
 
     if (args.zones is None) != (args.zone_field is None):
@@ -433,7 +440,8 @@ def _cmd_cover(args: argparse.Namespace) -> int:
         net, bases, demand, std, max_snap_m=args.demand_snap_m, base_snap_m=args.snap_m, direction=args.direction
     )
     is_points = demand["source"].iloc[0] == "points"
-    areas = area_layers(net, res, incidents=demand if is_points else None)
+    area = read_boundary(args.boundary).to_crs(net.crs).union_all() if args.boundary else None
+    areas = area_layers(net, res, area=area)
     out_demand = res.demand.assign(gap_id=areas.demand_gap_id)
     by_base = per_base(res)
     tables = {"by_base": {dname: by_base}}
@@ -466,10 +474,13 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     frac_text = "not reached" if frac == float("inf") else f"{frac:,.0f} s ({frac / 60:.1f} min)"
     verdict = "meets" if summary["meets_standard"] else "misses"
     print(f"fractile     {args.fractile * 100:g}th percentile response {frac_text}: {verdict} {std.response_s:,.0f} s")
+    count = areas.gap_counts()[0]
+    outside = areas.uncovered_outside[count]
     print(
-        f"gaps         {len(areas.gaps)}"
+        f"gaps         {len(areas.gaps)} holding {areas.gaps[count].sum():,.0f} uncovered {unit}"
+        + (f" ({outside:,.0f} more lie outside every gap, beyond the grid)" if outside > 0 else "")
         + (
-            f"; largest {areas.gaps['population'].iloc[0]:,.0f} {unit}, {areas.gaps['area_km2'].iloc[0]:.1f} km2"
+            f"; largest {areas.gaps[count].iloc[0]:,.0f} {unit}, {areas.gaps['area_km2'].iloc[0]:.1f} km2"
             if len(areas.gaps)
             else ""
         )

@@ -206,6 +206,8 @@ def _compare(
             net, net2, before[(s.name, residents)], after[(s.name, residents)],
             incidents=demand[incidents] if incidents else None, cell_m=cell, reach_m=reach, grid_before=gb,
             grid_after=ga,
+            calls_before=before[(s.name, incidents)] if incidents else None,
+            calls_after=after[(s.name, incidents)] if incidents else None,
         )  # fmt: skip
         gb, ga = ca.before.grid, ca.after.grid
         areas[s.name] = ca

@@ -381,12 +381,34 @@ def per_base(result: CoverageResult) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+#: Gap columns counting uncovered demand are named ``uncovered_<what they count>`` (people, calls, demand).
+GAP_COUNT_PREFIX = "uncovered_"
+#: Status of a due-area row whose places no base reaches (in k-th place) within the search horizon.
+NOT_REACHED = "not reached"
+#: How many due orders are drawn as areas: first-, second- and third-due.
+DUE_ORDERS = 3
+
+
+def demand_unit(demand: gpd.GeoDataFrame) -> str:
+    """What a demand layer's weights count: ``"people"`` (raster, polygons), ``"calls"`` (points) or ``"demand"``."""
+    if "source" in demand.columns and len(demand):
+        return {"raster": "people", "polygons": "people", "points": "calls"}.get(
+            str(demand["source"].iloc[0]), "demand"
+        )
+    return "demand"
+
+
 @dataclass
 class AreaLayers:
-    """Polygons built on the road-near grid: first-due areas, gaps and single-coverage areas.
+    """Polygons built on the area grid: first-, second- and third-due areas, gaps and single-coverage areas.
 
-    ``depth_grid`` holds the coverage depth per cell (-1 where no road is within reach); ``demand_gap_id`` gives,
-    per demand point, the gap it falls in (0 when covered).
+    ``due[k]`` (k = 0, 1, 2) partitions the study area by the base that reaches each place in (k+1)-th place, one
+    row per base (``base_id``, ``status`` ``"reached"``) plus one row ``base_id`` None, ``status`` ``"not reached"``
+    for the places no base reaches in that place within the horizon. ``depth_grid`` holds the coverage depth per
+    cell (-1 where no road is within reach). ``gaps`` counts only uncovered demand, one ``uncovered_<unit>``
+    column per demand layer counted; ``demand_gap_id`` (``incident_gap_id``) gives, per point of the coverage
+    result (of the incidents), the gap it falls in (0 when covered). ``uncovered_outside`` is, per count column,
+    the uncovered demand lying outside every gap (outside the grid; normally 0).
     """
 
     first_due: gpd.GeoDataFrame
@@ -396,11 +418,33 @@ class AreaLayers:
     transform: Affine
     demand_gap_id: np.ndarray
     grid: AreaGrid
+    due: list[gpd.GeoDataFrame] = field(default_factory=list)
+    incident_gap_id: np.ndarray | None = None
+    uncovered_outside: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def second_due(self) -> gpd.GeoDataFrame:
+        """Second-due areas (same partition of the study area as :attr:`first_due`)."""
+        return self.due[1]
+
+    @property
+    def third_due(self) -> gpd.GeoDataFrame:
+        """Third-due areas (same partition of the study area as :attr:`first_due`)."""
+        return self.due[2]
+
+    def gap_counts(self) -> list[str]:
+        """The ``uncovered_*`` columns of :attr:`gaps`, in order (the first is the coverage result's own)."""
+        return gap_count_columns(self.gaps)
+
+
+def gap_count_columns(gaps: pd.DataFrame) -> list[str]:
+    """The columns of a gaps table counting uncovered demand (``uncovered_people``, ``uncovered_calls`` ...)."""
+    return [c for c in gaps.columns if str(c).startswith(GAP_COUNT_PREFIX)]
 
 
 @dataclass
 class AreaGrid:
-    """The road-near cells of the extent and their travel table (reusable across standards)."""
+    """The cells of the study extent, their road-timed subset and its travel table (reusable across standards)."""
 
     nrow: int
     ncol: int
@@ -409,6 +453,8 @@ class AreaGrid:
     on: np.ndarray  # flat indices of cells assigned to the road network (within ``assign_m`` of a road)
     near: np.ndarray  # per entry of ``on``: within ``reach_m`` of a road (counts for depth, gaps, single cover)
     table: TravelTable
+    area: object = None  # the study area (shapely polygon, network CRS) the due areas partition
+    fill: np.ndarray | None = None  # per cell (flat): position in ``on`` of the timed cell standing for it, -1 none
 
 
 def area_grid(
@@ -417,13 +463,39 @@ def area_grid(
     cell_m: float = DEFAULT_CELL_M,
     reach_m: float = DEFAULT_REACH_M,
     assign_m: float = DEFAULT_ASSIGN_M,
+    *,
+    area: object = None,
+    points: tuple[gpd.GeoDataFrame, ...] = (),
 ) -> AreaGrid:
-    """Cells of ``cell_m`` over the network extent, each timed from the bases through its nearest road point.
+    """Cells of ``cell_m`` over the study extent, those near a road timed from the bases through their nearest road.
 
-    Cells within ``reach_m`` of a road count for coverage depth, gaps and single coverage; every cell within
-    ``assign_m`` of a road is given a first-due base, so that first-due areas tile the served area.
+    Cells within ``reach_m`` of a road count for coverage depth, gaps and single coverage; cells within
+    ``assign_m`` of a road are snapped and timed; every other cell stands in for by its nearest timed cell (exact
+    Euclidean distance transform), so that the due areas tile the whole study area, off-road land included.
+
+    Parameters
+    ----------
+    area
+        The study area (a shapely polygon in the network CRS, e.g. the jurisdiction's boundary), which the due
+        areas partition. Default: the rectangle of the network's nodes.
+    points
+        Further point layers (e.g. incidents) the grid must hold, besides ``result.demand``. Points farther than
+        ``assign_m`` beyond the network's rectangle do not widen it (they are off the network anyway).
     """
-    x0, y0, x1, y1 = net.nodes.total_bounds
+    from scipy.ndimage import distance_transform_edt
+
+    nx0, ny0, nx1, ny1 = net.nodes.total_bounds
+    if area is None:
+        area = shapely.box(nx0, ny0, nx1, ny1)
+    boxes = [np.array([nx0, ny0, nx1, ny1]), np.asarray(area.bounds, dtype=float)]
+    reach_box = shapely.box(nx0, ny0, nx1, ny1).buffer(assign_m, join_style="mitre")
+    for frame in (result.demand, *points):
+        xy = shapely.get_coordinates(frame.geometry.to_numpy())
+        xy = xy[shapely.contains_xy(reach_box, xy[:, 0], xy[:, 1])]
+        if len(xy):
+            boxes.append(np.concatenate([xy.min(axis=0), xy.max(axis=0)]))
+    x0, y0 = np.min([b[:2] for b in boxes], axis=0)
+    x1, y1 = np.max([b[2:] for b in boxes], axis=0)
     ncol = int(np.ceil((x1 - x0) / cell_m)) + 1
     nrow = int(np.ceil((y1 - y0) / cell_m)) + 1
     transform = Affine(cell_m, 0, x0 - cell_m / 2, 0, -cell_m, y1 + cell_m / 2)
@@ -445,90 +517,141 @@ def area_grid(
     note(
         f"coverage: timing {len(on):,} grid cells of {cell_m:g} m ({int(near.sum()):,} within {reach_m:g} m of a road)"
     )
+    fill = np.full(nrow * ncol, -1, dtype=np.int64)
+    if len(on):
+        position = np.full(nrow * ncol, -1, dtype=np.int64)
+        position[on] = np.arange(len(on))
+        off = np.ones(nrow * ncol, dtype=bool)
+        off[on] = False
+        ri, ci = distance_transform_edt(off.reshape(nrow, ncol), return_distances=False, return_indices=True)
+        fill = position[(ri * ncol + ci).ravel()]
     sub = snap.subset(on)
     base_snap = result.extra["base_snap"]
     times = point_times(net, base_snap, sub, result.horizon_s, direction=result.direction)
-    return AreaGrid(
-        nrow, ncol, cell_m, transform, on, near, TravelTable(base_snap, sub, times, result.horizon_s, result.direction)
+    table = TravelTable(base_snap, sub, times, result.horizon_s, result.direction)
+    return AreaGrid(nrow, ncol, cell_m, transform, on, near, table, area, fill)
+
+
+def _due_areas(grid: AreaGrid, source: np.ndarray, base_ids: np.ndarray, crs: object) -> gpd.GeoDataFrame:
+    """The study area split by ``source`` (base index per timed cell, -1 not reached): one row per base, then the
+    row of places not reached. Every cell takes the value of the timed cell standing for it; the cell squares are
+    clipped to the study area, so the rows tile it exactly."""
+    nrow, ncol = grid.nrow, grid.ncol
+    per_cell = np.full(nrow * ncol, -1, dtype=np.int64)
+    if len(source):
+        per_cell = np.where(grid.fill >= 0, source[np.maximum(grid.fill, 0)], -1)
+    polys = grid_polygons(per_cell.reshape(nrow, ncol), grid.transform, crs, valid=np.ones((nrow, ncol), dtype=bool))
+    polys = polys.dissolve("value", as_index=False)
+    polys["geometry"] = shapely.intersection(polys.geometry.to_numpy(), grid.area)
+    polys = polys[~polys.geometry.is_empty]
+    value = polys["value"].to_numpy(dtype=int)
+    reached = value >= 0
+    out = gpd.GeoDataFrame(
+        {
+            "base_id": np.where(reached, base_ids[np.maximum(value, 0)], None).astype(object),
+            "status": np.where(reached, "reached", NOT_REACHED).astype(object),
+        },
+        geometry=polys.geometry.to_numpy(),
+        crs=crs,
     )
+    out["area_km2"] = out.area / 1e6
+    # bases in input order, the places not reached last
+    order = np.lexsort((value, ~reached))
+    return out.iloc[order].reset_index(drop=True)
 
 
 def area_layers(
     net: RoadNetwork,
     result: CoverageResult,
-    incidents: gpd.GeoDataFrame | None = None,
+    incidents: CoverageResult | gpd.GeoDataFrame | None = None,
     cell_m: float = DEFAULT_CELL_M,
     reach_m: float = DEFAULT_REACH_M,
     grid: AreaGrid | None = None,
+    *,
+    area: object = None,
 ) -> AreaLayers:
-    """First-due areas, gaps (contiguous uncovered areas) and areas covered only once, as polygons.
+    """Due areas, gaps (contiguous uncovered areas) and areas covered only once, as polygons.
 
     The extent is divided into ``cell_m`` cells; cells whose centre lies within ``reach_m`` of a road are snapped
-    and timed like demand points (same engine, same standard). Cells holding an uncovered demand point are
-    uncovered too, so that every uncovered demand point falls inside exactly one gap and the gap populations add
-    up to the uncovered demand. Gaps are labelled by 8-connectivity and sorted by population, then area.
+    and timed like demand points (same engine, same standard). Cells holding an uncovered demand point (of
+    ``result`` or of ``incidents``) are uncovered too, so that every uncovered point falls inside exactly one gap
+    and the gap figures add up to the uncovered demand; covered points are never counted. Gaps are labelled by
+    8-connectivity and sorted by the uncovered demand of ``result``, then area.
+
+    Parameters
+    ----------
+    incidents
+        A second demand layer counted in the gaps (e.g. calls beside residents): its :class:`CoverageResult`
+        under the same standard, or that result's ``demand`` frame (it must carry ``covered``).
+    area
+        The study area the due areas partition (shapely polygon in the network CRS); used when the grid is built
+        here. Default: the rectangle of the network's nodes.
     """
     crs = result.demand.crs
+    counted = [result.demand]
+    if incidents is not None:
+        frame = incidents.demand if isinstance(incidents, CoverageResult) else incidents
+        if "covered" not in frame.columns:
+            raise ValueError("incidents for the gaps need their coverage: pass their CoverageResult")
+        if frame is not result.demand:
+            counted.append(frame.to_crs(crs) if frame.crs != crs else frame)
     if grid is None:
-        grid = area_grid(net, result, cell_m, reach_m)
+        grid = area_grid(net, result, cell_m, reach_m, area=area, points=tuple(counted[1:]))
     nrow, ncol, transform, on = grid.nrow, grid.ncol, grid.transform, grid.on
     times = grid.table.times
     cell_m = grid.cell_m
-    src, t = nearest_sources(times, k=1)
+    src, t = nearest_sources(times, k=DUE_ORDERS)
     depth_on = count_within(times, result.standard.travel_s)
     near = grid.near
-    first_grid = np.full(nrow * ncol, -1, dtype=np.int32)
-    first_grid[on] = src[:, 0]
     depth_grid = np.full(nrow * ncol, -1, dtype=np.int32)  # -1: no road within reach
     depth_grid[on[near]] = depth_on[near]
     uncovered = np.zeros(nrow * ncol, dtype=bool)
     uncovered[on[near]] = t[near, 0] > result.standard.travel_s
 
-    d = result.demand
-    dxy = shapely.get_coordinates(d.geometry.to_numpy())
-    dcol = np.clip(((dxy[:, 0] - transform.c) / cell_m).astype(int), 0, ncol - 1)
-    drow = np.clip(((transform.f - dxy[:, 1]) / cell_m).astype(int), 0, nrow - 1)
-    dcell = drow * ncol + dcol
-    d_unc = ~d["covered"].to_numpy()
-    uncovered[dcell[d_unc]] = True
-    # a cell holding covered demand only and no timed road stays out of the gaps
+    # the cell of every uncovered point (-1 outside the grid); a cell holding covered demand only stays out
+    point_cells, point_unc = [], []
+    for frame in counted:
+        xy = shapely.get_coordinates(frame.geometry.to_numpy())
+        col = np.floor((xy[:, 0] - transform.c) / cell_m).astype(np.int64)
+        row = np.floor((transform.f - xy[:, 1]) / cell_m).astype(np.int64)
+        inside = (col >= 0) & (col < ncol) & (row >= 0) & (row < nrow)
+        cell = np.where(inside, row * ncol + col, -1)
+        unc = ~frame["covered"].to_numpy(dtype=bool)
+        uncovered[cell[unc & inside]] = True
+        point_cells.append(cell)
+        point_unc.append(unc)
     base_ids = result.bases["id"].astype(str).to_numpy()
+    due = [_due_areas(grid, src[:, k], base_ids, crs) for k in range(DUE_ORDERS)]
 
-    first_due = grid_polygons(first_grid.reshape(nrow, ncol), transform, crs, valid=first_grid.reshape(nrow, ncol) >= 0)
-    first_due["base_id"] = base_ids[first_due["value"].to_numpy(dtype=int)] if len(first_due) else []
-    first_due = first_due.dissolve("base_id", as_index=False)[["base_id", "geometry"]] if len(first_due) else first_due
-    if len(first_due):
-        first_due["area_km2"] = first_due.area / 1e6
-
-    labels_grid = label_regions(uncovered.reshape(nrow, ncol))
-    gap_of_point = np.where(d_unc, labels_grid.ravel()[dcell], 0)
-    w = d["weight"].to_numpy(dtype=float)
+    labels_grid = label_regions(uncovered.reshape(nrow, ncol)).ravel()
     n_lab = int(labels_grid.max())
-    pop = np.bincount(gap_of_point[d_unc], weights=w[d_unc], minlength=n_lab + 1)
-    inc = np.zeros(n_lab + 1)
-    if incidents is not None and len(incidents):
-        ixy = shapely.get_coordinates(incidents.to_crs(crs).geometry.to_numpy())
-        icol = ((ixy[:, 0] - transform.c) / cell_m).astype(int)
-        irow = ((transform.f - ixy[:, 1]) / cell_m).astype(int)
-        inside = (icol >= 0) & (icol < ncol) & (irow >= 0) & (irow < nrow)
-        lab = labels_grid[irow[inside], icol[inside]]
-        inc = np.bincount(lab, minlength=n_lab + 1).astype(float)
-    gaps = grid_polygons(labels_grid, transform, crs, valid=labels_grid > 0)
+    names, sums, gap_of_points, outside = [], [], [], {}
+    for frame, cell, unc in zip(counted, point_cells, point_unc, strict=True):
+        name = f"{GAP_COUNT_PREFIX}{demand_unit(frame)}"
+        while name in names:  # two layers counting the same thing keep apart
+            name += "_2"
+        lab = np.where(unc & (cell >= 0), labels_grid[np.maximum(cell, 0)], 0)
+        w = frame["weight"].to_numpy(dtype=float)
+        sums.append(np.bincount(lab[unc], weights=w[unc], minlength=n_lab + 1))
+        outside[name] = float(w[unc & (lab == 0)].sum())
+        names.append(name)
+        gap_of_points.append(lab)
+    gaps = grid_polygons(labels_grid.reshape(nrow, ncol), transform, crs, valid=labels_grid.reshape(nrow, ncol) > 0)
     label_to_gap = np.zeros(n_lab + 1, dtype=np.int64)
     if len(gaps):
         gaps = gaps.dissolve("value", as_index=False)
         lab = gaps["value"].to_numpy(dtype=int)
-        gaps["population"] = pop[lab]
-        gaps["incidents"] = inc[lab].astype(int)
+        for name, total in zip(names, sums, strict=True):
+            gaps[name] = total[lab]
         gaps["area_km2"] = gaps.area / 1e6
-        gaps = gaps.sort_values(["population", "area_km2", "value"], ascending=[False, False, True]).reset_index(
-            drop=True
-        )
+        gaps = gaps.sort_values([names[0], "area_km2", "value"], ascending=[False, False, True]).reset_index(drop=True)
         gaps.insert(0, "gap_id", np.arange(1, len(gaps) + 1))
         label_to_gap[gaps["value"].to_numpy(dtype=int)] = gaps["gap_id"].to_numpy()
         gaps = gaps.drop(columns="value")
+        gaps = gaps[["gap_id", *names, "area_km2", "geometry"]]
     else:
-        gaps = gpd.GeoDataFrame({"gap_id": [], "population": [], "incidents": [], "area_km2": []}, geometry=[], crs=crs)
+        empty = {"gap_id": [], **{name: [] for name in names}, "area_km2": []}
+        gaps = gpd.GeoDataFrame(empty, geometry=[], crs=crs)
 
     single_mask = (depth_grid == 1).reshape(nrow, ncol)
     single = grid_polygons(single_mask.astype(np.int32), transform, crs, valid=single_mask)
@@ -536,7 +659,16 @@ def area_layers(
     if len(single):
         single["area_km2"] = single.area / 1e6
     return AreaLayers(
-        first_due, gaps, single, depth_grid.reshape(nrow, ncol), transform, label_to_gap[gap_of_point], grid
+        due[0],
+        gaps,
+        single,
+        depth_grid.reshape(nrow, ncol),
+        transform,
+        label_to_gap[gap_of_points[0]],
+        grid,
+        due=due,
+        incident_gap_id=label_to_gap[gap_of_points[1]] if len(counted) > 1 else None,
+        uncovered_outside=outside,
     )
 
 

@@ -798,6 +798,9 @@ def changed_areas(
     reach_m: float = 200.0,
     grid_before: AreaGrid | None = None,
     grid_after: AreaGrid | None = None,
+    *,
+    calls_before: CoverageResult | None = None,
+    calls_after: CoverageResult | None = None,
 ) -> ChangedAreas:
     """Polygons of the areas that lose or gain coverage, from the road-near grids before and after.
 
@@ -806,10 +809,12 @@ def changed_areas(
     demand point that lost coverage; *gained* the other way round. Lost and gained cells are grouped into polygons
     by 8-connectivity. Every demand point that loses (gains) coverage lies in exactly one lost (gained) polygon, so
     the polygon weights add up to the comparison's lost (gained) demand; a cell holding both lost and gained points
-    appears in one polygon of each kind.
+    appears in one polygon of each kind. The gaps before and after count the uncovered calls of ``calls_before``
+    and ``calls_after`` (the incidents' coverage results) besides the uncovered demand of ``before``/``after``.
     """
-    gb = grid_before or area_grid(net_before, before, cell_m, reach_m)
-    ga = grid_after or area_grid(net_after, after, cell_m, reach_m)
+    calls = tuple(c.demand for c in (calls_before, calls_after) if c is not None)
+    gb = grid_before or area_grid(net_before, before, cell_m, reach_m, points=calls)
+    ga = grid_after or area_grid(net_after, after, cell_m, reach_m, points=calls)
     if (gb.nrow, gb.ncol, gb.cell_m) != (ga.nrow, ga.ncol, ga.cell_m) or gb.transform != ga.transform:
         raise ValueError("changed_areas needs the same grid before and after (networks sharing their nodes)")
     nrow, ncol, transform, cell = gb.nrow, gb.ncol, gb.transform, gb.cell_m
@@ -876,8 +881,8 @@ def changed_areas(
     status[~on_any] = -2
     status[gained] = 1
     status[lost] = -1
-    layers_b = area_layers(net_before, before, incidents=incidents, grid=gb)
-    layers_a = area_layers(net_after, after, incidents=incidents, grid=ga)
+    layers_b = area_layers(net_before, before, incidents=calls_before, grid=gb)
+    layers_a = area_layers(net_after, after, incidents=calls_after, grid=ga)
     return ChangedAreas(polys, delta.reshape(nrow, ncol), status.reshape(nrow, ncol), transform, layers_b, layers_a)
 
 

@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any
 
 from coverkit import __version__
-from coverkit.coverage import Standard, default_horizon_s
+from coverkit.coverage import GAP_COUNT_PREFIX, Standard, default_horizon_s
 from coverkit.errors import CoverkitError, StudyError
 from coverkit.layer_names import layer_name, map_file, output_file, table_file
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
@@ -474,6 +474,14 @@ def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
     return net, text, False
 
 
+def study_area(study: Study, net: Any) -> Any:
+    """The study's boundary as one polygon in the network's CRS, or None when the study gives none."""
+    from coverkit.network.build import read_boundary
+
+    path = study.roads.get("boundary")
+    return read_boundary(path).to_crs(net.crs).union_all() if path else None
+
+
 def load_inputs(study: Study, net: Any) -> tuple[Any, dict[str, Any], dict[str, str], dict[str, float]]:
     """The bases and demand layers of a study, projected to the network's CRS.
 
@@ -592,7 +600,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         name: travel_table(net, bases, dem, horizon_s, snaps[name], base_snap_m, study.direction)
         for name, dem in demand.items()
     }
-    grid = None
+    grid, area = None, study_area(study, net)
     for std in study.standards:
         results, zone_tables, prio_tables, base_tables = {}, {}, {}, {}
         for name, dem in demand.items():
@@ -607,13 +615,16 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         areas = area_layers(
             net,
             results[residents],
-            incidents=demand[incidents] if incidents else None,
+            incidents=results[incidents] if incidents else None,
             cell_m=float(opts.get("grid_cell_m", 100.0)),
             reach_m=float(opts.get("reach_m", 150.0)) + 50.0,
             grid=grid,
+            area=area,
         )
         grid = areas.grid
         results[residents].demand["gap_id"] = areas.demand_gap_id
+        if areas.incident_gap_id is not None:
+            results[incidents].demand["gap_id"] = areas.incident_gap_id
         runs.append(StandardRun(std, results, areas, zone_tables, prio_tables, base_tables))
     summary = pd.DataFrame(rows)
 
@@ -766,11 +777,16 @@ def headline_lines(run: StudyRun) -> list[str]:
             f"(profile written to {run.outputs['calibrated_profile'].name})"
         )
     for srun in run.runs:
-        gaps = srun.areas.gaps
+        gaps, counts = srun.areas.gaps, srun.areas.gap_counts()
         if len(gaps):
             top = gaps.iloc[0]
+            held = ", ".join(f"{top[c]:,.0f} {c.removeprefix(GAP_COUNT_PREFIX)}" for c in counts)
             lines.append(
-                f"{srun.standard.name:<22} {len(gaps)} gaps; largest holds {top['population']:,.0f} people, "
-                f"{top['incidents']:,.0f} incidents, {top['area_km2']:.1f} km2"
+                f"{srun.standard.name:<22} {len(gaps)} gaps; largest holds {held} uncovered, {top['area_km2']:.1f} km2"
             )
+        outside = ", ".join(
+            f"{v:,.0f} {c.removeprefix(GAP_COUNT_PREFIX)}" for c, v in srun.areas.uncovered_outside.items() if v > 0
+        )
+        if outside:
+            lines.append(f"{srun.standard.name:<22} uncovered outside every gap (beyond the grid): {outside}")
     return lines

@@ -934,6 +934,13 @@ def first_due_map(
 
     page = _Page(title, standard_text, crs, _bounds_union(areas, bases), frame)
     palette = FIRST_DUE_PALETTE
+    # places no base reaches (base_id missing) are drawn apart, in light grey
+    unreached = areas["base_id"].isna().to_numpy() if len(areas) else np.zeros(0, dtype=bool)
+    if unreached.any():
+        geoms = areas.geometry.to_numpy()[unreached]
+        _draw_polygons(page.ax, geoms, ["#eeeeee"] * len(geoms), edgecolors="white", linewidths=1.0, zorder=1)
+        page.add_legend(Patch(fc="#eeeeee", ec="#777", lw=0.4), "not reached")
+        areas = areas[~unreached]
     groups = np.asarray(areas["base_id"].to_numpy(), dtype=object)
     colour_of = neighbour_colors(areas.geometry.to_numpy(), groups, len(palette)) if len(areas) else {}
     if len(areas):
