@@ -164,14 +164,14 @@ def test_gap_populations_add_up_to_uncovered(helsinki_network):
         crs=net.crs,
     )
     res = evaluate_coverage(net, bases, demand, Standard("s", 120.0))
-    areas = area_layers(net, res, incidents=demand)
+    areas = area_layers(net, res)
     summary = res.summary()
     assert summary["uncovered"] > 0
-    assert areas.gaps["population"].sum() == pytest.approx(summary["uncovered"], rel=1e-9)
+    assert areas.gaps["uncovered_demand"].sum() == pytest.approx(summary["uncovered"], rel=1e-9)
     assert (areas.demand_gap_id[~res.demand["covered"].to_numpy()] > 0).all()
     assert (areas.demand_gap_id[res.demand["covered"].to_numpy()] == 0).all()
     assert list(areas.gaps["gap_id"]) == list(range(1, len(areas.gaps) + 1))
-    assert areas.gaps["population"].is_monotonic_decreasing
+    assert areas.gaps["uncovered_demand"].is_monotonic_decreasing
     assert shapely.is_valid(areas.gaps.geometry.to_numpy()).all()
     # every first-due area belongs to the single base; the per-base table agrees with the demand table
     assert set(areas.first_due["base_id"]) == {"A"}

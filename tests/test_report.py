@@ -90,7 +90,7 @@ def depth_grid() -> tuple[np.ndarray, affine.Affine]:
 
 def _big_square_gaps() -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame(
-        {"gap_id": ["g1"], "population": [100.0], "incidents": [3]},
+        {"gap_id": ["g1"], "uncovered_people": [100.0], "uncovered_calls": [3]},
         geometry=[shapely.box(X0, Y0, X0 + 3000, Y0 + 2500)],
         crs=CRS,
     )
@@ -239,7 +239,11 @@ def test_first_due_colours_differ_between_touching_areas():
 
 def test_gaps_ranked_by_population_then_incidents():
     gaps = gpd.GeoDataFrame(
-        {"gap_id": ["a", "b", "c", "d"], "population": [10.0, 300.0, 10.0, np.nan], "incidents": [1, 0, 5, 9]},
+        {
+            "gap_id": ["a", "b", "c", "d"],
+            "uncovered_people": [10.0, 300.0, 10.0, np.nan],
+            "uncovered_calls": [1, 0, 5, 9],
+        },
         geometry=[shapely.box(0, 0, 1, 1)] * 4,
         crs=CRS,
     )

@@ -230,7 +230,7 @@ def test_cover_command_output_contract(demo_net, tmp_path, capsys):
     assert set(demand["id"].astype(str)) == set(src.loc[src["priority"].isin([1, 2]), "id"].astype(str))
     gaps = gpd.read_file(out, layer="gaps_8_min")
     uncovered = demand.loc[~demand["covered"], "weight"].sum()
-    assert gaps["population"].sum() == pytest.approx(uncovered)
+    assert gaps["uncovered_calls"].sum() == pytest.approx(uncovered)
 
 
 def test_cover_accepts_id_lon_lat_weight_points(demo_net, tmp_path):
