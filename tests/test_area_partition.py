@@ -22,6 +22,7 @@ import shapely
 from coverkit.cli import main
 from coverkit.coverage import NOT_REACHED, Standard, area_layers, evaluate_coverage
 from coverkit.demand import load_demand
+from coverkit.layer_names import layer_name
 from coverkit.network import build_network
 from coverkit.network.build import read_boundary
 from coverkit.network.model import grid_network
@@ -118,15 +119,17 @@ def test_cover_command_writes_due_layers_tiling_the_boundary_and_gaps_of_uncover
     args = ["cover", str(demo["path"]), "--bases", str(DEMO / "stations.csv"), "--demand", str(DEMO / "incidents.csv")]
     assert main([*args, "--minutes", "8", "--boundary", str(DEMO / "boundary.geojson"), "--out", str(out), "-q"]) == 0
     layers = {name for name, _ in pyogrio.list_layers(out)}
-    assert {"first_due", "second_due", "third_due", "gaps"} <= layers
-    for name in ("first_due", "second_due", "third_due"):
+    due = [layer_name(kind, standard="8 min") for kind in ("first_due", "second_due", "third_due")]
+    assert {*due, layer_name("gaps", standard="8 min")} <= layers
+    for name in due:
         _check_partition(gpd.read_file(out, layer=name), demo["boundary"], 100.0)
-    gaps = gpd.read_file(out, layer="gaps")
-    demand = gpd.read_file(out, layer="demand")
+    gaps = gpd.read_file(out, layer=layer_name("gaps", standard="8 min"))
+    demand_layer = layer_name("demand", "incidents", "8 min")
+    demand = gpd.read_file(out, layer=demand_layer)
     assert "population" not in gaps.columns and "uncovered_people" not in gaps.columns
     assert gaps["uncovered_calls"].sum() == pytest.approx(demand.loc[~demand["covered"], "weight"].sum())
     with sqlite3.connect(out) as db:
-        unassigned = db.execute("SELECT COUNT(*) FROM demand WHERE covered = 0 AND gap_id = 0").fetchone()
+        unassigned = db.execute(f"SELECT COUNT(*) FROM {demand_layer} WHERE covered = 0 AND gap_id = 0").fetchone()
     assert unassigned == (0,)
 
 
@@ -134,13 +137,13 @@ def test_cover_command_raster_gaps_hold_uncovered_people(demo, tmp_path):
     out = tmp_path / "people.gpkg"
     args = ["cover", str(demo["path"]), "--bases", str(DEMO / "stations.csv"), "--demand", str(DEMO / "population.tif")]
     assert main([*args, "--minutes", "8", "--out", str(out), "-q"]) == 0
-    gaps = gpd.read_file(out, layer="gaps")
-    demand = pd.DataFrame(gpd.read_file(out, layer="demand"))
+    gaps = gpd.read_file(out, layer=layer_name("gaps", standard="8 min"))
+    demand = pd.DataFrame(gpd.read_file(out, layer=layer_name("demand", "population", "8 min")))
     assert [c for c in gaps.columns if c.startswith("uncovered_")] == ["uncovered_people"]
     assert gaps["uncovered_people"].sum() == pytest.approx(demand.loc[~demand["covered"], "weight"].sum())
     # without a boundary the due areas tile the network's extent
     nodes = demo["net"].nodes.total_bounds
-    _check_partition(gpd.read_file(out, layer="first_due"), shapely.box(*nodes), 100.0)
+    _check_partition(gpd.read_file(out, layer=layer_name("first_due", standard="8 min")), shapely.box(*nodes), 100.0)
 
 
 # -- a larger synthetic county ---------------------------------------------------------------------------------------

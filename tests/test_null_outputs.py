@@ -19,6 +19,7 @@ import shapely
 
 from coverkit.atomic import null_missing, write_csv_atomic, write_gpkg_layers
 from coverkit.cli import main
+from coverkit.layer_names import layer_name
 from coverkit.network import build_network
 
 from .conftest import DEMO
@@ -77,25 +78,30 @@ def demo_net_path(tmp_path_factory):
     net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
     path = tmp_path_factory.mktemp("net") / "net.gpkg"
     net.save(path)
-    return path
+    return net, path
 
 
 def test_cover_writes_unreached_demand_as_null(demo_net_path, tmp_path):
-    """A call far off every road (0.5 degree south of the county) is not reached: its times and its first- and
-    second-due bases are NULL in the written GeoPackage; a reached call keeps its values."""
-    pts = pd.DataFrame({"id": ["near", "far"], "lon": [-35.077, -35.0], "lat": [41.048, 40.4]})
+    """A call 2 km beyond the corner of the road network (off every road, so never reached) has NULL times and
+    NULL first- and second-due bases in the written GeoPackage; a reached call keeps its values."""
+    net, path = demo_net_path
+    x0, y0, _, _ = net.nodes.total_bounds
+    corner = gpd.GeoSeries(shapely.points([[x0 - 2000.0, y0 - 2000.0]]), crs=net.crs).to_crs("EPSG:4326")
+    far_lon, far_lat = shapely.get_coordinates(corner.to_numpy())[0]
+    pts = pd.DataFrame({"id": ["near", "far"], "lon": [-35.077, far_lon], "lat": [41.048, far_lat]})
     src = tmp_path / "calls.csv"
     pts.to_csv(src, index=False)
     out = tmp_path / "c.gpkg"
-    args = ["cover", str(demo_net_path), "--bases", str(DEMO / "stations.csv"), "--demand", str(src)]
+    args = ["cover", str(path), "--bases", str(DEMO / "stations.csv"), "--demand", str(src)]
     assert main([*args, "--minutes", "8", "--out", str(out), "--quiet"]) == 0
+    demand, summary = layer_name("demand", "calls", "8 min"), layer_name("summary")
     with sqlite3.connect(out) as db:
         far = db.execute(
             "SELECT travel_s IS NULL, response_s IS NULL, second_travel_s IS NULL, first_base IS NULL, "
-            "second_base IS NULL FROM demand WHERE id = 'far'"
+            f"second_base IS NULL FROM {demand} WHERE id = 'far'"
         ).fetchone()
-        near = db.execute("SELECT travel_s, first_base FROM demand WHERE id = 'near'").fetchone()
-        fractile = db.execute("SELECT fractile_response_s IS NULL FROM summary").fetchone()
+        near = db.execute(f"SELECT travel_s, first_base FROM {demand} WHERE id = 'near'").fetchone()
+        fractile = db.execute(f"SELECT fractile_response_s IS NULL FROM {summary}").fetchone()
     assert far == (1, 1, 1, 1, 1)
     assert np.isfinite(near[0]) and near[1]
     # half the calls are never reached, so the 90th percentile response is not reached either
