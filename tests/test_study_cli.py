@@ -540,7 +540,6 @@ def test_run_figures_match_the_inputs_and_the_cover_command(tmp_path):
     assert 0.5 < row["covered_share"] < 1.0
 
 
-@pytest.mark.xfail(strict=True, reason="issue 10 item 4: first-due areas do not tile the county")
 def test_demo_first_due_areas_partition_the_county(demo_run):
     """First-due areas partition the study area (design invariant): they do not overlap, lie inside the county
     boundary, and their areas add up to the boundary's area within a 50 m cell along its perimeter (shapely;
