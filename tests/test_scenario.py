@@ -543,7 +543,7 @@ def test_unknown_road_name_suggests_the_way_name(demo, tmp_path):
 
 @pytest.mark.parametrize("kind", ["empty", "points", "nowhere"])
 def test_bad_flood_polygons(demo, tmp_path, kind):
-    """An empty polygon file or a point file is refused at load; a polygon that touches no road at apply."""
+    """An empty polygon file or a point file is refused at load; a polygon that holds no road at apply."""
     path = tmp_path / "flood.geojson"
     if kind == "empty":
         path.write_text('{"type": "FeatureCollection", "features": []}')
@@ -555,7 +555,7 @@ def test_bad_flood_polygons(demo, tmp_path, kind):
     body = f'[[closure]]\npolygon = "{path.name}"\n'
     if kind == "nowhere":
         scen = _scenario(tmp_path, body)
-        with pytest.raises(StudyError, match="touches no road"):
+        with pytest.raises(StudyError, match="holds no road"):
             apply_scenario(demo["net"], demo["bases"], scen)
     else:
         with pytest.raises(StudyError, match="no polygon" if kind == "empty" else "not polygons"):
