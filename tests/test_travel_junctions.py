@@ -86,8 +86,10 @@ def _check(net: RoadNetwork, n_points: int, n_bases: int, seed: int) -> dict[str
     rng = np.random.default_rng(seed)
     edges = net.edges
     xy = net.xy
-    base_nodes = rng.choice(net.n_nodes, n_bases, replace=False)
-    junctions = rng.choice(net.n_nodes, n_points, replace=False)
+    # junctions: nodes with a road (the synthetic county drops some streets, which can leave a node without any)
+    with_road = np.flatnonzero(np.bincount(np.concatenate([net.u, net.v]), minlength=net.n_nodes) > 0)
+    base_nodes = rng.choice(with_road, n_bases, replace=False)
+    junctions = rng.choice(with_road, n_points, replace=False)
     twin = _twin_of(edges)
     oneway = np.flatnonzero(twin < 0)
     twoway = np.flatnonzero(twin >= 0)
