@@ -31,8 +31,9 @@ DEFAULT_MAX_SNAP_M = 500.0
 #: Relative tolerance on length for two opposite directed edges to count as one two-way street.
 _TWIN_REL_TOL = 1e-6
 
-#: A snapped position this close to an end of its edge (m) is that junction (its fraction becomes exactly 0 or 1).
-JUNCTION_TOL_M = 1e-3
+#: A snapped position this close to an end of its edge (m) is that junction (its fraction becomes exactly 0 or 1):
+#: rounding only (1 micrometre), so no point really part-way along a street is moved.
+JUNCTION_TOL_M = 1e-6
 
 
 def at_junctions(net: RoadNetwork, edge: np.ndarray, frac: np.ndarray) -> np.ndarray:
