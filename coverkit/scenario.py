@@ -50,10 +50,11 @@ from coverkit.coverage import (
     per_base,
 )
 from coverkit.errors import StudyError
-from coverkit.network.model import RoadNetwork
+from coverkit.network.model import GEOMETRY_CACHE, RoadNetwork
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
 from coverkit.travel import nearest_sources
 from coverkit.travel.search import run_s
+from coverkit.travel.snap import at_junctions
 
 # -- the scenario file ------------------------------------------------------------------------------------------------
 _NUM = (int, float)
@@ -90,14 +91,18 @@ _BASE_CHANGE_KEYS: dict[str, Schema] = {
 _CLOSURE_SELECTORS = ("edge_ids", "way_ids", "road_name", "polygon")
 _LIST_SECTIONS = ("closure", "slowdown", "base_change")
 
+#: Road inside a polygon shorter than this (m) does not count: the road only touches the polygon.
+_MIN_CUT_M = 1e-6
+
 
 @dataclass(frozen=True)
 class Closure:
     """One ``[[closure]]`` entry: the selector given and its value.
 
     ``kind`` is ``"edge_ids"`` (directed edge ids: a two-way street has two), ``"way_ids"`` (OSM way ids, both
-    directions), ``"road_name"`` (exact name, case-insensitive, every way of that name) or ``"polygon"`` (every
-    edge whose geometry intersects the polygon). ``only_bridges`` keeps the bridge edges among those selected.
+    directions), ``"road_name"`` (exact name, case-insensitive, every way of that name) or ``"polygon"`` (the part
+    of every edge inside the polygon: edges are cut at its boundary, see :func:`closure_cut`). ``only_bridges``
+    keeps the bridge edges among those selected.
     """
 
     index: int
@@ -371,11 +376,38 @@ def _pieces_frame(net: RoadNetwork, edge_ids: np.ndarray, extra: dict | None = N
     return out
 
 
-def _polygon_edges(net: RoadNetwork, polygon: Any, crs: Any) -> np.ndarray:
-    """Edge ids whose geometry intersects ``polygon`` (given in ``crs``), via an STRtree query."""
+def _polygon_cut(net: RoadNetwork, polygon: Any, crs: Any) -> tuple[np.ndarray, np.ndarray]:
+    """The edges with road inside ``polygon`` (given in ``crs``) and the part of each inside it (shapely 2,
+    vectorised: one STRtree query, one intersection over the candidate edges).
+
+    Returns
+    -------
+    edge_ids, inside
+        Sorted edge ids with a positive length inside (an edge only touching the polygon at a point has none),
+        and the geometry of their inside parts.
+    """
     poly = gpd.GeoSeries([polygon], crs=crs).to_crs(net.crs).iloc[0]
-    tree = shapely.STRtree(net.edges.geometry.to_numpy())
-    return np.unique(tree.query(poly, predicate="intersects")).astype(np.int64)
+    key = f"{GEOMETRY_CACHE}coverkit.scenario:edge_tree"
+    if key not in net._csr_cache:
+        net._csr_cache[key] = shapely.STRtree(net.edges.geometry.to_numpy())
+    cand = np.unique(net._csr_cache[key].query(poly, predicate="intersects")).astype(np.int64)
+    inside = shapely.intersection(net.edges.geometry.to_numpy()[cand], poly)
+    keep = shapely.length(inside) > _MIN_CUT_M
+    return cand[keep], inside[keep]
+
+
+def _stretch(geom: np.ndarray, part: np.ndarray) -> np.ndarray:
+    """Fractions along each line of ``geom`` (shape (n, 2)) from the first to the last point of its ``part``.
+
+    The span covers the whole part: for a line crossing a polygon several times, the stretches between the crossings
+    are reached from neither end, so they are cut off with it.
+    """
+    coords, idx = shapely.get_coordinates(part, return_index=True)
+    fr = shapely.line_locate_point(geom[idx], shapely.points(coords), normalized=True)
+    out = np.column_stack([np.full(len(geom), np.inf), np.full(len(geom), -np.inf)])
+    np.minimum.at(out[:, 0], idx, fr)
+    np.maximum.at(out[:, 1], idx, fr)
+    return np.clip(out, 0.0, 1.0)
 
 
 def _name_choices(names: list[str], wanted: str) -> str:
@@ -385,6 +417,28 @@ def _name_choices(names: list[str], wanted: str) -> str:
 
 def closure_edges(net: RoadNetwork, closure: Closure, where: str = "scenario") -> np.ndarray:
     """The directed edge ids a closure selects (sorted); unknown ids or names raise :class:`StudyError`."""
+    return closure_cut(net, closure, where)[0]
+
+
+def closure_cut(
+    net: RoadNetwork, closure: Closure, where: str = "scenario"
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """What a closure shuts: the directed edge ids (sorted), the closed stretch of each and its geometry.
+
+    A polygon cuts its edges at its boundary: only the part of an edge inside is closed, and the parts outside stay
+    reachable from their own ends. Ids, way ids and road names close whole edges.
+
+    Returns
+    -------
+    edge_ids, stretch, part
+        Edge ids; shape (n, 2), the closed stretch as fractions along each edge from its ``u`` (``[0, 1]``: the
+        whole edge); the closed part of each edge (line geometry, network CRS).
+
+    Raises
+    ------
+    StudyError
+        An unknown id, way id or road name; a polygon with no road inside it.
+    """
     key = f"closure[{closure.index}].{closure.kind}"
     if closure.kind == "edge_ids":
         ids = np.asarray(closure.values, dtype=np.int64)
@@ -419,20 +473,35 @@ def closure_edges(net: RoadNetwork, closure: Closure, where: str = "scenario") -
             sel_parts.append(hit)
         sel = np.unique(np.concatenate(sel_parts))
     else:
-        sel = _polygon_edges(net, closure.polygon, closure.polygon_crs)
+        sel, part = _polygon_cut(net, closure.polygon, closure.polygon_crs)
         if len(sel) == 0:
-            raise StudyError(f"{where}: {key}: the polygon {closure.values[0]} touches no road of the network.")
+            raise StudyError(f"{where}: {key}: the polygon {closure.values[0]} holds no road of the network.")
+    geom = net.edges.geometry.to_numpy()
+    if closure.kind == "polygon":
+        stretch = _stretch(geom[sel], part)
+        stretch = np.column_stack([at_junctions(net, sel, stretch[:, 0]), at_junctions(net, sel, stretch[:, 1])])
+    else:
+        part = geom[sel]
+        stretch = np.tile([0.0, 1.0], (len(sel), 1))
     if closure.only_bridges:
-        sel = sel[net.edges["bridge"].to_numpy(dtype=bool)[sel]]
+        bridge = net.edges["bridge"].to_numpy(dtype=bool)[sel]
+        sel, stretch, part = sel[bridge], stretch[bridge], part[bridge]
         if len(sel) == 0:
             raise StudyError(f"{where}: {key}: none of the roads selected is a bridge (only_bridges = true).")
-    return sel.astype(np.int64)
+    return sel.astype(np.int64), stretch, part
 
 
 def slowdown_edges(net: RoadNetwork, slowdown: Slowdown, where: str = "scenario") -> np.ndarray:
     """The directed edge ids a slowdown applies to (sorted); unknown road classes raise :class:`StudyError`."""
+    return slowdown_share(net, slowdown, where)[0]
+
+
+def slowdown_share(net: RoadNetwork, slowdown: Slowdown, where: str = "scenario") -> tuple[np.ndarray, np.ndarray]:
+    """The directed edge ids a slowdown applies to (sorted) and the share of each edge's length it slows (1 for a
+    road class; the part inside for a polygon)."""
     key = f"slowdown[{slowdown.index}]"
     mask = np.ones(net.n_edges, dtype=bool)
+    share = np.ones(net.n_edges)
     if slowdown.road_classes:
         classes = net.edges["road_class"].astype(str).to_numpy()
         present = set(classes)
@@ -444,15 +513,18 @@ def slowdown_edges(net: RoadNetwork, slowdown: Slowdown, where: str = "scenario"
                 )
         mask &= np.isin(classes, list(slowdown.road_classes))
     if slowdown.polygon is not None:
+        ids, part = _polygon_cut(net, slowdown.polygon, slowdown.polygon_crs)
+        if len(ids) == 0:
+            raise StudyError(f"{where}: {key}.polygon holds no road of the network.")
         inside = np.zeros(net.n_edges, dtype=bool)
-        inside[_polygon_edges(net, slowdown.polygon, slowdown.polygon_crs)] = True
-        if not inside.any():
-            raise StudyError(f"{where}: {key}.polygon touches no road of the network.")
+        inside[ids] = True
+        share[ids] = np.clip(shapely.length(part) / np.maximum(shapely.length(net.edges.geometry.to_numpy()[ids]),
+                                                               _MIN_CUT_M), 0.0, 1.0)  # fmt: skip
         mask &= inside
     sel = np.flatnonzero(mask)
     if len(sel) == 0:
         raise StudyError(f"{where}: {key}: no road has both the class and lies in the polygon; nothing slows down.")
-    return sel.astype(np.int64)
+    return sel.astype(np.int64), share[sel]
 
 
 def slowed_travel_s(net: RoadNetwork, edge_ids: np.ndarray, factor: np.ndarray | float) -> np.ndarray:
@@ -480,12 +552,32 @@ def change_log(
     slowed: np.ndarray | None = None,
     factors: np.ndarray | None = None,
     base_rows: list[dict] | None = None,
+    *,
+    closed_part: np.ndarray | None = None,
+    slowed_share: np.ndarray | None = None,
 ) -> ChangeLog:
-    """The :class:`ChangeLog` of closed and slowed edge ids (with their factors) and base-change log rows."""
-    closed = np.unique(np.asarray(closed, dtype=np.int64))
+    """The :class:`ChangeLog` of closed and slowed edge ids (with their factors) and base-change log rows.
+
+    ``closed_part`` (line geometry per closed id, in the order of ``closed``) and ``slowed_share`` (share of each
+    slowed edge's length slowed) give the parts a polygon cut; without them the whole edges count.
+    """
+    order = np.argsort(np.asarray(closed, dtype=np.int64), kind="stable")
+    closed = np.asarray(closed, dtype=np.int64)[order]
     slowed = np.zeros(0, dtype=np.int64) if slowed is None else np.asarray(slowed, dtype=np.int64)
-    closed_gdf = _pieces_frame(net, closed)
-    slowed_gdf = _pieces_frame(net, slowed, {"factor": factors}) if len(slowed) else _empty_pieces(net, ("factor",))
+    geom = net.edges.geometry.to_numpy()
+    part = geom[closed] if closed_part is None else np.asarray(closed_part, dtype=object)[order]
+    closed_gdf = _pieces_frame(net, closed, {"edge_length_m": net.length_m[closed], "_part": part})
+    # the closed length is the length closed, not the length of the edges it cuts (in the measure of length_m);
+    # the layer draws the closed parts
+    parts = closed_gdf.pop("_part").to_numpy()
+    closed_gdf["length_m"] = closed_gdf["edge_length_m"].to_numpy() * _share(parts, geom[closed_gdf["edge_id"]])
+    closed_gdf = closed_gdf.set_geometry(gpd.GeoSeries(parts, index=closed_gdf.index, crs=net.crs))
+    if len(slowed):
+        share = np.ones(len(slowed)) if slowed_share is None else np.asarray(slowed_share, dtype=float)
+        slowed_gdf = _pieces_frame(net, slowed, {"factor": factors, "_share": share})
+        slowed_gdf["length_m"] = slowed_gdf["length_m"].to_numpy() * slowed_gdf.pop("_share").to_numpy()
+    else:
+        slowed_gdf = _empty_pieces(net, ("factor",))
     bases = pd.DataFrame(base_rows or [], columns=["action", "base_id", "detail"])
     return ChangeLog(
         closed,
@@ -496,6 +588,12 @@ def change_log(
         float(slowed_gdf["length_m"].sum() / 1000.0),
         bases,
     )
+
+
+def _share(part: np.ndarray, geom: np.ndarray) -> np.ndarray:
+    """Share of each line's length in its part (0..1)."""
+    full = shapely.length(geom)
+    return np.where(full > 0, np.clip(shapely.length(part) / np.where(full > 0, full, 1.0), 0.0, 1.0), 1.0)
 
 
 def apply_base_changes(
@@ -549,27 +647,96 @@ def apply_base_changes(
     return out.reset_index(drop=True), rows
 
 
-def scenario_travel_s(net: RoadNetwork, scenario: Scenario) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Edge travel times after the scenario's closures and slowdowns.
+@dataclass
+class EdgeChanges:
+    """The edge times after a scenario's closures and slowdowns.
 
-    Returns
-    -------
-    travel_s, closed_ids, slowed_ids, slowed_factor
-        New edge times (s; inf = closed), the closed edge ids, the slowed (still open) edge ids and the product of
-        the factors applied to each.
+    Attributes
+    ----------
+    travel_s
+        New edge times (s; inf = closed).
+    closed_ids, closed_stretch, closed_part
+        Closed edge ids (sorted); per closed id the closed stretch as fractions along the edge (``[0, 1]``: whole)
+        and the closed part's geometry.
+    stub_run_s
+        Per edge (shape (E,)): the running time of the open stubs of an edge closed in part (s, slowdowns
+        applied), ``inf`` elsewhere.
+    slowed_ids, slowed_factor, slowed_share
+        Slowed (still open) edge ids, the factor applied to each one's running time, and the share of its length
+        that is slowed.
+    """
+
+    travel_s: np.ndarray
+    closed_ids: np.ndarray
+    closed_stretch: np.ndarray
+    closed_part: np.ndarray
+    stub_run_s: np.ndarray
+    slowed_ids: np.ndarray
+    slowed_factor: np.ndarray
+    slowed_share: np.ndarray
+
+    def closed_frac(self, n_edges: int) -> np.ndarray:
+        """The closed stretch of every edge, shape (E, 2), NaN rows for edges not closed."""
+        out = np.full((n_edges, 2), np.nan)
+        out[self.closed_ids] = self.closed_stretch
+        return out
+
+    def network(self, net: RoadNetwork, note: str = "") -> RoadNetwork:
+        """``net`` with these edge times (and cut closures)."""
+        return net.with_travel_s(
+            self.travel_s, note, closed_frac=self.closed_frac(net.n_edges), stub_run_s=self.stub_run_s
+        )
+
+    def log(self, net: RoadNetwork, base_rows: list[dict] | None = None) -> ChangeLog:
+        """The :class:`ChangeLog` of these changes on ``net``."""
+        return change_log(
+            net, self.closed_ids, self.slowed_ids, self.slowed_factor, base_rows,
+            closed_part=self.closed_part, slowed_share=self.slowed_share,
+        )  # fmt: skip
+
+
+def edge_changes(net: RoadNetwork, scenario: Scenario) -> EdgeChanges:
+    """The edge times after the scenario's closures and slowdowns (vectorised over edges, a loop over entries only).
+
+    A closure polygon cuts its edges at its boundary (:func:`closure_cut`); several closures of one edge close the
+    span of their stretches. A slowdown polygon slows the part of an edge inside it: the edge's running time becomes
+    ``run x (1 + (factor - 1) x share inside)``, i.e. the outside part at its speed and the inside part slowed;
+    several slowdowns multiply. Times part-way along an edge spread its running time evenly (the model's rule).
     """
     where = str(scenario.path)
-    closed = [closure_edges(net, c, where) for c in scenario.closures]
-    closed_ids = np.unique(np.concatenate(closed)) if closed else np.zeros(0, dtype=np.int64)
-    factor = np.ones(net.n_edges)
+    n = net.n_edges
+    lo, hi = np.full(n, np.inf), np.full(n, -np.inf)
+    part = np.full(n, None, dtype=object)
+    for c in scenario.closures:
+        ids, stretch, cut = closure_cut(net, c, where)
+        lo[ids] = np.minimum(lo[ids], stretch[:, 0])
+        hi[ids] = np.maximum(hi[ids], stretch[:, 1])
+        had = part[ids] != None  # noqa: E711 (elementwise on an object array)
+        part[ids] = np.where(had, shapely.union(np.where(had, part[ids], cut), cut), cut)
+    closed_ids = np.flatnonzero(np.isfinite(lo))
+    factor = np.ones(n)
+    share = np.zeros(n)
     for s in scenario.slowdowns:
-        factor[slowdown_edges(net, s, where)] *= s.factor
-    is_closed = np.zeros(net.n_edges, dtype=bool)
+        ids, sh = slowdown_share(net, s, where)
+        factor[ids] *= 1.0 + (s.factor - 1.0) * sh
+        share[ids] = np.maximum(share[ids], sh)
+    is_closed = np.zeros(n, dtype=bool)
     is_closed[closed_ids] = True
     slowed_ids = np.flatnonzero((factor != 1.0) & ~is_closed & net.open_edges())
     t = slowed_travel_s(net, slowed_ids, factor[slowed_ids])
     t[closed_ids] = np.inf
-    return t, closed_ids.astype(np.int64), slowed_ids, factor[slowed_ids]
+    stub = np.full(n, np.inf)
+    stub[closed_ids] = run_s(net)[closed_ids] * factor[closed_ids]
+    return EdgeChanges(
+        t,
+        closed_ids.astype(np.int64),
+        np.column_stack([lo[closed_ids], hi[closed_ids]]),
+        part[closed_ids],
+        stub,
+        slowed_ids,
+        factor[slowed_ids],
+        share[slowed_ids],
+    )
 
 
 def apply_scenario(
@@ -577,20 +744,22 @@ def apply_scenario(
 ) -> tuple[RoadNetwork, gpd.GeoDataFrame, ChangeLog]:
     """The network and bases after a scenario, with a log of what changed.
 
-    Closures set ``travel_s`` to inf (the edges stay in the network, so edge ids are stable); slowdowns multiply
-    the running time (several slowdowns on one edge multiply); base changes apply in file order.
+    Closures set ``travel_s`` to inf (the edges stay in the network, so edge ids are stable); a closure polygon
+    closes only the stretch of an edge inside it, and the stubs outside stay reachable from their own ends
+    (:func:`edge_changes`); slowdowns multiply the running time of the part they cover; base changes apply in file
+    order.
 
     Raises
     ------
     StudyError
         An edge id, way id, road name, road class or base id the network or the bases do not have; a polygon that
-        touches no road.
+        holds no road.
     """
-    t, closed, slowed, factors = scenario_travel_s(net, scenario)
+    ch = edge_changes(net, scenario)
     new_bases, rows = apply_base_changes(bases, scenario.base_changes, str(scenario.path))
-    changed = bool(len(closed) or len(slowed))
-    new_net = net.with_travel_s(t, note=f"scenario: {scenario.name}") if changed else net
-    return new_net, new_bases, change_log(net, closed, slowed, factors, rows)
+    changed = bool(len(ch.closed_ids) or len(ch.slowed_ids))
+    new_net = ch.network(net, note=f"scenario: {scenario.name}") if changed else net
+    return new_net, new_bases, ch.log(net, rows)
 
 
 # -- comparing coverage -----------------------------------------------------------------------------------------------
@@ -893,16 +1062,19 @@ __all__ = [
     "ChangedAreas",
     "Closure",
     "Comparison",
+    "EdgeChanges",
     "Scenario",
     "Slowdown",
     "apply_base_changes",
     "apply_scenario",
     "change_log",
     "changed_areas",
+    "closure_cut",
     "closure_edges",
     "compare_results",
+    "edge_changes",
     "load_scenario",
-    "scenario_travel_s",
     "slowdown_edges",
+    "slowdown_share",
     "slowed_travel_s",
 ]

@@ -31,11 +31,12 @@ from coverkit.scenario import (
     BaseChange,
     ChangeLog,
     Closure,
+    EdgeChanges,
     Scenario,
     apply_base_changes,
     change_log,
     closure_edges,
-    scenario_travel_s,
+    edge_changes,
     slowed_travel_s,
 )
 from coverkit.travel import node_times, snap_points
@@ -52,44 +53,6 @@ def _dense_rows(m: sp.csr_matrix, rows: np.ndarray) -> np.ndarray:
     out = np.full((len(rows), m.shape[1]), np.inf)
     out[sub.row, sub.col] = sub.data
     return out
-
-
-def _merge_snap(old: Snapped, new_sub: Snapped, idx: np.ndarray) -> Snapped:
-    """``old`` with the points at ``idx`` replaced by ``new_sub`` (their snap on the changed network)."""
-    idx = np.asarray(idx, dtype=np.int64)
-    per = {}
-    for name in ("on_network", "edge", "frac", "offset_m", "dist_m", "x", "y"):
-        arr = getattr(old, name).copy()
-        arr[idx] = getattr(new_sub, name)
-        per[name] = arr
-    keep = ~np.isin(old.entry_point, idx)
-    ep = np.concatenate([old.entry_point[keep], idx[new_sub.entry_point]])
-    ee = np.concatenate([old.entry_edge[keep], new_sub.entry_edge])
-    ef = np.concatenate([old.entry_frac[keep], new_sub.entry_frac])
-    order = np.lexsort((ee, ep))
-    return Snapped(
-        ids=old.ids,
-        entry_point=ep[order],
-        entry_edge=ee[order],
-        entry_frac=ef[order],
-        max_snap_m=old.max_snap_m,
-        **per,
-    )
-
-
-def _far_near_closed(net: RoadNetwork, snap: Snapped, geoms: np.ndarray, closed: np.ndarray) -> np.ndarray:
-    """Off-network points whose measured distance to the nearest road may have been to a road now closed.
-
-    Their ``dist_m`` must be measured again; the others' nearest road is still open, so their distance stands.
-    """
-    far = np.flatnonzero(~snap.on_network & np.isfinite(snap.dist_m))
-    closed_ids = np.flatnonzero(closed)
-    if len(far) == 0 or len(closed_ids) == 0:
-        return np.zeros(0, dtype=np.int64)
-    tree = shapely.STRtree(net.edges.geometry.to_numpy()[closed_ids])
-    (pi, _), d = tree.query_nearest(geoms[far], return_distance=True, all_matches=False)
-    near = d <= snap.dist_m[far[pi]] * (1 + 1e-9) + 1e-6  # ties count: measure again rather than keep
-    return far[pi[near]]
 
 
 def _times_from_nodes(
@@ -147,8 +110,6 @@ class WhatIfOutcome:
     recomputed_bases
         Ids of the bases searched again (changed, added or moved bases, and bases whose shortest-path trees the
         change can alter); the others kept their stored times exactly.
-    resnapped_points
-        ``{demand name: number of points snapped again}`` (points on closed roads).
     """
 
     results: dict
@@ -156,7 +117,6 @@ class WhatIfOutcome:
     bases: gpd.GeoDataFrame
     changes: ChangeLog
     recomputed_bases: list[str]
-    resnapped_points: dict
 
     @property
     def result(self) -> CoverageResult:
@@ -173,8 +133,9 @@ class WhatIf:
     ``b``'s search: ``d_b(x) + w(x, y) <= min(d_b(y), horizon)`` with ``w`` the smaller of the old and new weight.
     Every shortest path consists of tight edges only, so when no changed edge is tight the old distances remain
     shortest (slower edges lie on no shortest path; faster ones create none), and the base's stored row is exact.
-    Such bases are not searched again; the rest are. Demand points snapped onto a closed edge are snapped again,
-    and points on a changed edge get their partial-edge times from the stored node times. An added or moved base
+    Such bases are not searched again; the rest are. Every point keeps its snap (a closure never moves a point onto
+    another road, :mod:`coverkit.travel.snap`), and points on a changed edge get their partial-edge times (along
+    the open stub of a road closed in part) from the stored node times. An added or moved base
     adds one search; a removed base drops a row. The outcome equals a full recomputation (tested to exact
     equality).
 
@@ -287,9 +248,9 @@ class WhatIf:
 
     def run(self, scenario: Scenario) -> WhatIfOutcome:
         """Coverage after a whole scenario (closures, slowdowns and base changes together)."""
-        t, closed, slowed, factors = scenario_travel_s(self.net, scenario)
+        ch = edge_changes(self.net, scenario)
         bases, rows = apply_base_changes(self.bases, scenario.base_changes, str(scenario.path))
-        return self._evaluate(t, bases, change_log(self.net, closed, slowed, factors, rows))
+        return self._evaluate(ch.travel_s, bases, ch.log(self.net, rows), ch)
 
     # -- the incremental recomputation ---------------------------------------------------------------------------------
     def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
@@ -316,11 +277,15 @@ class WhatIf:
             hit[r] |= tight.any(axis=1)
         return hit
 
-    def _evaluate(self, travel_s: np.ndarray, bases_after: gpd.GeoDataFrame, log: ChangeLog) -> WhatIfOutcome:
+    def _evaluate(
+        self, travel_s: np.ndarray, bases_after: gpd.GeoDataFrame, log: ChangeLog, edges: EdgeChanges | None = None
+    ) -> WhatIfOutcome:
         old_t = self.net.travel_s
         changed = np.flatnonzero(old_t != travel_s)
-        net2 = self.net.with_travel_s(travel_s) if len(changed) else self.net
-        reopened = bool(np.any(~np.isfinite(old_t[changed]) & np.isfinite(travel_s[changed])))
+        if not len(changed):
+            net2 = self.net
+        else:
+            net2 = edges.network(self.net) if edges is not None else self.net.with_travel_s(travel_s)
         old_ids = self.bases["id"].astype(str).tolist()
         new_ids = bases_after["id"].astype(str).tolist()
         # a base keeps its stored searches only under the same id at the same place (a moved or re-added one not)
@@ -354,35 +319,13 @@ class WhatIf:
             (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
             shape=(len(new_ids), net2.n_nodes),
         )
-        closed_now = np.zeros(net2.n_edges, dtype=bool)
-        closed_now[changed] = ~np.isfinite(travel_s[changed])
         is_changed = np.zeros(net2.n_edges, dtype=bool)
         is_changed[changed] = True
-        results, resnapped = {}, {}
+        results = {}
         for name, dem in self.demand.items():
-            old_snap = self.point_snap[name]
+            snap2 = self.point_snap[name]
             old_times = self.tables[name].times
-            if reopened:  # an opened road can become any point's nearest: snap every point again
-                resnap = np.arange(len(dem))
-            else:
-                resnap = np.unique(
-                    np.concatenate(
-                        [
-                            old_snap.entry_point[closed_now[old_snap.entry_edge]],
-                            _far_near_closed(net2, old_snap, dem.geometry.to_numpy(), closed_now),
-                        ]
-                    )
-                )
-            snap2 = old_snap
-            if len(resnap):
-                sub = snap_points(
-                    net2, dem.geometry.to_numpy()[resnap], ids=old_snap.ids[resnap],
-                    max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
-                    warn_islands=False, exclude_classes=demand_exclude_classes(dem),
-                )  # fmt: skip
-                snap2 = _merge_snap(old_snap, sub, resnap)
-            resnapped[name] = len(resnap)
-            cols = np.unique(np.concatenate([resnap, old_snap.entry_point[is_changed[old_snap.entry_edge]]]))
+            cols = np.unique(snap2.entry_point[is_changed[snap2.entry_edge]])
             # stored times of untouched bases on untouched points; derived times for the rest
             src = old_times[keep_src[kept]].tocoo()
             ok = ~np.isin(src.col, cols)
@@ -413,7 +356,7 @@ class WhatIf:
                 )
             else:
                 log.notes.append("coverage unchanged")
-        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new], resnapped)
+        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new])
 
 
 __all__ = ["NO_REACH_NOTE", "WhatIf", "WhatIfOutcome"]

@@ -9,7 +9,6 @@ import networkx as nx
 import numpy as np
 import osmium
 import pandas as pd
-import pytest
 import shapely
 from pyproj import Geod, Transformer
 
@@ -90,11 +89,6 @@ def test_times_from_mid_edge_points_equal_networkx_dijkstra(helsinki_network):
         np.testing.assert_allclose(ours[i, targets], want, atol=1e-6)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="issue 10 item 1: a point on a junction is snapped to one edge of it and can leave only along that "
-    "edge (up to 60 s late)",
-)
 def test_shortest_times_equal_networkx_dijkstra(helsinki_network):
     """Shortest travel times from 50 random junctions (no signal) to 50 others by coverkit's search (points placed
     on the junctions, snapped, searched) equal networkx Dijkstra on a graph built here from the edge table

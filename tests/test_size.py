@@ -156,7 +156,6 @@ def _junction_ok(reference, coverage):
     return got, lo, hi, keep
 
 
-@pytest.mark.xfail(strict=True, reason="issue 10 item 1: junction-placed points get the far end of a one-way edge")
 def test_junction_points_get_the_junction_time(world, reference, coverage):
     """A point placed exactly on a junction gets the junction's time (design invariant; reference: heap Dijkstra
     over the exported edges). At a junction without a signal that is the node's label exactly; at a signal it lies

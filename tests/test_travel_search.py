@@ -213,8 +213,9 @@ def test_one_way_point_entered_from_start_only():
     assert abs(t_in - 375.0) < 1e-6
 
 
-def test_closed_edges_never_used_or_snapped():
-    """Geometry, exact: closing the middle edges of a 3x1 grid makes the far node unreachable."""
+def test_closed_edges_never_used_and_points_on_them_not_moved():
+    """Geometry, exact: closing the middle edges of a 3x1 grid makes the far node unreachable; a point on the closed
+    street keeps its street (design invariant: a closure never moves a point onto another road) and is unreached."""
     net = grid_network(3, 1, 100.0, 36.0)
     closed = np.isin(net.edges["u"].to_numpy(), [1]) | np.isin(net.edges["v"].to_numpy(), [1])
     closed &= (net.u == 1) & (net.v == 2) | (net.u == 2) & (net.v == 1)
@@ -223,9 +224,9 @@ def test_closed_edges_never_used_or_snapped():
     t = node_times(net2, start, 1e4).toarray()[0]
     assert np.isclose(t[1], 10.0) and t[2] == 0.0  # not stored: beyond reach
     assert node_times(net2, start, 1e4)[0].nnz == 2
-    # a point on the closed edge snaps to an open edge (ends at node 1 or 2), never onto the closed one
     p = snap_points(net2, np.array([[net2.xy[1, 0] + 50.0, net2.xy[1, 1] + 1.0]]), max_snap_m=100.0)
-    assert not np.isin(p.entry_edge, np.flatnonzero(closed)).any()
+    assert set(p.entry_edge.tolist()) == set(np.flatnonzero(closed).tolist())
+    assert point_times(net2, start, p, 1e4).nnz == 0
 
 
 def test_signal_delay_only_when_end_node_passed():

@@ -49,6 +49,13 @@ NODE_COLUMNS = ["node", "node_id", "x", "y", "signal"]
 #: csgraph treats a zero weight as a missing edge; zero-length edges get this many seconds instead.
 MIN_EDGE_S = 1e-9
 
+#: Edge columns of a network with edges closed only in part (a closure polygon cutting a street): the closed
+#: stretch as fractions along the edge from ``u`` (NaN: not cut), and the running time (s) of the open stubs.
+CLOSED_FROM_COL, CLOSED_TO_COL, STUB_RUN_COL = "closed_from_frac", "closed_to_frac", "stub_run_s"
+
+#: Cache keys starting with this depend on the geometry and the nodes only; copies with new times keep them.
+GEOMETRY_CACHE = "geometry:"
+
 
 @dataclass(repr=False)
 class RoadNetwork:
@@ -146,17 +153,61 @@ class RoadNetwork:
         return self._csr_cache[key]
 
     # -- derived networks -------------------------------------------------------------------------------------------
-    def with_travel_s(self, travel_s: np.ndarray, note: str = "") -> RoadNetwork:
-        """A copy with new edge travel times (s); ``inf`` closes an edge. Nodes and geometry are shared."""
+    def with_travel_s(
+        self,
+        travel_s: np.ndarray,
+        note: str = "",
+        *,
+        closed_frac: np.ndarray | None = None,
+        stub_run_s: np.ndarray | None = None,
+    ) -> RoadNetwork:
+        """A copy with new edge travel times (s); ``inf`` closes an edge. Nodes and geometry are shared.
+
+        ``closed_frac`` (shape (E, 2), NaN rows for edges not cut) gives, for edges closed only in part, the closed
+        stretch as fractions along the edge from ``u``; ``stub_run_s`` the running time of their open stubs (s).
+        Without them every closed edge is closed whole.
+        """
         travel_s = np.asarray(travel_s, dtype=float)
         if travel_s.shape != (self.n_edges,):
             raise ValueError(f"travel_s must have shape ({self.n_edges},), got {travel_s.shape}")
-        edges = self.edges.copy()
+        edges = self.edges.drop(columns=[CLOSED_FROM_COL, CLOSED_TO_COL, STUB_RUN_COL], errors="ignore")
         edges["travel_s"] = travel_s
+        if closed_frac is not None:
+            closed_frac = np.asarray(closed_frac, dtype=float)
+            stub = np.asarray(stub_run_s, dtype=float)
+            if closed_frac.shape != (self.n_edges, 2) or stub.shape != (self.n_edges,):
+                raise ValueError(f"closed_frac must have shape ({self.n_edges}, 2) and stub_run_s ({self.n_edges},)")
+            edges[CLOSED_FROM_COL] = closed_frac[:, 0]
+            edges[CLOSED_TO_COL] = closed_frac[:, 1]
+            edges[STUB_RUN_COL] = stub
         info = dict(self.info)
         if note:
             info["changes"] = [*info.get("changes", []), note]
-        return RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
+        out = RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
+        out._csr_cache.update({k: v for k, v in self._csr_cache.items() if k.startswith(GEOMETRY_CACHE)})
+        return out
+
+    def closed_stretch(self) -> tuple[np.ndarray, np.ndarray]:
+        """The closed stretch of every edge as fractions along it from ``u``: ``(from, to)``.
+
+        NaN for open edges; ``(0, 1)`` for an edge closed whole; the cut for an edge closed only in part (see
+        :meth:`with_travel_s`), whose stretches outside stay reachable from their own ends.
+        """
+        closed = ~np.isfinite(self.travel_s)
+        lo = np.where(closed, 0.0, np.nan)
+        hi = np.where(closed, 1.0, np.nan)
+        if CLOSED_FROM_COL in self.edges.columns:
+            cut = closed & np.isfinite(self.edges[CLOSED_FROM_COL].to_numpy(dtype=float))
+            lo[cut] = self.edges[CLOSED_FROM_COL].to_numpy(dtype=float)[cut]
+            hi[cut] = self.edges[CLOSED_TO_COL].to_numpy(dtype=float)[cut]
+        return lo, hi
+
+    def stub_run_s(self) -> np.ndarray:
+        """Running time (s) at which the open stubs of an edge closed in part are driven; ``inf`` elsewhere."""
+        if STUB_RUN_COL not in self.edges.columns:
+            return np.full(self.n_edges, np.inf)
+        stub = self.edges[STUB_RUN_COL].to_numpy(dtype=float)
+        return np.where(np.isfinite(stub) & ~np.isfinite(self.travel_s), stub, np.inf)
 
     def road_lines(self) -> gpd.GeoDataFrame:
         """One row per road piece: the directed edges with a two-way street's reverse twin (and against-one-way

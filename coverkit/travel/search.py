@@ -55,22 +55,42 @@ def graph(net: RoadNetwork, direction: str = "out") -> sp.csr_matrix:
     return net._csr_cache[key]
 
 
+def partial_run_s(net: RoadNetwork) -> np.ndarray:
+    """Running time of each edge for trips part-way along it (s): :func:`run_s`, and for an edge closed only in part
+    the running time of its open stubs (``inf`` for an edge closed whole)."""
+    run = run_s(net)
+    stub = net.stub_run_s()
+    return np.where(np.isfinite(run), run, stub)
+
+
 def seeds(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Initial labels of a search from snapped points: (point index, node, time s) per entry.
+    """Initial labels of a search from snapped points: (point index, node, time s) per usable entry.
 
     ``"out"``: leaving the point toward the edge's end node ``v`` costs the rest of the run plus the end-node delay.
     ``"in"`` (reverse search): the point is reached from the edge's start ``u`` after ``frac`` of the run.
+    A point at an end of its edge (``frac`` exactly 0 or 1, see :func:`coverkit.travel.snap.at_junctions`) is that
+    junction: its label is the node itself at time 0, in both directions, so it gets the junction's time whichever
+    street it was snapped to. On an edge closed in part (:meth:`RoadNetwork.closed_stretch`) a point is left toward
+    ``v`` only from beyond the closed stretch and reached from ``u`` only before it; entries cut off that way are
+    dropped (a point on a stretch closed from both sides has none).
     """
     _check_direction(direction)
     e, f = snapped.entry_edge, snapped.entry_frac
-    run = run_s(net)[e]
-    if direction == "out":
-        node = net.v[e]
-        t = (1.0 - f) * run + net.edges["delay_s"].to_numpy(dtype=float)[e]
-    else:
-        node = net.u[e]
-        t = f * run
-    return snapped.entry_point, node, t
+    run = partial_run_s(net)[e]
+    lo, hi = (x[e] for x in net.closed_stretch())
+    at_u, at_v = f <= 0.0, f >= 1.0
+    at_node = at_u | at_v
+    with np.errstate(invalid="ignore"):  # NaN stretch ends (open edges) compare False: nothing is cut off
+        if direction == "out":
+            node = np.where(at_u, net.u[e], net.v[e])
+            t = np.where(at_node, 0.0, (1.0 - f) * run + net.edges["delay_s"].to_numpy(dtype=float)[e])
+            cut = f < hi
+        else:
+            node = np.where(at_v, net.v[e], net.u[e])
+            t = np.where(at_node, 0.0, f * run)
+            cut = f > lo
+    keep = at_node | (~cut & np.isfinite(t))
+    return snapped.entry_point[keep], node[keep], t[keep]
 
 
 def exits(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -368,9 +388,13 @@ def same_edge_min(
     tj = order[np.repeat(lo, cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))]
     e = s_e[si]
     # out: drive from source frac forward to target frac; in: from target frac forward to source frac
-    ahead = t_f[tj] - s_f[si] if direction == "out" else s_f[si] - t_f[tj]
-    ok = ahead >= 0
-    t = ahead[ok] * run_s(net)[e[ok]]
+    first, last = (s_f[si], t_f[tj]) if direction == "out" else (t_f[tj], s_f[si])
+    lo, hi = (x[e] for x in net.closed_stretch())
+    with np.errstate(invalid="ignore"):
+        # a trip ending at the edge's end node is a trip to that junction: the node path (with its delay) times it;
+        # a trip across the closed stretch of a partly closed edge does not exist
+        ok = (last >= first) & (last < 1.0) & ~((hi > first) & (lo < last))
+    t = (last - first)[ok] * partial_run_s(net)[e[ok]]
     np.minimum.at(block, (s_loc[si[ok]], t_pt[tj[ok]]), t)
 
 

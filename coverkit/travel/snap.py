@@ -1,10 +1,15 @@
-"""Snapping points to the nearest open road edge, with the position along it.
+"""Snapping points to the nearest road edge, with the position along it.
 
 A point is snapped to the nearest *physical* road piece (a two-way street is one piece carried by two directed
-edges, ``u -> v`` and its twin ``v -> u``). Every open directed edge of that piece becomes an *entry* of the point,
+edges, ``u -> v`` and its twin ``v -> u``). Every directed edge of that piece becomes an *entry* of the point,
 with the fraction of the way along that edge, so travel to or from the point includes the partial edge in each
 direction the street allows: a point on a one-way edge has a single entry, so it is entered only from the edge's
-start and left only toward its end. Closed edges (infinite ``travel_s``) are never snapped onto.
+start and left only toward its end.
+
+Snapping looks at the road geometry only, never at closures: a point keeps its road when the road is closed (the
+searches then reach it along the open stub it sits on, or not at all), so a closure can never move a point onto
+another road and shorten its time. The pieces and the snap index are therefore built once per geometry and shared
+by every copy of a network with changed times.
 """
 
 from __future__ import annotations
@@ -16,15 +21,30 @@ import shapely
 from scipy.sparse.csgraph import connected_components
 
 from coverkit.errors import OffNetworkError
-from coverkit.network.model import RoadNetwork
+from coverkit.network.model import GEOMETRY_CACHE, RoadNetwork
 from coverkit.progress import warn
 from coverkit.travel.nearest import nearest_pieces, segment_index
 
-#: Default snap limit (m): a point farther than this from any open road is off-network.
+#: Default snap limit (m): a point farther than this from any road is off-network.
 DEFAULT_MAX_SNAP_M = 500.0
 
 #: Relative tolerance on length for two opposite directed edges to count as one two-way street.
 _TWIN_REL_TOL = 1e-6
+
+#: A snapped position this close to an end of its edge (m) is that junction (its fraction becomes exactly 0 or 1):
+#: rounding only (1 micrometre), so no point really part-way along a street is moved.
+JUNCTION_TOL_M = 1e-6
+
+
+def at_junctions(net: RoadNetwork, edge: np.ndarray, frac: np.ndarray) -> np.ndarray:
+    """``frac`` along ``edge`` with positions within :data:`JUNCTION_TOL_M` of an edge end put exactly on it.
+
+    A point at the end of an edge *is* the junction, whichever street it was snapped to, and the searches give it
+    the junction's time (:func:`coverkit.travel.search.seeds`); the tolerance absorbs the rounding of projecting
+    a node's own coordinates onto a line.
+    """
+    tol = JUNCTION_TOL_M / np.maximum(net.length_m[edge], JUNCTION_TOL_M)
+    return np.where(frac <= tol, 0.0, np.where(frac >= 1.0 - tol, 1.0, frac))
 
 
 @dataclass(frozen=True)
@@ -39,7 +59,7 @@ class Snapped:
     ids
         Point ids as given (object array).
     on_network
-        ``True`` where the point lies within the snap limit of an open road.
+        ``True`` where the point lies within the snap limit of a road.
     edge
         The snapped directed edge (lowest edge id of the piece), ``-1`` off-network.
     frac
@@ -47,7 +67,7 @@ class Snapped:
     offset_m
         Distance along ``edge`` from its start node (m, from the edge's ``length_m``), NaN off-network.
     dist_m
-        Distance from the point to the nearest open road (m); also filled for off-network points.
+        Distance from the point to the nearest road (m); also filled for off-network points.
     x, y
         The snapped position on the road (m, network CRS), NaN off-network.
     entry_point, entry_edge, entry_frac
@@ -99,16 +119,16 @@ class Snapped:
 
 @dataclass(frozen=True)
 class RoadPieces:
-    """Open directed edges grouped into physical pieces (a two-way street = one piece, two edges).
+    """Directed edges grouped into physical pieces (a two-way street = one piece, two edges), open or closed.
 
     Attributes
     ----------
     piece_of_edge
-        Piece index of every edge, ``-1`` for closed edges.
+        Piece index of every edge.
     rep_edge
         The representative (lowest-id) edge of each piece; its geometry is the piece's geometry.
     members_ptr, members
-        CSR-style list of the open edges of each piece: ``members[members_ptr[p]:members_ptr[p + 1]]``.
+        CSR-style list of the edges of each piece: ``members[members_ptr[p]:members_ptr[p + 1]]``.
     reversed_of_edge
         ``True`` where an edge runs opposite to its piece's representative edge.
     tree
@@ -124,23 +144,23 @@ class RoadPieces:
 
 
 def road_pieces(net: RoadNetwork) -> RoadPieces:
-    """Group the open edges of ``net`` into physical pieces (cached on the network).
+    """Group the edges of ``net`` into physical pieces (cached with the geometry, see :data:`GEOMETRY_CACHE`).
 
     Two directed edges are one piece when they join the same two nodes in opposite (or the same) direction and have
     the same geometric length (relative tolerance 1e-6): a two-way street, or a one-way street with an added
     against-one-way edge.
     """
-    key = "coverkit.travel:pieces"
+    key = f"{GEOMETRY_CACHE}coverkit.travel:pieces"
     if key in net._csr_cache:
         return net._csr_cache[key]
     u, v = net.u, net.v
-    open_e = np.flatnonzero(net.open_edges())
+    all_e = np.arange(net.n_edges)
     geom = net.edges.geometry.to_numpy()
-    length = shapely.length(geom[open_e])
-    a = np.minimum(u[open_e], v[open_e])
-    b = np.maximum(u[open_e], v[open_e])
-    order = np.lexsort((open_e, length, b, a))
-    a_s, b_s, len_s, e_s = a[order], b[order], length[order], open_e[order]
+    length = shapely.length(geom[all_e])
+    a = np.minimum(u[all_e], v[all_e])
+    b = np.maximum(u[all_e], v[all_e])
+    order = np.lexsort((all_e, length, b, a))
+    a_s, b_s, len_s, e_s = a[order], b[order], length[order], all_e[order]
     new = np.ones(len(order), dtype=bool)
     if len(order) > 1:
         same_pair = (a_s[1:] == a_s[:-1]) & (b_s[1:] == b_s[:-1])
@@ -157,8 +177,8 @@ def road_pieces(net: RoadNetwork) -> RoadPieces:
     members_ptr = np.concatenate([[0], np.cumsum(counts)])
     rep_edge = members[members_ptr[:-1]]
     reversed_of_edge = np.zeros(net.n_edges, dtype=bool)
-    rep_of_edge = rep_edge[piece_of_edge[open_e]]
-    reversed_of_edge[open_e] = u[open_e] != u[rep_of_edge]
+    rep_of_edge = rep_edge[piece_of_edge[all_e]]
+    reversed_of_edge[all_e] = u[all_e] != u[rep_of_edge]
     pieces = RoadPieces(
         piece_of_edge=piece_of_edge,
         rep_edge=rep_edge,
@@ -182,7 +202,7 @@ def snap_points(
     measure_far: bool = True,
     exclude_classes: tuple[str, ...] = (),
 ) -> Snapped:
-    """Snap projected points to the nearest open road edge.
+    """Snap projected points to the nearest road edge (closed or not: a closure never moves a point).
 
     Parameters
     ----------
@@ -194,7 +214,7 @@ def snap_points(
     ids
         Point ids (default: the ``id`` column of a GeoDataFrame, else 0..n-1).
     max_snap_m
-        Snap limit (m). Points farther than this from every open road are off-network.
+        Snap limit (m). Points farther than this from every road are off-network.
     off_network
         ``"raise"``: raise :class:`OffNetworkError` listing the ids (use for bases and candidates);
         ``"mask"``: keep them with ``on_network = False`` (use for demand points, which are counted later).
@@ -251,9 +271,9 @@ def snap_points(
             if np.nanmax(np.where(np.isfinite(dist_m[bad]), dist_m[bad], np.nan), initial=0.0) > FAR_OFF_M
             else "move them onto a road, check their coordinates, or raise the snap limit"
         )
-        raise OffNetworkError(f"{count} farther than {max_snap_m:g} m from any open road: {shown}{more}; {hint}.")
+        raise OffNetworkError(f"{count} farther than {max_snap_m:g} m from any road: {shown}{more}; {hint}.")
 
-    # Entries: every open directed edge of the snapped piece, with the fraction along that edge.
+    # Entries: every directed edge of the snapped piece, with the fraction along that edge.
     on_idx = np.flatnonzero(on)
     p_on = piece[on_idx]
     cnt = pieces.members_ptr[p_on + 1] - pieces.members_ptr[p_on]
@@ -261,7 +281,7 @@ def snap_points(
     local = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
     entry_edge = pieces.members[np.repeat(pieces.members_ptr[p_on], cnt) + local]
     entry_frac = shapely.line_locate_point(edge_geom[entry_edge], geoms[entry_point], normalized=True)
-    entry_frac = np.clip(np.nan_to_num(entry_frac, nan=0.0), 0.0, 1.0)
+    entry_frac = at_junctions(net, entry_edge, np.clip(np.nan_to_num(entry_frac, nan=0.0), 0.0, 1.0))
     order = np.lexsort((entry_edge, entry_point))
     entry_point, entry_edge, entry_frac = entry_point[order], entry_edge[order], entry_frac[order]
 
@@ -308,7 +328,7 @@ NO_ACCESS_CLASSES = ("motorway", "motorway_link", "trunk_link")
 
 def _snap_targets(net: RoadNetwork, pieces: RoadPieces, exclude: tuple[str, ...]):
     """Pieces that may be snapped onto (indices), their segment index and STRtree; cached per exclusion set."""
-    key = f"coverkit.travel:snap_targets:{','.join(exclude)}"
+    key = f"{GEOMETRY_CACHE}coverkit.travel:snap_targets:{','.join(exclude)}"
     if key not in net._csr_cache:
         classes = net.edges["road_class"].to_numpy(dtype=object)[pieces.rep_edge]
         allowed = np.flatnonzero(~np.isin(classes, list(exclude))) if exclude else np.arange(len(pieces.rep_edge))
