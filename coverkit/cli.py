@@ -7,6 +7,7 @@ line and the exit status is 2.
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import sys
 from collections.abc import Callable, Sequence
@@ -468,6 +469,41 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     return 0
 
 
+def _minutes(seconds: float) -> str:
+    return "not reached" if not math.isfinite(seconds) else f"{seconds / 60:.1f} min"
+
+
+def _site_headline(s: dict) -> str:
+    """Who the answer is from, how sure it is, in words."""
+    who = "the exact solver (HiGHS)" if s["answer_from"] == "milp" else "greedy plus interchange"
+    gap = s["within_share"]
+    sure = (
+        f"within {gap * 100:.3f} % of the best possible ({s['bound_source']})"
+        if math.isfinite(gap)
+        else "no bound on the best possible"
+    )
+    return f"{s['model']}: answer from {who}; {s['status']}; {sure}; {s['solve_s']:.1f} s"
+
+
+def _site_curve_value(model: str, curve) -> tuple[list[float], str]:
+    """The curve's own value per point: what the model optimises (MCLP and LSCP: covered share)."""
+    if model == "p-median":
+        return list(curve["objective"] / 60), "mean travel time (min)"
+    if model == "backup":
+        return list(curve["second_share"] * 100), "demand covered twice (%)"
+    if model == "mexclp":
+        return list(curve["objective"]), "expected demand covered"
+    return list(curve["covered_share"] * 100), "demand covered (%)"
+
+
+def _site_objective_text(model: str, value: float, total: float) -> str:
+    if model == "p-median":
+        return f"{value:,.1f} s ({value / 60:.2f} min)"
+    if model == "lscp":
+        return f"{int(value)}"
+    return f"{value:,.1f} of {total:,.1f} ({value / total * 100:.1f} %)"
+
+
 @command("site")
 def _cmd_site(args: argparse.Namespace) -> int:
     import pandas as pd
@@ -517,14 +553,16 @@ def _cmd_site(args: argparse.Namespace) -> int:
         time_limit_s=args.time_limit_s,
         curve_to=args.curve,
     )
+    s = plan.summary
+    obj_col, obj_label = _site_curve_value(s["model"], plan.curve)
     chart = line_chart(
         f"{out_csv}-curve.png",
         plan.curve["new_sites"].to_numpy(),
-        {"covered %": plan.curve["covered_share"] * 100},
-        "new sites",
-        "demand covered (%)",
-        f"Coverage curve - {std.describe(with_source=False)}",
-        note="each point is an MCLP optimum (Church & ReVelle 1974)",
+        {obj_label: obj_col},
+        "new sites" if s["model"] != "mexclp" else "new units",
+        obj_label,
+        f"{s['objective_name'].capitalize()} - {std.describe(with_source=False)}",
+        note=f"each point the {s['model']} answer for that many new sites, warm-started from the one before",
     )
     layers = {
         "chosen": plan.chosen,
@@ -540,28 +578,32 @@ def _cmd_site(args: argparse.Namespace) -> int:
     write_text_atomic(f"{out_csv}-chosen.csv", pd.DataFrame(plan.chosen.drop(columns="geometry")).to_csv(index=False))
     write_text_atomic(f"{out_csv}-curve.csv", plan.curve.to_csv(index=False))
     write_text_atomic(f"{out_csv}-ranking.csv", plan.ranking.to_csv(index=False))
-    s = plan.summary
-    print(
-        f"{s['model']} solved by {s['method']} ({s['status']}, gap {s['mip_gap'] * 100:.3f} % to the "
-        f"{s['bound_source']}, {s['solve_s']:.1f} s)"
-    )
+    print(_site_headline(s))
     print(std.describe())
+    print(f"{s['objective_name']}: {_site_objective_text(s['model'], s['objective'], s['total_weight'])}")
     print(
-        f"covered before {s['covered_share_before'] * 100:.1f} %, after {s['covered_share_after'] * 100:.1f} %; "
-        f"{std.fractile * 100:g}th percentile response {s['fractile_response_before_s'] / 60:.1f} -> "
-        f"{s['fractile_response_after_s'] / 60:.1f} min"
+        f"covered within the standard: before {s['covered_share_before'] * 100:.1f} % (existing bases), "
+        f"after {s['covered_share_after'] * 100:.1f} %; {std.fractile * 100:g}th percentile response "
+        f"{_minutes(s['fractile_response_before_s'])} -> {_minutes(s['fractile_response_after_s'])}"
     )
-    print("\nchosen sites")
+    print("\nchosen sites (adds: beyond the existing bases; loss: what the objective loses without it)")
     for r in plan.chosen.itertuples(index=False):
-        print(f"  {r.id:<10} adds {r.added_demand:>10,.0f}  only this site {r.only_this_site:>10,.0f}  {r.name}")
-    print("\ncoverage curve (new sites: covered %)")
+        forced = "  forced: the only site reaching some demand" if r.forced else ""
+        print(
+            f"  {r.id:<10} adds {r.added_demand:>10,.0f}  only this site {r.only_this_site:>10,.0f}  "
+            f"loss {r.objective_loss:>10,.1f}  {r.name}{forced}"
+        )
+    print(f"\n{s['model']} curve (new sites: {obj_label}; * proven optimal)")
     print(
         "  "
         + ", ".join(
-            f"{int(n)}: {c * 100:.1f}"
-            for n, c in zip(plan.curve["new_sites"], plan.curve["covered_share"], strict=True)
+            f"{int(n)}: {v:,.1f}{'*' if str(st).startswith('proven') else ''}"
+            for n, v, st in zip(plan.curve["new_sites"], obj_col, plan.curve["status"], strict=True)
         )
     )
+    worst = float(plan.curve["gap"].max())
+    if math.isfinite(worst):
+        print(f"  every point within {worst * 100:.3f} % of the best possible")
     print(f"\nwrote {args.out}, {chart}")
     print(CAUTION)
     return 0
