@@ -472,6 +472,7 @@ def _run_points(spec, ps: list[int], method: str, budget_s: float, rel_gap: floa
     out: list[_Point] = []
     prev: np.ndarray | None = None
     prev_p = -2
+    ran_any = False
     for idx, p in enumerate(ps):
         cand = spec.local(spec.greedy_prefix(p), p)
         if chain and prev is not None and prev_p == p - 1:
@@ -486,21 +487,26 @@ def _run_points(spec, ps: list[int], method: str, budget_s: float, rel_gap: floa
         bound, source = spec.cheap_bound(p)
         kept, ran = "heuristic", False
         if not spec.reached(obj, bound):
-            share = max(t_end - time.perf_counter(), 0.0) / (len(ps) - idx)
-            if _use_milp(method, spec.milp_size) and share > 0:
-                ran = True
+            left = max(t_end - time.perf_counter(), 0.0)
+            share = left / (len(ps) - idx)
+            if _use_milp(method, spec.milp_size, spec.milp_limit) and share > 0:
+                if not ran_any:  # the first LP is solved from scratch; later ones restart from its basis
+                    share = max(share, 0.5 * left)
+                ran = ran_any = True
                 units, b, proven = spec.exact(p, cand, share, rel_gap)
                 if units is not None:
                     units = spec.local(units, p)
                     if spec.better(units, cand):
                         cand, kept = units, "milp"
-                if math.isfinite(b):
-                    bound, source = spec.tighter(bound, b), "HiGHS dual bound"
+                if math.isfinite(b) and spec.tighter(bound, b) != bound:
+                    bound = b
+                    solver = getattr(spec, "_solver", None)
+                    source = solver.last_source if solver is not None else "HiGHS dual bound"
                 obj = spec.objective(cand)
                 if proven and kept == "heuristic" and not spec.reached(obj, bound):
                     kept = "milp"  # cannot happen with a valid start; kept for safety
             else:
-                b, s = spec.lp_bound(p, min(max(share, 1.0), LP_TIME_LIMIT_S))
+                b, s = spec.lp_bound(p, min(max(share, 1.0), LP_TIME_LIMIT_S), cand)
                 if math.isfinite(b) and spec.tighter(bound, b) != bound:
                     bound, source = b, s
         proven = spec.reached(spec.objective(cand), bound)
@@ -514,6 +520,7 @@ class _Spec:
 
     maximise = True
     tol = 1e-9
+    milp_limit = MILP_NNZ_LIMIT
 
     def tighter(self, a: float, b: float) -> float:
         return min(a, b) if self.maximise else max(a, b)
@@ -567,7 +574,7 @@ class _CoverSpec(_Spec):
     def local(self, units: np.ndarray, p: int) -> np.ndarray:
         return _cover_search(self.af, self.k0, self.values, p, self.cap, self.scale, start=units, at=self.at)
 
-    def lp_bound(self, p: int, time_s: float) -> tuple[float, str]:
+    def lp_bound(self, p: int, time_s: float, cand: np.ndarray | None = None) -> tuple[float, str]:
         if self.milp_size > LP_NNZ_LIMIT:
             return math.nan, ""
         value, _ = self.solver(p).lp_bound(time_s)
@@ -765,7 +772,7 @@ class _BackupSpec(_CoverSpec):
             return None
         return (np.rint(x[: self.af.shape[1]]) > 0.5).astype(np.int64)
 
-    def lp_bound(self, p: int, time_s: float) -> tuple[float, str]:
+    def lp_bound(self, p: int, time_s: float, cand: np.ndarray | None = None) -> tuple[float, str]:
         if self.milp_size > LP_NNZ_LIMIT:
             return math.nan, ""
         solver = self.solver(p)
@@ -1387,7 +1394,8 @@ def _median_lagrangian(
     upper: float,
     n_iter: int = 400,
     time_limit_s: float = math.inf,
-) -> float:
+    lam0: np.ndarray | None = None,
+) -> tuple[float, np.ndarray]:
     """Lower bound on the p-median by Lagrangian relaxation of the assignment rows, subgradient steps.
 
     With multipliers ``lam_i`` on ``sum_j z_ij (+ u_i) = 1`` the relaxed problem splits by site: site ``j`` is worth
@@ -1400,7 +1408,10 @@ def _median_lagrangian(
     np.minimum.at(lam, rows, cost)  # start at the nearest-site bound
     if penalty is not None:
         lam = np.minimum(lam, penalty)
+    if lam0 is not None:  # multipliers of a neighbouring p: a warm start along a curve
+        lam = lam0.copy()
     best, mu, stall = -np.inf, 2.0, 0
+    best_lam = lam
     free = np.flatnonzero(~fixed)
     t_end = time.perf_counter() + time_limit_s
     for _ in range(n_iter):
@@ -1415,7 +1426,7 @@ def _median_lagrangian(
         if penalty is not None:
             value += float(np.minimum(penalty - lam, 0.0).sum())
         if best == -np.inf or value > best + 1e-12 * max(abs(best), 1.0):
-            best, stall = value, 0
+            best, stall, best_lam = value, 0, lam
         else:
             stall += 1
             if stall >= 20:
@@ -1428,7 +1439,7 @@ def _median_lagrangian(
         if norm == 0 or mu < 1e-4 or upper - best <= 1e-9 * max(abs(upper), 1.0):
             break
         lam = lam + mu * (upper - value) / norm * g
-    return best
+    return best, best_lam
 
 
 def p_median(
@@ -1516,9 +1527,11 @@ class _MedianSpec(_Spec):
         self.free = np.flatnonzero(~fx)
         self.wsum = float(h.sum())
         self.milp_size = int(self.mr.size)
+        self.milp_limit = MEDIAN_MILP_PAIR_LIMIT
+        self._lam: np.ndarray | None = None
         self._greedy: list[int] = []
         self._solver: CurveSolver | None = None
-        self.tol = 1e-12
+        self.tol = 1e-9
 
     def _open(self, units: np.ndarray) -> np.ndarray:
         is_open = self.fx.copy()
@@ -1572,9 +1585,9 @@ class _MedianSpec(_Spec):
         np.minimum.at(nearest, self.mr, self.mv)
         return float(self.h @ np.minimum(nearest, self.far)) / self.wsum, "nearest site for every point"
 
-    def lp_bound(self, p: int, time_s: float) -> tuple[float, str]:
-        upper = self.cost(self.local(self.greedy_prefix(p), p))
-        lagr = _median_lagrangian(
+    def lp_bound(self, p: int, time_s: float, cand: np.ndarray | None = None) -> tuple[float, str]:
+        upper = self.cost(cand if cand is not None else self.local(self.greedy_prefix(p), p))
+        lagr, self._lam = _median_lagrangian(
             self.mr,
             self.mc,
             self.h[self.mr] * self.mv,
@@ -1582,7 +1595,9 @@ class _MedianSpec(_Spec):
             self.fx,
             p,
             upper,
+            n_iter=1000,
             time_limit_s=time_s,
+            lam0=self._lam,
         )
         return min(lagr, upper) / self.wsum, "Lagrangian relaxation"
 
