@@ -218,7 +218,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--curve", type=int, help="coverage curve up to this many new sites (default --add, at least 3)")
     p.add_argument("--method", choices=["auto", "milp", "heuristic"], default="auto", help="solver (auto)")
     p.add_argument(
-        "--time-limit-s", type=_positive_float, default=60.0, help="time for all the solving, whole curve included, s (60)"
+        "--time-limit-s", type=_positive_float, default=60.0, help="time for all solving, curve included, s (60)"
     )
     p.add_argument("--out", "-o", type=Path, required=True, help="GeoPackage to write (layers chosen, ranking, ...)")
     _points_options(p)
