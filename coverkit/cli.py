@@ -7,6 +7,7 @@ line and the exit status is 2.
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import sys
 from collections.abc import Callable, Sequence
@@ -229,7 +230,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--rank", action="store_true", help="only rank every candidate alone (what each adds)")
     p.add_argument("--curve", type=int, help="coverage curve up to this many new sites (default --add, at least 3)")
     p.add_argument("--method", choices=["auto", "milp", "heuristic"], default="auto", help="solver (auto)")
-    p.add_argument("--time-limit-s", type=_positive_float, default=60.0, help="solver time limit, s (60)")
+    p.add_argument(
+        "--time-limit-s", type=_positive_float, default=60.0, help="time for all solving, curve included, s (60)"
+    )
     p.add_argument(
         "--out",
         "-o",
@@ -496,6 +499,30 @@ def _cmd_cover(args: argparse.Namespace) -> int:
     return 0
 
 
+def _minutes(seconds: float) -> str:
+    return "not reached" if not math.isfinite(seconds) else f"{seconds / 60:.1f} min"
+
+
+def _site_headline(s: dict) -> str:
+    """Who the answer is from, how sure it is, in words."""
+    who = "the exact solver (HiGHS)" if s["answer_from"] == "milp" else "greedy plus interchange"
+    gap = s["within_share"]
+    sure = (
+        f"within {gap * 100:.3f} % of the best possible ({s['bound_source']})"
+        if math.isfinite(gap)
+        else "no bound on the best possible"
+    )
+    return f"{s['model']}: answer from {who}; {s['status']}; {sure}; {s['solve_s']:.1f} s"
+
+
+def _site_objective_text(model: str, value: float, total: float) -> str:
+    if model == "p-median":
+        return f"{value:,.1f} s ({value / 60:.2f} min)"
+    if model == "lscp":
+        return f"{int(value)}"
+    return f"{value:,.1f} of {total:,.1f} ({value / total * 100:.1f} %)"
+
+
 @command("site")
 def _cmd_site(args: argparse.Namespace) -> int:
     import pandas as pd
@@ -504,7 +531,7 @@ def _cmd_site(args: argparse.Namespace) -> int:
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
-    from coverkit.report.study_report import site_curve_chart
+    from coverkit.report.study_report import site_curve_chart, site_curve_values
     from coverkit.site_plan import build_problem, generate_candidates, ranking_table, solve
     from coverkit.travel import read_points
 
@@ -545,6 +572,7 @@ def _cmd_site(args: argparse.Namespace) -> int:
         time_limit_s=args.time_limit_s,
         curve_to=args.curve,
     )
+    s = plan.summary
     chart = site_curve_chart(plan, map_file(folder, "site_curve"), std.describe(with_source=False))
     layers = {
         layer_name("site_chosen"): plan.chosen,
@@ -561,28 +589,33 @@ def _cmd_site(args: argparse.Namespace) -> int:
     write_csv_atomic(table_file(folder, "site_chosen"), chosen_table)
     write_csv_atomic(table_file(folder, "site_curve"), plan.curve)
     write_csv_atomic(table_file(folder, "site_ranking"), plan.ranking)
-    s = plan.summary
-    print(
-        f"{s['model']} solved by {s['method']} ({s['status']}, gap {s['mip_gap'] * 100:.3f} % to the "
-        f"{s['bound_source']}, {s['solve_s']:.1f} s)"
-    )
+    print(_site_headline(s))
     print(std.describe())
+    print(f"{s['objective_name']}: {_site_objective_text(s['model'], s['objective'], s['total_weight'])}")
     print(
-        f"covered before {s['covered_share_before'] * 100:.1f} %, after {s['covered_share_after'] * 100:.1f} %; "
-        f"{std.fractile * 100:g}th percentile response {s['fractile_response_before_s'] / 60:.1f} -> "
-        f"{s['fractile_response_after_s'] / 60:.1f} min"
+        f"covered within the standard: before {s['covered_share_before'] * 100:.1f} % (existing bases), "
+        f"after {s['covered_share_after'] * 100:.1f} %; {std.fractile * 100:g}th percentile response "
+        f"{_minutes(s['fractile_response_before_s'])} -> {_minutes(s['fractile_response_after_s'])}"
     )
-    print("\nchosen sites")
+    print("\nchosen sites (adds: beyond the existing bases; loss: what the objective loses without it)")
     for r in plan.chosen.itertuples(index=False):
-        print(f"  {r.id:<10} adds {r.added_demand:>10,.0f}  only this site {r.only_this_site:>10,.0f}  {r.name}")
-    print("\ncoverage curve (new sites: covered %)")
+        forced = "  forced: the only site reaching some demand" if r.forced else ""
+        print(
+            f"  {r.id:<10} adds {r.added_demand:>10,.0f}  only this site {r.only_this_site:>10,.0f}  "
+            f"loss {r.objective_loss:>10,.1f}  {r.name}{forced}"
+        )
+    obj_col, obj_label = site_curve_values(s["model"], plan.curve)
+    print(f"\n{s['model']} curve (new sites: {obj_label}; * proven optimal)")
     print(
         "  "
         + ", ".join(
-            f"{int(n)}: {c * 100:.1f}"
-            for n, c in zip(plan.curve["new_sites"], plan.curve["covered_share"], strict=True)
+            f"{int(n)}: {v:,.1f}{'*' if str(st).startswith('proven') else ''}"
+            for n, v, st in zip(plan.curve["new_sites"], obj_col, plan.curve["status"], strict=True)
         )
     )
+    worst = float(plan.curve["gap"].max())
+    if math.isfinite(worst):
+        print(f"  every point within {worst * 100:.3f} % of the best possible")
     print(f"\nwrote {args.out}, {chart}")
     print(CAUTION)
     return 0

@@ -166,6 +166,16 @@ class SitePlan:
     summary: dict = field(default_factory=dict)
 
 
+#: What each model's objective counts, in words (one home for the CLI, the summary and the curve chart).
+OBJECTIVE_NAMES = {
+    "mclp": "demand covered",
+    "lscp": "new sites needed",
+    "backup": "demand covered twice",
+    "mexclp": "expected demand covered (units busy)",
+    "p-median": "mean travel time (s)",
+}
+
+
 def solve(
     problem: SitingProblem,
     model: str = "mclp",
@@ -177,7 +187,12 @@ def solve(
     curve_to: int | None = None,
     incidents: gpd.GeoDataFrame | None = None,
 ) -> SitePlan:
-    """Run one covering model on the problem and assemble the chosen sites, the ranking and the coverage curve.
+    """Run one covering model on the problem and assemble the chosen sites, the ranking and the model's curve.
+
+    The answer for ``add`` is the point ``p = add`` of the model's own curve (``p = 0 .. max(add, curve_to)``,
+    each ``p`` warm-started from ``p - 1``), so the curve and the answer agree and the curve never falls. LSCP
+    answers with the fewest sites; its curve is the MCLP curve up to that count (the smallest ``p`` whose MCLP
+    cover reaches the target is the LSCP count).
 
     Parameters
     ----------
@@ -187,8 +202,10 @@ def solve(
         busy fraction ``q``), ``p-median`` (``add`` sites, least weighted mean travel time).
     add
         Number of new sites (relocation: the total number of sites to open).
+    time_limit_s
+        Seconds for all the solving (the answer and the whole curve together).
     curve_to
-        Solve MCLP for 0..curve_to new sites for the coverage curve (default ``add``, at least 3).
+        Curve up to this many new sites (default ``add``, at least 3).
     """
     if model not in MODELS:
         raise ModelError(f"model '{model}' is unknown; use one of {', '.join(MODELS)}.")
@@ -197,46 +214,77 @@ def solve(
     if model != "lscp":
         if add is None:
             raise ModelError(f"model {model} needs --add N, the number of new sites.")
-        if add > n_free:
+        if add > n_free and model != "mexclp":
             raise ModelError(
                 f"--add {add} is more than the {n_free} candidate sites; give at most {n_free} or add candidates."
             )
-    kw = {"method": method, "time_limit_s": time_limit_s}
+    if model == "mexclp" and q is None:
+        raise ModelError("model mexclp needs --busy-fraction q (the share of time a unit is busy, 0..1).")
+    kw = {"method": method}
     note(f"siting: solving {model}")
-    if model == "mclp":
-        res = siting.mclp(covers, w, add, fixed, **kw)
-    elif model == "lscp":
-        res = siting.lscp(covers, w, fixed, target_share=target, **kw)
-    elif model == "backup":
-        res = siting.backup_coverage(covers, w, add, fixed, **kw)
-    elif model == "mexclp":
-        if q is None:
-            raise ModelError("model mexclp needs --busy-fraction q (the share of time a unit is busy, 0..1).")
-        res = siting.mexclp(covers, w, add, q, fixed, **kw)
+    if model == "lscp":
+        res = siting.lscp(covers, w, fixed, target_share=target, time_limit_s=time_limit_s / 2, **kw)
+        n_curve = min(max(curve_to if curve_to is not None else res.p, res.p, 3), n_free)
+        curve_res = siting.siting_curve("mclp", covers, w, n_curve, fixed, time_limit_s=time_limit_s / 2, **kw)
     else:
-        res = siting.p_median(problem.travel_matrix(), w, add, fixed, unreached_penalty_s=problem.table.horizon_s, **kw)
+        n_curve = max(curve_to if curve_to is not None else add, add, 3)
+        if model != "mexclp":
+            n_curve = min(n_curve, n_free)
+        data = problem.travel_matrix() if model == "p-median" else covers
+        extra = {"q": q} if model == "mexclp" else {}
+        if model == "p-median":
+            extra = {"unreached_penalty_s": problem.table.horizon_s}
+        curve_res = siting.siting_curve(model, data, w, n_curve, fixed, time_limit_s=time_limit_s, **extra, **kw)
+        res = curve_res[add]
     ranking = ranking_table(problem, incidents)
-    chosen = chosen_table(problem, res, incidents)
-    n_curve = max(curve_to if curve_to is not None else (add or res.p or 0), 3)
-    curve = curve_table(problem, min(n_curve, n_free), method=method, time_limit_s=time_limit_s)
+    chosen = chosen_table(problem, res, incidents, q=q)
+    curve = curve_table(problem, curve_res)
     open_resp = problem.response_for(res.open_sites)
+    existing = np.flatnonzero((problem.sites["kind"] == "existing").to_numpy())
+    before_resp = (
+        problem.response_for(existing) if existing.size else np.full(len(w), np.inf)
+    )  # the existing layout, also when it is free to move (relocation)
     summary = {
         "model": res.model,
-        "method": res.method,
-        "status": res.status,
-        "mip_gap": res.mip_gap,
+        "objective_name": OBJECTIVE_NAMES[res.model],
+        "objective": res.objective,
         "bound": res.bound,
         "bound_source": res.bound_source,
+        "within_share": res.mip_gap,
+        "mip_gap": res.mip_gap,
+        "answer_from": res.method,
+        "method": res.method,
+        "status": res.status,
         "solve_s": res.solve_s,
         "new_sites": len(res.sites),
-        "objective": res.objective,
-        "covered_share_before": float(curve["covered_share"].iloc[0]),
-        "covered_share_after": res.covered_share,
-        "fractile_response_before_s": float(curve["fractile_response_s"].iloc[0]),
+        "covered_share_before": covered_share(problem, existing),
+        "covered_share_after": covered_share(problem, res.open_sites),
+        "second_share_after": covered_share(problem, res.open_sites, depth=2),
+        "fractile_response_before_s": weighted_fractile(before_resp, w, problem.standard.fractile),
         "fractile_response_after_s": weighted_fractile(open_resp, w, problem.standard.fractile),
         "standard": problem.standard.describe(),
+        "total_weight": float(w.sum()),
     }
+    if res.model == "p-median":
+        summary["mean_travel_before_s"] = mean_travel_s(problem, existing)
     return SitePlan(res, chosen, ranking, curve, summary)
+
+
+def covered_share(problem: SitingProblem, open_sites: np.ndarray, depth: int = 1) -> float:
+    """Share of all demand weight that at least ``depth`` of the open sites reach within the travel standard."""
+    w = problem.weights
+    cols = np.asarray(open_sites, dtype=int)
+    if cols.size == 0 or w.sum() <= 0:
+        return 0.0
+    k = np.asarray(problem.covers[:, cols].sum(axis=1)).ravel()
+    return float(w[k >= depth].sum() / w.sum())
+
+
+def mean_travel_s(problem: SitingProblem, open_sites: np.ndarray) -> float:
+    """Weighted mean travel time (s) to the nearest open site, unreached points at the search horizon."""
+    resp = problem.response_for(np.asarray(open_sites, dtype=int)) - problem.standard.turnout_s
+    w = problem.weights
+    return float(w @ np.minimum(resp, problem.table.horizon_s) / w.sum())
 
 
 def ranking_table(problem: SitingProblem, incidents: gpd.GeoDataFrame | None = None) -> pd.DataFrame:
@@ -250,49 +298,72 @@ def ranking_table(problem: SitingProblem, incidents: gpd.GeoDataFrame | None = N
 
 
 def chosen_table(
-    problem: SitingProblem, res: siting.SitingResult, incidents: gpd.GeoDataFrame | None = None
+    problem: SitingProblem,
+    res: siting.SitingResult,
+    incidents: gpd.GeoDataFrame | None = None,
+    q: float | None = None,
 ) -> gpd.GeoDataFrame:
-    """The chosen new sites with the demand each adds beyond the fixed sites and the demand only it covers."""
+    """The chosen new sites: the demand each adds beyond the fixed sites, the demand only it covers, and what the
+    model's own objective loses without it (``objective_loss``; for the p-median the rise of the mean travel time,
+    s). For LSCP, ``forced`` marks a site that is the only one reaching some demand (it must be chosen)."""
     covers = problem.covers.tocsc()
     w = problem.weights
     counts = covers.astype(np.int64)
     fixed_cov = np.asarray(counts[:, np.flatnonzero(problem.fixed)].sum(axis=1)).ravel() > 0
-    open_count = np.asarray(counts[:, np.asarray(res.open_sites, dtype=int)].sum(axis=1)).ravel()
+    units_all = np.zeros(covers.shape[1])
+    units_all[np.asarray(res.open_sites, dtype=int)] = 1.0
+    if res.units is not None:
+        units_all = problem.fixed.astype(float) + res.units
+    k = counts @ units_all
+    everyone = np.asarray(counts.sum(axis=1)).ravel()
     rows = []
     for j in res.sites:
         idx = covers[:, [j]].indices
+        uj = units_all[j]
+        kj, wj = k[idx], w[idx]
+        if res.model == "backup":
+            loss = float(wj[(kj >= 2) & (kj - uj < 2)].sum())
+        elif res.model == "mexclp":
+            qq = 0.0 if q is None else float(q)
+            loss = float((wj * (qq ** (kj - uj) - qq**kj)).sum())
+        elif res.model == "p-median":
+            rest = np.setdiff1d(np.asarray(res.open_sites, dtype=int), [j])
+            loss = mean_travel_s(problem, rest) - mean_travel_s(problem, res.open_sites)
+        else:
+            loss = float(wj[kj - uj < 1].sum())
         rows.append(
             {
                 "id": str(problem.sites["id"].iloc[j]),
                 "name": str(problem.sites["name"].iloc[j]),
                 "kind": str(problem.sites["kind"].iloc[j]),
-                "added_demand": float(w[idx][~fixed_cov[idx]].sum()),
-                "only_this_site": float(w[idx][open_count[idx] == 1].sum()),
+                "added_demand": float(wj[~fixed_cov[idx]].sum()),
+                "only_this_site": float(wj[kj == uj].sum()),
+                "objective_loss": loss,
+                "forced": bool(res.model == "lscp" and ((everyone[idx] == 1) & (wj > 0) & ~fixed_cov[idx]).any()),
                 "units": int(res.units[j]) if res.units is not None else 1,
             }
         )
     geom = problem.sites.geometry.to_numpy()[res.sites] if len(res.sites) else []
-    return gpd.GeoDataFrame(
-        pd.DataFrame(rows, columns=["id", "name", "kind", "added_demand", "only_this_site", "units"]),
-        geometry=list(geom),
-        crs=problem.sites.crs,
-    )
+    columns = ["id", "name", "kind", "added_demand", "only_this_site", "objective_loss", "forced", "units"]
+    return gpd.GeoDataFrame(pd.DataFrame(rows, columns=columns), geometry=list(geom), crs=problem.sites.crs)
 
 
-def curve_table(problem: SitingProblem, max_new: int, method: str = "auto", time_limit_s: float = 60.0) -> pd.DataFrame:
-    """Coverage curve p = 0..max_new (MCLP optima) with the fractile response of each solution."""
-    curve = siting.coverage_curve(
-        problem.covers, problem.weights, max_new, problem.fixed, method=method, time_limit_s=time_limit_s
-    )
-    fixed_idx = np.flatnonzero(problem.fixed)
-    frac = []
-    ids = []
-    for text in curve["sites"].astype(str):
-        new = np.array([int(s) for s in text.split()], dtype=int) if text.strip() else np.zeros(0, dtype=int)
-        open_sites = np.concatenate([fixed_idx, new]).astype(int)
-        resp = problem.response_for(open_sites) if len(open_sites) else np.full(len(problem.weights), np.inf)
-        frac.append(weighted_fractile(resp, problem.weights, problem.standard.fractile))
-        ids.append(" ".join(str(problem.sites["id"].iloc[j]) for j in new))
+def curve_table(problem: SitingProblem, results: list[siting.SitingResult]) -> pd.DataFrame:
+    """The model's curve (one row per number of new sites) with the share covered within the standard, the
+    fractile response and the site ids of each answer."""
+    curve = siting.curve_frame(results)
+    w = problem.weights
+    shares, seconds, frac, ids = [], [], [], []
+    for r in results:
+        shares.append(covered_share(problem, r.open_sites))
+        seconds.append(covered_share(problem, r.open_sites, depth=2))
+        open_sites = np.asarray(r.open_sites, dtype=int)
+        resp = problem.response_for(open_sites) if len(open_sites) else np.full(len(w), np.inf)
+        frac.append(weighted_fractile(resp, w, problem.standard.fractile))
+        ids.append(" ".join(str(problem.sites["id"].iloc[j]) for j in r.sites))
+    curve["covered_share"] = shares  # within the standard, whatever the model (the p-median's is reached at all)
+    curve["gain_share"] = curve["covered_share"].diff().fillna(0.0)
+    curve["second_share"] = seconds
     curve["fractile_response_s"] = frac
     curve["site_ids"] = ids
-    return curve.drop(columns=["sites"])
+    return curve.drop(columns=["sites", "covered_weight", "second_weight"])

@@ -37,10 +37,10 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 from numpy.typing import ArrayLike
-from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 
 from coverkit.errors import ModelError
-from coverkit.progress import counted
+from coverkit.milp import CurveSolver, Milp
+from coverkit.progress import note
 
 #: Above this many constraint-matrix nonzeros ``method="auto"`` uses the heuristic instead of the MILP.
 MILP_NNZ_LIMIT = 2_000_000
@@ -265,53 +265,26 @@ def _prepare_cover(covers: ArrayLike, weights: ArrayLike | None, fixed: ArrayLik
 # MILP plumbing
 
 
-@dataclass
-class _Milp:
-    """``minimise c @ x`` (or maximise ``-c @ x`` when ``maximise``) plus a constant."""
-
-    c: np.ndarray
-    integrality: np.ndarray
-    lb: np.ndarray
-    ub: np.ndarray
-    constraints: list[LinearConstraint]
-    maximise: bool
-    constant: float = 0.0
-
-    @property
-    def nnz(self) -> int:
-        return int(sum(sp.csr_array(k.A).nnz for k in self.constraints))
+def _stack(constraints: list[tuple[sp.csr_array, ArrayLike, ArrayLike]], n: int) -> tuple[sp.csr_array, ...]:
+    """One row block from several ``(a, lo, hi)`` blocks."""
+    blocks = [(sp.csr_array(a), lo, hi) for a, lo, hi in constraints if a.shape[0] > 0]
+    a = sp.vstack([b[0] for b in blocks], format="csr") if blocks else sp.csr_array((0, n))
+    lo = np.concatenate([np.broadcast_to(np.asarray(b[1], dtype=float), b[0].shape[0]) for b in blocks])
+    hi = np.concatenate([np.broadcast_to(np.asarray(b[2], dtype=float), b[0].shape[0]) for b in blocks])
+    return a, lo, hi
 
 
-@dataclass(frozen=True)
-class _Sol:
-    x: np.ndarray | None
-    value: float  # full objective in the model's own sense, constant included
-    bound: float
-    status: str
-    solver_gap: float
-
-
-def _solve(model: _Milp, time_limit_s: float, rel_gap: float, relax: bool = False) -> _Sol:
-    integrality = np.zeros_like(model.integrality) if relax else model.integrality
-    res = milp(
-        model.c,
-        integrality=integrality,
-        bounds=Bounds(model.lb, model.ub),
-        constraints=[k for k in model.constraints if k.A.shape[0] > 0],
-        options={"time_limit": float(time_limit_s), "mip_rel_gap": float(rel_gap), "disp": False},
-    )
-    if res.status == 2:
-        return _Sol(None, math.nan, math.nan, "infeasible", math.nan)
-    if res.x is None:
-        status = "time limit, no solution" if res.status == 1 else f"solver failed: {res.message}"
-        return _Sol(None, math.nan, math.nan, status, math.nan)
-    sign = -1.0 if model.maximise else 1.0
-    value = model.constant + sign * float(res.fun)
-    dual = getattr(res, "mip_dual_bound", None)
-    bound = value if (relax or dual is None) else model.constant + sign * float(dual)
-    status = "optimal" if res.status == 0 else "time limit, best solution found"
-    gap = float(res.mip_gap) if getattr(res, "mip_gap", None) is not None else 0.0
-    return _Sol(np.asarray(res.x), value, bound, status, gap)
+def _milp(
+    c: np.ndarray,
+    integrality: np.ndarray,
+    lb: np.ndarray,
+    ub: np.ndarray,
+    constraints: list[tuple[sp.csr_array, ArrayLike, ArrayLike]],
+    maximise: bool,
+    constant: float = 0.0,
+) -> Milp:
+    a, lo, hi = _stack(constraints, c.size)
+    return Milp(c, integrality, lb, ub, a, lo, hi, maximise, constant)
 
 
 def _rel_gap(objective: float, bound: float) -> float:
@@ -350,6 +323,14 @@ def _improves(values: list[float], tol: float) -> bool:
     return False
 
 
+def _cover_next(at: sp.csr_array, k: np.ndarray, values: list[Value], units: np.ndarray, cap: np.ndarray, tol: float):
+    """The column adding most value to coverage counts ``k`` (lowest index on ties), or -1 if none is free."""
+    valid = units < cap
+    if not valid.any():
+        return -1
+    return _lex_pick([at @ (f(k + 1) - f(k)) for f in values], valid, tol)
+
+
 def _cover_search(
     af: sp.csr_array,
     k0: np.ndarray,
@@ -357,34 +338,39 @@ def _cover_search(
     p: int,
     cap: np.ndarray,
     scale: float,
+    start: np.ndarray | None = None,
+    at: sp.csr_array | None = None,
 ) -> np.ndarray:
-    """Greedy construction then best-improvement unit moves (vertex substitution, Teitz & Bart 1968).
+    """Greedy construction (from ``start``, if given) then best-improvement unit moves (vertex substitution).
 
     ``af`` (rows x columns, 0/1) says which columns reach which rows, ``k0`` the coverage count from fixed sites,
     ``values`` the per-row value of a coverage count, compared lexicographically (one function for a plain
-    objective), ``cap`` the units allowed per column (1 for a site model). Returns units per column.
+    objective), ``cap`` the units allowed per column (1 for a site model). Only strict improvements are made, so
+    the result is never worse than the start. Returns units per column.
+
+    Source: M. B. Teitz & P. Bart (1968), "Heuristic methods for estimating the generalized vertex median of a
+    weighted graph", Operations Research 16(5).
     """
     n_cols = af.shape[1]
-    units = np.zeros(n_cols, dtype=np.int64)
-    k = k0.astype(float).copy()
-    at = sp.csr_array(af.T)
+    units = np.zeros(n_cols, dtype=np.int64) if start is None else np.asarray(start, dtype=np.int64).copy()
+    at = sp.csr_array(af.T) if at is None else at
+    k = k0.astype(float) + af @ units.astype(float)
     tol = 1e-9 * max(scale, 1.0)
-    for _ in range(p):  # greedy: the column adding most value, lowest index on ties
-        gains = [at @ (f(k + 1) - f(k)) for f in values]
-        a = _lex_pick(gains, units < cap, tol)
+    while units.sum() < p:  # greedy: the column adding most value, lowest index on ties
+        a = _cover_next(at, k, values, units, cap, tol)
         units[a] += 1
-        k += af[:, [a]].toarray().ravel()
+        k += at[[a]].toarray().ravel()
     for _ in range(_MAX_SWAPS):  # interchange: move one unit from column r to column a
         held = np.flatnonzero(units > 0)
         if held.size == 0 or not (units < cap).any():
             break
-        af_held = sp.csr_array(af[:, held])
+        af_held = sp.csr_array(at[held].T)
         deltas = []
         for f in values:
             add = f(k + 1) - f(k)
             rem = f(np.maximum(k - 1, 0)) - f(k)
             both = at @ sp.diags_array(-(add + rem)) @ af_held  # rows reached by both a and r keep their count
-            d = (at @ add)[:, None] + (af_held.T @ rem)[None, :] + both.toarray()
+            d = (at @ add)[:, None] + (af_held.T @ rem)[None, :] + sp.csr_array(both).toarray()
             deltas.append(d.ravel())
         valid = ((units < cap)[:, None] & (np.arange(n_cols)[:, None] != held[None, :])).ravel()
         if not valid.any():
@@ -395,7 +381,7 @@ def _cover_search(
         a, r = divmod(best, held.size)
         units[a] += 1
         units[held[r]] -= 1
-        k += af[:, [a]].toarray().ravel() - af[:, [held[r]]].toarray().ravel()
+        k += at[[a]].toarray().ravel() - at[[held[r]]].toarray().ravel()
     return units
 
 
@@ -452,22 +438,492 @@ def _result(
 
 
 # ---------------------------------------------------------------------------------------------------------------
+# one engine for a single p and for a whole curve
+
+
+@dataclass(frozen=True)
+class _Point:
+    units: np.ndarray  # per model column
+    method: str  # which answer is kept: "milp" or "heuristic"
+    status: str
+    bound: float
+    bound_source: str
+
+
+def _status(proven: bool, method: str, ran_milp: bool) -> str:
+    if proven:
+        return "proven optimal" if method == "milp" else "proven optimal (the heuristic's answer)"
+    if method == "milp":
+        return "solver's best within the time budget"
+    if ran_milp:
+        return "heuristic (greedy plus interchange); the solver found nothing better within the time budget"
+    return "heuristic (greedy plus interchange)"
+
+
+def _run_points(spec, ps: list[int], method: str, budget_s: float, rel_gap: float, chain: bool) -> list[_Point]:
+    """Solve the model ``spec`` for each ``p`` in ``ps`` within one time budget for them all.
+
+    Each ``p`` starts from the better of greedy plus interchange and (``chain``, consecutive ``p``) the previous
+    answer plus its best addition, improved by interchange; the exact solver starts from that and the better of
+    the two answers is kept, then tidied by interchange (strict improvements only). So the answer is never worse
+    than greedy plus interchange, and along a chained curve it never gets worse as ``p`` grows.
+    """
+    t_end = time.perf_counter() + budget_s
+    out: list[_Point] = []
+    prev: np.ndarray | None = None
+    prev_p = -2
+    ran_any = False
+    for idx, p in enumerate(ps):
+        cand = spec.local(spec.greedy_prefix(p), p)
+        if chain and prev is not None and prev_p == p - 1:
+            warm = spec.local(spec.best_add(prev), p)
+            if spec.better(warm, cand):
+                cand = warm
+        obj = spec.objective(cand)
+        if p == 0:
+            out.append(_Point(cand, "heuristic", "proven optimal (no site to choose)", obj, "trivial"))
+            prev, prev_p = cand, p
+            continue
+        bound, source = spec.cheap_bound(p)
+        kept, ran = "heuristic", False
+        if not spec.reached(obj, bound):
+            left = max(t_end - time.perf_counter(), 0.0)
+            share = left / (len(ps) - idx)
+            if _use_milp(method, spec.milp_size, spec.milp_limit) and share > 0:
+                if not ran_any:  # the first LP is solved from scratch; later ones restart from its basis
+                    share = max(share, 0.5 * left)
+                ran = ran_any = True
+                units, b, proven = spec.exact(p, cand, share, rel_gap)
+                if units is not None:
+                    units = spec.local(units, p)
+                    if spec.better(units, cand):
+                        cand, kept = units, "milp"
+                if math.isfinite(b) and spec.tighter(bound, b) != bound:
+                    bound = b
+                    solver = getattr(spec, "_solver", None)
+                    source = solver.last_source if solver is not None else "HiGHS dual bound"
+                obj = spec.objective(cand)
+                if proven and kept == "heuristic" and not spec.reached(obj, bound):
+                    kept = "milp"  # cannot happen with a valid start; kept for safety
+            else:
+                b, s = spec.lp_bound(p, min(max(share, 1.0), LP_TIME_LIMIT_S), cand)
+                if math.isfinite(b) and spec.tighter(bound, b) != bound:
+                    bound, source = b, s
+        proven = spec.reached(spec.objective(cand), bound)
+        out.append(_Point(cand, kept, _status(proven, kept, ran), bound, source))
+        prev, prev_p = cand, p
+    return out
+
+
+class _Spec:
+    """What the engine needs from a model; subclasses fill in the model's own parts."""
+
+    maximise = True
+    tol = 1e-9
+    milp_limit = MILP_NNZ_LIMIT
+
+    def tighter(self, a: float, b: float) -> float:
+        return min(a, b) if self.maximise else max(a, b)
+
+    def reached(self, obj: float, bound: float) -> bool:
+        slack = self.tol * max(abs(obj), 1.0)
+        return obj >= bound - slack if self.maximise else obj <= bound + slack
+
+
+class _CoverSpec(_Spec):
+    """Shared by MCLP, backup and MEXCLP: a row's value depends only on its coverage count."""
+
+    def __init__(self, af: sp.csr_array, k0: np.ndarray, values: list[Value], cap: np.ndarray, scale: float):
+        self.af = sp.csr_array(af, dtype=float)
+        self.at = sp.csr_array(self.af.T)
+        self.k0 = np.asarray(k0, dtype=float)
+        self.values = values
+        self.cap = np.asarray(cap, dtype=np.int64)
+        self.scale = float(scale)
+        self.tol_abs = 1e-9 * max(self.scale, 1.0)
+        self._greedy: list[int] = []
+        self._solver: CurveSolver | None = None
+
+    def counts(self, units: np.ndarray) -> np.ndarray:
+        return self.k0 + self.af @ units.astype(float)
+
+    def key(self, units: np.ndarray) -> list[float]:
+        k = self.counts(units)
+        return [float(f(k).sum()) for f in self.values]
+
+    def better(self, a: np.ndarray, b: np.ndarray) -> bool:
+        return _improves([x - y for x, y in zip(self.key(a), self.key(b), strict=True)], self.tol_abs)
+
+    def greedy_prefix(self, p: int) -> np.ndarray:
+        units = np.zeros(self.af.shape[1], dtype=np.int64)
+        for a in self._greedy[:p]:
+            units[a] += 1
+        while len(self._greedy) < p:
+            a = _cover_next(self.at, self.counts(units), self.values, units, self.cap, self.tol_abs)
+            self._greedy.append(a)
+            units[a] += 1
+        return units
+
+    def best_add(self, units: np.ndarray) -> np.ndarray:
+        units = units.copy()
+        a = _cover_next(self.at, self.counts(units), self.values, units, self.cap, self.tol_abs)
+        if a >= 0:
+            units[a] += 1
+        return units
+
+    def local(self, units: np.ndarray, p: int) -> np.ndarray:
+        return _cover_search(self.af, self.k0, self.values, p, self.cap, self.scale, start=units, at=self.at)
+
+    def lp_bound(self, p: int, time_s: float, cand: np.ndarray | None = None) -> tuple[float, str]:
+        if self.milp_size > LP_NNZ_LIMIT:
+            return math.nan, ""
+        value, _ = self.solver(p).lp_bound(time_s)
+        return value, "LP relaxation"
+
+
+class _MclpSpec(_CoverSpec):
+    """MCLP on the rows no fixed site covers, merged; the exact model is reduced before it is posed."""
+
+    def __init__(self, cv: _Cover):
+        kfix = cv.kfix
+        self.cv = cv
+        self.rows = np.flatnonzero(kfix == 0)
+        self.w = cv.w[self.rows]
+        self.constant = float(cv.w[kfix > 0].sum())
+        af = sp.csr_array(cv.af[self.rows])
+        super().__init__(af, np.zeros(self.rows.size), [_step(self.w, 1)], np.ones(af.shape[1]), cv.total_w)
+        self.gain1 = self.at @ self.w
+        self.milp_size = int(af.nnz + af.shape[0])
+        self.reduction: dict[str, int] = {}
+
+    def objective(self, units: np.ndarray) -> float:
+        return self.constant + self.key(units)[0]
+
+    def cheap_bound(self, p: int) -> tuple[float, str]:
+        top = float(np.sort(self.gain1)[::-1][:p].sum())
+        return self.constant + min(float(self.w.sum()), top), "sum of the best single-site additions"
+
+    def solver(self, p: int) -> CurveSolver:
+        if self._solver is None:
+            self._build()
+        self._solver.set_row_bounds(self._card_row, 0.0, float(p))
+        return self._solver
+
+    def _build(self) -> None:
+        af, at, w = self.af, self.at, self.w
+        n = af.shape[1]
+        size = np.diff(at.indptr)
+        # a site whose demand another site covers too (a superset) can be swapped for it: drop it
+        c = sp.coo_array(at @ af)
+        r, q, v = c.row, c.col, c.data
+        dom = (v >= size[r] - 0.5) & (r != q) & ((size[q] > size[r]) | ((size[q] == size[r]) & (q < r)))
+        r, q = r[dom], q[dom]
+        order = np.lexsort((q, -size[q], r))
+        r, q = r[order], q[order]
+        first = np.ones(r.size, dtype=bool)
+        first[1:] = r[1:] != r[:-1]
+        dom_of = np.arange(n)
+        dom_of[r[first]] = q[first]
+        dom_of[size == 0] = -1
+        kept = np.flatnonzero(dom_of == np.arange(n))
+        self._dom_of = dom_of
+        self._kept = kept
+        knum = np.full(n, -1, dtype=np.int64)
+        knum[kept] = np.arange(kept.size)
+        self._knum = knum
+        ak = sp.csr_array(af[:, kept])
+        cnt = np.diff(ak.indptr)
+        # a row only one kept site reaches is covered exactly when that site is open: fold it into the site's value
+        single = cnt == 1
+        agg = np.bincount(ak.indices[ak.indptr[:-1][single]], weights=w[single], minlength=kept.size)
+        multi = np.flatnonzero(cnt >= 2)
+        a2 = sp.csr_array(ak[multi])
+        self._a2 = a2
+        m2, nk = a2.shape
+        model = _milp(
+            c=np.concatenate([-agg, -w[multi]]),
+            integrality=np.concatenate([np.ones(nk), np.zeros(m2)]),
+            lb=np.zeros(nk + m2),
+            ub=np.ones(nk + m2),
+            constraints=[
+                (sp.hstack([-a2, sp.identity(m2, format="csr")], format="csr"), -np.inf, 0.0),
+                (sp.csr_array(np.concatenate([np.ones(nk), np.zeros(m2)])[None, :]), 0.0, 0.0),
+            ],
+            maximise=True,
+            constant=self.constant,
+        )
+        self._card_row = m2
+        self.reduction = {
+            "demand_rows": int(self.cv.a.shape[0]),
+            "model_rows": int(m2),
+            "sites": int(n),
+            "model_sites": int(nk),
+        }
+        self._solver = CurveSolver(model)
+
+    def exact(self, p: int, start: np.ndarray, time_s: float, rel_gap: float):
+        solver = self.solver(p)
+        nk = self._kept.size
+        x0 = np.zeros(nk)
+        tgt = self._dom_of[np.flatnonzero(start)]
+        x0[self._knum[tgt[tgt >= 0]]] = 1.0
+        y0 = np.minimum(self._a2 @ x0, 1.0)
+        ans = solver.solve(np.concatenate([x0, y0]), self.objective(start), time_s, rel_gap)
+        units = None
+        if ans.x is not None:
+            units = np.zeros(self.af.shape[1], dtype=np.int64)
+            units[self._kept[np.rint(ans.x[:nk]) > 0.5]] = 1
+        return units, ans.bound, ans.proven
+
+    def result(self, pt: _Point, t0: float, p: int) -> SitingResult:
+        new = self.cv.free[np.flatnonzero(pt.units)]
+        covered, second = _mclp_eval(self.cv, new)
+        return _result(
+            "mclp",
+            self.cv.fixed,
+            new,
+            covered,
+            covered,
+            self.cv.total_w,
+            pt.method,
+            pt.status,
+            pt.bound,
+            pt.bound_source,
+            t0,
+            p,
+            second_weight=second,
+        )
+
+
+class _BackupSpec(_CoverSpec):
+    """Backup coverage on the rows fixed sites cover fewer than twice (lexicographic or weighted form)."""
+
+    def __init__(self, cv: _Cover, theta: float | None):
+        kfix = cv.kfix
+        self.cv, self.theta = cv, theta
+        rows = np.flatnonzero(kfix < 2)
+        af = sp.csr_array(cv.af[rows])
+        self.wr, self.kr = cv.w[rows], kfix[rows]
+        self.const2 = float(cv.w[kfix >= 2].sum())  # covered twice by fixed sites alone
+        self.can_twice = (self.kr + np.diff(af.indptr)) >= 2
+        wr = self.wr
+        values = (
+            [_step(wr, 1), _step(wr, 2)]
+            if theta is None
+            else [lambda k: theta * wr * (k >= 1) + (1 - theta) * wr * (k >= 2)]
+        )
+        super().__init__(af, self.kr.astype(float), values, np.ones(af.shape[1]), cv.total_w)
+        self.milp_size = int(2 * af.nnz + 5 * af.shape[0])
+
+    def _eval(self, units: np.ndarray) -> tuple[float, float, float]:
+        single, double = _mclp_eval(self.cv, self.cv.free[np.flatnonzero(units)])
+        obj = double if self.theta is None else self.theta * single + (1 - self.theta) * double
+        return obj, single, double
+
+    def objective(self, units: np.ndarray) -> float:
+        return self._eval(units)[0]
+
+    def cheap_bound(self, p: int) -> tuple[float, str]:
+        twice = self.const2 + float(self.wr[self.can_twice].sum())
+        if self.theta is None:
+            return twice, "all demand two sites can reach"
+        return self.theta * float(self.cv.w.sum()) + (1 - self.theta) * twice, "all coverable demand"
+
+    def solver(self, p: int) -> CurveSolver:
+        if self._solver is None:
+            af, m = self.af, self.af.shape[0]
+            nf = af.shape[1]
+            eye = sp.identity(m, format="csr")
+            self._nvar = nf + 2 * m
+            self._solver = CurveSolver(
+                _milp(
+                    c=self._costs(1),
+                    integrality=np.concatenate([np.ones(nf), np.zeros(m), np.ones(m)]),
+                    lb=np.concatenate([np.zeros(nf), (self.kr >= 1).astype(float), np.zeros(m)]),
+                    ub=np.concatenate([np.ones(nf), np.ones(m), self.can_twice.astype(float)]),
+                    constraints=[
+                        (sp.hstack([-af, eye, eye], format="csr"), -np.inf, self.kr),  # y + u <= count
+                        (sp.hstack([sp.csr_array((m, nf)), -eye, eye], format="csr"), -np.inf, 0.0),  # u <= y
+                        (sp.csr_array(np.concatenate([np.ones(nf), np.zeros(2 * m)])[None, :]), 0.0, 0.0),
+                        (sp.csr_array(np.concatenate([np.zeros(nf), self.wr, np.zeros(m)])[None, :]), -np.inf, np.inf),
+                    ],
+                    maximise=True,
+                    constant=self.const2,
+                )
+            )
+            self._card_row, self._keep_row = 2 * m, 2 * m + 1
+        self._solver.set_row_bounds(self._card_row, 0.0, float(p))
+        return self._solver
+
+    def _costs(self, stage: int) -> np.ndarray:
+        nf, m = self.af.shape[1], self.af.shape[0]
+        if self.theta is not None:
+            return np.concatenate([np.zeros(nf), -self.theta * self.wr, -(1 - self.theta) * self.wr])
+        if stage == 1:
+            return np.concatenate([np.zeros(nf), -self.wr, np.zeros(m)])
+        return np.concatenate([np.zeros(nf), np.zeros(m), -self.wr])
+
+    def _x(self, units: np.ndarray) -> np.ndarray:
+        k = self.counts(units)
+        return np.concatenate([units.astype(float), (k >= 1).astype(float), (k >= 2).astype(float)])
+
+    def _units(self, x: np.ndarray | None) -> np.ndarray | None:
+        if x is None:
+            return None
+        return (np.rint(x[: self.af.shape[1]]) > 0.5).astype(np.int64)
+
+    def lp_bound(self, p: int, time_s: float, cand: np.ndarray | None = None) -> tuple[float, str]:
+        if self.milp_size > LP_NNZ_LIMIT:
+            return math.nan, ""
+        solver = self.solver(p)
+        if self.theta is None:  # the double cover's LP bound, keeping the single cover found
+            solver.set_costs(self._costs(2), self.const2)
+            self._set_keep(solver, self.cheap_single)
+        value, _ = solver.lp_bound(time_s)
+        return value, "LP relaxation"
+
+    cheap_single = -np.inf
+
+    def _set_keep(self, solver: CurveSolver, single_total: float) -> None:
+        lo = single_total - self.const2 - 1e-9 * self.cv.total_w if math.isfinite(single_total) else -np.inf
+        solver.set_row_bounds(self._keep_row, lo, np.inf)
+
+    def exact(self, p: int, start: np.ndarray, time_s: float, rel_gap: float):
+        solver = self.solver(p)
+        t_end = time.perf_counter() + time_s
+        if self.theta is not None:
+            solver.set_costs(self._costs(1), self.const2)
+            ans = solver.solve(self._x(start), self.objective(start), time_s, rel_gap)
+            return self._units(ans.x), ans.bound, ans.proven
+        # stage 1: the most demand covered once; stage 2: the most covered twice keeping it
+        solver.set_costs(self._costs(1), self.const2)
+        self._set_keep(solver, -np.inf)
+        s_single = self._eval(start)[1]
+        a1 = solver.solve(self._x(start), s_single, time_s / 2, rel_gap)
+        u1 = self._units(a1.x)
+        best = start
+        if u1 is not None and self.better(u1, start):
+            best = u1
+        z1 = self._eval(best)[1]
+        solver.set_costs(self._costs(2), self.const2)
+        self._set_keep(solver, z1)
+        a2 = solver.solve(self._x(best), self._eval(best)[0], max(t_end - time.perf_counter(), 0.05), rel_gap)
+        u2 = self._units(a2.x)
+        if u2 is not None and not self.better(u2, best):
+            u2 = best
+        proven1 = a1.proven or (math.isfinite(a1.bound) and z1 >= a1.bound - 1e-9 * max(z1, 1.0))
+        bound = a2.bound if proven1 else math.nan
+        return (u2 if u2 is not None else best), bound, (a2.proven and proven1)
+
+    def result(self, pt: _Point, t0: float, p: int) -> SitingResult:
+        new = self.cv.free[np.flatnonzero(pt.units)]
+        obj, single, double = self._eval(pt.units)
+        return _result(
+            "backup",
+            self.cv.fixed,
+            new,
+            obj,
+            single,
+            self.cv.total_w,
+            pt.method,
+            pt.status,
+            pt.bound,
+            pt.bound_source,
+            t0,
+            p,
+            second_weight=double,
+        )
+
+
+class _MexclpSpec(_CoverSpec):
+    """MEXCLP on every site (fixed ones may take more units), units stacked up to each site's capacity."""
+
+    def __init__(self, cv: _Cover, q: float, cap: np.ndarray, existing: np.ndarray, p_max: int):
+        self.cv, self.q, self.p_max = cv, q, int(p_max)
+        self.e = cv.a @ existing.astype(float)
+        w = cv.w
+        self.value = lambda k: w * (1.0 - q**k)
+        super().__init__(cv.a, self.e, [self.value], cap, cv.total_w)
+        reach_cap = cv.a @ cap.astype(float)
+        k_rows = np.minimum(self.p_max, reach_cap).astype(np.int64)
+        if q == 0:
+            k_rows = np.where(self.e >= 1, 0, np.minimum(k_rows, 1))
+        self.k_rows = k_rows
+        self.milp_size = int(cv.a.nnz + 2 * k_rows.sum())
+
+    def objective(self, units: np.ndarray) -> float:
+        return self.key(units)[0]
+
+    def cheap_bound(self, p: int) -> tuple[float, str]:
+        g = self.at @ (self.value(self.e + 1) - self.value(self.e))  # each unit adds at most its first-unit gain
+        order = np.argsort(-g, kind="stable")
+        top = np.repeat(g[order], np.minimum(self.cap[order], p))[:p]
+        base = float(self.value(self.e).sum())
+        return min(float(self.cv.w.sum()), base + float(top.sum())), "sum of the best single-unit additions"
+
+    def solver(self, p: int) -> CurveSolver:
+        if self._solver is None:
+            cv, q, w, e, k_rows = self.cv, self.q, self.cv.w, self.e, self.k_rows
+            n = cv.n_sites
+            row_of = np.repeat(np.arange(w.size), k_rows)
+            t = np.arange(row_of.size) - np.repeat(np.cumsum(k_rows) - k_rows, k_rows) + 1
+            self._row_of, self._t = row_of, t
+            coef = w[row_of] * (1 - q) * q ** (e[row_of] + t - 1)
+            ny = row_of.size
+            link = sp.hstack(
+                [-cv.a, sp.csr_array((np.ones(ny), (row_of, np.arange(ny))), shape=(w.size, ny))], format="csr"
+            )
+            self._solver = CurveSolver(
+                _milp(
+                    c=np.concatenate([np.zeros(n), -coef]),
+                    integrality=np.concatenate([np.ones(n), np.zeros(ny)]),
+                    lb=np.zeros(n + ny),
+                    ub=np.concatenate([self.cap.astype(float), np.ones(ny)]),
+                    constraints=[
+                        (link, -np.inf, 0.0),
+                        (sp.csr_array(np.concatenate([np.ones(n), np.zeros(ny)])[None, :]), 0.0, 0.0),
+                    ],
+                    maximise=True,
+                    constant=float(self.value(e).sum()),
+                )
+            )
+            self._card_row = w.size
+        self._solver.set_row_bounds(self._card_row, 0.0, float(p))
+        return self._solver
+
+    def exact(self, p: int, start: np.ndarray, time_s: float, rel_gap: float):
+        solver = self.solver(p)
+        n = self.cv.n_sites
+        new_k = self.af @ start.astype(float)
+        y0 = (self._t <= new_k[self._row_of]).astype(float)
+        ans = solver.solve(np.concatenate([start.astype(float), y0]), self.objective(start), time_s, rel_gap)
+        units = None if ans.x is None else np.rint(ans.x[:n]).astype(np.int64)
+        return units, ans.bound, ans.proven
+
+    def result(self, pt: _Point, t0: float, p: int) -> SitingResult:
+        units = pt.units
+        k = self.counts(units)
+        w = self.cv.w
+        return _result(
+            "mexclp",
+            self.cv.fixed,
+            np.flatnonzero(units),
+            self.objective(units),
+            float(w[k >= 1].sum()),
+            self.cv.total_w,
+            pt.method,
+            pt.status,
+            pt.bound,
+            pt.bound_source,
+            t0,
+            p,
+            second_weight=float(w[k >= 2].sum()),
+            units=units,
+        )
+
+
+# ---------------------------------------------------------------------------------------------------------------
 # MCLP
-
-
-def _mclp_model(af: sp.csr_array, w: np.ndarray, p: int, constant: float) -> _Milp:
-    m, nf = af.shape
-    cover_rows = sp.hstack([-af, sp.identity(m, format="csr")], format="csr")  # y_i <= sum_j a_ij x_j
-    card = sp.csr_array(np.concatenate([np.ones(nf), np.zeros(m)])[None, :])
-    return _Milp(
-        c=np.concatenate([np.zeros(nf), -w]),
-        integrality=np.concatenate([np.ones(nf), np.zeros(m)]),
-        lb=np.zeros(nf + m),
-        ub=np.ones(nf + m),
-        constraints=[LinearConstraint(cover_rows, -np.inf, 0.0), LinearConstraint(card, p, p)],
-        maximise=True,
-        constant=constant,
-    )
 
 
 def mclp(
@@ -486,6 +942,11 @@ def mclp(
     ``0 <= y_i <= 1`` (``y`` needs no integrality: at an optimum with integral ``x`` it is ``min(1, ...)``); fixed
     sites have ``x_j = 1`` and the demand they cover enters as a constant.
 
+    The exact model is made small first, each step exact: demand rows with the same set of covering sites are
+    merged (weights summed); rows a fixed site covers are a constant; a site whose covered rows another site
+    covers too is dropped (it can always be swapped for that one); a row only one site reaches is folded into that
+    site's value. HiGHS starts from greedy plus interchange, and the better answer is kept.
+
     Source: R. Church & C. ReVelle (1974), "The maximal covering location problem", Papers of the Regional Science
     Association 32.
 
@@ -500,10 +961,10 @@ def mclp(
     fixed
         Boolean mask of sites that are always open (existing bases).
     method
-        ``"milp"`` (HiGHS), ``"heuristic"`` (greedy plus interchange) or ``"auto"`` (MILP unless the model has
-        more than :data:`MILP_NNZ_LIMIT` nonzeros, or no MILP solution is found within the time limit).
+        ``"milp"`` (HiGHS from the heuristic's answer), ``"heuristic"`` (greedy plus interchange, bounded by the
+        LP relaxation) or ``"auto"`` (the MILP unless the model has more than :data:`MILP_NNZ_LIMIT` nonzeros).
     time_limit_s
-        HiGHS time limit in seconds.
+        Time budget in seconds.
     rel_gap
         Relative MIP gap at which HiGHS may stop.
     """
@@ -511,7 +972,10 @@ def mclp(
     _check_time(time_limit_s, rel_gap)
     cv = _prepare_cover(covers, weights, fixed)
     p = _check_p(p, cv.free.size)
-    return _mclp_solve(cv, p, method, time_limit_s, rel_gap)
+    t0 = time.perf_counter()
+    spec = _MclpSpec(cv)
+    (pt,) = _run_points(spec, [p], method, time_limit_s, rel_gap, chain=False)
+    return spec.result(pt, t0, p)
 
 
 def _mclp_eval(cv: _Cover, new_sites: np.ndarray) -> tuple[float, float]:
@@ -519,78 +983,6 @@ def _mclp_eval(cv: _Cover, new_sites: np.ndarray) -> tuple[float, float]:
     units[new_sites] = 1.0
     k = _cover_counts(cv, units)
     return float(cv.w[k >= 1].sum()), float(cv.w[k >= 2].sum())
-
-
-def _mclp_solve(cv: _Cover, p: int, method: str, time_limit_s: float, rel_gap: float) -> SitingResult:
-    t0 = time.perf_counter()
-    kfix = cv.kfix
-    rows = np.flatnonzero(kfix == 0)
-    af = sp.csr_array(cv.af[rows])
-    constant = float(cv.w[kfix > 0].sum())
-    model = _mclp_model(af, cv.w[rows], p, constant)
-    status = None
-    if p == 0:
-        new, method_used, status, bound, source = np.zeros(0, np.int64), "milp", "optimal", None, "trivial"
-    elif _use_milp(method, model.nnz):
-        sol = _solve(model, time_limit_s, rel_gap)
-        if sol.x is not None:
-            new = cv.free[np.flatnonzero(np.rint(sol.x[: cv.free.size]) > 0.5)]
-            method_used, status, bound, source = "milp", sol.status, sol.bound, "HiGHS dual bound"
-    if status is None:
-        units = _cover_search(af, np.zeros(af.shape[0]), [_step(cv.w[rows], 1)], p, np.ones(af.shape[1]), cv.total_w)
-        new = cv.free[np.flatnonzero(units)]
-        method_used, status = "heuristic", "local optimum"
-        bound, source = _lp_bound(model, time_limit_s, constant + float(cv.w[rows].sum()), "all coverable demand")
-    covered, second = _mclp_eval(cv, new)
-    if bound is None:
-        bound = covered
-    return _result(
-        "mclp",
-        cv.fixed,
-        new,
-        covered,
-        covered,
-        cv.total_w,
-        method_used,
-        status,
-        bound,
-        source,
-        t0,
-        p,
-        second_weight=second,
-    )
-
-
-def _lp_bound(model: _Milp, time_limit_s: float, cheap: float, cheap_name: str) -> tuple[float, str]:
-    """The LP relaxation's value (HiGHS interior point), or a cheap bound when the LP is too large or slow."""
-    if model.nnz <= LP_NNZ_LIMIT:
-        eq_a, eq_b, ub_a, ub_b = [], [], [], []
-        for k in model.constraints:
-            a = sp.csr_array(k.A)
-            if a.shape[0] == 0:
-                continue
-            lo = np.broadcast_to(np.asarray(k.lb, dtype=float), a.shape[0])
-            hi = np.broadcast_to(np.asarray(k.ub, dtype=float), a.shape[0])
-            eq = lo == hi
-            up = ~eq & np.isfinite(hi)
-            down = ~eq & np.isfinite(lo)
-            eq_a.append(a[np.flatnonzero(eq)])
-            eq_b.append(hi[eq])
-            ub_a += [a[np.flatnonzero(up)], -a[np.flatnonzero(down)]]
-            ub_b += [hi[up], -lo[down]]
-        res = linprog(
-            model.c,
-            A_ub=sp.vstack(ub_a, format="csr"),
-            b_ub=np.concatenate(ub_b),
-            A_eq=sp.vstack(eq_a, format="csr"),
-            b_eq=np.concatenate(eq_b),
-            bounds=np.column_stack([model.lb, model.ub]),
-            method="highs-ipm",
-            options={"time_limit": float(min(time_limit_s, LP_TIME_LIMIT_S))},
-        )
-        if res.status == 0:
-            return model.constant + (-1.0 if model.maximise else 1.0) * float(res.fun), "LP relaxation"
-    return cheap, cheap_name
 
 
 # ---------------------------------------------------------------------------------------------------------------
@@ -656,48 +1048,65 @@ def lscp(
     if need <= tol:
         covered, second = _mclp_eval(cv, np.zeros(0, np.int64))
         return _result(
-            "lscp", cv.fixed, [], 0, covered, cv.total_w, "milp", "optimal", 0, "trivial", t0, 0, second_weight=second
+            "lscp",
+            cv.fixed,
+            [],
+            0,
+            covered,
+            cv.total_w,
+            "heuristic",
+            "proven optimal (no new site needed)",
+            0,
+            "trivial",
+            t0,
+            0,
+            second_weight=second,
         )
     if target_share is None:
-        model = _Milp(
-            c=np.ones(nf),
-            integrality=np.ones(nf),
-            lb=np.zeros(nf),
-            ub=np.ones(nf),
-            constraints=[LinearConstraint(af, 1.0, np.inf)],
-            maximise=False,
-        )
+        model = _milp(np.ones(nf), np.ones(nf), np.zeros(nf), np.ones(nf), [(af, 1.0, np.inf)], maximise=False)
     else:
         link = sp.hstack([-af, sp.identity(m, format="csr")], format="csr")
         share = sp.csr_array(np.concatenate([np.zeros(nf), wr])[None, :])
-        model = _Milp(
-            c=np.concatenate([np.ones(nf), np.zeros(m)]),
-            integrality=np.ones(nf + m),
-            lb=np.zeros(nf + m),
-            ub=np.ones(nf + m),
-            constraints=[LinearConstraint(link, -np.inf, 0.0), LinearConstraint(share, need - tol, np.inf)],
+        model = _milp(
+            np.concatenate([np.ones(nf), np.zeros(m)]),
+            np.ones(nf + m),
+            np.zeros(nf + m),
+            np.ones(nf + m),
+            [(link, -np.inf, 0.0), (share, need - tol, np.inf)],
             maximise=False,
         )
-    status = None
+    # greedy plus interchange first; the exact solver starts from it and the better answer is kept
+    heur = _lscp_heuristic(cv, rows, af, wr, need, target_share is None, tol)
+    new, method_used = heur, "heuristic"
+    proven, ran = False, False
+    bound, source = 1.0, "one site"
+    x_h = np.zeros(nf)
+    x_h[np.searchsorted(cv.free, heur)] = 1.0
+    start = x_h if target_share is None else np.concatenate([x_h, np.minimum(af @ x_h, 1.0)])
+    solver = CurveSolver(model)
     if _use_milp(method, model.nnz):
-        sol = _solve(model, time_limit_s, rel_gap)
-        if sol.status == "infeasible":  # guarded above; kept for a clear message
-            raise ModelError("target_share: no set of sites reaches the target; lower target_share")
-        if sol.x is not None:
-            new = cv.free[np.flatnonzero(np.rint(sol.x[:nf]) > 0.5)]
-            method_used, status = "milp", sol.status
-            bound, source = math.ceil(sol.bound - 1e-6), "HiGHS dual bound"
-    if status is None:
-        new = _lscp_heuristic(cv, rows, af, wr, need, target_share is None, tol)
-        method_used, status = "heuristic", "local optimum"
-        lp_value, source = _lp_bound(model, time_limit_s, 1.0, "one site")
-        bound = math.ceil(lp_value - 1e-6)
+        ran = True
+        ans = solver.solve(start, float(heur.size), time_limit_s, rel_gap)
+        if ans.x is not None:
+            cand = cv.free[np.flatnonzero(np.rint(ans.x[:nf]) > 0.5)]
+            if cand.size < heur.size:
+                new, method_used = cand, "milp"
+        if math.isfinite(ans.bound):
+            bound, source = max(bound, math.ceil(ans.bound - 1e-6)), "HiGHS dual bound"
+    elif model.nnz <= LP_NNZ_LIMIT:
+        lp_value, _ = solver.lp_bound(min(time_limit_s, LP_TIME_LIMIT_S))
+        if math.isfinite(lp_value):
+            bound, source = max(bound, math.ceil(lp_value - 1e-6)), "LP relaxation"
+    proven = new.size <= bound
+    status = _status(proven, method_used, ran)
     count = int(new.size)
     if target_share is not None and count > 0:  # among the smallest sets, the one covering most weight
         spent = time.perf_counter() - t0
-        best = _mclp_solve(cv, count, method_used, max(time_limit_s - spent, 0.1 * time_limit_s), rel_gap)
-        if best.covered_weight >= _mclp_eval(cv, new)[0]:
-            new = best.sites
+        left = max(time_limit_s - spent, 0.1 * time_limit_s)
+        (pt,) = _run_points(_MclpSpec(cv), [count], method, left, rel_gap, chain=False)
+        best = cv.free[np.flatnonzero(pt.units)]
+        if _mclp_eval(cv, best)[0] >= _mclp_eval(cv, new)[0]:
+            new = best
     covered, second = _mclp_eval(cv, new)
     return _result(
         "lscp",
@@ -787,101 +1196,9 @@ def backup_coverage(
     cv = _prepare_cover(covers, weights, fixed)
     p = _check_p(p, cv.free.size)
     t0 = time.perf_counter()
-    kfix = cv.kfix
-    rows = np.flatnonzero(kfix < 2)
-    af = sp.csr_array(cv.af[rows])
-    wr, kr = cv.w[rows], kfix[rows]
-    const2 = float(cv.w[kfix >= 2].sum())  # covered twice by fixed sites alone
-    nf, m = cv.free.size, rows.size
-    can_twice = (kr + np.diff(af.indptr)) >= 2
-    link = sp.hstack([-af, sp.identity(m, format="csr"), sp.identity(m, format="csr")], format="csr")
-    order = sp.hstack(
-        [sp.csr_array((m, nf)), -sp.identity(m, format="csr"), sp.identity(m, format="csr")], format="csr"
-    )
-    card = sp.csr_array(np.concatenate([np.ones(nf), np.zeros(2 * m)])[None, :])
-    base_constraints = [
-        LinearConstraint(link, -np.inf, kr),  # y + u <= (fixed count) + sum_j a_ij x_j
-        LinearConstraint(order, -np.inf, 0.0),  # u <= y
-        LinearConstraint(card, p, p),
-    ]
-    lb = np.concatenate([np.zeros(nf), (kr >= 1).astype(float), np.zeros(m)])
-    ub = np.concatenate([np.ones(nf), np.ones(m), can_twice.astype(float)])
-    integrality = np.concatenate([np.ones(nf), np.zeros(m), np.ones(m)])
-
-    def model_with(c: np.ndarray, constant: float, extra: list[LinearConstraint]) -> _Milp:
-        return _Milp(c, integrality, lb, ub, base_constraints + extra, True, constant)
-
-    zeros = np.zeros(nf)
-    if theta is None:
-        stage1 = model_with(np.concatenate([zeros, -wr, np.zeros(m)]), const2, [])
-
-        def stage2_with(z1: float) -> _Milp:
-            keep = LinearConstraint(
-                sp.csr_array(np.concatenate([zeros, wr, np.zeros(m)])[None, :]), z1 - 1e-9 * cv.total_w, np.inf
-            )
-            return model_with(np.concatenate([zeros, np.zeros(m), -wr]), const2, [keep])
-
-        final = stage2_with(float(wr.sum()))  # for the size check only
-    else:
-        final = model_with(np.concatenate([zeros, -theta * wr, -(1 - theta) * wr]), const2 * 1.0, [])
-
-    def evaluate(new: np.ndarray) -> tuple[float, float, float]:
-        single, double = _mclp_eval(cv, new)
-        obj = double if theta is None else theta * single + (1 - theta) * double
-        return obj, single, double
-
-    status = None
-    if p == 0:
-        new, method_used, status, source = np.zeros(0, np.int64), "milp", "optimal", "trivial"
-        bound = evaluate(new)[0]
-    elif _use_milp(method, final.nnz):
-        if theta is None:
-            s1 = _solve(stage1, time_limit_s, rel_gap)
-            sol = s1
-            if s1.x is not None:
-                new1 = cv.free[np.flatnonzero(np.rint(s1.x[:nf]) > 0.5)]
-                z1 = evaluate(new1)[1] - const2  # single cover on the model's rows, from the sites
-                left = max(time_limit_s - (time.perf_counter() - t0), 0.1 * time_limit_s)
-                sol = _solve(stage2_with(z1), left, rel_gap)
-                if sol.x is None:  # stage 2 found nothing in time: fall back on the stage-1 sites
-                    sol = _Sol(s1.x, math.nan, math.nan, "time limit in stage 2, stage-1 sites", math.nan)
-                elif s1.status != "optimal":
-                    sol = _Sol(sol.x, sol.value, sol.bound, "time limit in stage 1, " + sol.status, sol.solver_gap)
-        else:
-            sol = _solve(final, time_limit_s, rel_gap)
-        if sol.x is not None:
-            new = cv.free[np.flatnonzero(np.rint(sol.x[:nf]) > 0.5)]
-            method_used, status, source = "milp", sol.status, "HiGHS dual bound"
-            bound = sol.bound if math.isfinite(sol.bound) else math.nan
-    if status is None:
-        values = (
-            [_step(wr, 1), _step(wr, 2)]
-            if theta is None
-            else [lambda k: theta * wr * (k >= 1) + (1 - theta) * wr * (k >= 2)]
-        )
-        units = _cover_search(af, kr.astype(float), values, p, np.ones(nf), cv.total_w)
-        new = cv.free[np.flatnonzero(units)]
-        method_used, status = "heuristic", "local optimum"
-        if theta is None:
-            final = stage2_with(evaluate(new)[1] - float(cv.w[kfix >= 2].sum()))
-        cheap = const2 + float(wr[can_twice].sum()) if theta is None else float(cv.w.sum())
-        bound, source = _lp_bound(final, time_limit_s, cheap, "all coverable demand")
-    obj, single, double = evaluate(new)
-    return _result(
-        "backup",
-        cv.fixed,
-        new,
-        obj,
-        single,
-        cv.total_w,
-        method_used,
-        status,
-        bound,
-        source,
-        t0,
-        p,
-        second_weight=double,
-    )
+    spec = _BackupSpec(cv, theta)
+    (pt,) = _run_points(spec, [p], method, time_limit_s, rel_gap, chain=False)
+    return spec.result(pt, t0, p)
 
 
 # ---------------------------------------------------------------------------------------------------------------
@@ -941,64 +1258,9 @@ def mexclp(
     if p > int(cap.sum()):
         raise ModelError(f"p: {p} new units exceed the total site capacity {int(cap.sum())}; lower p or raise capacity")
     t0 = time.perf_counter()
-    e = cv.a @ existing.astype(float)
-    w = cv.w
-
-    def value(k: np.ndarray) -> np.ndarray:
-        return w * (1.0 - q**k)
-
-    # y_ik for new units t = 1..K_i reaching row i; K_i is capped by p and by the capacity in reach
-    reach_cap = cv.a @ cap.astype(float)
-    k_rows = np.minimum(p, reach_cap).astype(np.int64)
-    if q == 0:
-        k_rows = np.where(e >= 1, 0, np.minimum(k_rows, 1))
-    row_of = np.repeat(np.arange(w.size), k_rows)
-    t = np.arange(row_of.size) - np.repeat(np.cumsum(k_rows) - k_rows, k_rows) + 1
-    coef = w[row_of] * (1 - q) * q ** (e[row_of] + t - 1)
-    ny = row_of.size
-    link = sp.hstack([-cv.a, sp.csr_array((np.ones(ny), (row_of, np.arange(ny))), shape=(w.size, ny))], format="csr")
-    card = sp.csr_array(np.concatenate([np.ones(n), np.zeros(ny)])[None, :])
-    model = _Milp(
-        c=np.concatenate([np.zeros(n), -coef]),
-        integrality=np.concatenate([np.ones(n), np.zeros(ny)]),
-        lb=np.zeros(n + ny),
-        ub=np.concatenate([cap.astype(float), np.ones(ny)]),
-        constraints=[LinearConstraint(link, -np.inf, 0.0), LinearConstraint(card, p, p)],
-        maximise=True,
-        constant=float(value(e).sum()),
-    )
-    status = None
-    if p == 0:
-        units, method_used, status, bound, source = np.zeros(n, np.int64), "milp", "optimal", None, "trivial"
-    elif _use_milp(method, model.nnz):
-        sol = _solve(model, time_limit_s, rel_gap)
-        if sol.x is not None:
-            units = np.rint(sol.x[:n]).astype(np.int64)
-            method_used, status, bound, source = "milp", sol.status, sol.bound, "HiGHS dual bound"
-    if status is None:
-        units = _cover_search(cv.a, e, [value], p, cap, cv.total_w)
-        method_used, status = "heuristic", "local optimum"
-        bound, source = _lp_bound(model, time_limit_s, float(w.sum()), "all coverable demand")
-    k = e + cv.a @ units.astype(float)
-    objective = float(value(k).sum())
-    if bound is None:
-        bound = objective
-    return _result(
-        "mexclp",
-        cv.fixed,
-        np.flatnonzero(units),
-        objective,
-        float(w[k >= 1].sum()),
-        cv.total_w,
-        method_used,
-        status,
-        bound,
-        source,
-        t0,
-        p,
-        second_weight=float(w[k >= 2].sum()),
-        units=units,
-    )
+    spec = _MexclpSpec(cv, q, cap, existing, p)
+    (pt,) = _run_points(spec, [p], method, time_limit_s, rel_gap, chain=False)
+    return spec.result(pt, t0, p)
 
 
 def _int_vector(values: ArrayLike | None, n: int, name: str, default: np.ndarray) -> np.ndarray:
@@ -1070,15 +1332,29 @@ def _nearest_two(
 
 
 def _median_search(
-    rows: np.ndarray, cols: np.ndarray, vals: np.ndarray, h: np.ndarray, fixed: np.ndarray, p: int, far: float
+    rows: np.ndarray,
+    cols: np.ndarray,
+    vals: np.ndarray,
+    h: np.ndarray,
+    fixed: np.ndarray,
+    p: int,
+    far: float,
+    start: np.ndarray | None = None,
 ) -> np.ndarray:
-    """Greedy addition then best-improvement vertex substitution (Teitz & Bart 1968) for the p-median."""
+    """Greedy addition (from the open sites ``start``, if given) then best-improvement vertex substitution.
+
+    Only strict improvements are made, so the result is never worse than the start. Source: M. B. Teitz & P.
+    Bart (1968), "Heuristic methods for estimating the generalized vertex median of a weighted graph",
+    Operations Research 16(5).
+    """
     n_rows, n_sites = h.size, fixed.size
     is_open = fixed.copy()
+    if start is not None:
+        is_open |= np.asarray(start, dtype=bool)
     scale = float(h.sum()) * far
     tol = 1e-12 * max(scale, 1.0)
     hr = h[rows]
-    for _ in range(p):
+    for _ in range(p - int((is_open & ~fixed).sum())):
         _, d1, _ = _nearest_two(rows, cols, vals, is_open, n_rows, far)
         gain = np.bincount(cols, weights=hr * np.maximum(d1[rows] - vals, 0.0), minlength=n_sites)
         gain[is_open] = -1.0
@@ -1117,7 +1393,9 @@ def _median_lagrangian(
     p: int,
     upper: float,
     n_iter: int = 400,
-) -> float:
+    time_limit_s: float = math.inf,
+    lam0: np.ndarray | None = None,
+) -> tuple[float, np.ndarray]:
     """Lower bound on the p-median by Lagrangian relaxation of the assignment rows, subgradient steps.
 
     With multipliers ``lam_i`` on ``sum_j z_ij (+ u_i) = 1`` the relaxed problem splits by site: site ``j`` is worth
@@ -1130,9 +1408,15 @@ def _median_lagrangian(
     np.minimum.at(lam, rows, cost)  # start at the nearest-site bound
     if penalty is not None:
         lam = np.minimum(lam, penalty)
+    if lam0 is not None:  # multipliers of a neighbouring p: a warm start along a curve
+        lam = lam0.copy()
     best, mu, stall = -np.inf, 2.0, 0
+    best_lam = lam
     free = np.flatnonzero(~fixed)
+    t_end = time.perf_counter() + time_limit_s
     for _ in range(n_iter):
+        if time.perf_counter() > t_end:
+            break
         red = np.minimum(cost - lam[rows], 0.0)
         rho = np.bincount(cols, weights=red, minlength=n_sites)
         is_open = fixed.copy()
@@ -1142,7 +1426,7 @@ def _median_lagrangian(
         if penalty is not None:
             value += float(np.minimum(penalty - lam, 0.0).sum())
         if best == -np.inf or value > best + 1e-12 * max(abs(best), 1.0):
-            best, stall = value, 0
+            best, stall, best_lam = value, 0, lam
         else:
             stall += 1
             if stall >= 20:
@@ -1155,7 +1439,7 @@ def _median_lagrangian(
         if norm == 0 or mu < 1e-4 or upper - best <= 1e-9 * max(abs(upper), 1.0):
             break
         lam = lam + mu * (upper - value) / norm * g
-    return best
+    return best, best_lam
 
 
 def p_median(
@@ -1195,126 +1479,212 @@ def p_median(
     """
     _check_method(method)
     _check_time(time_limit_s, rel_gap)
-    all_r, all_c, all_v, (n_dem, n_sites) = _travel_pairs(travel_s)
-    rows, cols, vals = all_r, all_c, all_v
-    h_all = _check_weights(weights, n_dem)
-    fx = _check_fixed(fixed, n_sites)
-    free = np.flatnonzero(~fx)
-    p = _check_p(p, free.size)
-    if unreached_penalty_s is not None and not (
-        isinstance(unreached_penalty_s, int | float) and 0 < unreached_penalty_s < math.inf
-    ):
-        raise ModelError(f"unreached_penalty_s: {unreached_penalty_s!r} is not a positive number of seconds")
+    spec = _MedianSpec(travel_s, weights, fixed, unreached_penalty_s)
+    p = _check_p(p, spec.free.size)
     t0 = time.perf_counter()
-    total_w = float(h_all.sum())
-    use = h_all[rows] > 0
-    rows, cols, vals = rows[use], cols[use], vals[use]
-    if unreached_penalty_s is not None:
-        keep = vals < unreached_penalty_s  # never better than staying unassigned
-        rows, cols, vals = rows[keep], cols[keep], vals[keep]
-    demand_rows = np.unique(rows)
-    if demand_rows.size == 0:
-        raise ModelError("travel_s: no site reaches any weighted demand point; widen the travel-time search")
-    # renumber the model's rows
-    rnum = np.full(n_dem, -1, dtype=np.int64)
-    rnum[demand_rows] = np.arange(demand_rows.size)
-    r_, h = rnum[rows], h_all[demand_rows]
-    m = demand_rows.size
-    far = unreached_penalty_s if unreached_penalty_s is not None else 1e3 * (float(vals.max()) + 1.0)
-    _, dfix, _ = _nearest_two(r_, cols, vals, fx, m, math.inf)
-    if fx.any():  # keep pairs no slower than the nearest fixed site (ties: the fixed site itself stays)
-        fixed_best, _, _ = _nearest_two(r_, cols, vals, fx, m, math.inf)
-        keep = (vals < dfix[r_]) | (cols == fixed_best[r_])
-    else:
-        keep = np.ones(r_.size, dtype=bool)
-    mr, mc, mv = r_[keep], cols[keep], vals[keep]
-    npair = mr.size
-    link_pairs = np.flatnonzero(~fx[mc])
-    xcol = np.full(n_sites, -1, dtype=np.int64)
-    xcol[free] = np.arange(free.size)
-    nf = free.size
-    penal = unreached_penalty_s is not None
-    nu = m if penal else 0
-    nvar = nf + npair + nu
-    assign = sp.csr_array(
-        (np.ones(npair + nu), (np.concatenate([mr, np.arange(nu)]), nf + np.arange(npair + nu))), shape=(m, nvar)
-    )
-    nl = link_pairs.size
-    link = sp.csr_array(
-        (
-            np.concatenate([np.ones(nl), -np.ones(nl)]),
-            (np.tile(np.arange(nl), 2), np.concatenate([nf + link_pairs, xcol[mc[link_pairs]]])),
-        ),
-        shape=(nl, nvar),
-    )
-    card = sp.csr_array(np.concatenate([np.ones(nf), np.zeros(npair + nu)])[None, :])
-    c = np.concatenate([np.zeros(nf), h[mr] * mv, h * far if penal else np.zeros(0)])
-    model = _Milp(
-        c=c,
-        integrality=np.concatenate([np.ones(nf), np.zeros(npair + nu)]),
-        lb=np.zeros(nvar),
-        ub=np.ones(nvar),
-        constraints=[
-            LinearConstraint(assign, 1.0, 1.0),
-            LinearConstraint(link, -np.inf, 0.0),
-            LinearConstraint(card, p, p),
-        ],
-        maximise=False,
-    )
-    wsum = float(h.sum())
-    status = None
-    if _use_milp(method, npair, MEDIAN_MILP_PAIR_LIMIT):
-        sol = _solve(model, time_limit_s, rel_gap)
-        if sol.status == "infeasible":
-            raise ModelError(
-                f"p: {p} new sites (with the fixed ones) cannot reach every demand point in travel_s; "
-                "raise p, widen the travel-time search or pass unreached_penalty_s"
-            )
-        if sol.x is not None:
-            new = free[np.flatnonzero(np.rint(sol.x[:nf]) > 0.5)]
-            method_used, status = "milp", sol.status
-            bound, source = sol.bound / wsum, "HiGHS dual bound"
-    if status is None:
-        new = _median_search(mr, mc, mv, h, fx, p, far)
-        method_used, status = "heuristic", "local optimum"
-        is_open = fx.copy()
+    (pt,) = _run_points(spec, [p], method, time_limit_s, rel_gap, chain=False)
+    return spec.result(pt, t0, p)
+
+
+class _MedianSpec(_Spec):
+    """The p-median over reachable pairs; columns are the non-fixed sites."""
+
+    maximise = False
+
+    def __init__(self, travel_s, weights, fixed, unreached_penalty_s):
+        all_r, all_c, all_v, (n_dem, n_sites) = _travel_pairs(travel_s)
+        rows, cols, vals = all_r, all_c, all_v
+        h_all = _check_weights(weights, n_dem)
+        fx = _check_fixed(fixed, n_sites)
+        if unreached_penalty_s is not None and not (
+            isinstance(unreached_penalty_s, int | float) and 0 < unreached_penalty_s < math.inf
+        ):
+            raise ModelError(f"unreached_penalty_s: {unreached_penalty_s!r} is not a positive number of seconds")
+        self.total_w = float(h_all.sum())
+        use = h_all[rows] > 0
+        rows, cols, vals = rows[use], cols[use], vals[use]
+        if unreached_penalty_s is not None:
+            keep = vals < unreached_penalty_s  # never better than staying unassigned
+            rows, cols, vals = rows[keep], cols[keep], vals[keep]
+        demand_rows = np.unique(rows)
+        if demand_rows.size == 0:
+            raise ModelError("travel_s: no site reaches any weighted demand point; widen the travel-time search")
+        rnum = np.full(n_dem, -1, dtype=np.int64)
+        rnum[demand_rows] = np.arange(demand_rows.size)
+        r_, h = rnum[rows], h_all[demand_rows]
+        m = demand_rows.size
+        far = unreached_penalty_s if unreached_penalty_s is not None else 1e3 * (float(vals.max()) + 1.0)
+        if fx.any():  # keep pairs no slower than the nearest fixed site (ties: the fixed site itself stays)
+            fixed_best, dfix, _ = _nearest_two(r_, cols, vals, fx, m, math.inf)
+            keep = (vals < dfix[r_]) | (cols == fixed_best[r_])
+        else:
+            keep = np.ones(r_.size, dtype=bool)
+        self.all = (all_r, all_c, all_v, n_dem)
+        self.r_, self.cols, self.vals = r_, cols, vals
+        self.mr, self.mc, self.mv = r_[keep], cols[keep], vals[keep]
+        self.h, self.h_all, self.fx, self.far, self.m = h, h_all, fx, float(far), m
+        self.penal = unreached_penalty_s is not None
+        self.free = np.flatnonzero(~fx)
+        self.wsum = float(h.sum())
+        self.milp_size = int(self.mr.size)
+        self.milp_limit = MEDIAN_MILP_PAIR_LIMIT
+        self._lam: np.ndarray | None = None
+        self._greedy: list[int] = []
+        self._solver: CurveSolver | None = None
+        self.tol = 1e-9
+
+    def _open(self, units: np.ndarray) -> np.ndarray:
+        is_open = self.fx.copy()
+        is_open[self.free[np.asarray(units) > 0]] = True
+        return is_open
+
+    def _units(self, is_open: np.ndarray) -> np.ndarray:
+        return is_open[self.free].astype(np.int64)
+
+    def cost(self, units: np.ndarray) -> float:
+        best, d1, _ = _nearest_two(self.mr, self.mc, self.mv, self._open(units), self.m, self.far)
+        return float(self.h @ np.where(best >= 0, d1, self.far))
+
+    def objective(self, units: np.ndarray) -> float:
+        return self.cost(units) / self.wsum
+
+    def better(self, a: np.ndarray, b: np.ndarray) -> bool:
+        return self.cost(a) < self.cost(b) - 1e-12 * max(self.wsum * self.far, 1.0)
+
+    def greedy_prefix(self, p: int) -> np.ndarray:
+        units = np.zeros(self.free.size, dtype=np.int64)
+        units[self._greedy[:p]] = 1
+        while len(self._greedy) < p:
+            nxt = self.best_add(units)
+            added = np.flatnonzero(nxt != units)
+            if added.size == 0:
+                break
+            self._greedy.append(int(added[0]))
+            units = nxt
+        return units
+
+    def best_add(self, units: np.ndarray) -> np.ndarray:
+        is_open = self._open(units)
+        if is_open.all():
+            return units.copy()
+        _, d1, _ = _nearest_two(self.mr, self.mc, self.mv, is_open, self.m, self.far)
+        hr = self.h[self.mr]
+        gain = np.bincount(self.mc, weights=hr * np.maximum(d1[self.mr] - self.mv, 0.0), minlength=self.fx.size)
+        gain[is_open] = -1.0
+        is_open[int(np.argmax(gain))] = True  # argmax: lowest index on ties
+        return self._units(is_open)
+
+    def local(self, units: np.ndarray, p: int) -> np.ndarray:
+        new = _median_search(self.mr, self.mc, self.mv, self.h, self.fx, p, self.far, start=self._open(units))
+        is_open = self.fx.copy()
         is_open[new] = True
-        b_h, d_h, _ = _nearest_two(r_, cols, vals, is_open, m, math.inf)
-        upper = float(h @ np.where(b_h >= 0, d_h, far))
-        nearest = np.full(m, math.inf)
-        np.minimum.at(nearest, mr, mv)
-        cheap = float(h @ np.minimum(nearest, far))
-        lagr = _median_lagrangian(mr, mc, h[mr] * mv, h * far if penal else None, fx, p, upper)
-        bound, source = (lagr, "Lagrangian relaxation") if lagr > cheap else (cheap, "nearest site for every point")
-        bound = min(bound, upper) / wsum
-    is_open = fx.copy()
-    is_open[new] = True
-    best, d1, _ = _nearest_two(r_, cols, vals, is_open, m, math.inf)
-    if not penal and (best < 0).any():
-        raise ModelError(
-            f"p: {p} new sites (with the fixed ones) leave {int((best < 0).sum())} reachable demand points "
-            "unreached; raise p, widen the travel-time search or pass unreached_penalty_s"
+        return self._units(is_open)
+
+    def cheap_bound(self, p: int) -> tuple[float, str]:
+        nearest = np.full(self.m, math.inf)
+        np.minimum.at(nearest, self.mr, self.mv)
+        return float(self.h @ np.minimum(nearest, self.far)) / self.wsum, "nearest site for every point"
+
+    def lp_bound(self, p: int, time_s: float, cand: np.ndarray | None = None) -> tuple[float, str]:
+        upper = self.cost(cand if cand is not None else self.local(self.greedy_prefix(p), p))
+        lagr, self._lam = _median_lagrangian(
+            self.mr,
+            self.mc,
+            self.h[self.mr] * self.mv,
+            self.h * self.far if self.penal else None,
+            self.fx,
+            p,
+            upper,
+            n_iter=1000,
+            time_limit_s=time_s,
+            lam0=self._lam,
         )
-    objective = float(h @ np.where(best >= 0, d1, far)) / wsum
-    # every point (zero-weight ones too, for maps) gets its nearest open site
-    assigned_site, assigned_s, _ = _nearest_two(all_r, all_c, all_v, is_open, n_dem, math.inf)
-    covered = float(h_all[assigned_site >= 0].sum())
-    return _result(
-        "p-median",
-        fx,
-        new,
-        objective,
-        covered,
-        total_w,
-        method_used,
-        status,
-        bound,
-        source,
-        t0,
-        p,
-        assigned_site=assigned_site,
-        assigned_s=assigned_s,
-    )
+        return min(lagr, upper) / self.wsum, "Lagrangian relaxation"
+
+    def solver(self, p: int) -> CurveSolver:
+        if self._solver is None:
+            mr, mc, mv, h, m, nf = self.mr, self.mc, self.mv, self.h, self.m, self.free.size
+            npair = mr.size
+            link_pairs = np.flatnonzero(~self.fx[mc])
+            xcol = np.full(self.fx.size, -1, dtype=np.int64)
+            xcol[self.free] = np.arange(nf)
+            nu = m if self.penal else 0
+            nvar = nf + npair + nu
+            assign = sp.csr_array(
+                (np.ones(npair + nu), (np.concatenate([mr, np.arange(nu)]), nf + np.arange(npair + nu))),
+                shape=(m, nvar),
+            )
+            nl = link_pairs.size
+            link = sp.csr_array(
+                (
+                    np.concatenate([np.ones(nl), -np.ones(nl)]),
+                    (np.tile(np.arange(nl), 2), np.concatenate([nf + link_pairs, xcol[mc[link_pairs]]])),
+                ),
+                shape=(nl, nvar),
+            )
+            card = sp.csr_array(np.concatenate([np.ones(nf), np.zeros(npair + nu)])[None, :])
+            c = np.concatenate([np.zeros(nf), h[mr] * mv, h * self.far if self.penal else np.zeros(0)]) / self.wsum
+            self._solver = CurveSolver(
+                _milp(
+                    c=c,
+                    integrality=np.concatenate([np.ones(nf), np.zeros(npair + nu)]),
+                    lb=np.zeros(nvar),
+                    ub=np.ones(nvar),
+                    constraints=[(assign, 1.0, 1.0), (link, -np.inf, 0.0), (card, 0.0, 0.0)],
+                    maximise=False,
+                )
+            )
+            self._card_row = m + nl
+        self._solver.set_row_bounds(self._card_row, float(p), float(p))
+        return self._solver
+
+    def exact(self, p: int, start: np.ndarray, time_s: float, rel_gap: float):
+        solver = self.solver(p)
+        nf = self.free.size
+        best, _, _ = _nearest_two(self.mr, self.mc, self.mv, self._open(start), self.m, self.far)
+        z = ((best[self.mr] == self.mc) & (best[self.mr] >= 0)).astype(float)
+        u = (best < 0).astype(float) if self.penal else np.zeros(0)
+        if not self.penal and (best < 0).any():
+            x0 = None
+        else:
+            x0 = np.concatenate([start.astype(float), z, u])
+        ans = (
+            solver.solve(x0, self.objective(start), time_s, rel_gap)
+            if x0 is not None
+            else solver.mip.run(time_s, rel_gap)
+        )
+        units = None if ans.x is None else (np.rint(ans.x[:nf]) > 0.5).astype(np.int64)
+        return units, ans.bound, ans.proven
+
+    def result(self, pt: _Point, t0: float, p: int) -> SitingResult:
+        is_open = self._open(pt.units)
+        best, d1, _ = _nearest_two(self.r_, self.cols, self.vals, is_open, self.m, math.inf)
+        if not self.penal and (best < 0).any():
+            raise ModelError(
+                f"p: {p} new sites (with the fixed ones) leave {int((best < 0).sum())} reachable demand points "
+                "unreached; raise p, widen the travel-time search or pass unreached_penalty_s"
+            )
+        objective = float(self.h @ np.where(best >= 0, d1, self.far)) / self.wsum
+        all_r, all_c, all_v, n_dem = self.all
+        # every point (zero-weight ones too, for maps) gets its nearest open site
+        assigned_site, assigned_s, _ = _nearest_two(all_r, all_c, all_v, is_open, n_dem, math.inf)
+        covered = float(self.h_all[assigned_site >= 0].sum())
+        return _result(
+            "p-median",
+            self.fx,
+            self.free[np.flatnonzero(pt.units)],
+            objective,
+            covered,
+            self.total_w,
+            pt.method,
+            pt.status,
+            pt.bound,
+            pt.bound_source,
+            t0,
+            p,
+            assigned_site=assigned_site,
+            assigned_s=assigned_s,
+        )
 
 
 # ---------------------------------------------------------------------------------------------------------------
@@ -1347,6 +1717,109 @@ def rank_candidates(covers: ArrayLike, weights: ArrayLike | None, fixed: ArrayLi
     )
 
 
+CURVE_MODELS = ("mclp", "backup", "mexclp", "p-median")
+
+
+def siting_curve(
+    model: str,
+    data: ArrayLike,
+    weights: ArrayLike | None,
+    max_new: int,
+    fixed: ArrayLike | None = None,
+    *,
+    q: float | None = None,
+    theta: float | None = None,
+    capacity: ArrayLike | None = None,
+    existing_units: ArrayLike | None = None,
+    unreached_penalty_s: float | None = None,
+    method: str = "auto",
+    time_limit_s: float = DEFAULT_TIME_LIMIT_S,
+    rel_gap: float = DEFAULT_REL_GAP,
+) -> list[SitingResult]:
+    """One model solved for ``p = 0 .. max_new`` new sites (MEXCLP: units), within one time budget for them all.
+
+    Each ``p`` starts from the better of greedy plus interchange and the answer for ``p - 1`` plus its best
+    addition, so the curve never falls by construction: covered demand (MCLP; backup's single cover, then double;
+    MEXCLP's expected cover) never decreases, and the p-median's mean travel time never increases. Unused time of
+    one ``p`` passes to the next. Each result says whether it is proven optimal, the solver's best or the
+    heuristic's, and its gap to the bound.
+
+    Parameters
+    ----------
+    model
+        ``"mclp"``, ``"backup"``, ``"mexclp"`` or ``"p-median"``.
+    data
+        The coverage matrix (covering models) or travel seconds (p-median), as for the single-``p`` functions.
+    weights, fixed, method, rel_gap
+        As for :func:`mclp`.
+    max_new
+        The largest ``p`` on the curve.
+    q, capacity, existing_units
+        MEXCLP, as for :func:`mexclp`.
+    theta
+        Backup, as for :func:`backup_coverage`.
+    unreached_penalty_s
+        p-median, as for :func:`p_median`.
+    time_limit_s
+        Seconds for the whole curve.
+    """
+    _check_method(method)
+    _check_time(time_limit_s, rel_gap)
+    if model not in CURVE_MODELS:
+        raise ModelError(f"model: {model!r} is not one of {', '.join(CURVE_MODELS)}; pick one of them")
+    if model == "p-median":
+        spec = _MedianSpec(data, weights, fixed, unreached_penalty_s)
+        max_new = _check_p(max_new, spec.free.size)
+    else:
+        cv = _prepare_cover(data, weights, fixed)
+        if model == "mexclp":
+            if not (isinstance(q, int | float) and 0 <= q < 1):
+                raise ModelError(f"q: busy fraction {q!r} is outside [0, 1); pass the share of time a unit is busy")
+            if isinstance(max_new, bool) or not isinstance(max_new, int | np.integer) or max_new < 0:
+                raise ModelError(f"p: {max_new!r} is not a whole number >= 0; pass the number of new units")
+            max_new = int(max_new)
+            n = cv.n_sites
+            cap = _int_vector(capacity, n, "capacity", np.full(n, max_new))
+            existing = _int_vector(existing_units, n, "existing_units", cv.fixed.astype(np.int64))
+            if max_new > int(cap.sum()):
+                raise ModelError(f"p: {max_new} new units exceed the total site capacity {int(cap.sum())}")
+            spec = _MexclpSpec(cv, q, cap, existing, max_new)
+        else:
+            max_new = _check_p(max_new, cv.free.size)
+            if model == "backup":
+                if theta is not None and not (isinstance(theta, int | float) and 0 < theta < 1):
+                    raise ModelError(f"theta: {theta!r} is outside (0, 1); pass e.g. 0.5, or None")
+                spec = _BackupSpec(cv, theta)
+            else:
+                spec = _MclpSpec(cv)
+    t0 = time.perf_counter()
+    note(f"siting: {model} curve for 0..{max_new} new sites, {time_limit_s:g} s in all")
+    points = _run_points(spec, list(range(max_new + 1)), method, time_limit_s, rel_gap, chain=True)
+    return [spec.result(pt, t0, p) for p, pt in enumerate(points)]
+
+
+def curve_frame(results: list[SitingResult]) -> pd.DataFrame:
+    """A curve as a table: one row per ``p`` with the objective, its bound and gap, and who found the answer."""
+    return pd.DataFrame.from_records(
+        [
+            {
+                "new_sites": r.p,
+                "objective": r.objective,
+                "bound": r.bound,
+                "gap": r.mip_gap,
+                "covered_weight": r.covered_weight,
+                "covered_share": r.covered_share,
+                "second_weight": r.second_weight,
+                "sites": " ".join(str(s) for s in r.sites),
+                "method": r.method,
+                "status": r.status,
+                "bound_source": r.bound_source,
+            }
+            for r in results
+        ]
+    )
+
+
 def coverage_curve(
     covers: ArrayLike,
     weights: ArrayLike | None,
@@ -1357,32 +1830,16 @@ def coverage_curve(
     time_limit_s: float = DEFAULT_TIME_LIMIT_S,
     rel_gap: float = DEFAULT_REL_GAP,
 ) -> pd.DataFrame:
-    """Covered share against the number of new sites, ``p = 0 .. max_new``, each ``p`` solved as its own MCLP.
+    """The MCLP curve, ``p = 0 .. max_new`` (see :func:`siting_curve`), as a table.
 
-    The sets need not nest: the best three sites need not contain the best two. Columns: ``new_sites``,
-    ``covered_weight``, ``covered_share``, ``gain_share`` (over ``p - 1``), ``sites`` (space-separated indices),
-    ``method``, ``status``, ``mip_gap``.
+    Columns as :func:`curve_frame` plus ``gain_share`` (over ``p - 1``, never negative) and ``mip_gap`` (= ``gap``).
 
-    Source: each point is an MCLP optimum, Church & ReVelle (1974).
+    Source: each point is an MCLP answer, Church & ReVelle (1974).
     """
-    _check_method(method)
-    _check_time(time_limit_s, rel_gap)
-    cv = _prepare_cover(covers, weights, fixed)
-    max_new = _check_p(max_new, cv.free.size)
-    records = []
-    for p in counted(range(max_new + 1), max_new + 1, "coverage curve: p", every=1):
-        res = _mclp_solve(cv, p, method, time_limit_s, rel_gap)
-        records.append(
-            {
-                "new_sites": p,
-                "covered_weight": res.covered_weight,
-                "covered_share": res.covered_share,
-                "sites": " ".join(str(s) for s in res.sites),
-                "method": res.method,
-                "status": res.status,
-                "mip_gap": res.mip_gap,
-            }
-        )
-    df = pd.DataFrame.from_records(records)
-    df.insert(3, "gain_share", df["covered_share"].diff().fillna(0.0))
+    res = siting_curve(
+        "mclp", covers, weights, max_new, fixed, method=method, time_limit_s=time_limit_s, rel_gap=rel_gap
+    )
+    df = curve_frame(res)
+    df.insert(df.columns.get_loc("covered_share") + 1, "gain_share", df["covered_share"].diff().fillna(0.0))
+    df["mip_gap"] = df["gap"]
     return df

@@ -482,7 +482,6 @@ def test_site_relocate_is_never_worse_than_the_existing_layout(demo_net, tmp_pat
     assert got == pytest.approx(best, rel=1e-9)
 
 
-@pytest.mark.xfail(strict=True, reason="issue 10 item 7: --relocate prints a 0 % baseline")
 def test_site_relocate_baseline_is_the_existing_layout(demo_net, tmp_path, problem):
     """The baseline ("before") of a relocation is the existing layout's covered share (design: before/after)."""
     prob, cov, w = problem

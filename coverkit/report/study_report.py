@@ -299,20 +299,32 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
     return out
 
 
+def site_curve_values(model: str, curve: pd.DataFrame) -> tuple[list[float], str]:
+    """The curve's own value per point: what the model optimises (MCLP and LSCP: covered share)."""
+    if model == "p-median":
+        return list(curve["objective"] / 60), "mean travel time (min)"
+    if model == "backup":
+        return list(curve["second_share"] * 100), "demand covered twice (%)"
+    if model == "mexclp":
+        return list(curve["objective"]), "expected demand covered"
+    return list(curve["covered_share"] * 100), "demand covered (%)"
+
+
 def site_curve_chart(plan: object, out_png: Path, standard_text: str = "") -> Path:
     """The siting curve: covered share against whole numbers of new sites, each point labelled with its sites."""
     curve = plan.curve
     model = plan.summary.get("model", "mclp")
+    values, label = site_curve_values(model, curve)
     labels = [str(v) if v else "" for v in curve.get("site_ids", pd.Series([""] * len(curve))).fillna("")]
     return line_chart(
         out_png,
         curve["new_sites"].to_numpy(),
-        {"covered %": curve["covered_share"].to_numpy() * 100},
-        "new sites",
-        "demand covered (%)",
-        "Coverage curve",
+        {label: np.asarray(values, dtype=float)},
+        "new units" if model == "mexclp" else "new sites",
+        label,
+        f"{model} curve",
         note=(f"{standard_text}. " if standard_text else "")
-        + f"Each point is the best {model.upper()} choice for that many new sites "
+        + f"Each point is the {model} answer for that many new sites, started from the one before "
         f"({_MODEL_SOURCES.get(model, '')}); labels name the sites.",
         whole_x=True,
         point_labels=labels,
