@@ -37,3 +37,36 @@ def helsinki_network(helsinki_pbf):
 
     net, report = build_network(helsinki_pbf, "emergency")
     return net, report
+
+
+@pytest.fixture(scope="session")
+def demo_net_path(tmp_path_factory) -> Path:
+    """The demo county's network, built once and saved as a GeoPackage (the form every CLI command reads)."""
+    from coverkit.network import build_network
+
+    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
+    return net.save(tmp_path_factory.mktemp("demo-net") / "net.gpkg")
+
+
+def site_cli(net_path: Path, out: Path, *extra: str) -> int:
+    """``coverkit site`` on the demo county's stations, candidates and population at 8 min, plus ``extra``."""
+    from coverkit.cli import main
+
+    return main(
+        [
+            "site",
+            str(net_path),
+            "--bases",
+            str(DEMO / "stations.csv"),
+            "--candidates",
+            str(DEMO / "candidates.csv"),
+            "--demand",
+            str(DEMO / "population.tif"),
+            "--minutes",
+            "8",
+            "--out",
+            str(out),
+            "--quiet",
+            *extra,
+        ]
+    )

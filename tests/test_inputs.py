@@ -288,14 +288,6 @@ def test_bases_stay_strict(tmp_path):
     assert "line 3 is at 0,0" in _one_line(exc)
 
 
-@pytest.fixture(scope="module")
-def demo_net_path(tmp_path_factory):
-    from coverkit.network import build_network
-
-    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
-    return net.save(tmp_path_factory.mktemp("net") / "net.gpkg")
-
-
 def test_cli_cover_reports_and_writes_the_rejected_rows(demo_net_path, tmp_path, capsys):
     """Through the command a new user runs: the rejected rows in the summary and in the ``rejected_<demand>`` layer."""
     import pyogrio

@@ -21,44 +21,15 @@ from coverkit.network import RoadNetwork, build_network
 from coverkit.site_plan import build_problem
 from coverkit.travel import read_points
 
-from .conftest import DEMO
+from .conftest import DEMO, site_cli
 
 
-@pytest.fixture(scope="module")
-def net_path(tmp_path_factory):
-    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
-    path = tmp_path_factory.mktemp("n") / "net.gpkg"
-    net.save(path)
-    return path
-
-
-def _site(net_path, out, *extra):
-    return main(
-        [
-            "site",
-            str(net_path),
-            "--bases",
-            str(DEMO / "stations.csv"),
-            "--candidates",
-            str(DEMO / "candidates.csv"),
-            "--demand",
-            str(DEMO / "population.tif"),
-            "--minutes",
-            "8",
-            "--out",
-            str(out),
-            "--quiet",
-            *extra,
-        ]
-    )
-
-
-def test_mclp_choice_is_the_enumerated_optimum_and_coverage_agrees(net_path, tmp_path):
+def test_mclp_choice_is_the_enumerated_optimum_and_coverage_agrees(demo_net_path, tmp_path):
     out = tmp_path / "site.gpkg"
-    assert _site(net_path, out, "--add", "2", "--model", "mclp") == 0
+    assert site_cli(demo_net_path, out, "--add", "2", "--model", "mclp") == 0
     chosen = gpd.read_file(out, layer="site_chosen")
     assert len(chosen) == 2
-    net = RoadNetwork.load(net_path)
+    net = RoadNetwork.load(demo_net_path)
     bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
     cands = read_points(DEMO / "candidates.csv", net.crs, what="candidates")
     demand = load_demand(DEMO / "population.tif", net)
@@ -82,18 +53,18 @@ def test_mclp_choice_is_the_enumerated_optimum_and_coverage_agrees(net_path, tmp
     assert (tmp_path / "maps" / "site_curve.png").is_file()
 
 
-def test_rank_lists_every_candidate_alone(net_path, tmp_path):
+def test_rank_lists_every_candidate_alone(demo_net_path, tmp_path):
     out = tmp_path / "rank.gpkg"
-    assert _site(net_path, out, "--rank") == 0
+    assert site_cli(demo_net_path, out, "--rank") == 0
     ranking = gpd.read_file(out, layer="site_ranking")
     src = pd.read_csv(DEMO / "candidates.csv")
     assert sorted(ranking["id"].astype(str)) == sorted(src["id"].astype(str))
     assert ranking["added_weight"].is_monotonic_decreasing
 
 
-def test_lscp_target_is_reached_with_fewest_sites(net_path, tmp_path):
+def test_lscp_target_is_reached_with_fewest_sites(demo_net_path, tmp_path):
     out = tmp_path / "lscp.gpkg"
-    assert _site(net_path, out, "--model", "lscp", "--target", "0.95") == 0
+    assert site_cli(demo_net_path, out, "--model", "lscp", "--target", "0.95") == 0
     summary = gpd.read_file(out, layer="site_summary").iloc[0]
     curve = gpd.read_file(out, layer="site_curve")
     assert summary["covered_share_after"] >= 0.95
@@ -101,7 +72,7 @@ def test_lscp_target_is_reached_with_fewest_sites(net_path, tmp_path):
     assert len(curve) > 0
     # one site fewer cannot reach the target: exhaustive enumeration of every set of n - 1 candidates (Toregas et
     # al. 1971 define the LSCP; enumeration is the reference), on the coverage matrix of the same instance
-    net = RoadNetwork.load(net_path)
+    net = RoadNetwork.load(demo_net_path)
     bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
     cands = read_points(DEMO / "candidates.csv", net.crs, what="candidates")
     demand = load_demand(DEMO / "population.tif", net)
@@ -124,7 +95,7 @@ def test_lscp_target_is_reached_with_fewest_sites(net_path, tmp_path):
     assert w[reached].sum() / w.sum() == pytest.approx(summary["covered_share_after"], rel=1e-9)
 
 
-def test_site_bad_input(net_path, tmp_path, capsys):
+def test_site_bad_input(demo_net_path, tmp_path, capsys):
     far = pd.DataFrame({"id": ["X1"], "name": ["at sea"], "lon": [-36.5], "lat": [41.0]})
     path = tmp_path / "far.csv"
     far.to_csv(path, index=False)
@@ -132,7 +103,7 @@ def test_site_bad_input(net_path, tmp_path, capsys):
     code = main(
         [
             "site",
-            str(net_path),
+            str(demo_net_path),
             "--bases",
             str(DEMO / "stations.csv"),
             "--candidates",
@@ -149,18 +120,18 @@ def test_site_bad_input(net_path, tmp_path, capsys):
         ]
     )
     assert code == 2 and "X1" in capsys.readouterr().err
-    assert _site(net_path, out, "--add", "20") == 2
+    assert site_cli(demo_net_path, out, "--add", "20") == 2
     err = capsys.readouterr().err
     assert "--add 20" in err and len(err.strip().splitlines()) == 1
     assert not out.exists()
 
 
-def test_availability_units_table_and_workloads(net_path, tmp_path, capsys):
+def test_availability_units_table_and_workloads(demo_net_path, tmp_path, capsys):
     out = tmp_path / "avail.gpkg"
     code = main(
         [
             "availability",
-            str(net_path),
+            str(demo_net_path),
             "--bases",
             str(DEMO / "stations.csv"),
             "--demand",
@@ -206,11 +177,11 @@ def test_availability_units_table_and_workloads(net_path, tmp_path, capsys):
     assert "availability-adjusted" in text and "Planning estimates only" in text
 
 
-def test_availability_unstable_queue_is_a_clear_error(net_path, tmp_path, capsys):
+def test_availability_unstable_queue_is_a_clear_error(demo_net_path, tmp_path, capsys):
     code = main(
         [
             "availability",
-            str(net_path),
+            str(demo_net_path),
             "--bases",
             str(DEMO / "stations.csv"),
             "--demand",
@@ -230,7 +201,7 @@ def test_availability_unstable_queue_is_a_clear_error(net_path, tmp_path, capsys
     assert code == 2 and "unstable" in err and len(err.strip().splitlines()) == 1
 
 
-def test_calibrate_writes_a_profile_the_network_builder_accepts(net_path, tmp_path, capsys):
+def test_calibrate_writes_a_profile_the_network_builder_accepts(demo_net_path, tmp_path, capsys):
     """The written profile loads and builds; its factors are the starting factors times the fitted multipliers."""
     from coverkit.network import load_profile
 
@@ -238,7 +209,7 @@ def test_calibrate_writes_a_profile_the_network_builder_accepts(net_path, tmp_pa
     code = main(
         [
             "calibrate",
-            str(net_path),
+            str(demo_net_path),
             "--observed",
             str(DEMO / "observed_times.csv"),
             "--bases",
@@ -273,7 +244,7 @@ def test_calibrate_writes_a_profile_the_network_builder_accepts(net_path, tmp_pa
     assert (tmp_path / "c.png").is_file()
 
 
-def test_calibrate_unknown_base_id_names_the_row(net_path, tmp_path, capsys):
+def test_calibrate_unknown_base_id_names_the_row(demo_net_path, tmp_path, capsys):
     obs = pd.read_csv(DEMO / "observed_times.csv").head(30)
     obs.loc[4, "base_id"] = "S99"
     path = tmp_path / "obs.csv"
@@ -282,7 +253,7 @@ def test_calibrate_unknown_base_id_names_the_row(net_path, tmp_path, capsys):
     code = main(
         [
             "calibrate",
-            str(net_path),
+            str(demo_net_path),
             "--observed",
             str(path),
             "--bases",
@@ -298,11 +269,11 @@ def test_calibrate_unknown_base_id_names_the_row(net_path, tmp_path, capsys):
 
 
 @pytest.mark.parametrize("model", ["mclp", "p-median"])
-def test_heuristic_is_within_one_percent_of_the_exact_optimum_on_the_demo(net_path, model):
+def test_heuristic_is_within_one_percent_of_the_exact_optimum_on_the_demo(demo_net_path, model):
     """Greedy plus interchange against HiGHS on the demo county (stated gap: 1 % of the objective)."""
     from coverkit.site_plan import solve
 
-    net = RoadNetwork.load(net_path)
+    net = RoadNetwork.load(demo_net_path)
     bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
     cands = read_points(DEMO / "candidates.csv", net.crs, what="candidates")
     demand = load_demand(DEMO / "population.tif", net)

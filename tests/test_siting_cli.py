@@ -13,46 +13,16 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from coverkit.cli import main
 from coverkit.coverage import Standard, evaluate_coverage
 from coverkit.demand import load_demand
-from coverkit.network import RoadNetwork, build_network
+from coverkit.network import RoadNetwork
 from coverkit.travel import read_points
 
-from .conftest import DEMO
+from .conftest import DEMO, site_cli
 
 
-@pytest.fixture(scope="module")
-def net_path(tmp_path_factory):
-    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
-    path = tmp_path_factory.mktemp("n") / "net.gpkg"
-    net.save(path)
-    return path
-
-
-def _site(net_path, out, *extra):
-    return main(
-        [
-            "site",
-            str(net_path),
-            "--bases",
-            str(DEMO / "stations.csv"),
-            "--candidates",
-            str(DEMO / "candidates.csv"),
-            "--demand",
-            str(DEMO / "population.tif"),
-            "--minutes",
-            "8",
-            "--out",
-            str(out),
-            "--quiet",
-            *extra,
-        ]
-    )
-
-
-def _coverage_of(net_path, ids):
-    net = RoadNetwork.load(net_path)
+def _coverage_of(demo_net_path, ids):
+    net = RoadNetwork.load(demo_net_path)
     bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
     cands = read_points(DEMO / "candidates.csv", net.crs, what="candidates")
     pts = pd.concat([bases[["id", "geometry"]], cands[["id", "geometry"]]], ignore_index=True)
@@ -65,14 +35,14 @@ def _existing_ids():
     return list(pd.read_csv(DEMO / "stations.csv")["id"].astype(str))
 
 
-def test_p_median_prints_the_share_within_the_standard_and_its_mean_time(net_path, tmp_path, capsys):
+def test_p_median_prints_the_share_within_the_standard_and_its_mean_time(demo_net_path, tmp_path, capsys):
     """Before the fix the p-median printed the share reached at all (99.8 %) as "covered"."""
     out = tmp_path / "pm.gpkg"
-    assert _site(net_path, out, "--model", "p-median", "--add", "2") == 0
+    assert site_cli(demo_net_path, out, "--model", "p-median", "--add", "2") == 0
     text = capsys.readouterr().out
-    summary = gpd.read_file(out, layer="summary").iloc[0]
-    chosen = gpd.read_file(out, layer="chosen")
-    res = _coverage_of(net_path, _existing_ids() + list(chosen["id"].astype(str)))
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
+    chosen = gpd.read_file(out, layer="site_chosen")
+    res = _coverage_of(demo_net_path, _existing_ids() + list(chosen["id"].astype(str)))
     s = res.summary()
     assert summary["covered_share_after"] == pytest.approx(s["covered_share"], rel=1e-9)
     assert f"after {s['covered_share'] * 100:.1f} %" in text
@@ -85,28 +55,28 @@ def test_p_median_prints_the_share_within_the_standard_and_its_mean_time(net_pat
     assert "mean travel time" in text
 
 
-def test_backup_prints_its_own_objective_and_curve(net_path, tmp_path, capsys):
+def test_backup_prints_its_own_objective_and_curve(demo_net_path, tmp_path, capsys):
     """Backup's objective is demand covered twice; its curve is its own, not MCLP's."""
     out = tmp_path / "bk.gpkg"
-    assert _site(net_path, out, "--model", "backup", "--add", "2") == 0
+    assert site_cli(demo_net_path, out, "--model", "backup", "--add", "2") == 0
     text = capsys.readouterr().out
-    summary = gpd.read_file(out, layer="summary").iloc[0]
-    chosen = gpd.read_file(out, layer="chosen")
-    s = _coverage_of(net_path, _existing_ids() + list(chosen["id"].astype(str))).summary()
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
+    chosen = gpd.read_file(out, layer="site_chosen")
+    s = _coverage_of(demo_net_path, _existing_ids() + list(chosen["id"].astype(str))).summary()
     assert summary["objective"] == pytest.approx(s["covered_twice_or_more"], rel=1e-9)
     assert "demand covered twice" in text and "backup curve" in text
-    curve = gpd.read_file(out, layer="curve")
+    curve = gpd.read_file(out, layer="site_curve")
     assert curve.loc[curve["new_sites"] == 2, "objective"].iloc[0] == pytest.approx(s["covered_twice_or_more"])
     assert curve["objective"].is_monotonic_increasing or curve["covered_share"].is_monotonic_increasing
 
 
-def test_relocate_baseline_is_the_existing_layout(net_path, tmp_path, capsys):
+def test_relocate_baseline_is_the_existing_layout(demo_net_path, tmp_path, capsys):
     """Before the fix `--relocate` printed "covered before 0.0 %" and an infinite response time."""
     out = tmp_path / "rl.gpkg"
-    assert _site(net_path, out, "--model", "mclp", "--add", "3", "--relocate") == 0
+    assert site_cli(demo_net_path, out, "--model", "mclp", "--add", "3", "--relocate") == 0
     text = capsys.readouterr().out
-    summary = gpd.read_file(out, layer="summary").iloc[0]
-    s = _coverage_of(net_path, _existing_ids()).summary()
+    summary = gpd.read_file(out, layer="site_summary").iloc[0]
+    s = _coverage_of(demo_net_path, _existing_ids()).summary()
     assert summary["covered_share_before"] == pytest.approx(s["covered_share"], rel=1e-9)
     assert summary["fractile_response_before_s"] == pytest.approx(s["fractile_response_s"], rel=1e-9)
     assert f"before {s['covered_share'] * 100:.1f} %" in text and "inf" not in text.split("chosen")[0]
