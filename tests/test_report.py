@@ -293,7 +293,7 @@ def test_gaps_are_filled_and_shaded_by_the_demand_they_hold(tmp_path):
     west = shapely.box(X0, Y0, X0 + 1400, Y0 + 2500)
     east = shapely.box(X0 + 1600, Y0, X0 + 3000, Y0 + 2500)
     gaps = gpd.GeoDataFrame(
-        {"gap_id": [1, 2], "population": [4.0, 2500.0], "incidents": [0, 1]}, geometry=[west, east], crs=CRS
+        {"gap_id": [1, 2], "uncovered_people": [4.0, 2500.0], "uncovered_calls": [0, 1]}, geometry=[west, east], crs=CRS
     )
     bounds = [X0, Y0, X0 + 3000, Y0 + 2500]
     img = mpimg.imread(maps.gaps_map(tmp_path / "g.png", gaps, None, None, "Gaps", STD, label_top=0))[..., :3]

@@ -205,7 +205,9 @@ def neighbour_colors(geoms: np.ndarray, group: np.ndarray, n_colors: int) -> dic
     return {k: int(colour[i]) for i, k in enumerate(keys)}
 
 
-def rank_gaps(gaps: gpd.GeoDataFrame, value_column: str = "population", count_column: str = "incidents") -> np.ndarray:
+def rank_gaps(
+    gaps: gpd.GeoDataFrame, value_column: str = "uncovered_people", count_column: str = "uncovered_calls"
+) -> np.ndarray:
     """Row positions of ``gaps`` ordered by ``value_column`` (largest first), then ``count_column``, then ``gap_id``."""
     return _rank(gaps, value_column, count_column if count_column in gaps.columns else None)
 
@@ -792,9 +794,9 @@ def gaps_map(
     standard_text: str,
     label_top: int = 5,
     *,
-    value_column: str = "population",
+    value_column: str = "uncovered_people",
     value_unit: str = "people",
-    count_column: str | None = "incidents",
+    count_column: str | None = "uncovered_calls",
     count_unit: str = "calls",
     frame: MapFrame | None = None,
 ) -> Path:

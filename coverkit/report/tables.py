@@ -34,8 +34,9 @@ HEADINGS: dict[str, str] = {
     "reaches_in_standard": "demand reached in the standard",
     "sole_cover": "covered by this base alone",
     "gap_id": "gap",
-    "population": "people not covered",
-    "incidents": "calls not covered",
+    "uncovered_people": "people not covered",
+    "uncovered_calls": "calls not covered",
+    "uncovered_demand": "demand not covered",
     "added_demand": "demand added",
     "added_weight": "demand added",
     "only_this_site": "demand only this site covers",
@@ -69,7 +70,8 @@ MINUTES = {"fractile_response_s", "expected_travel_s", "drive_time_fractile_s", 
            "fractile_response_after_s", "travel_s", "response_s"}  # fmt: skip
 #: Columns holding counts or demand (people, calls): whole numbers.
 WHOLE = {"demand_total", "covered", "uncovered", "covered_once", "covered_twice_or_more", "off_network",
-         "first_due_demand", "first_due_covered", "reaches_in_standard", "sole_cover", "population", "incidents",
+         "first_due_demand", "first_due_covered", "reaches_in_standard", "sole_cover", "uncovered_people",
+         "uncovered_calls", "uncovered_demand",
          "added_demand", "added_weight", "added_second_weight", "only_this_site", "lost_weight", "gained_weight",
          "demand", "weight", "points", "n", "n_routes", "new_sites", "calls"}  # fmt: skip
 #: Speed factors and multipliers: two decimals (1.05 and 1.15 must not both read 1.1).
