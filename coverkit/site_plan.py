@@ -108,6 +108,11 @@ class SitingProblem:
         )
 
     @property
+    def existing_units(self) -> np.ndarray:
+        """Units already at each site (the bases' ``units``, default one; none at candidates or free sites)."""
+        return np.where(self.fixed, self.sites["units"].to_numpy(dtype=np.int64), 0)
+
+    @property
     def weights(self) -> np.ndarray:
         """Demand weights; off-network demand keeps its weight (it counts as not coverable)."""
         return self.demand["weight"].to_numpy(dtype=float)
@@ -142,8 +147,14 @@ def build_problem(
         raise CoverkitError(f"candidate id '{dup[0]}' is also a base id; give candidates ids of their own.")
     sites = pd.concat(
         [
-            bases[["id", "geometry"]].assign(kind="existing", name=bases.get("name", bases["id"])),
-            candidates[["id", "geometry"]].assign(kind="candidate", name=candidates.get("name", candidates["id"])),
+            bases[["id", "geometry"]].assign(
+                kind="existing",
+                name=bases.get("name", bases["id"]),
+                units=pd.to_numeric(bases["units"]).astype(int) if "units" in bases else 1,
+            ),
+            candidates[["id", "geometry"]].assign(
+                kind="candidate", name=candidates.get("name", candidates["id"]), units=0
+            ),
         ],
         ignore_index=True,
     )
@@ -231,7 +242,7 @@ def solve(
         if model != "mexclp":
             n_curve = min(n_curve, n_free)
         data = problem.travel_matrix() if model == "p-median" else covers
-        extra = {"q": q} if model == "mexclp" else {}
+        extra = {"q": q, "existing_units": problem.existing_units} if model == "mexclp" else {}
         if model == "p-median":
             extra = {"unreached_penalty_s": problem.table.horizon_s}
         curve_res = siting.siting_curve(model, data, w, n_curve, fixed, time_limit_s=time_limit_s, **extra, **kw)
@@ -313,7 +324,7 @@ def chosen_table(
     units_all = np.zeros(covers.shape[1])
     units_all[np.asarray(res.open_sites, dtype=int)] = 1.0
     if res.units is not None:
-        units_all = problem.fixed.astype(float) + res.units
+        units_all = problem.existing_units.astype(float) + res.units
     k = counts @ units_all
     everyone = np.asarray(counts.sum(axis=1)).ravel()
     rows = []

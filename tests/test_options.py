@@ -420,11 +420,6 @@ def test_site_backup_through_the_cli_is_the_enumerated_lexicographic_optimum(dem
         assert row.added_demand == pytest.approx(float(w[cov[:, j] & ~cov[:, fixed].any(axis=1)].sum()), rel=1e-9)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="new finding: site --model mexclp ignores the bases' units column (stations.csv) and assumes one unit "
-    "per station (objective 62,009 instead of the optimum 67,413 with the listed units)",
-)
 def test_site_mexclp_through_the_cli_is_the_enumerated_expected_coverage_optimum(demo_net, tmp_path, problem):
     """``--model mexclp --busy-fraction 0.3 --add 2``: with the stations' units (stations.csv ``units``) and two
     new units anywhere, the reported objective is the largest expected covered demand sum_i w_i (1 - q^k_i) over
