@@ -29,24 +29,38 @@ from coverkit.queueing import (
 )
 
 
-def call_rate_per_h(demand: gpd.GeoDataFrame, time_field: str = "received_at") -> float:
+def call_rate_per_h(
+    demand: gpd.GeoDataFrame,
+    time_field: str = "received_at",
+    *,
+    start: str | None = None,
+    end: str | None = None,
+) -> float:
     """Calls per hour from incident timestamps: (number of calls) / (span of the record in hours).
 
-    The span is from the first to the last timestamp; for a record of one calendar year this is close to
-    8,760 h. Raises :class:`FieldError` when the timestamps are missing or span less than one day.
+    The span is the time window the calls were selected from (``start`` to ``end``, ISO 8601) where it is given,
+    else from the first to the last timestamp; for a record of one calendar year this is close to 8,760 h. A window
+    bound left open falls back to the first or last timestamp. Raises :class:`FieldError` when the timestamps are
+    missing or the span is less than one day.
     """
     if time_field not in demand.columns:
         raise FieldError(
-            f"demand has no time field '{time_field}' to derive the call rate; give --calls-per-h or a time field."
+            f"demand has no time field '{time_field}' to derive the call rate; give the call rate (calls per hour) "
+            "or name the time field."
         )
     stamps = pd.to_datetime(demand[time_field], errors="coerce", format="ISO8601")
     if stamps.isna().any():
         raise FieldError(
-            f"field '{time_field}' has values that are not ISO 8601 times; fix them or give --calls-per-h."
+            f"field '{time_field}' has values that are not ISO 8601 times; fix them or give the call rate (calls per "
+            "hour)."
         )
-    span_h = (stamps.max() - stamps.min()).total_seconds() / 3600.0
-    if span_h < 24:
-        raise FieldError(f"the incidents span only {span_h:.1f} h; give --calls-per-h for so short a record.")
+    first = pd.Timestamp(start) if start else stamps.min()
+    last = pd.Timestamp(end) if end else stamps.max()
+    span_h = (last - first).total_seconds() / 3600.0
+    if not span_h >= 24:
+        raise FieldError(
+            f"the incidents span only {span_h:.1f} h; give the call rate (calls per hour) for so short a record."
+        )
     return float(demand["weight"].sum()) / span_h
 
 
@@ -71,6 +85,8 @@ def availability(
     method: str = "auto",
     time_field: str = "received_at",
     max_snap_m: float = 500.0,
+    *,
+    window: tuple[str | None, str | None] = (None, None),
 ) -> AvailabilityRun:
     """Hypercube model with closest-available dispatch on the road network's travel times.
 
@@ -90,9 +106,11 @@ def availability(
         ``"infinite"`` (calls wait) or ``"zero"`` (calls that find every unit busy are lost, e.g. to mutual aid).
     method
         ``"exact"`` (2^N states), ``"approx"`` (Larson 1975) or ``"auto"`` (exact for small N).
+    window
+        The (start, end) the incidents were selected from (ISO 8601, either open): the call rate is counted over it.
     """
     if not mean_service_min > 0:
-        raise ModelError(f"--service-min must be positive minutes, got {mean_service_min}.")
+        raise ModelError(f"the mean service time must be positive minutes, got {mean_service_min}.")
     units_per_station = (
         pd.to_numeric(bases["units"], errors="coerce").fillna(1).astype(int).to_numpy()
         if "units" in bases.columns
@@ -100,7 +118,7 @@ def availability(
     )
     if units_per_station.sum() == 0:
         raise ModelError("no units: every base has units = 0; give at least one unit.")
-    rate = float(calls_per_h) if calls_per_h else call_rate_per_h(demand, time_field)
+    rate = float(calls_per_h) if calls_per_h else call_rate_per_h(demand, time_field, start=window[0], end=window[1])
     # no horizon: a backup unit may come from far away, and its full travel time counts
     table = travel_table(net, bases, demand, np.inf, max_snap_m)
     dense = np.full((len(bases), len(demand)), np.inf)

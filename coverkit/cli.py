@@ -651,6 +651,7 @@ def _cmd_availability(args: argparse.Namespace) -> int:
         queue=args.queue,
         method=args.method,
         time_field=args.time_field,
+        window=(args.start, args.end),
     )
     layers = {
         layer_name("availability_units"): run.units,

@@ -681,6 +681,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         cfg = study.availability
         std = study.standard_named(cfg.get("standard"), "availability.standard")
         dname = study.demand_named(cfg.get("demand"), "availability.demand", "incidents")
+        options = {spec.name: spec.options for spec in study.demand}
         avail = run_availability(
             net,
             bases,
@@ -692,6 +693,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             method=cfg.get("method", "auto"),
             time_field=cfg.get("time_field", "received_at"),
             max_snap_m=snaps[dname],
+            window=(options[dname].get("start"), options[dname].get("end")),
         )
         avail.summary["demand"] = dname
         layers[layer_name("availability_units")] = avail.units
