@@ -12,6 +12,18 @@ REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "data" / "demo"
 
 
+def demo_study_head(name: str) -> str:
+    """The ``[study]``, ``[roads]`` and ``[bases]`` tables of a study file on the demo county (tests add the rest)."""
+    return f"""[study]
+name = "{name}"
+[roads]
+source = "{DEMO / "varrowby.osm.bz2"}"
+boundary = "{DEMO / "boundary.geojson"}"
+[bases]
+file = "{DEMO / "stations.csv"}"
+"""
+
+
 @pytest.fixture(autouse=True)
 def _quiet():
     set_quiet(True)

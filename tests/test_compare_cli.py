@@ -12,16 +12,11 @@ import pytest
 
 from coverkit.cli import main
 
-from .conftest import DEMO, REPO
+from .conftest import DEMO, REPO, demo_study_head
 
-STUDY = f"""
-[study]
-name = "compare test"
-[roads]
-source = "{DEMO / "varrowby.osm.bz2"}"
-boundary = "{DEMO / "boundary.geojson"}"
-[bases]
-file = "{DEMO / "stations.csv"}"
+STUDY = (
+    demo_study_head("compare test")
+    + f"""
 [[demand]]
 name = "residents"
 raster = "{DEMO / "population.tif"}"
@@ -33,6 +28,7 @@ name = "ALS 8 min"
 turnout_s = 60
 travel_s = 480
 """
+)
 
 
 @pytest.fixture(scope="module")

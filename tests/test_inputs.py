@@ -25,8 +25,8 @@ from coverkit.errors import FieldError
 from coverkit.travel.points import read_points
 from coverkit.where import filter_mask
 
-REPO = Path(__file__).resolve().parents[1]
-DEMO = REPO / "data" / "demo"
+from .conftest import DEMO, demo_study_head
+
 CRS = "EPSG:32625"  # the demo county's UTM zone
 
 
@@ -487,14 +487,9 @@ def test_an_unknown_option_names_its_subcommand(args, capsys):
 
 # -- compare: rejected inputs leave nothing behind ----------------------------------------------------------------
 
-COMPARE_STUDY = f"""
-[study]
-name = "compare inputs test"
-[roads]
-source = "{DEMO / "varrowby.osm.bz2"}"
-boundary = "{DEMO / "boundary.geojson"}"
-[bases]
-file = "{DEMO / "stations.csv"}"
+COMPARE_STUDY = (
+    demo_study_head("compare inputs test")
+    + f"""
 [[demand]]
 name = "calls"
 points = "{DEMO / "incidents.csv"}"
@@ -505,6 +500,7 @@ name = "ALS 8 min"
 turnout_s = 60
 travel_s = 480
 """
+)
 
 
 @pytest.mark.parametrize(

@@ -17,7 +17,7 @@ import pytest
 from coverkit import layer_names
 from coverkit.cli import main
 
-from .conftest import DEMO, REPO
+from .conftest import DEMO, REPO, demo_study_head
 
 
 def _patterns() -> list[re.Pattern]:
@@ -56,14 +56,8 @@ def test_cover_and_run_write_the_same_names_for_the_same_inputs(tmp_path):
                  "--quiet"]) == 0  # fmt: skip
     study = tmp_path / "study.toml"
     study.write_text(
-        f"""[study]
-name = "names"
-[roads]
-source = "{DEMO / "varrowby.osm.bz2"}"
-boundary = "{DEMO / "boundary.geojson"}"
-[bases]
-file = "{DEMO / "stations.csv"}"
-[[demand]]
+        demo_study_head("names")
+        + f"""[[demand]]
 name = "{layer_names.demand_name_of(DEMO / "population.tif")}"
 raster = "{DEMO / "population.tif"}"
 [[standard]]

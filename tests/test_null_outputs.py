@@ -20,7 +20,7 @@ import shapely
 from coverkit.atomic import null_missing, write_csv_atomic, write_gpkg_layers
 from coverkit.cli import main
 from coverkit.layer_names import layer_name
-from coverkit.network import build_network
+from coverkit.network import RoadNetwork
 
 from .conftest import DEMO
 
@@ -74,17 +74,14 @@ def test_null_missing_keeps_the_input_unchanged():
 
 
 @pytest.fixture(scope="module")
-def demo_net_path(tmp_path_factory):
-    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
-    path = tmp_path_factory.mktemp("net") / "net.gpkg"
-    net.save(path)
-    return net, path
+def demo_net_and_path(demo_net_path):
+    return RoadNetwork.load(demo_net_path), demo_net_path
 
 
-def test_cover_writes_unreached_demand_as_null(demo_net_path, tmp_path):
+def test_cover_writes_unreached_demand_as_null(demo_net_and_path, tmp_path):
     """A call 2 km beyond the corner of the road network (off every road, so never reached) has NULL times and
     NULL first- and second-due bases in the written GeoPackage; a reached call keeps its values."""
-    net, path = demo_net_path
+    net, path = demo_net_and_path
     x0, y0, _, _ = net.nodes.total_bounds
     corner = gpd.GeoSeries(shapely.points([[x0 - 2000.0, y0 - 2000.0]]), crs=net.crs).to_crs("EPSG:4326")
     far_lon, far_lat = shapely.get_coordinates(corner.to_numpy())[0]
