@@ -14,6 +14,7 @@ import pandas as pd
 import rasterio
 
 from coverkit import CAUTION, __version__
+from coverkit.coverage import GAP_COUNT_PREFIX, gap_count_columns
 from coverkit.layer_names import map_file, output_file, slug
 from coverkit.report.html import HtmlReport
 from coverkit.report.maps import (
@@ -50,15 +51,20 @@ def _minutes(seconds: float) -> str:
 
 
 def gap_columns(gaps: pd.DataFrame, kind: str) -> tuple[str, str, str | None]:
-    """The column shading gaps on the map, its unit word, and the calls column (names differ by demand kind)."""
-    numeric = [c for c in gaps.columns if c not in ("gap_id", "area_km2", "geometry")]
-    people = [c for c in ("population", "people", "uncovered_people", "residents") if c in gaps.columns]
-    calls = [c for c in ("incidents", "calls", "uncovered_calls") if c in gaps.columns]
-    if kind == "incidents" and calls:
-        return calls[0], "calls", None
-    if people:
-        return people[0], "people", calls[0] if calls else None
-    return (numeric[0] if numeric else "gap_id"), "demand", None
+    """The column shading gaps on the map, its unit word, and the calls column listed beside it.
+
+    The gaps table names each count ``uncovered_<unit>`` (:func:`coverkit.coverage.gap_count_columns`); residents
+    shade by people and list calls, incident demand shades by calls.
+    """
+    units = {c.removeprefix(GAP_COUNT_PREFIX): c for c in gap_count_columns(gaps)}
+    if kind == "incidents" and "calls" in units:
+        return units["calls"], "calls", None
+    if "people" in units:
+        return units["people"], "people", units.get("calls")
+    if units:
+        unit, column = next(iter(units.items()))
+        return column, unit, None
+    return "gap_id", "demand", None
 
 
 def _table(rep: HtmlReport, df: pd.DataFrame, caption: str, point_word: str = "points") -> None:
