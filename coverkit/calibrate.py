@@ -47,6 +47,7 @@ from coverkit.distance_time import KolesarFit, fit_kolesar, kolesar_time_s
 from coverkit.errors import FieldError, InputFileError, ModelError, OffNetworkError, ProfileError
 from coverkit.network.model import RoadNetwork
 from coverkit.network.profile import ClassSpeed, Profile, load_profile, profile_to_toml
+from coverkit.network.timing import edge_times
 from coverkit.progress import note, warn
 from coverkit.travel.points import (
     DEFAULT_MAX_REJECTED_SHARE,
@@ -213,7 +214,7 @@ def read_observed(
 def retime_network(net: RoadNetwork, profile: Profile, note_text: str = "") -> RoadNetwork:
     """The network with ``speed_kph``, ``delay_s`` and ``travel_s`` recomputed from ``profile``.
 
-    Uses the build's formulas (:func:`coverkit.network.build.build_network`): speed ``min((posted or default) x
+    Uses the build's formula, :func:`coverkit.network.timing.edge_times`: speed ``min((posted or default) x
     factor, cap)``, ``travel_s = length_m / (speed_kph / 3.6) x (against-one-way factor) + delay_s`` with the
     profile's signal delay at signal end nodes. The edge set is kept: edges closed in ``net`` stay closed, and
     against-one-way edges the profile does not allow are closed; a profile that allows more against-one-way travel
@@ -232,19 +233,22 @@ def retime_network(net: RoadNetwork, profile: Profile, note_text: str = "") -> R
             f"profile '{profile.name}' has no [speeds.{missing[0]}] table, but the network has {missing[0]} roads; "
             "add the class to the profile or use the profile the network was built with."
         )
-    speed = profile.effective_kph(road_class, edges["posted_kph"].to_numpy(dtype=float))
     against = edges["against_oneway"].to_numpy(dtype=bool)
     allowed = (profile.oneway == "against") & np.isin(road_class, list(profile.against_oneway_classes))
-    factor = np.where(against, profile.against_oneway_factor, 1.0)
-    signal = net.nodes["signal"].to_numpy(dtype=bool)
-    delay_s = np.where(signal[net.v], profile.signal_delay_s, 0.0)
-    length_m = edges["length_m"].to_numpy(dtype=float)
-    # same expression and order as the build, so that a rebuilt network has bit-identical times
-    travel_s = length_m / (speed / 3.6) * factor + delay_s
+    # the build's own formula, so that a rebuilt network has bit-identical times
+    times = edge_times(
+        profile,
+        road_class=road_class,
+        posted_kph=edges["posted_kph"].to_numpy(dtype=float),
+        length_m=edges["length_m"].to_numpy(dtype=float),
+        against_oneway=against,
+        signal_at_end=net.nodes["signal"].to_numpy(dtype=bool)[net.v],
+    )
+    travel_s = times.travel_s.copy()
     travel_s[~np.isfinite(net.travel_s) | (against & ~allowed)] = np.inf
     new = edges.copy()
-    new["speed_kph"] = speed
-    new["delay_s"] = delay_s
+    new["speed_kph"] = times.speed_kph
+    new["delay_s"] = times.delay_s
     new["travel_s"] = travel_s
     info = dict(net.info)
     if note_text:

@@ -18,23 +18,15 @@ import shapely
 from coverkit import siting
 from coverkit.coverage import Standard, TravelTable, travel_table, weighted_fractile
 from coverkit.errors import CoverkitError, ModelError
+from coverkit.network import road_classes
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
 
 MODELS = ("mclp", "lscp", "backup", "mexclp", "p-median")
 
-#: Road classes from the highest; "a class or better" means this class or any before it.
-CLASS_ORDER = (
-    "motorway",
-    "trunk",
-    "primary",
-    "secondary",
-    "tertiary",
-    "unclassified",
-    "residential",
-    "living_street",
-    "service",
-)
+#: Road classes from the highest; "a class or better" means this class or any before it (held in
+#: :mod:`coverkit.network.road_classes`).
+CLASS_ORDER = road_classes.CLASS_ORDER
 
 
 def generate_candidates(net: RoadNetwork, min_class: str = "tertiary", spacing_m: float = 1500.0) -> gpd.GeoDataFrame:
@@ -42,13 +34,15 @@ def generate_candidates(net: RoadNetwork, min_class: str = "tertiary", spacing_m
 
     Junction nodes (degree >= 3 in the undirected road graph) are preferred, then any node; a greedy pass over a
     fixed order (class rank, then node index) keeps a node only if no kept node lies within ``spacing_m``.
-    Motorway and link nodes are left out: a station is not sited on a carriageway.
+    Nodes on classes that are no station site (motorway carriageways and ramps,
+    :data:`coverkit.network.road_classes.NO_STATION_CLASSES`) are left out.
     """
     if min_class not in CLASS_ORDER:
         raise CoverkitError(f"candidate road class '{min_class}' is unknown; use one of {', '.join(CLASS_ORDER)}.")
     if not spacing_m > 0:
         raise CoverkitError(f"candidate spacing {spacing_m} m must be positive.")
-    allowed = [c for c in CLASS_ORDER[: CLASS_ORDER.index(min_class) + 1] if c != "motorway"]
+    no_site = list(road_classes.NO_STATION_CLASSES)
+    allowed = [c for c in CLASS_ORDER[: CLASS_ORDER.index(min_class) + 1] if c not in no_site]
     e = net.edges
     on_class = e["road_class"].isin(allowed).to_numpy()
     rank_of = {c: i for i, c in enumerate(CLASS_ORDER)}
@@ -56,7 +50,7 @@ def generate_candidates(net: RoadNetwork, min_class: str = "tertiary", spacing_m
     node_rank = np.full(net.n_nodes, len(CLASS_ORDER), dtype=int)
     np.minimum.at(node_rank, net.u[on_class], edge_rank[on_class])
     np.minimum.at(node_rank, net.v[on_class], edge_rank[on_class])
-    bad = e["road_class"].str.startswith("motorway").to_numpy()
+    bad = e["road_class"].isin(no_site).to_numpy()
     on_motorway = np.zeros(net.n_nodes, dtype=bool)
     on_motorway[net.u[bad]] = True
     on_motorway[net.v[bad]] = True

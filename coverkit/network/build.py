@@ -25,6 +25,8 @@ from coverkit.network.crs import parse_crs, transform_geometry, transform_xy, ut
 from coverkit.network.model import RoadNetwork
 from coverkit.network.profile import Profile, load_profile, parse_maxspeed_array
 from coverkit.network.raw import RawRoads
+from coverkit.network.road_classes import IMPLIED_ONEWAY_CLASSES
+from coverkit.network.timing import edge_times
 from coverkit.progress import Steps
 
 OSM_XML_SUFFIXES = (".osm", ".osm.bz2", ".osm.gz", ".xml", ".xml.bz2")
@@ -34,7 +36,6 @@ LAYER_SUFFIXES = (".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gml", ".zip")
 _FORWARD = frozenset({"yes", "true", "1"})
 _BACKWARD = frozenset({"-1", "reverse"})
 _TWO_WAY = frozenset({"no", "false", "0"})
-_IMPLIED_ONEWAY_CLASSES = frozenset({"motorway"})  # OSM wiki, key:oneway: implied on motorways
 _ROUNDABOUT = frozenset({"roundabout", "circular"})  # OSM wiki, key:junction: implies oneway=yes
 
 
@@ -292,7 +293,7 @@ def _directions(segments: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     forward_only = np.isin(oneway, list(_FORWARD)) | (
         ~explicit_two_way
         & ~backward_only
-        & (np.isin(junction, list(_ROUNDABOUT)) | np.isin(highway, list(_IMPLIED_ONEWAY_CLASSES)))
+        & (np.isin(junction, list(_ROUNDABOUT)) | np.isin(highway, list(IMPLIED_ONEWAY_CLASSES)))
     )
     return ~backward_only, ~forward_only
 
@@ -310,7 +311,6 @@ def _directed_edges(
     missing = ~np.isfinite(posted)
     posted[missing] = parse_maxspeed_array(segments["maxspeed"].to_numpy(dtype=object)[missing])
     road_class = segments["highway"].to_numpy(dtype=object)
-    speed_kph = prof.effective_kph(road_class, posted)
     oneway = fwd ^ bwd
 
     node_keys = np.unique(np.concatenate([segments["u_key"].to_numpy(), segments["v_key"].to_numpy()]))
@@ -351,9 +351,14 @@ def _directed_edges(
     node_x[v_idx], node_y[v_idx] = shapely.get_x(ends), shapely.get_y(ends)
 
     seg_len = length_m[sel]
-    seg_speed = speed_kph[sel]
-    factor = np.where(against, prof.against_oneway_factor, 1.0)
-    delay_s = np.where(signal[v], prof.signal_delay_s, 0.0)
+    times = edge_times(
+        prof,
+        road_class=road_class[sel],
+        posted_kph=posted[sel],
+        length_m=seg_len,
+        against_oneway=against,
+        signal_at_end=signal[v],
+    )
     edges = pd.DataFrame(
         {
             "u": u.astype(np.int64),
@@ -361,9 +366,9 @@ def _directed_edges(
             "road_class": pd.array(road_class[sel].astype(str), dtype="str"),
             "length_m": seg_len,
             "posted_kph": posted[sel],
-            "speed_kph": seg_speed,
-            "delay_s": delay_s,
-            "travel_s": seg_len / (seg_speed / 3.6) * factor + delay_s,
+            "speed_kph": times.speed_kph,
+            "delay_s": times.delay_s,
+            "travel_s": times.travel_s,
             "oneway": oneway[sel],
             "against_oneway": against,
             "bridge": segments["bridge"].to_numpy(dtype=bool)[sel],

@@ -21,31 +21,13 @@ from scipy.spatial import cKDTree
 from coverkit.errors import FieldError, InputFileError
 from coverkit.network.profile import KPH_PER_MPH, Profile
 from coverkit.network.raw import SEGMENT_COLUMNS, RawRoads
+from coverkit.network.road_classes import CENTERLINE_ALIASES
 
 FIELD_KEYS = ("class", "speed", "oneway", "name", "id", "bridge", "tunnel")
 
-#: Class values a county layer commonly uses, mapped to OSM-style classes (common practice, no single source;
-#: functional classes as in the US FHWA Highway Functional Classification concepts, from memory).
-CLASS_ALIASES = {
-    "interstate": "motorway",
-    "freeway": "motorway",
-    "expressway": "trunk",
-    "highway": "trunk",
-    "ramp": "motorway_link",
-    "principal arterial": "primary",
-    "major arterial": "primary",
-    "arterial": "primary",
-    "minor arterial": "secondary",
-    "major collector": "tertiary",
-    "collector": "tertiary",
-    "minor collector": "unclassified",
-    "local": "residential",
-    "local road": "residential",
-    "street": "residential",
-    "alley": "service",
-    "driveway": "service",
-    "private": "service",
-}
+#: Class values a county layer commonly uses, mapped to OSM-style classes (held with each class in
+#: :mod:`coverkit.network.road_classes`).
+CLASS_ALIASES = CENTERLINE_ALIASES
 
 #: One-way values: forward (digitised direction), backward, two-way. Common practice in centerline layers.
 FORWARD_VALUES = frozenset({"1", "y", "yes", "true", "t", "ft", "f", "forward", "fw", "one way", "oneway"})

@@ -41,6 +41,7 @@ import coverkit
 from coverkit.atomic import atomic_path
 from coverkit.errors import CoverkitError, FieldError
 from coverkit.network.crs import parse_crs
+from coverkit.network.road_classes import MAP_WIDTH_PT
 from coverkit.report.tables import plural
 
 #: Output resolution (dots per inch) and page size (inches); fixed so outputs are comparable run to run.
@@ -78,17 +79,9 @@ FIRST_DUE_PALETTE = (
     "#e0c98f",
 )
 ROAD_COLOR = "#8c8c8c"
-#: Line width (points) by road class; classes not listed get the thinnest line.
-ROAD_WIDTH_PT = {
-    "motorway": 1.2,
-    "trunk": 1.1,
-    "primary": 0.9,
-    "secondary": 0.75,
-    "tertiary": 0.6,
-    "motorway_link": 0.6,
-    "trunk_link": 0.6,
-    "primary_link": 0.5,
-}
+#: Line width (points) by road class (held with each class in :mod:`coverkit.network.road_classes`); classes not
+#: listed get the thinnest line.
+ROAD_WIDTH_PT = MAP_WIDTH_PT
 ROAD_MIN_WIDTH_PT = 0.35
 
 # Page layout in figure fractions: map on the left, legend panel on the right, scale strip under the map.

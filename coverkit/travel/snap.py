@@ -221,8 +221,9 @@ def snap_points(
     what
         Word used in messages (``"bases"``, ``"demand points"``).
     exclude_classes
-        Road classes never snapped onto, e.g. ``NO_ACCESS_CLASSES`` for population cells, which are not reached
-        from a motorway carriageway (incidents and bases keep the default: every class).
+        Road classes never snapped onto, e.g. :data:`coverkit.network.road_classes.NO_ACCESS_CLASSES` for
+        population cells, which are not reached from a motorway carriageway (incidents and bases keep the default:
+        every class).
     measure_far
         Also measure the distance to the nearest road of off-network points (for messages); grids of many cells
         that only need on/off skip it (their ``dist_m`` stays inf).
@@ -321,9 +322,6 @@ def snap_points(
 
 #: A point this far from every road (m) is taken as a coordinate mistake in messages.
 FAR_OFF_M = 50_000.0
-
-#: Road classes with no access from the land beside them: population is not served from a carriageway.
-NO_ACCESS_CLASSES = ("motorway", "motorway_link", "trunk_link")
 
 
 def _snap_targets(net: RoadNetwork, pieces: RoadPieces, exclude: tuple[str, ...]):
