@@ -15,14 +15,15 @@ import pandas as pd
 import scipy.sparse as sp
 import shapely
 
-from coverkit import siting
+from coverkit import siting, siting_models
 from coverkit.coverage import Standard, TravelTable, travel_table, weighted_fractile
 from coverkit.errors import CoverkitError, ModelError
 from coverkit.network import road_classes
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
 
-MODELS = ("mclp", "lscp", "backup", "mexclp", "p-median")
+#: The covering model names (held in :mod:`coverkit.siting_models`).
+MODELS = siting_models.NAMES
 
 #: Road classes from the highest; "a class or better" means this class or any before it (held in
 #: :mod:`coverkit.network.road_classes`).
@@ -171,14 +172,8 @@ class SitePlan:
     summary: dict = field(default_factory=dict)
 
 
-#: What each model's objective counts, in words (one home for the CLI, the summary and the curve chart).
-OBJECTIVE_NAMES = {
-    "mclp": "demand covered",
-    "lscp": "new sites needed",
-    "backup": "demand covered twice",
-    "mexclp": "expected demand covered (units busy)",
-    "p-median": "mean travel time (s)",
-}
+#: What each model's objective counts, in words (held in :mod:`coverkit.siting_models`).
+OBJECTIVE_NAMES = siting_models.OBJECTIVE_NAMES
 
 
 def solve(
@@ -212,30 +207,31 @@ def solve(
     curve_to
         Curve up to this many new sites (default ``add``, at least 3).
     """
-    if model not in MODELS:
-        raise ModelError(f"model '{model}' is unknown; use one of {', '.join(MODELS)}.")
+    spec = siting_models.model_named(model)
     covers, w, fixed = problem.covers, problem.weights, problem.fixed
     n_free = int((~fixed).sum())
-    if model != "lscp":
+    if "add" in spec.needs:
         if add is None:
             raise ModelError(f"model {model} needs --add N, the number of new sites.")
-        if add > n_free and model != "mexclp":
+        if add > n_free and not spec.places_units:
             raise ModelError(
                 f"--add {add} is more than the {n_free} candidate sites; give at most {n_free} or add candidates."
             )
-    if model == "mexclp" and q is None:
+    if "busy_fraction" in spec.needs and q is None:
         raise ModelError("model mexclp needs --busy-fraction q (the share of time a unit is busy, 0..1).")
     kw = {"method": method}
     note(f"siting: solving {model}")
-    if model == "lscp":
-        res = siting.lscp(covers, w, fixed, target_share=target, time_limit_s=time_limit_s / 2, **kw)
+    if spec.curve_model:  # a model answered on its own, its curve drawn by another (LSCP: the MCLP curve)
+        res = spec.function(covers, w, fixed, target_share=target, time_limit_s=time_limit_s / 2, **kw)
         n_curve = min(max(curve_to if curve_to is not None else res.p, res.p, 3), n_free)
-        curve_res = siting.siting_curve("mclp", covers, w, n_curve, fixed, time_limit_s=time_limit_s / 2, **kw)
+        curve_res = siting.siting_curve(
+            spec.curve_model, covers, w, n_curve, fixed, time_limit_s=time_limit_s / 2, **kw
+        )
     else:
         n_curve = max(curve_to if curve_to is not None else add, add, 3)
-        if model != "mexclp":
+        if not spec.places_units:
             n_curve = min(n_curve, n_free)
-        data = problem.travel_matrix() if model == "p-median" else covers
+        data = problem.travel_matrix() if spec.data == "travel" else covers
         extra = {"q": q, "existing_units": problem.existing_units} if model == "mexclp" else {}
         if model == "p-median":
             extra = {"unreached_penalty_s": problem.table.horizon_s}

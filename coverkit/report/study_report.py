@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import rasterio
 
-from coverkit import CAUTION, __version__
+from coverkit import CAUTION, __version__, siting_models
 from coverkit.coverage import GAP_COUNT_PREFIX, gap_count_columns
 from coverkit.layer_names import map_file, output_file, slug
 from coverkit.report.html import HtmlReport
@@ -31,13 +31,8 @@ from coverkit.report.tables import plural, present
 if TYPE_CHECKING:
     from coverkit.study import StudyRun
 
-_MODEL_SOURCES = {
-    "mclp": "Church & ReVelle 1974",
-    "lscp": "Toregas, Swain, ReVelle & Bergman 1971",
-    "backup": "Hogan & ReVelle 1986",
-    "mexclp": "Daskin 1983",
-    "p-median": "Hakimi 1964",
-}
+#: Model name -> its short citation (held in :mod:`coverkit.siting_models`).
+_MODEL_SOURCES = {m.name: m.citation for m in siting_models.MODEL_LIST}
 
 FRACTILE_NOTE = (
     "Fractile response: the smallest response time such that the stated share of demand (by weight) is reached "
@@ -306,14 +301,10 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
 
 
 def site_curve_values(model: str, curve: pd.DataFrame) -> tuple[list[float], str]:
-    """The curve's own value per point: what the model optimises (MCLP and LSCP: covered share)."""
-    if model == "p-median":
-        return list(curve["objective"] / 60), "mean travel time (min)"
-    if model == "backup":
-        return list(curve["second_share"] * 100), "demand covered twice (%)"
-    if model == "mexclp":
-        return list(curve["objective"]), "expected demand covered"
-    return list(curve["covered_share"] * 100), "demand covered (%)"
+    """The curve's own value per point: what the model optimises (MCLP and LSCP: covered share), as the model's
+    registry entry (:mod:`coverkit.siting_models`) says."""
+    spec = siting_models.BY_NAME.get(model, siting_models.BY_NAME[siting_models.DEFAULT_MODEL])
+    return list(spec.curve_value(curve)), spec.curve_label
 
 
 def site_curve_chart(plan: object, out_png: Path, standard_text: str = "") -> Path:
@@ -326,7 +317,7 @@ def site_curve_chart(plan: object, out_png: Path, standard_text: str = "") -> Pa
         out_png,
         curve["new_sites"].to_numpy(),
         {label: np.asarray(values, dtype=float)},
-        "new units" if model == "mexclp" else "new sites",
+        siting_models.BY_NAME[model].count_word if model in siting_models.BY_NAME else "new sites",
         label,
         f"{model} curve",
         note=(f"{standard_text}. " if standard_text else "")
