@@ -13,6 +13,7 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
+from coverkit import settings
 from coverkit.coverage import Standard, travel_table, weighted_fractile
 from coverkit.errors import FieldError, ModelError
 from coverkit.network.model import RoadNetwork
@@ -31,7 +32,7 @@ from coverkit.queueing import (
 
 def call_rate_per_h(
     demand: gpd.GeoDataFrame,
-    time_field: str = "received_at",
+    time_field: str = settings.TIME_FIELD,
     *,
     start: str | None = None,
     end: str | None = None,
@@ -83,8 +84,8 @@ def availability(
     calls_per_h: float | None = None,
     queue: str = "infinite",
     method: str = "auto",
-    time_field: str = "received_at",
-    max_snap_m: float = 500.0,
+    time_field: str = settings.TIME_FIELD,
+    max_snap_m: float = settings.SNAP_M,
     *,
     window: tuple[str | None, str | None] = (None, None),
 ) -> AvailabilityRun:

@@ -18,6 +18,7 @@ import pandas as pd
 
 from coverkit import CAUTION
 from coverkit.atomic import write_csv_atomic, write_gpkg_layers
+from coverkit.demand_sources import row_word
 from coverkit.errors import CoverkitError
 from coverkit.layer_names import layer_name, output_file
 from coverkit.network.model import RoadNetwork
@@ -35,7 +36,7 @@ from coverkit.whatif import WhatIf
 
 def _study_network(study: Study, cache_folder: str | Path | None) -> RoadNetwork:
     """The study's network: its own output folder's cache when valid (read only), else built and cached."""
-    own = study.folder / study.outputs.get("folder", "results")
+    own = study.folder / study.outputs.folder
     net = reusable_network(own / "network.gpkg", study.network_cache_key())
     if net is not None:
         return net
@@ -82,7 +83,7 @@ def whatif_from_study(study_path: str | Path, cache_folder: str | Path | None = 
         horizon_s=inputs["horizon_s"],
         direction=s.direction,
         demand_snap_m=inputs["snaps"],
-        base_snap_m=float(s.bases.get("snap_m", 500.0)),
+        base_snap_m=s.bases.snap_m,
     )
 
 
@@ -129,7 +130,7 @@ class CompareRun:
         """Headline lines: the changes, then each standard x demand before/after."""
         out = [f"{self.scenario.name} vs {self.study.name}", *self.changes.lines()]
         kinds = {d.name: d.kind for d in self.study.demand}
-        words = {d.name: "cells" if d.source_kind == "raster" else "points" for d in self.study.demand}
+        words = {d.name: row_word(d.source_kind) for d in self.study.demand}
         for (_std, dem), comp in self.comparisons.items():
             unit = "people" if kinds.get(dem) == "residents" else "calls"
             out.extend(f"[{dem}] {line}" for line in comp.lines(unit, words.get(dem, "points")))
@@ -180,7 +181,7 @@ def _compare(
     study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
     kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]
     steps.step("coverage before")
-    base_snap_m = float(study.bases.get("snap_m", 500.0))
+    base_snap_m = study.bases.snap_m
     # the incremental what-if snaps each demand layer once and searches again only from the bases the scenario can
     # touch; it equals a full recomputation (tests/test_scenario.py)
     whatif = WhatIf(net, bases, demand, study.standards, horizon_s, study.direction, inputs["snaps"], base_snap_m)
@@ -197,8 +198,8 @@ def _compare(
     residents = next((n for n, k in kinds.items() if k == "residents"), next(iter(demand)))
     incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
     opts = study.outputs
-    cell = float(cell_m or opts.get("grid_cell_m", 100.0))
-    reach = float(reach_m or float(opts.get("reach_m", 150.0)) + 50.0)
+    cell = float(cell_m or opts.grid_cell_m)
+    reach = float(reach_m or opts.area_reach_m)
     areas = {}
     gb = ga = None
     for s in study.standards:

@@ -19,6 +19,8 @@ import scipy.sparse as sp
 import shapely
 from affine import Affine
 
+from coverkit import settings
+from coverkit.demand_sources import POPULATION_SOURCES
 from coverkit.errors import CoverkitError, FieldError
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
@@ -27,11 +29,11 @@ from coverkit.travel import NO_ACCESS_CLASSES, count_within, nearest_sources, po
 #: Default search horizon beyond the standard, so response times past the standard are still measured (s).
 DEFAULT_HORIZON_S = 3600.0
 #: Default snap limit for demand points (m); farther points are off-network and counted, not moved.
-DEFAULT_DEMAND_SNAP_M = 500.0
+DEFAULT_DEMAND_SNAP_M = settings.SNAP_M
 #: Cell size of the area grid behind first-due areas and gap polygons (m).
-DEFAULT_CELL_M = 100.0
+DEFAULT_CELL_M = settings.AREA_CELL_M
 #: Grid cells farther than this from a road carry no area (m): nobody is reached off the road network's reach.
-DEFAULT_REACH_M = 200.0
+DEFAULT_REACH_M = settings.AREA_REACH_M
 #: Grid cells up to this far from a road are assigned a first-due base (m); farther cells are left unassigned.
 DEFAULT_ASSIGN_M = 3000.0
 
@@ -56,8 +58,8 @@ class Standard:
 
     name: str
     travel_s: float
-    turnout_s: float = 0.0
-    fractile: float = 0.9
+    turnout_s: float = settings.TURNOUT_S
+    fractile: float = settings.FRACTILE
     source: str = ""
 
     def __post_init__(self) -> None:
@@ -196,7 +198,7 @@ def demand_exclude_classes(points: object) -> tuple[str, ...]:
     motorways).
     """
     area = isinstance(points, gpd.GeoDataFrame) and "source" in points.columns and len(points) > 0
-    return NO_ACCESS_CLASSES if area and points["source"].iloc[0] in ("raster", "polygons") else ()
+    return NO_ACCESS_CLASSES if area and points["source"].iloc[0] in POPULATION_SOURCES else ()
 
 
 def travel_table(

@@ -17,6 +17,7 @@ import rasterio
 import shapely
 from pyproj import CRS, Transformer
 
+from coverkit import settings
 from coverkit.errors import FieldError, InputFileError
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import warn
@@ -240,7 +241,7 @@ def demand_from_points(
     if where:
         gdf = _apply_where(gdf, where, path)
     if time_field or start or end:
-        gdf = _apply_time_window(gdf, path, time_field or "received_at", start, end)
+        gdf = _apply_time_window(gdf, path, time_field or settings.TIME_FIELD, start, end)
     if len(gdf) == 0:
         cond = " and ".join(x for x in (where, f"time in [{start}, {end})" if (start or end) else None) if x)
         raise FieldError(f"{path}: no demand point left after the filter ({cond}) out of {n_read:,}; widen the filter.")

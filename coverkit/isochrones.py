@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from coverkit import settings
 from coverkit.atomic import atomic_path
 from coverkit.errors import CoverkitError
 from coverkit.network.model import RoadNetwork
@@ -61,7 +62,7 @@ from coverkit.travel.search import _check_direction, nearest_node_times, node_ti
 from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, road_pieces, snap_points
 
 #: Default reach distance from a reached road (m): how far off the road a place still counts as reached.
-DEFAULT_REACH_M = 150.0
+DEFAULT_REACH_M = settings.REACH_M
 #: Default grid spacing of the fast polygons, as a share of the reach: the traced outline interpolates exact road
 #: distances, so at a third of the reach it stays within intersection-over-union 0.98 of the exact polygons even for
 #: polygons of a few tenths of a km² (0.99 and up for bands of a few minutes; tests and benchmark). At half the reach
@@ -75,7 +76,7 @@ MAX_FIELD_CELLS = 100_000_000
 #: Default: holes smaller than this (km^2) are filled (1 ha).
 DEFAULT_MIN_HOLE_KM2 = 0.01
 #: Default travel-time surface cell size (m).
-DEFAULT_SURFACE_CELL_M = 50.0
+DEFAULT_SURFACE_CELL_M = settings.SURFACE_CELL_M
 #: Most bands in one call (band labels are 16-bit on the grid).
 MAX_BANDS = 1000
 #: ``base_id`` of the rows for the union over all bases.

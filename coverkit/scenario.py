@@ -38,6 +38,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from coverkit import settings
 from coverkit.coverage import (
     AreaGrid,
     AreaLayers,
@@ -963,8 +964,8 @@ def changed_areas(
     before: CoverageResult,
     after: CoverageResult,
     incidents: gpd.GeoDataFrame | None = None,
-    cell_m: float = 100.0,
-    reach_m: float = 200.0,
+    cell_m: float = settings.AREA_CELL_M,
+    reach_m: float = settings.AREA_REACH_M,
     grid_before: AreaGrid | None = None,
     grid_after: AreaGrid | None = None,
     *,

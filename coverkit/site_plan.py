@@ -15,7 +15,7 @@ import pandas as pd
 import scipy.sparse as sp
 import shapely
 
-from coverkit import siting, siting_models
+from coverkit import settings, siting, siting_models
 from coverkit.coverage import Standard, TravelTable, travel_table, weighted_fractile
 from coverkit.errors import CoverkitError, ModelError
 from coverkit.network import road_classes
@@ -30,7 +30,9 @@ MODELS = siting_models.NAMES
 CLASS_ORDER = road_classes.CLASS_ORDER
 
 
-def generate_candidates(net: RoadNetwork, min_class: str = "tertiary", spacing_m: float = 1500.0) -> gpd.GeoDataFrame:
+def generate_candidates(
+    net: RoadNetwork, min_class: str = settings.CANDIDATE_CLASS, spacing_m: float = settings.SPACING_M
+) -> gpd.GeoDataFrame:
     """Candidate sites at network nodes on roads of ``min_class`` or better, thinned to ``spacing_m``.
 
     Junction nodes (degree >= 3 in the undirected road graph) are preferred, then any node; a greedy pass over a
@@ -133,8 +135,8 @@ def build_problem(
     demand: gpd.GeoDataFrame,
     standard: Standard,
     relocate: bool = False,
-    max_snap_m: float = 500.0,
-    base_snap_m: float = 500.0,
+    max_snap_m: float = settings.SNAP_M,
+    base_snap_m: float = settings.SNAP_M,
 ) -> SitingProblem:
     """Snap and time every site to every demand point; existing bases are fixed unless ``relocate``."""
     dup = sorted(set(bases["id"].astype(str)) & set(candidates["id"].astype(str)))
@@ -178,12 +180,12 @@ OBJECTIVE_NAMES = siting_models.OBJECTIVE_NAMES
 
 def solve(
     problem: SitingProblem,
-    model: str = "mclp",
+    model: str = siting_models.DEFAULT_MODEL,
     add: int | None = None,
     target: float | None = None,
     q: float | None = None,
-    method: str = "auto",
-    time_limit_s: float = 60.0,
+    method: str = settings.SITING_METHOD,
+    time_limit_s: float = settings.SITING_TIME_LIMIT_S,
     curve_to: int | None = None,
     incidents: gpd.GeoDataFrame | None = None,
 ) -> SitePlan:

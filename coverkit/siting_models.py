@@ -155,6 +155,13 @@ MODEL_LIST: tuple[SitingModel, ...] = (
     ),
 )
 
+#: The parameters a model may need, in words (for messages; each front end names them its own way).
+PARAMETERS: dict[str, str] = {
+    "add": "the number of new sites",
+    "busy_fraction": "the share of time a unit is busy, 0..1",
+    "target": "the share of demand to cover, 0..1",
+}
+
 #: Model name -> its entry.
 BY_NAME: dict[str, SitingModel] = {m.name: m for m in MODEL_LIST}
 

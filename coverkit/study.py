@@ -9,17 +9,37 @@ from __future__ import annotations
 
 import hashlib
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from coverkit import __version__
+from coverkit import __version__, demand_sources, settings, siting_models
 from coverkit.coverage import GAP_COUNT_PREFIX, Standard, default_horizon_s
 from coverkit.errors import CoverkitError, StudyError
 from coverkit.layer_names import layer_name, map_file, output_file, table_file
+from coverkit.settings import (
+    AvailabilitySettings,
+    BasesSettings,
+    CalibrationSettings,
+    DemandSettings,
+    OutputsSettings,
+    RoadsSettings,
+    SitingSettings,
+    ZonesSettings,
+)
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
-from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 from coverkit.where import parse_filter
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+    import pandas as pd
+    import shapely
+
+    from coverkit.availability import AvailabilityRun
+    from coverkit.calibrate import CalibrationResult
+    from coverkit.coverage import AreaLayers, CoverageResult
+    from coverkit.network.model import RoadNetwork
+    from coverkit.site_plan import SitePlan
 
 # -- schema -----------------------------------------------------------------------------------------------------------
 # key -> (type(s), required). Types are Python types accepted after TOML parsing.
@@ -38,9 +58,7 @@ SCHEMA: dict[str, Schema] = {
     "bases": {"file": (str, True), "id_field": (str, False), "snap_m": (_NUM, False), "layer": (str, False)},
     "demand": {
         "name": (str, True),
-        "raster": (str, False),
-        "polygons": (str, False),
-        "points": (str, False),
+        **{source: (str, False) for source in demand_sources.NAMES},
         "population_field": (str, False),
         "id_field": (str, False),
         "where": (str, False),
@@ -98,19 +116,10 @@ SCHEMA: dict[str, Schema] = {
 }
 LIST_SECTIONS = {"demand", "standard"}
 REQUIRED_SECTIONS = ("study", "roads", "bases", "demand", "standard")
-DEMAND_KINDS = ("residents", "incidents")
+DEMAND_KINDS = settings.DEMAND_KINDS
 
-
-@dataclass
-class DemandSpec:
-    """One ``[[demand]]`` entry."""
-
-    name: str
-    path: Path
-    source_kind: str  # "raster", "polygons" or "points"
-    kind: str  # "residents" (population) or "incidents" (calls)
-    options: dict[str, Any] = field(default_factory=dict)
-    snap_m: float = 500.0
+#: One ``[[demand]]`` entry (the name older code uses).
+DemandSpec = DemandSettings
 
 
 @dataclass
@@ -120,16 +129,16 @@ class Study:
     path: Path
     name: str
     direction: str
-    roads: dict[str, Any]
-    bases: dict[str, Any]
-    demand: list[DemandSpec]
+    roads: RoadsSettings
+    bases: BasesSettings
+    demand: list[DemandSettings]
     standards: list[Standard]
-    zones: dict[str, Any] | None
-    outputs: dict[str, Any]
+    zones: ZonesSettings | None
+    outputs: OutputsSettings
     raw: dict[str, Any]
-    siting: dict[str, Any] | None = None
-    availability: dict[str, Any] | None = None
-    calibration: dict[str, Any] | None = None
+    siting: SitingSettings | None = None
+    availability: AvailabilitySettings | None = None
+    calibration: CalibrationSettings | None = None
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -159,7 +168,7 @@ class Study:
     @property
     def horizon_s(self) -> float:
         """Search bound (s): ``outputs.horizon_s``, else the default for the longest standard."""
-        return float(self.outputs.get("horizon_s") or max(default_horizon_s(s) for s in self.standards))
+        return float(self.outputs.horizon_s or max(default_horizon_s(s) for s in self.standards))
 
     def network_cache_key(self) -> str:
         """Digest of everything the network build depends on."""
@@ -168,11 +177,12 @@ class Study:
 
         h = hashlib.sha256()
         h.update(__version__.encode())
-        for key in ("source", "boundary"):
-            if self.roads.get(key):
-                h.update(file_digest(Path(self.roads[key])).encode())
-        h.update(load_profile(self.roads.get("profile", "emergency")).to_toml().encode())
-        rest = {k: v for k, v in self.roads.items() if k not in ("source", "boundary", "profile")}
+        for path in (self.roads.source, self.roads.boundary):
+            if path:
+                h.update(file_digest(path).encode())
+        h.update(load_profile(self.roads.profile).to_toml().encode())
+        # the other [roads] keys as the file gives them (defaults left out, so the digest is the file's own)
+        rest = {k: v for k, v in self.raw["roads"].items() if k not in ("source", "boundary", "profile")}
         h.update(json.dumps(rest, sort_keys=True, default=str).encode())
         return h.hexdigest()
 
@@ -239,16 +249,19 @@ def load_study(path: str | Path) -> Study:
     names = set()
     for i, item in enumerate(raw["demand"]):
         key = f"demand[{i}]"
-        given = [k for k in ("raster", "polygons", "points") if k in item]
+        given = [k for k in demand_sources.NAMES if k in item]
         if len(given) != 1:
-            raise StudyError(f"{where}: {key} ('{item['name']}') needs exactly one of raster, polygons, points.")
+            raise StudyError(
+                f"{where}: {key} ('{item['name']}') needs exactly one of {', '.join(demand_sources.NAMES)}."
+            )
         src_kind = given[0]
-        if src_kind == "polygons" and "population_field" not in item:
-            raise StudyError(f"{where}: {key} ('{item['name']}') uses polygons; add population_field.")
+        for needed in demand_sources.BY_NAME[src_kind].needs:
+            if needed not in item:
+                raise StudyError(f"{where}: {key} ('{item['name']}') uses {src_kind}; add {needed}.")
         if item["name"] in names:
             raise StudyError(f"{where}: two [[demand]] entries are named '{item['name']}'; names must differ.")
         names.add(item["name"])
-        kind = item.get("kind", "incidents" if src_kind == "points" else "residents")
+        kind = item.get("kind", demand_sources.BY_NAME[src_kind].default_kind)
         if kind not in DEMAND_KINDS:
             raise StudyError(f"{where}: {key}.kind must be one of {', '.join(DEMAND_KINDS)}, got '{kind}'.")
         if "where" in item:  # a filter's syntax is checked before any data is read
@@ -258,16 +271,8 @@ def load_study(path: str | Path) -> Study:
                 raise StudyError(f"{where}: {key}.where: {exc}") from None
         if not 0 <= item.get("max_rejected_share", 0) <= 1:
             raise StudyError(f"{where}: {key}.max_rejected_share must be a share 0..1 (0.01 = 1 %).")
-        opts = {k: v for k, v in item.items() if k not in ("name", "raster", "polygons", "points", "kind", "snap_m")}
         demand.append(
-            DemandSpec(
-                item["name"],
-                _file(folder, item[src_kind], f"{key}.{src_kind}", where),
-                src_kind,
-                kind,
-                opts,
-                float(item.get("snap_m", 500.0)),
-            )
+            DemandSettings.from_table(item, _file(folder, item[src_kind], f"{key}.{src_kind}", where), src_kind, kind)
         )
     standards = []
     for i, item in enumerate(raw["standard"]):
@@ -276,8 +281,8 @@ def load_study(path: str | Path) -> Study:
                 Standard(
                     item["name"],
                     float(item["travel_s"]),
-                    float(item.get("turnout_s", 0.0)),
-                    float(item.get("fractile", 0.9)),
+                    float(item.get("turnout_s", settings.TURNOUT_S)),
+                    float(item.get("fractile", settings.FRACTILE)),
                     item.get("source", ""),
                 )
             )
@@ -290,11 +295,9 @@ def load_study(path: str | Path) -> Study:
         zones = dict(raw["zones"])
         zones["file"] = str(_file(folder, zones["file"], "zones.file", where))
         _check_zone_field(zones, where)
-    outputs = dict(raw.get("outputs", {}))
-    minutes = outputs.get("isochrone_minutes", [4, 8, 12])
+    minutes = raw.get("outputs", {}).get("isochrone_minutes", list(settings.ISOCHRONE_MINUTES))
     if not all(isinstance(m, int | float) and not isinstance(m, bool) and m > 0 for m in minutes) or not minutes:
         raise StudyError(f"{where}: outputs.isochrone_minutes must be a list of positive numbers, e.g. [4, 8, 12].")
-    outputs["isochrone_minutes"] = sorted(float(m) for m in minutes)
     siting_cfg = None
     if "siting" in raw:
         siting_cfg = dict(raw["siting"])
@@ -302,17 +305,23 @@ def load_study(path: str | Path) -> Study:
             raise StudyError(f"{where}: [siting] needs exactly one of candidates (a file) or generate (a road class).")
         if "candidates" in siting_cfg:
             siting_cfg["candidates"] = str(_file(folder, siting_cfg["candidates"], "siting.candidates", where))
-        model = siting_cfg.get("model", "mclp")
-        if model not in ("mclp", "lscp", "backup", "mexclp", "p-median"):
-            raise StudyError(f"{where}: siting.model '{model}' is unknown; use mclp, lscp, backup, mexclp or p-median.")
-        if model != "lscp" and "add" not in siting_cfg:
-            raise StudyError(f"{where}: [siting] with model {model} needs add (the number of new sites).")
+        model = siting_cfg.get("model", siting_models.DEFAULT_MODEL)
+        if model not in siting_models.NAMES:
+            names = siting_models.NAMES
+            raise StudyError(f"{where}: siting.model '{model}' is unknown; use {', '.join(names[:-1])} or {names[-1]}.")
+        for needed in siting_models.BY_NAME[model].needs:
+            if needed not in siting_cfg:
+                raise StudyError(
+                    f"{where}: [siting] with model {model} needs {needed} ({siting_models.PARAMETERS[needed]})."
+                )
+        if siting_cfg.get("method", settings.SITING_METHOD) not in settings.SITING_METHODS:
+            raise StudyError(f"{where}: siting.method must be one of {', '.join(settings.SITING_METHODS)}.")
     availability_cfg = None
     if "availability" in raw:
         availability_cfg = dict(raw["availability"])
-        if availability_cfg.get("queue", "infinite") not in ("infinite", "zero"):
+        if availability_cfg.get("queue", settings.QUEUE) not in settings.QUEUES:
             raise StudyError(f"{where}: availability.queue must be 'infinite' or 'zero'.")
-        if availability_cfg.get("method", "auto") not in ("auto", "exact", "approx"):
+        if availability_cfg.get("method", settings.AVAILABILITY_METHOD) not in settings.AVAILABILITY_METHODS:
             raise StudyError(f"{where}: availability.method must be 'auto', 'exact' or 'approx'.")
     calibration_cfg = None
     if "calibration" in raw:
@@ -321,30 +330,30 @@ def load_study(path: str | Path) -> Study:
         hours = calibration_cfg.get("hours")
         if hours is not None and not all(isinstance(h, int) and 0 <= h <= 23 for h in hours):
             raise StudyError(f"{where}: calibration.hours must be a list of whole hours 0..23.")
-    direction = raw["study"].get("direction", "out")
-    if direction not in ("out", "in"):
+    direction = raw["study"].get("direction", settings.DIRECTION)
+    if direction not in settings.DIRECTIONS:
         raise StudyError(f"{where}: study.direction must be 'out' (base to demand) or 'in', got '{direction}'.")
     study = Study(
         path,
         raw["study"]["name"],
         direction,
-        roads,
-        bases,
+        RoadsSettings.from_table(roads),
+        BasesSettings.from_table(bases),
         demand,
         standards,
-        zones,
-        outputs,
+        ZonesSettings.from_table(zones) if zones else None,
+        OutputsSettings.from_table(raw.get("outputs", {})),
         raw,
-        siting_cfg,
-        availability_cfg,
-        calibration_cfg,
+        SitingSettings.from_table(siting_cfg) if siting_cfg else None,
+        AvailabilitySettings.from_table(availability_cfg) if availability_cfg else None,
+        CalibrationSettings.from_table(calibration_cfg) if calibration_cfg else None,
     )
-    if siting_cfg:
-        study.standard_named(siting_cfg.get("standard"), "siting.standard")
-        study.demand_named(siting_cfg.get("demand"), "siting.demand", "residents")
-    if availability_cfg:
-        study.standard_named(availability_cfg.get("standard"), "availability.standard")
-        study.demand_named(availability_cfg.get("demand"), "availability.demand", "incidents")
+    if study.siting:
+        study.standard_named(study.siting.standard, "siting.standard")
+        study.demand_named(study.siting.demand, "siting.demand", "residents")
+    if study.availability:
+        study.standard_named(study.availability.standard, "availability.standard")
+        study.demand_named(study.availability.demand, "availability.demand", "incidents")
     return study
 
 
@@ -354,11 +363,11 @@ class StandardRun:
     """Everything computed for one standard."""
 
     standard: Standard
-    results: dict[str, Any]  # demand name -> CoverageResult
-    areas: Any  # AreaLayers for the residents demand
-    zones: dict[str, Any]  # demand name -> compliance by zone table
-    by_priority: dict[str, Any]
-    per_base: dict[str, Any]
+    results: dict[str, CoverageResult]  # demand name -> its coverage
+    areas: AreaLayers  # for the residents demand
+    zones: dict[str, pd.DataFrame]  # demand name -> compliance by zone table
+    by_priority: dict[str, pd.DataFrame]
+    per_base: dict[str, pd.DataFrame]
 
 
 @dataclass
@@ -366,19 +375,19 @@ class StudyRun:
     """The outcome of :func:`run_study`."""
 
     study: Study
-    network: Any
+    network: RoadNetwork
     build_summary: str
-    bases: Any
-    demand: dict[str, Any]
-    polygons: Any
+    bases: gpd.GeoDataFrame
+    demand: dict[str, gpd.GeoDataFrame]
+    polygons: gpd.GeoDataFrame
     surface_path: Path
     runs: list[StandardRun]
-    summary: Any  # DataFrame, one row per standard x demand
+    summary: pd.DataFrame  # one row per standard x demand
     outputs: dict[str, Path]
     network_reused: bool
-    site_plan: Any = None
-    availability: Any = None
-    calibration: Any = None
+    site_plan: SitePlan | None = None
+    availability: AvailabilityRun | None = None
+    calibration: CalibrationResult | None = None
 
 
 def standard_layers(
@@ -424,7 +433,7 @@ def polygon_layers(polygons: Any) -> dict[str, Any]:
     return out
 
 
-def reusable_network(path: Path, key: str) -> Any:
+def reusable_network(path: Path, key: str) -> RoadNetwork | None:
     """The network cached at ``path`` when it was built from inputs with digest ``key``, else None.
 
     Only the small ``build_info`` layer is read to compare the key; a damaged cache is never trusted.
@@ -444,7 +453,7 @@ def reusable_network(path: Path, key: str) -> Any:
     return net
 
 
-def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
+def cached_network(study: Study, folder: Path) -> tuple[RoadNetwork, str, bool]:
     """Build the study's network, or reuse ``folder/network.gpkg`` when its inputs are unchanged."""
     from coverkit.network import build_network
     from coverkit.network.centerlines import parse_fields
@@ -455,17 +464,17 @@ def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
     if net is not None:
         return net, net.info.get("summary_text", ""), True
     roads = study.roads
-    fields = roads.get("fields")
+    fields = roads.fields
     if isinstance(fields, dict):
         fields = parse_fields(",".join(f"{k}={v}" for k, v in fields.items()))
     net, report = build_network(
-        roads["source"],
-        profile=roads.get("profile", "emergency"),
-        boundary=roads.get("boundary"),
-        buffer_m=float(roads.get("buffer_m", 3000.0)),
-        crs=roads.get("crs"),
+        str(roads.source),
+        profile=roads.profile,
+        boundary=str(roads.boundary) if roads.boundary else None,
+        buffer_m=roads.buffer_m,
+        crs=roads.crs,
         fields=fields,
-        **({"layer": roads["layer"]} if fields and roads.get("layer") else {}),
+        **({"layer": roads.layer} if fields and roads.layer else {}),
     )
     text = report.summary_text()
     net.info["cache_key"] = key
@@ -474,15 +483,17 @@ def cached_network(study: Study, folder: Path) -> tuple[Any, str, bool]:
     return net, text, False
 
 
-def study_area(study: Study, net: Any) -> Any:
+def study_area(study: Study, net: RoadNetwork) -> shapely.Geometry | None:
     """The study's boundary as one polygon in the network's CRS, or None when the study gives none."""
     from coverkit.network.build import read_boundary
 
-    path = study.roads.get("boundary")
+    path = study.roads.boundary
     return read_boundary(path).to_crs(net.crs).union_all() if path else None
 
 
-def load_inputs(study: Study, net: Any) -> tuple[Any, dict[str, Any], dict[str, str], dict[str, float]]:
+def load_inputs(
+    study: Study, net: RoadNetwork
+) -> tuple[gpd.GeoDataFrame, dict[str, gpd.GeoDataFrame], dict[str, str], dict[str, float]]:
     """The bases and demand layers of a study, projected to the network's CRS.
 
     Returns
@@ -495,26 +506,25 @@ def load_inputs(study: Study, net: Any) -> tuple[Any, dict[str, Any], dict[str, 
     from coverkit.travel import read_points
 
     bases = read_points(
-        study.bases["file"],
+        str(study.bases.file),
         net.crs,
-        id_field=study.bases.get("id_field", "id"),
+        id_field=study.bases.id_field,
         what="bases",
-        layer=study.bases.get("layer"),
+        layer=study.bases.layer,
     )
     demand = {}
     for spec in study.demand:
-        o = spec.options
         demand[spec.name] = load_demand(
             spec.path,
             net,
-            where=o.get("where"),
-            population_field=o.get("population_field"),
-            weight_field=o.get("weight_field"),
-            id_field=o.get("id_field", "id"),
-            time_field=o.get("time_field"),
-            start=o.get("start"),
-            end=o.get("end"),
-            max_rejected_share=float(o.get("max_rejected_share", DEFAULT_MAX_REJECTED_SHARE)),
+            where=spec.where,
+            population_field=spec.population_field,
+            weight_field=spec.weight_field,
+            id_field=spec.id_field,
+            time_field=spec.time_field,
+            start=spec.start,
+            end=spec.end,
+            max_rejected_share=spec.max_rejected_share,
         )
     kinds = {spec.name: spec.kind for spec in study.demand}
     snaps = {spec.name: spec.snap_m for spec in study.demand}
@@ -544,7 +554,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
 
     if not isinstance(study, Study):
         study = load_study(study)
-    folder = Path(out) if out else study.folder / study.outputs.get("folder", "results")
+    folder = Path(out) if out else study.folder / study.outputs.folder
     folder.mkdir(parents=True, exist_ok=True)
     opts = study.outputs
     steps = Steps(6, "study")
@@ -560,30 +570,29 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     if study.zones:
         import pyogrio
 
-        zones = pyogrio.read_dataframe(study.zones["file"], layer=study.zones.get("layer"))
+        zones = pyogrio.read_dataframe(study.zones.file, layer=study.zones.layer)
         if zones.crs is None:
-            raise StudyError(f"{study.zones['file']}: the zones layer has no CRS; assign one.")
+            raise StudyError(f"{study.zones.file}: the zones layer has no CRS; assign one.")
 
     steps.step("drive-time polygons and travel-time surface")
-    minutes = opts["isochrone_minutes"]
-    reach_m = float(opts.get("reach_m", 150.0))
+    minutes = list(opts.isochrone_minutes)
     polygons = drive_time_polygons(
         net,
         bases,
         minutes,
-        reach_m=reach_m,
+        reach_m=opts.reach_m,
         direction=study.direction,
-        max_snap_m=float(study.bases.get("snap_m", 500.0)),
+        max_snap_m=study.bases.snap_m,
     )
     surface_path = write_travel_surface(
         net,
         bases,
         output_file(folder, "surface"),
         max(minutes),
-        cell_m=float(opts.get("surface_cell_m", 50.0)),
-        reach_m=reach_m,
+        cell_m=opts.surface_cell_m,
+        reach_m=opts.reach_m,
         direction=study.direction,
-        max_snap_m=float(study.bases.get("snap_m", 500.0)),
+        max_snap_m=study.bases.snap_m,
     )
 
     steps.step(
@@ -595,7 +604,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     rows = []
     # one search per demand layer serves every standard: the horizon covers the longest standard
     horizon_s = study.horizon_s
-    base_snap_m = float(study.bases.get("snap_m", 500.0))
+    base_snap_m = study.bases.snap_m
     tables = {
         name: travel_table(net, bases, dem, horizon_s, snaps[name], base_snap_m, study.direction)
         for name, dem in demand.items()
@@ -607,7 +616,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             res = evaluate_coverage(net, bases, dem, std, table=tables[name])
             results[name] = res
             if zones is not None:
-                zone_tables[name] = compliance_by_zone(res, zones, study.zones["id_field"])
+                zone_tables[name] = compliance_by_zone(res, zones, study.zones.id_field)
             if "priority" in dem.columns:
                 prio_tables[name] = compliance_by(res, "priority")
             base_tables[name] = per_base(res)
@@ -616,8 +625,8 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             net,
             results[residents],
             incidents=results[incidents] if incidents else None,
-            cell_m=float(opts.get("grid_cell_m", 100.0)),
-            reach_m=float(opts.get("reach_m", 150.0)) + 50.0,
+            cell_m=opts.grid_cell_m,
+            reach_m=opts.area_reach_m,
             grid=grid,
             area=area,
         )
@@ -643,31 +652,31 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         from coverkit.site_plan import build_problem, generate_candidates, solve
 
         cfg = study.siting
-        std = study.standard_named(cfg.get("standard"), "siting.standard")
-        dname = study.demand_named(cfg.get("demand"), "siting.demand", "residents")
-        if "candidates" in cfg:
-            candidates = read_points(cfg["candidates"], net.crs, what="candidates")
+        std = study.standard_named(cfg.standard, "siting.standard")
+        dname = study.demand_named(cfg.demand, "siting.demand", "residents")
+        if cfg.candidates is not None:
+            candidates = read_points(str(cfg.candidates), net.crs, what="candidates")
         else:
-            candidates = generate_candidates(net, cfg["generate"], float(cfg.get("spacing_m", 1500.0)))
+            candidates = generate_candidates(net, cfg.generate, cfg.spacing_m)
         problem = build_problem(
             net,
             bases,
             candidates,
             demand[dname],
             std,
-            relocate=cfg.get("relocate", False),
+            relocate=cfg.relocate,
             max_snap_m=snaps[dname],
             base_snap_m=base_snap_m,
         )
         site_plan = solve(
             problem,
-            cfg.get("model", "mclp"),
-            add=cfg.get("add"),
-            target=cfg.get("target"),
-            q=cfg.get("busy_fraction"),
-            method=cfg.get("method", "auto"),
-            time_limit_s=float(cfg.get("time_limit_s", 60.0)),
-            curve_to=cfg.get("curve"),
+            cfg.model,
+            add=cfg.add,
+            target=cfg.target,
+            q=cfg.busy_fraction,
+            method=cfg.method,
+            time_limit_s=cfg.time_limit_s,
+            curve_to=cfg.curve,
         )
         site_plan.summary["demand"] = dname
         layers[layer_name("site_chosen")] = site_plan.chosen
@@ -679,21 +688,21 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         from coverkit.availability import availability as run_availability
 
         cfg = study.availability
-        std = study.standard_named(cfg.get("standard"), "availability.standard")
-        dname = study.demand_named(cfg.get("demand"), "availability.demand", "incidents")
-        options = {spec.name: spec.options for spec in study.demand}
+        std = study.standard_named(cfg.standard, "availability.standard")
+        dname = study.demand_named(cfg.demand, "availability.demand", "incidents")
+        spec = next(d for d in study.demand if d.name == dname)
         avail = run_availability(
             net,
             bases,
             demand[dname],
             std,
-            float(cfg["service_min"]),
-            calls_per_h=cfg.get("calls_per_h"),
-            queue=cfg.get("queue", "infinite"),
-            method=cfg.get("method", "auto"),
-            time_field=cfg.get("time_field", "received_at"),
+            cfg.service_min,
+            calls_per_h=cfg.calls_per_h,
+            queue=cfg.queue,
+            method=cfg.method,
+            time_field=cfg.time_field,
             max_snap_m=snaps[dname],
-            window=(options[dname].get("start"), options[dname].get("end")),
+            window=(spec.start, spec.end),
         )
         avail.summary["demand"] = dname
         layers[layer_name("availability_units")] = avail.units
@@ -704,9 +713,10 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
 
         cfg = study.calibration
         observed = read_observed(
-            cfg["observed"], base_ids=bases["id"].astype(str).tolist(), bases_name=Path(study.bases["file"]).name
+            str(cfg.observed), base_ids=bases["id"].astype(str).tolist(), bases_name=study.bases.file.name
         )
-        calibration = calibrate_speeds(net, bases, observed, hours=cfg.get("hours"), source=Path(cfg["observed"]).name)
+        hours = list(cfg.hours) if cfg.hours is not None else None
+        calibration = calibrate_speeds(net, bases, observed, hours=hours, source=cfg.observed.name)
         outputs["calibrated_profile"] = write_calibrated_profile(calibration, output_file(folder, "calibrated_profile"))
         outputs["calibration_chart"] = calibration_chart(calibration, map_file(folder, "calibration"))
         layers[layer_name("calibration_classes")] = calibration.classes
@@ -732,10 +742,10 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     )
 
     steps.step("maps and report")
-    if opts.get("maps", True) or opts.get("report", True):
+    if opts.maps or opts.report:
         from coverkit.report.study_report import write_study_report
 
-        outputs.update(write_study_report(result, folder, html=opts.get("report", True)))
+        outputs.update(write_study_report(result, folder, html=opts.report))
     return result
 
 

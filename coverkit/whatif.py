@@ -16,6 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 import shapely
 
+from coverkit import settings
 from coverkit.coverage import (
     CoverageResult,
     Standard,
@@ -165,8 +166,8 @@ class WhatIf:
         standards: Standard | list[Standard],
         horizon_s: float | None = None,
         direction: str = "out",
-        demand_snap_m: float | dict[str, float] = 500.0,
-        base_snap_m: float = 500.0,
+        demand_snap_m: float | dict[str, float] = settings.SNAP_M,
+        base_snap_m: float = settings.SNAP_M,
     ) -> None:
         self.net = net
         self.bases = bases.reset_index(drop=True)
@@ -176,7 +177,7 @@ class WhatIf:
         self.direction = direction
         self.base_snap_m = float(base_snap_m)
         snaps = demand_snap_m if isinstance(demand_snap_m, dict) else dict.fromkeys(self.demand, demand_snap_m)
-        self.demand_snap_m = {k: float(snaps.get(k, 500.0)) for k in self.demand}
+        self.demand_snap_m = {k: float(snaps.get(k, settings.SNAP_M)) for k in self.demand}
         self.base_snap = snap_points(net, self.bases, max_snap_m=self.base_snap_m, off_network="raise", what="bases")
         note(f"what-if: searching from {len(self.bases)} bases (horizon {self.horizon_s:g} s)")
         self.node_t = node_times(net, self.base_snap, self.horizon_s, direction)

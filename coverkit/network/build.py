@@ -20,6 +20,7 @@ from pyproj import CRS, Geod
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import connected_components
 
+from coverkit import settings
 from coverkit.errors import InputFileError, NetworkError
 from coverkit.network.crs import parse_crs, transform_geometry, transform_xy, utm_crs_for
 from coverkit.network.model import RoadNetwork
@@ -169,9 +170,9 @@ def read_boundary(path: str | Path) -> gpd.GeoSeries:
 
 def build_network(
     source: str | Path,
-    profile: str | Path | Profile = "emergency",
+    profile: str | Path | Profile = settings.PROFILE,
     boundary: str | Path | None = None,
-    buffer_m: float = 3000.0,
+    buffer_m: float = settings.BUFFER_M,
     crs: str | CRS | None = None,
     fields: dict[str, str] | None = None,
     **layer_options,

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from coverkit import CAUTION, __version__
+from coverkit.demand_sources import row_word
 from coverkit.layer_names import map_file, output_file, slug
 from coverkit.report.html import HtmlReport
 from coverkit.report.maps import MapFrame, difference_map, gaps_map, study_frame
@@ -44,11 +45,11 @@ def _closure_areas(run: CompareRun) -> gpd.GeoDataFrame | None:
 def _frame(run: CompareRun, bases: gpd.GeoDataFrame) -> MapFrame:
     crs = run.network_after.crs
     study = run.study
-    boundary = gpd.read_file(study.roads["boundary"]).to_crs(crs) if study.roads.get("boundary") else None
+    boundary = gpd.read_file(study.roads.boundary).to_crs(crs) if study.roads.boundary else None
     zones = zone_field = None
     if study.zones:
-        zones = gpd.read_file(study.zones["file"], layer=study.zones.get("layer")).to_crs(crs)
-        zone_field = study.zones["id_field"]
+        zones = gpd.read_file(study.zones.file, layer=study.zones.layer).to_crs(crs)
+        zone_field = study.zones.id_field
     return study_frame(
         crs, boundary=boundary, zones=zones, zone_field=zone_field, include=[bases],
         fallback_bounds=run.network_after.nodes.total_bounds,
@@ -65,7 +66,7 @@ def write_compare_report(run: CompareRun, folder: Path) -> dict[str, Path]:
     closures = _closure_areas(run)
     closed = run.changes.closed if len(run.changes.closed) else None
     kinds = {spec.name: spec.kind for spec in run.study.demand}
-    words = {spec.name: ("cells" if spec.source_kind == "raster" else "points") for spec in run.study.demand}
+    words = {spec.name: row_word(spec.source_kind) for spec in run.study.demand}
     residents = next((n for n, k in kinds.items() if k == "residents"), run.study.demand[0].name)
     images = {}
     for std_name, ca in run.areas.items():

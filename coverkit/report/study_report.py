@@ -15,6 +15,7 @@ import rasterio
 
 from coverkit import CAUTION, __version__, siting_models
 from coverkit.coverage import GAP_COUNT_PREFIX, gap_count_columns
+from coverkit.demand_sources import row_word
 from coverkit.layer_names import map_file, output_file, slug
 from coverkit.report.html import HtmlReport
 from coverkit.report.maps import (
@@ -71,12 +72,12 @@ def study_map_frame(run: StudyRun, bases: gpd.GeoDataFrame) -> MapFrame:
     """One extent, the boundary and the zones for every map of a study."""
     crs = run.network.crs
     boundary = zones = None
-    if run.study.roads.get("boundary"):
-        boundary = gpd.read_file(run.study.roads["boundary"]).to_crs(crs)
+    if run.study.roads.boundary:
+        boundary = gpd.read_file(run.study.roads.boundary).to_crs(crs)
     zone_field = None
     if run.study.zones:
-        zones = gpd.read_file(run.study.zones["file"], layer=run.study.zones.get("layer")).to_crs(crs)
-        zone_field = run.study.zones["id_field"]
+        zones = gpd.read_file(run.study.zones.file, layer=run.study.zones.layer).to_crs(crs)
+        zone_field = run.study.zones.id_field
     return study_frame(
         crs,
         boundary=boundary,
@@ -92,11 +93,11 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
     out: dict[str, Path] = {}
     roads = run.network.road_lines()
     bases = run.bases.rename(columns={"id": "base_id"})
-    minutes = run.study.outputs["isochrone_minutes"]
+    minutes = list(run.study.outputs.isochrone_minutes)
     first_std = run.runs[0].standard
     frame = study_map_frame(run, bases)
     kinds = {spec.name: spec.kind for spec in run.study.demand}
-    words = {spec.name: ("cells" if spec.source_kind == "raster" else "points") for spec in run.study.demand}
+    words = {spec.name: row_word(spec.source_kind) for spec in run.study.demand}
     with rasterio.open(run.surface_path) as src:
         surface = src.read(1).astype(float)
         surface[surface == src.nodata] = np.nan
@@ -176,14 +177,14 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
 
     rep.add_heading("Inputs")
     inputs = [
-        f"Roads: {Path(run.study.roads['source']).name} -> {run.network.n_nodes:,} nodes, "
+        f"Roads: {run.study.roads.source.name} -> {run.network.n_nodes:,} nodes, "
         f"{run.network.n_edges:,} directed edges (CRS {run.network.crs.name})",
         f"Speed profile: {run.network.profile.name} - {run.network.profile.description}",
-        f"Bases: {Path(run.study.bases['file']).name} ({plural(len(run.bases), 'base')})",
+        f"Bases: {run.study.bases.file.name} ({plural(len(run.bases), 'base')})",
     ]
     for spec in run.study.demand:
         d = run.demand[spec.name]
-        extra = f", filter: {spec.options['where']}" if spec.options.get("where") else ""
+        extra = f", filter: {spec.where}" if spec.where else ""
         unit = ("person", "people") if spec.kind == "residents" else ("call", "calls")
         word = words[spec.name]
         inputs.append(
@@ -191,7 +192,7 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
             f"{plural(float(d['weight'].sum()), *unit)}{extra}"
         )
     if run.study.zones:
-        inputs.append(f"Zones: {Path(run.study.zones['file']).name} by '{run.study.zones['id_field']}'")
+        inputs.append(f"Zones: {run.study.zones.file.name} by '{run.study.zones.id_field}'")
     rep.add_list(inputs)
     rep.add_heading("Standards evaluated", 3)
     rep.add_list([s.describe() for s in run.study.standards])

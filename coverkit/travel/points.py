@@ -17,6 +17,7 @@ import pandas as pd
 import shapely
 from pyproj import CRS
 
+from coverkit import settings
 from coverkit.errors import FieldError, InputFileError
 from coverkit.progress import note
 
@@ -29,7 +30,7 @@ LAT_NAMES = ("lat", "latitude", "y")
 #: Delimiters a CSV may use; the one found most often in the header line is taken.
 CSV_DELIMITERS = (",", ";", "\t")
 #: Default share of rows a point file may lose to bad coordinates before the import stops (1 %).
-DEFAULT_MAX_REJECTED_SHARE = 0.01
+DEFAULT_MAX_REJECTED_SHARE = settings.MAX_REJECTED_SHARE
 
 #: Names of the delimiters, for messages.
 DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab"}

@@ -20,13 +20,14 @@ import numpy as np
 import shapely
 from scipy.sparse.csgraph import connected_components
 
+from coverkit import settings
 from coverkit.errors import OffNetworkError
 from coverkit.network.model import GEOMETRY_CACHE, RoadNetwork
 from coverkit.progress import warn
 from coverkit.travel.nearest import nearest_pieces, segment_index
 
 #: Default snap limit (m): a point farther than this from any road is off-network.
-DEFAULT_MAX_SNAP_M = 500.0
+DEFAULT_MAX_SNAP_M = settings.SNAP_M
 
 #: Relative tolerance on length for two opposite directed edges to count as one two-way street.
 _TWIN_REL_TOL = 1e-6
