@@ -5,6 +5,8 @@ Draws and tabulates what the study computed; no number is computed here that the
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -94,7 +96,6 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
     roads = run.network.road_lines()
     bases = run.bases.rename(columns={"id": "base_id"})
     minutes = list(run.study.outputs.isochrone_minutes)
-    first_std = run.runs[0].standard
     frame = study_map_frame(run, bases)
     kinds = {spec.name: spec.kind for spec in run.study.demand}
     words = {spec.name: row_word(spec.source_kind) for spec in run.study.demand}
@@ -167,6 +168,31 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         return out
 
     rep = HtmlReport(f"{run.study.name} - coverage study")
+    page = ReportPage(run, folder, rep, out, images, words)
+    for section in REPORT_SECTIONS:
+        if section.applies(run):
+            section.write(page)
+    out["report"] = rep.write(output_file(folder, "report"))
+    return out
+
+
+@dataclass(frozen=True)
+class ReportPage:
+    """What every report section draws on: the run, the output folder, the report being written, the maps written
+    so far (``out``; a section may add its own), the maps of each standard and the word for each demand layer's
+    rows."""
+
+    run: StudyRun
+    folder: Path
+    rep: HtmlReport
+    out: dict[str, Path]
+    images: dict[str, object]
+    words: dict[str, str]
+
+
+def _key_figures(page: ReportPage) -> None:
+    run, rep = page.run, page.rep
+    first_std = run.runs[0].standard
     figures = {}
     for r in run.summary.itertuples(index=False):
         if r.standard == first_std.name:
@@ -175,6 +201,9 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
     figures["bases"] = f"{len(run.bases):,}"
     rep.add_key_figures(figures)
 
+
+def _inputs(page: ReportPage) -> None:
+    run, rep = page.run, page.rep
     rep.add_heading("Inputs")
     inputs = [
         f"Roads: {run.study.roads.source.name} -> {run.network.n_nodes:,} nodes, "
@@ -186,7 +215,7 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         d = run.demand[spec.name]
         extra = f", filter: {spec.where}" if spec.where else ""
         unit = ("person", "people") if spec.kind == "residents" else ("call", "calls")
-        word = words[spec.name]
+        word = page.words[spec.name]
         inputs.append(
             f"Demand '{spec.name}' ({spec.kind}): {spec.path.name}, {plural(len(d), word[:-1], word)}, "
             f"{plural(float(d['weight'].sum()), *unit)}{extra}"
@@ -197,6 +226,9 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
     rep.add_heading("Standards evaluated", 3)
     rep.add_list([s.describe() for s in run.study.standards])
 
+
+def _assumptions(page: ReportPage) -> None:
+    run, rep = page.run, page.rep
     rep.add_heading("Assumptions")
     rep.add_list(
         [
@@ -212,6 +244,9 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
         ]
     )
 
+
+def _summary(page: ReportPage) -> None:
+    run, rep = page.run, page.rep
     rep.add_heading("Summary")
     table = run.summary[
         [
@@ -230,8 +265,11 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
     _table(rep, table, "Coverage per standard and demand layer")
     rep.add_heading("Drive-time polygons", 3)
     _table(rep, run.polygons, "Area and road reached per base and band")
-    rep.add_image(out["map_surface"], "Travel time from the nearest base")
+    rep.add_image(page.out["map_surface"], "Travel time from the nearest base")
 
+
+def _standards(page: ReportPage) -> None:
+    run, rep, out, words = page.run, page.rep, page.out, page.words
     for srun in run.runs:
         s = slug(srun.standard.name)
         rep.add_heading(f"Standard: {srun.standard.describe()}")
@@ -242,63 +280,96 @@ def write_study_report(run: StudyRun, folder: Path, html: bool = True) -> dict[s
                 _table(rep, table, f"Compliance by {label} - {name}", words.get(name, "points"))
         gaps = srun.areas.gaps.head(10)
         _table(rep, gaps, "Largest gaps (demand not covered inside each)")
-        depth, gaps_png, first_png = images[s]
+        depth, gaps_png, first_png = page.images[s]
         rep.add_image(depth, f"Coverage depth - {srun.standard.name}")
         rep.add_image(gaps_png, f"Gaps - {srun.standard.name}")
         rep.add_image(first_png, f"First-due areas - {srun.standard.name}")
         for kind, what in (("second_due", "Second-due"), ("third_due", "Third-due")):
             if f"map_{kind}_{s}" in out:
                 rep.add_image(out[f"map_{kind}_{s}"], f"{what} areas - {srun.standard.name}")
-    if run.site_plan is not None:
-        plan = run.site_plan
-        sm = plan.summary
-        rep.add_heading("Where a new station would help")
-        rep.add_paragraph(
-            f"Model {sm['model']} ({_MODEL_SOURCES.get(sm['model'], '')}) on demand '{sm['demand']}', "
-            f"{sm['standard']}. Solved by {sm['method']}: {sm['status']}, gap {sm['mip_gap'] * 100:.3f} % to the "
-            f"{sm['bound_source']}. Covered {sm['covered_share_before'] * 100:.1f} % with the existing bases, "
-            f"{sm['covered_share_after'] * 100:.1f} % with the chosen sites."
-        )
-        _table(rep, plan.chosen, "Chosen sites and what each adds")
-        curve = plan.curve[["new_sites", "covered_share", "gain_share", "fractile_response_s", "site_ids"]]
-        _table(rep, curve, "Coverage curve: best sites for each number of new stations")
-        out["site_curve"] = site_curve_chart(plan, map_file(folder, "site_curve"), str(sm["standard"]))
-        rep.add_image(out["site_curve"], "Coverage curve")
-        _table(rep, plan.ranking, "Every candidate alone: what it adds to the existing bases")
-    if run.availability is not None:
-        av = run.availability
-        a = av.summary
-        rep.add_heading("Busy units: who actually responds")
-        rep.add_paragraph(
-            f"Hypercube model ({a['method']}, {a['queue']} queue; Larson 1974, 1975) with closest-available "
-            f"dispatch on the network's travel times: {a['calls_per_h']:.2f} calls per hour on demand "
-            f"'{a['demand']}', {a['mean_service_min']:g} min busy per call ({a['offered_load_erlang']:.2f} erlang) "
-            f"over {plural(a['units'], 'unit')}. {a['standard']}."
-        )
-        rep.add_key_figures(
-            {
-                "reached in standard, drive time only": f"{a['drive_time_coverage'] * 100:.1f} %",
-                "reached by the unit that answers": f"{a['availability_coverage'] * 100:.1f} %",
-                "mean travel of the answering unit": f"{a['expected_travel_s'] / 60:.1f} min",
-                "chance all units busy": f"{a['all_busy_probability'] * 100:.2f} %",
-            }
-        )
-        _table(rep, av.units, "Unit workloads (share of time busy) and calls answered per hour")
-    if run.calibration is not None:
-        cal = run.calibration
-        rep.add_heading("Modelled against observed travel times")
-        rep.add_paragraph(
-            f"{plural(cal.n_used, 'observed response')} matched to modelled routes; one speed multiplier per road "
-            "class fitted by bounded robust least squares with re-routing. The calibrated profile is written beside "
-            "this report; the coverage above uses the study's profile, not the calibrated one."
-        )
-        _table(rep, cal.errors, "Errors before and after calibration, by route length")
-        _table(rep, cal.classes, "Fitted factors per road class")
-        rep.add_image(run.outputs["calibration_chart"], "Observed and modelled travel times")
-    rep.add_heading("About this report")
-    rep.add_paragraph(f"Made with coverkit {__version__}. {CAUTION}")
-    out["report"] = rep.write(output_file(folder, "report"))
-    return out
+
+
+def _siting(page: ReportPage) -> None:
+    rep = page.rep
+    plan = page.run.site_plan
+    sm = plan.summary
+    rep.add_heading("Where a new station would help")
+    rep.add_paragraph(
+        f"Model {sm['model']} ({_MODEL_SOURCES.get(sm['model'], '')}) on demand '{sm['demand']}', "
+        f"{sm['standard']}. Solved by {sm['method']}: {sm['status']}, gap {sm['mip_gap'] * 100:.3f} % to the "
+        f"{sm['bound_source']}. Covered {sm['covered_share_before'] * 100:.1f} % with the existing bases, "
+        f"{sm['covered_share_after'] * 100:.1f} % with the chosen sites."
+    )
+    _table(rep, plan.chosen, "Chosen sites and what each adds")
+    curve = plan.curve[["new_sites", "covered_share", "gain_share", "fractile_response_s", "site_ids"]]
+    _table(rep, curve, "Coverage curve: best sites for each number of new stations")
+    page.out["site_curve"] = site_curve_chart(plan, map_file(page.folder, "site_curve"), str(sm["standard"]))
+    rep.add_image(page.out["site_curve"], "Coverage curve")
+    _table(rep, plan.ranking, "Every candidate alone: what it adds to the existing bases")
+
+
+def _availability(page: ReportPage) -> None:
+    rep = page.rep
+    av = page.run.availability
+    a = av.summary
+    rep.add_heading("Busy units: who actually responds")
+    rep.add_paragraph(
+        f"Hypercube model ({a['method']}, {a['queue']} queue; Larson 1974, 1975) with closest-available "
+        f"dispatch on the network's travel times: {a['calls_per_h']:.2f} calls per hour on demand "
+        f"'{a['demand']}', {a['mean_service_min']:g} min busy per call ({a['offered_load_erlang']:.2f} erlang) "
+        f"over {plural(a['units'], 'unit')}. {a['standard']}."
+    )
+    rep.add_key_figures(
+        {
+            "reached in standard, drive time only": f"{a['drive_time_coverage'] * 100:.1f} %",
+            "reached by the unit that answers": f"{a['availability_coverage'] * 100:.1f} %",
+            "mean travel of the answering unit": f"{a['expected_travel_s'] / 60:.1f} min",
+            "chance all units busy": f"{a['all_busy_probability'] * 100:.2f} %",
+        }
+    )
+    _table(rep, av.units, "Unit workloads (share of time busy) and calls answered per hour")
+
+
+def _calibration(page: ReportPage) -> None:
+    rep = page.rep
+    cal = page.run.calibration
+    rep.add_heading("Modelled against observed travel times")
+    rep.add_paragraph(
+        f"{plural(cal.n_used, 'observed response')} matched to modelled routes; one speed multiplier per road "
+        "class fitted by bounded robust least squares with re-routing. The calibrated profile is written beside "
+        "this report; the coverage above uses the study's profile, not the calibrated one."
+    )
+    _table(rep, cal.errors, "Errors before and after calibration, by route length")
+    _table(rep, cal.classes, "Fitted factors per road class")
+    rep.add_image(page.run.outputs["calibration_chart"], "Observed and modelled travel times")
+
+
+def _about(page: ReportPage) -> None:
+    page.rep.add_heading("About this report")
+    page.rep.add_paragraph(f"Made with coverkit {__version__}. {CAUTION}")
+
+
+@dataclass(frozen=True)
+class ReportSection:
+    """One section of the study report: its name, whether a run has it, and the function that writes it."""
+
+    name: str
+    write: Callable[[ReportPage], None]
+    applies: Callable[[StudyRun], bool] = lambda run: True
+
+
+#: The study report's sections, in page order: adding a section is one entry here and its function above.
+REPORT_SECTIONS: tuple[ReportSection, ...] = (
+    ReportSection("key_figures", _key_figures),
+    ReportSection("inputs", _inputs),
+    ReportSection("assumptions", _assumptions),
+    ReportSection("summary", _summary),
+    ReportSection("standards", _standards),
+    ReportSection("siting", _siting, lambda run: run.site_plan is not None),
+    ReportSection("availability", _availability, lambda run: run.availability is not None),
+    ReportSection("calibration", _calibration, lambda run: run.calibration is not None),
+    ReportSection("about", _about),
+)
 
 
 def site_curve_values(model: str, curve: pd.DataFrame) -> tuple[list[float], str]:
