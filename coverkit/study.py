@@ -391,8 +391,11 @@ class StudyRun:
 
 
 def standard_layers(
-    standard: str, demand: dict[str, Any], areas: Any, tables: dict[str, dict[str, Any]]
-) -> dict[str, Any]:
+    standard: str,
+    demand: dict[str, gpd.GeoDataFrame],
+    areas: AreaLayers,
+    tables: dict[str, dict[str, pd.DataFrame]],
+) -> dict[str, pd.DataFrame]:
     """The layers of one standard, named by :mod:`coverkit.layer_names` (the same for `run` and `cover`).
 
     Parameters
@@ -407,7 +410,7 @@ def standard_layers(
     tables
         ``{kind: {demand name: table}}`` for the kinds ``by_base``, ``by_zone``, ``by_priority``.
     """
-    out: dict[str, Any] = {}
+    out: dict[str, pd.DataFrame] = {}
     for name, table in demand.items():
         out[layer_name("demand", name, standard)] = table
     for kind in ("first_due", "second_due", "third_due"):
@@ -422,7 +425,7 @@ def standard_layers(
     return out
 
 
-def polygon_layers(polygons: Any) -> dict[str, Any]:
+def polygon_layers(polygons: gpd.GeoDataFrame) -> dict[str, gpd.GeoDataFrame]:
     """Drive-time polygons as their two layers: per base, and per band from any base (when present)."""
     from coverkit.isochrones import ANY_BASE_ID
 
@@ -639,7 +642,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
 
     steps.step("writing layers and tables")
     outputs: dict[str, Path] = {"network": output_file(folder, "network"), "surface": surface_path}
-    layers: dict[str, Any] = {layer_name("bases"): bases, **polygon_layers(polygons)}
+    layers: dict[str, pd.DataFrame] = {layer_name("bases"): bases, **polygon_layers(polygons)}
     for run in runs:
         demand_tables = {name: res.demand for name, res in run.results.items()}
         tables = {"by_base": run.per_base, "by_zone": run.zones, "by_priority": run.by_priority}
