@@ -15,7 +15,7 @@ import pandas as pd
 
 from coverkit import settings
 from coverkit.coverage import Standard, travel_table, weighted_fractile
-from coverkit.errors import FieldError, ModelError
+from coverkit.errors import PARAM, FieldError, ModelError
 from coverkit.network.model import RoadNetwork
 from coverkit.queueing import (
     availability_coverage,
@@ -46,21 +46,25 @@ def call_rate_per_h(
     """
     if time_field not in demand.columns:
         raise FieldError(
-            f"demand has no time field '{time_field}' to derive the call rate; give the call rate (calls per hour) "
-            "or name the time field."
+            f"demand has no time field '{time_field}' to derive the call rate; give {PARAM}, the call rate "
+            "(calls per hour), or name the time field.",
+            param="calls_per_h",
         )
     stamps = pd.to_datetime(demand[time_field], errors="coerce", format="ISO8601")
     if stamps.isna().any():
         raise FieldError(
-            f"field '{time_field}' has values that are not ISO 8601 times; fix them or give the call rate (calls per "
-            "hour)."
+            f"field '{time_field}' has values that are not ISO 8601 times; fix them or give {PARAM}, the call "
+            "rate (calls per hour).",
+            param="calls_per_h",
         )
     first = pd.Timestamp(start) if start else stamps.min()
     last = pd.Timestamp(end) if end else stamps.max()
     span_h = (last - first).total_seconds() / 3600.0
     if not span_h >= 24:
         raise FieldError(
-            f"the incidents span only {span_h:.1f} h; give the call rate (calls per hour) for so short a record."
+            f"the incidents span only {span_h:.1f} h; give {PARAM}, the call rate (calls per hour), for so short a "
+            "record.",
+            param="calls_per_h",
         )
     return float(demand["weight"].sum()) / span_h
 
@@ -111,7 +115,14 @@ def availability(
         The (start, end) the incidents were selected from (ISO 8601, either open): the call rate is counted over it.
     """
     if not mean_service_min > 0:
-        raise ModelError(f"the mean service time must be positive minutes, got {mean_service_min}.")
+        raise ModelError(
+            f"{PARAM}, the mean service time, must be positive minutes, got {mean_service_min}.",
+            param="mean_service_min",
+        )
+    if calls_per_h is not None and not calls_per_h >= 0:  # 0 or None: counted from the incidents' timestamps
+        raise ModelError(
+            f"{PARAM}, the call rate, must be a number of calls per hour >= 0, got {calls_per_h}.", param="calls_per_h"
+        )
     units_per_station = (
         pd.to_numeric(bases["units"], errors="coerce").fillna(1).astype(int).to_numpy()
         if "units" in bases.columns

@@ -62,7 +62,7 @@ from coverkit.travel.points import (
     rejected_text,
 )
 from coverkit.travel.routes import Routes, shortest_routes
-from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, snap_points
+from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, snap_points
 
 #: Upper edges of the route-length bands (km); the last band is open (``> 10 km``).
 DEFAULT_BANDS_KM = (2.0, 5.0, 10.0)
@@ -550,62 +550,12 @@ def calibrate_speeds(
     ProfileError
         The profile lacks a road class of the network.
     """
-    _check_bands(bands_km)
-    if loss not in _LOSSES:
-        raise FieldError(f"loss '{loss}' is not known; use one of {', '.join(_LOSSES)}.")
-    lo, hi = (float(b) for b in bounds)
-    if not (0 < lo < 1 < hi and math.isfinite(hi)):
-        raise FieldError(f"multiplier bounds ({lo:g}, {hi:g}) must satisfy 0 < low < 1 < high, e.g. (0.3, 3.0).")
+    lo, hi = _check_fit_options(bands_km, loss, bounds)
     prof0 = net.profile if profile is None else profile if isinstance(profile, Profile) else load_profile(profile)
-    # rows the reader left out for want of a position count among the rows read (see read_observed)
-    n_rejected = len(observed.attrs["rejected"]) if "rejected" in observed.attrs else 0
-    n_rows = len(observed) + n_rejected
-    obs = observed.reset_index(drop=True)
-    if "line" not in obs.columns:
-        obs = obs.assign(line=np.arange(len(obs)) + 2)
-
-    n_outside = 0
-    if hours is not None:
-        wanted = sorted({int(h) for h in hours})
-        if "hour" not in obs.columns or obs["hour"].isna().all():
-            raise FieldError(
-                f"hours {wanted} were chosen, but {source or 'the observed times'} has no hour column; "
-                "add hour (0-23) or leave the hours out."
-            )
-        keep = obs["hour"].isin(wanted).fillna(False).to_numpy(dtype=bool)
-        n_outside = int((~keep).sum())
-        obs = obs[keep].reset_index(drop=True)
-        if len(obs) == 0:
-            raise ModelError(f"no observation has an hour in {wanted}; choose other hours or leave them out.")
+    obs, n_rows, n_rejected, n_outside = _prepare_observed(observed, hours, source)
 
     base0 = retime_network(net, prof0, note_text=f"timed with profile '{prof0.name}'")
-    # bases: only those the observations name, snapped strictly (a base off the road is a data error)
-    base_ids = bases["id"].astype(str).to_numpy()
-    known = set(base_ids)
-    unknown = sorted(set(obs["base_id"].astype(str)) - known)
-    if unknown:
-        row = obs.loc[obs["base_id"].astype(str) == unknown[0], "line"].iloc[0]
-        raise FieldError(
-            f"{source or 'observed times'}: line {row} names base '{unknown[0]}', which is not among the bases; "
-            "fix the base_id or add the base."
-        )
-    used_bases = np.flatnonzero(np.isin(base_ids, obs["base_id"].astype(str).unique()))
-    b_snap = snap_points(base0, bases.iloc[used_bases], ids=base_ids[used_bases], what="bases", warn_islands=False)
-    pos = {b: i for i, b in enumerate(base_ids[used_bases])}
-    src_idx = np.array([pos[b] for b in obs["base_id"].astype(str)], dtype=np.int64)
-    inc = gpd.GeoSeries(gpd.points_from_xy(obs["lon"], obs["lat"]), crs="EPSG:4326").to_crs(net.crs)
-    i_snap = snap_points(
-        base0,
-        inc,
-        ids=obs["line"].to_numpy(),
-        max_snap_m=max_snap_m,
-        off_network="mask",
-        what="observed incidents",
-        warn_islands=False,
-    )
-    tgt_idx = np.arange(len(obs))
-    n_off = int((~i_snap.on_network).sum())
-
+    trips = _snap_trips(base0, bases, obs, max_snap_m, source)
     classes = sorted(set(net.edges["road_class"].astype(str)))
     model = _edge_model(base0, prof0, classes)
     delay0 = prof0.signal_delay_s
@@ -619,53 +569,328 @@ def calibrate_speeds(
         return p, retime_network(net, p, note_text=f"timed with calibrated profile '{p.name}'")
 
     note("calibrate: routing the observed trips on the starting network")
-    routes = shortest_routes(base0, b_snap, i_snap, src_idx, tgt_idx)
-    found = routes.found
-    n_unreach = int((i_snap.on_network & ~found).sum())
-    usable = np.flatnonzero(found)
-    if len(usable) == 0:
-        raise OffNetworkError(
-            f"no usable observation in {source or 'the observed times'}: {n_off} of {len(obs)} incidents lie farther "
-            f"than {max_snap_m:g} m from a road and {n_unreach} cannot be reached from their base; check lon/lat "
-            "(degrees, EPSG:4326), that the network covers them, or raise the snap limit."
-        )
-
+    routes = trips.route(base0)
+    n_off = int((~trips.incidents.on_network).sum())
+    n_unreach = int((trips.incidents.on_network & ~routes.found).sum())
+    usable = np.flatnonzero(routes.found)
     obs_s = obs["observed_s"].to_numpy(dtype=float)
-    # exposure on the starting routes decides which classes are fitted (kept fixed so iterations cannot oscillate)
-    run0, _ = model.run_s(np.ones(len(classes)))
-    secs0 = _class_seconds(routes, run0, model.class_code, len(classes))[usable]
-    km0 = _class_seconds(routes, model.length_m, model.class_code, len(classes))[usable] / 1000.0
-    exposure_s = secs0.sum(axis=0)
-    n_routes = (secs0 > 0).sum(axis=0)
-    fit_mask = (exposure_s >= min_exposure_s) & (n_routes >= min_routes)
-    signal_routes = int((np.asarray(routes.delay_use[usable] @ model.signal_end) > 0).sum())
-    fit_delay = bool(fit_signal_delay and signal_routes >= min_routes)
-    n_params = int(fit_mask.sum()) + int(fit_delay)
-    need = max(min_observations, n_params + 2)
-    if len(usable) < need:
+    exposure = _exposure(routes, usable, model, len(classes), min_exposure_s, min_routes, fit_signal_delay)
+    _check_usable(
+        len(usable),
+        exposure,
+        dropped={"off-network": n_off, "unreachable": n_unreach, "outside the chosen hours": n_outside},
+        n_obs=len(obs),
+        source=source,
+        limits=dict(
+            max_snap_m=max_snap_m,
+            min_observations=min_observations,
+            min_exposure_s=min_exposure_s,
+            min_routes=min_routes,
+        ),
+    )
+
+    before_s = routes.time_s[usable].copy()
+    before_m = routes.length_m(base0)[usable]
+    fitted = _fit_rounds(
+        routes,
+        usable,
+        obs_s[usable],
+        model,
+        exposure,
+        delay0,
+        fit=dict(log_bounds=(math.log(lo), math.log(hi)), loss=loss, f_scale=f_scale),
+        reroute=lambda mult, delay: trips.route(network_for(mult, delay)[1]),
+        max_iterations=max_iterations,
+    )
+    mult, delay, routes = fitted.mult, fitted.delay_s, fitted.routes
+
+    prof_after, net_after = network_for(mult, delay)
+    after_s = routes.time_s[usable]
+    route_m = routes.length_m(net_after)[usable]
+    class_table, table, errors, kfit = _after_tables(
+        routes,
+        usable,
+        obs.iloc[usable],
+        obs_s[usable],
+        before=(before_s, before_m),
+        after=(after_s, route_m),
+        model=model,
+        net_after=net_after,
+        profiles=(prof0, prof_after),
+        classes=classes,
+        mult=mult,
+        exposure=exposure,
+        options=dict(bands_km=bands_km, bounds=(lo, hi), min_exposure_s=min_exposure_s, min_routes=min_routes),
+    )
+    return CalibrationResult(
+        profile_before=prof0,
+        profile_after=prof_after,
+        classes=class_table,
+        observations=table,
+        errors=errors,
+        kolesar=kfit,
+        signal_delay_before_s=float(delay0),
+        signal_delay_after_s=float(prof_after.signal_delay_s),
+        iterations=fitted.iterations,
+        converged=fitted.status == "stable",
+        route_status=fitted.status,
+        rounds=fitted.rounds,
+        n_rows=n_rows,
+        n_rejected=n_rejected,
+        n_off_network=n_off,
+        n_unreachable=n_unreach,
+        n_outside_hours=n_outside,
+        source=source,
+        settings={
+            "loss": loss,
+            "f_scale": float(f_scale),
+            "bounds": (lo, hi),
+            "min_exposure_s": float(min_exposure_s),
+            "min_routes": int(min_routes),
+            "fit_signal_delay": bool(exposure.fit_delay),
+            "bands_km": tuple(float(b) for b in bands_km),
+            "hours": None if hours is None else sorted({int(h) for h in hours}),
+            "max_snap_m": float(max_snap_m),
+        },
+        network=net_after,
+    )
+
+
+# -- stages of calibrate_speeds ---------------------------------------------------------------------------------------
+def _check_fit_options(bands_km: Sequence[float], loss: str, bounds: tuple[float, float]) -> tuple[float, float]:
+    """Check the bands, the loss and the multiplier bounds; the bounds as floats."""
+    _check_bands(bands_km)
+    if loss not in _LOSSES:
+        raise FieldError(f"loss '{loss}' is not known; use one of {', '.join(_LOSSES)}.")
+    lo, hi = (float(b) for b in bounds)
+    if not (0 < lo < 1 < hi and math.isfinite(hi)):
+        raise FieldError(f"multiplier bounds ({lo:g}, {hi:g}) must satisfy 0 < low < 1 < high, e.g. (0.3, 3.0).")
+    return lo, hi
+
+
+def _prepare_observed(observed: pd.DataFrame, hours: Iterable[int] | None, source: str):
+    """The observations to use (with ``line``, in the chosen hours); rows read, rows rejected, rows out of hours."""
+    # rows the reader left out for want of a position count among the rows read (see read_observed)
+    n_rejected = len(observed.attrs["rejected"]) if "rejected" in observed.attrs else 0
+    n_rows = len(observed) + n_rejected
+    obs = observed.reset_index(drop=True)
+    if "line" not in obs.columns:
+        obs = obs.assign(line=np.arange(len(obs)) + 2)
+    obs, n_outside = _select_hours(obs, hours, source)
+    return obs, n_rows, n_rejected, n_outside
+
+
+def _after_tables(
+    routes, usable, used_obs, obs_s, *, before, after, model, net_after, profiles, classes, mult, exposure, options
+):
+    """The result's tables on the kept routes: classes, observations, errors by band, and the Kolesar fit."""
+    prof0, prof_after = profiles
+    (before_s, _), (after_s, route_m) = before, after
+    bands_km = options["bands_km"]
+    run_after, below_cap = model.run_s(_rounded_mult(prof0, prof_after, classes))
+    secs_after = _class_seconds(routes, run_after, model.class_code, len(classes))[usable]
+    capped = _class_seconds(routes, run_after * ~below_cap, model.class_code, len(classes))[usable].sum(axis=0)
+    class_table = _class_table(
+        classes,
+        mult,
+        exposure,
+        secs_after,
+        capped,
+        prof0,
+        prof_after,
+        options["bounds"],
+        options["min_exposure_s"],
+        options["min_routes"],
+    )
+    table = _observation_table(
+        used_obs,
+        routes,
+        usable,
+        obs_s,
+        before=before,
+        after=after,
+        model=model,
+        net_after=net_after,
+        secs_after=secs_after,
+        classes=classes,
+        bands_km=bands_km,
+    )
+    errors = pd.concat(
+        [
+            error_summary(before_s, obs_s, route_m, bands_km).assign(stage="before"),
+            error_summary(after_s, obs_s, route_m, bands_km).assign(stage="after"),
+        ],
+        ignore_index=True,
+    )[["stage", "band", "n", "mae_s", "bias_s", "p90_abs_s"]]
+    try:
+        kfit = fit_kolesar(route_m, obs_s)
+    except ModelError:
+        kfit = None
+    return class_table, table, errors, kfit
+
+
+def _select_hours(obs: pd.DataFrame, hours: Iterable[int] | None, source: str) -> tuple[pd.DataFrame, int]:
+    """The observations in the chosen hours of day, and how many were left out."""
+    if hours is None:
+        return obs, 0
+    wanted = sorted({int(h) for h in hours})
+    if "hour" not in obs.columns or obs["hour"].isna().all():
+        raise FieldError(
+            f"hours {wanted} were chosen, but {source or 'the observed times'} has no hour column; "
+            "add hour (0-23) or leave the hours out."
+        )
+    keep = obs["hour"].isin(wanted).fillna(False).to_numpy(dtype=bool)
+    obs = obs[keep].reset_index(drop=True)
+    if len(obs) == 0:
+        raise ModelError(f"no observation has an hour in {wanted}; choose other hours or leave them out.")
+    return obs, int((~keep).sum())
+
+
+def _check_usable(n_usable: int, exposure: _Exposure, *, dropped: dict[str, int], n_obs: int, source: str, limits):
+    """Stop when no observation, too few observations or no road class is left to fit."""
+    n_off, n_unreach, n_outside = dropped["off-network"], dropped["unreachable"], dropped["outside the chosen hours"]
+    if n_usable == 0:
+        raise OffNetworkError(
+            f"no usable observation in {source or 'the observed times'}: {n_off} of {n_obs} incidents lie farther "
+            f"than {limits['max_snap_m']:g} m from a road and {n_unreach} cannot be reached from their base; check "
+            "lon/lat (degrees, EPSG:4326), that the network covers them, or raise the snap limit."
+        )
+    n_params = int(exposure.fit_mask.sum()) + int(exposure.fit_delay)
+    need = max(limits["min_observations"], n_params + 2)
+    if n_usable < need:
         raise ModelError(
-            f"only {len(usable)} usable observations ({n_off} off-network, {n_unreach} unreachable"
+            f"only {n_usable} usable observations ({n_off} off-network, {n_unreach} unreachable"
             + (f", {n_outside} outside the chosen hours" if n_outside else "")
             + f"); the fit needs at least {need} - add observations."
         )
     if n_params == 0:
         raise ModelError(
-            f"no road class has at least {min_exposure_s:g} s of observed travel in {min_routes} routes; add "
-            "observations or lower the exposure threshold."
+            f"no road class has at least {limits['min_exposure_s']:g} s of observed travel in {limits['min_routes']} "
+            "routes; add observations or lower the exposure threshold."
         )
 
-    fit_classes = np.flatnonzero(fit_mask)
-    log_lo, log_hi = math.log(lo), math.log(hi)
-    mult = np.ones(len(classes))
-    delay = delay0
-    before_s = routes.time_s[usable].copy()
-    before_m = routes.length_m(base0)[usable]
 
-    # Each round: fit on the current routes, re-time, re-route. Stop when the routes no longer change (a fixed
-    # point); when they come back to an earlier set (routes alternating between near-equal choices) or the rounds
-    # run out, keep the visited state whose own routes fit the observations best (the fit's robust cost).
-    # The log shows, per round, the quantity that decides (the fit's robust cost per observation, on that round's
-    # own routes) beside the mean absolute error, and says which round is kept.
+def _observation_table(
+    used_obs, routes, usable, obs_s, *, before, after, model, net_after, secs_after, classes, bands_km
+) -> pd.DataFrame:
+    """One row per usable observation: observed, modelled before and after, route, band, signals, class seconds."""
+    (before_s, before_m), (after_s, route_m) = before, after
+    table = pd.DataFrame(
+        {
+            "line": used_obs["line"].to_numpy(),
+            "base_id": used_obs["base_id"].astype(str).to_numpy(),
+            "hour": used_obs["hour"].to_numpy() if "hour" in used_obs else pd.array([pd.NA] * len(usable)),
+            "observed_s": obs_s,
+            "before_s": before_s,
+            "after_s": after_s,
+            "route_m_before": before_m,
+            "route_m": route_m,
+            "band": np.asarray(band_labels(bands_km), dtype=object)[band_of(route_m, bands_km)],
+            "signals": np.asarray(routes.delay_use[usable] @ model.signal_end),
+            "delay_s": np.asarray(routes.delay_use[usable] @ net_after.edges["delay_s"].to_numpy(dtype=float)),
+        }
+    )
+    for k, cls in enumerate(classes):
+        table[f"run_s_{cls}"] = secs_after[:, k]
+    return table
+
+
+@dataclass(frozen=True)
+class _Trips:
+    """The observed trips snapped to the network: base and incident points, and which base each trip starts at."""
+
+    bases: Snapped
+    incidents: Snapped
+    src_idx: np.ndarray
+    tgt_idx: np.ndarray
+
+    def route(self, net: RoadNetwork) -> Routes:
+        """The trips' shortest routes on ``net`` (the same edge set, timed by some profile)."""
+        return shortest_routes(net, self.bases, self.incidents, self.src_idx, self.tgt_idx)
+
+
+def _snap_trips(
+    base0: RoadNetwork, bases: gpd.GeoDataFrame, obs: pd.DataFrame, max_snap_m: float, source: str
+) -> _Trips:
+    """Snap the bases the observations name (strictly: a base off the road is a data error) and the incidents."""
+    base_ids = bases["id"].astype(str).to_numpy()
+    unknown = sorted(set(obs["base_id"].astype(str)) - set(base_ids))
+    if unknown:
+        row = obs.loc[obs["base_id"].astype(str) == unknown[0], "line"].iloc[0]
+        raise FieldError(
+            f"{source or 'observed times'}: line {row} names base '{unknown[0]}', which is not among the bases; "
+            "fix the base_id or add the base."
+        )
+    used_bases = np.flatnonzero(np.isin(base_ids, obs["base_id"].astype(str).unique()))
+    b_snap = snap_points(base0, bases.iloc[used_bases], ids=base_ids[used_bases], what="bases", warn_islands=False)
+    pos = {b: i for i, b in enumerate(base_ids[used_bases])}
+    src_idx = np.array([pos[b] for b in obs["base_id"].astype(str)], dtype=np.int64)
+    inc = gpd.GeoSeries(gpd.points_from_xy(obs["lon"], obs["lat"]), crs="EPSG:4326").to_crs(base0.crs)
+    i_snap = snap_points(
+        base0,
+        inc,
+        ids=obs["line"].to_numpy(),
+        max_snap_m=max_snap_m,
+        off_network="mask",
+        what="observed incidents",
+        warn_islands=False,
+    )
+    return _Trips(b_snap, i_snap, src_idx, np.arange(len(obs)))
+
+
+@dataclass(frozen=True)
+class _Exposure:
+    """Travel per class on the starting routes, and which classes (and the signal delay) are fitted."""
+
+    exposure_s: np.ndarray
+    exposure_km: np.ndarray
+    n_routes: np.ndarray
+    fit_mask: np.ndarray
+    fit_delay: bool
+
+
+def _exposure(routes, usable, model, n_classes, min_exposure_s, min_routes, fit_signal_delay) -> _Exposure:
+    """Exposure on the starting routes decides which classes are fitted (kept fixed so rounds cannot oscillate)."""
+    run0, _ = model.run_s(np.ones(n_classes))
+    secs0 = _class_seconds(routes, run0, model.class_code, n_classes)[usable]
+    km0 = _class_seconds(routes, model.length_m, model.class_code, n_classes)[usable] / 1000.0
+    exposure_s = secs0.sum(axis=0)
+    n_routes = (secs0 > 0).sum(axis=0)
+    signal_routes = int((np.asarray(routes.delay_use[usable] @ model.signal_end) > 0).sum())
+    return _Exposure(
+        exposure_s=exposure_s,
+        exposure_km=np.array([km0[:, k].sum() for k in range(n_classes)]),
+        n_routes=n_routes,
+        fit_mask=(exposure_s >= min_exposure_s) & (n_routes >= min_routes),
+        fit_delay=bool(fit_signal_delay and signal_routes >= min_routes),
+    )
+
+
+@dataclass(frozen=True)
+class _Rounds:
+    """The kept state of the fit-and-re-route rounds and their log."""
+
+    mult: np.ndarray
+    delay_s: float
+    routes: Routes
+    iterations: int
+    status: str  # "stable", "alternating" or "max rounds"
+    rounds: pd.DataFrame
+
+
+def _fit_rounds(routes, usable, obs_s, model, exposure, delay0, *, fit, reroute, max_iterations) -> _Rounds:
+    """Fit on the current routes, re-time, re-route, until the routes stop changing.
+
+    Stop when the routes no longer change (a fixed point); when they come back to an earlier set (routes
+    alternating between near-equal choices) or the rounds run out, keep the visited state whose own routes fit the
+    observations best (the fit's robust cost). The log shows, per round, the quantity that decides (the fit's
+    robust cost per observation, on that round's own routes) beside the mean absolute error, and says which round
+    is kept. ``obs_s`` are the usable observations; ``reroute(mult, delay_s)`` gives the routes on the re-timed
+    network.
+    """
+    fit_classes = np.flatnonzero(exposure.fit_mask)
+    mult = np.ones(len(exposure.fit_mask))
+    delay = delay0
     states: list[tuple[np.ndarray, float, Routes, float, int]] = []
     round_rows: list[dict] = []
     iterations, status = 0, "max rounds"
@@ -673,26 +898,25 @@ def calibrate_speeds(
         mult_new, delay_new = _fit_once(
             routes,
             usable,
-            obs_s[usable],
+            obs_s,
             model,
             mult,
             delay,
             fit_classes,
-            fit_delay,
-            (log_lo, log_hi),
-            loss,
-            f_scale,
+            exposure.fit_delay,
+            fit["log_bounds"],
+            fit["loss"],
+            fit["f_scale"],
         )
-        _, net_it = network_for(mult_new, delay_new)
-        new_routes = shortest_routes(net_it, b_snap, i_snap, src_idx, tgt_idx)
+        new_routes = reroute(mult_new, delay_new)
         iterations = it
         same = new_routes.same_paths(routes)
         earlier = [k for k, st in enumerate(states[:-1]) if new_routes.same_paths(st[2])]
-        cost = _robust_cost(np.log(np.maximum(new_routes.time_s[usable], 1.0) / obs_s[usable]), loss, f_scale)
+        cost = _robust_cost(np.log(np.maximum(new_routes.time_s[usable], 1.0) / obs_s), fit["loss"], fit["f_scale"])
         cost /= len(usable)
         states.append((mult_new, delay_new, new_routes, cost, it))
         mult, delay, routes = mult_new, delay_new, new_routes
-        err = float(np.mean(np.abs(routes.time_s[usable] - obs_s[usable])))
+        err = float(np.mean(np.abs(routes.time_s[usable] - obs_s)))
         round_rows.append({"round": it, "fit_cost": cost, "mae_s": err, "routes_unchanged": bool(same)})
         note(
             f"calibrate: round {it}: fit cost {cost:.6f}, mean absolute error {err:.1f} s"
@@ -717,38 +941,37 @@ def calibrate_speeds(
         + (", routes stable" if status == "stable" else ", lowest fit cost")
         + f" {kept['fit_cost']:.6f}: mean absolute error {kept['mae_s']:.1f} s"
     )
-    converged = status == "stable"
+    return _Rounds(mult, delay, routes, iterations, status, rounds)
 
-    prof_after, net_after = network_for(mult, delay)
-    after_s = routes.time_s[usable]
-    route_m = routes.length_m(net_after)[usable]
-    run_after, below_cap = model.run_s(_rounded_mult(prof0, prof_after, classes))
-    secs_after = _class_seconds(routes, run_after, model.class_code, len(classes))[usable]
-    capped = _class_seconds(routes, run_after * ~below_cap, model.class_code, len(classes))[usable].sum(axis=0)
-    delay_e = net_after.edges["delay_s"].to_numpy(dtype=float)
 
+def _class_table(
+    classes, mult, exposure: _Exposure, secs_after, capped, prof0, prof_after, bounds, min_exposure_s, min_routes
+) -> pd.DataFrame:
+    """One row per road class: exposure, whether fitted, the multiplier, factors before and after, and a note."""
+    lo, hi = bounds
     class_rows = []
     for k, cls in enumerate(classes):
-        m_k = float(mult[k]) if fit_mask[k] else 1.0
+        fitted = bool(exposure.fit_mask[k])
+        m_k = float(mult[k]) if fitted else 1.0
         tot = float(secs_after[:, k].sum())
-        if not fit_mask[k]:
+        if not fitted:
             why = (
-                f"kept: {exposure_s[k]:.0f} s observed in {n_routes[k]} routes "
+                f"kept: {exposure.exposure_s[k]:.0f} s observed in {exposure.n_routes[k]} routes "
                 f"(needs {min_exposure_s:g} s in {min_routes})"
             )
         elif m_k <= lo * (1 + 1e-6) or m_k >= hi * (1 - 1e-6):
             why = "at the bound of the multiplier: check the data"
         else:
             why = ""
-        if fit_mask[k] and tot > 0 and capped[k] / tot > 0.5:
+        if fitted and tot > 0 and capped[k] / tot > 0.5:
             why = (why + "; " if why else "") + "mostly at the cap speed: a higher factor has little effect"
         class_rows.append(
             {
                 "road_class": cls,
-                "exposure_s": float(exposure_s[k]),
-                "exposure_km": float(km0[:, k].sum()),
-                "n_routes": int(n_routes[k]),
-                "fitted": bool(fit_mask[k]),
+                "exposure_s": float(exposure.exposure_s[k]),
+                "exposure_km": float(exposure.exposure_km[k]),
+                "n_routes": int(exposure.n_routes[k]),
+                "fitted": fitted,
                 "multiplier": m_k,
                 "factor_before": prof0.speeds[cls].factor,
                 "factor_after": prof_after.speeds[cls].factor,
@@ -756,69 +979,7 @@ def calibrate_speeds(
                 "note": why,
             }
         )
-    class_table = pd.DataFrame(class_rows)
-
-    used_obs = obs.iloc[usable]
-    table = pd.DataFrame(
-        {
-            "line": used_obs["line"].to_numpy(),
-            "base_id": used_obs["base_id"].astype(str).to_numpy(),
-            "hour": used_obs["hour"].to_numpy() if "hour" in used_obs else pd.array([pd.NA] * len(usable)),
-            "observed_s": obs_s[usable],
-            "before_s": before_s,
-            "after_s": after_s,
-            "route_m_before": before_m,
-            "route_m": route_m,
-            "band": np.asarray(band_labels(bands_km), dtype=object)[band_of(route_m, bands_km)],
-            "signals": np.asarray(routes.delay_use[usable] @ model.signal_end),
-            "delay_s": np.asarray(routes.delay_use[usable] @ delay_e),
-        }
-    )
-    for k, cls in enumerate(classes):
-        table[f"run_s_{cls}"] = secs_after[:, k]
-    errors = pd.concat(
-        [
-            error_summary(before_s, obs_s[usable], route_m, bands_km).assign(stage="before"),
-            error_summary(after_s, obs_s[usable], route_m, bands_km).assign(stage="after"),
-        ],
-        ignore_index=True,
-    )[["stage", "band", "n", "mae_s", "bias_s", "p90_abs_s"]]
-    try:
-        kfit = fit_kolesar(route_m, obs_s[usable])
-    except ModelError:
-        kfit = None
-    return CalibrationResult(
-        profile_before=prof0,
-        profile_after=prof_after,
-        classes=class_table,
-        observations=table,
-        errors=errors,
-        kolesar=kfit,
-        signal_delay_before_s=float(delay0),
-        signal_delay_after_s=float(prof_after.signal_delay_s),
-        iterations=iterations,
-        converged=converged,
-        route_status=status,
-        rounds=rounds,
-        n_rows=n_rows,
-        n_rejected=n_rejected,
-        n_off_network=n_off,
-        n_unreachable=n_unreach,
-        n_outside_hours=n_outside,
-        source=source,
-        settings={
-            "loss": loss,
-            "f_scale": float(f_scale),
-            "bounds": (lo, hi),
-            "min_exposure_s": float(min_exposure_s),
-            "min_routes": int(min_routes),
-            "fit_signal_delay": bool(fit_delay),
-            "bands_km": tuple(float(b) for b in bands_km),
-            "hours": None if hours is None else sorted({int(h) for h in hours}),
-            "max_snap_m": float(max_snap_m),
-        },
-        network=net_after,
-    )
+    return pd.DataFrame(class_rows)
 
 
 def _rounded_mult(prof0: Profile, prof_after: Profile, classes: list[str]) -> np.ndarray:

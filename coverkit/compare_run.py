@@ -31,6 +31,7 @@ from coverkit.scenario import (
     load_scenario,
 )
 from coverkit.study import Study, cached_network, load_inputs, load_study, reusable_network
+from coverkit.study_errors import study_keys
 from coverkit.whatif import WhatIf
 
 
@@ -137,6 +138,7 @@ class CompareRun:
         return [*out, CAUTION]
 
 
+@study_keys
 def compare_study(
     study_path: str | Path,
     scenario_path: str | Path,

@@ -126,8 +126,10 @@ def drive_time_polygons(
     max_snap_m
         Snap limit for the bases (m).
     timings
-        If given, the seconds spent in each step are added to it under the step's name (for benchmarks); the
-        bases are then worked one after another.
+        If given, the seconds spent in each step are added to it under the step's name (for benchmarks). Each
+        thread times its own steps, so with several ``workers`` the per-base steps are summed over the threads
+        (they may add up to more than the wall time) and ``"wait for workers"`` is the time the calling thread
+        waited on them; pass ``workers=1`` for a breakdown of one thread's wall time.
     workers
         Threads working on bases at once (default: one per CPU core, at most one per base). The compiled kernels
         and shapely release the GIL; results do not depend on the number.
@@ -145,69 +147,37 @@ def drive_time_polygons(
         beyond the snap limit.
     """
     bands_s = _bands_s(minutes)
-    if not (reach_m > 0 and np.isfinite(reach_m)):
-        raise CoverkitError(f"reach distance {reach_m} m must be a positive number of metres (e.g. 150).")
-    if cell_m is not None and not (cell_m > 0 and np.isfinite(cell_m)):
-        raise CoverkitError(f"grid cell size {cell_m} m must be a positive number of metres (e.g. 50).")
+    cell_m = _grid_cell_m(reach_m, cell_m)
     _check_direction(direction)
-    cell_m = float(cell_m) if cell_m else reach_m * DEFAULT_CELL_PER_REACH
-    if cell_m > reach_m:
-        raise CoverkitError(
-            f"grid spacing {cell_m:g} m is coarser than the reach {reach_m:g} m, so polygons would lose their shape; "
-            f"give at most the reach (default a third of it, {reach_m * DEFAULT_CELL_PER_REACH:g} m)."
-        )
-    n_b = len(bands_s)
     lap = _Laps(timings)
     snapped = _snap_bases(net, bases, max_snap_m)
     lap("snap bases")
-    limit_s = float(bands_s[-1])
-    min_hole_m2 = min_hole_km2 * 1e6
     _warm_caches(net, direction)
-    # laps are only meaningful one step after another
-    n_workers = 1 if timings is not None else max(1, min(workers or os.cpu_count() or 1, len(snapped)))
-
-    def one_base(i: int, d: np.ndarray):
-        """Road km, polygons and (fast path) fields of base ``i`` from its node times ``d``."""
-        with _compile_notice():
-            return base_work(i, d)
-
-    def base_work(i: int, d: np.ndarray):
-        reached = reached_pieces(net, d, snapped.subset([i]), bands_s, direction)
-        lap("reached road")
-        fields = None
-        if exact:
-            geoms = band_polygons(reached, bands_s, reach_m, exact=True, min_hole_km2=min_hole_km2)
-            lap("exact polygons")
-        else:
-            fields = reach_fields(reached, n_b, reach_m, cell_m)
-            lap("distance fields")
-            geoms = [_field_polygons(f, cell_m, reach_m, min_hole_m2) for f in fields]
-            lap("trace polygons")
-        return reached_road_km(reached, n_b), geoms, fields
-
+    job = _PolygonJob(net, snapped, bands_s, direction, exact, reach_m, cell_m, min_hole_km2, lap)
+    n_workers = max(1, min(workers or os.cpu_count() or 1, len(snapped)))
     # one source's row at a time from chunked dense blocks (memory: a chunk, plus the rows in flight); the "any
     # base" times are their running least (the multi-source search from all bases at once)
     d_any = np.full(net.n_nodes, np.inf) if any_base else None
 
     def per_base_results(pool):
         pending: deque = deque()
-        for src, block in node_time_blocks(net, snapped, limit_s, direction):
+        for src, block in node_time_blocks(net, snapped, float(bands_s[-1]), direction):
             for r, i in enumerate(src):
                 lap("search")
                 if d_any is not None:
                     np.minimum(d_any, block[r], out=d_any)
                 if pool is None:
-                    yield one_base(int(i), block[r])
+                    yield job.one_base(int(i), block[r])
                     continue
-                pending.append(pool.submit(one_base, int(i), block[r]))
+                pending.append(pool.submit(job.one_base, int(i), block[r]))
                 if len(pending) > 2 * n_workers:
-                    yield pending.popleft().result()
+                    yield job.wait(pending.popleft())
         while pending:
-            yield pending.popleft().result()
+            yield job.wait(pending.popleft())
 
     rows = []
     # fast path: the "any base" field is the least of the bases' fields, node by node (fields share one grid)
-    mosaic: list[Field | None] = [None] * n_b
+    mosaic: list[Field | None] = [None] * len(bands_s)
     n_jobs = len(snapped) + int(any_base)
     pool = ThreadPoolExecutor(n_workers) if n_workers > 1 else None
     try:
@@ -217,46 +187,120 @@ def drive_time_polygons(
                 base_id = str(snapped.ids[i])
                 km, geoms, fields = next(results)
                 if any_base and not exact:
-                    for k, f in enumerate(fields):
-                        if f is not None and mosaic[k] is None:
-                            mosaic[k] = Field(f.ix0, f.iy0, f.dist_m.astype(np.float32))
-                        elif f is not None:
-                            mosaic[k].merge_min(f)
+                    _merge_least(mosaic, fields)
                     lap("any-base field")
             else:
                 base_id = ANY_BASE_ID
-                reached = reached_pieces(net, d_any, snapped, bands_s, direction)
-                lap("reached road")
-                if exact:
-                    geoms = band_polygons(reached, bands_s, reach_m, exact=True, min_hole_km2=min_hole_km2)
-                    lap("exact polygons")
-                else:
-                    geoms = [_field_polygons(f, cell_m, reach_m, min_hole_m2) for f in mosaic]
-                    lap("trace polygons")
-                km = reached_road_km(reached, n_b)
+                km, geoms = job.any_base(d_any, mosaic)
             for k, g in enumerate(geoms):
                 rows.append((base_id, float(bands_s[k] / 60.0), g.area / 1e6, km[k], g))
     finally:
         if pool is not None:
             pool.shutdown(wait=True, cancel_futures=True)
-    df = pd.DataFrame(rows, columns=COLUMNS)
-    out = gpd.GeoDataFrame(df, geometry="geometry", crs=net.crs)
+    out = gpd.GeoDataFrame(pd.DataFrame(rows, columns=COLUMNS), geometry="geometry", crs=net.crs)
     lap("table")
     return out
 
 
+@dataclass(frozen=True)
+class _PolygonJob:
+    """What every base's polygons are built with: the network, the snapped bases, the bands and the options."""
+
+    net: RoadNetwork
+    snapped: Snapped
+    bands_s: np.ndarray
+    direction: str
+    exact: bool
+    reach_m: float
+    cell_m: float
+    min_hole_km2: float
+    lap: _Laps
+
+    def one_base(self, i: int, d: np.ndarray) -> tuple[np.ndarray, list, list | None]:
+        """Road km, polygons and (fast path) fields of base ``i`` from its node times ``d`` (any thread)."""
+        self.lap.start()  # this thread's steps count from here
+        with _compile_notice():
+            reached = reached_pieces(self.net, d, self.snapped.subset([i]), self.bands_s, self.direction)
+            self.lap("reached road")
+            fields = None if self.exact else reach_fields(reached, len(self.bands_s), self.reach_m, self.cell_m)
+            if fields is not None:
+                self.lap("distance fields")
+            return reached_road_km(reached, len(self.bands_s)), self.polygons(reached, fields), fields
+
+    def any_base(self, d_any: np.ndarray, mosaic: list[Field | None]) -> tuple[np.ndarray, list]:
+        """Road km and polygons reached from any base: times ``d_any``, (fast path) the bases' merged fields."""
+        reached = reached_pieces(self.net, d_any, self.snapped, self.bands_s, self.direction)
+        self.lap("reached road")
+        return reached_road_km(reached, len(self.bands_s)), self.polygons(reached, None if self.exact else mosaic)
+
+    def polygons(self, reached: Reached, fields: list[Field | None] | None) -> list:
+        """One polygon per band: buffer and union (exact) or traced from the distance fields (fast)."""
+        if self.exact:
+            geoms = band_polygons(reached, self.bands_s, self.reach_m, exact=True, min_hole_km2=self.min_hole_km2)
+            self.lap("exact polygons")
+        else:
+            min_hole_m2 = self.min_hole_km2 * 1e6
+            geoms = [_field_polygons(f, self.cell_m, self.reach_m, min_hole_m2) for f in fields]
+            self.lap("trace polygons")
+        return geoms
+
+    def wait(self, future):
+        """The result of a worker's base; the calling thread's wait is its own step."""
+        done = future.result()
+        self.lap("wait for workers")
+        return done
+
+
+def _grid_cell_m(reach_m: float, cell_m: float | None) -> float:
+    """The fast path's grid spacing (default a third of the reach), after checking both distances."""
+    if not (reach_m > 0 and np.isfinite(reach_m)):
+        raise CoverkitError(f"reach distance {reach_m} m must be a positive number of metres (e.g. 150).")
+    if cell_m is not None and not (cell_m > 0 and np.isfinite(cell_m)):
+        raise CoverkitError(f"grid cell size {cell_m} m must be a positive number of metres (e.g. 50).")
+    cell_m = float(cell_m) if cell_m else reach_m * DEFAULT_CELL_PER_REACH
+    if cell_m > reach_m:
+        raise CoverkitError(
+            f"grid spacing {cell_m:g} m is coarser than the reach {reach_m:g} m, so polygons would lose their shape; "
+            f"give at most the reach (default a third of it, {reach_m * DEFAULT_CELL_PER_REACH:g} m)."
+        )
+    return cell_m
+
+
+def _merge_least(mosaic: list[Field | None], fields: list[Field | None]) -> None:
+    """Fold one base's fields into the any-base ``mosaic``, band by band: the least distance per node."""
+    for k, f in enumerate(fields):
+        if f is not None and mosaic[k] is None:
+            mosaic[k] = Field(f.ix0, f.iy0, f.dist_m.astype(np.float32))
+        elif f is not None:
+            mosaic[k].merge_min(f)
+
+
 class _Laps:
-    """Adds the seconds since the previous call to ``timings[step]`` (no-op without a dict)."""
+    """Adds the seconds since the calling thread's previous lap to ``timings[step]`` (no-op without a dict).
+
+    Each thread keeps its own clock (worker threads start theirs with :meth:`start`); the shared dict is updated
+    under a lock.
+    """
 
     def __init__(self, timings: dict[str, float] | None) -> None:
         self.timings = timings
-        self.t = time.perf_counter()
+        self.lock = threading.Lock()
+        self.clock = threading.local()
+        self.start()
+
+    def start(self) -> None:
+        """Start (or restart) the calling thread's clock."""
+        if self.timings is not None:
+            self.clock.t = time.perf_counter()
 
     def __call__(self, step: str) -> None:
-        if self.timings is not None:
-            now = time.perf_counter()
-            self.timings[step] = self.timings.get(step, 0.0) + now - self.t
-            self.t = now
+        if self.timings is None:
+            return
+        now = time.perf_counter()
+        spent = now - getattr(self.clock, "t", now)
+        self.clock.t = now
+        with self.lock:
+            self.timings[step] = self.timings.get(step, 0.0) + spent
 
 
 _KERNELS = {"ready": False, "lock": threading.Lock()}

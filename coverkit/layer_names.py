@@ -89,7 +89,11 @@ MAPS: dict[str, tuple[str, str]] = {
 
 
 def slug(text: str) -> str:
-    """Lower-case ASCII name for layers and files (``"ALS 8 min"`` -> ``"als_8_min"``)."""
+    """Lower-case ASCII name for layers and files (``"ALS 8 min"`` -> ``"als_8_min"``).
+
+    >>> slug("ALS 8 min"), slug("Zone-3 / Nord"), slug("???")
+    ('als_8_min', 'zone_3_nord', 'x')
+    """
     out = "".join(ch.lower() if ch.isascii() and ch.isalnum() else "_" for ch in str(text))
     return "_".join(filter(None, out.split("_"))) or "x"
 

@@ -17,7 +17,7 @@ import shapely
 
 from coverkit import settings, siting, siting_models
 from coverkit.coverage import Standard, TravelTable, travel_table, weighted_fractile
-from coverkit.errors import CoverkitError, ModelError
+from coverkit.errors import PARAM, CoverkitError, ModelError
 from coverkit.network import road_classes
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
@@ -214,13 +214,14 @@ def solve(
     n_free = int((~fixed).sum())
     if "add" in spec.needs:
         if add is None:
-            raise ModelError(f"model {model} needs --add N, the number of new sites.")
+            raise ModelError(f"model {model} needs {PARAM}, the number of new sites.", param="add")
         if add > n_free and not spec.places_units:
             raise ModelError(
-                f"--add {add} is more than the {n_free} candidate sites; give at most {n_free} or add candidates."
+                f"{PARAM} {add} is more than the {n_free} candidate sites; give at most {n_free} or add candidates.",
+                param="add",
             )
     if "busy_fraction" in spec.needs and q is None:
-        raise ModelError("model mexclp needs --busy-fraction q (the share of time a unit is busy, 0..1).")
+        raise ModelError(f"model {model} needs {PARAM} (the share of time a unit is busy, 0..1).", param="q")
     kw = {"method": method}
     note(f"siting: solving {model}")
     if spec.curve_model:  # a model answered on its own, its curve drawn by another (LSCP: the MCLP curve)

@@ -27,6 +27,7 @@ from coverkit.settings import (
     SitingSettings,
     ZonesSettings,
 )
+from coverkit.study_errors import study_keys
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
 from coverkit.where import parse_filter
 
@@ -534,6 +535,7 @@ def load_inputs(
     return bases, demand, kinds, snaps
 
 
+@study_keys
 def run_study(study: Study | str | Path, out: str | Path | None = None) -> StudyRun:
     """Run a whole study: network, bases, demand, drive-time polygons, surface, coverage per standard, report.
 

@@ -228,6 +228,11 @@ def parse_filter(text: str) -> tuple:
     ------
     FieldError
         One line with the character position of the syntax error and an example.
+
+    Examples
+    --------
+    >>> parse_filter("priority = 1")
+    ('cmp', '=', ('field', 'priority', 1, False), ('lit', 1))
     """
     try:
         return _Parser(_tokens(text)).parse()
@@ -252,6 +257,14 @@ def filter_mask(df: pd.DataFrame, text: str, *, source: str = "the data") -> np.
     FieldError
         Syntax error (with its character position), an unknown field (naming the fields there are), or a number
         compared with a text that is not a number.
+
+    Examples
+    --------
+    A blank priority is NULL, so its row is not kept (as in SQL's three-valued logic):
+
+    >>> df = pd.DataFrame({"priority": [1, 2, 1, None], "type": ["fall", "transfer", "fire", "fall"]})
+    >>> filter_mask(df, "priority = 1 AND type <> 'transfer'")
+    array([ True, False,  True, False])
     """
     tree = parse_filter(text)
     fields = [str(c) for c in df.columns if c != "geometry"]

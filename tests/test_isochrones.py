@@ -228,6 +228,14 @@ def test_same_polygons_on_one_thread_and_several():
     assert list(one["base_id"]) == list(many["base_id"]) and (one["area_km2"] > 0).all()
     assert np.array_equal(one["road_km"], many["road_km"])
     assert all(shapely.equals_exact(a, b, tolerance=0.0) for a, b in zip(one.geometry, many.geometry, strict=True))
+    # asking for the step times keeps the threads and changes nothing either (common practice)
+    steps: dict[str, float] = {}
+    timed = drive_time_polygons(net, _bases(net, xy), [2, 4, 6], workers=3, timings=steps)
+    assert all(shapely.equals_exact(a, b, tolerance=0.0) for a, b in zip(one.geometry, timed.geometry, strict=True))
+    assert {"snap bases", "search", "reached road", "distance fields", "trace polygons", "wait for workers"} <= set(
+        steps
+    )
+    assert all(s >= 0 for s in steps.values())
 
 
 def test_travel_surface_geotiff(tmp_path, grid_case):

@@ -204,8 +204,10 @@ def test_centerline_missing_mapped_field(tmp_path, capsys):
 
 def test_centerline_needs_fields(tmp_path):
     path = _centerlines(tmp_path, _square_rows())
-    with pytest.raises(InputFileError, match="--fields"):
+    # the library names its parameter, not a command-line flag (the CLI words it --fields)
+    with pytest.raises(InputFileError, match="needs fields, its field mapping") as err:
         build_network(path, "normal")
+    assert err.value.param == "fields" and "--" not in str(err.value)
 
 
 def test_unknown_profile_key_via_cli(tmp_path, capsys):

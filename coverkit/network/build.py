@@ -21,7 +21,7 @@ from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import connected_components
 
 from coverkit import settings
-from coverkit.errors import InputFileError, NetworkError
+from coverkit.errors import PARAM, InputFileError, NetworkError
 from coverkit.network.crs import parse_crs, transform_geometry, transform_xy, utm_crs_for
 from coverkit.network.model import RoadNetwork
 from coverkit.network.profile import Profile, load_profile, parse_maxspeed_array
@@ -109,7 +109,8 @@ def source_kind(path: Path) -> str:
         return "layer"
     raise InputFileError(
         f"{path}: unknown road data type; give an OSM file (.osm, .osm.bz2, .osm.pbf) or a centerline layer "
-        "(.gpkg, .shp, .geojson) with --fields."
+        f"(.gpkg, .shp, .geojson) with {PARAM}, its field mapping.",
+        param="fields",
     )
 
 
@@ -135,7 +136,9 @@ def read_roads(path: str | Path, profile: Profile, fields: dict[str, str] | None
 
         if not fields:
             raise InputFileError(
-                f"{path}: a centerline layer needs --fields, e.g. class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY."
+                f"{path}: a centerline layer needs {PARAM}, its field mapping, e.g. "
+                "class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY.",
+                param="fields",
             )
         return read_centerlines(path, fields, profile, **layer_options)
     from coverkit.network.osm_ways import ways_to_roads
@@ -155,7 +158,7 @@ def read_boundary(path: str | Path) -> gpd.GeoSeries:
     """Read a boundary polygon layer (any vector format; a file without CRS is taken as EPSG:4326)."""
     path = Path(path)
     if not path.is_file():
-        raise InputFileError(f"boundary file {path} not found; check --boundary.")
+        raise InputFileError(f"boundary file {path} not found; check {PARAM}.", param="boundary")
     try:
         gdf = pyogrio.read_dataframe(path)
     except Exception as exc:

@@ -6,7 +6,7 @@ import numpy as np
 import shapely
 from pyproj import CRS, Transformer
 
-from coverkit.errors import CoverkitError
+from coverkit.errors import PARAM, CoverkitError
 
 
 def utm_crs_for(lon: float, lat: float) -> CRS:
@@ -19,17 +19,34 @@ def utm_crs_for(lon: float, lat: float) -> CRS:
     return CRS.from_epsg((32600 if lat >= 0 else 32700) + zone)
 
 
-def parse_crs(text: str | CRS, what: str = "--crs") -> CRS:
-    """Parse a user CRS (``EPSG:32633``, WKT, PROJ string) and insist that it is projected in metres."""
+def parse_crs(text: str | CRS, what: str | None = None) -> CRS:
+    """Parse a user CRS (``EPSG:32633``, WKT, PROJ string) and insist that it is projected in metres.
+
+    ``what`` names the value in a message; without it the error is about the parameter ``crs``.
+
+    >>> parse_crs("EPSG:32633").name
+    'WGS 84 / UTM zone 33N'
+    >>> parse_crs("EPSG:4326")
+    Traceback (most recent call last):
+    coverkit.errors.CoverkitError: crs: WGS 84 is not projected; give a metric projected CRS such as a UTM zone.
+    """
+    param = None if what else "crs"
+    what = what or PARAM
     try:
         crs = CRS.from_user_input(text)
     except Exception:
-        raise CoverkitError(f"{what}: '{text}' is not a CRS pyproj understands; give e.g. EPSG:32633.") from None
+        raise CoverkitError(
+            f"{what}: '{text}' is not a CRS pyproj understands; give e.g. EPSG:32633.", param=param
+        ) from None
     if not crs.is_projected:
-        raise CoverkitError(f"{what}: {crs.name} is not projected; give a metric projected CRS such as a UTM zone.")
+        raise CoverkitError(
+            f"{what}: {crs.name} is not projected; give a metric projected CRS such as a UTM zone.", param=param
+        )
     unit = crs.axis_info[0].unit_name if crs.axis_info else ""
     if unit not in ("metre", "meter"):
-        raise CoverkitError(f"{what}: {crs.name} has units '{unit}'; give a CRS in metres (e.g. a UTM zone).")
+        raise CoverkitError(
+            f"{what}: {crs.name} has units '{unit}'; give a CRS in metres (e.g. a UTM zone).", param=param
+        )
     return crs
 
 

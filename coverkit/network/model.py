@@ -307,7 +307,8 @@ class RoadNetwork:
         path = Path(path)
         if not path.is_file():
             raise InputFileError(
-                f"network file {path} not found; build one with `coverkit network <roads> --out {path}`."
+                f"network file {path} not found; build a network and save it there first (`coverkit network`, or "
+                "build_network and save)."
             )
         try:
             layers = {name for name, _ in pyogrio.list_layers(path)}

@@ -91,6 +91,14 @@ def erlang_b(offered_load: float, servers: int) -> float:
     ----------
     A. K. Erlang (1917), "Solution of some problems in the theory of probabilities of significance in automatic
     telephone exchanges", Elektroteknikeren 13.
+
+    Examples
+    --------
+    Two erlangs on two servers: B = (E^c / c!) / sum_k E^k / k! = 2 / (1 + 2 + 2) = 0.4 (the closed form, worked
+    by hand).
+
+    >>> erlang_b(2.0, 2)
+    0.4
     """
     load = check_nonneg(offered_load, "offered_load")
     c = check_servers(servers)
@@ -126,6 +134,14 @@ def erlang_c(offered_load: float, servers: int) -> float:
     ----------
     A. K. Erlang (1917), as for :func:`erlang_b`; the relation to B is in standard queueing texts, e.g.
     L. Kleinrock (1975), *Queueing Systems* vol. 1, §3.5.
+
+    Examples
+    --------
+    Two erlangs on three servers: B(2, 3) = 4/19, rho = 2/3, so C = (4/19) / (1 - (2/3)(15/19)) = 4/9 (worked by
+    hand from the relation above).
+
+    >>> round(erlang_c(2.0, 3), 6)
+    0.444444
     """
     load = check_nonneg(offered_load, "offered_load")
     c = check_servers(servers, minimum=1)

@@ -1,0 +1,69 @@
+"""The ``coverkit`` command line: parse arguments, call the library, print, set the exit code.
+
+One module per sub-command (``add_parser`` declares its arguments, ``run`` does the work), the shared options in
+:mod:`coverkit.cli.options`. No algorithm lives here. Bad input raises :class:`~coverkit.errors.CoverkitError`; the
+message is printed as one line, with the flag in place of the library parameter it names, and the exit status is 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from collections.abc import Callable, Sequence
+
+from coverkit import CAUTION, __version__
+from coverkit.cli import availability, calibrate, compare, cover, demo, isochrones, network, run, site
+from coverkit.cli.options import Parser, flag_for
+from coverkit.errors import CoverkitError
+from coverkit.progress import set_quiet
+
+#: the sub-command modules, in the order ``coverkit --help`` lists them
+MODULES = (network, isochrones, cover, site, availability, calibrate, compare, run, demo)
+COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {m.NAME: m.run for m in MODULES}
+
+__all__ = ["COMMANDS", "build_parser", "main"]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser with every sub-command."""
+    parser = Parser(
+        prog="coverkit",
+        description="Drive-time polygons and coverage for fire and EMS planning. " + CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"coverkit {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    parser.set_defaults(_commands=sub.choices)
+    for module in MODULES:
+        module.add_parser(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``coverkit`` command."""
+    parser = build_parser()
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        # name the sub-command whose options were mistyped (argparse would blame the top-level command)
+        (args._commands.get(args.command) or parser).error(f"unrecognized arguments: {' '.join(extra)}")
+    if not args.command:
+        parser.print_help()
+        return 2
+    set_quiet(getattr(args, "quiet", False))
+    try:
+        return COMMANDS[args.command](args)
+    except CoverkitError as exc:
+        # the library names its parameter; on the command line that is the flag the user typed
+        text = exc.worded(flag_for(args._commands[args.command], exc.param)) if exc.param else str(exc)
+        print(f"coverkit {args.command}: error: {text}", file=sys.stderr)
+        return exc.exit_code
+    except BrokenPipeError:  # output piped into `head` and the like
+        sys.stdout = open(os.devnull, "w")
+        return 0
+    except KeyboardInterrupt:
+        print("coverkit: interrupted; no output was written", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,122 @@
+"""``coverkit availability``: the hypercube model of busy units."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from coverkit import CAUTION
+from coverkit.cli.options import (
+    common,
+    coverage_inputs,
+    network_and_bases,
+    points_options,
+    positive_float,
+    rejected_layer,
+)
+from coverkit.layer_names import demand_name_of, layer_name, single_standard_name
+
+NAME = "availability"
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    """The ``availability`` sub-command's arguments."""
+    p = sub.add_parser(
+        "availability",
+        help="busy units: hypercube model of who actually responds, and availability-adjusted coverage",
+        description="Closest-available dispatch with the hypercube model (exact for small N, Larson's approximation "
+        "for large N): unit workloads, the chance each unit answers each demand point, expected travel time with "
+        "backup responses, and the share of calls reached within the standard by whichever unit responds.",
+    )
+    coverage_inputs(
+        p,
+        bases_help="bases with optional units column",
+        demand_help="incidents (points with a time field)",
+        standard=False,
+    )
+    p.add_argument("--service-min", type=positive_float, required=True, help="mean time a unit is busy per call, min")
+    p.add_argument("--calls-per-h", type=positive_float, help="total call rate (default: from incident timestamps)")
+    p.add_argument("--time-field", default="received_at", help="incident timestamp field (received_at)")
+    p.add_argument("--start", help="keep incidents at or after this ISO time")
+    p.add_argument("--end", help="keep incidents before this ISO time")
+    p.add_argument(
+        "--queue",
+        choices=["infinite", "zero"],
+        default="infinite",
+        help="infinite: calls wait; zero: calls finding all units busy are lost to mutual aid",
+    )
+    p.add_argument(
+        "--method",
+        choices=["auto", "exact", "approx"],
+        default="auto",
+        help="exact 2^N-state model, Larson's approximation, or auto by size",
+    )
+    p.add_argument(
+        "--out",
+        "-o",
+        type=Path,
+        required=True,
+        help="GeoPackage to write (layers availability_units, availability_demand, ...)",
+    )
+    points_options(p)
+    common(p)
+
+
+def run(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from coverkit.atomic import write_gpkg_layers
+    from coverkit.availability import availability
+    from coverkit.coverage import Standard
+    from coverkit.demand import load_demand
+
+    net, bases = network_and_bases(args)
+    demand = load_demand(
+        args.demand,
+        net,
+        where=args.where,
+        time_field=args.time_field,
+        start=args.start,
+        end=args.end,
+        max_rejected_share=args.max_rejected,
+    )
+    std = Standard(single_standard_name(args.minutes), args.minutes * 60.0)
+    run = availability(
+        net,
+        bases,
+        demand,
+        std,
+        args.service_min,
+        calls_per_h=args.calls_per_h,
+        queue=args.queue,
+        method=args.method,
+        time_field=args.time_field,
+        window=(args.start, args.end),
+    )
+    layers = {
+        layer_name("availability_units"): run.units,
+        layer_name("availability_demand"): run.demand,
+        layer_name("availability_summary"): pd.DataFrame([run.summary]),
+    }
+    rejected = rejected_layer(demand, layers, demand_name_of(args.demand))
+    write_gpkg_layers(args.out, layers)
+    s = run.summary
+    if rejected:
+        print(f"rejected: {rejected}")
+    print(
+        f"{s['calls_per_h']:.2f} calls/h x {s['mean_service_min']:g} min = {s['offered_load_erlang']:.2f} erlang on "
+        f"{s['units']} units ({s['method']} hypercube, {s['queue']} queue)"
+    )
+    print(f"chance all units are busy: {s['all_busy_probability'] * 100:.2f} %")
+    print(f"\n{'unit':<10}{'base':<8}{'workload':>10}{'calls/h':>9}")
+    for r in run.units.itertuples(index=False):
+        print(f"{r.unit:<10}{r.base_id:<8}{r.workload:>10.3f}{r.calls_per_h:>9.3f}")
+    print(f"\n{std.describe()}")
+    print(f"covered by drive time alone      {s['drive_time_coverage'] * 100:6.1f} % of calls")
+    print(
+        f"covered by the unit that answers {s['availability_coverage'] * 100:6.1f} % of calls (availability-adjusted)"
+    )
+    print(f"mean travel of the answering unit {s['expected_travel_s'] / 60:.1f} min")
+    print(f"\nwrote {args.out}")
+    print(CAUTION)
+    return 0

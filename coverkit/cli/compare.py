@@ -1,0 +1,37 @@
+"""``coverkit compare``: a study before and after a scenario."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from coverkit import CAUTION
+from coverkit.cli.options import common
+
+NAME = "compare"
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    """The ``compare`` sub-command's arguments."""
+    p = sub.add_parser(
+        "compare",
+        help="before/after coverage for a scenario: closures, slowdowns, station changes",
+        description="Run a study's coverage before and after a scenario file ([[closure]], [[slowdown]], "
+        "[[base_change]]) and report who loses or gains coverage, per-base changes, and a difference map.",
+    )
+    p.add_argument("study", type=Path, help="study TOML file")
+    p.add_argument("scenario", type=Path, help="scenario TOML file (see examples/scenarios/)")
+    p.add_argument("--out", "-o", type=Path, required=True, help="output folder")
+    common(p)
+
+
+def run(args: argparse.Namespace) -> int:
+    from coverkit.compare_run import compare_study
+    from coverkit.report.compare_report import write_compare_report
+
+    run = compare_study(args.study, args.scenario, args.out)
+    run.outputs.update(write_compare_report(run, args.out))
+    print("\n".join(line for line in run.lines() if line != CAUTION))
+    print(f"\nwrote {run.outputs['layers']}, {run.outputs['table']} and {run.outputs['report']}")
+    print(CAUTION)
+    return 0

@@ -1,0 +1,82 @@
+"""``coverkit isochrones``: drive-time polygons and the travel-time surface."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from coverkit import CAUTION
+from coverkit.cli.options import (
+    common,
+    minutes_list,
+    network_and_bases,
+    points_options,
+    positive_float,
+)
+
+NAME = "isochrones"
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    """The ``isochrones`` sub-command's arguments."""
+    p = sub.add_parser(
+        "isochrones",
+        help="drive-time polygons per base and band, and a travel-time surface",
+        description="Drive-time polygons (nested bands) from each base and for any base, written to a GeoPackage; "
+        "optionally a GeoTIFF of minutes to the nearest base.",
+    )
+    p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
+    p.add_argument("--bases", type=Path, required=True, help="bases: CSV with id, lon, lat or a point layer")
+    p.add_argument("--minutes", type=minutes_list, default=[4.0, 8.0, 12.0], help="bands in minutes (4,8,12)")
+    p.add_argument(
+        "--out", "-o", type=Path, required=True, help="GeoPackage to write (layers reach_by_base, reach_any_base)"
+    )
+    p.add_argument("--surface", type=Path, help="also write a GeoTIFF of minutes to the nearest base")
+    p.add_argument("--surface-cell-m", type=positive_float, default=50.0, help="surface cell size, m (50)")
+    p.add_argument("--reach-m", type=positive_float, default=150.0, help="reach from a reached road, m (150)")
+    p.add_argument("--exact", action="store_true", help="exact vector construction (slower reference path)")
+    p.add_argument(
+        "--grid-m", type=positive_float, help="grid spacing of the fast polygons, m (default: a third of the reach)"
+    )
+    p.add_argument("--direction", choices=["out", "in"], default="out", help="out: from base (default); in: to base")
+    points_options(p)
+    common(p)
+
+
+def run(args: argparse.Namespace) -> int:
+    from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons, write_travel_surface
+
+    net, bases = network_and_bases(args)
+    polygons = drive_time_polygons(
+        net,
+        bases,
+        args.minutes,
+        reach_m=args.reach_m,
+        exact=args.exact,
+        cell_m=args.grid_m,
+        direction=args.direction,
+        max_snap_m=args.snap_m,
+    )
+    table = summary_table(polygons)
+    write_polygons(polygons, args.out)
+    if args.surface:
+        write_travel_surface(
+            net,
+            bases,
+            args.surface,
+            max(args.minutes),
+            cell_m=args.surface_cell_m,
+            reach_m=args.reach_m,
+            direction=args.direction,
+            max_snap_m=args.snap_m,
+        )
+    print(f"{'base':<16}{'band min':>9}{'area km2':>10}{'road km':>10}")
+    for r in table.itertuples(index=False):
+        print(f"{r.base!s:<16}{r.band_min:>9g}{r.area_km2:>10.2f}{r.road_km:>10.1f}")
+    print(f"\nwrote {args.out}" + (f" and {args.surface}" if args.surface else ""))
+    print(
+        f"profile '{net.profile.name}', reach {args.reach_m:g} m from the road, travel {args.direction}bound; "
+        "turnout not included"
+    )
+    print(CAUTION)
+    return 0
