@@ -45,6 +45,7 @@ def _study_network(study: Study, cache_folder: str | Path | None) -> RoadNetwork
     return net
 
 
+@study_keys
 def study_inputs(study_path: str | Path, cache_folder: str | Path | None = None) -> dict[str, Any]:
     """The inputs of a study, loaded as :func:`coverkit.study.run_study` does: network (cached), bases, demand.
 
@@ -72,6 +73,7 @@ def study_inputs(study_path: str | Path, cache_folder: str | Path | None = None)
     }
 
 
+@study_keys
 def whatif_from_study(study_path: str | Path, cache_folder: str | Path | None = None) -> WhatIf:
     """The what-if base state of a study file: its network (cached), bases, demand layers and standards."""
     inputs = study_inputs(study_path, cache_folder)

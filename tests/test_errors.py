@@ -105,3 +105,16 @@ def test_report_does_not_import_the_study_runner():
         code = f"import sys, {module}; print('coverkit.study' in sys.modules, 'coverkit.cli' in sys.modules)"
         proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
         assert proc.stdout.split() == ["False", "False"], module
+
+
+def test_cli_words_a_renamed_parameter(demo_net_path, tmp_path, capsys):
+    """``mean_service_min`` is set by ``--service-min``: the flag's name differs, the CLI still shows the flag."""
+    out = tmp_path / "a.gpkg"
+    args = ["availability", str(demo_net_path), "--bases", str(DEMO / "stations.csv"), "--demand"]
+    args += [str(DEMO / "incidents.csv"), "--minutes", "8", "--service-min", "0", "--out", str(out), "-q"]
+    assert main(args) == 2
+    err = capsys.readouterr().err.strip()
+    assert (
+        err == "coverkit availability: error: --service-min, the mean service time, must be positive minutes, got 0.0."
+    )
+    assert not out.exists()

@@ -64,6 +64,3 @@ def main(argv: Sequence[str] | None = None) -> int:
         print("coverkit: interrupted; no output was written", file=sys.stderr)
         return 130
 
-
-if __name__ == "__main__":
-    sys.exit(main())

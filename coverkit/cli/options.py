@@ -15,17 +15,11 @@ from pathlib import Path
 from coverkit.layer_names import layer_name
 from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 
-#: library parameter -> flag, where the flag's name is not the parameter's (``--snap-m`` for ``base_snap_m`` and
-#: the like); any other parameter is looked up among the sub-command's own options by its name.
+#: library parameter -> flag, where the flag's name is not the parameter's; any other parameter is looked up among
+#: the sub-command's own options by its name (``calls_per_h`` -> ``--calls-per-h``)
 FLAG_OF_PARAM = {
     "q": "--busy-fraction",
     "mean_service_min": "--service-min",
-    "max_rejected_share": "--max-rejected",
-    "base_snap_m": "--snap-m",
-    "max_snap_m": "--demand-snap-m",
-    "cell_m": "--grid-m",
-    "curve_to": "--curve",
-    "target_share": "--target",
 }
 
 
