@@ -63,4 +63,3 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("coverkit: interrupted; no output was written", file=sys.stderr)
         return 130
-
