@@ -641,17 +641,9 @@ def calibrate_speeds(
         n_unreachable=n_unreach,
         n_outside_hours=n_outside,
         source=source,
-        settings={
-            "loss": loss,
-            "f_scale": float(f_scale),
-            "bounds": (lo, hi),
-            "min_exposure_s": float(min_exposure_s),
-            "min_routes": int(min_routes),
-            "fit_signal_delay": bool(exposure.fit_delay),
-            "bands_km": tuple(float(b) for b in bands_km),
-            "hours": None if hours is None else sorted({int(h) for h in hours}),
-            "max_snap_m": float(max_snap_m),
-        },
+        settings=_settings(
+            loss, f_scale, (lo, hi), min_exposure_s, min_routes, exposure.fit_delay, bands_km, hours, max_snap_m
+        ),
         network=net_after,
     )
 
@@ -666,6 +658,21 @@ def _check_fit_options(bands_km: Sequence[float], loss: str, bounds: tuple[float
     if not (0 < lo < 1 < hi and math.isfinite(hi)):
         raise FieldError(f"multiplier bounds ({lo:g}, {hi:g}) must satisfy 0 < low < 1 < high, e.g. (0.3, 3.0).")
     return lo, hi
+
+
+def _settings(loss, f_scale, bounds, min_exposure_s, min_routes, fit_delay, bands_km, hours, max_snap_m) -> dict:
+    """The settings a calibration ran with, as the result (and the profile header) records them."""
+    return {
+        "loss": loss,
+        "f_scale": float(f_scale),
+        "bounds": bounds,
+        "min_exposure_s": float(min_exposure_s),
+        "min_routes": int(min_routes),
+        "fit_signal_delay": bool(fit_delay),
+        "bands_km": tuple(float(b) for b in bands_km),
+        "hours": None if hours is None else sorted({int(h) for h in hours}),
+        "max_snap_m": float(max_snap_m),
+    }
 
 
 def _prepare_observed(observed: pd.DataFrame, hours: Iterable[int] | None, source: str):
