@@ -43,7 +43,7 @@ import shapely
 
 from coverkit import settings
 from coverkit.atomic import atomic_path
-from coverkit.errors import CoverkitError
+from coverkit.errors import PARAM, CoverkitError
 from coverkit.network.model import RoadNetwork
 from coverkit.polygon_kernels import (
     _CASE_SEGMENTS,
@@ -254,7 +254,10 @@ class _PolygonJob:
 def _grid_cell_m(reach_m: float, cell_m: float | None) -> float:
     """The fast path's grid spacing (default a third of the reach), after checking both distances."""
     if not (reach_m > 0 and np.isfinite(reach_m)):
-        raise CoverkitError(f"reach distance {reach_m} m must be a positive number of metres (e.g. 150).")
+        raise CoverkitError(
+            f"{PARAM}, the reach distance, must be a positive number of metres (e.g. 150), got {reach_m}.",
+            param="reach_m",
+        )
     if cell_m is not None and not (cell_m > 0 and np.isfinite(cell_m)):
         raise CoverkitError(f"grid cell size {cell_m} m must be a positive number of metres (e.g. 50).")
     cell_m = float(cell_m) if cell_m else reach_m * DEFAULT_CELL_PER_REACH

@@ -33,6 +33,7 @@ STUDY_KEY_OF_PARAM = {
     "q": "siting.busy_fraction",
     "calls_per_h": "availability.calls_per_h",
     "mean_service_min": "availability.service_min",
+    "reach_m": "outputs.reach_m",
 }
 
 

@@ -118,3 +118,13 @@ def test_cli_words_a_renamed_parameter(demo_net_path, tmp_path, capsys):
         err == "coverkit availability: error: --service-min, the mean service time, must be positive minutes, got 0.0."
     )
     assert not out.exists()
+
+
+def test_cli_words_a_parameter_by_its_option_name(demo_net_path, tmp_path, capsys):
+    """``reach_m`` is set by ``--reach-m`` (the option of the same name); zero passes argparse, the library stops it."""
+    out = tmp_path / "iso.gpkg"
+    args = ["isochrones", str(demo_net_path), "--bases", str(DEMO / "stations.csv"), "--reach-m", "0"]
+    assert main([*args, "--out", str(out), "-q"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("coverkit isochrones: error: --reach-m, the reach distance, must be a positive number")
+    assert not out.exists()
