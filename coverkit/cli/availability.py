@@ -63,6 +63,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit availability`` on the parsed ``args``; the exit status (0)."""
     import pandas as pd
 
     from coverkit.atomic import write_gpkg_layers

@@ -5,10 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from coverkit.cli.options import (
-    common,
-    share,
-)
+from coverkit.cli.options import common, share
 from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 
 NAME = "calibrate"
@@ -60,6 +57,7 @@ def _hours(text: str | None) -> list[int] | None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit calibrate`` on the parsed ``args``; the exit status (0)."""
     from coverkit.calibrate import calibrate_files, calibration_chart, summary_text, write_calibrated_profile
 
     result = calibrate_files(

@@ -26,6 +26,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit compare`` on the parsed ``args``; the exit status (0)."""
     from coverkit.compare_run import compare_study
     from coverkit.report.compare_report import write_compare_report
 

@@ -56,6 +56,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit cover`` on the parsed ``args``; the exit status (0)."""
     import pyogrio
 
     from coverkit.atomic import write_gpkg_layers

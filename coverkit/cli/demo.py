@@ -23,6 +23,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit demo`` on the parsed ``args``; the exit status (0)."""
     from coverkit.demo import write_demo_study
     from coverkit.study import headline_lines, run_study
 

@@ -6,13 +6,7 @@ import argparse
 from pathlib import Path
 
 from coverkit import CAUTION
-from coverkit.cli.options import (
-    common,
-    minutes_list,
-    network_and_bases,
-    points_options,
-    positive_float,
-)
+from coverkit.cli.options import common, minutes_list, network_and_bases, points_options, positive_float
 
 NAME = "isochrones"
 
@@ -44,6 +38,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit isochrones`` on the parsed ``args``; the exit status (0)."""
     from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons, write_travel_surface
 
     net, bases = network_and_bases(args)

@@ -6,10 +6,7 @@ import argparse
 from pathlib import Path
 
 from coverkit import CAUTION
-from coverkit.cli.options import (
-    common,
-    positive_float,
-)
+from coverkit.cli.options import common, positive_float
 
 NAME = "network"
 
@@ -54,6 +51,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit network`` on the parsed ``args``; the exit status (0)."""
     from coverkit.network import build_network
     from coverkit.network.centerlines import parse_fields
 

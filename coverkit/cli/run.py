@@ -25,6 +25,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit run`` on the parsed ``args``; the exit status (0)."""
     from coverkit.study import headline_lines, run_study
 
     run = run_study(args.study, args.out)

@@ -80,6 +80,7 @@ def _site_objective_text(model: str, value: float, total: float) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``coverkit site`` on the parsed ``args``; the exit status (0)."""
     import pandas as pd
 
     from coverkit.atomic import write_csv_atomic, write_gpkg_layers
