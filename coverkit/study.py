@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from coverkit import __version__, demand_sources, settings, siting_models
-from coverkit.coverage import GAP_COUNT_PREFIX, Standard, default_horizon_s
+from coverkit.coverage import Standard, default_horizon_s
 from coverkit.errors import CoverkitError, StudyError
 from coverkit.layer_names import layer_name, map_file, output_file, table_file
 from coverkit.settings import (
@@ -27,6 +27,14 @@ from coverkit.settings import (
     SitingSettings,
     ZonesSettings,
 )
+from coverkit.stages import (
+    AvailabilityStage,
+    CalibrationStage,
+    CoverageStage,
+    SitingStage,
+    coverage_stage,
+    read_zones,
+)
 from coverkit.study_errors import study_keys
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
 from coverkit.where import parse_filter
@@ -38,7 +46,6 @@ if TYPE_CHECKING:
 
     from coverkit.availability import AvailabilityRun
     from coverkit.calibrate import CalibrationResult
-    from coverkit.coverage import AreaLayers, CoverageResult
     from coverkit.network.model import RoadNetwork
     from coverkit.site_plan import SitePlan
 
@@ -359,21 +366,17 @@ def load_study(path: str | Path) -> Study:
 
 
 # -- running ----------------------------------------------------------------------------------------------------------
-@dataclass
-class StandardRun:
-    """Everything computed for one standard."""
-
-    standard: Standard
-    results: dict[str, CoverageResult]  # demand name -> its coverage
-    areas: AreaLayers  # for the residents demand
-    zones: dict[str, pd.DataFrame]  # demand name -> compliance by zone table
-    by_priority: dict[str, pd.DataFrame]
-    per_base: dict[str, pd.DataFrame]
-
-
-@dataclass
+@dataclass(frozen=True)
 class StudyRun:
-    """The outcome of :func:`run_study`."""
+    """The outcome of :func:`run_study`: every stage's result, and the files written.
+
+    Attributes
+    ----------
+    runs
+        One :class:`coverkit.stages.CoverageStage` per standard, in file order.
+    siting_stage, availability_stage, calibration_stage
+        The optional sections' results (:mod:`coverkit.stages`), or None when the study has no such section.
+    """
 
     study: Study
     network: RoadNetwork
@@ -382,48 +385,33 @@ class StudyRun:
     demand: dict[str, gpd.GeoDataFrame]
     polygons: gpd.GeoDataFrame
     surface_path: Path
-    runs: list[StandardRun]
+    runs: list[CoverageStage]
     summary: pd.DataFrame  # one row per standard x demand
     outputs: dict[str, Path]
     network_reused: bool
-    site_plan: SitePlan | None = None
-    availability: AvailabilityRun | None = None
-    calibration: CalibrationResult | None = None
+    siting_stage: SitingStage | None = None
+    availability_stage: AvailabilityStage | None = None
+    calibration_stage: CalibrationStage | None = None
 
+    @property
+    def site_plan(self) -> SitePlan | None:
+        """The siting section's :class:`coverkit.site_plan.SitePlan`, or None."""
+        return self.siting_stage.plan if self.siting_stage else None
 
-def standard_layers(
-    standard: str,
-    demand: dict[str, gpd.GeoDataFrame],
-    areas: AreaLayers,
-    tables: dict[str, dict[str, pd.DataFrame]],
-) -> dict[str, pd.DataFrame]:
-    """The layers of one standard, named by :mod:`coverkit.layer_names` (the same for `run` and `cover`).
+    @property
+    def availability(self) -> AvailabilityRun | None:
+        """The availability section's :class:`coverkit.availability.AvailabilityRun`, or None."""
+        return self.availability_stage.run if self.availability_stage else None
 
-    Parameters
-    ----------
-    standard
-        The standard's name.
-    demand
-        ``{demand name: demand points with their coverage}``.
-    areas
-        The standard's :class:`coverkit.coverage.AreaLayers` (first-, second-, third-due areas when present, gaps,
-        single cover).
-    tables
-        ``{kind: {demand name: table}}`` for the kinds ``by_base``, ``by_zone``, ``by_priority``.
-    """
-    out: dict[str, pd.DataFrame] = {}
-    for name, table in demand.items():
-        out[layer_name("demand", name, standard)] = table
-    for kind in ("first_due", "second_due", "third_due"):
-        area = getattr(areas, kind, None)
-        if area is not None:
-            out[layer_name(kind, standard=standard)] = area
-    out[layer_name("gaps", standard=standard)] = areas.gaps
-    out[layer_name("single_cover", standard=standard)] = areas.single
-    for kind in ("by_base", "by_zone", "by_priority"):
-        for name, table in tables.get(kind, {}).items():
-            out[layer_name(kind, name, standard)] = table
-    return out
+    @property
+    def calibration(self) -> CalibrationResult | None:
+        """The calibration section's :class:`coverkit.calibrate.CalibrationResult`, or None."""
+        return self.calibration_stage.result if self.calibration_stage else None
+
+    def stages(self) -> list[CoverageStage | SitingStage | AvailabilityStage | CalibrationStage]:
+        """Every stage result, coverage first (each knows its ``layers()``)."""
+        extra = (self.siting_stage, self.availability_stage, self.calibration_stage)
+        return [*self.runs, *(s for s in extra if s is not None)]
 
 
 def polygon_layers(polygons: gpd.GeoDataFrame) -> dict[str, gpd.GeoDataFrame]:
@@ -535,49 +523,111 @@ def load_inputs(
     return bases, demand, kinds, snaps
 
 
+def _study_siting(
+    study: Study, net: RoadNetwork, bases: gpd.GeoDataFrame, demand: dict, snaps: dict[str, float]
+) -> SitingStage:
+    from coverkit.site_plan import build_problem, generate_candidates, solve
+    from coverkit.travel import read_points
+
+    cfg = study.siting
+    std = study.standard_named(cfg.standard, "siting.standard")
+    dname = study.demand_named(cfg.demand, "siting.demand", "residents")
+    if cfg.candidates is not None:
+        candidates = read_points(str(cfg.candidates), net.crs, what="candidates")
+    else:
+        candidates = generate_candidates(net, cfg.generate, cfg.spacing_m)
+    problem = build_problem(
+        net,
+        bases,
+        candidates,
+        demand[dname],
+        std,
+        relocate=cfg.relocate,
+        max_snap_m=snaps[dname],
+        base_snap_m=study.bases.snap_m,
+    )
+    plan = solve(
+        problem,
+        cfg.model,
+        add=cfg.add,
+        target=cfg.target,
+        q=cfg.busy_fraction,
+        method=cfg.method,
+        time_limit_s=cfg.time_limit_s,
+        curve_to=cfg.curve,
+    )
+    plan.summary["demand"] = dname
+    return SitingStage(problem, plan, dname)
+
+
+def _study_availability(
+    study: Study, net: RoadNetwork, bases: gpd.GeoDataFrame, demand: dict, snaps: dict[str, float]
+) -> AvailabilityStage:
+    from coverkit.availability import availability as run_availability
+
+    cfg = study.availability
+    std = study.standard_named(cfg.standard, "availability.standard")
+    dname = study.demand_named(cfg.demand, "availability.demand", "incidents")
+    spec = next(d for d in study.demand if d.name == dname)
+    avail = run_availability(
+        net,
+        bases,
+        demand[dname],
+        std,
+        cfg.service_min,
+        calls_per_h=cfg.calls_per_h,
+        queue=cfg.queue,
+        method=cfg.method,
+        time_field=cfg.time_field,
+        max_snap_m=snaps[dname],
+        window=(spec.start, spec.end),
+    )
+    avail.summary["demand"] = dname
+    return AvailabilityStage(avail, dname)
+
+
+def _study_calibration(study: Study, net: RoadNetwork, bases: gpd.GeoDataFrame) -> CalibrationStage:
+    from coverkit.calibrate import calibrate_speeds, read_observed
+
+    cfg = study.calibration
+    observed = read_observed(
+        str(cfg.observed), base_ids=bases["id"].astype(str).tolist(), bases_name=study.bases.file.name
+    )
+    hours = list(cfg.hours) if cfg.hours is not None else None
+    return CalibrationStage(calibrate_speeds(net, bases, observed, hours=hours, source=cfg.observed.name))
+
+
 @study_keys
 def run_study(study: Study | str | Path, out: str | Path | None = None) -> StudyRun:
-    """Run a whole study: network, bases, demand, drive-time polygons, surface, coverage per standard, report.
+    """Run a whole study: network, bases, demand, drive-time polygons, surface, coverage per standard, and the
+    optional siting, availability and calibration sections.
 
-    Every output is written atomically into ``out`` (default: ``outputs.folder`` of the study, relative to the
-    study file, else ``results``).
+    Every layer and table is written atomically into ``out`` (default: ``outputs.folder`` of the study, relative to
+    the study file, else ``results``). The maps and the report are written by the caller from the result:
+    :func:`coverkit.report.study_report.report_study`.
     """
     import pandas as pd
 
     from coverkit.atomic import write_csv_atomic, write_gpkg_layers
-    from coverkit.coverage import (
-        area_layers,
-        compliance_by,
-        compliance_by_zone,
-        evaluate_coverage,
-        per_base,
-        travel_table,
-    )
+    from coverkit.coverage import travel_table
     from coverkit.isochrones import drive_time_polygons, write_travel_surface
     from coverkit.progress import Steps
-    from coverkit.travel import read_points
 
     if not isinstance(study, Study):
         study = load_study(study)
     folder = Path(out) if out else study.folder / study.outputs.folder
     folder.mkdir(parents=True, exist_ok=True)
     opts = study.outputs
-    steps = Steps(6, "study")
+    steps = Steps(5, "study")
 
     steps.step("road network")
     net, build_text, reused = cached_network(study, folder)
 
     steps.step("bases and demand")
     bases, demand, kinds, snaps = load_inputs(study, net)
-    residents = next((n for n, k in kinds.items() if k == "residents"), study.demand[0].name)
-    incidents = next((n for n, k in kinds.items() if k == "incidents"), None)
     zones = None
     if study.zones:
-        import pyogrio
-
-        zones = pyogrio.read_dataframe(study.zones.file, layer=study.zones.layer)
-        if zones.crs is None:
-            raise StudyError(f"{study.zones.file}: the zones layer has no CRS; assign one.")
+        zones = read_zones(study.zones.file, study.zones.id_field, layer=study.zones.layer)
 
     steps.step("drive-time polygons and travel-time surface")
     minutes = list(opts.isochrone_minutes)
@@ -605,127 +655,56 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         + (", siting" if study.siting else "")
         + (", availability" if study.availability else "")
     )
-    runs: list[StandardRun] = []
-    rows = []
     # one search per demand layer serves every standard: the horizon covers the longest standard
-    horizon_s = study.horizon_s
     base_snap_m = study.bases.snap_m
     tables = {
-        name: travel_table(net, bases, dem, horizon_s, snaps[name], base_snap_m, study.direction)
+        name: travel_table(net, bases, dem, study.horizon_s, snaps[name], base_snap_m, study.direction)
         for name, dem in demand.items()
     }
     grid, area = None, study_area(study, net)
+    runs: list[CoverageStage] = []
     for std in study.standards:
-        results, zone_tables, prio_tables, base_tables = {}, {}, {}, {}
-        for name, dem in demand.items():
-            res = evaluate_coverage(net, bases, dem, std, table=tables[name])
-            results[name] = res
-            if zones is not None:
-                zone_tables[name] = compliance_by_zone(res, zones, study.zones.id_field)
-            if "priority" in dem.columns:
-                prio_tables[name] = compliance_by(res, "priority")
-            base_tables[name] = per_base(res)
-            rows.append({"standard": std.name, "demand": name, "kind": kinds[name], **res.summary()})
-        areas = area_layers(
+        stage = coverage_stage(
             net,
-            results[residents],
-            incidents=results[incidents] if incidents else None,
+            bases,
+            demand,
+            std,
+            kinds=kinds,
+            tables=tables,
+            zones=zones,
+            zone_id_field=study.zones.id_field if zones is not None else None,
+            area=area,
+            grid=grid,
             cell_m=opts.grid_cell_m,
             reach_m=opts.area_reach_m,
-            grid=grid,
-            area=area,
         )
-        grid = areas.grid
-        results[residents].demand["gap_id"] = areas.demand_gap_id
-        if areas.incident_gap_id is not None:
-            results[incidents].demand["gap_id"] = areas.incident_gap_id
-        runs.append(StandardRun(std, results, areas, zone_tables, prio_tables, base_tables))
-    summary = pd.DataFrame(rows)
+        grid = stage.areas.grid
+        runs.append(stage)
+    summary = pd.DataFrame([row for run in runs for row in run.summary_rows()])
+    site_plan = _study_siting(study, net, bases, demand, snaps) if study.siting else None
+    avail = _study_availability(study, net, bases, demand, snaps) if study.availability else None
+    calibration = _study_calibration(study, net, bases) if study.calibration else None
 
     steps.step("writing layers and tables")
     outputs: dict[str, Path] = {"network": output_file(folder, "network"), "surface": surface_path}
     layers: dict[str, pd.DataFrame] = {layer_name("bases"): bases, **polygon_layers(polygons)}
     for run in runs:
-        demand_tables = {name: res.demand for name, res in run.results.items()}
-        tables = {"by_base": run.per_base, "by_zone": run.zones, "by_priority": run.by_priority}
-        layers.update(standard_layers(run.standard.name, demand_tables, run.areas, tables))
+        layers.update(run.layers())
     for name, d in demand.items():  # point rows set aside for want of a usable position
         if d.attrs.get("rejected"):
             layers[layer_name("rejected", name)] = d.attrs["rejected"].table
-    site_plan = None
-    if study.siting:
-        from coverkit.site_plan import build_problem, generate_candidates, solve
+    for stage in (site_plan, avail, calibration):
+        if stage is not None:
+            layers.update(stage.layers())
+    if site_plan is not None:
+        outputs["site_curve_csv"] = write_csv_atomic(table_file(folder, "site_curve"), site_plan.plan.curve)
+    if calibration is not None:
+        from coverkit.calibrate import calibration_chart, write_calibrated_profile
 
-        cfg = study.siting
-        std = study.standard_named(cfg.standard, "siting.standard")
-        dname = study.demand_named(cfg.demand, "siting.demand", "residents")
-        if cfg.candidates is not None:
-            candidates = read_points(str(cfg.candidates), net.crs, what="candidates")
-        else:
-            candidates = generate_candidates(net, cfg.generate, cfg.spacing_m)
-        problem = build_problem(
-            net,
-            bases,
-            candidates,
-            demand[dname],
-            std,
-            relocate=cfg.relocate,
-            max_snap_m=snaps[dname],
-            base_snap_m=base_snap_m,
+        outputs["calibrated_profile"] = write_calibrated_profile(
+            calibration.result, output_file(folder, "calibrated_profile")
         )
-        site_plan = solve(
-            problem,
-            cfg.model,
-            add=cfg.add,
-            target=cfg.target,
-            q=cfg.busy_fraction,
-            method=cfg.method,
-            time_limit_s=cfg.time_limit_s,
-            curve_to=cfg.curve,
-        )
-        site_plan.summary["demand"] = dname
-        layers[layer_name("site_chosen")] = site_plan.chosen
-        layers[layer_name("site_ranking")] = site_plan.ranking
-        layers[layer_name("site_curve")] = site_plan.curve
-        outputs["site_curve_csv"] = write_csv_atomic(table_file(folder, "site_curve"), site_plan.curve)
-    avail = None
-    if study.availability:
-        from coverkit.availability import availability as run_availability
-
-        cfg = study.availability
-        std = study.standard_named(cfg.standard, "availability.standard")
-        dname = study.demand_named(cfg.demand, "availability.demand", "incidents")
-        spec = next(d for d in study.demand if d.name == dname)
-        avail = run_availability(
-            net,
-            bases,
-            demand[dname],
-            std,
-            cfg.service_min,
-            calls_per_h=cfg.calls_per_h,
-            queue=cfg.queue,
-            method=cfg.method,
-            time_field=cfg.time_field,
-            max_snap_m=snaps[dname],
-            window=(spec.start, spec.end),
-        )
-        avail.summary["demand"] = dname
-        layers[layer_name("availability_units")] = avail.units
-        layers[layer_name("availability_demand")] = avail.demand
-    calibration = None
-    if study.calibration:
-        from coverkit.calibrate import calibrate_speeds, calibration_chart, read_observed, write_calibrated_profile
-
-        cfg = study.calibration
-        observed = read_observed(
-            str(cfg.observed), base_ids=bases["id"].astype(str).tolist(), bases_name=study.bases.file.name
-        )
-        hours = list(cfg.hours) if cfg.hours is not None else None
-        calibration = calibrate_speeds(net, bases, observed, hours=hours, source=cfg.observed.name)
-        outputs["calibrated_profile"] = write_calibrated_profile(calibration, output_file(folder, "calibrated_profile"))
-        outputs["calibration_chart"] = calibration_chart(calibration, map_file(folder, "calibration"))
-        layers[layer_name("calibration_classes")] = calibration.classes
-        layers[layer_name("calibration_errors")] = calibration.errors
+        outputs["calibration_chart"] = calibration_chart(calibration.result, map_file(folder, "calibration"))
     layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
     outputs["layers"] = write_gpkg_layers(output_file(folder, "layers"), layers)
     outputs["summary_csv"] = write_csv_atomic(output_file(folder, "summary_csv"), summary)
@@ -746,11 +725,6 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         calibration,
     )
 
-    steps.step("maps and report")
-    if opts.maps or opts.report:
-        from coverkit.report.study_report import write_study_report
-
-        outputs.update(write_study_report(result, folder, html=opts.report))
     return result
 
 
@@ -772,38 +746,11 @@ def headline_lines(run: StudyRun) -> list[str]:
             f"({r.covered:,.0f} of {r.demand_total:,.0f} {unit}); {r.fractile * 100:g}th percentile response "
             f"{frac_text} - {'meets' if r.meets_standard else 'misses'} the standard"
         )
-    if run.site_plan is not None:
-        s = run.site_plan.summary
-        ids = ", ".join(run.site_plan.chosen["id"].astype(str))
-        lines.append(
-            f"siting ({s['model']}, {s['method']}): new sites {ids or '-'}; {s['demand']} covered "
-            f"{s['covered_share_before'] * 100:.1f} % -> {s['covered_share_after'] * 100:.1f} %"
-        )
-    if run.availability is not None:
-        a = run.availability.summary
-        lines.append(
-            f"busy units ({a['calls_per_h']:.2f} calls/h, {a['mean_service_min']:g} min each): {a['demand']} reached "
-            f"in standard {a['drive_time_coverage'] * 100:.1f} % by drive time, "
-            f"{a['availability_coverage'] * 100:.1f} % by the unit that actually answers"
-        )
-    if run.calibration is not None:
-        c = run.calibration
-        lines.append(
-            f"calibration on {c.n_used} observed responses: mean absolute error "
-            f"{c.error('before', 'mae_s', 'all'):.0f} s -> {c.error('after', 'mae_s', 'all'):.0f} s "
-            f"(profile written to {run.outputs['calibrated_profile'].name})"
-        )
+    for stage in (run.siting_stage, run.availability_stage):
+        if stage is not None:
+            lines.append(stage.headline())
+    if run.calibration_stage is not None:
+        lines.append(run.calibration_stage.headline(run.outputs["calibrated_profile"].name))
     for srun in run.runs:
-        gaps, counts = srun.areas.gaps, srun.areas.gap_counts()
-        if len(gaps):
-            top = gaps.iloc[0]
-            held = ", ".join(f"{top[c]:,.0f} {c.removeprefix(GAP_COUNT_PREFIX)}" for c in counts)
-            lines.append(
-                f"{srun.standard.name:<22} {len(gaps)} gaps; largest holds {held} uncovered, {top['area_km2']:.1f} km2"
-            )
-        outside = ", ".join(
-            f"{v:,.0f} {c.removeprefix(GAP_COUNT_PREFIX)}" for c, v in srun.areas.uncovered_outside.items() if v > 0
-        )
-        if outside:
-            lines.append(f"{srun.standard.name:<22} uncovered outside every gap (beyond the grid): {outside}")
+        lines.extend(srun.gap_lines())
     return lines

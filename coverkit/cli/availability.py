@@ -14,7 +14,7 @@ from coverkit.cli.options import (
     positive_float,
     rejected_layer,
 )
-from coverkit.layer_names import demand_name_of, layer_name, single_standard_name
+from coverkit.layer_names import demand_name_of, single_standard_name
 
 NAME = "availability"
 
@@ -64,12 +64,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``coverkit availability`` on the parsed ``args``; the exit status (0)."""
-    import pandas as pd
 
     from coverkit.atomic import write_gpkg_layers
     from coverkit.availability import availability
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
+    from coverkit.stages import AvailabilityStage
 
     net, bases = network_and_bases(args)
     demand = load_demand(
@@ -94,11 +94,7 @@ def run(args: argparse.Namespace) -> int:
         time_field=args.time_field,
         window=(args.start, args.end),
     )
-    layers = {
-        layer_name("availability_units"): run.units,
-        layer_name("availability_demand"): run.demand,
-        layer_name("availability_summary"): pd.DataFrame([run.summary]),
-    }
+    layers = AvailabilityStage(run, demand_name_of(args.demand)).layers()
     rejected = rejected_layer(demand, layers, demand_name_of(args.demand))
     write_gpkg_layers(args.out, layers)
     s = run.summary

@@ -57,19 +57,20 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``coverkit cover`` on the parsed ``args``; the exit status (0)."""
-    import pyogrio
+    import pandas as pd
 
     from coverkit.atomic import write_gpkg_layers
-    from coverkit.coverage import Standard, area_layers, compliance_by, compliance_by_zone, evaluate_coverage, per_base
+    from coverkit.coverage import Standard
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
     from coverkit.network.build import read_boundary
-    from coverkit.study import standard_layers
+    from coverkit.stages import coverage_stage, read_zones
 
     if (args.zones is None) != (args.zone_field is None):
         raise FieldError("--zones and --zone-field go together: give the polygon layer and its id field.")
     std = Standard(single_standard_name(args.minutes), args.minutes * 60.0, args.turnout_s, args.fractile)
     dname = demand_name_of(args.demand)
+    zones = read_zones(args.zones, args.zone_field) if args.zones else None
     net, bases = network_and_bases(args)
     demand = load_demand(
         args.demand,
@@ -83,61 +84,24 @@ def run(args: argparse.Namespace) -> int:
         end=args.end,
         max_rejected_share=args.max_rejected,
     )
-    res = evaluate_coverage(
-        net, bases, demand, std, max_snap_m=args.demand_snap_m, base_snap_m=args.snap_m, direction=args.direction
-    )
-    is_points = demand["source"].iloc[0] == "points"
     area = read_boundary(args.boundary).to_crs(net.crs).union_all() if args.boundary else None
-    areas = area_layers(net, res, area=area)
-    out_demand = res.demand.assign(gap_id=areas.demand_gap_id)
-    by_base = per_base(res)
-    tables = {"by_base": {dname: by_base}}
-    if args.zones:
-        zones = pyogrio.read_dataframe(args.zones)
-        tables["by_zone"] = {dname: compliance_by_zone(res, zones, args.zone_field)}
-    if "priority" in out_demand.columns:
-        tables["by_priority"] = {dname: compliance_by(res, "priority")}
-    layers = {layer_name("bases"): bases, **standard_layers(std.name, {dname: out_demand}, areas, tables)}
-    rejected = rejected_layer(demand, layers, dname)
-    summary = res.summary()
-    import pandas as pd
-
-    kind = "incidents" if is_points else "residents"
-    row = {"standard": std.name, "demand": dname, "kind": kind, **summary}
-    layers[layer_name("summary")] = pd.DataFrame([row]).drop(columns=["standard_text"])
+    stage = coverage_stage(
+        net,
+        bases,
+        {dname: demand},
+        std,
+        zones=zones,
+        zone_id_field=args.zone_field if zones is not None else None,
+        area=area,
+        demand_snap_m={dname: args.demand_snap_m},
+        base_snap_m=args.snap_m,
+        direction=args.direction,
+    )
+    layers = {layer_name("bases"): bases, **stage.layers()}
+    rejected_layer(demand, layers, dname)
+    layers[layer_name("summary")] = pd.DataFrame(stage.summary_rows()).drop(columns=["standard_text"])
     write_gpkg_layers(args.out, layers)
-    unit = "calls" if is_points else "people"
-    where_word = "cells" if demand["source"].iloc[0] == "raster" else "points"
-    frac = summary["fractile_response_s"]
-    print(std.describe())
-    print(
-        f"demand       {summary['demand_total']:,.0f} {unit} in {summary['demand_points']:,} {where_word} "
-        f"({summary['off_network_points']:,} off the network, {summary['off_network']:,.0f} {unit})"
-    )
-    if rejected:
-        print(f"rejected     {rejected}")
-    print(f"covered      {summary['covered']:,.0f} {unit} = {summary['covered_share'] * 100:.1f} %")
-    print(f"depth        once {summary['covered_once']:,.0f}, twice or more {summary['covered_twice_or_more']:,.0f}")
-    frac_text = "not reached" if frac == float("inf") else f"{frac:,.0f} s ({frac / 60:.1f} min)"
-    verdict = "meets" if summary["meets_standard"] else "misses"
-    print(f"fractile     {args.fractile * 100:g}th percentile response {frac_text}: {verdict} {std.response_s:,.0f} s")
-    count = areas.gap_counts()[0]
-    outside = areas.uncovered_outside[count]
-    print(
-        f"gaps         {len(areas.gaps)} holding {areas.gaps[count].sum():,.0f} uncovered {unit}"
-        + (f" ({outside:,.0f} more lie outside every gap, beyond the grid)" if outside > 0 else "")
-        + (
-            f"; largest {areas.gaps[count].iloc[0]:,.0f} {unit}, {areas.gaps['area_km2'].iloc[0]:.1f} km2"
-            if len(areas.gaps)
-            else ""
-        )
-    )
-    print("\nper base (first due)")
-    for r in by_base.itertuples(index=False):
-        print(
-            f"  {r.base_id:<12}{r.first_due_demand:>12,.0f} {unit} ({r.first_due_share * 100:5.1f} %), "
-            f"sole cover {r.sole_cover:,.0f}"
-        )
+    print("\n".join(stage.lines(dname)))
     print(f"\nwrote {args.out}")
     print(CAUTION)
     return 0

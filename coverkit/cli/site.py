@@ -89,6 +89,7 @@ def run(args: argparse.Namespace) -> int:
     from coverkit.errors import FieldError
     from coverkit.report.study_report import site_curve_chart, site_curve_values
     from coverkit.site_plan import build_problem, generate_candidates, ranking_table, solve
+    from coverkit.stages import SitingStage
     from coverkit.travel import read_points
 
     if (args.candidates is None) == (args.generate_candidates is None):
@@ -130,13 +131,7 @@ def run(args: argparse.Namespace) -> int:
     )
     s = plan.summary
     chart = site_curve_chart(plan, map_file(folder, "site_curve"), std.describe(with_source=False))
-    layers = {
-        layer_name("site_chosen"): plan.chosen,
-        layer_name("site_ranking"): plan.ranking,
-        layer_name("site_curve"): plan.curve,
-        layer_name("site_candidates"): problem.sites,
-        layer_name("site_summary"): pd.DataFrame([plan.summary]),
-    }
+    layers = SitingStage(problem, plan, demand_name_of(args.demand)).layers()
     rejected = rejected_layer(demand, layers, demand_name_of(args.demand))
     write_gpkg_layers(args.out, layers)
     if rejected:

@@ -273,9 +273,9 @@ def _standards(page: ReportPage) -> None:
     for srun in run.runs:
         s = slug(srun.standard.name)
         rep.add_heading(f"Standard: {srun.standard.describe()}")
-        for name, table in srun.per_base.items():
+        for name, table in srun.by_base.items():
             _table(rep, table, f"Per base - {name}", words.get(name, "points"))
-        for label, tables in (("zone", srun.zones), ("priority", srun.by_priority)):
+        for label, tables in (("zone", srun.by_zone), ("priority", srun.by_priority)):
             for name, table in tables.items():
                 _table(rep, table, f"Compliance by {label} - {name}", words.get(name, "points"))
         gaps = srun.areas.gaps.head(10)
