@@ -49,6 +49,8 @@ _LAZY = {
     "WhatIf": "coverkit.whatif",
     "load_study": "coverkit.study",
     "run_study": "coverkit.study",
+    "report_study": "coverkit.report.study_report",
+    "coverage_stage": "coverkit.stages",
     "compare_study": "coverkit.compare_run",
     "layer_name": "coverkit.layer_names",
 }
@@ -67,6 +69,7 @@ __all__ = [
     "calibrate_speeds",
     "compare_study",
     "compliance_by_zone",
+    "coverage_stage",
     "drive_time_polygons",
     "evaluate_coverage",
     "layer_name",
@@ -76,6 +79,7 @@ __all__ = [
     "load_study",
     "per_base",
     "read_points",
+    "report_study",
     "run_study",
     "snap_points",
     "solve",
@@ -97,8 +101,10 @@ if TYPE_CHECKING:  # for type checkers and editors; at run time the names load o
     from coverkit.isochrones import drive_time_polygons, write_travel_surface
     from coverkit.layer_names import layer_name
     from coverkit.network import RoadNetwork, build_network, load_profile
+    from coverkit.report.study_report import report_study
     from coverkit.scenario import load_scenario
     from coverkit.site_plan import build_problem, solve
+    from coverkit.stages import coverage_stage
     from coverkit.study import load_study, run_study
     from coverkit.travel import read_points, snap_points
     from coverkit.whatif import WhatIf

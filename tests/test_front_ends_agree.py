@@ -112,3 +112,14 @@ def test_site_and_run_choose_the_same_sites(agreed):
         assert list(a.columns) == list(b.columns), kind
         timing = [c for c in a.columns if c.startswith("solve")]  # wall-clock time differs from run to run
         pd.testing.assert_frame_equal(a.drop(columns=timing), b.drop(columns=timing), check_dtype=False)
+
+
+def test_the_study_runner_leaves_the_report_to_its_caller():
+    """`coverkit.study` imports no report module: the report is written from the run's result by whoever calls it
+    (the layering rule of the design card)."""
+    import subprocess
+    import sys
+
+    code = "import sys, coverkit.study; print(any(m.startswith('coverkit.report') for m in sys.modules))"
+    printed = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert printed.strip() == "False"

@@ -25,10 +25,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run ``coverkit demo`` on the parsed ``args``; the exit status (0)."""
     from coverkit.demo import write_demo_study
+    from coverkit.report.study_report import report_study
     from coverkit.study import headline_lines, run_study
 
     study_path = write_demo_study(args.out)
     run = run_study(study_path, args.out)
+    report_study(run)
     print("\n".join(headline_lines(run)))
     print(f"\ndemo data (fictional) in {args.out / 'data'}; study file {study_path}")
     print(f"report: {run.outputs.get('report', '')}")

@@ -26,9 +26,11 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``coverkit run`` on the parsed ``args``; the exit status (0)."""
+    from coverkit.report.study_report import report_study
     from coverkit.study import headline_lines, run_study
 
     run = run_study(args.study, args.out)
+    report_study(run)
     print("\n".join(headline_lines(run)))
     print(f"\nwrote {len(run.outputs)} outputs to {run.outputs['layers'].parent}")
     if "report" in run.outputs:

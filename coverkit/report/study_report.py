@@ -372,6 +372,19 @@ REPORT_SECTIONS: tuple[ReportSection, ...] = (
 )
 
 
+def report_study(run: StudyRun) -> dict[str, Path]:
+    """The maps and the HTML report of a study run, as its ``[outputs]`` section asks (``maps``, ``report``).
+
+    Written into the run's output folder; the paths are added to ``run.outputs`` and returned.
+    """
+    opts = run.study.outputs
+    if not (opts.get("maps", True) or opts.get("report", True)):
+        return {}
+    written = write_study_report(run, run.outputs["layers"].parent, html=opts.get("report", True))
+    run.outputs.update(written)
+    return written
+
+
 def site_curve_values(model: str, curve: pd.DataFrame) -> tuple[list[float], str]:
     """The curve's own value per point: what the model optimises (MCLP and LSCP: covered share), as the model's
     registry entry (:mod:`coverkit.siting_models`) says."""
