@@ -90,7 +90,7 @@ def whatif_from_study(study_path: str | Path, cache_folder: str | Path | None = 
     )
 
 
-@dataclass
+@dataclass(frozen=True)
 class CompareRun:
     """The outcome of :func:`compare_study`.
 
@@ -128,6 +128,33 @@ class CompareRun:
     after: dict
     summary: pd.DataFrame
     outputs: dict[str, Path]
+
+    def layers(self) -> dict[str, Any]:
+        """Every layer of the comparison, named by :mod:`coverkit.layer_names`."""
+        log = self.changes
+        changes = [f"change_{i}" for i in range(len(log.lines()))]
+        about = pd.DataFrame(
+            {
+                "key": ["study", "scenario", "description", "caution", *changes],
+                "value": [self.study.name, self.scenario.name, self.scenario.description, CAUTION, *log.lines()],
+            }
+        )
+        layers: dict[str, Any] = {
+            layer_name("bases_before"): self.bases_before,
+            layer_name("bases_after"): self.bases_after,
+            layer_name("closed_roads"): log.closed,
+            layer_name("slowed_roads"): log.slowed,
+            layer_name("comparison"): self.summary,
+            layer_name("about"): about,
+        }
+        for (std, dem), comp in self.comparisons.items():
+            layers[layer_name("change_points", dem, std)] = comp.points
+            layers[layer_name("change_by_base", dem, std)] = comp.bases
+        for std, ca in self.areas.items():
+            layers[layer_name("changed_areas", standard=std)] = ca.polygons
+            layers[layer_name("gaps_before", standard=std)] = ca.before.gaps
+            layers[layer_name("gaps_after", standard=std)] = ca.after.gaps
+        return layers
 
     def lines(self) -> list[str]:
         """Headline lines: the changes, then each standard x demand before/after."""
@@ -241,34 +268,16 @@ def _compare(
         )
     summary = pd.DataFrame(rows)
     steps.step("writing layers and table")
-    about = pd.DataFrame(
-        {
-            "key": ["study", "scenario", "description", "caution", *[f"change_{i}" for i in range(len(log.lines()))]],
-            "value": [study.name, scenario.name, scenario.description, CAUTION, *log.lines()],
-        }
-    )
-    layers: dict[str, Any] = {
-        layer_name("bases_before"): bases,
-        layer_name("bases_after"): bases2,
-        layer_name("closed_roads"): log.closed,
-        layer_name("slowed_roads"): log.slowed,
-        layer_name("comparison"): summary,
-        layer_name("about"): about,
-    }
-    for (std, dem), comp in comparisons.items():
-        layers[layer_name("change_points", dem, std)] = comp.points
-        layers[layer_name("change_by_base", dem, std)] = comp.bases
-    for std, ca in areas.items():
-        layers[layer_name("changed_areas", standard=std)] = ca.polygons
-        layers[layer_name("gaps_before", standard=std)] = ca.before.gaps
-        layers[layer_name("gaps_after", standard=std)] = ca.after.gaps
+    run = CompareRun(
+        study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, {}
+    )  # fmt: skip
+    layers = run.layers()
     outputs = {
         "layers": write_gpkg_layers(output_file(out, "compare_layers"), layers),
         "table": write_csv_atomic(output_file(out, "compare_csv"), summary),
     }
-    return CompareRun(
-        study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, outputs
-    )
+    run.outputs.update(outputs)
+    return run
 
 
 __all__ = ["CompareRun", "compare_study", "study_inputs", "whatif_from_study"]
