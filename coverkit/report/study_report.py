@@ -378,9 +378,9 @@ def report_study(run: StudyRun) -> dict[str, Path]:
     Written into the run's output folder; the paths are added to ``run.outputs`` and returned.
     """
     opts = run.study.outputs
-    if not (opts.get("maps", True) or opts.get("report", True)):
+    if not (opts.maps or opts.report):
         return {}
-    written = write_study_report(run, run.outputs["layers"].parent, html=opts.get("report", True))
+    written = write_study_report(run, run.outputs["layers"].parent, html=opts.report)
     run.outputs.update(written)
     return written
 
