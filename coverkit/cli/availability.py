@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from coverkit import CAUTION
+from coverkit import CAUTION, settings
 from coverkit.cli.options import (
     common,
     coverage_inputs,
@@ -36,19 +36,21 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--service-min", type=positive_float, required=True, help="mean time a unit is busy per call, min")
     p.add_argument("--calls-per-h", type=positive_float, help="total call rate (default: from incident timestamps)")
-    p.add_argument("--time-field", default="received_at", help="incident timestamp field (received_at)")
+    p.add_argument(
+        "--time-field", default=settings.TIME_FIELD, help=f"incident timestamp field ({settings.TIME_FIELD})"
+    )
     p.add_argument("--start", help="keep incidents at or after this ISO time")
     p.add_argument("--end", help="keep incidents before this ISO time")
     p.add_argument(
         "--queue",
-        choices=["infinite", "zero"],
-        default="infinite",
+        choices=settings.QUEUES,
+        default=settings.QUEUE,
         help="infinite: calls wait; zero: calls finding all units busy are lost to mutual aid",
     )
     p.add_argument(
         "--method",
-        choices=["auto", "exact", "approx"],
-        default="auto",
+        choices=settings.AVAILABILITY_METHODS,
+        default=settings.AVAILABILITY_METHOD,
         help="exact 2^N-state model, Larson's approximation, or auto by size",
     )
     p.add_argument(

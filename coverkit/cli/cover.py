@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from coverkit import CAUTION
+from coverkit import CAUTION, settings
 from coverkit.cli.options import (
     common,
     coverage_inputs,
@@ -37,7 +37,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         help="GeoPackage to write (layers demand_<demand>_<standard>, gaps_<standard>, ...)",
     )
     p.add_argument("--weight-field", help="weight field of point demand (default: weight column or 1)")
-    p.add_argument("--demand-id-field", default="id", help="id field of point demand (id)")
+    p.add_argument(
+        "--demand-id-field", default=settings.ID_FIELD, help=f"id field of point demand ({settings.ID_FIELD})"
+    )
     p.add_argument("--time-field", help="timestamp field for --start/--end (received_at)")
     p.add_argument("--start", help="keep points at or after this ISO time")
     p.add_argument("--end", help="keep points before this ISO time")
@@ -49,8 +51,18 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         help="study area polygon layer that the first-, second- and third-due areas tile (default: the network's "
         "extent)",
     )
-    p.add_argument("--demand-snap-m", type=positive_float, default=500.0, help="demand snap limit, m (500)")
-    p.add_argument("--direction", choices=["out", "in"], default="out", help="out: base to demand (default)")
+    p.add_argument(
+        "--demand-snap-m",
+        type=positive_float,
+        default=settings.SNAP_M,
+        help=f"demand snap limit, m ({settings.SNAP_M:g})",
+    )
+    p.add_argument(
+        "--direction",
+        choices=settings.DIRECTIONS,
+        default=settings.DIRECTION,
+        help="out: base to demand; in: demand to base (default %(default)s)",
+    )
     points_options(p)
     common(p)
 

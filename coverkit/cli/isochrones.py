@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from coverkit import CAUTION
+from coverkit import CAUTION, settings
 from coverkit.cli.options import common, minutes_list, network_and_bases, points_options, positive_float
 
 NAME = "isochrones"
@@ -21,18 +21,38 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("network", type=Path, help="network GeoPackage from `coverkit network`")
     p.add_argument("--bases", type=Path, required=True, help="bases: CSV with id, lon, lat or a point layer")
-    p.add_argument("--minutes", type=minutes_list, default=[4.0, 8.0, 12.0], help="bands in minutes (4,8,12)")
+    p.add_argument(
+        "--minutes",
+        type=minutes_list,
+        default=list(settings.ISOCHRONE_MINUTES),
+        help=f"bands in minutes ({','.join(f'{m:g}' for m in settings.ISOCHRONE_MINUTES)})",
+    )
     p.add_argument(
         "--out", "-o", type=Path, required=True, help="GeoPackage to write (layers reach_by_base, reach_any_base)"
     )
     p.add_argument("--surface", type=Path, help="also write a GeoTIFF of minutes to the nearest base")
-    p.add_argument("--surface-cell-m", type=positive_float, default=50.0, help="surface cell size, m (50)")
-    p.add_argument("--reach-m", type=positive_float, default=150.0, help="reach from a reached road, m (150)")
+    p.add_argument(
+        "--surface-cell-m",
+        type=positive_float,
+        default=settings.SURFACE_CELL_M,
+        help=f"surface cell size, m ({settings.SURFACE_CELL_M:g})",
+    )
+    p.add_argument(
+        "--reach-m",
+        type=positive_float,
+        default=settings.REACH_M,
+        help=f"reach from a reached road, m ({settings.REACH_M:g})",
+    )
     p.add_argument("--exact", action="store_true", help="exact vector construction (slower reference path)")
     p.add_argument(
         "--grid-m", type=positive_float, help="grid spacing of the fast polygons, m (default: a third of the reach)"
     )
-    p.add_argument("--direction", choices=["out", "in"], default="out", help="out: from base (default); in: to base")
+    p.add_argument(
+        "--direction",
+        choices=settings.DIRECTIONS,
+        default=settings.DIRECTION,
+        help="out: from base; in: to base (default %(default)s)",
+    )
     points_options(p)
     common(p)
 

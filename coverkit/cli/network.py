@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from coverkit import CAUTION
+from coverkit import CAUTION, settings
 from coverkit.cli.options import common, positive_float
 
 NAME = "network"
@@ -23,15 +23,15 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--out", "-o", type=Path, required=True, help="network GeoPackage to write")
     p.add_argument(
         "--profile",
-        default="emergency",
-        help="speed profile: normal, emergency, winter or a .toml file",
+        default=settings.PROFILE,
+        help="speed profile: normal, emergency, winter or a .toml file (%(default)s)",
     )
     p.add_argument("--boundary", type=Path, help="polygon layer to clip to (roads within it plus the buffer)")
     p.add_argument(
         "--buffer-m",
         type=positive_float,
-        default=3000.0,
-        help="buffer around --boundary, m (3000)",
+        default=settings.BUFFER_M,
+        help=f"buffer around --boundary, m ({settings.BUFFER_M:g})",
     )
     p.add_argument("--crs", help="metric CRS for the network (default: the UTM zone of the data)")
     p.add_argument(

@@ -12,6 +12,7 @@ import argparse
 import math
 from pathlib import Path
 
+from coverkit import settings
 from coverkit.layer_names import layer_name
 from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 
@@ -114,14 +115,26 @@ def coverage_inputs(
     p.add_argument("--minutes", type=positive_float, required=True, help="travel-time standard in minutes")
     if standard:
         p.add_argument("--population-field", help="population field of a polygon demand layer")
-        p.add_argument("--turnout-s", type=positive_float, default=0.0, help="turnout added to travel, s (0)")
-        p.add_argument("--fractile", type=float, default=0.9, help="share of demand to reach, 0..1 (0.9)")
+        p.add_argument(
+            "--turnout-s",
+            type=positive_float,
+            default=settings.TURNOUT_S,
+            help=f"turnout added to travel, s ({settings.TURNOUT_S:g})",
+        )
+        p.add_argument(
+            "--fractile",
+            type=float,
+            default=settings.FRACTILE,
+            help=f"share of demand to reach, 0..1 ({settings.FRACTILE:g})",
+        )
 
 
 def points_options(p: argparse.ArgumentParser) -> None:
     """The bases' id field and snap limit."""
-    p.add_argument("--id-field", default="id", help="id field of --bases (id)")
-    p.add_argument("--snap-m", type=positive_float, default=500.0, help="base snap limit, m (500)")
+    p.add_argument("--id-field", default=settings.ID_FIELD, help=f"id field of --bases ({settings.ID_FIELD})")
+    p.add_argument(
+        "--snap-m", type=positive_float, default=settings.SNAP_M, help=f"base snap limit, m ({settings.SNAP_M:g})"
+    )
 
 
 def network_and_bases(args: argparse.Namespace):

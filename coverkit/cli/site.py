@@ -6,7 +6,7 @@ import argparse
 import math
 from pathlib import Path
 
-from coverkit import CAUTION
+from coverkit import CAUTION, settings, siting_models
 from coverkit.cli.options import (
     common,
     coverage_inputs,
@@ -34,19 +34,29 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument(
         "--generate-candidates",
         metavar="CLASS",
-        help="generate candidates at nodes on roads of CLASS or better (e.g. tertiary)",
+        help=f"generate candidates at nodes on roads of CLASS or better (e.g. {settings.CANDIDATE_CLASS})",
     )
-    p.add_argument("--spacing-m", type=positive_float, default=1500.0, help="generated candidate spacing, m (1500)")
-    p.add_argument("--model", choices=["mclp", "lscp", "backup", "mexclp", "p-median"], default="mclp")
+    p.add_argument(
+        "--spacing-m",
+        type=positive_float,
+        default=settings.SPACING_M,
+        help=f"generated candidate spacing, m ({settings.SPACING_M:g})",
+    )
+    p.add_argument("--model", choices=siting_models.NAMES, default=siting_models.DEFAULT_MODEL)
     p.add_argument("--add", type=int, help="number of new sites (mclp, backup, p-median) or units (mexclp)")
     p.add_argument("--target", type=float, help="lscp: share of demand to cover, 0..1 (default all coverable)")
     p.add_argument("--busy-fraction", type=float, help="mexclp: share of time a unit is busy, 0..1")
     p.add_argument("--relocate", action="store_true", help="existing bases are free to move (not fixed)")
     p.add_argument("--rank", action="store_true", help="only rank every candidate alone (what each adds)")
     p.add_argument("--curve", type=int, help="coverage curve up to this many new sites (default --add, at least 3)")
-    p.add_argument("--method", choices=["auto", "milp", "heuristic"], default="auto", help="solver (auto)")
     p.add_argument(
-        "--time-limit-s", type=positive_float, default=60.0, help="time for all solving, curve included, s (60)"
+        "--method", choices=settings.SITING_METHODS, default=settings.SITING_METHOD, help="solver (%(default)s)"
+    )
+    p.add_argument(
+        "--time-limit-s",
+        type=positive_float,
+        default=settings.SITING_TIME_LIMIT_S,
+        help=f"time for all solving, curve included, s ({settings.SITING_TIME_LIMIT_S:g})",
     )
     p.add_argument(
         "--out",
@@ -69,14 +79,6 @@ def _site_headline(s: dict) -> str:
         else "no bound on the best possible"
     )
     return f"{s['model']}: answer from {who}; {s['status']}; {sure}; {s['solve_s']:.1f} s"
-
-
-def _site_objective_text(model: str, value: float, total: float) -> str:
-    if model == "p-median":
-        return f"{value:,.1f} s ({value / 60:.2f} min)"
-    if model == "lscp":
-        return f"{int(value)}"
-    return f"{value:,.1f} of {total:,.1f} ({value / total * 100:.1f} %)"
 
 
 def run(args: argparse.Namespace) -> int:
@@ -142,7 +144,9 @@ def run(args: argparse.Namespace) -> int:
     write_csv_atomic(table_file(folder, "site_ranking"), plan.ranking)
     print(_site_headline(s))
     print(std.describe())
-    print(f"{s['objective_name']}: {_site_objective_text(s['model'], s['objective'], s['total_weight'])}")
+    print(
+        f"{s['objective_name']}: {siting_models.BY_NAME[s['model']].objective_text(s['objective'], s['total_weight'])}"
+    )
     print(
         f"covered within the standard: before {s['covered_share_before'] * 100:.1f} % (existing bases), "
         f"after {s['covered_share_after'] * 100:.1f} %; {std.fractile * 100:g}th percentile response "
