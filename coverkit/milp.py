@@ -39,10 +39,21 @@ class Milp:
     row_hi: np.ndarray
     maximise: bool
     constant: float = 0.0
+    #: Every integer answer's value (its best completion, constant included) is a whole number, as with whole
+    #: demand weights: a bound can then be rounded to a whole number and a gap below 1 is optimality.
+    integral: bool = False
 
     @property
     def nnz(self) -> int:
         return int(self.a.nnz)
+
+
+def round_bound(model: Milp, bound: float) -> float:
+    """``bound`` rounded towards the answers (down for a maximum) when every answer's value is a whole number."""
+    if not (model.integral and math.isfinite(bound)):
+        return bound
+    slack = 1e-6 * max(abs(bound), 1.0)  # the solver's tolerances: a bound of 41.9999999 means 42
+    return float(math.floor(bound + slack)) if model.maximise else float(math.ceil(bound - slack))
 
 
 @dataclass(frozen=True)
@@ -104,6 +115,8 @@ class Solver:
         # HiGHS counts its time limit against all the runs of one object: add the time already spent
         h.setOptionValue("time_limit", float(h.getRunTime()) + float(max(time_limit_s, 0.01)))
         h.setOptionValue("mip_rel_gap", float(rel_gap))
+        # whole-number values: a gap below 1 proves the incumbent's best completion optimal
+        h.setOptionValue("mip_abs_gap", 1.0 - 1e-6 if model.integral else 1e-6)
         if relax and self._int_cols.size:
             cont = np.full(self._int_cols.size, highspy.HighsVarType.kContinuous)
             h.changeColsIntegrality(self._int_cols.size, self._int_cols, cont)
@@ -125,12 +138,12 @@ class Solver:
         value = model.constant + sign * float(info.objective_function_value) if x is not None else math.nan
         proven = st == highspy.HighsModelStatus.kOptimal
         if relax:
-            bound = value if proven else math.nan
+            bound = round_bound(model, value) if proven else math.nan
             return MilpAnswer(x if proven else None, value, bound, proven, "LP relaxation" if proven else "time limit")
         dual = float(info.mip_dual_bound)
-        bound = model.constant + sign * dual if math.isfinite(dual) else math.nan
+        bound = round_bound(model, model.constant + sign * dual) if math.isfinite(dual) else math.nan
         if proven and x is not None and not math.isfinite(bound):
-            bound = value
+            bound = round_bound(model, value)
         return MilpAnswer(x, value, bound, proven, "optimal" if proven else "time limit")
 
 
@@ -158,6 +171,7 @@ class CurveSolver:
             model.row_hi,
             model.maximise,
             model.constant,
+            model.integral,
         )
         self.lp = Solver(relaxed)
         self.lp.h.setOptionValue("solver", "ipm")
@@ -165,6 +179,8 @@ class CurveSolver:
         self.int_cols = np.flatnonzero(np.asarray(model.integrality) > 0)
         self.fixed_cols = 0
         self.last_source = "HiGHS dual bound"
+        #: The last LP relaxation solved: its value and reduced costs (``None`` if it was not solved).
+        self.last_lp: tuple[float, np.ndarray] | None = None
 
     def set_row_bounds(self, row: int, lo: float, hi: float) -> None:
         self.lp.set_row_bounds(row, lo, hi)
@@ -180,8 +196,41 @@ class CurveSolver:
         self.lp.h.setOptionValue("solver", "simplex")  # later solves restart from this basis
         if not ans.proven:
             self.lp.h.setOptionValue("solver", "ipm")
+            self.last_lp = None
             return math.nan, None
-        return ans.value, np.asarray(self.lp.h.getSolution().col_dual, dtype=float)
+        rc = np.asarray(self.lp.h.getSolution().col_dual, dtype=float)
+        self.last_lp = (ans.value, rc)
+        return round_bound(self.model, ans.value), rc
+
+    def fixings(self, target: float, start: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Column bounds that every answer at least as good as ``target`` meets, from the last LP's reduced costs.
+
+        An integer column at a bound in the LP whose reduced cost says that moving it off that bound takes the LP
+        value past ``target`` is fixed there (only where ``start`` has it there too, so ``start`` stays feasible).
+        Without a solved LP the model's own bounds come back.
+        """
+        model = self.model
+        lo = np.asarray(model.lb, dtype=float).copy()
+        hi = np.asarray(model.ub, dtype=float).copy()
+        self.fixed_cols = 0
+        if self.last_lp is None:
+            return lo, hi
+        lp_value, rc = self.last_lp
+        sign = -1.0 if model.maximise else 1.0
+        # in the minimising form: a column at 0 costs at least lp + rc to raise, one at 1 lp - rc to lower
+        z_lp, z_inc = sign * (lp_value - model.constant), sign * (target - model.constant)
+        margin = 1e-7 * max(abs(target), 1.0)
+        ic = self.int_cols
+        up = z_lp + np.maximum(rc[ic], 0.0) * (hi[ic] - lo[ic]) > z_inc + margin
+        down = z_lp - np.minimum(rc[ic], 0.0) * (hi[ic] - lo[ic]) > z_inc + margin
+        at_lo = np.abs(np.asarray(start)[ic] - lo[ic]) < 0.5
+        at_hi = np.abs(np.asarray(start)[ic] - hi[ic]) < 0.5
+        fix_lo = up & (rc[ic] > 0) & at_lo
+        fix_hi = down & (rc[ic] < 0) & at_hi
+        hi[ic[fix_lo]] = lo[ic[fix_lo]]
+        lo[ic[fix_hi]] = hi[ic[fix_hi]]
+        self.fixed_cols = int(fix_lo.sum() + fix_hi.sum())
+        return lo, hi
 
     def solve(self, start: np.ndarray, start_value: float, time_limit_s: float, rel_gap: float) -> MilpAnswer:
         """Bound by the LP, fix what it rules out, then branch and cut from ``start`` (its model value given)."""
@@ -194,22 +243,7 @@ class CurveSolver:
             self.last_source = "LP relaxation"
             return MilpAnswer(None, start_value, lp_value, True, "LP bound reached")
         self.last_source = "LP relaxation and HiGHS dual bound" if math.isfinite(lp_value) else "HiGHS dual bound"
-        lo = np.asarray(model.lb, dtype=float).copy()
-        hi = np.asarray(model.ub, dtype=float).copy()
-        if rc is not None:
-            # in the minimising form: a column at 0 costs at least lp + rc to raise, one at 1 lp - rc to lower
-            z_lp, z_inc = sign * (lp_value - model.constant), sign * (start_value - model.constant)
-            margin = 1e-7 * scale
-            ic = self.int_cols
-            up = z_lp + np.maximum(rc[ic], 0.0) * (hi[ic] - lo[ic]) > z_inc + margin
-            down = z_lp - np.minimum(rc[ic], 0.0) * (hi[ic] - lo[ic]) > z_inc + margin
-            at_lo = np.abs(np.asarray(start)[ic] - lo[ic]) < 0.5
-            at_hi = np.abs(np.asarray(start)[ic] - hi[ic]) < 0.5
-            fix_lo = up & (rc[ic] > 0) & at_lo
-            fix_hi = down & (rc[ic] < 0) & at_hi
-            hi[ic[fix_lo]] = lo[ic[fix_lo]]
-            lo[ic[fix_hi]] = hi[ic[fix_hi]]
-            self.fixed_cols = int(fix_lo.sum() + fix_hi.sum())
+        lo, hi = self.fixings(start_value, start)
         self.mip.h.changeColsBounds(lo.size, np.arange(lo.size, dtype=np.int32), lo, hi)
         # branch and cut checks its clock only now and then (measured: up to 1.4 x the limit): keep a margin
         ans = self.mip.run(max(MIP_TIME_SHARE * (t_end - time.perf_counter()), 0.05), rel_gap, start)

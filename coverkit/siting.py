@@ -56,6 +56,9 @@ DEFAULT_REL_GAP = 1e-6
 METHODS = ("auto", "milp", "heuristic")
 #: Seed of the random column hashes used to find demand points with identical coverage patterns.
 _HASH_SEED = 20_240_601
+#: Share of one ``p``'s time that backup coverage's first stage (an MCLP) may take; its second stage is posed on
+#: the sites the first one leaves and is usually solved by its LP alone (measured on the county benchmark).
+STAGE1_TIME_SHARE = 0.75
 #: Cap on interchange moves, far above what the instances of a county study need.
 _MAX_SWAPS = 100_000
 
@@ -282,9 +285,15 @@ def _milp(
     constraints: list[tuple[sp.csr_array, ArrayLike, ArrayLike]],
     maximise: bool,
     constant: float = 0.0,
+    integral: bool = False,
 ) -> Milp:
     a, lo, hi = _stack(constraints, c.size)
-    return Milp(c, integrality, lb, ub, a, lo, hi, maximise, constant)
+    return Milp(c, integrality, lb, ub, a, lo, hi, maximise, constant, integral)
+
+
+def _whole(*values: np.ndarray | float) -> bool:
+    """All values whole numbers (people, incidents): objectives built from them are whole numbers too."""
+    return all(bool(np.all(np.asarray(v) == np.round(np.asarray(v)))) for v in values)
 
 
 def _rel_gap(objective: float, bound: float) -> float:
@@ -383,6 +392,30 @@ def _cover_search(
         units[held[r]] -= 1
         k += at[[a]].toarray().ravel() - at[[held[r]]].toarray().ravel()
     return units
+
+
+def _dominators(af: sp.csr_array) -> np.ndarray:
+    """Per site (column of ``af``), the site that stands in for it: itself, or a site covering all it covers.
+
+    A site whose covered rows another site covers too (a superset; among equal sets the lowest index stays) can
+    be swapped for that one without losing cover, so covering models need not consider it. A site covering no
+    row gets ``-1``. The stand-in is itself kept (the largest superset is chosen, so chains end at once).
+    """
+    at = sp.csr_array(af.T, dtype=float)
+    n = at.shape[0]
+    size = np.diff(at.indptr)
+    c = sp.coo_array(at @ sp.csr_array(af, dtype=float))
+    r, q, v = c.row, c.col, c.data
+    dom = (v >= size[r] - 0.5) & (r != q) & ((size[q] > size[r]) | ((size[q] == size[r]) & (q < r)))
+    r, q = r[dom], q[dom]
+    order = np.lexsort((q, -size[q], r))
+    r, q = r[order], q[order]
+    first = np.ones(r.size, dtype=bool)
+    first[1:] = r[1:] != r[:-1]
+    dom_of = np.arange(n)
+    dom_of[r[first]] = q[first]
+    dom_of[size == 0] = -1
+    return dom_of
 
 
 def _step(w: np.ndarray, level: int) -> Value:
@@ -509,7 +542,7 @@ def _run_points(spec, ps: list[int], method: str, budget_s: float, rel_gap: floa
                 b, s = spec.lp_bound(p, min(max(share, 1.0), LP_TIME_LIMIT_S), cand)
                 if math.isfinite(b) and spec.tighter(bound, b) != bound:
                     bound, source = b, s
-        proven = spec.reached(spec.objective(cand), bound)
+        proven = spec.reached(spec.objective(cand), bound) and spec.settled(p)
         out.append(_Point(cand, kept, _status(proven, kept, ran), bound, source))
         prev, prev_p = cand, p
     return out
@@ -528,6 +561,10 @@ class _Spec:
     def reached(self, obj: float, bound: float) -> bool:
         slack = self.tol * max(abs(obj), 1.0)
         return obj >= bound - slack if self.maximise else obj <= bound + slack
+
+    def settled(self, p: int) -> bool:
+        """Whatever else an answer reaching its bound needs to be proven optimal (backup's first stage)."""
+        return True
 
 
 class _CoverSpec(_Spec):
@@ -584,9 +621,9 @@ class _CoverSpec(_Spec):
 class _MclpSpec(_CoverSpec):
     """MCLP on the rows no fixed site covers, merged; the exact model is reduced before it is posed."""
 
-    def __init__(self, cv: _Cover):
+    def __init__(self, cv: _Cover, *, prune: bool = True):
         kfix = cv.kfix
-        self.cv = cv
+        self.cv, self.prune = cv, prune
         self.rows = np.flatnonzero(kfix == 0)
         self.w = cv.w[self.rows]
         self.constant = float(cv.w[kfix > 0].sum())
@@ -612,19 +649,8 @@ class _MclpSpec(_CoverSpec):
     def _build(self) -> None:
         af, at, w = self.af, self.at, self.w
         n = af.shape[1]
-        size = np.diff(at.indptr)
-        # a site whose demand another site covers too (a superset) can be swapped for it: drop it
-        c = sp.coo_array(at @ af)
-        r, q, v = c.row, c.col, c.data
-        dom = (v >= size[r] - 0.5) & (r != q) & ((size[q] > size[r]) | ((size[q] == size[r]) & (q < r)))
-        r, q = r[dom], q[dom]
-        order = np.lexsort((q, -size[q], r))
-        r, q = r[order], q[order]
-        first = np.ones(r.size, dtype=bool)
-        first[1:] = r[1:] != r[:-1]
-        dom_of = np.arange(n)
-        dom_of[r[first]] = q[first]
-        dom_of[size == 0] = -1
+        dom_of = _dominators(af) if self.prune else np.arange(n)
+        # without pruning every site is a column: the LP's reduced costs then speak for every site (backup)
         kept = np.flatnonzero(dom_of == np.arange(n))
         self._dom_of = dom_of
         self._kept = kept
@@ -651,6 +677,7 @@ class _MclpSpec(_CoverSpec):
             ],
             maximise=True,
             constant=self.constant,
+            integral=_whole(self.w, self.constant),
         )
         self._card_row = m2
         self.reduction = {
@@ -661,19 +688,33 @@ class _MclpSpec(_CoverSpec):
         }
         self._solver = CurveSolver(model)
 
+    def _start(self, start: np.ndarray) -> np.ndarray:
+        x0 = np.zeros(self._kept.size)
+        tgt = self._dom_of[np.flatnonzero(start)]
+        x0[self._knum[tgt[tgt >= 0]]] = 1.0
+        return np.concatenate([x0, np.minimum(self._a2 @ x0, 1.0)])
+
     def exact(self, p: int, start: np.ndarray, time_s: float, rel_gap: float):
         solver = self.solver(p)
         nk = self._kept.size
-        x0 = np.zeros(nk)
-        tgt = self._dom_of[np.flatnonzero(start)]
-        x0[self._knum[tgt[tgt >= 0]]] = 1.0
-        y0 = np.minimum(self._a2 @ x0, 1.0)
-        ans = solver.solve(np.concatenate([x0, y0]), self.objective(start), time_s, rel_gap)
+        ans = solver.solve(self._start(start), self.objective(start), time_s, rel_gap)
         units = None
         if ans.x is not None:
             units = np.zeros(self.af.shape[1], dtype=np.int64)
             units[self._kept[np.rint(ans.x[:nk]) > 0.5]] = 1
         return units, ans.bound, ans.proven
+
+    def site_fixings(self, target: float, units: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Sites that may be open / must be open in every answer covering at least ``target`` (at the last ``p``).
+
+        From the reduced costs of the LP last solved (an unpruned model: every site is a column); all sites may
+        be open and none must be when there is no LP.
+        """
+        n = self.af.shape[1]
+        if self.prune or self._solver is None or self._solver.last_lp is None:
+            return np.ones(n, dtype=bool), np.zeros(n, dtype=bool)
+        lo, hi = self._solver.fixings(target, self._start(units))
+        return hi[:n] > 0.5, lo[:n] > 0.5
 
     def result(self, pt: _Point, t0: float, p: int) -> SitingResult:
         new = self.cv.free[np.flatnonzero(pt.units)]
@@ -695,8 +736,95 @@ class _MclpSpec(_CoverSpec):
         )
 
 
+class _BackupModel:
+    """The backup MILP on a subset of the free sites, reduced exactly before it is posed.
+
+    Columns ``[x, y, u0, u1]``: sites ``x``; rows no fixed site covers need ``y`` (covered once) and ``u0``
+    (twice); rows one fixed site covers need only ``u1`` (one new site covers them twice; continuous, it is
+    ``min(1, count)`` at an optimum); rows two fixed sites cover are a constant (the spec leaves them out). A row
+    only one of the model's sites reaches is folded into that site's value; rows with the same sites and the same
+    fixed count are merged (weights summed). Each step is exact.
+    """
+
+    def __init__(self, spec: _BackupSpec, cols: np.ndarray, must: np.ndarray, *, keep: bool):
+        self.cols = cols
+        af, w, kr = spec.af, spec.wr, spec.kr
+        r0, r1 = np.flatnonzero(kr == 0), np.flatnonzero(kr == 1)
+        b0, b1 = sp.csr_array(af[r0][:, cols]), sp.csr_array(af[r1][:, cols])
+        nc = cols.size
+        c0, c1 = np.diff(b0.indptr), np.diff(b1.indptr)
+        # reached by one model site: covered once (rows no fixed site covers) or twice (rows one covers) with it
+        self.x_single = np.bincount(b0.indices[b0.indptr[:-1][c0 == 1]], weights=w[r0][c0 == 1], minlength=nc)
+        self.x_double = np.bincount(b1.indices[b1.indptr[:-1][c1 == 1]], weights=w[r1][c1 == 1], minlength=nc)
+        m0_rows, m1_rows = np.flatnonzero(c0 >= 2), np.flatnonzero(c1 >= 2)
+        a0, self.w0 = _merge_rows(sp.csr_array(b0[m0_rows], dtype=bool), w[r0][m0_rows])
+        a1, self.w1 = _merge_rows(sp.csr_array(b1[m1_rows], dtype=bool), w[r1][m1_rows])
+        self.a0, self.a1 = sp.csr_array(a0, dtype=float), sp.csr_array(a1, dtype=float)
+        m0, m1 = self.a0.shape[0], self.a1.shape[0]
+        self.m0, self.m1 = m0, m1
+        theta = spec.theta
+        # u0 binary: with a continuous one y = u = 1/2 counts a single cover as half a double one; for theta >= 1/2
+        # a second cover is worth no more than the first, so the LP fills y first and u0 may stay continuous
+        u0_int = theta is None or theta < 0.5
+        i0, i1 = sp.identity(m0, format="csr"), sp.identity(m1, format="csr")
+        z = lambda r, c: sp.csr_array((r, c))  # noqa: E731
+        rows = [
+            (sp.hstack([-self.a0, i0, i0, z(m0, m1)]), -np.inf, 0.0),  # y + u0 <= count (so y <= count)
+            (sp.hstack([-self.a1, z(m1, 2 * m0), i1]), -np.inf, 0.0),  # u1 <= count
+            (sp.csr_array(np.concatenate([np.ones(nc), np.zeros(2 * m0 + m1)])[None, :]), 0.0, 0.0),  # sites
+        ]
+        if u0_int:
+            rows.insert(1, (sp.hstack([z(m0, nc), -i0, i0, z(m0, m1)]), -np.inf, 0.0))  # u0 <= y
+        single = np.concatenate([self.x_single, self.w0, np.zeros(m0 + m1)])
+        double = np.concatenate([self.x_double, np.zeros(m0), self.w0, self.w1])
+        if keep:
+            rows.append((sp.csr_array(single[None, :]), -np.inf, np.inf))
+        if theta is None:
+            cost, constant, whole = -double, spec.const2, _whole(spec.wr, spec.const2)
+        else:
+            cost = -(theta * single + (1 - theta) * double)
+            constant, whole = theta * spec.const1 + (1 - theta) * spec.const2, False
+        lb = np.zeros(nc + 2 * m0 + m1)
+        lb[:nc] = must.astype(float)
+        model = _milp(
+            c=cost,
+            integrality=np.concatenate([np.ones(nc), np.zeros(m0), np.full(m0, float(u0_int)), np.zeros(m1)]),
+            lb=lb,
+            ub=np.ones(lb.size),
+            constraints=rows,
+            maximise=True,
+            constant=constant,
+            integral=whole,
+        )
+        self.card_row = model.a.shape[0] - (2 if keep else 1)
+        self.keep_row = model.a.shape[0] - 1 if keep else -1
+        self.solver = CurveSolver(model)
+
+    def set_p(self, p: int, single_lo: float | None = None) -> None:
+        self.solver.set_row_bounds(self.card_row, 0.0, float(p))
+        if single_lo is not None and self.keep_row >= 0:
+            self.solver.set_row_bounds(self.keep_row, single_lo, np.inf)
+
+    def start(self, units: np.ndarray) -> np.ndarray:
+        x = units[self.cols].astype(float)
+        k0, k1 = self.a0 @ x, self.a1 @ x
+        return np.concatenate([x, np.minimum(k0, 1.0), (k0 >= 2).astype(float), np.minimum(k1, 1.0)])
+
+    def units(self, x: np.ndarray | None, n: int) -> np.ndarray | None:
+        if x is None:
+            return None
+        units = np.zeros(n, dtype=np.int64)
+        units[self.cols[np.rint(x[: self.cols.size]) > 0.5]] = 1
+        return units
+
+
 class _BackupSpec(_CoverSpec):
-    """Backup coverage on the rows fixed sites cover fewer than twice (lexicographic or weighted form)."""
+    """Backup coverage on the rows fixed sites cover fewer than twice (lexicographic or weighted form).
+
+    The lexicographic form solves its first stage (the most demand covered once) as an MCLP, on every site so that
+    the MCLP's LP reduced costs say which sites no answer reaching that cover can use; the second stage (the most
+    demand covered twice keeping it) is posed on the sites left, which on county instances is a small model.
+    """
 
     def __init__(self, cv: _Cover, theta: float | None):
         kfix = cv.kfix
@@ -705,6 +833,7 @@ class _BackupSpec(_CoverSpec):
         af = sp.csr_array(cv.af[rows])
         self.wr, self.kr = cv.w[rows], kfix[rows]
         self.const2 = float(cv.w[kfix >= 2].sum())  # covered twice by fixed sites alone
+        self.const1 = float(cv.w[kfix >= 1].sum())  # covered once by fixed sites alone
         self.can_twice = (self.kr + np.diff(af.indptr)) >= 2
         wr = self.wr
         values = (
@@ -714,6 +843,10 @@ class _BackupSpec(_CoverSpec):
         )
         super().__init__(af, self.kr.astype(float), values, np.ones(af.shape[1]), cv.total_w)
         self.milp_size = int(2 * af.nnz + 5 * af.shape[0])
+        self._stage1 = _MclpSpec(cv, prune=False) if theta is None else None
+        self._model: _BackupModel | None = None  # the weighted form's one model, kept along the curve
+        self._settled: dict[int, bool] = {}
+        self.reduction: dict[str, int] = {}
 
     def _eval(self, units: np.ndarray) -> tuple[float, float, float]:
         single, double = _mclp_eval(self.cv, self.cv.free[np.flatnonzero(units)])
@@ -723,97 +856,82 @@ class _BackupSpec(_CoverSpec):
     def objective(self, units: np.ndarray) -> float:
         return self._eval(units)[0]
 
+    def settled(self, p: int) -> bool:
+        """Lexicographic form: whether the single cover kept at ``p`` is proven the most possible."""
+        return self._settled.get(p, self.theta is not None)
+
     def cheap_bound(self, p: int) -> tuple[float, str]:
         twice = self.const2 + float(self.wr[self.can_twice].sum())
         if self.theta is None:
             return twice, "all demand two sites can reach"
         return self.theta * float(self.cv.w.sum()) + (1 - self.theta) * twice, "all coverable demand"
 
-    def solver(self, p: int) -> CurveSolver:
-        if self._solver is None:
-            af, m = self.af, self.af.shape[0]
-            nf = af.shape[1]
-            eye = sp.identity(m, format="csr")
-            self._nvar = nf + 2 * m
-            self._solver = CurveSolver(
-                _milp(
-                    c=self._costs(1),
-                    integrality=np.concatenate([np.ones(nf), np.zeros(m), np.ones(m)]),
-                    lb=np.concatenate([np.zeros(nf), (self.kr >= 1).astype(float), np.zeros(m)]),
-                    ub=np.concatenate([np.ones(nf), np.ones(m), self.can_twice.astype(float)]),
-                    constraints=[
-                        (sp.hstack([-af, eye, eye], format="csr"), -np.inf, self.kr),  # y + u <= count
-                        (sp.hstack([sp.csr_array((m, nf)), -eye, eye], format="csr"), -np.inf, 0.0),  # u <= y
-                        (sp.csr_array(np.concatenate([np.ones(nf), np.zeros(2 * m)])[None, :]), 0.0, 0.0),
-                        (sp.csr_array(np.concatenate([np.zeros(nf), self.wr, np.zeros(m)])[None, :]), -np.inf, np.inf),
-                    ],
-                    maximise=True,
-                    constant=self.const2,
-                )
-            )
-            self._card_row, self._keep_row = 2 * m, 2 * m + 1
-        self._solver.set_row_bounds(self._card_row, 0.0, float(p))
-        return self._solver
+    def _stage2(self, p: int, start: np.ndarray, time_s: float, rel_gap: float, relax: bool):
+        """Lexicographic stage 1 (MCLP), then stage 2 on the sites stage 1's LP leaves: units, bound, proven."""
+        t_end = time.perf_counter() + time_s
+        s1 = self._stage1
+        single = lambda u: self._eval(u)[1]  # noqa: E731
+        if relax:
+            s1.solver(p).lp_bound(STAGE1_TIME_SHARE * time_s)
+            units1, b1, proven1 = None, math.nan, False
+        else:
+            units1, b1, proven1 = s1.exact(p, start, STAGE1_TIME_SHARE * time_s, rel_gap)
+        best = start
+        if units1 is not None and self.better(units1, start):
+            best = units1
+        z1 = single(best)
+        import os, sys
+        if os.environ.get("SDEBUG"):
+            print(f"p={p} stage1 {time_s - (t_end - time.perf_counter()):.1f}s of {time_s:.1f} z1 {z1} b1 {b1} proven1 {proven1} start {single(start)}", file=sys.stderr)
+        self._settled[p] = bool(proven1 or (math.isfinite(b1) and z1 >= b1 - 1e-9 * max(z1, 1.0)))
+        # every answer keeping z1 satisfies the LP's fixings; a fixed-open site (none, usually) is forced open
+        can, must = s1.site_fixings(z1, best)
+        m = _BackupModel(self, np.flatnonzero(can), must[can], keep=True)
+        # the keep row: the single cover of the fixed sites' rows is a constant; a small slack for the LP's tolerance
+        m.set_p(p, z1 - self.const1 - max(1e-7 * z1, 1e-6))
+        self.reduction = {
+            "demand_rows": int(self.cv.a.shape[0]),
+            "model_rows": int(m.m0 + m.m1),
+            "sites": int(self.af.shape[1]),
+            "model_sites": int(m.cols.size),
+        }
+        left = max(t_end - time.perf_counter(), 0.05)
+        if relax:
+            value, _ = m.solver.lp_bound(left)
+            return None, value, False
+        ans = m.solver.solve(m.start(best), self.objective(best), left, rel_gap)
+        units2 = m.units(ans.x, self.af.shape[1])
+        if os.environ.get("SDEBUG"):
+            print(f"p={p} stage2 cols {m.cols.size} rows {m.m0}+{m.m1} {ans} {time_s - (t_end - time.perf_counter()):.1f}s", file=sys.stderr)
+        if units2 is not None and self.better(units2, best):
+            best = units2
+        self._solver = m.solver  # its bound source names the bound
+        return best, ans.bound, ans.proven
 
-    def _costs(self, stage: int) -> np.ndarray:
-        nf, m = self.af.shape[1], self.af.shape[0]
-        if self.theta is not None:
-            return np.concatenate([np.zeros(nf), -self.theta * self.wr, -(1 - self.theta) * self.wr])
-        if stage == 1:
-            return np.concatenate([np.zeros(nf), -self.wr, np.zeros(m)])
-        return np.concatenate([np.zeros(nf), np.zeros(m), -self.wr])
-
-    def _x(self, units: np.ndarray) -> np.ndarray:
-        k = self.counts(units)
-        return np.concatenate([units.astype(float), (k >= 1).astype(float), (k >= 2).astype(float)])
-
-    def _units(self, x: np.ndarray | None) -> np.ndarray | None:
-        if x is None:
-            return None
-        return (np.rint(x[: self.af.shape[1]]) > 0.5).astype(np.int64)
+    def _weighted(self, p: int) -> _BackupModel:
+        if self._model is None:
+            n = self.af.shape[1]
+            self._model = _BackupModel(self, np.arange(n), np.zeros(n, dtype=bool), keep=False)
+            self._solver = self._model.solver
+        self._model.set_p(p)
+        return self._model
 
     def lp_bound(self, p: int, time_s: float, cand: np.ndarray | None = None) -> tuple[float, str]:
         if self.milp_size > LP_NNZ_LIMIT:
             return math.nan, ""
-        solver = self.solver(p)
-        if self.theta is None:  # the double cover's LP bound, keeping the single cover found
-            solver.set_costs(self._costs(2), self.const2)
-            self._set_keep(solver, self.cheap_single)
-        value, _ = solver.lp_bound(time_s)
+        if self.theta is None:
+            start = cand if cand is not None else self.local(self.greedy_prefix(p), p)
+            _, value, _ = self._stage2(p, start, time_s, DEFAULT_REL_GAP, relax=True)
+            return value, "LP relaxation"
+        value, _ = self._weighted(p).solver.lp_bound(time_s)
         return value, "LP relaxation"
 
-    cheap_single = -np.inf
-
-    def _set_keep(self, solver: CurveSolver, single_total: float) -> None:
-        lo = single_total - self.const2 - 1e-9 * self.cv.total_w if math.isfinite(single_total) else -np.inf
-        solver.set_row_bounds(self._keep_row, lo, np.inf)
-
     def exact(self, p: int, start: np.ndarray, time_s: float, rel_gap: float):
-        solver = self.solver(p)
-        t_end = time.perf_counter() + time_s
-        if self.theta is not None:
-            solver.set_costs(self._costs(1), self.const2)
-            ans = solver.solve(self._x(start), self.objective(start), time_s, rel_gap)
-            return self._units(ans.x), ans.bound, ans.proven
-        # stage 1: the most demand covered once; stage 2: the most covered twice keeping it
-        solver.set_costs(self._costs(1), self.const2)
-        self._set_keep(solver, -np.inf)
-        s_single = self._eval(start)[1]
-        a1 = solver.solve(self._x(start), s_single, time_s / 2, rel_gap)
-        u1 = self._units(a1.x)
-        best = start
-        if u1 is not None and self.better(u1, start):
-            best = u1
-        z1 = self._eval(best)[1]
-        solver.set_costs(self._costs(2), self.const2)
-        self._set_keep(solver, z1)
-        a2 = solver.solve(self._x(best), self._eval(best)[0], max(t_end - time.perf_counter(), 0.05), rel_gap)
-        u2 = self._units(a2.x)
-        if u2 is not None and not self.better(u2, best):
-            u2 = best
-        proven1 = a1.proven or (math.isfinite(a1.bound) and z1 >= a1.bound - 1e-9 * max(z1, 1.0))
-        bound = a2.bound if proven1 else math.nan
-        return (u2 if u2 is not None else best), bound, (a2.proven and proven1)
+        if self.theta is None:
+            return self._stage2(p, start, time_s, rel_gap, relax=False)
+        m = self._weighted(p)
+        ans = m.solver.solve(m.start(start), self.objective(start), time_s, rel_gap)
+        return m.units(ans.x, self.af.shape[1]), ans.bound, ans.proven
 
     def result(self, pt: _Point, t0: float, p: int) -> SitingResult:
         new = self.cv.free[np.flatnonzero(pt.units)]
@@ -1044,7 +1162,7 @@ def lscp(
                 "together cover within the standard; lower target_share or add candidates"
             )
         need = target_w - fixed_w
-    nf, m = cv.free.size, rows.size
+    m = rows.size
     if need <= tol:
         covered, second = _mclp_eval(cv, np.zeros(0, np.int64))
         return _result(
@@ -1062,16 +1180,25 @@ def lscp(
             0,
             second_weight=second,
         )
+    # a site whose rows another site covers too is never needed: swap it for that one (one site for one)
+    dom_of = _dominators(af)
+    kept = np.flatnonzero(dom_of == np.arange(af.shape[1]))
+    knum = np.full(af.shape[1], -1, dtype=np.int64)
+    knum[kept] = np.arange(kept.size)
+    ak = sp.csr_array(af[:, kept])
+    nk = kept.size
     if target_share is None:
-        model = _milp(np.ones(nf), np.ones(nf), np.zeros(nf), np.ones(nf), [(af, 1.0, np.inf)], maximise=False)
+        ak, _ = _merge_rows(sp.csr_array(ak, dtype=bool), np.ones(m))  # the same sites, the same row
+        ak = sp.csr_array(ak, dtype=float)
+        model = _milp(np.ones(nk), np.ones(nk), np.zeros(nk), np.ones(nk), [(ak, 1.0, np.inf)], maximise=False)
     else:
-        link = sp.hstack([-af, sp.identity(m, format="csr")], format="csr")
-        share = sp.csr_array(np.concatenate([np.zeros(nf), wr])[None, :])
+        link = sp.hstack([-ak, sp.identity(m, format="csr")], format="csr")
+        share = sp.csr_array(np.concatenate([np.zeros(nk), wr])[None, :])
         model = _milp(
-            np.concatenate([np.ones(nf), np.zeros(m)]),
-            np.ones(nf + m),
-            np.zeros(nf + m),
-            np.ones(nf + m),
+            np.concatenate([np.ones(nk), np.zeros(m)]),
+            np.ones(nk + m),
+            np.zeros(nk + m),
+            np.ones(nk + m),
             [(link, -np.inf, 0.0), (share, need - tol, np.inf)],
             maximise=False,
         )
@@ -1080,15 +1207,18 @@ def lscp(
     new, method_used = heur, "heuristic"
     proven, ran = False, False
     bound, source = 1.0, "one site"
-    x_h = np.zeros(nf)
-    x_h[np.searchsorted(cv.free, heur)] = 1.0
-    start = x_h if target_share is None else np.concatenate([x_h, np.minimum(af @ x_h, 1.0)])
+    x_h = np.zeros(nk)
+    stand_in = dom_of[np.searchsorted(cv.free, heur)]
+    x_h[knum[stand_in[stand_in >= 0]]] = 1.0  # the stand-ins cover at least as much, with no more sites
+    if x_h.sum() < heur.size:
+        heur = new = cv.free[kept[np.flatnonzero(x_h)]]
+    start = x_h if target_share is None else np.concatenate([x_h, np.minimum(ak @ x_h, 1.0)])
     solver = CurveSolver(model)
     if _use_milp(method, model.nnz):
         ran = True
-        ans = solver.solve(start, float(heur.size), time_limit_s, rel_gap)
+        ans = solver.solve(start, float(x_h.sum()), time_limit_s, rel_gap)
         if ans.x is not None:
-            cand = cv.free[np.flatnonzero(np.rint(ans.x[:nf]) > 0.5)]
+            cand = cv.free[kept[np.flatnonzero(np.rint(ans.x[:nk]) > 0.5)]]
             if cand.size < heur.size:
                 new, method_used = cand, "milp"
         if math.isfinite(ans.bound):
