@@ -219,6 +219,7 @@ class _Cover:
     free: np.ndarray  # indices of non-fixed sites
     total_w: float  # all demand weight, including uncoverable points
     n_sites: int
+    points: np.ndarray  # demand points merged into each row
 
     @property
     def kfix(self) -> np.ndarray:
@@ -230,7 +231,10 @@ class _Cover:
 
 
 def _merge_rows(a: sp.csr_array, w: np.ndarray) -> tuple[sp.csr_array, np.ndarray]:
-    """Merge rows with identical sparsity patterns, summing their weights (exact; verified after hashing)."""
+    """Merge rows with identical sparsity patterns, summing their weights (exact; verified after hashing).
+
+    ``w`` may hold several weights per row (one column each); each is summed.
+    """
     if a.shape[0] <= 1:
         return a, w
     rng = np.random.default_rng(_HASH_SEED)
@@ -244,7 +248,9 @@ def _merge_rows(a: sp.csr_array, w: np.ndarray) -> tuple[sp.csr_array, np.ndarra
     rank = np.empty_like(order)
     rank[order] = np.arange(order.size)
     group = rank[inverse]
-    return sp.csr_array(a[first[order]]), np.bincount(group, weights=w, minlength=order.size)
+    w2 = np.asarray(w, dtype=float).reshape(a.shape[0], -1)
+    sums = [np.bincount(group, weights=col, minlength=order.size) for col in w2.T]
+    return sp.csr_array(a[first[order]]), np.column_stack(sums) if np.ndim(w) == 2 else sums[0]
 
 
 def _prepare_cover(covers: ArrayLike, weights: ArrayLike | None, fixed: ArrayLike | None) -> _Cover:
@@ -253,10 +259,11 @@ def _prepare_cover(covers: ArrayLike, weights: ArrayLike | None, fixed: ArrayLik
     f = _check_fixed(fixed, a.shape[1])
     keep = (w > 0) & (np.diff(a.indptr) > 0)
     a_kept = sp.csr_array(a[np.flatnonzero(keep)])
-    a_m, w_m = _merge_rows(a_kept, w[keep])
+    a_m, w_m = _merge_rows(a_kept, np.column_stack([w[keep], np.ones(int(keep.sum()))]))
     return _Cover(
         a=sp.csr_array(a_m, dtype=float),
-        w=w_m,
+        w=w_m[:, 0],
+        points=w_m[:, 1],
         fixed=f,
         free=np.flatnonzero(~f),
         total_w=float(w.sum()),
@@ -647,7 +654,7 @@ class _MclpSpec(_CoverSpec):
         return self._solver
 
     def _build(self) -> None:
-        af, at, w = self.af, self.at, self.w
+        af, w = self.af, self.w
         n = af.shape[1]
         dom_of = _dominators(af) if self.prune else np.arange(n)
         # without pruning every site is a column: the LP's reduced costs then speak for every site (backup)
@@ -880,9 +887,6 @@ class _BackupSpec(_CoverSpec):
         if units1 is not None and self.better(units1, start):
             best = units1
         z1 = single(best)
-        import os, sys
-        if os.environ.get("SDEBUG"):
-            print(f"p={p} stage1 {time_s - (t_end - time.perf_counter()):.1f}s of {time_s:.1f} z1 {z1} b1 {b1} proven1 {proven1} start {single(start)}", file=sys.stderr)
         self._settled[p] = bool(proven1 or (math.isfinite(b1) and z1 >= b1 - 1e-9 * max(z1, 1.0)))
         # every answer keeping z1 satisfies the LP's fixings; a fixed-open site (none, usually) is forced open
         can, must = s1.site_fixings(z1, best)
@@ -901,8 +905,6 @@ class _BackupSpec(_CoverSpec):
             return None, value, False
         ans = m.solver.solve(m.start(best), self.objective(best), left, rel_gap)
         units2 = m.units(ans.x, self.af.shape[1])
-        if os.environ.get("SDEBUG"):
-            print(f"p={p} stage2 cols {m.cols.size} rows {m.m0}+{m.m1} {ans} {time_s - (t_end - time.perf_counter()):.1f}s", file=sys.stderr)
         if units2 is not None and self.better(units2, best):
             best = units2
         self._solver = m.solver  # its bound source names the bound
@@ -1258,9 +1260,13 @@ def lscp(
 def _lscp_heuristic(
     cv: _Cover, rows: np.ndarray, af: sp.csr_array, wr: np.ndarray, need: float, full: bool, tol: float
 ) -> np.ndarray:
-    """Greedy until the target is met, then the MCLP heuristic at one site fewer while it still meets it."""
-    w_eff = np.ones_like(wr) if full else wr  # full cover: count rows, so tiny weights cannot be skipped
-    need_eff = float(w_eff.size) - 0.5 if full else need - tol
+    """Greedy until the target is met, then the MCLP heuristic at one site fewer while it still meets it.
+
+    Full cover counts demand points (merged rows by how many they hold), so tiny weights cannot be skipped and the
+    greedy picks what the textbook greedy over the points picks; the descent only removes sites.
+    """
+    w_eff = cv.points[rows] if full else wr
+    need_eff = float(w_eff.sum()) - 0.5 if full else need - tol
     n = af.shape[1]
     at = sp.csr_array(af.T)
     covered = np.zeros(af.shape[0], dtype=bool)
