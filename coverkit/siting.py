@@ -565,7 +565,13 @@ class _Spec:
     def tighter(self, a: float, b: float) -> float:
         return min(a, b) if self.maximise else max(a, b)
 
+    #: The objective is a sum of whole numbers (people, incidents), so any bound may be rounded to one: a solver's
+    #: bound a few millionths above a whole optimum (its feasibility tolerances) still proves that optimum.
+    whole = False
+
     def reached(self, obj: float, bound: float) -> bool:
+        if self.whole and math.isfinite(bound):
+            bound = math.floor(bound + 1e-6) if self.maximise else math.ceil(bound - 1e-6)
         slack = self.tol * max(abs(obj), 1.0)
         return obj >= bound - slack if self.maximise else obj <= bound + slack
 
@@ -636,6 +642,7 @@ class _MclpSpec(_CoverSpec):
         self.constant = float(cv.w[kfix > 0].sum())
         af = sp.csr_array(cv.af[self.rows])
         super().__init__(af, np.zeros(self.rows.size), [_step(self.w, 1)], np.ones(af.shape[1]), cv.total_w)
+        self.whole = _whole(cv.w)
         self.gain1 = self.at @ self.w
         self.milp_size = int(af.nnz + af.shape[0])
         self.reduction: dict[str, int] = {}
@@ -854,6 +861,7 @@ class _BackupSpec(_CoverSpec):
         self._model: _BackupModel | None = None  # the weighted form's one model, kept along the curve
         self._settled: dict[int, bool] = {}
         self.reduction: dict[str, int] = {}
+        self.whole = theta is None and _whole(cv.w)
 
     def _eval(self, units: np.ndarray) -> tuple[float, float, float]:
         single, double = _mclp_eval(self.cv, self.cv.free[np.flatnonzero(units)])

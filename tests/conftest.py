@@ -2,11 +2,18 @@
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
 
 from coverkit.progress import set_quiet
+
+# CI replays the same examples on every run (a red build must be reproducible); a developer's run explores new ones.
+settings.register_profile("ci", derandomize=True, print_blob=True)
+if os.environ.get("CI"):
+    settings.load_profile("ci")
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "data" / "demo"
