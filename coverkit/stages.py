@@ -29,6 +29,7 @@ if TYPE_CHECKING:
     from coverkit.calibrate import CalibrationResult
     from coverkit.coverage import AreaGrid, AreaLayers, CoverageResult
     from coverkit.network import RoadNetwork
+    from coverkit.settings import AvailabilitySettings, SitingSettings
     from coverkit.site_plan import SitePlan, SitingProblem
 
 #: The demand kinds: ``residents`` are counted in people, ``incidents`` in calls.
@@ -295,6 +296,55 @@ class SitingStage:
         )
 
 
+def siting_problem(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame,
+    demand: gpd.GeoDataFrame,
+    standard: Standard,
+    cfg: SitingSettings,
+    *,
+    max_snap_m: float | None = None,
+    base_snap_m: float | None = None,
+) -> SitingProblem:
+    """The candidates (read, or generated on the network) and their coverage of ``demand`` under ``standard``.
+
+    ``cfg`` names exactly one of ``candidates`` (a point file) and ``generate`` (a road class).
+    """
+    from coverkit.errors import PARAM
+    from coverkit.site_plan import build_problem, generate_candidates
+    from coverkit.travel import read_points
+
+    if (cfg.candidates is None) == (cfg.generate is None):
+        raise FieldError(
+            f"{PARAM}: give either a candidates file or a road class to generate them on (not both, not neither).",
+            param="candidates",
+        )
+    if cfg.candidates is not None:
+        candidates = read_points(str(cfg.candidates), net.crs, what="candidates")
+    else:
+        candidates = generate_candidates(net, cfg.generate, cfg.spacing_m)
+    options = {k: v for k, v in (("max_snap_m", max_snap_m), ("base_snap_m", base_snap_m)) if v is not None}
+    return build_problem(net, bases, candidates, demand, standard, relocate=cfg.relocate, **options)
+
+
+def siting_stage(problem: SitingProblem, cfg: SitingSettings, demand: str) -> SitingStage:
+    """The covering model ``cfg.model`` solved on ``problem`` (its curve included), as a :class:`SitingStage`."""
+    from coverkit.site_plan import solve
+
+    plan = solve(
+        problem,
+        cfg.model,
+        add=cfg.add,
+        target=cfg.target,
+        q=cfg.busy_fraction,
+        method=cfg.method,
+        time_limit_s=cfg.time_limit_s,
+        curve_to=cfg.curve,
+    )
+    plan.summary["demand"] = demand
+    return SitingStage(problem, plan, demand)
+
+
 # -- availability -----------------------------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class AvailabilityStage:
@@ -319,6 +369,42 @@ class AvailabilityStage:
             f"reached in standard {a['drive_time_coverage'] * 100:.1f} % by drive time, "
             f"{a['availability_coverage'] * 100:.1f} % by the unit that actually answers"
         )
+
+
+def availability_stage(
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame,
+    demand: gpd.GeoDataFrame,
+    standard: Standard,
+    cfg: AvailabilitySettings,
+    *,
+    demand_name: str,
+    max_snap_m: float | None = None,
+    window: tuple[str | None, str | None] = (None, None),
+) -> AvailabilityStage:
+    """Busy units on ``demand`` (incidents) under ``standard``: :func:`coverkit.availability.availability`.
+
+    ``window`` is the time window the incidents were selected from (ISO times or None): the call rate is counted
+    over it.
+    """
+    from coverkit.availability import availability
+
+    options = {"max_snap_m": max_snap_m} if max_snap_m is not None else {}
+    run = availability(
+        net,
+        bases,
+        demand,
+        standard,
+        cfg.service_min,
+        calls_per_h=cfg.calls_per_h,
+        queue=cfg.queue,
+        method=cfg.method,
+        time_field=cfg.time_field,
+        window=window,
+        **options,
+    )
+    run.summary["demand"] = demand_name
+    return AvailabilityStage(run, demand_name)
 
 
 # -- calibration ------------------------------------------------------------------------------------------------------

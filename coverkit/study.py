@@ -32,8 +32,11 @@ from coverkit.stages import (
     CalibrationStage,
     CoverageStage,
     SitingStage,
+    availability_stage,
     coverage_stage,
     read_zones,
+    siting_problem,
+    siting_stage,
 )
 from coverkit.study_errors import study_keys
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
@@ -526,64 +529,32 @@ def load_inputs(
 def _study_siting(
     study: Study, net: RoadNetwork, bases: gpd.GeoDataFrame, demand: dict, snaps: dict[str, float]
 ) -> SitingStage:
-    from coverkit.site_plan import build_problem, generate_candidates, solve
-    from coverkit.travel import read_points
-
     cfg = study.siting
     std = study.standard_named(cfg.standard, "siting.standard")
     dname = study.demand_named(cfg.demand, "siting.demand", "residents")
-    if cfg.candidates is not None:
-        candidates = read_points(str(cfg.candidates), net.crs, what="candidates")
-    else:
-        candidates = generate_candidates(net, cfg.generate, cfg.spacing_m)
-    problem = build_problem(
-        net,
-        bases,
-        candidates,
-        demand[dname],
-        std,
-        relocate=cfg.relocate,
-        max_snap_m=snaps[dname],
-        base_snap_m=study.bases.snap_m,
+    problem = siting_problem(
+        net, bases, demand[dname], std, cfg, max_snap_m=snaps[dname], base_snap_m=study.bases.snap_m
     )
-    plan = solve(
-        problem,
-        cfg.model,
-        add=cfg.add,
-        target=cfg.target,
-        q=cfg.busy_fraction,
-        method=cfg.method,
-        time_limit_s=cfg.time_limit_s,
-        curve_to=cfg.curve,
-    )
-    plan.summary["demand"] = dname
-    return SitingStage(problem, plan, dname)
+    return siting_stage(problem, cfg, dname)
 
 
 def _study_availability(
     study: Study, net: RoadNetwork, bases: gpd.GeoDataFrame, demand: dict, snaps: dict[str, float]
 ) -> AvailabilityStage:
-    from coverkit.availability import availability as run_availability
-
     cfg = study.availability
     std = study.standard_named(cfg.standard, "availability.standard")
     dname = study.demand_named(cfg.demand, "availability.demand", "incidents")
     spec = next(d for d in study.demand if d.name == dname)
-    avail = run_availability(
+    return availability_stage(
         net,
         bases,
         demand[dname],
         std,
-        cfg.service_min,
-        calls_per_h=cfg.calls_per_h,
-        queue=cfg.queue,
-        method=cfg.method,
-        time_field=cfg.time_field,
+        cfg,
+        demand_name=dname,
         max_snap_m=snaps[dname],
         window=(spec.start, spec.end),
     )
-    avail.summary["demand"] = dname
-    return AvailabilityStage(avail, dname)
 
 
 def _study_calibration(study: Study, net: RoadNetwork, bases: gpd.GeoDataFrame) -> CalibrationStage:

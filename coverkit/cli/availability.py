@@ -68,10 +68,10 @@ def run(args: argparse.Namespace) -> int:
     """Run ``coverkit availability`` on the parsed ``args``; the exit status (0)."""
 
     from coverkit.atomic import write_gpkg_layers
-    from coverkit.availability import availability
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
-    from coverkit.stages import AvailabilityStage
+    from coverkit.settings import AvailabilitySettings
+    from coverkit.stages import availability_stage
 
     net, bases = network_and_bases(args)
     demand = load_demand(
@@ -84,19 +84,18 @@ def run(args: argparse.Namespace) -> int:
         max_rejected_share=args.max_rejected,
     )
     std = Standard(single_standard_name(args.minutes), args.minutes * 60.0)
-    run = availability(
-        net,
-        bases,
-        demand,
-        std,
-        args.service_min,
+    cfg = AvailabilitySettings(
+        service_min=args.service_min,
         calls_per_h=args.calls_per_h,
         queue=args.queue,
         method=args.method,
         time_field=args.time_field,
-        window=(args.start, args.end),
     )
-    layers = AvailabilityStage(run, demand_name_of(args.demand)).layers()
+    stage = availability_stage(
+        net, bases, demand, std, cfg, demand_name=demand_name_of(args.demand), window=(args.start, args.end)
+    )
+    run = stage.run
+    layers = stage.layers()
     rejected = rejected_layer(demand, layers, demand_name_of(args.demand))
     write_gpkg_layers(args.out, layers)
     s = run.summary

@@ -90,17 +90,13 @@ def run(args: argparse.Namespace) -> int:
     from coverkit.demand import load_demand
     from coverkit.errors import FieldError
     from coverkit.report.study_report import site_curve_chart, site_curve_values
-    from coverkit.site_plan import build_problem, generate_candidates, ranking_table, solve
-    from coverkit.stages import SitingStage
-    from coverkit.travel import read_points
+    from coverkit.settings import SitingSettings
+    from coverkit.site_plan import ranking_table
+    from coverkit.stages import siting_problem, siting_stage
 
     if (args.candidates is None) == (args.generate_candidates is None):
         raise FieldError("give either --candidates FILE or --generate-candidates CLASS (not both, not neither).")
     net, bases = network_and_bases(args)
-    if args.candidates:
-        candidates = read_points(args.candidates, net.crs, what="candidates")
-    else:
-        candidates = generate_candidates(net, args.generate_candidates, args.spacing_m)
     demand = load_demand(
         args.demand,
         net,
@@ -109,7 +105,20 @@ def run(args: argparse.Namespace) -> int:
         max_rejected_share=args.max_rejected,
     )
     std = Standard(single_standard_name(args.minutes), args.minutes * 60.0, args.turnout_s, args.fractile)
-    problem = build_problem(net, bases, candidates, demand, std, relocate=args.relocate, base_snap_m=args.snap_m)
+    cfg = SitingSettings(
+        candidates=args.candidates,
+        generate=args.generate_candidates,
+        spacing_m=args.spacing_m,
+        model=args.model,
+        add=args.add,
+        target=args.target,
+        busy_fraction=args.busy_fraction,
+        relocate=args.relocate,
+        method=args.method,
+        time_limit_s=args.time_limit_s,
+        curve=args.curve,
+    )
+    problem = siting_problem(net, bases, demand, std, cfg, base_snap_m=args.snap_m)
     folder = args.out.parent
     if args.rank:
         ranking = ranking_table(problem)
@@ -121,19 +130,11 @@ def run(args: argparse.Namespace) -> int:
         print(f"\n{std.describe()}; wrote {args.out}")
         print(CAUTION)
         return 0
-    plan = solve(
-        problem,
-        args.model,
-        add=args.add,
-        target=args.target,
-        q=args.busy_fraction,
-        method=args.method,
-        time_limit_s=args.time_limit_s,
-        curve_to=args.curve,
-    )
+    stage = siting_stage(problem, cfg, demand_name_of(args.demand))
+    plan = stage.plan
     s = plan.summary
     chart = site_curve_chart(plan, map_file(folder, "site_curve"), std.describe(with_source=False))
-    layers = SitingStage(problem, plan, demand_name_of(args.demand)).layers()
+    layers = stage.layers()
     rejected = rejected_layer(demand, layers, demand_name_of(args.demand))
     write_gpkg_layers(args.out, layers)
     if rejected:
