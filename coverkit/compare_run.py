@@ -90,6 +90,59 @@ def whatif_from_study(study_path: str | Path, cache_folder: str | Path | None = 
     )
 
 
+#: The columns of ``comparison.csv`` (and of the web API's comparison rows), in order.
+COMPARISON_COLUMNS = (
+    "scenario",
+    "standard",
+    "demand",
+    "kind",
+    "demand_total",
+    "covered_before",
+    "covered_after",
+    "covered_share_before",
+    "covered_share_after",
+    "fractile",
+    "fractile_response_s_before",
+    "fractile_response_s_after",
+    "lost_weight",
+    "lost_points",
+    "gained_weight",
+    "gained_points",
+)
+
+
+def comparison_rows(scenario_name: str, comparisons: dict, kinds: dict[str, str]) -> list[dict[str, Any]]:
+    """One row per standard x demand layer: the columns of ``comparison.csv`` (:data:`COMPARISON_COLUMNS`).
+
+    Parameters
+    ----------
+    scenario_name
+        The scenario's name (first column).
+    comparisons
+        ``{(standard name, demand name): Comparison}`` from :func:`coverkit.scenario.compare_results`.
+    kinds
+        ``{demand name: "residents" | "incidents"}``.
+
+    Covered figures are demand weights (people or calls), shares 0..1, fractile responses in seconds (inf when the
+    fractile is not reached).
+    """
+    rows = []
+    for (std, dem), comp in comparisons.items():
+        b, a = comp.before, comp.after
+        values = (
+            scenario_name, std, dem, kinds[dem], b["demand_total"], b["covered"], a["covered"], b["covered_share"],
+            a["covered_share"], b["fractile"], b["fractile_response_s"], a["fractile_response_s"], comp.lost_weight,
+            comp.lost_points, comp.gained_weight, comp.gained_points,
+        )  # fmt: skip
+        rows.append(dict(zip(COMPARISON_COLUMNS, values, strict=True)))
+    return rows
+
+
+def comparison_table(scenario_name: str, comparisons: dict, kinds: dict[str, str]) -> pd.DataFrame:
+    """:func:`comparison_rows` as the DataFrame written to ``comparison.csv``."""
+    return pd.DataFrame(comparison_rows(scenario_name, comparisons, kinds), columns=list(COMPARISON_COLUMNS))
+
+
 @dataclass(frozen=True)
 class CompareRun:
     """The outcome of :func:`compare_study`.
@@ -243,30 +296,7 @@ def _compare(
         )  # fmt: skip
         gb, ga = ca.before.grid, ca.after.grid
         areas[s.name] = ca
-    rows = []
-    for (std, dem), comp in comparisons.items():
-        b, a = comp.before, comp.after
-        rows.append(
-            {
-                "scenario": scenario.name,
-                "standard": std,
-                "demand": dem,
-                "kind": kinds[dem],
-                "demand_total": b["demand_total"],
-                "covered_before": b["covered"],
-                "covered_after": a["covered"],
-                "covered_share_before": b["covered_share"],
-                "covered_share_after": a["covered_share"],
-                "fractile": b["fractile"],
-                "fractile_response_s_before": b["fractile_response_s"],
-                "fractile_response_s_after": a["fractile_response_s"],
-                "lost_weight": comp.lost_weight,
-                "lost_points": comp.lost_points,
-                "gained_weight": comp.gained_weight,
-                "gained_points": comp.gained_points,
-            }
-        )
-    summary = pd.DataFrame(rows)
+    summary = comparison_table(scenario.name, comparisons, kinds)
     steps.step("writing layers and table")
     run = CompareRun(
         study, scenario, net, net2, bases, bases2, log, comparisons, areas, before, after, summary, {}
@@ -280,4 +310,12 @@ def _compare(
     return run
 
 
-__all__ = ["CompareRun", "compare_study", "study_inputs", "whatif_from_study"]
+__all__ = [
+    "COMPARISON_COLUMNS",
+    "CompareRun",
+    "compare_study",
+    "comparison_rows",
+    "comparison_table",
+    "study_inputs",
+    "whatif_from_study",
+]

@@ -206,7 +206,30 @@ def load_scenario(path: str | Path) -> Scenario:
         One line naming the file and the key.
     """
     path, raw = read_toml(path, "scenario", "give a .toml scenario file.")
-    where = str(path)
+    return scenario_from_table(raw, path=path)
+
+
+def scenario_from_table(raw: Any, *, path: Path | None = None, where: str | None = None) -> Scenario:
+    """Validate parsed scenario tables (the file's schema, e.g. a TOML file read or a JSON body) into a Scenario.
+
+    Parameters
+    ----------
+    raw
+        The top-level tables: ``scenario``, ``closure``, ``slowdown``, ``base_change``.
+    path
+        The scenario file; its folder resolves polygon files. Without a path a ``polygon`` key is refused (a
+        request body may not name a file on the machine).
+    where
+        How messages name the source (default: the path).
+
+    Raises
+    ------
+    StudyError
+        One line naming the source and the key.
+    """
+    where = where or str(path)
+    if not isinstance(raw, dict):
+        raise StudyError(f"{where}: a scenario is a table of sections (scenario, closure, slowdown, base_change).")
     check_sections(raw, _SCHEMA, where)
     if "scenario" not in raw:
         raise StudyError(f'{where}: missing section [scenario] (with name = "...").')
@@ -216,7 +239,13 @@ def load_scenario(path: str | Path) -> Scenario:
             raise StudyError(f"{where}: [{section}] must be written [[{section}]] (one or more entries).")
     if not any(raw.get(s) for s in _LIST_SECTIONS):
         raise StudyError(f"{where}: the scenario changes nothing; add a [[closure]], [[slowdown]] or [[base_change]].")
-    folder = path.parent
+    folder = path.parent if path is not None else None
+
+    def polygon(value: str, key: str) -> tuple[Any, Any]:
+        if folder is None:
+            raise StudyError(f"{where}: key '{key}' names a file, which is refused here; close roads by road_name, "
+                             "way_ids or edge_ids.")  # fmt: skip
+        return _read_polygon(folder, value, key, where)
 
     closures = []
     for i, item in enumerate(raw.get("closure", [])):
@@ -235,7 +264,7 @@ def load_scenario(path: str | Path) -> Scenario:
         elif kind == "road_name":
             values = _str_list(item[kind], f"{key}.road_name", where)
         else:
-            poly, crs = _read_polygon(folder, item["polygon"], f"{key}.polygon", where)
+            poly, crs = polygon(item["polygon"], f"{key}.polygon")
             values = (str((folder / item["polygon"]).resolve()),)
         closures.append(
             Closure(i, kind, values, poly, crs, bool(item.get("only_bridges", False)), item.get("note", ""))
@@ -253,7 +282,7 @@ def load_scenario(path: str | Path) -> Scenario:
         classes = _str_list(item["road_class"], f"{key}.road_class", where) if "road_class" in item else ()
         poly = crs = None
         if "polygon" in item:
-            poly, crs = _read_polygon(folder, item["polygon"], f"{key}.polygon", where)
+            poly, crs = polygon(item["polygon"], f"{key}.polygon")
         slowdowns.append(Slowdown(i, factor, classes, poly, crs, item.get("note", "")))
 
     changes = []
@@ -292,7 +321,35 @@ def load_scenario(path: str | Path) -> Scenario:
             )
         )
     scen = raw["scenario"]
-    return Scenario(path, scen["name"], scen.get("description", ""), tuple(closures), tuple(slowdowns), tuple(changes))
+    return Scenario(
+        path or Path(where), scen["name"], scen.get("description", ""), tuple(closures), tuple(slowdowns),
+        tuple(changes),
+    )  # fmt: skip
+
+
+def _toml_value(value: Any) -> str:
+    """One value of a scenario table in TOML (strings JSON-escaped, which TOML basic strings read alike)."""
+    import json
+
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int | float):
+        return repr(value)
+    if isinstance(value, str):
+        return json.dumps(value, ensure_ascii=False)
+    if isinstance(value, list):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    return "{ " + ", ".join(f"{k} = {_toml_value(v)}" for k, v in value.items()) + " }"
+
+
+def scenario_text(raw: dict[str, Any]) -> str:
+    """Scenario tables (validated by :func:`scenario_from_table`) as the text of a scenario file that
+    :func:`load_scenario` reads back unchanged."""
+    lines = ["[scenario]", *(f"{k} = {_toml_value(v)}" for k, v in raw["scenario"].items())]
+    for section in _LIST_SECTIONS:
+        for item in raw.get(section, []):
+            lines += ["", f"[[{section}]]", *(f"{k} = {_toml_value(v)}" for k, v in item.items())]
+    return "\n".join(lines) + "\n"
 
 
 # -- applying a scenario ----------------------------------------------------------------------------------------------
@@ -1075,6 +1132,8 @@ __all__ = [
     "compare_results",
     "edge_changes",
     "load_scenario",
+    "scenario_from_table",
+    "scenario_text",
     "slowdown_edges",
     "slowdown_share",
     "slowed_travel_s",

@@ -111,6 +111,9 @@ class WhatIfOutcome:
     recomputed_bases
         Ids of the bases searched again (changed, added or moved bases, and bases whose shortest-path trees the
         change can alter); the others kept their stored times exactly.
+    node_t, base_snap
+        Per base after the change, the node times of its bounded search (sparse, s) and the snapped bases: what
+        :meth:`WhatIf.point_times` derives further point times from.
     """
 
     results: dict
@@ -118,6 +121,8 @@ class WhatIfOutcome:
     bases: gpd.GeoDataFrame
     changes: ChangeLog
     recomputed_bases: list[str]
+    node_t: sp.csr_matrix | None = None
+    base_snap: Snapped | None = None
 
     @property
     def result(self) -> CoverageResult:
@@ -253,6 +258,20 @@ class WhatIf:
         bases, rows = apply_base_changes(self.bases, scenario.base_changes, str(scenario.path))
         return self._evaluate(ch.travel_s, bases, ch.log(self.net, rows), ch)
 
+    def point_times(self, points: Snapped, outcome: WhatIfOutcome | None = None) -> sp.csr_matrix:
+        """Travel times (s, sparse (n_bases, n_points), within the horizon) from the bases to further snapped points
+        (e.g. the cells of an area grid), before the change or after ``outcome``, from the stored node times: the
+        arithmetic of :func:`coverkit.travel.point_times` without a new search. The points keep their snap (a
+        closure never moves a point onto another road)."""
+        if outcome is None:
+            net, node_t, base_snap, n = self.net, self.node_t, self.base_snap, len(self.bases)
+        else:
+            net, node_t, base_snap, n = outcome.network, outcome.node_t, outcome.base_snap, len(outcome.bases)
+        r, c, t = _times_from_nodes(
+            net, node_t, base_snap, np.arange(n), points, np.arange(len(points)), self.horizon_s, self.direction
+        )
+        return sp.csr_matrix((t, (r, c)), shape=(n, len(points)))
+
     # -- the incremental recomputation ---------------------------------------------------------------------------------
     def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
         """Boolean per base: can the edge times ``travel_s`` change this base's searches? (see the class notes)"""
@@ -357,7 +376,7 @@ class WhatIf:
                 )
             else:
                 log.notes.append("coverage unchanged")
-        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new])
+        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new], node_t2, base_snap2)
 
 
 __all__ = ["NO_REACH_NOTE", "WhatIf", "WhatIfOutcome"]
