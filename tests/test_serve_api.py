@@ -239,3 +239,11 @@ def test_fuzzed_bodies_never_500(client, state, body):
     else:
         scenario_from_table(body, where="check")  # a 200 only for a body the scenario schema accepts
     assert fingerprint(state) == before
+
+
+def test_loopback_hosts():
+    """Only loopback addresses (RFC 6890: 127.0.0.0/8, ::1) and localhost count as local; others get a warning."""
+    from coverkit.serve import is_loopback
+
+    assert all(is_loopback(h) for h in ("127.0.0.1", "127.8.0.1", "localhost", "::1", "[::1]"))
+    assert not any(is_loopback(h) for h in ("0.0.0.0", "192.168.1.4", "example.org", "::"))
