@@ -17,19 +17,16 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from starlette.testclient import TestClient
 
 from coverkit.cli import main
 from coverkit.compare_run import COMPARISON_COLUMNS
 from coverkit.scenario import load_scenario, scenario_from_table
+from coverkit.serve.app import create_app
+from coverkit.serve.security import MAX_BODY_BYTES
+from coverkit.serve.state import BaseState
 
 from .conftest import DEMO, demo_study_head
-
-pytest.importorskip("starlette")
-from starlette.testclient import TestClient  # noqa: E402
-
-from coverkit.serve.app import create_app  # noqa: E402
-from coverkit.serve.security import MAX_BODY_BYTES  # noqa: E402
-from coverkit.serve.state import BaseState  # noqa: E402
 
 TOKEN = "test-token"
 BRIDGE = {"scenario": {"name": "Ambrel Bridge closed"}, "closure": [{"road_name": "Ambrel Bridge"}]}
@@ -81,7 +78,7 @@ def fingerprint(state: BaseState) -> str:
         h.update(np.ascontiguousarray(d["travel_s"].to_numpy(dtype=float)).tobytes())
         h.update("|".join(d["first_base"].astype(str)).encode())
         h.update(",".join(d.columns).encode())
-    for key, table in sorted(w.tables.items()):
+    for _name, table in sorted(w.tables.items()):
         h.update(np.ascontiguousarray(table.times.data).tobytes())
     return h.hexdigest()
 
