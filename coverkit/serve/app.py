@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any
 
 from starlette.applications import Starlette
+from starlette.concurrency import run_in_threadpool
 from starlette.requests import Request
 from starlette.responses import FileResponse, JSONResponse, Response
 from starlette.routing import Mount, Route
@@ -71,8 +72,13 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
     hosts
         The accepted ``Host`` header values (``host:port``).
     """
-    # one what-if at a time: the engine is not written to, but its caches (edge trees) fill on first use
+    # one what-if at a time, off the event loop (the page and its layers stay served meanwhile): the engine is not
+    # written to, but its caches (edge trees) fill on first use
     lock = threading.Lock()
+
+    def locked_compare(scenario: Any, std: str | None) -> dict[str, Any]:
+        with lock:
+            return state.compare(scenario, std)
 
     async def page(request: Request) -> Response:
         return FileResponse(STATIC / "index.html", headers={"Cache-Control": "no-store"})
@@ -98,8 +104,7 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
             body = await _scenario_body(request)
             scenario = scenario_from_table(body, where="request body")
             std = request.query_params.get("standard")
-            with lock:
-                answer = state.compare(scenario, std)
+            answer = await run_in_threadpool(locked_compare, scenario, std)
         except CoverkitError as exc:
             return _error(422, str(exc).splitlines()[0])
         return JSONResponse(answer)
