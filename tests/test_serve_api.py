@@ -26,7 +26,7 @@ from coverkit.serve.app import create_app
 from coverkit.serve.security import MAX_BODY_BYTES
 from coverkit.serve.state import BaseState
 
-from .conftest import DEMO, demo_study_head
+from .conftest import DEMO, REPO, demo_study_head
 
 TOKEN = "test-token"
 BRIDGE = {"scenario": {"name": "Ambrel Bridge closed"}, "closure": [{"road_name": "Ambrel Bridge"}]}
@@ -87,15 +87,22 @@ def post(client, body, **kw):
     return client.post(f"/api/compare?token={TOKEN}", json=body, **kw)
 
 
-def test_rows_equal_compare_csv(client, study, tmp_path):
-    """The API's rows hold exactly the keys and values of `coverkit compare`'s comparison.csv."""
-    scen = tmp_path / "bridge.toml"
-    scen.write_text('[scenario]\nname = "Ambrel Bridge closed"\n[[closure]]\nroad_name = "Ambrel Bridge"\n')
+@pytest.mark.parametrize("name", ["ambrel-bridge-closed", "station-s3-closed", "flood-and-winter"])
+def test_rows_equal_compare_csv(client, state, study, tmp_path, name):
+    """The API's rows hold exactly the keys and values of `coverkit compare`'s comparison.csv, for the three example
+    scenarios; the flood scenario names a polygon file, which a request may not, so the base state answers it from
+    the file and the API refuses it."""
+    scen = REPO / "examples" / "scenarios" / f"{name}.toml"
     assert main(["compare", str(study), str(scen), "--out", str(tmp_path / "cmp"), "--quiet"]) == 0
     table = pd.read_csv(tmp_path / "cmp" / "comparison.csv")
-    r = post(client, BRIDGE)
-    assert r.status_code == 200, r.text
-    rows = r.json()["rows"]
+    body = tomllib.loads(scen.read_text())
+    r = post(client, body)
+    if "polygon" in scen.read_text():
+        assert r.status_code == 422 and "refused" in r.json()["error"]
+        rows = state.compare(load_scenario(scen))["rows"]
+    else:
+        assert r.status_code == 200, r.text
+        rows = r.json()["rows"]
     assert list(table.columns) == list(COMPARISON_COLUMNS) == list(rows[0])
     assert len(rows) == len(table) == 2
     for api, (_, csv) in zip(rows, table.iterrows(), strict=True):
@@ -107,7 +114,7 @@ def test_rows_equal_compare_csv(client, study, tmp_path):
                 assert api[col] is None, col  # JSON has no inf: the API sends null
             else:
                 assert api[col] == pytest.approx(float(want), rel=1e-12, abs=1e-9), col
-    # the closure changes something on the demo county: the bridge carries first-due routes
+    # each example changes coverage on the demo county (data/demo/README.md describes the scenarios)
     assert any(row["lost_weight"] > 0 for row in rows)
 
 
