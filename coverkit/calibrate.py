@@ -29,6 +29,7 @@ Public functions (the CLI and a notebook call the same ones):
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 from collections.abc import Iterable, Sequence
@@ -155,6 +156,26 @@ def read_observed(
     if blank.any():
         i = int(np.flatnonzero(blank)[0])
         raise FieldError(f"{path}: line {line[i]} has no base_id; name the base each trip left from.")
+    obs = _observed_seconds(path, df, line)
+    hour = _observed_hours(path, df, line)
+    if base_ids is not None:
+        _check_base_ids(path, base, line, base_ids, bases_name)
+    out = pd.DataFrame(
+        {
+            "line": line,
+            "base_id": base.to_numpy(dtype=object),
+            "lon": lon,
+            "lat": lat,
+            "observed_s": obs,
+            "hour": hour,
+        }
+    )
+    out.attrs["rejected"] = RejectedRows(rejected_table(rejected), rows_read)
+    return out
+
+
+def _observed_seconds(path: Path, df: pd.DataFrame, line: np.ndarray) -> np.ndarray:
+    """The ``observed_s`` column as seconds; every value must be a number above 0."""
     obs = pd.to_numeric(df["observed_s"].str.strip(), errors="coerce").to_numpy(dtype=float)
     bad = ~np.isfinite(obs)
     if bad.any():
@@ -169,6 +190,11 @@ def read_observed(
             f"{path}: line {line[i]} has observed_s {obs[i]:g}; observed travel times must be more than 0 seconds - "
             "fix or remove the row."
         )
+    return obs
+
+
+def _observed_hours(path: Path, df: pd.DataFrame, line: np.ndarray) -> pd.api.extensions.ExtensionArray:
+    """The optional ``hour`` column as Int64 (<NA> where empty or absent); a given hour must be whole, 0-23."""
     hour = pd.array([pd.NA] * len(df), dtype="Int64")
     if "hour" in df.columns:
         text = df["hour"].astype(str).str.strip()
@@ -182,28 +208,20 @@ def read_observed(
                 "it empty."
             )
         hour = pd.array(np.where(given, val, np.nan), dtype="Float64").astype("Int64")
-    if base_ids is not None:
-        known = {str(b) for b in base_ids}
-        unknown = ~base.isin(known).to_numpy()
-        if unknown.any():
-            i = int(np.flatnonzero(unknown)[0])
-            shown = ", ".join(sorted(known)[:8]) + (" ..." if len(known) > 8 else "")
-            raise FieldError(
-                f"{path}: line {line[i]} names base '{base.iloc[i]}', which is not in {bases_name} (ids: {shown}); "
-                "fix the base_id or add the base."
-            )
-    out = pd.DataFrame(
-        {
-            "line": line,
-            "base_id": base.to_numpy(dtype=object),
-            "lon": lon,
-            "lat": lat,
-            "observed_s": obs,
-            "hour": hour,
-        }
-    )
-    out.attrs["rejected"] = RejectedRows(rejected_table(rejected), rows_read)
-    return out
+    return hour
+
+
+def _check_base_ids(path: Path, base: pd.Series, line: np.ndarray, base_ids: Iterable[str], bases_name: str) -> None:
+    """Every row must name a base in ``base_ids`` (the first that does not is the error)."""
+    known = {str(b) for b in base_ids}
+    unknown = ~base.isin(known).to_numpy()
+    if unknown.any():
+        i = int(np.flatnonzero(unknown)[0])
+        shown = ", ".join(sorted(known)[:8]) + (" ..." if len(known) > 8 else "")
+        raise FieldError(
+            f"{path}: line {line[i]} names base '{base.iloc[i]}', which is not in {bases_name} (ids: {shown}); "
+            "fix the base_id or add the base."
+        )
 
 
 # ------------------------------------------------------------------------------------------------------------------
@@ -558,37 +576,15 @@ def calibrate_speeds(
     trips = _snap_trips(base0, bases, obs, max_snap_m, source)
     classes = sorted(set(net.edges["road_class"].astype(str)))
     model = _edge_model(base0, prof0, classes)
-    delay0 = prof0.signal_delay_s
 
-    def network_for(mult: np.ndarray, delay_s: float) -> tuple[Profile, RoadNetwork]:
-        p = scaled_profile(
-            prof0,
-            {c: float(m) for c, m in zip(classes, mult, strict=True) if m != 1.0},
-            delay_s if fit_signal_delay else None,
-        )
-        return p, retime_network(net, p, note_text=f"timed with calibrated profile '{p.name}'")
-
-    note("calibrate: routing the observed trips on the starting network")
-    routes = trips.route(base0)
-    n_off = int((~trips.incidents.on_network).sum())
-    n_unreach = int((trips.incidents.on_network & ~routes.found).sum())
-    usable = np.flatnonzero(routes.found)
-    obs_s = obs["observed_s"].to_numpy(dtype=float)
-    exposure = _exposure(routes, usable, model, len(classes), min_exposure_s, min_routes, fit_signal_delay)
-    _check_usable(
-        len(usable),
-        exposure,
-        dropped={"off-network": n_off, "unreachable": n_unreach, "outside the chosen hours": n_outside},
-        n_obs=len(obs),
-        source=source,
-        limits=dict(
-            max_snap_m=max_snap_m,
-            min_observations=min_observations,
-            min_exposure_s=min_exposure_s,
-            min_routes=min_routes,
-        ),
+    network_for = functools.partial(_calibrated_network, net, prof0, classes, fit_signal_delay)
+    limits = dict(
+        max_snap_m=max_snap_m, min_observations=min_observations, min_exposure_s=min_exposure_s, min_routes=min_routes
     )
-
+    routes, usable, exposure, n_off, n_unreach = _starting_routes(
+        trips, base0, obs, model, len(classes), fit_signal_delay, n_outside=n_outside, source=source, limits=limits
+    )
+    obs_s = obs["observed_s"].to_numpy(dtype=float)
     before_s = routes.time_s[usable].copy()
     before_m = routes.length_m(base0)[usable]
     fitted = _fit_rounds(
@@ -597,13 +593,48 @@ def calibrate_speeds(
         obs_s[usable],
         model,
         exposure,
-        delay0,
+        prof0.signal_delay_s,
         fit=dict(log_bounds=(math.log(lo), math.log(hi)), loss=loss, f_scale=f_scale),
         reroute=lambda mult, delay: trips.route(network_for(mult, delay)[1]),
         max_iterations=max_iterations,
     )
-    mult, delay, routes = fitted.mult, fitted.delay_s, fitted.routes
+    counts = dict(n_rows=n_rows, n_rejected=n_rejected, n_off_network=n_off, n_unreachable=n_unreach)
+    return _calibration_result(
+        fitted,
+        usable,
+        obs,
+        obs_s,
+        before=(before_s, before_m),
+        model=model,
+        prof0=prof0,
+        classes=classes,
+        exposure=exposure,
+        network_for=network_for,
+        options=dict(bands_km=bands_km, bounds=(lo, hi), min_exposure_s=min_exposure_s, min_routes=min_routes),
+        counts=dict(counts, n_outside_hours=n_outside),
+        source=source,
+        settings_table=_settings(
+            loss, f_scale, (lo, hi), min_exposure_s, min_routes, exposure.fit_delay, bands_km, hours, max_snap_m
+        ),
+    )
 
+
+# -- stages of calibrate_speeds ---------------------------------------------------------------------------------------
+def _calibrated_network(
+    net: RoadNetwork, prof0: Profile, classes: list[str], fit_delay: bool, mult: np.ndarray, delay_s: float
+) -> tuple[Profile, RoadNetwork]:
+    """The profile scaled by ``mult`` per class (signal delay ``delay_s`` when it is fitted) and ``net`` timed by it."""
+    multipliers = {c: float(m) for c, m in zip(classes, mult, strict=True) if m != 1.0}
+    p = scaled_profile(prof0, multipliers, delay_s if fit_delay else None)
+    return p, retime_network(net, p, note_text=f"timed with calibrated profile '{p.name}'")
+
+
+def _calibration_result(
+    fitted, usable, obs, obs_s, *, before, model, prof0, classes, exposure, network_for, options, counts, source,
+    settings_table,
+) -> CalibrationResult:  # fmt: skip
+    """The result from the last round: the calibrated profile and network, and the tables on the kept routes."""
+    mult, delay, routes = fitted.mult, fitted.delay_s, fitted.routes
     prof_after, net_after = network_for(mult, delay)
     after_s = routes.time_s[usable]
     route_m = routes.length_m(net_after)[usable]
@@ -612,7 +643,7 @@ def calibrate_speeds(
         usable,
         obs.iloc[usable],
         obs_s[usable],
-        before=(before_s, before_m),
+        before=before,
         after=(after_s, route_m),
         model=model,
         net_after=net_after,
@@ -620,7 +651,7 @@ def calibrate_speeds(
         classes=classes,
         mult=mult,
         exposure=exposure,
-        options=dict(bands_km=bands_km, bounds=(lo, hi), min_exposure_s=min_exposure_s, min_routes=min_routes),
+        options=options,
     )
     return CalibrationResult(
         profile_before=prof0,
@@ -629,26 +660,40 @@ def calibrate_speeds(
         observations=table,
         errors=errors,
         kolesar=kfit,
-        signal_delay_before_s=float(delay0),
+        signal_delay_before_s=float(prof0.signal_delay_s),
         signal_delay_after_s=float(prof_after.signal_delay_s),
         iterations=fitted.iterations,
         converged=fitted.status == "stable",
         route_status=fitted.status,
         rounds=fitted.rounds,
-        n_rows=n_rows,
-        n_rejected=n_rejected,
-        n_off_network=n_off,
-        n_unreachable=n_unreach,
-        n_outside_hours=n_outside,
+        **counts,
         source=source,
-        settings=_settings(
-            loss, f_scale, (lo, hi), min_exposure_s, min_routes, exposure.fit_delay, bands_km, hours, max_snap_m
-        ),
+        settings=settings_table,
         network=net_after,
     )
 
 
-# -- stages of calibrate_speeds ---------------------------------------------------------------------------------------
+def _starting_routes(trips, base0, obs, model, n_classes, fit_signal_delay, *, n_outside, source, limits):
+    """Route the observed trips on the starting network and check enough are usable: the routes, the usable rows,
+    the class exposure and the counts of trips off the network and unreachable."""
+    note("calibrate: routing the observed trips on the starting network")
+    routes = trips.route(base0)
+    n_off = int((~trips.incidents.on_network).sum())
+    n_unreach = int((trips.incidents.on_network & ~routes.found).sum())
+    usable = np.flatnonzero(routes.found)
+    min_exposure_s, min_routes = limits["min_exposure_s"], limits["min_routes"]
+    exposure = _exposure(routes, usable, model, n_classes, min_exposure_s, min_routes, fit_signal_delay)
+    _check_usable(
+        len(usable),
+        exposure,
+        dropped={"off-network": n_off, "unreachable": n_unreach, "outside the chosen hours": n_outside},
+        n_obs=len(obs),
+        source=source,
+        limits=limits,
+    )
+    return routes, usable, exposure, n_off, n_unreach
+
+
 def _check_fit_options(bands_km: Sequence[float], loss: str, bounds: tuple[float, float]) -> tuple[float, float]:
     """Check the bands, the loss and the multiplier bounds; the bounds as floats."""
     _check_bands(bands_km)

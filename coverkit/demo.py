@@ -389,8 +389,8 @@ def _rural(coords, highway: str, name: str, maxspeed: str | None, **extra) -> _W
 
 
 def _build_layout(rng: np.random.Generator) -> _Layout:
+    """Every way of the county, in a fixed order (the OSM ids and the random stream depend on it)."""
     river = _River()
-    ways: list[_Way] = []
     quen = _Town("Quenhallow", (9000.0, 17450.0), 1500.0, 1200.0, 0.0)
     corr = _Town("Corrowick", (21500.0, 8500.0), 1800.0, 1500.0, 10.0)
     villages = [
@@ -403,9 +403,34 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
         _Village("Ostry Mill", (27000.0, 2500.0), 900.0),
     ]
     vc = {v.name: v.center for v in villages}
+    ways = _town_ways(quen, corr, rng)
+    # Interchanges: crossing roads run straight north-south through them (Stalbury, Mirefold, Corrowick).
+    interchanges = [6000.0, 14300.0, _town_end(corr, "south")[0]]
+    # River crossings, where the river runs nearly west-east.
+    bx = {
+        "Ferry Bridge": river.gentle_x(5000.0),
+        "Ambrel Bridge": river.gentle_x(14600.0),
+        "Oxle Bridge": river.gentle_x(25200.0),
+    }
+    trunk_ways, lines = _trunk_roads(rng, river, quen, corr, vc, bx, interchanges)
+    ways += trunk_ways
+    ways += _north_roads(rng, quen, vc, lines)
+    ways += _south_roads(rng, corr, vc, lines)
+    for v in villages:
+        ways += _village_streets(v, rng)
+    ways += _expressway_ways(ways, river, interchanges)
+    ways += _minor_ways(rng, quen, corr, river, lines)
+    # One small road piece that touches nothing else (the network builder should report and drop it).
+    ang = np.linspace(0.0, 2 * np.pi, 40)
+    loop = np.column_stack([28500.0 + 300.0 * np.cos(ang), 23700.0 + 220.0 * np.sin(ang)])
+    loop[-1] = loop[0]
+    ways.append(_Way(loop, {"highway": "residential", "name": "Gorse Loop", "maxspeed": "30"}))
+    return _Layout(ways, river.coords(), [quen, corr], villages, bx)
 
-    # Towns.
-    ways += _town_grid(
+
+def _town_ways(quen: _Town, corr: _Town, rng: np.random.Generator) -> list[_Way]:
+    """The street grids of Quenhallow and Corrowick with their arterials (and Quenhallow's one-way pair)."""
+    ways = _town_grid(
         quen,
         rng,
         arterial_rows={
@@ -436,62 +461,64 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
         },
         residential_speeds=["40", None, "30"],
     )
+    return ways
 
-    def q_end(side: str) -> tuple[float, float]:
-        w, h = quen.half_w_m, quen.half_h_m
-        pts = {"east": (w, 0.0), "west": (-w, 0.0), "north": (0.0, h), "sw": (-w + 4 * 150.0, -h)}
-        p = quen.to_world(pts[side])[0]
-        return float(p[0]), float(p[1])
 
-    def c_end(side: str) -> tuple[float, float]:
-        w, h = corr.half_w_m, corr.half_h_m
-        pts = {"west": (-w, 0.0), "east": (w, 0.0), "south": (0.0, -h), "ne": (-w + 19 * 150.0, h)}
-        p = corr.to_world(pts[side])[0]
-        return float(p[0]), float(p[1])
-
-    # Motorway: two carriageways, east-bound on the south side (traffic keeps right).
-    mx = np.arange(-1500.0, 31500.0 + 1, 50.0)
-    centre = np.column_stack([mx, _motorway_y(mx)])
-    eb = _normal_offset(centre, -15.0)
-    wb = _normal_offset(centre, 15.0)[::-1]
-
-    def straight_through(x0: float, y0: float, half_m: float = 260.0) -> np.ndarray:
-        return _densify([(x0, y0 + half_m), (x0, y0 - half_m)], 20.0)
-
-    # Interchanges: crossing roads run straight north-south through them.
-    x_stal = 6000.0
-    x_mire = 14300.0
-    x_corr = c_end("south")[0]
-    interchanges = [x_stal, x_mire, x_corr]
-
-    # River crossings, where the river runs nearly west-east.
-    bx = {
-        "Ferry Bridge": river.gentle_x(5000.0),
-        "Ambrel Bridge": river.gentle_x(14600.0),
-        "Oxle Bridge": river.gentle_x(25200.0),
+def _town_end(town: _Town, side: str) -> tuple[float, float]:
+    """Where a rural road leaves a town's grid: the middle of a side, or a corner street ("sw", "ne")."""
+    w, h = town.half_w_m, town.half_h_m
+    pts = {
+        "east": (w, 0.0),
+        "west": (-w, 0.0),
+        "north": (0.0, h),
+        "south": (0.0, -h),
+        "sw": (-w + 4 * 150.0, -h),
+        "ne": (-w + 19 * 150.0, h),
     }
+    p = town.to_world(pts[side])[0]
+    return float(p[0]), float(p[1])
 
-    def across_river(x0: float) -> np.ndarray:
-        y0 = float(river.y(x0))
-        return _densify([(x0, y0 + 600.0), (x0, y0 - 600.0)], 20.0)
 
+def _straight_through(x0: float, y0: float, half_m: float = 260.0) -> np.ndarray:
+    """A north-south piece through an interchange at (x0, y0)."""
+    return _densify([(x0, y0 + half_m), (x0, y0 - half_m)], 20.0)
+
+
+def _across_river(river: _River, x0: float) -> np.ndarray:
+    """A north-south bridge piece over the river at x0."""
+    y0 = float(river.y(x0))
+    return _densify([(x0, y0 + 600.0), (x0, y0 - 600.0)], 20.0)
+
+
+def _trunk_roads(
+    rng: np.random.Generator,
+    river: _River,
+    quen: _Town,
+    corr: _Town,
+    vc: dict[str, tuple[float, float]],
+    bx: dict[str, float],
+    interchanges: list[float],
+) -> tuple[list[_Way], dict[str, np.ndarray]]:
+    """The roads over the bridges and through the interchanges, and the lines later roads branch from."""
+    x_stal, x_mire, x_corr = interchanges
+    ways: list[_Way] = []
     # Ambrel Way (primary) from Quenhallow over the Ambrel Bridge to junction J, then on to Corrowick.
     xb = bx["Ambrel Bridge"]
-    rb = across_river(xb)
+    rb = _across_river(river, xb)
     p1_north = _join(
-        _winding([q_end("east"), (12300.0, 16600.0), (xb - 300.0, 15000.0), tuple(rb[0])], rng, 90.0),
+        _winding([_town_end(quen, "east"), (12300.0, 16600.0), (xb - 300.0, 15000.0), tuple(rb[0])], rng, 90.0),
         rb,
         _winding([tuple(rb[-1]), (xb + 150.0, 10700.0), (14900.0, 10000.0)], rng, 60.0),
     )
     ways.append(_rural(p1_north, "primary", "Ambrel Way", "80", ref="B12"))
     ways[-1].river_crossing = True
     junction_j = tuple(p1_north[-1])
-    p1_east = _winding([junction_j, (17300.0, 9300.0), c_end("west")], rng, 70.0)
+    p1_east = _winding([junction_j, (17300.0, 9300.0), _town_end(corr, "west")], rng, 70.0)
     ways.append(_rural(p1_east, "primary", "Ambrel Way", "80", ref="B12"))
 
     # Mire Road (secondary) from J south through interchange 2 to Mirefold.
     ym = float(_motorway_y(x_mire))
-    st = straight_through(x_mire, ym)
+    st = _straight_through(x_mire, ym)
     mire = _join(
         _winding([junction_j, (14700.0, 8000.0), tuple(st[0])], rng, 60.0),
         st,
@@ -507,9 +534,9 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
 
     # Mill Road (secondary) from Corrowick south through interchange 3 to South Road.
     ym = float(_motorway_y(x_corr))
-    st = straight_through(x_corr, ym)
+    st = _straight_through(x_corr, ym)
     mill = _join(
-        _winding([c_end("south"), tuple(st[0])], rng, 30.0),
+        _winding([_town_end(corr, "south"), tuple(st[0])], rng, 30.0),
         st,
         _winding([tuple(st[-1]), _vertex_near(south_e, (x_corr, 2000.0))], rng, 60.0),
     )
@@ -517,7 +544,7 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
 
     # Stalbury Road (tertiary) from Stalbury Cross south through interchange 1 to South Road.
     ym = float(_motorway_y(x_stal))
-    st = straight_through(x_stal, ym)
+    st = _straight_through(x_stal, ym)
     stal = _join(
         _winding([vc["Stalbury Cross"], (6100.0, 7000.0), tuple(st[0])], rng, 60.0),
         st,
@@ -526,9 +553,9 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
     ways.append(_rural(stal, "tertiary", "Stalbury Road", "60"))
 
     # Ferry Road (tertiary) from Quenhallow over the Ferry Bridge to Stalbury Cross.
-    rb = across_river(bx["Ferry Bridge"])
+    rb = _across_river(river, bx["Ferry Bridge"])
     ferry = _join(
-        _winding([q_end("sw"), (6900.0, 15400.0), tuple(rb[0])], rng, 90.0),
+        _winding([_town_end(quen, "sw"), (6900.0, 15400.0), tuple(rb[0])], rng, 90.0),
         rb,
         _winding([tuple(rb[-1]), (bx["Ferry Bridge"] - 200.0, 10400.0), vc["Stalbury Cross"]], rng, 80.0),
     )
@@ -536,22 +563,30 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
     ways[-1].river_crossing = True
 
     # Oxle Road (secondary) from Corrowick over the Oxle Bridge to Tarn Oxle.
-    rb = across_river(bx["Oxle Bridge"])
+    rb = _across_river(river, bx["Oxle Bridge"])
     oxle = _join(
-        _winding([c_end("ne"), (24200.0, 10800.0), tuple(rb[-1])], rng, 70.0),
+        _winding([_town_end(corr, "ne"), (24200.0, 10800.0), tuple(rb[-1])], rng, 70.0),
         rb[::-1],
         _winding([tuple(rb[0]), (bx["Oxle Bridge"] + 300.0, 15600.0), vc["Tarn Oxle"]], rng, 90.0),
     )
     ways.append(_rural(oxle, "secondary", "Oxle Road", "50;70"))
     ways[-1].river_crossing = True
+    lines = {"p1_east": p1_east, "mire": mire, "ferry": ferry, "oxle": oxle}
+    return ways, lines
 
-    # North of the river.
-    fennick = _winding([q_end("west"), (5800.0, 18700.0), vc["Fennick Green"]], rng, 100.0)
+
+def _north_roads(
+    rng: np.random.Generator, quen: _Town, vc: dict[str, tuple[float, float]], lines: dict[str, np.ndarray]
+) -> list[_Way]:
+    """The rural roads north of the river; adds the lines that farm tracks branch from to ``lines``."""
+    ways: list[_Way] = []
+    fennick = _winding([_town_end(quen, "west"), (5800.0, 18700.0), vc["Fennick Green"]], rng, 100.0)
     ways.append(_rural(fennick, "secondary", "Fennick Road", "70"))
-    widdon = _winding([q_end("north"), (11500.0, 20600.0), (15200.0, 21400.0), vc["Widdon Ash"]], rng, 110.0)
+    widdon_pts = [_town_end(quen, "north"), (11500.0, 20600.0), (15200.0, 21400.0), vc["Widdon Ash"]]
+    widdon = _winding(widdon_pts, rng, 110.0)
     ways.append(_rural(widdon, "tertiary", "Widdon Road", "60"))
     gill = _winding(
-        [vc["Fennick Green"], (2300.0, 18500.0), (3600.0, 16200.0), _vertex_near(ferry, (6400.0, 15300.0))],
+        [vc["Fennick Green"], (2300.0, 18500.0), (3600.0, 16200.0), _vertex_near(lines["ferry"], (6400.0, 15300.0))],
         rng,
         120.0,
     )
@@ -564,7 +599,7 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
     ways.append(_rural(moor, "unclassified", "Moor Lane", None))
     ridge = _winding(
         [_vertex_near(widdon, (15200.0, 21400.0)), (16600.0, 17600.0), (19300.0, 15700.0), (22600.0, 15500.0),
-         _vertex_near(oxle, (25600.0, 15400.0))],
+         _vertex_near(lines["oxle"], (25600.0, 15400.0))],
         rng,
         130.0,
     )  # fmt: skip
@@ -580,13 +615,23 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
     )
     quarry = _winding([_vertex_near(ridge, (19300.0, 15700.0)), (19800.0, 19500.0), (18800.0, 21600.0)], rng, 90.0)
     ways.append(_rural(quarry, "unclassified", "Quarry Lane", None))
+    lines["ridge"] = ridge
+    return ways
 
-    # South of the river, north of the motorway.
+
+def _south_roads(
+    rng: np.random.Generator, corr: _Town, vc: dict[str, tuple[float, float]], lines: dict[str, np.ndarray]
+) -> list[_Way]:
+    """The rural roads south of the river and north of the motorway; adds the lines later ways branch from."""
+    ways: list[_Way] = []
     cross_lane = _winding(
-        [vc["Stalbury Cross"], (8500.0, 9800.0), (11500.0, 9200.0), _vertex_near(mire, (14700.0, 8300.0))], rng, 120.0
+        [vc["Stalbury Cross"], (8500.0, 9800.0), (11500.0, 9200.0), _vertex_near(lines["mire"], (14700.0, 8300.0))],
+        rng,
+        120.0,
     )
     ways.append(_rural(cross_lane, "unclassified", "Cross Lane", "60"))
-    eastfield = _winding([c_end("east"), (27200.0, 8400.0), (28400.0, 5600.0), vc["Ostry Mill"]], rng, 100.0)
+    eastfield_pts = [_town_end(corr, "east"), (27200.0, 8400.0), (28400.0, 5600.0), vc["Ostry Mill"]]
+    eastfield = _winding(eastfield_pts, rng, 100.0)
     ways.append(_rural(eastfield, "tertiary", "Eastfield Road", "60"))
     harl = _winding([vc["Stalbury Cross"], (2600.0, 7200.0), (2300.0, 4400.0), vc["Harl End"]], rng, 110.0)
     ways.append(_rural(harl, "unclassified", "Harl Lane", "60"))
@@ -594,21 +639,29 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
         [vc["Mirefold"], (10300.0, 4300.0), (9700.0, 7300.0), _vertex_near(cross_lane, (9800.0, 9600.0))], rng, 110.0
     )
     ways.append(_rural(brook, "unclassified", "Brook Lane", None))
-    marsh = _winding([_vertex_near(p1_east, (17300.0, 9300.0)), (17600.0, 6500.0), (18300.0, 1700.0)], rng, 100.0)
+    marsh_pts = [_vertex_near(lines["p1_east"], (17300.0, 9300.0)), (17600.0, 6500.0), (18300.0, 1700.0)]
+    marsh = _winding(marsh_pts, rng, 100.0)
     ways.append(_rural(marsh, "unclassified", "Marsh Lane", "60"))
+    lines.update(cross_lane=cross_lane, brook=brook, harl=harl)
+    return ways
 
-    # Villages.
-    for v in villages:
-        ways += _village_streets(v, rng)
 
-    # Motorway carriageways, split at each interchange (different posted speeds per section), and ramps.
+def _expressway_ways(ground_ways: list[_Way], river: _River, interchanges: list[float]) -> list[_Way]:
+    """The motorway carriageways, split at each interchange (different posted speeds per section), with the spurs
+    that tie their ends to ``ground_ways`` and the ramps."""
+    ways: list[_Way] = []
+    # Two carriageways, east-bound on the south side (traffic keeps right).
+    mx = np.arange(-1500.0, 31500.0 + 1, 50.0)
+    centre = np.column_stack([mx, _motorway_y(mx)])
+    eb = _normal_offset(centre, -15.0)
+    wb = _normal_offset(centre, 15.0)[::-1]
     sections = ["100", "110", "110", "none"]
     terminal = {
         "west": (wb[-1] + eb[0]) / 2 + np.array([-60.0, 0.0]),
         "east": (eb[-1] + wb[0]) / 2 + np.array([60.0, 0.0]),
     }
     barriers = shapely.MultiLineString([eb, wb, river.coords()])
-    ground = np.vstack([w.coords for w in ways if w.level == _GROUND and w.tags.get("highway") in DRIVABLE])
+    ground = np.vstack([w.coords for w in ground_ways if w.level == _GROUND and w.tags.get("highway") in DRIVABLE])
     for side, point in terminal.items():
         for k in np.argsort(np.hypot(*(ground - point).T), kind="stable"):
             if not shapely.LineString([point, ground[k]]).intersects(barriers):
@@ -628,11 +681,17 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
             tags = {"highway": "motorway", "name": "Varrowby Expressway", "ref": "V1", "oneway": "yes",
                     "lanes": "2", "maxspeed": ms}  # fmt: skip
             ways.append(_Way(piece, tags, level=_MOTORWAY))
+    return ways + _ramp_ways(eb, wb, interchanges)
+
+
+def _ramp_ways(eb: np.ndarray, wb: np.ndarray, interchanges: list[float]) -> list[_Way]:
+    """The four one-way ramps of each diamond interchange."""
 
     def on_carriageway(cw: np.ndarray, x: float) -> tuple[float, float]:
         order = np.argsort(cw[:, 0])
         return x, float(np.interp(x, cw[order, 0], cw[order, 1]))
 
+    ways: list[_Way] = []
     for x0 in interchanges:
         y0 = float(_motorway_y(x0))
         south_pt, north_pt = (x0, y0 - 80.0), (x0, y0 + 80.0)
@@ -644,20 +703,26 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
         ]
         for p_from, p_to, cw in ramps:
             ways.append(_Way(_ramp_curve(p_from, p_to, cw), {"highway": "motorway_link", "oneway": "yes"}, _LINK))
+    return ways
 
-    # Ways that are not roads for a vehicle, and a few service ways.
+
+def _minor_ways(
+    rng: np.random.Generator, quen: _Town, corr: _Town, river: _River, lines: dict[str, np.ndarray]
+) -> list[_Way]:
+    """Ways that are not roads for a vehicle, and a few service ways."""
+    ways: list[_Way] = []
     path = _densify([quen.to_world((-600, -750))[0], quen.to_world((300, 150))[0]], 30.0)
     ways.append(_Way(path, {"highway": "footway", "name": "Orchard Walk"}))
     xs = np.arange(12000.0, 16501.0, 30.0)
     ways.append(_Way(np.column_stack([xs, river.y(xs) + 90.0]), {"highway": "cycleway", "name": "Ambrel Towpath"}))
     farm_tracks = [
-        (cross_lane, (8500.0, 9800.0), (8900.0, 11000.0)),
-        (ridge, (22600.0, 15500.0), (22100.0, 17300.0)),
-        (brook, (10300.0, 4300.0), (11300.0, 3700.0)),
+        (lines["cross_lane"], (8500.0, 9800.0), (8900.0, 11000.0)),
+        (lines["ridge"], (22600.0, 15500.0), (22100.0, 17300.0)),
+        (lines["brook"], (10300.0, 4300.0), (11300.0, 3700.0)),
     ]
     for owner, start, end in farm_tracks:
         ways.append(_Way(_winding([_vertex_near(owner, start), end], rng, 40.0), {"highway": "track"}))
-    drive = _densify([_vertex_near(harl, (2400.0, 5800.0)), (1500.0, 6000.0)], 25.0)
+    drive = _densify([_vertex_near(lines["harl"], (2400.0, 5800.0)), (1500.0, 6000.0)], 25.0)
     ways.append(_Way(drive, {"highway": "service", "access": "private", "name": "Lowfield Farm"}))
     for a, b in (((-400, -1400), (-400, -1100)), ((-1000, -1250), (-400, -1250))):
         lot = _densify([corr.to_world(a)[0], corr.to_world(b)[0]], 25.0)
@@ -665,14 +730,7 @@ def _build_layout(rng: np.random.Generator) -> _Layout:
     bypass = _densify([corr.to_world((1800, -900))[0], (24300.0, 7200.0), corr.to_world((1800, 900))[0]], 30.0)
     bypass_tags = {"highway": "construction", "construction": "tertiary", "name": "Corrowick Bypass"}
     ways.append(_Way(_chaikin(bypass), bypass_tags))
-
-    # One small road piece that touches nothing else (the network builder should report and drop it).
-    ang = np.linspace(0.0, 2 * np.pi, 40)
-    loop = np.column_stack([28500.0 + 300.0 * np.cos(ang), 23700.0 + 220.0 * np.sin(ang)])
-    loop[-1] = loop[0]
-    ways.append(_Way(loop, {"highway": "residential", "name": "Gorse Loop", "maxspeed": "30"}))
-
-    return _Layout(ways, river.coords(), [quen, corr], villages, bx)
+    return ways
 
 
 def _ramp_curve(p_from, p_to, carriageway: np.ndarray) -> np.ndarray:

@@ -230,6 +230,51 @@ def load_study(path: str | Path) -> Study:
     """
     path, raw = read_toml(path, "study", "give a .toml study file (see examples/).")
     where = str(path)
+    _check_layout(raw, where)
+    folder = path.parent
+    roads, bases = _roads_and_bases(raw, folder, where)
+    demand = _demand_settings(raw, folder, where)
+    standards = _standards(raw, where)
+    zones = None
+    if "zones" in raw:
+        zones = dict(raw["zones"])
+        zones["file"] = str(_file(folder, zones["file"], "zones.file", where))
+        _check_zone_field(zones, where)
+    minutes = raw.get("outputs", {}).get("isochrone_minutes", list(settings.ISOCHRONE_MINUTES))
+    if not all(isinstance(m, int | float) and not isinstance(m, bool) and m > 0 for m in minutes) or not minutes:
+        raise StudyError(f"{where}: outputs.isochrone_minutes must be a list of positive numbers, e.g. [4, 8, 12].")
+    siting_cfg = _siting_table(raw, folder, where) if "siting" in raw else None
+    availability_cfg = _availability_table(raw, where) if "availability" in raw else None
+    calibration_cfg = _calibration_table(raw, folder, where) if "calibration" in raw else None
+    direction = raw["study"].get("direction", settings.DIRECTION)
+    if direction not in settings.DIRECTIONS:
+        raise StudyError(f"{where}: study.direction must be 'out' (base to demand) or 'in', got '{direction}'.")
+    study = Study(
+        path,
+        raw["study"]["name"],
+        direction,
+        RoadsSettings.from_table(roads),
+        BasesSettings.from_table(bases),
+        demand,
+        standards,
+        ZonesSettings.from_table(zones) if zones else None,
+        OutputsSettings.from_table(raw.get("outputs", {})),
+        raw,
+        SitingSettings.from_table(siting_cfg) if siting_cfg else None,
+        AvailabilitySettings.from_table(availability_cfg) if availability_cfg else None,
+        CalibrationSettings.from_table(calibration_cfg) if calibration_cfg else None,
+    )
+    if study.siting:
+        study.standard_named(study.siting.standard, "siting.standard")
+        study.demand_named(study.siting.demand, "siting.demand", "residents")
+    if study.availability:
+        study.standard_named(study.availability.standard, "availability.standard")
+        study.demand_named(study.availability.demand, "availability.demand", "incidents")
+    return study
+
+
+def _check_layout(raw: dict[str, Any], where: str) -> None:
+    """Known sections only, the required ones present, and every table's keys and types as :data:`SCHEMA` says."""
     check_sections(raw, SCHEMA, where)
     for section in REQUIRED_SECTIONS:
         if section not in raw:
@@ -246,7 +291,10 @@ def load_study(path: str | Path) -> Study:
                 check_table(item, SCHEMA[section], section, where, f"[{section}]")
         else:
             check_table(table, SCHEMA[section], section, where, f"[{section}]")
-    folder = path.parent
+
+
+def _roads_and_bases(raw: dict[str, Any], folder: Path, where: str) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The [roads] and [bases] tables with their files resolved against the study's folder (each must exist)."""
     roads = dict(raw["roads"])
     roads["source"] = str(_file(folder, roads["source"], "roads.source", where))
     if "boundary" in roads:
@@ -255,7 +303,11 @@ def load_study(path: str | Path) -> Study:
         roads["profile"] = str(_file(folder, roads["profile"], "roads.profile", where))
     bases = dict(raw["bases"])
     bases["file"] = str(_file(folder, bases["file"], "bases.file", where))
+    return roads, bases
 
+
+def _demand_settings(raw: dict[str, Any], folder: Path, where: str) -> list[DemandSpec]:
+    """Each [[demand]] entry checked (one source, what the source needs, unique name, kind, filter syntax)."""
     demand: list[DemandSpec] = []
     names = set()
     for i, item in enumerate(raw["demand"]):
@@ -285,6 +337,11 @@ def load_study(path: str | Path) -> Study:
         demand.append(
             DemandSettings.from_table(item, _file(folder, item[src_kind], f"{key}.{src_kind}", where), src_kind, kind)
         )
+    return demand
+
+
+def _standards(raw: dict[str, Any], where: str) -> list[Standard]:
+    """The [[standard]] entries as :class:`Standard` (which checks its own values); names must differ."""
     standards = []
     for i, item in enumerate(raw["standard"]):
         try:
@@ -301,71 +358,48 @@ def load_study(path: str | Path) -> Study:
             raise StudyError(f"{where}: standard[{i}]: {exc}") from None
     if len({s.name for s in standards}) != len(standards):
         raise StudyError(f"{where}: two [[standard]] entries share a name; names must differ.")
-    zones = None
-    if "zones" in raw:
-        zones = dict(raw["zones"])
-        zones["file"] = str(_file(folder, zones["file"], "zones.file", where))
-        _check_zone_field(zones, where)
-    minutes = raw.get("outputs", {}).get("isochrone_minutes", list(settings.ISOCHRONE_MINUTES))
-    if not all(isinstance(m, int | float) and not isinstance(m, bool) and m > 0 for m in minutes) or not minutes:
-        raise StudyError(f"{where}: outputs.isochrone_minutes must be a list of positive numbers, e.g. [4, 8, 12].")
-    siting_cfg = None
-    if "siting" in raw:
-        siting_cfg = dict(raw["siting"])
-        if ("candidates" in siting_cfg) == ("generate" in siting_cfg):
-            raise StudyError(f"{where}: [siting] needs exactly one of candidates (a file) or generate (a road class).")
-        if "candidates" in siting_cfg:
-            siting_cfg["candidates"] = str(_file(folder, siting_cfg["candidates"], "siting.candidates", where))
-        model = siting_cfg.get("model", siting_models.DEFAULT_MODEL)
-        if model not in siting_models.NAMES:
-            names = siting_models.NAMES
-            raise StudyError(f"{where}: siting.model '{model}' is unknown; use {', '.join(names[:-1])} or {names[-1]}.")
-        for needed in siting_models.BY_NAME[model].needs:
-            if needed not in siting_cfg:
-                raise StudyError(
-                    f"{where}: [siting] with model {model} needs {needed} ({siting_models.PARAMETERS[needed]})."
-                )
-        if siting_cfg.get("method", settings.SITING_METHOD) not in settings.SITING_METHODS:
-            raise StudyError(f"{where}: siting.method must be one of {', '.join(settings.SITING_METHODS)}.")
-    availability_cfg = None
-    if "availability" in raw:
-        availability_cfg = dict(raw["availability"])
-        if availability_cfg.get("queue", settings.QUEUE) not in settings.QUEUES:
-            raise StudyError(f"{where}: availability.queue must be 'infinite' or 'zero'.")
-        if availability_cfg.get("method", settings.AVAILABILITY_METHOD) not in settings.AVAILABILITY_METHODS:
-            raise StudyError(f"{where}: availability.method must be 'auto', 'exact' or 'approx'.")
-    calibration_cfg = None
-    if "calibration" in raw:
-        calibration_cfg = dict(raw["calibration"])
-        calibration_cfg["observed"] = str(_file(folder, calibration_cfg["observed"], "calibration.observed", where))
-        hours = calibration_cfg.get("hours")
-        if hours is not None and not all(isinstance(h, int) and 0 <= h <= 23 for h in hours):
-            raise StudyError(f"{where}: calibration.hours must be a list of whole hours 0..23.")
-    direction = raw["study"].get("direction", settings.DIRECTION)
-    if direction not in settings.DIRECTIONS:
-        raise StudyError(f"{where}: study.direction must be 'out' (base to demand) or 'in', got '{direction}'.")
-    study = Study(
-        path,
-        raw["study"]["name"],
-        direction,
-        RoadsSettings.from_table(roads),
-        BasesSettings.from_table(bases),
-        demand,
-        standards,
-        ZonesSettings.from_table(zones) if zones else None,
-        OutputsSettings.from_table(raw.get("outputs", {})),
-        raw,
-        SitingSettings.from_table(siting_cfg) if siting_cfg else None,
-        AvailabilitySettings.from_table(availability_cfg) if availability_cfg else None,
-        CalibrationSettings.from_table(calibration_cfg) if calibration_cfg else None,
-    )
-    if study.siting:
-        study.standard_named(study.siting.standard, "siting.standard")
-        study.demand_named(study.siting.demand, "siting.demand", "residents")
-    if study.availability:
-        study.standard_named(study.availability.standard, "availability.standard")
-        study.demand_named(study.availability.demand, "availability.demand", "incidents")
-    return study
+    return standards
+
+
+def _siting_table(raw: dict[str, Any], folder: Path, where: str) -> dict[str, Any]:
+    """The [siting] table checked: one candidate source, a known model with what it needs, a known method."""
+    siting_cfg = dict(raw["siting"])
+    if ("candidates" in siting_cfg) == ("generate" in siting_cfg):
+        raise StudyError(f"{where}: [siting] needs exactly one of candidates (a file) or generate (a road class).")
+    if "candidates" in siting_cfg:
+        siting_cfg["candidates"] = str(_file(folder, siting_cfg["candidates"], "siting.candidates", where))
+    model = siting_cfg.get("model", siting_models.DEFAULT_MODEL)
+    if model not in siting_models.NAMES:
+        names = siting_models.NAMES
+        raise StudyError(f"{where}: siting.model '{model}' is unknown; use {', '.join(names[:-1])} or {names[-1]}.")
+    for needed in siting_models.BY_NAME[model].needs:
+        if needed not in siting_cfg:
+            raise StudyError(
+                f"{where}: [siting] with model {model} needs {needed} ({siting_models.PARAMETERS[needed]})."
+            )
+    if siting_cfg.get("method", settings.SITING_METHOD) not in settings.SITING_METHODS:
+        raise StudyError(f"{where}: siting.method must be one of {', '.join(settings.SITING_METHODS)}.")
+    return siting_cfg
+
+
+def _availability_table(raw: dict[str, Any], where: str) -> dict[str, Any]:
+    """The [availability] table with its queue and method checked."""
+    availability_cfg = dict(raw["availability"])
+    if availability_cfg.get("queue", settings.QUEUE) not in settings.QUEUES:
+        raise StudyError(f"{where}: availability.queue must be 'infinite' or 'zero'.")
+    if availability_cfg.get("method", settings.AVAILABILITY_METHOD) not in settings.AVAILABILITY_METHODS:
+        raise StudyError(f"{where}: availability.method must be 'auto', 'exact' or 'approx'.")
+    return availability_cfg
+
+
+def _calibration_table(raw: dict[str, Any], folder: Path, where: str) -> dict[str, Any]:
+    """The [calibration] table with its observed file resolved and its hours checked."""
+    calibration_cfg = dict(raw["calibration"])
+    calibration_cfg["observed"] = str(_file(folder, calibration_cfg["observed"], "calibration.observed", where))
+    hours = calibration_cfg.get("hours")
+    if hours is not None and not all(isinstance(h, int) and 0 <= h <= 23 for h in hours):
+        raise StudyError(f"{where}: calibration.hours must be a list of whole hours 0..23.")
+    return calibration_cfg
 
 
 # -- running ----------------------------------------------------------------------------------------------------------
@@ -579,8 +613,6 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     """
     import pandas as pd
 
-    from coverkit.atomic import write_csv_atomic, write_gpkg_layers
-    from coverkit.coverage import travel_table
     from coverkit.isochrones import drive_time_polygons, write_travel_surface
     from coverkit.progress import Steps
 
@@ -626,6 +658,57 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         + (", siting" if study.siting else "")
         + (", availability" if study.availability else "")
     )
+    runs = _coverage_runs(study, net, bases, demand, kinds, snaps, zones)
+    summary = pd.DataFrame([row for run in runs for row in run.summary_rows()])
+    site_plan = _study_siting(study, net, bases, demand, snaps) if study.siting else None
+    avail = _study_availability(study, net, bases, demand, snaps) if study.availability else None
+    calibration = _study_calibration(study, net, bases) if study.calibration else None
+
+    steps.step("writing layers and tables")
+    layers: dict[str, pd.DataFrame] = {layer_name("bases"): bases, **polygon_layers(polygons)}
+    for run in runs:
+        layers.update(run.layers())
+    for name, d in demand.items():  # point rows set aside for want of a usable position
+        if d.attrs.get("rejected"):
+            layers[layer_name("rejected", name)] = d.attrs["rejected"].table
+    for stage in (site_plan, avail, calibration):
+        if stage is not None:
+            layers.update(stage.layers())
+    layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
+    outputs = _write_outputs(folder, surface_path, layers, summary, site_plan, calibration)
+    result = StudyRun(
+        study,
+        net,
+        build_text,
+        bases,
+        demand,
+        polygons,
+        surface_path,
+        runs,
+        summary,
+        outputs,
+        reused,
+        site_plan,
+        avail,
+        calibration,
+    )
+
+    return result
+
+
+def _coverage_runs(
+    study: Study,
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame,
+    demand: dict[str, gpd.GeoDataFrame],
+    kinds: dict[str, str],
+    snaps: dict[str, float],
+    zones: gpd.GeoDataFrame | None,
+) -> list[CoverageStage]:
+    """The coverage stage of every standard, in the study's order, sharing one travel table per demand layer."""
+    from coverkit.coverage import travel_table
+
+    opts = study.outputs
     # one search per demand layer serves every standard: the horizon covers the longest standard
     base_snap_m = study.bases.snap_m
     tables = {
@@ -651,22 +734,21 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         )
         grid = stage.areas.grid
         runs.append(stage)
-    summary = pd.DataFrame([row for run in runs for row in run.summary_rows()])
-    site_plan = _study_siting(study, net, bases, demand, snaps) if study.siting else None
-    avail = _study_availability(study, net, bases, demand, snaps) if study.availability else None
-    calibration = _study_calibration(study, net, bases) if study.calibration else None
+    return runs
 
-    steps.step("writing layers and tables")
+
+def _write_outputs(
+    folder: Path,
+    surface_path: Path,
+    layers: dict[str, pd.DataFrame],
+    summary: pd.DataFrame,
+    site_plan: SitingStage | None,
+    calibration: CalibrationStage | None,
+) -> dict[str, Path]:
+    """Write the study's files atomically into ``folder``; each output's path by its name."""
+    from coverkit.atomic import write_csv_atomic, write_gpkg_layers
+
     outputs: dict[str, Path] = {"network": output_file(folder, "network"), "surface": surface_path}
-    layers: dict[str, pd.DataFrame] = {layer_name("bases"): bases, **polygon_layers(polygons)}
-    for run in runs:
-        layers.update(run.layers())
-    for name, d in demand.items():  # point rows set aside for want of a usable position
-        if d.attrs.get("rejected"):
-            layers[layer_name("rejected", name)] = d.attrs["rejected"].table
-    for stage in (site_plan, avail, calibration):
-        if stage is not None:
-            layers.update(stage.layers())
     if site_plan is not None:
         outputs["site_curve_csv"] = write_csv_atomic(table_file(folder, "site_curve"), site_plan.plan.curve)
     if calibration is not None:
@@ -676,27 +758,9 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             calibration.result, output_file(folder, "calibrated_profile")
         )
         outputs["calibration_chart"] = calibration_chart(calibration.result, map_file(folder, "calibration"))
-    layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
     outputs["layers"] = write_gpkg_layers(output_file(folder, "layers"), layers)
     outputs["summary_csv"] = write_csv_atomic(output_file(folder, "summary_csv"), summary)
-    result = StudyRun(
-        study,
-        net,
-        build_text,
-        bases,
-        demand,
-        polygons,
-        surface_path,
-        runs,
-        summary,
-        outputs,
-        reused,
-        site_plan,
-        avail,
-        calibration,
-    )
-
-    return result
+    return outputs
 
 
 def headline_lines(run: StudyRun) -> list[str]:

@@ -9,6 +9,7 @@ line endpoints, merged within a tolerance. Endpoints that nearly meet another li
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -22,6 +23,9 @@ from coverkit.errors import FieldError, InputFileError
 from coverkit.network.profile import KPH_PER_MPH, Profile
 from coverkit.network.raw import SEGMENT_COLUMNS, RawRoads
 from coverkit.network.road_classes import CENTERLINE_ALIASES
+
+if TYPE_CHECKING:
+    import geopandas as gpd
 
 FIELD_KEYS = ("class", "speed", "oneway", "name", "id", "bridge", "tunnel")
 
@@ -143,19 +147,7 @@ def read_centerlines(
         near misses.
     """
     path = Path(path)
-    try:
-        gdf = pyogrio.read_dataframe(path, layer=layer)
-    except Exception as exc:
-        raise InputFileError(f"{path}: not a readable vector layer ({str(exc)[:80]}).") from None
-    if gdf.crs is None:
-        raise InputFileError(f"{path}: the layer has no CRS; assign one (e.g. in a desktop GIS) and retry.")
-    gdf = gdf[gdf.geometry.notna() & ~gdf.geometry.is_empty]
-    for key in ("class", "speed", "oneway", "name", "id", "bridge", "tunnel"):
-        if key in fields and fields[key] not in gdf.columns:
-            raise FieldError(
-                f"{path}: field '{fields[key]}' (mapped as {key}) is not in the layer; "
-                f"fields are {', '.join(map(str, gdf.columns[:12]))}."
-            )
+    gdf = _read_layer(path, layer, fields)
     features_read = len(gdf)
     mapping = _class_map(fields, profile)
     raw_class = gdf[fields["class"]].astype(str).str.strip()
@@ -188,35 +180,8 @@ def read_centerlines(
     node_of_end, near_miss = _merge_endpoints(endpoints, snap_tolerance_m, near_miss_m)
     stats["near_miss_endpoints"] = int(near_miss)
 
-    speed_kph = np.full(n, np.nan)
-    if "speed" in fields:
-        unit = fields.get("speed_unit", "mph" if "mph" in fields["speed"].lower() else "kph").lower()
-        if unit not in ("mph", "kph", "kmh", "km/h"):
-            raise FieldError(f"field mapping: speed_unit must be mph or kph, got '{unit}'.")
-        values = pd.to_numeric(gdf[fields["speed"]], errors="coerce").to_numpy(dtype=float)
-        speed_kph = values * (KPH_PER_MPH if unit == "mph" else 1.0)
-        speed_kph[~(speed_kph > 0)] = np.nan
-
-    oneway = np.full(n, "no", dtype=object)
-    if "oneway" in fields:
-        forward = FORWARD_VALUES | {v.lower() for v in fields.get("oneway_forward", "").split(";") if v}
-        backward = BACKWARD_VALUES | {v.lower() for v in fields.get("oneway_backward", "").split(";") if v}
-        values = gdf[fields["oneway"]].astype(str).str.strip().str.lower().to_numpy()
-        oneway[np.isin(values, list(forward - backward))] = "yes"
-        oneway[np.isin(values, list(backward))] = "-1"
-        odd = sorted(set(values) - forward - backward - TWO_WAY_VALUES)
-        if odd:
-            raise FieldError(
-                f"{path}: one-way field '{fields['oneway']}' has value '{odd[0]}' that is not understood; "
-                f"add oneway_forward={odd[0]} or oneway_backward={odd[0]} to the field mapping."
-            )
-
-    def flag(key: str) -> np.ndarray:
-        if key not in fields:
-            return np.zeros(n, dtype=bool)
-        text = gdf[fields[key]].astype(str).str.strip().str.lower()
-        return ~text.isin(["", "0", "n", "no", "false", "none", "nan"]).to_numpy()
-
+    speed_kph = _speed_kph(gdf, fields)
+    oneway = _oneway(path, gdf, fields)
     source_id = (
         pd.to_numeric(gdf[fields["id"]], errors="coerce").fillna(-1).to_numpy(dtype=np.int64)
         if "id" in fields
@@ -233,8 +198,8 @@ def read_centerlines(
             "oneway": oneway,
             "junction": np.full(n, None, dtype=object),
             "access": np.full(n, None, dtype=object),
-            "bridge": flag("bridge"),
-            "tunnel": flag("tunnel"),
+            "bridge": _flag(gdf, fields, "bridge"),
+            "tunnel": _flag(gdf, fields, "tunnel"),
             "name": gdf[fields["name"]].fillna("").astype(str).to_numpy(dtype=object)
             if "name" in fields
             else np.full(n, "", dtype=object),
@@ -250,6 +215,63 @@ def read_centerlines(
     keys = np.unique(np.concatenate([segments["u_key"].to_numpy(), segments["v_key"].to_numpy()]))
     nodes = pd.DataFrame({"key": keys, "x": node_xy[keys, 0], "y": node_xy[keys, 1], "signal": False})
     return RawRoads(segments, geometry, nodes, metric, str(path), stats)
+
+
+def _read_layer(path: Path, layer: str | None, fields: dict[str, str]) -> gpd.GeoDataFrame:
+    """The layer's features with a geometry; its CRS and every mapped field must be there."""
+    try:
+        gdf = pyogrio.read_dataframe(path, layer=layer)
+    except Exception as exc:
+        raise InputFileError(f"{path}: not a readable vector layer ({str(exc)[:80]}).") from None
+    if gdf.crs is None:
+        raise InputFileError(f"{path}: the layer has no CRS; assign one (e.g. in a desktop GIS) and retry.")
+    gdf = gdf[gdf.geometry.notna() & ~gdf.geometry.is_empty]
+    for key in ("class", "speed", "oneway", "name", "id", "bridge", "tunnel"):
+        if key in fields and fields[key] not in gdf.columns:
+            raise FieldError(
+                f"{path}: field '{fields[key]}' (mapped as {key}) is not in the layer; "
+                f"fields are {', '.join(map(str, gdf.columns[:12]))}."
+            )
+    return gdf
+
+
+def _speed_kph(gdf: gpd.GeoDataFrame, fields: dict[str, str]) -> np.ndarray:
+    """Posted speed per feature (km/h; NaN where absent or not positive), converted from mph when mapped so."""
+    speed_kph = np.full(len(gdf), np.nan)
+    if "speed" in fields:
+        unit = fields.get("speed_unit", "mph" if "mph" in fields["speed"].lower() else "kph").lower()
+        if unit not in ("mph", "kph", "kmh", "km/h"):
+            raise FieldError(f"field mapping: speed_unit must be mph or kph, got '{unit}'.")
+        values = pd.to_numeric(gdf[fields["speed"]], errors="coerce").to_numpy(dtype=float)
+        speed_kph = values * (KPH_PER_MPH if unit == "mph" else 1.0)
+        speed_kph[~(speed_kph > 0)] = np.nan
+    return speed_kph
+
+
+def _oneway(path: Path, gdf: gpd.GeoDataFrame, fields: dict[str, str]) -> np.ndarray:
+    """One-way tag per feature ("no", "yes" along the digitised direction, "-1" against it)."""
+    oneway = np.full(len(gdf), "no", dtype=object)
+    if "oneway" in fields:
+        forward = FORWARD_VALUES | {v.lower() for v in fields.get("oneway_forward", "").split(";") if v}
+        backward = BACKWARD_VALUES | {v.lower() for v in fields.get("oneway_backward", "").split(";") if v}
+        values = gdf[fields["oneway"]].astype(str).str.strip().str.lower().to_numpy()
+        oneway[np.isin(values, list(forward - backward))] = "yes"
+        oneway[np.isin(values, list(backward))] = "-1"
+        odd = sorted(set(values) - forward - backward - TWO_WAY_VALUES)
+        if odd:
+            raise FieldError(
+                f"{path}: one-way field '{fields['oneway']}' has value '{odd[0]}' that is not understood; "
+                f"add oneway_forward={odd[0]} or oneway_backward={odd[0]} to the field mapping."
+            )
+    return oneway
+
+
+def _flag(gdf: gpd.GeoDataFrame, fields: dict[str, str], key: str) -> np.ndarray:
+    """A yes/no field (bridge, tunnel) as booleans; all False when it is not mapped."""
+    if key not in fields:
+        return np.zeros(len(gdf), dtype=bool)
+    text = gdf[fields[key]].astype(str).str.strip().str.lower()
+    return ~text.isin(["", "0", "n", "no", "false", "none", "nan"]).to_numpy()
 
 
 def _merge_endpoints(points: np.ndarray, tolerance_m: float, near_miss_m: float) -> tuple[np.ndarray, int]:

@@ -953,6 +953,25 @@ def first_due_map(
     return page.save(out_png, title)
 
 
+def _draw_closures(page: _Page, closure_areas: gpd.GeoDataFrame | None, closed_roads: gpd.GeoDataFrame | None) -> None:
+    """A scenario's closed areas (hatched, outlined) and closed roads (dashed casing), with their legend entries."""
+    if closure_areas is not None and len(closure_areas):
+        geoms = closure_areas.geometry.to_numpy()
+        _draw_polygons(page.ax, geoms, "none", edgecolors=CLOSURE_EDGE_COLOR, hatch="\\\\", linewidths=1.0, zorder=4)
+        page.add_legend(Patch(fc="none", ec=CLOSURE_EDGE_COLOR, hatch="\\\\", lw=1.0), "closed area")
+    if closed_roads is not None and len(closed_roads):
+        segments = _line_segments(closed_roads.geometry.to_numpy())
+        # a dark casing broken by white dashes: apart from the boundary's solid line and from any road
+        page.ax.add_collection(LineCollection(segments, colors=CLOSED_ROAD_COLOR, linewidths=3.0, zorder=4.5))
+        page.ax.add_collection(
+            LineCollection(segments, colors="white", linewidths=1.4, linestyles=(0, (2, 2)), zorder=4.6)
+        )
+        page.add_legend(
+            (Line2D([], [], color=CLOSED_ROAD_COLOR, lw=3.0), Line2D([], [], color="white", lw=1.4, ls=(0, (2, 2)))),
+            "closed road",
+        )
+
+
 def difference_map(
     out_png: str | os.PathLike[str],
     diff: gpd.GeoDataFrame,
@@ -1037,21 +1056,7 @@ def difference_map(
         page.roads(roads)
     if np.any(~ok):
         page.add_legend(Patch(fc="#eee", ec="#aaa", hatch="///"), "no value")
-    if closure_areas is not None and len(closure_areas):
-        geoms = closure_areas.geometry.to_numpy()
-        _draw_polygons(page.ax, geoms, "none", edgecolors=CLOSURE_EDGE_COLOR, hatch="\\\\", linewidths=1.0, zorder=4)
-        page.add_legend(Patch(fc="none", ec=CLOSURE_EDGE_COLOR, hatch="\\\\", lw=1.0), "closed area")
-    if closed_roads is not None and len(closed_roads):
-        segments = _line_segments(closed_roads.geometry.to_numpy())
-        # a dark casing broken by white dashes: apart from the boundary's solid line and from any road
-        page.ax.add_collection(LineCollection(segments, colors=CLOSED_ROAD_COLOR, linewidths=3.0, zorder=4.5))
-        page.ax.add_collection(
-            LineCollection(segments, colors="white", linewidths=1.4, linestyles=(0, (2, 2)), zorder=4.6)
-        )
-        page.add_legend(
-            (Line2D([], [], color=CLOSED_ROAD_COLOR, lw=3.0), Line2D([], [], color="white", lw=1.4, ls=(0, (2, 2)))),
-            "closed road",
-        )
+    _draw_closures(page, closure_areas, closed_roads)
     page.bases(before, label="Base before", filled=False, annotate=after is None or not len(after))
     page.bases(after, label="Base after", filled=True)
     if before is not None and after is not None and len(before) and len(after):

@@ -110,18 +110,10 @@ def shortest_routes(
     target_index = np.asarray(target_index, dtype=np.int64).reshape(-1)
     if source_index.shape != target_index.shape:
         raise ValueError("source_index and target_index must have the same length")
-    n, n_pairs, n_edges = net.n_nodes, len(source_index), net.n_edges
+    n, n_pairs = net.n_nodes, len(source_index)
     run = run_s(net)
     edge_key, edge_of_key = _edge_lookup(net)
-
-    s_pt, s_node, s_t = seeds(net, sources, "out")
-    s_edge = sources.entry_edge
-    # the cheapest entry of each (source point, first node) pair: the arc the virtual node actually uses
-    s_key = s_pt * np.int64(n) + s_node
-    order = np.lexsort((s_edge, s_t, s_key))
-    first = np.r_[True, s_key[order][1:] != s_key[order][:-1]] if len(order) else np.zeros(0, dtype=bool)
-    start_key, start_edge = s_key[order][first], s_edge[order][first]
-    start_frac = sources.entry_frac[order][first]
+    start = _start_arcs(net, sources)
 
     t_pt, t_node, t_add = exits(net, targets, "out")
     t_edge, t_frac = targets.entry_edge, targets.entry_frac
@@ -130,10 +122,7 @@ def shortest_routes(
 
     time_s = np.full(n_pairs, np.inf)
     direct = np.zeros(n_pairs, dtype=bool)
-    rows: list[np.ndarray] = []
-    cols: list[np.ndarray] = []
-    run_w: list[np.ndarray] = []
-    delay_w: list[np.ndarray] = []
+    use = _UseParts()
 
     direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run)
 
@@ -147,18 +136,7 @@ def shortest_routes(
 
         pairs = np.flatnonzero(usable & (local[source_index] >= 0))
         ls = local[source_index[pairs]]
-        # every exit entry of each pair's target; pick the cheapest (ties: lowest edge id, entries are edge-sorted)
-        cnt = t_count[target_index[pairs]]
-        rep = np.repeat(np.arange(len(pairs)), cnt)
-        ent = np.repeat(t_ptr[target_index[pairs]], cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))
-        cand = dist[ls[rep], t_node[ent]] + t_add[ent]
-        best = np.full(len(pairs), -1, dtype=np.int64)
-        best_s = np.full(len(pairs), np.inf)
-        if len(rep):
-            o = np.lexsort((ent, cand, rep))
-            head = np.r_[True, rep[o][1:] != rep[o][:-1]]
-            best[rep[o][head]] = ent[o][head]
-            best_s[rep[o][head]] = cand[o][head]
+        best, best_s = _best_exits(dist, ls, target_index[pairs], t_count, t_ptr, t_node, t_add)
         # the direct trip along a shared edge wins ties: it passes no node
         use_direct = direct_s[pairs] <= best_s
         net_ok = np.isfinite(best_s) & ~use_direct
@@ -166,47 +144,15 @@ def shortest_routes(
         direct[pairs[use_direct]] = True
 
         dp = pairs[use_direct]
-        rows.append(dp)
-        cols.append(direct_edge[dp])
-        run_w.append(direct_share[dp])
-        delay_w.append(np.zeros(len(dp)))
+        use.add(dp, direct_edge[dp], direct_share[dp], np.zeros(len(dp)))
 
         p_idx = np.flatnonzero(net_ok)
         e_end = t_edge[best[p_idx]]
-        rows.append(pairs[p_idx])
-        cols.append(e_end)
-        run_w.append(t_frac[best[p_idx]])
-        delay_w.append(np.zeros(len(p_idx)))
-        # walk the predecessor arrays back from the exit node, one step for all routes at once
-        cur = net.u[e_end]
-        row_local = ls[p_idx]
-        row_pair = pairs[p_idx]
-        while len(cur):
-            prev = pred[row_local, cur]
-            at_source = prev >= n
-            if at_source.any():
-                key = source_index[row_pair[at_source]] * np.int64(n) + cur[at_source]
-                k = np.searchsorted(start_key, key)
-                rows.append(row_pair[at_source])
-                cols.append(start_edge[k])
-                run_w.append(1.0 - start_frac[k])
-                delay_w.append(np.ones(int(at_source.sum())))
-            inner = ~at_source
-            if inner.any():
-                key = prev[inner] * np.int64(n) + cur[inner]
-                rows.append(row_pair[inner])
-                cols.append(edge_of_key[np.searchsorted(edge_key, key)])
-                run_w.append(np.ones(int(inner.sum())))
-                delay_w.append(np.ones(int(inner.sum())))
-            cur, row_local, row_pair = prev[inner], row_local[inner], row_pair[inner]
+        use.add(pairs[p_idx], e_end, t_frac[best[p_idx]], np.zeros(len(p_idx)))
+        walk = (net.u[e_end], ls[p_idx], pairs[p_idx])
+        _walk_back(use, pred, walk, source_index, n, start, edge_key, edge_of_key)
 
-    r = np.concatenate(rows) if rows else np.zeros(0, dtype=np.int64)
-    c = np.concatenate(cols) if cols else np.zeros(0, dtype=np.int64)
-    run_use = sp.csr_matrix((np.concatenate(run_w) if run_w else np.zeros(0), (r, c)), shape=(n_pairs, n_edges))
-    delay_use = sp.csr_matrix((np.concatenate(delay_w) if delay_w else np.zeros(0), (r, c)), shape=(n_pairs, n_edges))
-    delay_use.eliminate_zeros()
-    run_use.sort_indices()
-    delay_use.sort_indices()
+    run_use, delay_use = use.matrices(n_pairs, net.n_edges)
     return Routes(
         source=source_index,
         target=target_index,
@@ -216,6 +162,103 @@ def shortest_routes(
         delay_use=delay_use,
         direct=direct,
     )
+
+
+class _UseParts:
+    """Pieces of the route x edge use matrices: rows (pairs), columns (edges), running-time share, delay count."""
+
+    def __init__(self) -> None:
+        self.rows: list[np.ndarray] = []
+        self.cols: list[np.ndarray] = []
+        self.run_w: list[np.ndarray] = []
+        self.delay_w: list[np.ndarray] = []
+
+    def add(self, rows: np.ndarray, cols: np.ndarray, run_w: np.ndarray, delay_w: np.ndarray) -> None:
+        self.rows.append(rows)
+        self.cols.append(cols)
+        self.run_w.append(run_w)
+        self.delay_w.append(delay_w)
+
+    def matrices(self, n_pairs: int, n_edges: int) -> tuple[sp.csr_matrix, sp.csr_matrix]:
+        """The running-time share and delay matrices (pairs x edges; duplicates summed, indices sorted)."""
+        r = np.concatenate(self.rows) if self.rows else np.zeros(0, dtype=np.int64)
+        c = np.concatenate(self.cols) if self.cols else np.zeros(0, dtype=np.int64)
+        run_data = np.concatenate(self.run_w) if self.run_w else np.zeros(0)
+        delay_data = np.concatenate(self.delay_w) if self.delay_w else np.zeros(0)
+        run_use = sp.csr_matrix((run_data, (r, c)), shape=(n_pairs, n_edges))
+        delay_use = sp.csr_matrix((delay_data, (r, c)), shape=(n_pairs, n_edges))
+        delay_use.eliminate_zeros()
+        run_use.sort_indices()
+        delay_use.sort_indices()
+        return run_use, delay_use
+
+
+def _start_arcs(net: RoadNetwork, sources: Snapped) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sorted keys ``point * n_nodes + first node`` with the entry edge and fraction each key's route starts on."""
+    n = net.n_nodes
+    s_pt, s_node, s_t = seeds(net, sources, "out")
+    s_edge = sources.entry_edge
+    # the cheapest entry of each (source point, first node) pair: the arc the virtual node actually uses
+    s_key = s_pt * np.int64(n) + s_node
+    order = np.lexsort((s_edge, s_t, s_key))
+    first = np.r_[True, s_key[order][1:] != s_key[order][:-1]] if len(order) else np.zeros(0, dtype=bool)
+    start_key, start_edge = s_key[order][first], s_edge[order][first]
+    start_frac = sources.entry_frac[order][first]
+    return start_key, start_edge, start_frac
+
+
+def _best_exits(
+    dist: np.ndarray,
+    ls: np.ndarray,
+    pair_target: np.ndarray,
+    t_count: np.ndarray,
+    t_ptr: np.ndarray,
+    t_node: np.ndarray,
+    t_add: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """The cheapest exit entry of each pair's target (-1 if none) and its time (s; inf if none)."""
+    # every exit entry of each pair's target; pick the cheapest (ties: lowest edge id, entries are edge-sorted)
+    cnt = t_count[pair_target]
+    rep = np.repeat(np.arange(len(ls)), cnt)
+    ent = np.repeat(t_ptr[pair_target], cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))
+    cand = dist[ls[rep], t_node[ent]] + t_add[ent]
+    best = np.full(len(ls), -1, dtype=np.int64)
+    best_s = np.full(len(ls), np.inf)
+    if len(rep):
+        o = np.lexsort((ent, cand, rep))
+        head = np.r_[True, rep[o][1:] != rep[o][:-1]]
+        best[rep[o][head]] = ent[o][head]
+        best_s[rep[o][head]] = cand[o][head]
+    return best, best_s
+
+
+def _walk_back(
+    use: _UseParts,
+    pred: np.ndarray,
+    walk: tuple[np.ndarray, np.ndarray, np.ndarray],
+    source_index: np.ndarray,
+    n: int,
+    start: tuple[np.ndarray, np.ndarray, np.ndarray],
+    edge_key: np.ndarray,
+    edge_of_key: np.ndarray,
+) -> None:
+    """Add the edges of each route, walking the predecessor arrays back from the exit node, one step for all routes
+    at once. ``walk`` is (exit node, local source row, pair) per route; predecessors >= ``n`` are the sources."""
+    start_key, start_edge, start_frac = start
+    cur, row_local, row_pair = walk
+    while len(cur):
+        prev = pred[row_local, cur]
+        at_source = prev >= n
+        if at_source.any():
+            key = source_index[row_pair[at_source]] * np.int64(n) + cur[at_source]
+            k = np.searchsorted(start_key, key)
+            use.add(row_pair[at_source], start_edge[k], 1.0 - start_frac[k], np.ones(int(at_source.sum())))
+        inner = ~at_source
+        if inner.any():
+            key = prev[inner] * np.int64(n) + cur[inner]
+            n_inner = int(inner.sum())
+            use.add(row_pair[inner], edge_of_key[np.searchsorted(edge_key, key)], np.ones(n_inner), np.ones(n_inner))
+        cur, row_local, row_pair = prev[inner], row_local[inner], row_pair[inner]
 
 
 def _edge_lookup(net: RoadNetwork) -> tuple[np.ndarray, np.ndarray]:

@@ -192,6 +192,22 @@ def road_pieces(net: RoadNetwork) -> RoadPieces:
     return pieces
 
 
+def _off_network_error(
+    bad: np.ndarray, id_arr: np.ndarray, dist_m: np.ndarray, max_snap_m: float, what: str
+) -> OffNetworkError:
+    """The error naming the points ``bad`` beyond the snap limit (the first ten, with their distances)."""
+    shown = ", ".join(f"{id_arr[i]} ({_distance_text(dist_m[i])})" for i in bad[:10])
+    more = f" and {len(bad) - 10} more" if len(bad) > 10 else ""
+    count = f"{len(bad)} {what} lie" if len(bad) > 1 else f"1 of the {what} lies"
+    # tens of kilometres off is a coordinate mistake, not a point beside the road
+    hint = (
+        "check that lon and lat are not swapped and that the network covers them"
+        if np.nanmax(np.where(np.isfinite(dist_m[bad]), dist_m[bad], np.nan), initial=0.0) > FAR_OFF_M
+        else "move them onto a road, check their coordinates, or raise the snap limit"
+    )
+    return OffNetworkError(f"{count} farther than {max_snap_m:g} m from any road: {shown}{more}; {hint}.")
+
+
 def snap_points(
     net: RoadNetwork,
     points: object,
@@ -263,17 +279,7 @@ def snap_points(
     on = piece >= 0
 
     if not on.all() and off_network == "raise":
-        bad = np.flatnonzero(~on)
-        shown = ", ".join(f"{id_arr[i]} ({_distance_text(dist_m[i])})" for i in bad[:10])
-        more = f" and {len(bad) - 10} more" if len(bad) > 10 else ""
-        count = f"{len(bad)} {what} lie" if len(bad) > 1 else f"1 of the {what} lies"
-        # tens of kilometres off is a coordinate mistake, not a point beside the road
-        hint = (
-            "check that lon and lat are not swapped and that the network covers them"
-            if np.nanmax(np.where(np.isfinite(dist_m[bad]), dist_m[bad], np.nan), initial=0.0) > FAR_OFF_M
-            else "move them onto a road, check their coordinates, or raise the snap limit"
-        )
-        raise OffNetworkError(f"{count} farther than {max_snap_m:g} m from any road: {shown}{more}; {hint}.")
+        raise _off_network_error(np.flatnonzero(~on), id_arr, dist_m, max_snap_m, what)
 
     # Entries: every directed edge of the snapped piece, with the fraction along that edge.
     on_idx = np.flatnonzero(on)
