@@ -1156,23 +1156,8 @@ def lscp(
     rows = np.flatnonzero(kfix == 0)
     af = sp.csr_array(cv.af[rows])
     wr = cv.w[rows]
-    reachable = float(cv.w.sum())
-    fixed_w = float(cv.w[kfix > 0].sum())
     tol = 1e-9 * cv.total_w
-    if target_share is None:
-        need = float(wr.sum())
-        target_w = reachable
-    else:
-        if not (isinstance(target_share, int | float) and 0 < target_share <= 1):
-            raise ModelError(f"target_share: {target_share!r} is outside (0, 1]; pass a share such as 0.95")
-        target_w = float(target_share) * cv.total_w
-        if target_w > reachable + tol:
-            raise ModelError(
-                f"target_share: {target_share:g} is above the {reachable / cv.total_w:.4f} share that all sites "
-                "together cover within the standard; lower target_share or add candidates"
-            )
-        need = target_w - fixed_w
-    m = rows.size
+    need = _lscp_need(cv, wr, target_share, tol)
     if need <= tol:
         covered, second = _mclp_eval(cv, np.zeros(0, np.int64))
         return _result(
@@ -1195,23 +1180,8 @@ def lscp(
     kept = np.flatnonzero(dom_of == np.arange(af.shape[1]))
     knum = np.full(af.shape[1], -1, dtype=np.int64)
     knum[kept] = np.arange(kept.size)
-    ak = sp.csr_array(af[:, kept])
     nk = kept.size
-    if target_share is None:
-        ak, _ = _merge_rows(sp.csr_array(ak, dtype=bool), np.ones(m))  # the same sites, the same row
-        ak = sp.csr_array(ak, dtype=float)
-        model = _milp(np.ones(nk), np.ones(nk), np.zeros(nk), np.ones(nk), [(ak, 1.0, np.inf)], maximise=False)
-    else:
-        link = sp.hstack([-ak, sp.identity(m, format="csr")], format="csr")
-        share = sp.csr_array(np.concatenate([np.zeros(nk), wr])[None, :])
-        model = _milp(
-            np.concatenate([np.ones(nk), np.zeros(m)]),
-            np.ones(nk + m),
-            np.zeros(nk + m),
-            np.ones(nk + m),
-            [(link, -np.inf, 0.0), (share, need - tol, np.inf)],
-            maximise=False,
-        )
+    model, ak = _lscp_model(sp.csr_array(af[:, kept]), wr, need - tol if target_share is not None else None)
     # greedy plus interchange first; the exact solver starts from it and the better answer is kept
     heur = _lscp_heuristic(cv, rows, af, wr, need, target_share is None, tol)
     new, method_used = heur, "heuristic"
@@ -1263,6 +1233,42 @@ def lscp(
         count,
         second_weight=second,
     )
+
+
+def _lscp_need(cv: _Cover, wr: np.ndarray, target_share: float | None, tol: float) -> float:
+    """The weight new sites must cover: every coverable row no fixed site covers, or the target's remainder."""
+    if target_share is None:
+        return float(wr.sum())
+    if not (isinstance(target_share, int | float) and 0 < target_share <= 1):
+        raise ModelError(f"target_share: {target_share!r} is outside (0, 1]; pass a share such as 0.95")
+    reachable = float(cv.w.sum())
+    target_w = float(target_share) * cv.total_w
+    if target_w > reachable + tol:
+        raise ModelError(
+            f"target_share: {target_share:g} is above the {reachable / cv.total_w:.4f} share that all sites "
+            "together cover within the standard; lower target_share or add candidates"
+        )
+    return target_w - float(cv.w[cv.kfix > 0].sum())
+
+
+def _lscp_model(ak: sp.csr_array, wr: np.ndarray, need: float | None) -> tuple[Milp, sp.csr_array]:
+    """The LSCP on the kept sites' columns ``ak``: full cover (``need`` None) or covered weight ``>= need``."""
+    m, nk = ak.shape
+    if need is None:
+        ak, _ = _merge_rows(sp.csr_array(ak, dtype=bool), np.ones(m))  # the same sites, the same row
+        ak = sp.csr_array(ak, dtype=float)
+        return _milp(np.ones(nk), np.ones(nk), np.zeros(nk), np.ones(nk), [(ak, 1.0, np.inf)], maximise=False), ak
+    link = sp.hstack([-ak, sp.identity(m, format="csr")], format="csr")
+    share = sp.csr_array(np.concatenate([np.zeros(nk), wr])[None, :])
+    model = _milp(
+        np.concatenate([np.ones(nk), np.zeros(m)]),
+        np.ones(nk + m),
+        np.zeros(nk + m),
+        np.ones(nk + m),
+        [(link, -np.inf, 0.0), (share, need, np.inf)],
+        maximise=False,
+    )
+    return model, ak
 
 
 def _lscp_heuristic(

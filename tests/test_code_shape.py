@@ -23,8 +23,6 @@ MAX_FUNCTION_LINES = 120
 ALLOWED_LONG = {
     # A numba-compiled kernel: one loop nest compiled as a whole; splitting it into calls costs speed.
     "polygon_kernels.py::band_distance",
-    # Being reworked by another change in siting.py; to be split there (then remove it from this list).
-    "siting.py::lscp",
 }
 
 
