@@ -129,8 +129,7 @@ def main() -> None:
                 t_cmp = median_of(lambda s=scenario: state.compare(s), args.repeat)
                 t_run = median_of(lambda s=scenario: w.run(s), args.repeat)
                 print(
-                    f"{label:22s} {t_http:8.3f} {t_cmp:10.3f} {t_run:13.3f} {t_http / t_run:9.2f} "
-                    f"{t_http / t_cmp:9.2f}"
+                    f"{label:22s} {t_http:8.3f} {t_cmp:10.3f} {t_run:13.3f} {t_http / t_run:9.2f} {t_http / t_cmp:9.2f}"
                 )
         server.should_exit = True
         thread.join(timeout=10)
