@@ -18,7 +18,7 @@ import pandas as pd
 
 from coverkit import CAUTION
 from coverkit.atomic import write_csv_atomic, write_gpkg_layers
-from coverkit.demand_sources import row_word
+from coverkit.demand_sources import row_word, unit_word
 from coverkit.errors import CoverkitError
 from coverkit.layer_names import layer_name, output_file
 from coverkit.network.model import RoadNetwork
@@ -215,7 +215,7 @@ class CompareRun:
         kinds = {d.name: d.kind for d in self.study.demand}
         words = {d.name: row_word(d.source_kind) for d in self.study.demand}
         for (_std, dem), comp in self.comparisons.items():
-            unit = "people" if kinds.get(dem) == "residents" else "calls"
+            unit = unit_word(kinds.get(dem))
             out.extend(f"[{dem}] {line}" for line in comp.lines(unit, words.get(dem, "points")))
         return [*out, CAUTION]
 

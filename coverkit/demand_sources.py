@@ -59,6 +59,21 @@ NAMES: tuple[str, ...] = tuple(BY_NAME)
 POPULATION_SOURCES: tuple[str, ...] = tuple(s.name for s in DEMAND_SOURCES if s.spreads_population)
 
 
+#: What each demand kind is counted in: residents in people, incidents in calls.
+KIND_UNITS: dict[str, str] = {"residents": "people", "incidents": "calls"}
+
+
+def unit_word(kind: str | None) -> str:
+    """What demand of ``kind`` is counted in (``people``, ``calls``); ``calls`` for any kind but residents."""
+    return KIND_UNITS["residents"] if kind == "residents" else KIND_UNITS["incidents"]
+
+
+def kind_of_source(source: str) -> str:
+    """The demand kind of a source when none is given (``residents`` for rasters and polygons, ``incidents`` for
+    points)."""
+    return BY_NAME[source].default_kind if source in BY_NAME else "residents"
+
+
 def row_word(source: str) -> str:
     """What a demand point of ``source`` is called (``cells``, ``points``); ``points`` for an unknown source."""
     return BY_NAME[source].row_word if source in BY_NAME else "points"

@@ -10,7 +10,6 @@ Results are planning estimates, not for live dispatch or routing (see ``coverkit
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 import pandas as pd
 
 from coverkit.coverage import DEFAULT_CELL_M, DEFAULT_REACH_M, GAP_COUNT_PREFIX, Standard
+from coverkit.demand_sources import kind_of_source, row_word, unit_word
 from coverkit.errors import FieldError, InputFileError
 from coverkit.layer_names import layer_name
 
@@ -32,13 +32,10 @@ if TYPE_CHECKING:
     from coverkit.settings import AvailabilitySettings, SitingSettings
     from coverkit.site_plan import SitePlan, SitingProblem
 
-#: The demand kinds: ``residents`` are counted in people, ``incidents`` in calls.
-UNIT_OF_KIND = {"residents": "people", "incidents": "calls"}
-
 
 def demand_kind(demand: gpd.GeoDataFrame) -> str:
-    """``incidents`` for point demand (calls), ``residents`` for raster or polygon demand (people)."""
-    return "incidents" if len(demand) and demand["source"].iloc[0] == "points" else "residents"
+    """The kind of a demand layer from its source (:func:`coverkit.demand_sources.kind_of_source`)."""
+    return kind_of_source(demand["source"].iloc[0]) if len(demand) else "residents"
 
 
 # -- zones ------------------------------------------------------------------------------------------------------------
@@ -149,8 +146,8 @@ class CoverageStage:
         name = demand or next(iter(self.results))
         res, kind = self.results[name], self.kinds[name]
         s = res.summary()
-        unit = UNIT_OF_KIND[kind]
-        where_word = "cells" if len(res.demand) and res.demand["source"].iloc[0] == "raster" else "points"
+        unit = unit_word(kind)
+        where_word = row_word(res.demand["source"].iloc[0]) if len(res.demand) else "points"
         frac = s["fractile_response_s"]
         frac_text = "not reached" if frac == float("inf") else f"{frac:,.0f} s ({frac / 60:.1f} min)"
         verdict = "meets" if s["meets_standard"] else "misses"
@@ -429,8 +426,3 @@ class CalibrationStage:
             f"calibration on {c.n_used} observed responses: mean absolute error "
             f"{c.error('before', 'mae_s', 'all'):.0f} s -> {c.error('after', 'mae_s', 'all'):.0f} s{written}"
         )
-
-
-def minutes_text(seconds: float) -> str:
-    """``"7.5 min"``, or ``"not reached"`` for an infinite time."""
-    return "not reached" if not math.isfinite(seconds) else f"{seconds / 60:.1f} min"

@@ -33,6 +33,7 @@ from coverkit.stages import (
     CoverageStage,
     SitingStage,
     availability_stage,
+    check_zones,
     coverage_stage,
     read_zones,
     siting_problem,
@@ -206,18 +207,12 @@ def _file(folder: Path, value: str, key: str, where: str) -> Path:
 
 
 def _check_zone_field(zones: dict[str, Any], where: str) -> None:
-    """The zones layer must be readable and hold ``zones.id_field`` (checked before any work is done)."""
-    import pyogrio
-
+    """The zones layer must be readable and hold ``zones.id_field`` (checked before any work is done, by the same
+    check ``cover --zones`` gets: :func:`coverkit.stages.check_zones`)."""
     try:
-        fields = list(pyogrio.read_info(zones["file"], layer=zones.get("layer"))["fields"])
-    except Exception as exc:
-        raise StudyError(f"{where}: zones.file {zones['file']} is not a readable layer ({str(exc)[:60]}).") from None
-    if zones["id_field"] not in fields:
-        raise StudyError(
-            f"{where}: zones.id_field '{zones['id_field']}' is not a field of {Path(zones['file']).name}; "
-            f"its fields are {', '.join(fields)}."
-        )
+        check_zones(zones["file"], zones["id_field"], layer=zones.get("layer"))
+    except CoverkitError as exc:
+        raise StudyError(f"{where}: [zones] {exc}") from None
 
 
 def load_study(path: str | Path) -> Study:
@@ -775,7 +770,7 @@ def headline_lines(run: StudyRun) -> list[str]:
     for r in run.summary.itertuples(index=False):
         frac = r.fractile_response_s
         frac_text = "not reached" if frac == float("inf") else f"{frac / 60:.1f} min"
-        unit = "people" if r.kind == "residents" else "calls"
+        unit = demand_sources.unit_word(r.kind)
         lines.append(
             f"{r.standard:<22} {r.demand:<12} covered {r.covered_share * 100:5.1f} % "
             f"({r.covered:,.0f} of {r.demand_total:,.0f} {unit}); {r.fractile * 100:g}th percentile response "

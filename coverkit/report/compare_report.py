@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from coverkit import CAUTION, __version__
-from coverkit.demand_sources import row_word
+from coverkit.demand_sources import row_word, unit_word
 from coverkit.layer_names import map_file, output_file, slug
 from coverkit.report.html import HtmlReport
 from coverkit.report.maps import MapFrame, difference_map, gaps_map, study_frame
@@ -73,7 +73,7 @@ def write_compare_report(run: CompareRun, folder: Path) -> dict[str, Path]:
         s = slug(std_name)
         std = next(st for st in run.study.standards if st.name == std_name)
         poly = ca.polygons.copy()
-        unit = "people" if kinds.get(residents) == "residents" else "calls"
+        unit = unit_word(kinds.get(residents))
         if len(poly):
             poly["coverage_change"] = np.where(poly["change"] == "gained", 1.0, -1.0) * poly["weight"]
             path = difference_map(
@@ -114,7 +114,7 @@ def write_compare_report(run: CompareRun, folder: Path) -> dict[str, Path]:
 
     rep = HtmlReport(f"{run.study.name} - scenario: {run.scenario.name}")
     first = run.summary.iloc[0]
-    first_unit = "people" if kinds.get(first["demand"]) == "residents" else "calls"
+    first_unit = unit_word(kinds.get(first["demand"]))
     rep.add_key_figures(
         {
             f"covered before ({first['standard']}, {first['demand']})": f"{first['covered_share_before'] * 100:.1f} %",
