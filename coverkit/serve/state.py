@@ -21,10 +21,10 @@ from coverkit.compare_run import comparison_rows, whatif_from_study
 from coverkit.coverage import grid_polygons
 from coverkit.errors import StudyError
 from coverkit.progress import Steps
-from coverkit.scenario import Scenario, changed_areas, compare_results
+from coverkit.scenario import ChangedAreas, Comparison, Scenario, changed_areas, compare_results
 from coverkit.stages import CoverageStage, coverage_stage
 from coverkit.study import load_study, study_area
-from coverkit.whatif import WhatIf
+from coverkit.whatif import WhatIf, WhatIfOutcome
 
 #: Decimal places of degrees in GeoJSON (about 0.1 m: finer than any snap limit).
 COORD_DIGITS = 6
@@ -185,9 +185,10 @@ class BaseState:
             raise StudyError(f"query 'standard': '{name}' is not a standard; use one of {', '.join(self.stages)}.")
         return name
 
-    def compare(self, scenario: Scenario, standard: str | None = None) -> dict[str, Any]:
-        """The comparison rows of ``scenario`` (the columns of ``comparison.csv``), its change lines, the changed
-        areas of one standard (residents) and the map after the change, as JSON-ready values."""
+    def evaluate(self, scenario: Scenario, standard: str | None = None) -> Evaluation:
+        """``scenario`` on the base state: the what-if outcome, one comparison per standard and demand layer and the
+        changed areas of one standard (residents, with the calls counted), as Python objects (nothing is written
+        into the base state)."""
         std = self.standard_name(standard)
         w = self.whatif
         outcome = w.run(scenario)
@@ -195,7 +196,6 @@ class BaseState:
         comparisons = {k: compare_results(w.results[k], outcome.results[k]) for k in keys}
         if all(c.unchanged for c in comparisons.values()) and not len(outcome.changes.base_changes):
             outcome.changes.notes.append("coverage unchanged: no travel time to any demand point changed")
-        rows = [{k: _clean(v) for k, v in r.items()} for r in comparison_rows(scenario.name, comparisons, self.kinds)]
         # the grid cells keep their snap; their times after come from the outcome's node times (no new search)
         grid_after = dataclasses.replace(
             self.grid,
@@ -212,11 +212,19 @@ class BaseState:
             calls_before=w.results[(std, inc)] if inc else None,
             calls_after=outcome.results[(std, inc)] if inc else None,
         )  # fmt: skip
+        return Evaluation(scenario, std, outcome, comparisons, ca)
+
+    def compare(self, scenario: Scenario, standard: str | None = None) -> dict[str, Any]:
+        """The comparison rows of ``scenario`` (the columns of ``comparison.csv``), its change lines, the changed
+        areas of one standard (residents) and the map after the change, as JSON-ready values."""
+        ev = self.evaluate(scenario, standard)
+        outcome, ca = ev.outcome, ev.changed
+        rows = comparison_rows(scenario.name, ev.comparisons, self.kinds)
         return {
             "scenario": scenario.name,
-            "rows": rows,
+            "rows": [{k: _clean(v) for k, v in r.items()} for r in rows],
             "changes": outcome.changes.lines(),
-            "standard": std,
+            "standard": ev.standard,
             "changed_areas": geojson(ca.polygons, ["area_id", "change", "weight", "points", "incidents", "area_km2"]),
             "bases_after": geojson(outcome.bases, ["id", "name", "units"]),
             "closed_roads": geojson(outcome.changes.closed, ["edge_id", "way_id", "name", "road_class", "length_m"]),
@@ -225,4 +233,15 @@ class BaseState:
         }
 
 
-__all__ = ["BaseState", "geojson"]
+@dataclasses.dataclass(frozen=True)
+class Evaluation:
+    """One scenario evaluated on a :class:`BaseState` (see :meth:`BaseState.evaluate`)."""
+
+    scenario: Scenario
+    standard: str
+    outcome: WhatIfOutcome
+    comparisons: dict[tuple[str, str], Comparison]
+    changed: ChangedAreas
+
+
+__all__ = ["BaseState", "Evaluation", "geojson"]
