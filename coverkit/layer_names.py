@@ -34,6 +34,8 @@ KINDS: dict[str, tuple[str, str]] = {
     "third_due": ("third_due_{standard}", "area each base reaches third"),
     "gaps": ("gaps_{standard}", "contiguous areas not covered within the standard, largest first"),
     "single_cover": ("single_cover_{standard}", "areas reached by exactly one base within the standard"),
+    "depth": ("depth_{standard}", "coverage depth areas: how many bases reach each place within the standard"),
+    "road_minutes": ("road_minutes", "per road piece: minutes from the nearest base (serve export)"),
     "summary": ("summary", "one row per standard and demand layer: covered share, fractile response"),
     "rejected": ("rejected_{demand}", "point rows set aside (no usable position), with the reason"),
     "site_chosen": ("site_chosen", "chosen new sites and what each adds"),

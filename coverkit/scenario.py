@@ -10,6 +10,9 @@ A scenario file (TOML, keys our own, paths relative to the file) lists changes::
     way_ids = [90]              # OSM way ids (the edges' source_id)
     only_bridges = false        # true: keep only the bridge edges among those selected
 
+    [[closure]]                 # a polygon: a file (relative path) or inline GeoJSON geometry in degrees
+    polygon = { type = "Polygon", coordinates = [[[-35.03, 41.0], [-35.02, 41.0], [-35.02, 41.01]]] }
+
     [[slowdown]]                # road_class and/or polygon (both given: edges matching both)
     road_class = ["residential", "unclassified"]
     factor = 1.5                # multiplies the running time; > 1 slows, < 1 speeds up
@@ -51,6 +54,7 @@ from coverkit.coverage import (
     per_base,
 )
 from coverkit.errors import StudyError
+from coverkit.inline_polygon import INLINE_CRS, inline_polygon
 from coverkit.network.model import GEOMETRY_CACHE, RoadNetwork
 from coverkit.tomlcheck import Schema, check_sections, check_table, read_toml
 from coverkit.travel import nearest_sources
@@ -65,13 +69,13 @@ _SCHEMA: dict[str, Schema] = {
         "edge_ids": ((list,), False),
         "way_ids": ((list,), False),
         "road_name": ((str, list), False),
-        "polygon": ((str,), False),
+        "polygon": ((str, dict), False),
         "only_bridges": ((bool,), False),
         "note": ((str,), False),
     },
     "slowdown": {
         "road_class": ((str, list), False),
-        "polygon": ((str,), False),
+        "polygon": ((str, dict), False),
         "factor": (_NUM, True),
         "note": ((str,), False),
     },
@@ -92,6 +96,8 @@ _BASE_CHANGE_KEYS: dict[str, Schema] = {
 _CLOSURE_SELECTORS = ("edge_ids", "way_ids", "road_name", "polygon")
 _LIST_SECTIONS = ("closure", "slowdown", "base_change")
 
+#: How messages name an inline polygon (where a file polygon shows its path).
+INLINE_NAME = "(inline, EPSG:4326)"
 #: Road inside a polygon shorter than this (m) does not count: the road only touches the polygon.
 _MIN_CUT_M = 1e-6
 
@@ -209,7 +215,9 @@ def load_scenario(path: str | Path) -> Scenario:
     return scenario_from_table(raw, path=path)
 
 
-def scenario_from_table(raw: Any, *, path: Path | None = None, where: str | None = None) -> Scenario:
+def scenario_from_table(
+    raw: Any, *, path: Path | None = None, where: str | None = None, allow_empty: bool = False
+) -> Scenario:
     """Validate parsed scenario tables (the file's schema, e.g. a TOML file read or a JSON body) into a Scenario.
 
     Parameters
@@ -217,10 +225,12 @@ def scenario_from_table(raw: Any, *, path: Path | None = None, where: str | None
     raw
         The top-level tables: ``scenario``, ``closure``, ``slowdown``, ``base_change``.
     path
-        The scenario file; its folder resolves polygon files. Without a path a ``polygon`` key is refused (a
-        request body may not name a file on the machine).
+        The scenario file; its folder resolves polygon files. Without a path a ``polygon`` naming a file is
+        refused (a request body may not name a file on the machine); an inline polygon table is read anywhere.
     where
         How messages name the source (default: the path).
+    allow_empty
+        Accept a scenario that changes nothing (it then means the base state).
 
     Raises
     ------
@@ -237,14 +247,18 @@ def scenario_from_table(raw: Any, *, path: Path | None = None, where: str | None
     for section in _LIST_SECTIONS:
         if section in raw and not isinstance(raw[section], list):
             raise StudyError(f"{where}: [{section}] must be written [[{section}]] (one or more entries).")
-    if not any(raw.get(s) for s in _LIST_SECTIONS):
+    if not allow_empty and not any(raw.get(s) for s in _LIST_SECTIONS):
         raise StudyError(f"{where}: the scenario changes nothing; add a [[closure]], [[slowdown]] or [[base_change]].")
     folder = path.parent if path is not None else None
 
-    def polygon(value: str, key: str) -> tuple[Any, Any]:
+    def polygon(value: str | dict, key: str) -> tuple[Any, Any]:
+        if isinstance(value, dict):
+            return inline_polygon(value, key, where), INLINE_CRS
         if folder is None:
-            raise StudyError(f"{where}: key '{key}' names a file, which is refused here; close roads by road_name, "
-                             "way_ids or edge_ids.")  # fmt: skip
+            raise StudyError(
+                f"{where}: key '{key}' names a file, which is refused here; give the polygon inline (a GeoJSON "
+                "Polygon table in degrees) or close roads by road_name, way_ids or edge_ids."
+            )
         return _read_polygon(folder, value, key, where)
 
     closures = []
@@ -265,7 +279,8 @@ def scenario_from_table(raw: Any, *, path: Path | None = None, where: str | None
             values = _str_list(item[kind], f"{key}.road_name", where)
         else:
             poly, crs = polygon(item["polygon"], f"{key}.polygon")
-            values = (str((folder / item["polygon"]).resolve()),)
+            inline = isinstance(item["polygon"], dict)
+            values = (INLINE_NAME if inline else str((folder / item["polygon"]).resolve()),)
         closures.append(
             Closure(i, kind, values, poly, crs, bool(item.get("only_bridges", False)), item.get("note", ""))
         )
@@ -327,28 +342,38 @@ def scenario_from_table(raw: Any, *, path: Path | None = None, where: str | None
     )  # fmt: skip
 
 
+def _toml_key(key: str) -> str:
+    """A table key in TOML: bare when it may be, else a quoted (JSON-escaped) string."""
+    import json
+    import re
+
+    return key if re.fullmatch(r"[A-Za-z0-9_-]+", key) else json.dumps(key, ensure_ascii=False)
+
+
 def _toml_value(value: Any) -> str:
-    """One value of a scenario table in TOML (strings JSON-escaped, which TOML basic strings read alike)."""
+    """One value of a scenario table in TOML (strings JSON-escaped, which TOML basic strings read alike; nested
+    arrays and inline tables, e.g. an inline polygon's coordinates, written on one line as TOML 1.0 requires for
+    inline tables)."""
     import json
 
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, int | float):
-        return repr(value)
+        return repr(value)  # Python's float repr (1e-05, inf) is a TOML float that reads back to the same value
     if isinstance(value, str):
         return json.dumps(value, ensure_ascii=False)
     if isinstance(value, list):
         return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    return "{ " + ", ".join(f"{k} = {_toml_value(v)}" for k, v in value.items()) + " }"
+    return "{ " + ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items()) + " }"
 
 
 def scenario_text(raw: dict[str, Any]) -> str:
     """Scenario tables (validated by :func:`scenario_from_table`) as the text of a scenario file that
     :func:`load_scenario` reads back unchanged."""
-    lines = ["[scenario]", *(f"{k} = {_toml_value(v)}" for k, v in raw["scenario"].items())]
+    lines = ["[scenario]", *(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in raw["scenario"].items())]
     for section in _LIST_SECTIONS:
         for item in raw.get(section, []):
-            lines += ["", f"[[{section}]]", *(f"{k} = {_toml_value(v)}" for k, v in item.items())]
+            lines += ["", f"[[{section}]]", *(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in item.items())]
     return "\n".join(lines) + "\n"
 
 

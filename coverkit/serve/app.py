@@ -3,7 +3,9 @@
 Routes: ``GET /`` (the page), ``GET /static/...``, ``GET /api/study``, ``GET /api/layers/{name}`` (``roads``,
 ``bases``, ``boundary``, ``candidates``; ``gaps``, ``first_due``, ``depth`` with ``?standard=``), ``POST
 /api/compare`` (a scenario as JSON, ``?standard=`` for the changed areas) and ``POST /api/scenario.toml`` (the
-same body as a scenario file). Every answer is a planning estimate (see ``coverkit.CAUTION``).
+same body as a scenario file); :mod:`coverkit.serve.routes_more` adds the demand density layer, ``/api/rank``,
+``/api/scenario/read``, ``/api/export.gpkg`` and ``/api/openapi.json``. Every answer is a planning estimate (see
+``coverkit.CAUTION``).
 """
 
 from __future__ import annotations
@@ -22,8 +24,11 @@ from starlette.staticfiles import StaticFiles
 
 from coverkit.errors import CoverkitError
 from coverkit.scenario import scenario_from_table, scenario_text
+from coverkit.serve.rank import study_candidates
+from coverkit.serve.routes_more import more_routes
 from coverkit.serve.security import Guard
 from coverkit.serve.state import BaseState
+from coverkit.serve.study_extras import study_extras
 
 STATIC = Path(__file__).parent / "static"
 #: Whole numbers in a body must be exact in JavaScript too (2**53, the largest safe integer there).
@@ -83,8 +88,10 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
     async def page(request: Request) -> Response:
         return FileResponse(STATIC / "index.html", headers={"Cache-Control": "no-store"})
 
+    extras = study_extras(state)
+
     async def study(request: Request) -> Response:
-        return JSONResponse(state.info)
+        return JSONResponse({**state.info, **extras})
 
     async def layer(request: Request) -> Response:
         name = request.path_params["name"]
@@ -120,6 +127,7 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
     routes = [
         Route("/", page),
         Route("/api/study", study),
+        *more_routes(state, lock, _scenario_body, study_candidates(state), _check_numbers),
         Route("/api/layers/{name}", layer),
         Route("/api/compare", compare, methods=["POST"]),
         Route("/api/scenario.toml", scenario_file, methods=["POST"]),
