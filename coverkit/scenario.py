@@ -300,46 +300,46 @@ def scenario_from_table(
             poly, crs = polygon(item["polygon"], f"{key}.polygon")
         slowdowns.append(Slowdown(i, factor, classes, poly, crs, item.get("note", "")))
 
-    changes = []
-    for i, item in enumerate(raw.get("base_change", [])):
-        key = f"base_change[{i}]"
-        check_table(item, _SCHEMA["base_change"], key, where)
-        given = [k for k in ("add", "remove", "move", "units") if k in item]
-        if len(given) != 1:
-            raise StudyError(f"{where}: {key} needs exactly one of add, remove, move, units; write one per entry.")
-        action = given[0]
-        if action == "remove":
-            if not item["remove"].strip():
-                raise StudyError(f"{where}: key '{key}.remove' must name a base id.")
-            changes.append(BaseChange(i, "remove", item["remove"].strip(), note=item.get("note", "")))
-            continue
-        sub = item[action]
-        check_table(sub, _BASE_CHANGE_KEYS[action], f"{key}.{action}", where)
-        for coord, bound in (("lon", 180.0), ("lat", 90.0)):
-            if coord in sub and not (-bound <= float(sub[coord]) <= bound):
-                raise StudyError(
-                    f"{where}: key '{key}.{action}.{coord}' is {sub[coord]}, outside -{bound:g}..{bound:g}; give "
-                    "degrees (EPSG:4326)."
-                )
-        if "units" in sub and sub["units"] < 0:
-            raise StudyError(f"{where}: key '{key}.{action}.units' must be a whole number >= 0, got {sub['units']}.")
-        changes.append(
-            BaseChange(
-                i,
-                action,
-                sub["id"].strip(),
-                float(sub["lon"]) if "lon" in sub else None,
-                float(sub["lat"]) if "lat" in sub else None,
-                int(sub["units"]) if "units" in sub else None,
-                sub.get("name"),
-                item.get("note", ""),
-            )
-        )
+    changes = [_base_change(i, item, where) for i, item in enumerate(raw.get("base_change", []))]
     scen = raw["scenario"]
     return Scenario(
         path or Path(where), scen["name"], scen.get("description", ""), tuple(closures), tuple(slowdowns),
         tuple(changes),
     )  # fmt: skip
+
+
+def _base_change(i: int, item: Any, where: str) -> BaseChange:
+    """One ``[[base_change]]`` entry checked (one action; lon/lat in degrees; units >= 0)."""
+    key = f"base_change[{i}]"
+    check_table(item, _SCHEMA["base_change"], key, where)
+    given = [k for k in ("add", "remove", "move", "units") if k in item]
+    if len(given) != 1:
+        raise StudyError(f"{where}: {key} needs exactly one of add, remove, move, units; write one per entry.")
+    action = given[0]
+    if action == "remove":
+        if not item["remove"].strip():
+            raise StudyError(f"{where}: key '{key}.remove' must name a base id.")
+        return BaseChange(i, "remove", item["remove"].strip(), note=item.get("note", ""))
+    sub = item[action]
+    check_table(sub, _BASE_CHANGE_KEYS[action], f"{key}.{action}", where)
+    for coord, bound in (("lon", 180.0), ("lat", 90.0)):
+        if coord in sub and not (-bound <= float(sub[coord]) <= bound):
+            raise StudyError(
+                f"{where}: key '{key}.{action}.{coord}' is {sub[coord]}, outside -{bound:g}..{bound:g}; give "
+                "degrees (EPSG:4326)."
+            )
+    if "units" in sub and sub["units"] < 0:
+        raise StudyError(f"{where}: key '{key}.{action}.units' must be a whole number >= 0, got {sub['units']}.")
+    return BaseChange(
+        i,
+        action,
+        sub["id"].strip(),
+        float(sub["lon"]) if "lon" in sub else None,
+        float(sub["lat"]) if "lat" in sub else None,
+        int(sub["units"]) if "units" in sub else None,
+        sub.get("name"),
+        item.get("note", ""),
+    )
 
 
 def _toml_key(key: str) -> str:

@@ -31,6 +31,31 @@ file = "{DEMO / "stations.csv"}"
 """
 
 
+def demo_serve_study(folder: Path, name: str = "serve test", extra: str = "") -> Path:
+    """A study file on the demo county for `coverkit serve` tests: residents (raster), calls (incidents), one
+    standard (ALS 8 min: 60 s turnout, 480 s travel), outputs in ``folder``, plus ``extra`` tables."""
+    path = folder / "study.toml"
+    path.write_text(
+        demo_study_head(name)
+        + f"""
+[[demand]]
+name = "residents"
+raster = "{DEMO / "population.tif"}"
+[[demand]]
+name = "calls"
+points = "{DEMO / "incidents.csv"}"
+kind = "incidents"
+[[standard]]
+name = "ALS 8 min"
+turnout_s = 60
+travel_s = 480
+[outputs]
+folder = "{folder / "out"}"
+{extra}"""
+    )
+    return path
+
+
 @pytest.fixture(autouse=True)
 def _quiet():
     set_quiet(True)
