@@ -394,3 +394,18 @@ def test_fuzzed_scenario_text_never_500(client, state, body, junk):
         if r.status_code == 422:
             assert "\n" not in r.json()["error"]
     assert fingerprint(state) == before
+
+
+def test_deep_nesting_is_a_one_line_422(client, state):
+    """Nesting deeper than Python's recursion limit allows a walk of (JSON nearly 1,000 deep, TOML a few hundred):
+    a 422, never a 500."""
+    before = fingerprint(state)
+    deep = 990
+    body = ('{"scenario": {"name": "x"}, "closure": ' + "[" * deep + "]" * deep + "}").encode()
+    for path in ("/api/rank", "/api/export.gpkg", "/api/compare"):
+        r = client.post(f"{path}?token={TOKEN}", content=body)
+        assert r.status_code == 422 and "\n" not in r.json()["error"], (path, r.text)
+    text = '[scenario]\nname = "x"\n[[closure]]\npolygon = ' + "[" * 600 + "]" * 600 + "\n"
+    r = client.post(f"/api/scenario/read?token={TOKEN}", content=text.encode())
+    assert r.status_code == 422 and "nested too deep" in r.json()["error"]
+    assert fingerprint(state) == before

@@ -61,7 +61,10 @@ async def _scenario_body(request: Request) -> dict[str, Any]:
         raise CoverkitError("request body: not JSON; send the scenario file's tables as a JSON object.") from None
     if not isinstance(body, dict):
         raise CoverkitError("request body: a scenario is a JSON object with 'scenario' and its changes.")
-    _check_numbers(body, "")
+    try:
+        _check_numbers(body, "")
+    except RecursionError:  # json reads deeper nesting than a check walking it can: no scenario nests so deep
+        raise CoverkitError("request body: nested too deep for a scenario; send the scenario file's tables.") from None
     return body
 
 
@@ -104,6 +107,7 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
         if name in _SCALAR_LAYERS and name in state.layers:
             return JSONResponse(state.layers[name])
         known = [n for n in (*_SCALAR_LAYERS, *_STANDARD_LAYERS) if n in state.layers or n in _STANDARD_LAYERS]
+        known.append("demand")  # served by coverkit.serve.routes_more
         return _error(404, f"no layer '{name}'; layers are {', '.join(known)}.")
 
     async def compare(request: Request) -> Response:

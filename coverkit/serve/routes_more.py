@@ -49,6 +49,8 @@ def read_scenario_text(raw: bytes) -> dict[str, Any]:
         tables = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise StudyError(f"{_READ_WHERE}: not valid TOML ({str(exc).splitlines()[0]}); fix the syntax.") from None
+    except RecursionError:  # arrays nested hundreds deep: tomllib reads them recursively
+        raise StudyError(f"{_READ_WHERE}: arrays nested too deep for a scenario; fix the file.") from None
     scenario_from_table(tables, where=_READ_WHERE)
     return tables
 
