@@ -57,7 +57,9 @@ def candidate_times(state: Any, net: Any, candidates: gpd.GeoDataFrame, demand: 
     """Travel times (s, sparse (n_candidates, n_points), within the what-if horizon) from every candidate to the
     points of ``demand`` on ``net``, and the candidates' on-network flags (an off-network candidate has no row)."""
     w = state.whatif
-    snap = snap_points(net, candidates, max_snap_m=w.base_snap_m, off_network="mask", what="candidates")
+    snap = snap_points(
+        net, candidates, max_snap_m=w.base_snap_m, off_network="mask", what="candidates", warn_islands=False
+    )
     on = np.asarray(snap.on_network, dtype=bool)
     rows = np.flatnonzero(on)
     pts = w.point_snap[demand]
