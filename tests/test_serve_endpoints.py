@@ -207,8 +207,13 @@ def test_rank_top_is_the_one_site_covering_optimum(client, state):
     assert top["covered_after"] == pytest.approx(best.covered_weight, rel=1e-9)
 
 
-def test_rank_refusals(client, state):
+def test_rank_refusals(client, state, monkeypatch):
     before = fingerprint(state)
+    # a study without a candidates file: the app gets no candidates
+    monkeypatch.setattr("coverkit.serve.app.study_candidates", lambda state: None)
+    bare = TestClient(create_app(state, token=TOKEN, hosts={"testserver"}))
+    r = post(bare, "/api/rank", REMOVE_S3)
+    assert r.status_code == 422 and "no candidate sites" in r.json()["error"]
     r = post(client, "/api/rank?demand=nope", REMOVE_S3)
     assert r.status_code == 422 and "query 'demand'" in r.json()["error"]
     r = post(client, "/api/rank?standard=nope", REMOVE_S3)
