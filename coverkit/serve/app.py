@@ -131,7 +131,9 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
     routes = [
         Route("/", page),
         Route("/api/study", study),
-        *more_routes(state, lock, _scenario_body, study_candidates(state), _check_numbers),
+        *more_routes(
+            state, lock=lock, body_of=_scenario_body, candidates=study_candidates(state), check_numbers=_check_numbers
+        ),
         Route("/api/layers/{name}", layer),
         Route("/api/compare", compare, methods=["POST"]),
         Route("/api/scenario.toml", scenario_file, methods=["POST"]),

@@ -74,9 +74,21 @@ def candidate_times(state: Any, net: Any, candidates: gpd.GeoDataFrame, demand: 
     return on, times
 
 
-def rank_answer(state: Any, candidates: gpd.GeoDataFrame | None, scenario: Scenario, standard: str, demand: str
-                ) -> dict[str, Any]:  # fmt: skip
+def rank_answer(
+    state: Any, candidates: gpd.GeoDataFrame | None, scenario: Scenario, standard: str, demand: str
+) -> dict[str, Any]:
     """The JSON answer of ``/api/rank``: ``covered_now`` and, per candidate, the demand it newly covers.
+
+    Parameters
+    ----------
+    state
+        The :class:`coverkit.serve.state.BaseState`.
+    candidates
+        The study's candidate sites (:func:`study_candidates`), or None.
+    scenario
+        The changes in place (none: the base state).
+    standard, demand
+        The standard and the demand layer ranked on (names checked by the caller).
 
     Raises
     ------

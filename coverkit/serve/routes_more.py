@@ -56,7 +56,7 @@ def read_scenario_text(raw: bytes) -> dict[str, Any]:
 
 
 def more_routes(
-    state: Any, lock: threading.Lock, body_of: Callable, candidates: Any, check_numbers: Callable
+    state: Any, *, lock: threading.Lock, body_of: Callable, candidates: Any, check_numbers: Callable
 ) -> list[Route]:
     """The routes of this module, sharing ``lock`` (one what-if at a time), the body reader ``body_of`` and the
     whole-number check ``check_numbers`` of :mod:`coverkit.serve.app`; ``candidates`` are the study's sites."""
