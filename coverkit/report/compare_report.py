@@ -128,6 +128,14 @@ def write_compare_report(run: CompareRun, folder: Path) -> dict[str, Path]:
     if run.scenario.description:
         rep.add_paragraph(run.scenario.description)
     rep.add_list(run.changes.lines() or ["no change"])
+    from coverkit.report.web_map import compare_map, map_html
+
+    rep.add_heading("Interactive map")
+    rep.add_paragraph(
+        "Pan and zoom; switch between before and after; hover a base or an area for its figures. "
+        "The printable maps follow below."
+    )
+    rep.add_raw_html(map_html(compare_map(run)))
     rep.add_heading("Before and after")
     table = run.summary[
         [

@@ -1,8 +1,9 @@
 """A self-contained, printable HTML report: headings, text, tables, embedded PNG maps and the caution.
 
-The page has its own small stylesheet, no scripts and no external assets: images are embedded as base64
-``data:`` URIs, so one file can be mailed, archived or printed as it is. Output depends only on what was added:
-no date is printed unless ``generated_at`` is given, so two runs on the same inputs give identical files.
+The page has its own small stylesheet and no external assets (the interactive map's scripts are inlined); images
+are embedded as base64 ``data:`` URIs, so one file can be mailed, archived or printed as it is. Output depends only
+on what was added: no date is printed unless ``generated_at`` is given, so two runs on the same inputs give
+identical files.
 """
 
 from __future__ import annotations
@@ -163,6 +164,11 @@ class HtmlReport:
         self._body.append(
             f'<figure><img src="{uri}" alt="{_esc(caption)}"><figcaption>{_esc(caption)}</figcaption></figure>'
         )
+
+    def add_raw_html(self, markup: str) -> None:
+        """Add ``markup`` as it is (not escaped): for trusted blocks built by coverkit itself, such as the inlined
+        interactive map (:mod:`coverkit.report.web_map`). The report stays one file: nothing may be fetched."""
+        self._body.append(str(markup))
 
     def add_caution(self, text: str = coverkit.CAUTION) -> None:
         """Add a caution to the boxed cautions shown under the title and at the end (each text once)."""

@@ -245,6 +245,17 @@ def _assumptions(page: ReportPage) -> None:
     )
 
 
+def _web_map(page: ReportPage) -> None:
+    from coverkit.report.web_map import map_html, study_map
+
+    page.rep.add_heading("Interactive map")
+    page.rep.add_paragraph(
+        "Pan and zoom; pick a standard and the layers; hover a base or an area for its figures. "
+        "The printable maps follow below."
+    )
+    page.rep.add_raw_html(map_html(study_map(page.run)))
+
+
 def _summary(page: ReportPage) -> None:
     run, rep = page.run, page.rep
     rep.add_heading("Summary")
@@ -363,6 +374,7 @@ REPORT_SECTIONS: tuple[ReportSection, ...] = (
     ReportSection("key_figures", _key_figures),
     ReportSection("inputs", _inputs),
     ReportSection("assumptions", _assumptions),
+    ReportSection("web_map", _web_map),
     ReportSection("summary", _summary),
     ReportSection("standards", _standards),
     ReportSection("siting", _siting, lambda run: run.site_plan is not None),
