@@ -20,6 +20,7 @@ from coverkit.report.html import HtmlReport
 from coverkit.report.maps import MapFrame, difference_map, gaps_map, study_frame
 from coverkit.report.study_report import gap_columns
 from coverkit.report.tables import present
+from coverkit.report.web_map import add_map_section, compare_map
 
 if TYPE_CHECKING:
     from coverkit.compare_run import CompareRun
@@ -128,14 +129,7 @@ def write_compare_report(run: CompareRun, folder: Path) -> dict[str, Path]:
     if run.scenario.description:
         rep.add_paragraph(run.scenario.description)
     rep.add_list(run.changes.lines() or ["no change"])
-    from coverkit.report.web_map import compare_map, map_html
-
-    rep.add_heading("Interactive map")
-    rep.add_paragraph(
-        "Pan and zoom; switch between before and after; hover a base or an area for its figures. "
-        "The printable maps follow below."
-    )
-    rep.add_raw_html(map_html(compare_map(run)))
+    add_map_section(rep, compare_map(run), "Pan and zoom; switch between before and after; hover a base or an area.")
     rep.add_heading("Before and after")
     table = run.summary[
         [

@@ -30,6 +30,7 @@ from coverkit.report.maps import (
     travel_surface_map,
 )
 from coverkit.report.tables import plural, present
+from coverkit.report.web_map import add_map_section, study_map
 
 if TYPE_CHECKING:
     from coverkit.study import StudyRun
@@ -246,14 +247,8 @@ def _assumptions(page: ReportPage) -> None:
 
 
 def _web_map(page: ReportPage) -> None:
-    from coverkit.report.web_map import map_html, study_map
-
-    page.rep.add_heading("Interactive map")
-    page.rep.add_paragraph(
-        "Pan and zoom; pick a standard and the layers; hover a base or an area for its figures. "
-        "The printable maps follow below."
-    )
-    page.rep.add_raw_html(map_html(study_map(page.run)))
+    intro = "Pan and zoom; pick a standard and the layers; hover a base or an area for its figures."
+    add_map_section(page.rep, study_map(page.run), intro)
 
 
 def _summary(page: ReportPage) -> None:

@@ -7,8 +7,8 @@ function coverkitMap(id) {
   const canvas = root.querySelector(".ckmap-canvas");
   const panel = root.querySelector(".ckmap-panel");
   const map = L.map(canvas, { zoomSnap: 0.25, attributionControl: false });
-  L.control.scale({ metric: true, imperial: false }).addTo(map);
-  const order = [["ck-areas", 405], ["ck-roads", 415], ["ck-changed", 425], ["ck-closed", 435]];
+  L.control.scale({ metric: true, imperial: false, position: "topright" }).addTo(map);
+  const order = [["ck-areas", 405], ["ck-roads", 415], ["ck-changed", 425], ["ck-closed", 435], ["ck-bases", 445]];
   for (const [name, z] of order) map.createPane(name).style.zIndex = String(z);
   const group = L.layerGroup().addTo(map);
   const standards = Object.keys(data.standards);
@@ -51,9 +51,10 @@ function coverkitMap(id) {
     const figs = (p.figures || {})[std] || {};
     for (const [dem, f] of Object.entries(figs)) {
       const u = data.units[dem] || "";
-      t += `<br><i>${esc(dem)}</i>: first-due ${num(f.first_due_demand)} ${u}` +
+      t += `<br><i>${esc(dem)}</i><br>&nbsp; first-due ${num(f.first_due_demand)} ${u}` +
         (f.first_due_share === null ? "" : ` (${(f.first_due_share * 100).toFixed(1)} %)`) +
-        `, covered ${num(f.first_due_covered)}; sole cover ${num(f.sole_cover)}; reaches ${num(f.reaches_in_standard)}`;
+        `, ${num(f.first_due_covered)} in standard<br>&nbsp; sole cover ${num(f.sole_cover)}; ` +
+        `reaches ${num(f.reaches_in_standard)} in standard`;
     }
     return t;
   }
@@ -94,7 +95,7 @@ function coverkitMap(id) {
         style: (f) => ({ color: roadColour(f.properties[st] ?? f.properties[data.states[0]]), weight: 2.2 }) }).addTo(group);
     }
     if (on("gaps")) {
-      L.geoJSON(layers.gaps, { pane: "ck-areas", style: { color: "#8a2342", weight: 1, fillColor: "#d0607f",
+      L.geoJSON(layers.gaps, { pane: "ck-areas", style: { color: "#9a4a12", weight: 1, fillColor: "#ee8b3a",
         fillOpacity: 0.4 }, onEachFeature: (f, l) => l.bindTooltip(gapTip(f.properties), { sticky: true }) }).addTo(group);
     }
     if (on("changed") && data.changed[std]) {
@@ -109,14 +110,15 @@ function coverkitMap(id) {
     }
     const bases = data.bases[st] || data.bases[data.states[0]];
     if (on("bases")) {
-      L.geoJSON(bases, { pointToLayer: (f, ll) => L.circleMarker(ll, { radius: 7, color: "#1f2a36", weight: 2,
-        fillColor: "#ffffff", fillOpacity: 1 }), onEachFeature: (f, l) => l.bindTooltip(baseTip(f.properties, std)) })
+      L.geoJSON(bases, { pointToLayer: (f, ll) => L.circleMarker(ll, { pane: "ck-bases", radius: 7, color: "#1f2a36",
+        weight: 2, fillColor: "#ffffff", fillOpacity: 1 }), onEachFeature: (f, l) => l.bindTooltip(baseTip(f.properties, std)) })
         .addTo(group);
     }
     if (on("labels")) {
       for (const f of bases.features) {
         const [x, y] = f.geometry.coordinates;
-        L.tooltip({ permanent: true, direction: "right", offset: [8, 0], className: "ckmap-label", interactive: false })
+        L.tooltip({ permanent: true, direction: "right", offset: [8, 0], className: "ckmap-label", interactive: false,
+          pane: "ck-bases" })
           .setLatLng([y, x]).setContent(esc(f.properties.id)).addTo(group);
       }
     }

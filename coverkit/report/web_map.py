@@ -229,6 +229,13 @@ def map_html(data: MapData, element_id: str = "ckmap") -> str:
     )
 
 
+def add_map_section(rep: Any, data: MapData, intro: str) -> None:
+    """The map's own report section on a :class:`coverkit.report.html.HtmlReport`: heading, a line, the map."""
+    rep.add_heading("Interactive map")
+    rep.add_paragraph(f"{intro} The printable maps follow below.")
+    rep.add_raw_html(map_html(data))
+
+
 def _escape(text: str) -> str:
     import html
 
@@ -300,6 +307,7 @@ __all__ = [
     "RAMP",
     "RAMP_MAX_MIN",
     "MapData",
+    "add_map_section",
     "area_layers",
     "base_layer",
     "compare_map",
