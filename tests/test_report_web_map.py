@@ -246,6 +246,38 @@ def _toggle(driver, name: str) -> int:
     return driver.execute_script(PATHS)
 
 
+#: A screen point (whole pixels) where the first hit-testable path of a pane is the topmost element.
+FIND_POINT = """
+for (const p of document.querySelectorAll(`#ckmap .leaflet-${arguments[0]}-pane path.leaflet-interactive`)) {
+  const n = p.getTotalLength(), m = p.getScreenCTM();
+  for (let k = 0; k <= 40; k++) {
+    const q = p.getPointAtLength((n * k) / 40);
+    const x = Math.round(q.x * m.a + m.e), y = Math.round(q.y * m.d + m.f);
+    if (document.elementFromPoint(x, y) === p) return [x, y];
+  }
+}
+return null;
+"""
+
+
+def _hover(driver, pane: str) -> str:
+    """Move the mouse onto a path of ``pane`` and give the tooltip text shown (base labels left out)."""
+    from selenium.webdriver.common.actions.action_builder import ActionBuilder
+
+    driver.execute_script("document.getElementById('ckmap').scrollIntoView()")
+    point = driver.execute_script(FIND_POINT, pane)
+    assert point, f"no path of the {pane} pane can be hovered"
+    action = ActionBuilder(driver)
+    action.pointer_action.move_to_location(*point)
+    action.perform()
+    tips = "return [...document.querySelectorAll('#ckmap .leaflet-tooltip:not(.ckmap-label)')].map(t => t.innerText)"
+    return _wait(driver, f"{tips}.join('\\n')")
+
+
+def _num(x: float) -> str:
+    return f"{round(x):,}"
+
+
 @pytest.mark.parametrize("which", ["study", "compare"])
 def test_map_draws_from_file(demo_run, compared, browser, which):
     path = demo_run.outputs["report"] if which == "study" else compared.outputs["report"]
@@ -270,6 +302,7 @@ def test_map_draws_from_file(demo_run, compared, browser, which):
     assert _toggle(browser, "gaps") == drawn
     n_due = len(data["standards"][std][state]["first_due"]["features"])
     assert _toggle(browser, "first_due") == drawn + n_due
+    assert _toggle(browser, "first_due") == drawn  # back to the gaps alone in the areas pane
     if which == "compare":
         # before / after: the roads take their colours from the other state's ramp stops
         colours = (
@@ -279,6 +312,26 @@ def test_map_draws_from_file(demo_run, compared, browser, which):
         after = browser.execute_script(colours)
         browser.find_element("css selector", "#ckmap input[name='state'][value='before']").click()
         _wait(browser, f"return ({colours.removeprefix('return ')}) !== {json.dumps(after)}")
+        state = "before"
+    # hover: a gap shows its number and uncovered counts, a base its per-base figures (of the state shown)
+    text = _hover(browser, "ck-areas")
+    gap_id = int(re.search(r"Gap (\d+)", text).group(1))
+    gap = next(
+        f["properties"]
+        for f in data["standards"][std][state]["gaps"]["features"]
+        if f["properties"]["gap_id"] == gap_id
+    )
+    for key in (k for k in gap if k.startswith("uncovered_")):
+        assert f"uncovered {key.removeprefix('uncovered_')}: {_num(gap[key])}" in text, (key, text)
+    text = _hover(browser, "ck-bases")
+    base = next(
+        f["properties"] for f in data["bases"][state]["features"] if re.search(rf"\b{f['properties']['id']}\b", text)
+    )
+    for figures in base["figures"][std].values():
+        assert (
+            f"first-due {_num(figures['first_due_demand'])}" in text
+            and f"sole cover {_num(figures['sole_cover'])}" in text
+        )
     # nothing fetched from the web and no errors on the console
     fetched = browser.execute_script("return performance.getEntriesByType('resource').map(r => r.name);")
     assert not [u for u in fetched if REMOTE.match(u) or u.startswith("http")], fetched
