@@ -12,6 +12,7 @@ Skips the browser test with a reason where no browser is installed; fails instea
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import shutil
@@ -275,7 +276,7 @@ def _hover(driver, pane: str) -> str:
 
 
 def _num(x: float) -> str:
-    return f"{round(x):,}"
+    return f"{math.floor(x + 0.5):,}"  # JavaScript's Math.round (halves up), as the page rounds
 
 
 @pytest.mark.parametrize("which", ["study", "compare"])
@@ -304,7 +305,7 @@ def test_map_draws_from_file(demo_run, compared, browser, which):
     assert _toggle(browser, "first_due") == drawn + n_due
     assert _toggle(browser, "first_due") == drawn  # back to the gaps alone in the areas pane
     if which == "compare":
-        # before / after: the roads take their colours from the other state's ramp stops
+        # switching to before recolours the roads from their before ramp stops
         colours = (
             "return [...document.querySelectorAll('#ckmap .leaflet-ck-roads-pane path')]"
             ".map(p => p.getAttribute('stroke')).join()"

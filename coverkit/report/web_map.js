@@ -13,7 +13,8 @@ function coverkitMap(id) {
   const group = L.layerGroup().addTo(map);
   const standards = Object.keys(data.standards);
   const num = (x) => (x === null || x === undefined ? "-" : Math.round(x).toLocaleString("en"));
-  const esc = (s) => String(s).replace(/[&<>"]/g, (c) => ({ "&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;" })[c]);
+  const ENTITY = { "&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;" };
+  const esc = (s) => String(s).replace(/[&<>"]/g, (c) => ENTITY[c]);
 
   // -- the panel: standard, state (before / after), layers, legend
   const boxes = [["roads", "Roads: minutes from the nearest base", true], ["bases", "Bases", true],
@@ -43,7 +44,10 @@ function coverkitMap(id) {
   panel.innerHTML = html;
 
   const on = (k) => { const b = panel.querySelector(`input[name="${k}"]`); return !!b && b.checked; };
-  const state = () => { const r = panel.querySelector('input[name="state"]:checked'); return r ? r.value : data.states[0]; };
+  const state = () => {
+    const r = panel.querySelector('input[name="state"]:checked');
+    return r ? r.value : data.states[0];
+  };
   const roadColour = (stop) => (stop === null || stop < 0 ? data.unreached : data.ramp[stop]);
 
   function baseTip(p, std) {
@@ -60,12 +64,15 @@ function coverkitMap(id) {
   }
   function gapTip(p) {
     let t = `<b>Gap ${p.gap_id}</b>`;
-    for (const [k, v] of Object.entries(p)) if (k.startsWith("uncovered_")) t += `<br>uncovered ${k.slice(10)}: ${num(v)}`;
+    for (const [k, v] of Object.entries(p)) {
+      if (k.startsWith("uncovered_")) t += `<br>uncovered ${k.slice(10)}: ${num(v)}`;
+    }
     return t + `<br>area ${p.area_km2 === null ? "-" : p.area_km2.toFixed(2)} km&sup2;`;
   }
   function changedTip(p) {
     return `<b>${p.change === "lost" ? "Loses" : "Gains"} coverage</b> (area ${p.area_id})<br>demand ${num(p.weight)}` +
-      ` in ${num(p.points)} points` + (p.incidents === null || p.incidents === undefined ? "" : `; ${num(p.incidents)} calls`) +
+      ` in ${num(p.points)} points` +
+      (p.incidents === null || p.incidents === undefined ? "" : `; ${num(p.incidents)} calls`) +
       `<br>area ${p.area_km2.toFixed(2)} km&sup2;`;
   }
 
@@ -82,24 +89,29 @@ function coverkitMap(id) {
     if (on("depth") && layers.depth) {
       L.geoJSON(layers.depth, { pane: "ck-areas", style: (f) => ({ stroke: false, fillColor: "#2f6e8e",
         fillOpacity: 0.06 + 0.13 * Math.min(f.properties.depth, 4) }),
-      onEachFeature: (f, l) => l.bindTooltip(`covered by ${f.properties.depth} base(s)`, { sticky: true }) }).addTo(group);
+      onEachFeature: (f, l) => l.bindTooltip(`covered by ${f.properties.depth} base(s)`, { sticky: true }) })
+        .addTo(group);
     }
     if (on("first_due")) {
       L.geoJSON(layers.first_due, { pane: "ck-areas", style: { color: "#3b3355", weight: 1.2, fill: true,
         fillOpacity: 0.02, dashArray: "3 3" }, onEachFeature: (f, l) => l.bindTooltip(
-        `First due: ${esc(f.properties.base_id || f.properties.status)}<br>${f.properties.area_km2.toFixed(1)} km&sup2;`,
+        `First due: ${esc(f.properties.base_id || f.properties.status)}<br>` +
+        `${f.properties.area_km2.toFixed(1)} km&sup2;`,
         { sticky: true }) }).addTo(group);
     }
     if (on("roads")) {
       L.geoJSON(data.roads, { pane: "ck-roads", interactive: false,
-        style: (f) => ({ color: roadColour(f.properties[st] ?? f.properties[data.states[0]]), weight: 2.2 }) }).addTo(group);
+        style: (f) => ({ color: roadColour(f.properties[st] ?? f.properties[data.states[0]]), weight: 2.2 }) })
+        .addTo(group);
     }
     if (on("gaps")) {
       L.geoJSON(layers.gaps, { pane: "ck-areas", style: { color: "#9a4a12", weight: 1, fillColor: "#ee8b3a",
-        fillOpacity: 0.4 }, onEachFeature: (f, l) => l.bindTooltip(gapTip(f.properties), { sticky: true }) }).addTo(group);
+        fillOpacity: 0.4 }, onEachFeature: (f, l) => l.bindTooltip(gapTip(f.properties), { sticky: true }) })
+        .addTo(group);
     }
     if (on("changed") && data.changed[std]) {
-      L.geoJSON(data.changed[std], { pane: "ck-changed", style: (f) => ({ color: data.change_colour[f.properties.change],
+      L.geoJSON(data.changed[std], { pane: "ck-changed",
+        style: (f) => ({ color: data.change_colour[f.properties.change],
         weight: 1, fillOpacity: 0.45 }), onEachFeature: (f, l) => l.bindTooltip(changedTip(f.properties),
         { sticky: true }) }).addTo(group);
     }
@@ -111,7 +123,8 @@ function coverkitMap(id) {
     const bases = data.bases[st] || data.bases[data.states[0]];
     if (on("bases")) {
       L.geoJSON(bases, { pointToLayer: (f, ll) => L.circleMarker(ll, { pane: "ck-bases", radius: 7, color: "#1f2a36",
-        weight: 2, fillColor: "#ffffff", fillOpacity: 1 }), onEachFeature: (f, l) => l.bindTooltip(baseTip(f.properties, std)) })
+        weight: 2, fillColor: "#ffffff", fillOpacity: 1 }),
+      onEachFeature: (f, l) => l.bindTooltip(baseTip(f.properties, std)) })
         .addTo(group);
     }
     if (on("labels")) {
