@@ -1,219 +1,246 @@
-// coverkit serve page: the study's roads, bases and areas from the JSON API, drawn with Leaflet on a plain
-// background (no tile server). Planning estimates only - not for live dispatch or routing.
+// coverkit serve page, part 6: the tools and the start. Every change goes to the server first (POST /api/compare);
+// a refused change (say a station off the road network) shows the server's line and leaves the plan as it was.
 "use strict";
-const TOKEN = new URLSearchParams(location.search).get("token") || "";
-// sequential ramp, light = near, dark = far (cividis stops, matplotlib's perceptual colormap)
-const RAMP = ["#fee838", "#d3c164", "#a59c74", "#7c7b78", "#575d6d", "#31446b", "#00224e"];
-const RAMP_MAX_MIN = 14;
-const CHANGE_COLOUR = { lost: "#b2182b", gained: "#2166ac" };
-const state = { study: null, tool: "look", changes: [], undone: [], answer: null, standard: null, added: 0 };
-const map = L.map("map", { preferCanvas: true, zoomSnap: 0.25 });
-L.control.scale({ metric: true, imperial: false }).addTo(map);
-const groups = { boundary: L.layerGroup().addTo(map), roads: L.layerGroup().addTo(map), areas: L.layerGroup().addTo(map),
-  changed: L.layerGroup().addTo(map), bases: L.layerGroup().addTo(map) };
-let roadsLayer = null;
-
-function colourOf(minutes) {
-  if (minutes === null || minutes === undefined) return "#c5c8cc";
-  const i = Math.min(RAMP.length - 1, Math.floor((minutes / RAMP_MAX_MIN) * RAMP.length));
-  return RAMP[i];
+const AFTER_LAYERS = ["gaps", "first_due", "depth"];
+const TOOL_HELP = {
+  look: "",
+  add: "Click the map where the new station should stand (it snaps to the nearest road).",
+  move: "Drag a station to its new place.",
+  remove: "Click a station to take it out of service.",
+  units: "Click a station to set how many units it holds.",
+  close: "Click a road to close it (both directions).",
+  "close-area": "Click the corners of the area to close; double-click or Enter ends, Esc cancels.",
+  "slow-area": "Click the corners of the area to slow; double-click or Enter ends, Esc cancels.",
+};
+let queue = Promise.resolve();
+/** Jobs that touch the plan run one after another (a click while computing waits its turn). */
+function serial(job) {
+  queue = queue.then(job).catch((e) => say(e.message, "warn"));
+  return queue;
 }
-function say(text) { document.getElementById("message").textContent = text || ""; }
-async function getJSON(url) {
-  const r = await fetch(url);
-  const body = await r.json();
-  if (!r.ok) throw new Error(body.error || r.statusText);
-  return body;
+function settle() {
+  state.settled += 1;
+  document.body.dataset.ready = String(state.settled);
 }
-async function post(url, body, as = "json") {
-  const r = await fetch(url, { method: "POST", headers: { "Content-Type": "application/json",
-    Authorization: "Bearer " + TOKEN }, body: JSON.stringify(body) });
-  if (!r.ok) { const e = await r.json().catch(() => ({ error: r.statusText })); throw new Error(e.error); }
-  return as === "json" ? r.json() : r.text();
+function wantedLayers() { return AFTER_LAYERS.filter((n) => document.getElementById(`show-${n}`).checked); }
+async function compute(changes) {
+  if (!changes.length) return null;
+  const layers = wantedLayers();
+  const url = `/api/compare?standard=${q(state.standard)}${layers.length ? "&layers=" + layers.join(",") : ""}`;
+  return post(url, scenarioBody(changes));
 }
-
-function legend() {
-  const stops = RAMP.map((c) => `<span style="background:${c}"></span>`).join("");
-  document.getElementById("legend").innerHTML =
-    `<div>Roads: minutes from the nearest base</div><div class="legend-ramp">${stops}</div>` +
-    `<div class="legend-ticks"><span>0</span><span>${RAMP_MAX_MIN / 2}</span><span>${RAMP_MAX_MIN}+ min</span></div>` +
-    `<div><span style="color:${CHANGE_COLOUR.lost}">&#9632;</span> loses coverage ` +
-    `<span style="color:${CHANGE_COLOUR.gained}">&#9632;</span> gains coverage</div>`;
+async function redraw() {
+  drawRoads();
+  drawBases();
+  await drawAreas();
+  showFigures();
+  showPerBase();
+  showAvailability();
+  showChanges();
 }
-
-function drawRoads(minutesAfter) {
-  roadsLayer.eachLayer((l) => {
-    const p = l.feature.properties;
-    const m = minutesAfter ? minutesAfter[p.piece] : p.minutes;
-    const closed = closedEdges().has(p.edge_ids[0]);
-    l.setStyle({ color: closed ? "#d6336c" : colourOf(m), weight: closed ? 5 : 2.5, dashArray: closed ? "4 4" : null });
+function staleRank() {
+  const body = document.querySelector("#rank-table tbody");
+  if (body.children.length) body.innerHTML = `<tr><td colspan="5">the changes moved on: rank again</td></tr>`;
+}
+/** Make `next` the change list once the server has answered for it; a refusal changes nothing. */
+function apply(next, note = "", meta = null) {
+  return serial(async () => {
+    say("computing ...");
+    const old = plan.meta;
+    try {
+      if (meta) plan.meta = meta;
+      const answer = await compute(next);
+      record(next);
+      state.answer = answer;
+      say(note);
+      staleRank();
+    } catch (e) {
+      plan.meta = old;
+      say(`${e.message} Nothing changed.`, "warn");
+    }
+    await redraw();
+    settle();
   });
 }
-function closedEdges() {
-  const s = new Set();
-  for (const c of state.changes) if (c.kind === "close") c.edge_ids.forEach((e) => s.add(e));
-  return s;
+function push(section, entry) { return apply([...plan.changes, change(section, entry)]); }
+function step(move) {
+  return serial(async () => {
+    if (move()) {
+      try { state.answer = await compute(plan.changes); say(""); } catch (e) { state.answer = null; say(e.message, "warn"); }
+      staleRank();
+      await redraw();
+    }
+    settle();
+  });
 }
-
-function drawBases() {
-  groups.bases.clearLayers();
-  const fc = state.answer ? state.answer.bases_after : state.study.bases;
-  L.geoJSON(fc, {
-    pointToLayer: (f, ll) => L.circleMarker(ll, { radius: 7, color: "#24313f", weight: 2, fillColor: "#ffffff",
-      fillOpacity: 1 }),
-    onEachFeature: (f, layer) => {
-      layer.bindTooltip(`${f.properties.id} ${f.properties.name || ""}`, { permanent: true, direction: "right",
-        className: "base-label" });
-      layer.on("click", (ev) => { L.DomEvent.stopPropagation(ev); if (state.tool === "remove") push({ kind: "remove",
-        id: f.properties.id }); });
-    },
-  }).addTo(groups.bases);
-}
-
-async function drawAreas() {
-  groups.areas.clearLayers();
-  const std = encodeURIComponent(state.standard);
-  const want = [["show-depth", "depth"], ["show-due", "first_due"], ["show-gaps", "gaps"]];
-  for (const [box, name] of want) {
-    if (!document.getElementById(box).checked) continue;
-    const fc = await getJSON(`/api/layers/${name}?standard=${std}`);
-    L.geoJSON(fc, { interactive: false, style: (f) => areaStyle(name, f.properties) }).addTo(groups.areas);
-  }
-}
-function areaStyle(name, p) {
-  if (name === "gaps") return { color: "#7a1f3d", weight: 1, fillColor: "#c2577a", fillOpacity: 0.35 };
-  if (name === "depth") { const d = Math.min(p.depth, 4); return { stroke: false, fillColor: "#335c81",
-    fillOpacity: 0.08 + 0.12 * d }; }
-  return { color: "#445", weight: 1, fill: false, dashArray: "2 3" };
-}
-function drawChanged() {
-  groups.changed.clearLayers();
-  if (!state.answer || !document.getElementById("show-changed").checked) return;
-  L.geoJSON(state.answer.changed_areas, { interactive: false, style: (f) => ({ color: CHANGE_COLOUR[f.properties.change],
-    weight: 1, fillOpacity: 0.4 }) }).addTo(groups.changed);
-}
-
-function pct(x) { return x === null ? "-" : (x * 100).toFixed(1) + " %"; }
-function mins(s) { return s === null ? "not reached" : (s / 60).toFixed(1) + " min"; }
-function figures() {
-  const body = document.querySelector("#figures tbody");
-  body.innerHTML = "";
-  const response = Object.fromEntries(state.study.standards.map((s) => [s.name, s.response_s]));
-  const rows = state.answer ? state.answer.rows : null;
-  state.study.figures.forEach((f, i) => {
-    const r = rows ? rows.find((x) => x.standard === f.standard && x.demand === f.demand) : null;
-    const tr = document.createElement("tr");
-    tr.dataset.standard = f.standard; tr.dataset.demand = f.demand;
-    const after = r ? r.covered_share_after : f.covered_share;
-    const fr = r ? r.fractile_response_s_after : f.fractile_response_s;
-    const meets = fr !== null && fr <= response[f.standard];
-    tr.innerHTML = `<td>${f.standard}</td><td>${f.demand}</td>` +
-      `<td class="share">${r ? pct(f.covered_share) + " &rarr; " : ""}<span class="share-now" data-value="${after}">${pct(after)}</span></td>` +
-      `<td>${r ? mins(f.fractile_response_s) + " &rarr; " : ""}${mins(fr)} (${(f.fractile * 100).toFixed(0)}th)</td>` +
-      `<td class="${meets ? "meets" : "misses"}">${meets ? "meets" : "misses"}</td>`;
-    body.appendChild(tr);
+/** Again with the same changes (another standard, or a layer the answer lacks). */
+function again() {
+  return serial(async () => {
+    try { state.answer = await compute(plan.changes); } catch (e) { say(e.message, "warn"); }
+    await redraw();
+    settle();
   });
 }
 
-function scenarioBody() {
-  const body = { scenario: { name: "tried in coverkit serve", description: "changes made on the serve page" } };
-  const closure = [], base_change = [];
-  for (const c of state.changes) {
-    if (c.kind === "close") closure.push({ edge_ids: c.edge_ids, note: c.label });
-    if (c.kind === "add") base_change.push({ add: { id: c.id, lon: c.lon, lat: c.lat, units: 1 } });
-    if (c.kind === "remove") base_change.push({ remove: c.id });
-  }
-  if (closure.length) body.closure = closure;
-  if (base_change.length) body.base_change = base_change;
-  return body;
-}
-function describe(c) {
-  if (c.kind === "add") return `add station ${c.id} at ${c.lon.toFixed(5)}, ${c.lat.toFixed(5)}`;
-  if (c.kind === "remove") return `remove station ${c.id}`;
-  return `close ${c.label}`;
-}
-function listChanges() {
-  document.getElementById("changes").innerHTML = state.changes.map((c) => `<li>${describe(c)}</li>`).join("");
-  document.getElementById("change-lines").innerHTML = state.answer ?
-    state.answer.changes.map((l) => `<li>${l}</li>`).join("") : "";
-}
-
-async function recompute() {
-  if (!state.changes.length) { state.answer = null; return; }
-  state.answer = await post(`/api/compare?standard=${encodeURIComponent(state.standard)}`, scenarioBody());
-}
-async function refresh() {
-  drawRoads(state.answer ? state.answer.road_minutes_after : null);
-  drawBases(); drawChanged(); figures(); listChanges();
-}
-async function push(change) {
-  state.changes.push(change);
-  say("computing...");
-  try { await recompute(); state.undone = []; say(""); }
-  catch (e) { state.changes.pop(); say(e.message + " Nothing changed."); }
-  await refresh();
-  document.body.dataset.ready = String(Date.now());
-}
-async function undoRedo(from, to) {
-  if (!from.length) return;
-  to.push(from.pop());
-  try { await recompute(); say(""); } catch (e) { say(e.message); }
-  await refresh();
-  document.body.dataset.ready = String(Date.now());
-}
-
+// -- tools ----------------------------------------------------------------------------------------------------------
 function setTool(tool) {
   state.tool = tool;
   document.querySelectorAll("#tools button").forEach((b) => b.classList.toggle("on", b.dataset.tool === tool));
-  say({ add: "Click the map where the station should stand (it snaps to the nearest road).",
-    remove: "Click a station to take it out of service.", close: "Click a road to close it (both directions).",
-    look: "" }[tool]);
+  say(TOOL_HELP[tool]);
+  cancelSketch();
+  if (tool === "close-area") startSketch(closeArea);
+  if (tool === "slow-area") startSketch(slowArea);
+  drawBases();
+}
+function closeArea(polygon) {
+  push("closure", { polygon }).then(() => state.tool === "close-area" && startSketch(closeArea));
+}
+function slowArea(polygon) {
+  const factor = Number(document.getElementById("area-factor").value);
+  push("slowdown", { polygon, factor }).then(() => state.tool === "slow-area" && startSketch(slowArea));
+}
+function stationClicked(marker, p) {
+  if (state.tool === "remove") push("base_change", { remove: p.id });
+  if (state.tool === "units") askUnits(marker, p);
+}
+function stationMoved(id, lon, lat) { push("base_change", { move: { id, lon: round6(lon), lat: round6(lat) } }); }
+function askUnits(marker, p) {
+  const form = L.DomUtil.create("form", "units-form");
+  form.innerHTML = `<label>units at ${esc(p.id)} <input type="number" min="0" step="1" value="${p.units ?? 1}"></label>` +
+    ` <button type="submit">set</button>`;
+  L.DomEvent.disableClickPropagation(form);
+  const pop = L.popup({ offset: [0, -4] }).setLatLng(marker.getLatLng()).setContent(form).openOn(map);
+  const input = form.querySelector("input");
+  setTimeout(() => { input.focus(); input.select(); }, 0);
+  form.onsubmit = (ev) => {
+    ev.preventDefault();
+    const units = Number(input.value);
+    if (!Number.isInteger(units) || units < 0) { say("Units are a whole number, 0 or more.", "warn"); return; }
+    map.closePopup(pop);
+    push("base_change", { units: { id: p.id, units } });
+  };
+}
+function mapClicked(ev) {
+  if (sketching()) { addCorner(ev.latlng); return; }
+  if (state.tool !== "add") return;
+  const ids = state.study.bases.features.map((f) => f.properties.id);
+  push("base_change", { add: { id: nextStationId(ids), lon: round6(ev.latlng.lng), lat: round6(ev.latlng.lat),
+    units: 1 } });
+}
+function roadClicked(ev, p) {
+  if (state.tool !== "close" || sketching()) return;
+  L.DomEvent.stopPropagation(ev);
+  push("closure", { edge_ids: p.edge_ids, note: `${p.name || "unnamed " + p.road_class} (piece ${p.piece})` });
+}
+
+// -- forms and buttons -----------------------------------------------------------------------------------------------
+function fillNames(roads) {
+  const names = state.study.road_names || [...new Set(roads.features.map((f) => f.properties.name).filter(Boolean))].sort();
+  const bridges = state.study.bridge_names || [];
+  const only = document.getElementById("only-bridges");
+  const fill = () => { document.getElementById("road-names").innerHTML = (only.checked ? bridges : names)
+    .map((n) => `<option value="${esc(n)}">`).join(""); };
+  only.onchange = fill;
+  fill();
+  const classes = state.study.road_classes ||
+    [...new Set(roads.features.map((f) => f.properties.road_class))].sort();
+  document.getElementById("road-class").innerHTML = classes.map((c) => `<option>${esc(c)}</option>`).join("");
+  document.getElementById("by-name").onsubmit = (ev) => {
+    ev.preventDefault();
+    const name = document.getElementById("road-name").value.trim();
+    if (!name) { say("Type a road or bridge name first.", "warn"); return; }
+    push("closure", { road_name: name, only_bridges: only.checked });
+  };
+  document.getElementById("slow-class").onsubmit = (ev) => {
+    ev.preventDefault();
+    const factor = Number(document.getElementById("class-factor").value);
+    push("slowdown", { road_class: [document.getElementById("road-class").value], factor });
+  };
+}
+async function orSay(job, missing) {
+  try { await job(); } catch (e) { say(e.missing ? missing : e.message, "warn"); }
+}
+function wireButtons() {
+  document.getElementById("undo").onclick = () => step(undo);
+  document.getElementById("redo").onclick = () => step(redo);
+  document.getElementById("save").onclick = () => orSay(async () => {
+    if (!plan.changes.length) { say("Nothing to save: make a change first.", "warn"); return; }
+    const text = await post("/api/scenario.toml", scenarioBody(), "text");
+    download(new Blob([text], { type: "application/toml" }), "scenario.toml");
+    say("Saved scenario.toml (run it with coverkit compare).");
+  }, "This server cannot write scenario files.");
+  document.getElementById("load").onchange = (ev) => orSay(async () => {
+    const file = ev.target.files[0];
+    ev.target.value = "";
+    if (!file) return;
+    const tables = (await post("/api/scenario/read", await file.text())).scenario;
+    await apply(changesFrom(tables), `Read ${file.name}.`, { ...tables.scenario });
+  }, "This server cannot read scenario files yet.");
+  document.getElementById("export").onclick = () => orSay(async () => {
+    say("writing the GeoPackage ...");
+    const blob = await post(`/api/export.gpkg?standard=${q(state.standard)}`, scenarioBody(), "blob");
+    download(blob, "coverkit-state.gpkg");
+    say("Saved coverkit-state.gpkg.");
+  }, "This server cannot export a GeoPackage yet.");
+  document.getElementById("rank").onclick = () => orSay(async () => {
+    say("ranking the candidate sites ...");
+    showRank(await post(`/api/rank?standard=${q(state.standard)}&demand=${q(state.demand)}`, scenarioBody()));
+    say("");
+  }, "This server does not rank candidate sites yet.");
+}
+function wireLayers() {
+  for (const name of [...AFTER_LAYERS, "demand"]) {
+    document.getElementById(`show-${name}`).onchange = (ev) => {
+      const lacking = AFTER_LAYERS.includes(name) && ev.target.checked && changed() && !state.answer[`${name}_after`];
+      if (lacking) again(); else serial(drawAreas);
+    };
+  }
+  document.getElementById("show-changed").onchange = () => { drawChanged(); legend(); };
+  document.getElementById("show-candidates").onchange = (ev) => {
+    if (ev.target.checked) groups.candidates.addTo(map); else groups.candidates.remove();
+  };
+}
+function wireSelectors(study) {
+  const std = document.getElementById("standard");
+  std.innerHTML = study.standards.map((s) => `<option title="${esc(s.text)}">${esc(s.name)}</option>`).join("");
+  std.onchange = () => { state.standard = std.value; changed() ? again() : serial(async () => { await redraw(); }); };
+  const dem = document.getElementById("demand");
+  dem.innerHTML = study.demand.map((d) => `<option>${esc(d.name)}</option>`).join("");
+  dem.onchange = () => { state.demand = dem.value; serial(redraw); };
 }
 
 async function start() {
-  const study = await getJSON("/api/study");
+  const [study, roads] = await Promise.all([getJSON("/api/study"), getJSON("/api/layers/roads")]);
   state.study = study;
   state.standard = study.standards[0].name;
+  state.demand = study.demand[0].name;
   document.getElementById("study-name").textContent = study.name;
   document.getElementById("caution").textContent = study.caution;
-  const sel = document.getElementById("standard");
-  sel.innerHTML = study.standards.map((s) => `<option>${s.name}</option>`).join("");
-  sel.title = study.standards[0].text;
-  sel.onchange = async () => { state.standard = sel.value; sel.title = study.standards[sel.selectedIndex].text;
-    try { await recompute(); } catch (e) { say(e.message); } await drawAreas(); await refresh(); };
-  if (study.layers.includes("boundary")) {
-    L.geoJSON(await getJSON("/api/layers/boundary"), { interactive: false, style: { color: "#6b7280", weight: 1.5,
-      fill: false } }).addTo(groups.boundary);
-  }
-  const roads = await getJSON("/api/layers/roads");
-  roadsLayer = L.geoJSON(roads, {
-    onEachFeature: (f, layer) => layer.on("click", (ev) => {
-      if (state.tool !== "close") return;
-      L.DomEvent.stopPropagation(ev);
-      const p = f.properties;
-      push({ kind: "close", edge_ids: p.edge_ids, label: `${p.name || "unnamed " + p.road_class} (piece ${p.piece})` });
-    }),
-  }).addTo(groups.roads);
+  roadsLayer = L.geoJSON(roads, { renderer: canvas, style: { weight: 2.5 },
+    onEachFeature: (f, l) => {
+      l.bindTooltip(() => roadTip(f.properties), { sticky: true });
+      l.on("click", (ev) => roadClicked(ev, f.properties));
+    } }).addTo(map);
   map.fitBounds(roadsLayer.getBounds());
-  map.on("click", (ev) => {
-    if (state.tool !== "add") return;
-    state.added += 1;
-    push({ kind: "add", id: `N${state.added}`, lon: ev.latlng.lng, lat: ev.latlng.lat });
-  });
+  drawRoads();
+  drawBases();
+  requestAnimationFrame(() => { document.body.dataset.firstRenderMs = performance.now().toFixed(0); });
+  map.on("click", mapClicked);
   document.querySelectorAll("#tools button").forEach((b) => (b.onclick = () => setTool(b.dataset.tool)));
-  ["show-gaps", "show-due", "show-depth"].forEach((id) => (document.getElementById(id).onchange = drawAreas));
-  document.getElementById("show-changed").onchange = drawChanged;
-  document.getElementById("undo").onclick = () => undoRedo(state.changes, state.undone);
-  document.getElementById("redo").onclick = () => undoRedo(state.undone, state.changes);
-  document.getElementById("save").onclick = async () => {
-    if (!state.changes.length) { say("Nothing to save: make a change first."); return; }
-    const text = await post("/api/scenario.toml", scenarioBody(), "text");
-    const a = document.createElement("a");
-    a.href = URL.createObjectURL(new Blob([text], { type: "application/toml" }));
-    a.download = "scenario.toml"; a.click();
-  };
-  legend();
-  await refresh();
-  document.body.dataset.ready = String(Date.now());
+  if (!study.candidates) {
+    document.getElementById("rank").disabled = true;
+    document.getElementById("show-candidates").disabled = true;
+  } else drawCandidates();
+  wireSelectors(study);
+  wireLayers();
+  wireButtons();
+  fillNames(roads);
+  if (study.layers.includes("boundary")) {
+    L.geoJSON(await getJSON("/api/layers/boundary"), { renderer: canvas, interactive: false,
+      style: { color: "#5d6673", weight: 1.5, fill: false } }).addTo(groups.boundary);
+    restack();
+  }
+  await redraw();
+  settle();
 }
-start().catch((e) => say("could not load the study: " + e.message));
+start().catch((e) => say("Could not load the study: " + e.message, "warn"));
