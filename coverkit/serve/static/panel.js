@@ -99,10 +99,10 @@ function showRank(answer) {
   const table = document.getElementById("rank-table");
   const unit = esc(answer.unit || unitOf(answer.demand));
   table.querySelector("thead").innerHTML = `<tr><th>#</th><th>site</th><th>adds (${unit})</th><th>adds share</th>` +
-    `<th>covered after</th></tr>`;
+    `<th>covered after (${unit})</th></tr>`;
   table.querySelector("tbody").innerHTML = answer.candidates.map((c) => `<tr data-id="${esc(c.id)}"><td>${c.rank}</td>` +
     `<td>${esc(c.id)} ${esc(c.name || "")}</td><td>${whole(c.adds)}</td><td>${pct(c.adds_share)}</td>` +
-    `<td>${shareOrWhole(c.covered_after, unit)}</td></tr>`).join("");
+    `<td>${whole(c.covered_after)}</td></tr>`).join("");
   table.querySelectorAll("tbody tr").forEach((tr) => (tr.onclick = () => {
     state.highlight = tr.dataset.id;
     table.querySelectorAll("tbody tr").forEach((x) => x.classList.toggle("picked", x === tr));
@@ -113,5 +113,3 @@ function showRank(answer) {
     map.panTo([c.lat, c.lon]);
   }));
 }
-/** A rank figure given either as a share (0..1) or as demand weight. */
-function shareOrWhole(x, unit) { return x !== null && x !== undefined && x > 1 ? `${whole(x)} ${unit}` : pct(x); }
