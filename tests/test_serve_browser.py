@@ -152,6 +152,23 @@ def _api(server: str, path: str, body) -> tuple[int, bytes]:
         return exc.code, exc.read()
 
 
+def _get(server: str, path: str) -> bytes:
+    with urllib.request.urlopen(server.split("/?")[0] + path, timeout=60) as r:
+        return r.read()
+
+
+def _tip(driver, key: str, value) -> str:
+    """The hover words of the drawn area whose property ``key`` is ``value``."""
+    return driver.execute_script(
+        """let out = null;
+      groups.areas.eachLayer((g) => g.eachLayer((l) => {
+        if (l.feature.properties[arguments[0]] === arguments[1]) out = l.getTooltip().getContent();
+      }));
+      return out && document.createRange().createContextualFragment(out).textContent;""",
+        key, value,
+    )  # fmt: skip
+
+
 def _compare(server: str, body) -> dict:
     status, raw = _api(server, "/api/compare", body)
     assert status == 200, raw
@@ -205,6 +222,22 @@ def test_first_render_and_add_station_shows_api_share(server, browser):
     assert browser.find_element("css selector", ".leaflet-control-scale").is_displayed()
     assert "min" in browser.find_element("id", "legend").text
 
+    # gaps: one numbered label each, the hover words name the gap and its people; first-due areas name the station
+    gaps = json.loads(_get(server, "/api/layers/gaps"))["features"]
+    _settled(browser, lambda: browser.find_element("id", "show-gaps").click())
+    assert len(browser.find_elements("css selector", ".gap-label")) == len(gaps) > 0
+    first = gaps[0]["properties"]
+    tip = _tip(browser, "gap_id", first["gap_id"])
+    assert f"gap {first['gap_id']}:" in tip and f"{round(first['uncovered_people']):,} people" in tip
+    _settled(browser, lambda: browser.find_element("id", "show-first_due").click())
+    tip = _tip(browser, "base_id", "S1")
+    assert "first-due area of S1" in tip
+    study = json.loads(_get(server, "/api/study"))
+    if study.get("per_base"):  # contract: NEW study key
+        row = next(r for r in study["per_base"] if r["base_id"] == "S1" and r["demand"] == "residents")
+        assert f"{round(row['first_due_demand']):,} people" in tip
+    _settled(browser, lambda: browser.find_element("id", "show-first_due").click())
+
     # a click far outside the county: the API refuses the station (snap limit) and nothing changes
     _tool(browser, "add")
     status, raw = _api(server, "/api/compare", {"scenario": {"name": "x"}, "base_change": [
@@ -230,6 +263,15 @@ def test_first_render_and_add_station_shows_api_share(server, browser):
     assert "→" in browser.find_element("css selector", "#figures tbody tr .share").text
     gained = browser.find_element("css selector", "#figures tbody tr .gained").text
     assert f"{round(rows[0]['gained_weight']):,}" in gained and "people" in gained
+    # the gaps drawn are the gaps after the change where the server gives them (layers=gaps), else marked "before"
+    after = browser.execute_script("return state.answer.gaps_after || null;")
+    legend = browser.find_element("id", "legend").text
+    if after is not None:
+        assert len(browser.find_elements("css selector", ".gap-label")) == len(after["features"])
+        assert "before the changes" not in legend
+    else:
+        assert "before the changes" in legend
+    _settled(browser, lambda: browser.find_element("id", "show-gaps").click())
 
 
 def _lonely_road_point(driver) -> tuple[int, list[int], float, float]:
@@ -383,8 +425,13 @@ def test_close_by_name_drag_station_and_draw_area(server, browser):
         assert polygon == n + 1
         drawn = browser.execute_script("return plan.changes[plan.changes.length - 1].entry.polygon;")
         assert drawn["type"] == "Polygon" and len(drawn["coordinates"][0]) == 5
-        for got, want in zip(drawn["coordinates"][0], [*ring, ring[0]], strict=True):
-            assert got == pytest.approx(want, abs=2e-6)  # 6 decimals kept, plus the pixel rounding
+        # the corners sit at the clicked pixel offsets from the first one (EPSG:3857 world pixels at this zoom)
+        zoom = browser.execute_script("return map.getZoom();")
+        (lon_a, lat_a), clicked = drawn["coordinates"][0][0], [*corners, (x - 30, y + 30)]
+        for (lon, lat), (cx, cy) in zip(drawn["coordinates"][0][:4], clicked, strict=True):
+            assert _mercator_x(lon, zoom) - _mercator_x(lon_a, zoom) == pytest.approx(cx - clicked[0][0], abs=1.0)
+            assert _mercator_y(lat, zoom) - _mercator_y(lat_a, zoom) == pytest.approx(cy - clicked[0][1], abs=1.0)
+        assert drawn["coordinates"][0][4] == drawn["coordinates"][0][0]
         answer = _compare(server, _body(browser))
         assert _shown_shares(browser)[0] == pytest.approx(answer["rows"][0]["covered_share_after"], rel=1e-12)
     else:  # an older server: the page says the server's line and keeps its plan

@@ -13,9 +13,10 @@ const TOOL_HELP = {
   "slow-area": "Click the corners of the area to slow; double-click or Enter ends, Esc cancels.",
 };
 let queue = Promise.resolve();
-/** Jobs that touch the plan run one after another (a click while computing waits its turn). */
+/** Jobs that touch the plan or the map run one after another (a click while computing waits its turn); the page
+ * counts each one done in `body[data-ready]`. */
 function serial(job) {
-  queue = queue.then(job).catch((e) => say(e.message, "warn"));
+  queue = queue.then(job).catch((e) => say(e.message, "warn")).then(settle);
   return queue;
 }
 function settle() {
@@ -59,7 +60,6 @@ function apply(next, note = "", meta = null) {
       say(`${e.message} Nothing changed.`, "warn");
     }
     await redraw();
-    settle();
   });
 }
 function push(section, entry) { return apply([...plan.changes, change(section, entry)]); }
@@ -70,7 +70,6 @@ function step(move) {
       staleRank();
       await redraw();
     }
-    settle();
   });
 }
 /** Again with the same changes (another standard, or a layer the answer lacks). */
@@ -78,7 +77,6 @@ function again() {
   return serial(async () => {
     try { state.answer = await compute(plan.changes); } catch (e) { say(e.message, "warn"); }
     await redraw();
-    settle();
   });
 }
 
@@ -198,12 +196,13 @@ function wireLayers() {
   document.getElementById("show-changed").onchange = () => { drawChanged(); legend(); };
   document.getElementById("show-candidates").onchange = (ev) => {
     if (ev.target.checked) groups.candidates.addTo(map); else groups.candidates.remove();
+    legend();
   };
 }
 function wireSelectors(study) {
   const std = document.getElementById("standard");
   std.innerHTML = study.standards.map((s) => `<option title="${esc(s.text)}">${esc(s.name)}</option>`).join("");
-  std.onchange = () => { state.standard = std.value; changed() ? again() : serial(async () => { await redraw(); }); };
+  std.onchange = () => { state.standard = std.value; if (changed()) again(); else serial(redraw); };
   const dem = document.getElementById("demand");
   dem.innerHTML = study.demand.map((d) => `<option>${esc(d.name)}</option>`).join("");
   dem.onchange = () => { state.demand = dem.value; serial(redraw); };
@@ -240,7 +239,6 @@ async function start() {
       style: { color: "#5d6673", weight: 1.5, fill: false } }).addTo(groups.boundary);
     restack();
   }
-  await redraw();
-  settle();
+  await serial(redraw);
 }
 start().catch((e) => say("Could not load the study: " + e.message, "warn"));

@@ -71,14 +71,18 @@ function showAvailability() {
   document.getElementById("availability-for").textContent = `${av.standard}, ${av.demand}`;
   const s = av.summary || {};
   const sa = after ? after.summary || {} : undefined;
-  document.querySelector("#availability-summary tbody").innerHTML = Object.keys(s).map((k) =>
-    `<tr><th>${esc(k.replaceAll("_", " "))}</th><td>${arrow(s[k], sa ? sa[k] : undefined, num)}</td></tr>`).join("");
+  // shares and probabilities read as percentages, times in seconds as minutes
+  const fmt = (k) => (/(coverage|probability|workload)$/.test(k) ? pct : /_s$/.test(k) ? mins : num);
+  document.querySelector("#availability-summary tbody").innerHTML = Object.keys(s)
+    .filter((k) => typeof s[k] !== "object" && k !== "standard" && k !== "demand").map((k) =>
+      `<tr><th>${esc(k.replaceAll("_", " "))}</th><td>${arrow(s[k], sa ? sa[k] : undefined, fmt(k))}</td></tr>`)
+    .join("");
   const units = (after && after.units) || av.units || [];
   const cols = units.length ? Object.keys(units[0]) : [];
   document.querySelector("#availability-units thead").innerHTML =
     `<tr>${cols.map((c) => `<th>${esc(c.replaceAll("_", " "))}</th>`).join("")}</tr>`;
   document.querySelector("#availability-units tbody").innerHTML = units.map((u) =>
-    `<tr>${cols.map((c) => `<td>${num(u[c])}</td>`).join("")}</tr>`).join("");
+    `<tr>${cols.map((c) => `<td>${fmt(c)(u[c])}</td>`).join("")}</tr>`).join("");
 }
 
 function showChanges() {
@@ -109,6 +113,7 @@ function showRank(answer) {
     document.getElementById("show-candidates").checked = true;
     groups.candidates.addTo(map);
     drawCandidates();
+    legend();
     const c = answer.candidates.find((x) => x.id === tr.dataset.id);
     map.panTo([c.lat, c.lon]);
   }));
