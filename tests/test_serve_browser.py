@@ -399,6 +399,32 @@ def test_close_by_name_drag_station_and_draw_area(server, browser):
     # residential roads 1.4 times slower can only lengthen drive times (no station added by this step)
     assert answer["rows"][0]["covered_share_after"] <= share_before_slow
 
+    # take out S3, then drop that entry from the list with its button: the list and figures as they were
+    kept, shares = _body(browser), _shown_shares(browser)
+    _tool(browser, "remove")
+    _settled(browser, lambda: browser.find_element("css selector", ".station[data-id='S3']").click())
+    assert browser.execute_script("return plan.changes[plan.changes.length - 1].entry;") == {"remove": "S3"}
+    answer = _compare(server, _body(browser))
+    assert _shown_shares(browser)[0] == pytest.approx(answer["rows"][0]["covered_share_after"], rel=1e-12)
+    assert answer["rows"][0]["covered_share_after"] < shares[0]  # S3 is the only station in the south-west (data/demo)
+    _settled(browser, lambda: browser.find_elements("css selector", "#changes button.drop")[-1].click())
+    assert _body(browser) == kept and _shown_shares(browser) == pytest.approx(shares, rel=1e-12)
+
+    # a slowed area: three corners and Enter
+    _, _, x, y = _lonely_road_point(browser)
+    n = browser.execute_script("return plan.changes.length")
+    _tool(browser, "slow-area")
+    for cx, cy in ((x - 25, y - 25), (x + 25, y - 25), (x, y + 25)):
+        _click_at(browser, cx, cy)
+    _settled(browser, lambda: ActionChains(browser).send_keys(Keys.ENTER).perform())
+    last = browser.execute_script("return plan.changes[plan.changes.length - 1];")
+    if last["entry"].get("polygon"):
+        assert last["section"] == "slowdown" and last["entry"]["factor"] == 2
+        assert len(last["entry"]["polygon"]["coordinates"][0]) == 4
+    else:
+        assert browser.execute_script("return plan.changes.length") == n
+    _tool(browser, "look")
+
     # an area: Esc drops a sketch; three clicks and a double-click close the roads inside
     n = browser.execute_script("return plan.changes.length")
     _, _, x, y = _lonely_road_point(browser)

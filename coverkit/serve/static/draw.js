@@ -41,5 +41,5 @@ map.on("dblclick", (ev) => { if (sketching()) { L.DomEvent.stop(ev); addCorner(e
 document.addEventListener("keydown", (ev) => {
   if (!sketching() || ev.target.tagName === "INPUT") return;
   if (ev.key === "Enter") { ev.preventDefault(); finishSketch(); }
-  if (ev.key === "Escape") { cancelSketch(); say("Drawing cancelled."); }
+  if (ev.key === "Escape") { setTool("look"); say("Drawing cancelled: nothing changed."); }
 });

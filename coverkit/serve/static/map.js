@@ -32,6 +32,10 @@ function unitOf(demand) {
   if (!d) return "";
   return d.unit || (d.kind === "incidents" ? "calls" : "people");
 }
+/** The demand layer the changed areas weigh (the first residents layer, as the server picks it). */
+function residentsLayer() {
+  return (state.study.demand.find((d) => d.kind === "residents") || state.study.demand[0]).name;
+}
 function changed() { return plan.changes.length > 0 && state.answer !== null; }
 
 // -- roads --------------------------------------------------------------------------------------------------------
@@ -183,7 +187,7 @@ function drawChanged() {
       onEachFeature: (f, l) => {
         const p = f.properties;
         l.bindTooltip(`${p.change === "lost" ? "loses" : "gains"} coverage: ${whole(p.weight)} ` +
-          `${esc(unitOf(state.study.demand[0].name))} at ${whole(p.points)} demand points` +
+          `${esc(unitOf(residentsLayer()))} at ${whole(p.points)} demand points` +
           `${p.incidents !== null && p.incidents !== undefined ? ", " + whole(p.incidents) + " calls" : ""}` +
           ` (${num(p.area_km2)} km&sup2;)`, { sticky: true });
       } }).addTo(groups.changed);
