@@ -53,8 +53,9 @@ function showPerBase() {
     const a = after ? after.find((r) => r.base_id === id) || { first_due_demand: 0, first_due_share: 0,
       sole_cover: 0 } : undefined;
     const cell = (k, f) => `<td>${arrow(b[k], a ? a[k] : undefined, f)}</td>`;
-    return `<tr data-base="${esc(id)}"><td>${esc(id)}</td>${cell("first_due_demand", (x) => `${whole(x)} ${esc(unit)}`)}` +
-      `${cell("first_due_share", pct)}${cell("sole_cover", (x) => `${whole(x)} ${esc(unit)}`)}</tr>`;
+    const amount = (x) => (x === undefined || x === null ? "-" : `${whole(x)} ${esc(unit)}`);
+    return `<tr data-base="${esc(id)}"><td>${esc(id)}</td>${cell("first_due_demand", amount)}` +
+      `${cell("first_due_share", pct)}${cell("sole_cover", amount)}</tr>`;
   }).join("");
   if (changed() && !state.answer.per_base_after) {
     body.insertAdjacentHTML("beforeend", `<tr><td colspan="4"><em>before the changes (this server gives no
