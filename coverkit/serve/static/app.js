@@ -142,7 +142,9 @@ function fillNames(roads) {
   fill();
   const classes = state.study.road_classes ||
     [...new Set(roads.features.map((f) => f.properties.road_class))].sort();
-  document.getElementById("road-class").innerHTML = classes.map((c) => `<option>${esc(c)}</option>`).join("");
+  // local streets first: the class a planner slows most often (snow, works)
+  document.getElementById("road-class").innerHTML = classes.map((c) =>
+    `<option${c === "residential" ? " selected" : ""}>${esc(c)}</option>`).join("");
   document.getElementById("by-name").onsubmit = (ev) => {
     ev.preventDefault();
     const name = document.getElementById("road-name").value.trim();
