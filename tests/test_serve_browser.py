@@ -526,6 +526,27 @@ def test_save_compare_and_load_back(server, browser, study_file, downloads, tmp_
     assert _shown_shares(browser) == pytest.approx([r["covered_share_after"] for r in rows_page], rel=1e-12)
 
 
+def test_demand_density_legend_in_units(server, browser):
+    try:
+        cells = json.loads(_get(server, "/api/layers/demand?demand=residents"))["features"]
+    except urllib.error.HTTPError as exc:  # an older server: the box unticks itself and the page says why
+        assert exc.code == 404
+        _settled(browser, lambda: browser.find_element("id", "show-demand").click())
+        assert not browser.find_element("id", "show-demand").is_selected()
+        assert "demand layer" in browser.find_element("id", "message").text
+        return
+    _settled(browser, lambda: browser.find_element("id", "show-demand").click())
+    legend = browser.find_element("id", "legend").text
+    assert "people per km²" in legend and "and over" in legend
+    # the cells share out the whole layer: their people add up to the study's residents (conservation)
+    total = browser.execute_script("return state.study.figures[0].demand_total;")
+    assert sum(c["properties"]["weight"] for c in cells) == pytest.approx(total, rel=1e-9)
+    # the legend's class edges rise and lie within the densities drawn
+    edges = browser.execute_script("return state.density;")
+    assert edges == sorted(edges) and edges[-1] <= max(c["properties"]["per_km2"] for c in cells)
+    _settled(browser, lambda: browser.find_element("id", "show-demand").click())
+
+
 def test_rank_and_export(server, browser, downloads):
     status, raw = _api(server, "/api/rank", _body(browser))
     browser.find_element("id", "rank").click()
