@@ -119,9 +119,10 @@ function areaStyle(name, p) {
   if (name === "gaps") return { color: GAP_COLOUR.line, weight: 1, fillColor: GAP_COLOUR.fill, fillOpacity: 0.4 };
   if (name === "depth") return { stroke: false, fillColor: DEPTH_COLOUR, fillOpacity: Math.min(p.depth, 4) * 0.12 };
   if (name === "demand") return { stroke: false, fillColor: densityColour(p.per_km2), fillOpacity: 0.75 };
-  const ids = state.study.bases.features.map((f) => f.properties.id);
-  const i = ids.indexOf(p.base_id);
-  const c = DUE_COLOURS[(i < 0 ? ids.length + (p.base_id || "").length : i) % DUE_COLOURS.length];
+  // one colour a station, kept when stations are added (they go last in bases_after)
+  const ids = (changed() ? state.answer.bases_after : state.study.bases).features.map((f) => f.properties.id);
+  const i = Math.max(0, ids.indexOf(p.base_id));
+  const c = DUE_COLOURS[i % DUE_COLOURS.length];
   return { color: c, weight: 1.5, fillColor: c, fillOpacity: p.status === "reached" ? 0.22 : 0.08 };
 }
 function areaTip(name, p) {
