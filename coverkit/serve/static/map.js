@@ -121,7 +121,9 @@ function areaStyle(name, p) {
   if (name === "demand") return { stroke: false, fillColor: densityColour(p.per_km2), fillOpacity: 0.75 };
   // one colour a station: the study's stations keep theirs whatever the changes, new ones follow
   const ids = state.study.bases.features.map((f) => f.properties.id);
-  if (changed()) for (const f of state.answer.bases_after.features) if (!ids.includes(f.properties.id)) ids.push(f.properties.id);
+  if (changed()) {
+    for (const f of state.answer.bases_after.features) if (!ids.includes(f.properties.id)) ids.push(f.properties.id);
+  }
   const i = Math.max(0, ids.indexOf(p.base_id));
   const c = DUE_COLOURS[i % DUE_COLOURS.length];
   return { color: c, weight: 1.5, fillColor: c, fillOpacity: p.status === "reached" ? 0.22 : 0.08 };
