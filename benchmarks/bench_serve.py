@@ -81,7 +81,8 @@ def median_of(fn, repeat: int) -> float:
 
 
 def start_server(state: BaseState, token: str) -> tuple[str, uvicorn.Server, threading.Thread]:
-    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+    # as coverkit serve does: with IPPROTO_TCP named asyncio sets TCP_NODELAY (no ~40 ms delayed-ACK stall)
+    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM, socket.IPPROTO_TCP)
     sock.bind(("127.0.0.1", 0))
     port = sock.getsockname()[1]
     app = create_app(state, token=token, hosts={f"127.0.0.1:{port}"})

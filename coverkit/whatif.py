@@ -40,7 +40,7 @@ from coverkit.scenario import (
     edge_changes,
     slowed_travel_s,
 )
-from coverkit.travel import node_times, snap_points
+from coverkit.travel import nearest_sources, node_times, snap_points
 from coverkit.travel.search import CHUNK_CELLS, dense_to_csr, exits, same_edge_min
 from coverkit.travel.snap import Snapped
 
@@ -272,6 +272,35 @@ class WhatIf:
         )
         return sp.csr_matrix((t, (r, c)), shape=(n, len(points)))
 
+    def point_times_after(self, points: Snapped, stored: sp.csr_matrix, outcome: WhatIfOutcome) -> sp.csr_matrix:
+        """:meth:`point_times` of ``points`` after ``outcome``, given their times before (``stored``, as
+        :meth:`point_times` gives them without an outcome): a base not searched again keeps its stored times on the
+        points off the changed edges, the rest are derived from the outcome's node times, as :meth:`run` does for
+        the demand points. Equal to ``point_times(points, outcome)``, at the cost of the bases searched again."""
+        old_ids = self.bases["id"].astype(str).tolist()
+        new_ids = outcome.bases["id"].astype(str).tolist()
+        again = set(outcome.recomputed_bases)
+        where = {b: i for i, b in enumerate(old_ids)}
+        keep_src = np.array([-1 if b in again else where[b] for b in new_ids], dtype=np.int64)
+        kept, rows_new = np.flatnonzero(keep_src >= 0), np.flatnonzero(keep_src < 0)
+        net2 = outcome.network
+        is_changed = self.net.travel_s != net2.travel_s
+        cols = np.unique(points.entry_point[is_changed[points.entry_edge]])
+        src = stored[keep_src[kept]].tocoo()
+        ok = ~np.isin(src.col, cols)
+        r_parts, c_parts, t_parts = [kept[src.row[ok]]], [src.col[ok]], [src.data[ok]]
+        for rr, cc in ((rows_new, np.arange(len(points))), (kept, cols)):
+            r, c, t = _times_from_nodes(
+                net2, outcome.node_t, outcome.base_snap, rr, points, cc, self.horizon_s, self.direction
+            )
+            r_parts.append(r)
+            c_parts.append(c)
+            t_parts.append(t)
+        return sp.csr_matrix(
+            (np.concatenate(t_parts), (np.concatenate(r_parts), np.concatenate(c_parts))),
+            shape=(len(new_ids), len(points)),
+        )
+
     # -- the incremental recomputation ---------------------------------------------------------------------------------
     def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
         """Boolean per base: can the edge times ``travel_s`` change this base's searches? (see the class notes)"""
@@ -360,8 +389,9 @@ class WhatIf:
                 shape=(len(new_ids), len(dem)),
             )
             table = TravelTable(base_snap2, snap2, times, self.horizon_s, self.direction)
+            nearest = nearest_sources(times, k=2)  # the same for every standard
             for s in self.standards:
-                results[(s.name, name)] = evaluate_coverage(net2, bases_after, dem, s, table=table)
+                results[(s.name, name)] = evaluate_coverage(net2, bases_after, dem, s, table=table, nearest=nearest)
         identical = all(
             np.array_equal(results[k].demand["travel_s"].to_numpy(), self.results[k].demand["travel_s"].to_numpy())
             and (results[k].demand["first_base"] == self.results[k].demand["first_base"]).all()
