@@ -304,28 +304,46 @@ class WhatIf:
         cols = np.unique(points.entry_point[is_changed[points.entry_edge]])
         _, e_node, _ = exits(self.net, points, self.direction)
         e_point = points.entry_point
-        idx_parts, t_parts, counts = [], [], []
-        # row by row (one step per base): the stored values kept, then the derived ones; a row's columns are
-        # disjoint, so the matrix is assembled without sorting its entries
+        kept_parts, full_rows, redo_of = [], [], {}
+        # row by row (one step per base): which points keep their stored value, which are derived again
         for j, base in enumerate(new_ids):
             i = where[base] if base not in again else self._same_snap(base, where, new_ids, base_snap2)
             if i is None:  # added, moved or re-snapped: every point again
-                redo = np.arange(n)
-            elif base not in again:
-                redo = cols
-            else:
+                full_rows.append(j)
+                kept_parts.append((np.zeros(0, dtype=np.int64), np.zeros(0)))
+                continue
+            redo = cols
+            if base in again:
                 moved = _dense_rows(self.node_t, np.array([i]))[0] != _dense_rows(node_t2, np.array([j]))[0]
                 redo = np.union1d(cols, e_point[moved[e_node]])
-            row_c, row_t = np.zeros(0, dtype=np.int64), np.zeros(0)
-            if i is not None:
-                mark = np.zeros(n, dtype=bool)
-                mark[redo] = True
-                lo, hi = stored.indptr[i], stored.indptr[i + 1]
-                keep = ~mark[stored.indices[lo:hi]]
-                row_c, row_t = stored.indices[lo:hi][keep], stored.data[lo:hi][keep]
-            _, c, t = _times_from_nodes(
-                net2, node_t2, base_snap2, np.array([j]), points, redo, self.horizon_s, self.direction
+            mark = np.zeros(n, dtype=bool)
+            mark[redo] = True
+            lo, hi = stored.indptr[i], stored.indptr[i + 1]
+            keep = ~mark[stored.indices[lo:hi]]
+            kept_parts.append((stored.indices[lo:hi][keep], stored.data[lo:hi][keep]))
+            if len(redo):
+                redo_of[j] = redo
+        # the derived values in at most two passes: every point for the full rows, the union of the redo sets for
+        # the others (each row then takes its own redo points only)
+        fr, fc, ft = _times_from_nodes(
+            net2, node_t2, base_snap2, np.array(full_rows, dtype=np.int64), points, np.arange(n), self.horizon_s,
+            self.direction,
+        )  # fmt: skip
+        if redo_of:
+            rows = np.array(list(redo_of), dtype=np.int64)
+            union = np.unique(np.concatenate(list(redo_of.values())))
+            pr, pc, pt = _times_from_nodes(
+                net2, node_t2, base_snap2, rows, points, union, self.horizon_s, self.direction
             )
+            wanted = np.concatenate([j * n + r for j, r in redo_of.items()])
+            own = np.isin(pr * n + pc, wanted)
+            fr, fc, ft = np.r_[fr, pr[own]], np.r_[fc, pc[own]], np.r_[ft, pt[own]]
+        order = np.argsort(fr, kind="stable")
+        fr, fc, ft = fr[order], fc[order], ft[order]
+        cuts = np.searchsorted(fr, np.arange(len(new_ids) + 1))
+        idx_parts, t_parts, counts = [], [], []
+        for j, (row_c, row_t) in enumerate(kept_parts):  # a row's columns are disjoint: no sort needed
+            c, t = fc[cuts[j] : cuts[j + 1]], ft[cuts[j] : cuts[j + 1]]
             idx_parts += [row_c, c]
             t_parts += [row_t, t]
             counts.append(len(row_c) + len(c))
