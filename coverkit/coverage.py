@@ -150,8 +150,10 @@ class CoverageResult:
         d = self.demand
         w = d["weight"].to_numpy(dtype=float)
         total = float(w.sum())
-        covered = float(w[d["covered"].to_numpy()].sum())
-        off = float(w[~d["on_network"].to_numpy()].sum())
+        on = d["on_network"].to_numpy(dtype=bool)
+        depth = d["depth"].to_numpy()
+        covered = float(w[d["covered"].to_numpy(dtype=bool)].sum())
+        off = float(w[~on].sum())
         frac_resp = weighted_fractile(d["response_s"].to_numpy(), w, self.standard.fractile)
         return {
             "standard": self.standard.name,
@@ -161,13 +163,13 @@ class CoverageResult:
             "covered": covered,
             "covered_share": covered / total if total else float("nan"),
             "uncovered": total - covered,
-            "covered_once": float(w[(d["depth"] == 1).to_numpy()].sum()),
-            "covered_twice_or_more": float(w[(d["depth"] >= 2).to_numpy()].sum()),
+            "covered_once": float(w[depth == 1].sum()),
+            "covered_twice_or_more": float(w[depth >= 2].sum()),
             "fractile": self.standard.fractile,
             "fractile_response_s": frac_resp,
             "meets_standard": bool(frac_resp <= self.standard.response_s),
             "off_network": off,
-            "off_network_points": int((~d["on_network"]).sum()),
+            "off_network_points": int((~on).sum()),
         }
 
 
@@ -245,6 +247,8 @@ def evaluate_coverage(
     base_snap_m: float = DEFAULT_DEMAND_SNAP_M,
     direction: str = "out",
     table: TravelTable | None = None,
+    *,
+    nearest: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> CoverageResult:
     """Travel from every base to every demand point; first- and second-due base, depth and coverage.
 
@@ -268,6 +272,8 @@ def evaluate_coverage(
     table
         Travel times already computed by :func:`travel_table` for these bases and demand points (other standards
         of the same study reuse them); horizon and direction then come from the table.
+    nearest
+        ``nearest_sources(table.times, k=2)`` when the caller already has it (several standards on one table).
     """
     if table is None:
         horizon_s = float(horizon_s or default_horizon_s(standard))
@@ -279,7 +285,7 @@ def evaluate_coverage(
         )
     horizon_s, direction = table.horizon_s, table.direction
     base_snap, dem_snap, times = table.base_snap, table.point_snap, table.times
-    src, t = nearest_sources(times, k=2)
+    src, t = nearest_sources(times, k=2) if nearest is None else nearest
     depth = count_within(times, standard.travel_s)
     base_ids = bases["id"].astype(str).to_numpy()
     first = np.where(src[:, 0] >= 0, base_ids[np.maximum(src[:, 0], 0)], "")
@@ -367,17 +373,28 @@ def per_base(result: CoverageResult) -> pd.DataFrame:
     within = result.times.tocoo()
     ok = within.data <= result.standard.travel_s
     reach_w = np.bincount(within.row[ok], weights=w[within.col[ok]], minlength=len(result.bases))
+    ids = result.bases["id"].astype(str).to_numpy()
+    # the points of each base in input order (a stable sort by base): every sum below adds the same values in the
+    # same order as a boolean mask per base would, so the figures are identical to the last bit
+    names = pd.unique(ids)
+    code = pd.Index(names).get_indexer(d["first_base"].to_numpy(dtype=object))
+    order = np.argsort(code, kind="stable")
+    bounds = np.searchsorted(code[order], np.arange(len(names) + 1), side="left")
+    covered, sole = d["covered"].to_numpy(dtype=bool), d["depth"].to_numpy() == 1
+    where = dict(zip(names, range(len(names)), strict=True))
     rows = []
-    for i, base in enumerate(result.bases["id"].astype(str)):
-        mine = (d["first_base"] == base).to_numpy()
+    for i, base in enumerate(ids):
+        j = where[base]
+        mine = order[bounds[j] : bounds[j + 1]]
+        wm = w[mine]
         rows.append(
             {
                 "base_id": base,
-                "first_due_demand": float(w[mine].sum()),
-                "first_due_share": float(w[mine].sum() / total) if total else float("nan"),
-                "first_due_covered": float(w[mine & d["covered"].to_numpy()].sum()),
+                "first_due_demand": float(wm.sum()),
+                "first_due_share": float(wm.sum() / total) if total else float("nan"),
+                "first_due_covered": float(wm[covered[mine]].sum()),
                 "reaches_in_standard": float(reach_w[i]),
-                "sole_cover": float(w[mine & (d["depth"] == 1).to_numpy()].sum()),
+                "sole_cover": float(wm[sole[mine]].sum()),
             }
         )
     return pd.DataFrame(rows)

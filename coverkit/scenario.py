@@ -32,6 +32,7 @@ delay (signals); a slowdown factor multiplies the running time only, never the d
 from __future__ import annotations
 
 import difflib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -876,17 +877,42 @@ class Comparison:
     standard: Standard
     before: dict
     after: dict
-    table: pd.DataFrame
-    points: gpd.GeoDataFrame
-    bases: pd.DataFrame
+    _table: pd.DataFrame | Callable[[], pd.DataFrame] = field(repr=False)
+    _points: gpd.GeoDataFrame | Callable[[], gpd.GeoDataFrame] = field(repr=False)
+    _bases: pd.DataFrame | Callable[[], pd.DataFrame] = field(repr=False)
     lost_weight: float
     lost_points: int
     gained_weight: float
     gained_points: int
+    _unchanged: bool | None = field(default=None, repr=False)
+
+    # the tables are built on first use: a web answer needs the figures, not the per point layer
+    @property
+    def table(self) -> pd.DataFrame:
+        """The measures before and after (see the class notes)."""
+        if callable(self._table):
+            self._table = self._table()
+        return self._table
+
+    @property
+    def points(self) -> gpd.GeoDataFrame:
+        """The per point comparison (see the class notes)."""
+        if callable(self._points):
+            self._points = self._points()
+        return self._points
+
+    @property
+    def bases(self) -> pd.DataFrame:
+        """The per base comparison (see the class notes)."""
+        if callable(self._bases):
+            self._bases = self._bases()
+        return self._bases
 
     @property
     def unchanged(self) -> bool:
         """True when no demand point's travel time or first-due base changed."""
+        if self._unchanged is not None:
+            return self._unchanged
         p = self.points
         same_t = np.array_equal(p["travel_s_before"].to_numpy(), p["travel_s_after"].to_numpy(), equal_nan=True)
         return bool(same_t and (p["first_base_before"] == p["first_base_after"]).all())
@@ -908,8 +934,19 @@ class Comparison:
         ]
 
 
-def compare_results(before: CoverageResult, after: CoverageResult) -> Comparison:
+def compare_results(
+    before: CoverageResult,
+    after: CoverageResult,
+    *,
+    summary_before: dict | None = None,
+    per_base_before: pd.DataFrame | None = None,
+    per_base_after: pd.DataFrame | None = None,
+) -> Comparison:
     """Compare two coverage results of the same demand points under the same standard.
+
+    ``summary_before``, ``per_base_before`` and ``per_base_after`` are ``before.summary()`` and
+    :func:`coverkit.coverage.per_base` of ``before`` and ``after`` when the caller has them (a base state compared
+    with many scenarios); the comparison is the same with or without them.
 
     Raises
     ------
@@ -917,11 +954,35 @@ def compare_results(before: CoverageResult, after: CoverageResult) -> Comparison
         The two results hold different demand points or different standards (a programming error, not input).
     """
     db, da = before.demand, after.demand
-    if len(db) != len(da) or not np.array_equal(db["id"].astype(str).to_numpy(), da["id"].astype(str).to_numpy()):
+    if len(db) != len(da) or not _same_ids(db["id"], da["id"]):
         raise ValueError("compare_results needs the same demand points, in the same order, before and after")
     if before.standard != after.standard:
         raise ValueError("compare_results needs the same standard before and after")
-    sb, sa = before.summary(), after.summary()
+    sb = before.summary() if summary_before is None else summary_before
+    sa = after.summary()
+    tb, ta = db["travel_s"].to_numpy(dtype=float), da["travel_s"].to_numpy(dtype=float)
+    cb, ca = db["covered"].to_numpy(dtype=bool), da["covered"].to_numpy(dtype=bool)
+    fb, fa = db["first_base"].to_numpy(dtype=object), da["first_base"].to_numpy(dtype=object)
+    w = db["weight"].to_numpy(dtype=float)
+    lost, gained = cb & ~ca, ~cb & ca
+    unchanged = bool(np.array_equal(tb, ta, equal_nan=True) and (fb == fa).all())
+    return Comparison(
+        before.standard,
+        sb,
+        sa,
+        lambda: _measure_table(sb, sa),
+        lambda: _point_changes(before, after),
+        lambda: _base_changes(before, after, per_base_before=per_base_before, per_base_after=per_base_after),
+        float(w[lost].sum()),
+        int(lost.sum()),
+        float(w[gained].sum()),
+        int(gained.sum()),
+        unchanged,
+    )
+
+
+def _measure_table(sb: dict, sa: dict) -> pd.DataFrame:
+    """The measures of :attr:`Comparison.table` from the summaries before and after."""
     measures = [
         ("demand_total", "demand_total"),
         ("covered", "covered"),
@@ -940,6 +1001,12 @@ def compare_results(before: CoverageResult, after: CoverageResult) -> Comparison
     )
     with np.errstate(invalid="ignore"):
         table["change"] = table["after"] - table["before"]
+    return table
+
+
+def _point_changes(before: CoverageResult, after: CoverageResult) -> gpd.GeoDataFrame:
+    """The per point layer of :attr:`Comparison.points`."""
+    db, da = before.demand, after.demand
     tb, ta = db["travel_s"].to_numpy(dtype=float), da["travel_s"].to_numpy(dtype=float)
     with np.errstate(invalid="ignore"):
         delta = ta - tb  # inf - inf is NaN: reached in neither
@@ -947,11 +1014,10 @@ def compare_results(before: CoverageResult, after: CoverageResult) -> Comparison
     change = np.select(
         [cb & ~ca, ~cb & ca, cb & ca], ["lost", "gained", "same_covered"], default="same_uncovered"
     ).astype(object)
-    w = db["weight"].to_numpy(dtype=float)
-    points = gpd.GeoDataFrame(
+    return gpd.GeoDataFrame(
         {
             "id": db["id"].to_numpy(),
-            "weight": w,
+            "weight": db["weight"].to_numpy(dtype=float),
             "travel_s_before": tb,
             "travel_s_after": ta,
             "delta_s": delta,
@@ -964,43 +1030,52 @@ def compare_results(before: CoverageResult, after: CoverageResult) -> Comparison
         geometry=db.geometry.to_numpy(),
         crs=db.crs,
     )
-    lost, gained = change == "lost", change == "gained"
-    return Comparison(
-        before.standard,
-        sb,
-        sa,
-        table,
-        points,
-        _base_changes(before, after),
-        float(w[lost].sum()),
-        int(lost.sum()),
-        float(w[gained].sum()),
-        int(gained.sum()),
-    )
 
 
-def _base_changes(before: CoverageResult, after: CoverageResult) -> pd.DataFrame:
+def _same_ids(before: pd.Series, after: pd.Series) -> bool:
+    """The same point ids in the same order (as text)."""
+    if before is after:
+        return True
+    if before.dtype == after.dtype and isinstance(before.dtype, pd.StringDtype):
+        # already text: compared without a conversion (missing ids equal each other, as they do as text)
+        return bool(before.reset_index(drop=True).equals(after.reset_index(drop=True)))
+    return bool(np.array_equal(before.astype(str).to_numpy(), after.astype(str).to_numpy()))
+
+
+def _base_changes(
+    before: CoverageResult,
+    after: CoverageResult,
+    *,
+    per_base_before: pd.DataFrame | None = None,
+    per_base_after: pd.DataFrame | None = None,
+) -> pd.DataFrame:
+    """Per base id (before's bases, then the added ones): status and the per-base figures before, after, change."""
     cols = ["first_due_demand", "first_due_covered", "reaches_in_standard"]
-    pb, pa = per_base(before)[["base_id", *cols]], per_base(after)[["base_id", *cols]]
-    merged = pb.merge(pa, on="base_id", how="outer", suffixes=("_before", "_after"), sort=False)
-    order = list(dict.fromkeys([*pb["base_id"], *pa["base_id"]]))
-    merged = merged.set_index("base_id").loc[order].reset_index()
-    for c in cols:
-        merged[f"{c}_before"] = merged[f"{c}_before"].fillna(0.0)
-        merged[f"{c}_after"] = merged[f"{c}_after"].fillna(0.0)
-        merged[f"{c}_change"] = merged[f"{c}_after"] - merged[f"{c}_before"]
+    pb = per_base(before) if per_base_before is None else per_base_before
+    pa = per_base(after) if per_base_after is None else per_base_after
+    ids_b, ids_a = pb["base_id"].astype(str).tolist(), pa["base_id"].astype(str).tolist()
+    order = list(dict.fromkeys([*ids_b, *ids_a]))
+    pos_b = {b: i for i, b in enumerate(ids_b)}
+    pos_a = {b: i for i, b in enumerate(ids_a)}
     geo_b = dict(zip(before.bases["id"].astype(str), before.bases.geometry, strict=True))
     geo_a = dict(zip(after.bases["id"].astype(str), after.bases.geometry, strict=True))
     status = []
-    for b in merged["base_id"]:
+    for b in order:
         if b not in geo_a:
             status.append("removed")
         elif b not in geo_b:
             status.append("added")
         else:
             status.append("kept" if geo_b[b].equals_exact(geo_a[b], 1e-6) else "moved")
-    merged.insert(1, "status", status)
-    return merged[["base_id", "status", *[f"{c}_{s}" for c in cols for s in ("before", "after", "change")]]]
+    data: dict[str, Any] = {"base_id": order, "status": status}
+    take_b = np.array([pos_b.get(b, -1) for b in order], dtype=np.int64)
+    take_a = np.array([pos_a.get(b, -1) for b in order], dtype=np.int64)
+    for c in cols:
+        # a base missing on one side counts 0 there
+        vb = np.where(take_b >= 0, pb[c].to_numpy(dtype=float)[np.maximum(take_b, 0)] if len(pb) else 0.0, 0.0)
+        va = np.where(take_a >= 0, pa[c].to_numpy(dtype=float)[np.maximum(take_a, 0)] if len(pa) else 0.0, 0.0)
+        data[f"{c}_before"], data[f"{c}_after"], data[f"{c}_change"] = vb, va, va - vb
+    return pd.DataFrame(data)
 
 
 @dataclass
@@ -1021,18 +1096,33 @@ class ChangedAreas:
     transform
         Affine transform of the grids (network CRS).
     before, after
-        The :class:`coverkit.coverage.AreaLayers` (first-due areas, gaps, single cover) before and after.
+        The :class:`coverkit.coverage.AreaLayers` (first-due areas, gaps, single cover) before and after, built on
+        first use (a map of the changed areas alone does not need them).
     """
 
     polygons: gpd.GeoDataFrame
     delta_grid: np.ndarray
     status_grid: np.ndarray
     transform: Any
-    before: AreaLayers
-    after: AreaLayers
+    _before: AreaLayers | Callable[[], AreaLayers] = field(repr=False)
+    _after: AreaLayers | Callable[[], AreaLayers] = field(repr=False)
+
+    @property
+    def before(self) -> AreaLayers:
+        """The area layers before the change."""
+        if callable(self._before):
+            self._before = self._before()
+        return self._before
+
+    @property
+    def after(self) -> AreaLayers:
+        """The area layers after the change."""
+        if callable(self._after):
+            self._after = self._after()
+        return self._after
 
 
-def _cell_nearest(grid: AreaGrid) -> np.ndarray:
+def cell_nearest_s(grid: AreaGrid) -> np.ndarray:
     """Nearest base time (s) per grid cell (flat, nrow*ncol), inf where not reached or no road within reach."""
     out = np.full(grid.nrow * grid.ncol, np.inf)
     _, t = nearest_sources(grid.table.times, k=1)
@@ -1053,6 +1143,9 @@ def changed_areas(
     *,
     calls_before: CoverageResult | None = None,
     calls_after: CoverageResult | None = None,
+    layers_before: AreaLayers | Callable[[], AreaLayers] | None = None,
+    layers_after: AreaLayers | Callable[[], AreaLayers] | None = None,
+    nearest_s: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> ChangedAreas:
     """Polygons of the areas that lose or gain coverage, from the road-near grids before and after.
 
@@ -1063,18 +1156,49 @@ def changed_areas(
     the polygon weights add up to the comparison's lost (gained) demand; a cell holding both lost and gained points
     appears in one polygon of each kind. The gaps before and after count the uncovered calls of ``calls_before``
     and ``calls_after`` (the incidents' coverage results) besides the uncovered demand of ``before``/``after``.
+
+    A caller answering many scenarios on one base state may pass what it keeps: ``layers_before`` /
+    ``layers_after`` (the area layers, or a function building them on first use; default
+    :func:`coverkit.coverage.area_layers` on each grid, on first use) and ``nearest_s`` (per cell, flat, the
+    nearest base time before and after, as :func:`cell_nearest_s` gives; then the grids' own times are not read).
+    The polygons are the same either way.
     """
     calls = tuple(c.demand for c in (calls_before, calls_after) if c is not None)
     gb = grid_before or area_grid(net_before, before, cell_m, reach_m, points=calls)
     ga = grid_after or area_grid(net_after, after, cell_m, reach_m, points=calls)
     if (gb.nrow, gb.ncol, gb.cell_m) != (ga.nrow, ga.ncol, ga.cell_m) or gb.transform != ga.transform:
         raise ValueError("changed_areas needs the same grid before and after (networks sharing their nodes)")
-    nrow, ncol, transform, cell = gb.nrow, gb.ncol, gb.transform, gb.cell_m
-    travel = before.standard.travel_s
-    tb, ta = _cell_nearest(gb), _cell_nearest(ga)
-    on_any = np.zeros(nrow * ncol, dtype=bool)
+    tb, ta = nearest_s if nearest_s is not None else (cell_nearest_s(gb), cell_nearest_s(ga))
+    on_any = np.zeros(gb.nrow * gb.ncol, dtype=bool)
     on_any[gb.on[gb.near]] = True
     on_any[ga.on[ga.near]] = True
+    polys, lost, gained = _changed_polygons(gb, before, after, incidents, tb, ta, on_any)
+    with np.errstate(invalid="ignore"):
+        delta = np.where(on_any, ta - tb, np.nan)
+    status = np.zeros(gb.nrow * gb.ncol, dtype=np.int8)
+    status[~on_any] = -2
+    status[gained] = 1
+    status[lost] = -1
+    shape = (gb.nrow, gb.ncol)
+    if layers_before is None:
+        layers_before = lambda: area_layers(net_before, before, incidents=calls_before, grid=gb)  # noqa: E731
+    if layers_after is None:
+        layers_after = lambda: area_layers(net_after, after, incidents=calls_after, grid=ga)  # noqa: E731
+    return ChangedAreas(polys, delta.reshape(shape), status.reshape(shape), gb.transform, layers_before, layers_after)
+
+
+def _changed_polygons(
+    grid: AreaGrid,
+    before: CoverageResult,
+    after: CoverageResult,
+    incidents: gpd.GeoDataFrame | None,
+    tb: np.ndarray,
+    ta: np.ndarray,
+    on_any: np.ndarray,
+) -> tuple[gpd.GeoDataFrame, np.ndarray, np.ndarray]:
+    """The lost and gained polygons of :func:`changed_areas` and the lost and gained cell masks (flat)."""
+    nrow, ncol, transform, cell = grid.nrow, grid.ncol, grid.transform, grid.cell_m
+    travel = before.standard.travel_s
     cov_b, cov_a = tb <= travel, ta <= travel
     lost = on_any & cov_b & ~cov_a
     gained = on_any & ~cov_b & cov_a
@@ -1101,10 +1225,10 @@ def changed_areas(
         inc_cell = irow[inside] * ncol + icol[inside]
     parts = []
     for kind, mask, pts in (("lost", lost, p_lost), ("gained", gained, p_gain)):
+        if not mask.any():
+            continue
         labels = label_regions(mask.reshape(nrow, ncol)).ravel()
         n_lab = int(labels.max())
-        if n_lab == 0:
-            continue
         weight = np.bincount(labels[dcell[pts]], weights=w[pts], minlength=n_lab + 1)
         count = np.bincount(labels[dcell[pts]], minlength=n_lab + 1)
         inc = np.bincount(labels[inc_cell], minlength=n_lab + 1) if inc_cell is not None else np.zeros(n_lab + 1)
@@ -1127,15 +1251,7 @@ def changed_areas(
             geometry=[],
             crs=d.crs,
         )
-    with np.errstate(invalid="ignore"):
-        delta = np.where(on_any, ta - tb, np.nan)
-    status = np.zeros(nrow * ncol, dtype=np.int8)
-    status[~on_any] = -2
-    status[gained] = 1
-    status[lost] = -1
-    layers_b = area_layers(net_before, before, incidents=calls_before, grid=gb)
-    layers_a = area_layers(net_after, after, incidents=calls_after, grid=ga)
-    return ChangedAreas(polys, delta.reshape(nrow, ncol), status.reshape(nrow, ncol), transform, layers_b, layers_a)
+    return polys, lost, gained
 
 
 __all__ = [
@@ -1150,6 +1266,7 @@ __all__ = [
     "Slowdown",
     "apply_base_changes",
     "apply_scenario",
+    "cell_nearest_s",
     "change_log",
     "changed_areas",
     "closure_cut",

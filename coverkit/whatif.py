@@ -40,7 +40,7 @@ from coverkit.scenario import (
     edge_changes,
     slowed_travel_s,
 )
-from coverkit.travel import node_times, snap_points
+from coverkit.travel import nearest_sources, node_times, snap_points
 from coverkit.travel.search import CHUNK_CELLS, dense_to_csr, exits, same_edge_min
 from coverkit.travel.snap import Snapped
 
@@ -272,6 +272,97 @@ class WhatIf:
         )
         return sp.csr_matrix((t, (r, c)), shape=(n, len(points)))
 
+    def point_times_after(self, points: Snapped, stored: sp.csr_matrix, outcome: WhatIfOutcome) -> sp.csr_matrix:
+        """:meth:`point_times` of ``points`` after ``outcome``, given their times before (``stored``, as
+        :meth:`point_times` gives them without an outcome). Equal to ``point_times(points, outcome)``, deriving only
+        what can differ: a base not searched again keeps its stored times on the points off the changed edges; a
+        base searched again at the same snap keeps them too on the points whose road ends it reaches at the same
+        time as before (a point's time is the arithmetic of its road ends' node times, the same either way); the
+        rest (added and moved bases, points on changed edges or behind changed node times) is derived from the
+        outcome's node times, as :meth:`run` does for the demand points."""
+        new_ids = outcome.bases["id"].astype(str).tolist()
+        return self._derived_times(
+            points, stored, new_ids, set(outcome.recomputed_bases), outcome.network, outcome.node_t, outcome.base_snap
+        )
+
+    def _derived_times(
+        self,
+        points: Snapped,
+        stored: sp.csr_matrix,
+        new_ids: list[str],
+        again: set[str],
+        net2: RoadNetwork,
+        node_t2: sp.csr_matrix,
+        base_snap2: Snapped,
+    ) -> sp.csr_matrix:
+        """Times of ``points`` (stored before) from the bases ``new_ids`` after a change (``again``: the bases
+        searched again; ``net2``, ``node_t2``, ``base_snap2``: network, node times and snapped bases after)."""
+        where = {b: i for i, b in enumerate(self.bases["id"].astype(str).tolist())}
+        n = len(points)
+        stored = sp.csr_matrix(stored)
+        is_changed = self.net.travel_s != net2.travel_s
+        cols = np.unique(points.entry_point[is_changed[points.entry_edge]])
+        _, e_node, _ = exits(self.net, points, self.direction)
+        e_point = points.entry_point
+        kept_parts, full_rows, redo_of = [], [], {}
+        # row by row (one step per base): which points keep their stored value, which are derived again
+        for j, base in enumerate(new_ids):
+            i = where[base] if base not in again else self._same_snap(base, where, new_ids, base_snap2)
+            if i is None:  # added, moved or re-snapped: every point again
+                full_rows.append(j)
+                kept_parts.append((np.zeros(0, dtype=np.int64), np.zeros(0)))
+                continue
+            redo = cols
+            if base in again:
+                moved = _dense_rows(self.node_t, np.array([i]))[0] != _dense_rows(node_t2, np.array([j]))[0]
+                redo = np.union1d(cols, e_point[moved[e_node]])
+            mark = np.zeros(n, dtype=bool)
+            mark[redo] = True
+            lo, hi = stored.indptr[i], stored.indptr[i + 1]
+            keep = ~mark[stored.indices[lo:hi]]
+            kept_parts.append((stored.indices[lo:hi][keep], stored.data[lo:hi][keep]))
+            if len(redo):
+                redo_of[j] = redo
+        # the derived values in at most two passes: every point for the full rows, the union of the redo sets for
+        # the others (each row then takes its own redo points only)
+        fr, fc, ft = _times_from_nodes(
+            net2, node_t2, base_snap2, np.array(full_rows, dtype=np.int64), points, np.arange(n), self.horizon_s,
+            self.direction,
+        )  # fmt: skip
+        if redo_of:
+            rows = np.array(list(redo_of), dtype=np.int64)
+            union = np.unique(np.concatenate(list(redo_of.values())))
+            pr, pc, pt = _times_from_nodes(
+                net2, node_t2, base_snap2, rows, points, union, self.horizon_s, self.direction
+            )
+            wanted = np.concatenate([j * n + r for j, r in redo_of.items()])
+            own = np.isin(pr * n + pc, wanted)
+            fr, fc, ft = np.r_[fr, pr[own]], np.r_[fc, pc[own]], np.r_[ft, pt[own]]
+        order = np.argsort(fr, kind="stable")
+        fr, fc, ft = fr[order], fc[order], ft[order]
+        cuts = np.searchsorted(fr, np.arange(len(new_ids) + 1))
+        idx_parts, t_parts, counts = [], [], []
+        for j, (row_c, row_t) in enumerate(kept_parts):  # a row's columns are disjoint: no sort needed
+            c, t = fc[cuts[j] : cuts[j + 1]], ft[cuts[j] : cuts[j + 1]]
+            idx_parts += [row_c, c]
+            t_parts += [row_t, t]
+            counts.append(len(row_c) + len(c))
+        indptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+        indices = np.concatenate(idx_parts).astype(np.int64) if idx_parts else np.zeros(0, dtype=np.int64)
+        data = np.concatenate(t_parts) if t_parts else np.zeros(0)
+        return sp.csr_matrix((data, indices, indptr), shape=(len(new_ids), n))
+
+    def _same_snap(self, base_id: str, where: dict[str, int], new_ids: list[str], base_snap2: Snapped) -> int | None:
+        """The base's row before when it stands where it stood, with the same snap entries after the change."""
+        i = where.get(base_id)
+        if i is None:
+            return None
+        j = new_ids.index(base_id)
+        a, b = self.base_snap, base_snap2
+        ea, eb = a.entry_point == i, b.entry_point == j
+        same = np.array_equal(a.entry_edge[ea], b.entry_edge[eb]) and np.array_equal(a.entry_frac[ea], b.entry_frac[eb])
+        return i if same else None
+
     # -- the incremental recomputation ---------------------------------------------------------------------------------
     def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
         """Boolean per base: can the edge times ``travel_s`` change this base's searches? (see the class notes)"""
@@ -339,29 +430,16 @@ class WhatIf:
             (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
             shape=(len(new_ids), net2.n_nodes),
         )
-        is_changed = np.zeros(net2.n_edges, dtype=bool)
-        is_changed[changed] = True
         results = {}
+        again = {new_ids[i] for i in rows_new}
         for name, dem in self.demand.items():
             snap2 = self.point_snap[name]
-            old_times = self.tables[name].times
-            cols = np.unique(snap2.entry_point[is_changed[snap2.entry_edge]])
-            # stored times of untouched bases on untouched points; derived times for the rest
-            src = old_times[keep_src[kept]].tocoo()
-            ok = ~np.isin(src.col, cols)
-            r_parts, c_parts, t_parts = [kept[src.row[ok]]], [src.col[ok]], [src.data[ok]]
-            for rr, cc in ((rows_new, np.arange(len(dem))), (kept, cols)):
-                r, c, t = _times_from_nodes(net2, node_t2, base_snap2, rr, snap2, cc, self.horizon_s, self.direction)
-                r_parts.append(r)
-                c_parts.append(c)
-                t_parts.append(t)
-            times = sp.csr_matrix(
-                (np.concatenate(t_parts), (np.concatenate(r_parts), np.concatenate(c_parts))),
-                shape=(len(new_ids), len(dem)),
-            )
+            # stored times where nothing they depend on changed; derived from the node times after elsewhere
+            times = self._derived_times(snap2, self.tables[name].times, new_ids, again, net2, node_t2, base_snap2)
             table = TravelTable(base_snap2, snap2, times, self.horizon_s, self.direction)
+            nearest = nearest_sources(times, k=2)  # the same for every standard
             for s in self.standards:
-                results[(s.name, name)] = evaluate_coverage(net2, bases_after, dem, s, table=table)
+                results[(s.name, name)] = evaluate_coverage(net2, bases_after, dem, s, table=table, nearest=nearest)
         identical = all(
             np.array_equal(results[k].demand["travel_s"].to_numpy(), self.results[k].demand["travel_s"].to_numpy())
             and (results[k].demand["first_base"] == self.results[k].demand["first_base"]).all()

@@ -46,7 +46,9 @@ def serve(
 
     state = BaseState(study_path)
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
-    sock = socket.socket(family, socket.SOCK_STREAM)
+    # IPPROTO_TCP named: asyncio turns Nagle off (TCP_NODELAY) only on sockets made with it, and with Nagle on,
+    # every answer on a kept-alive connection waits ~40 ms for the client's delayed ACK
+    sock = socket.socket(family, socket.SOCK_STREAM, socket.IPPROTO_TCP)
     sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
     try:
         sock.bind((host.strip("[]"), port))

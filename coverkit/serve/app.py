@@ -27,7 +27,7 @@ from coverkit.scenario import scenario_from_table, scenario_text
 from coverkit.serve.rank import study_candidates
 from coverkit.serve.routes_more import more_routes
 from coverkit.serve.security import Guard
-from coverkit.serve.state import BaseState
+from coverkit.serve.state import BaseState, after_layers
 from coverkit.serve.study_extras import study_extras
 
 STATIC = Path(__file__).parent / "static"
@@ -84,9 +84,9 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
     # written to, but its caches (edge trees) fill on first use
     lock = threading.Lock()
 
-    def locked_compare(scenario: Any, std: str | None) -> dict[str, Any]:
+    def locked_compare(scenario: Any, std: str | None, layers: tuple[str, ...]) -> dict[str, Any]:
         with lock:
-            return state.compare(scenario, std)
+            return state.compare(scenario, std, layers=layers)
 
     async def page(request: Request) -> Response:
         return FileResponse(STATIC / "index.html", headers={"Cache-Control": "no-store"})
@@ -115,7 +115,8 @@ def create_app(state: BaseState, *, token: str, hosts: set[str]) -> Any:
             body = await _scenario_body(request)
             scenario = scenario_from_table(body, where="request body")
             std = request.query_params.get("standard")
-            answer = await run_in_threadpool(locked_compare, scenario, std)
+            layers = after_layers(request.query_params.get("layers"))
+            answer = await run_in_threadpool(locked_compare, scenario, std, layers)
         except CoverkitError as exc:
             return _error(422, str(exc).splitlines()[0])
         return JSONResponse(answer)

@@ -14,16 +14,19 @@ from typing import Any
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
+import scipy.sparse as sp
 import shapely
 
 from coverkit import CAUTION
 from coverkit.compare_run import comparison_rows, whatif_from_study
-from coverkit.coverage import grid_polygons
+from coverkit.coverage import AreaLayers, area_layers, grid_polygons, per_base
 from coverkit.errors import StudyError
 from coverkit.progress import Steps
-from coverkit.scenario import ChangedAreas, Comparison, Scenario, changed_areas, compare_results
-from coverkit.stages import CoverageStage, coverage_stage
+from coverkit.scenario import ChangedAreas, Comparison, Scenario, cell_nearest_s, changed_areas, compare_results
+from coverkit.stages import CoverageStage, availability_stage, coverage_stage
 from coverkit.study import load_study, study_area
+from coverkit.travel.snap import Snapped
 from coverkit.whatif import WhatIf, WhatIfOutcome
 
 #: Decimal places of degrees in GeoJSON (about 0.1 m: finer than any snap limit).
@@ -51,6 +54,61 @@ def geojson(frame: gpd.GeoDataFrame, columns: list[str]) -> dict[str, Any]:
         props = {c: _clean(v[i]) for c, v in cols.items()}
         features.append({"type": "Feature", "geometry": shapely.geometry.mapping(geom), "properties": props})
     return {"type": "FeatureCollection", "features": features}
+
+
+#: The area layers of one standard the page draws (``GET /api/layers/{kind}``, ``?layers=`` of a comparison).
+AREA_KINDS = ("gaps", "first_due", "depth")
+#: What ``?layers=`` of a comparison may name: the area layers after the change, and the availability after it.
+AFTER_LAYERS = (*AREA_KINDS, "availability")
+#: Per base columns sent (the order of :func:`coverkit.coverage.per_base` with the keys named first).
+PER_BASE_COLUMNS = (
+    "first_due_demand", "first_due_share", "first_due_covered", "sole_cover", "reaches_in_standard",
+)  # fmt: skip
+
+
+def area_json(areas: AreaLayers, kind: str, crs: Any) -> dict[str, Any]:
+    """One area layer of ``areas`` (``kind`` one of :data:`AREA_KINDS`) as GeoJSON with the page's properties."""
+    if kind == "gaps":
+        return geojson(areas.gaps, ["gap_id", *areas.gap_counts(), "area_km2"])
+    if kind == "first_due":
+        return geojson(areas.first_due, ["base_id", "status", "area_km2"])
+    depth = areas.depth_grid
+    poly = grid_polygons(depth, areas.transform, crs, valid=depth >= 0).dissolve("value", as_index=False)
+    return geojson(poly.rename(columns={"value": "depth"}), ["depth"])
+
+
+def column_min(m: Any) -> np.ndarray:
+    """Per column of a sparse matrix, the smallest stored value (inf where none is stored; stored zeros count)."""
+    r = sp.csr_matrix(m)
+    best = np.full(r.shape[1], np.inf)
+    for i in range(r.shape[0]):  # one step per base: a row holds each column once
+        cols = r.indices[r.indptr[i] : r.indptr[i + 1]]
+        best[cols] = np.minimum(best[cols], r.data[r.indptr[i] : r.indptr[i + 1]])
+    return best
+
+
+def after_layers(query: str | None) -> tuple[str, ...]:
+    """The layers named by a comparison's ``?layers=`` (comma separated, in :data:`AFTER_LAYERS` order); a
+    StudyError names the query field and the choices otherwise."""
+    names = [n.strip() for n in (query or "").split(",") if n.strip()]
+    bad = [n for n in names if n not in AFTER_LAYERS]
+    if bad:
+        raise StudyError(f"query 'layers': '{bad[0]}' is not a layer after the change; use {', '.join(AFTER_LAYERS)}.")
+    return tuple(n for n in AFTER_LAYERS if n in names)
+
+
+def per_base_rows(frames: dict[tuple[str, str], pd.DataFrame]) -> list[dict[str, Any]]:
+    """One row per standard, demand layer and base (``standard``, ``demand``, ``base_id`` and
+    :data:`PER_BASE_COLUMNS`) from :func:`coverkit.coverage.per_base` tables keyed by (standard, demand)."""
+    rows = []
+    for (std, dem), table in frames.items():
+        cols = {c: table[c].to_numpy() for c in ("base_id", *PER_BASE_COLUMNS)}
+        for i in range(len(table)):
+            rows.append(
+                {"standard": std, "demand": dem, "base_id": str(cols["base_id"][i]),
+                 **{c: _clean(cols[c][i]) for c in PER_BASE_COLUMNS}}
+            )  # fmt: skip
+    return rows
 
 
 class BaseState:
@@ -87,6 +145,7 @@ class BaseState:
         self._road_pieces()
         self.layers = self._base_layers()
         self.info = self._study_info()
+        self._kept = _Kept.of(self)
 
     # -- roads --------------------------------------------------------------------------------------------------------
     def _road_pieces(self) -> None:
@@ -102,14 +161,23 @@ class BaseState:
         self.piece_first = first[order]
         self.piece_u, self.piece_v = u[self.piece_first], v[self.piece_first]
 
-    def road_minutes(self, node_t: Any) -> list[float | None]:
-        """Per road piece: minutes from the nearest base to the piece's nearer end (None: not reached)."""
-        m = node_t.tocsc()
-        best = np.full(m.shape[1], np.inf)
-        coo = m.tocoo()
-        np.minimum.at(best, coo.col, coo.data)
-        t = np.minimum(best[self.piece_u], best[self.piece_v]) / 60.0
-        return [round(float(x), 2) if np.isfinite(x) else None for x in t]
+    def piece_minutes(self, node_t: Any) -> np.ndarray:
+        """Per road piece: minutes from the nearest base to the piece's nearer end (inf: not reached), unrounded."""
+        best = column_min(node_t)
+        return np.minimum(best[self.piece_u], best[self.piece_v]) / 60.0
+
+    def road_minutes(self, node_t: Any, *, like: tuple[np.ndarray, list] | None = None) -> list[float | None]:
+        """Per road piece: minutes from the nearest base to the piece's nearer end, to 0.01 min (None: not
+        reached). ``like`` = (unrounded minutes, their list) of another state: the pieces whose minutes are the
+        same keep its values, only the others are rounded again (the same values, fewer Python steps)."""
+        t = self.piece_minutes(node_t)
+        if like is None:
+            return [round(float(x), 2) if np.isfinite(x) else None for x in t]
+        old, values = like
+        out = list(values)
+        for i in np.flatnonzero(t != old):
+            out[i] = round(float(t[i]), 2) if np.isfinite(t[i]) else None
+        return out
 
     def _base_layers(self) -> dict[str, dict[str, Any]]:
         w = self.whatif
@@ -142,12 +210,8 @@ class BaseState:
             cands = read_points(self.study.siting.candidates, w.net.crs, what="candidates")
             layers["candidates"] = geojson(cands, ["id", *[c for c in ("name",) if c in cands.columns]])
         for name, stage in self.stages.items():
-            areas = stage.areas
-            layers[f"gaps/{name}"] = geojson(areas.gaps, ["gap_id", *areas.gap_counts(), "area_km2"])
-            layers[f"first_due/{name}"] = geojson(areas.first_due, ["base_id", "status", "area_km2"])
-            depth = areas.depth_grid
-            poly = grid_polygons(depth, areas.transform, w.net.crs, valid=depth >= 0).dissolve("value", as_index=False)
-            layers[f"depth/{name}"] = geojson(poly.rename(columns={"value": "depth"}), ["depth"])
+            for kind in AREA_KINDS:
+                layers[f"{kind}/{name}"] = area_json(stage.areas, kind, w.net.crs)
         return layers
 
     def _study_info(self) -> dict[str, Any]:
@@ -188,39 +252,64 @@ class BaseState:
     def evaluate(self, scenario: Scenario, standard: str | None = None) -> Evaluation:
         """``scenario`` on the base state: the what-if outcome, one comparison per standard and demand layer and the
         changed areas of one standard (residents, with the calls counted), as Python objects (nothing is written
-        into the base state)."""
+        into the base state).
+
+        The before side comes from what the base state keeps (summaries, per base tables, area layers, the grid's
+        nearest times); the changed areas time only the road-near cells after the change, from the bases searched
+        again, and the area layers after are built on first use of ``changed.after``. The figures equal
+        :func:`coverkit.scenario.compare_results` and :func:`coverkit.scenario.changed_areas` without those
+        shortcuts (tests/test_serve_after.py)."""
         std = self.standard_name(standard)
-        w = self.whatif
+        w, kept = self.whatif, self._kept
         outcome = w.run(scenario)
         keys = [(s.name, name) for name in w.demand for s in self.study.standards]
-        comparisons = {k: compare_results(w.results[k], outcome.results[k]) for k in keys}
+        per_base_after = {k: per_base(outcome.results[k]) for k in keys}
+        comparisons = {
+            k: compare_results(
+                w.results[k], outcome.results[k], summary_before=kept.summary[k], per_base_before=kept.per_base[k],
+                per_base_after=per_base_after[k],
+            )
+            for k in keys
+        }  # fmt: skip
         if all(c.unchanged for c in comparisons.values()) and not len(outcome.changes.base_changes):
             outcome.changes.notes.append("coverage unchanged: no travel time to any demand point changed")
-        # the grid cells keep their snap; their times after come from the outcome's node times (no new search)
-        grid_after = dataclasses.replace(
-            self.grid,
-            table=dataclasses.replace(
-                self.grid.table,
-                base_snap=outcome.base_snap,
-                times=w.point_times(self.grid.table.point_snap, outcome),
-            ),
-        )
+        nearest_after = np.full(self.grid.nrow * self.grid.ncol, np.inf)
+        near_t = w.point_times_after(kept.near_snap, kept.near_times, outcome)
+        nearest_after[kept.near_cells] = column_min(near_t)  # the first of nearest_sources, without a sort
         inc = self.incidents
-        ca = changed_areas(
-            w.net, outcome.network, w.results[(std, self.residents)], outcome.results[(std, self.residents)],
-            incidents=w.demand[inc] if inc else None, grid_before=self.grid, grid_after=grid_after,
-            calls_before=w.results[(std, inc)] if inc else None,
-            calls_after=outcome.results[(std, inc)] if inc else None,
-        )  # fmt: skip
-        return Evaluation(scenario, std, outcome, comparisons, ca)
+        res_after = outcome.results[(std, self.residents)]
+        calls_after = outcome.results[(std, inc)] if inc else None
 
-    def compare(self, scenario: Scenario, standard: str | None = None) -> dict[str, Any]:
+        def layers_after() -> AreaLayers:
+            # every timed cell after the change (the due areas tile the study area), only when asked for
+            times = w.point_times_after(self.grid.table.point_snap, self.grid.table.times, outcome)
+            table = dataclasses.replace(self.grid.table, base_snap=outcome.base_snap, times=times)
+            grid_after = dataclasses.replace(self.grid, table=table)
+            return area_layers(outcome.network, res_after, incidents=calls_after, grid=grid_after)
+
+        ca = changed_areas(
+            w.net, outcome.network, w.results[(std, self.residents)], res_after,
+            incidents=w.demand[inc] if inc else None, grid_before=self.grid, grid_after=self.grid,
+            calls_before=w.results[(std, inc)] if inc else None, calls_after=calls_after,
+            layers_before=self.stages[std].areas, layers_after=layers_after,
+            nearest_s=(kept.nearest_before, nearest_after),
+        )  # fmt: skip
+        return Evaluation(scenario, std, outcome, comparisons, ca, per_base_after)
+
+    def compare(
+        self, scenario: Scenario, standard: str | None = None, *, layers: tuple[str, ...] = ()
+    ) -> dict[str, Any]:
         """The comparison rows of ``scenario`` (the columns of ``comparison.csv``), its change lines, the changed
-        areas of one standard (residents) and the map after the change, as JSON-ready values."""
+        areas of one standard (residents), the map and the per base figures after the change, as JSON-ready values.
+
+        ``layers`` names further layers after the change (:func:`after_layers`): ``gaps``, ``first_due`` and
+        ``depth`` of the standard add ``gaps_after`` ... (the area layers are built for them), ``availability``
+        runs the study's ``[availability]`` section on the network and bases after the change (a search without
+        horizon from every base, so only on request); ``availability_after`` is null otherwise."""
         ev = self.evaluate(scenario, standard)
         outcome, ca = ev.outcome, ev.changed
         rows = comparison_rows(scenario.name, ev.comparisons, self.kinds)
-        return {
+        answer = {
             "scenario": scenario.name,
             "rows": [{k: _clean(v) for k, v in r.items()} for r in rows],
             "changes": outcome.changes.lines(),
@@ -228,9 +317,67 @@ class BaseState:
             "changed_areas": geojson(ca.polygons, ["area_id", "change", "weight", "points", "incidents", "area_km2"]),
             "bases_after": geojson(outcome.bases, ["id", "name", "units"]),
             "closed_roads": geojson(outcome.changes.closed, ["edge_id", "way_id", "name", "road_class", "length_m"]),
-            "road_minutes_after": self.road_minutes(outcome.node_t),
-            "caution": CAUTION,
+            "road_minutes_after": self.road_minutes(outcome.node_t, like=self._kept.minutes),
+            "per_base_after": per_base_rows(ev.per_base_after),
         }
+        for kind in AREA_KINDS:
+            if kind in layers:
+                answer[f"{kind}_after"] = area_json(ca.after, kind, outcome.network.crs)
+        wanted = "availability" in layers and self.study.availability is not None
+        answer["availability_after"] = self.availability_answer(outcome) if wanted else None
+        answer["caution"] = CAUTION
+        return answer
+
+    def availability_answer(self, outcome: WhatIfOutcome | None = None) -> dict[str, Any] | None:
+        """The study's ``[availability]`` section on the network and bases after ``outcome`` (default the base
+        state's), as :func:`coverkit.study.run_study` runs it, or None without that section:
+        ``{standard, demand, summary, units}`` (the summary row and one row per unit)."""
+        cfg, w = self.study.availability, self.whatif
+        if cfg is None:
+            return None
+        std = self.study.standard_named(cfg.standard, "availability.standard")
+        dname = self.study.demand_named(cfg.demand, "availability.demand", "incidents")
+        spec = next(d for d in self.study.demand if d.name == dname)
+        net, bases = (w.net, w.bases) if outcome is None else (outcome.network, outcome.bases)
+        run = availability_stage(
+            net, bases, w.demand[dname], std, cfg, demand_name=dname, max_snap_m=w.demand_snap_m[dname],
+            window=(spec.start, spec.end),
+        ).run  # fmt: skip
+        return {
+            "standard": std.name,
+            "demand": dname,
+            "summary": {k: _clean(v) for k, v in run.summary.items()},
+            "units": [{k: _clean(v) for k, v in r.items()} for r in run.units.to_dict("records")],
+        }
+
+
+@dataclasses.dataclass(frozen=True)
+class _Kept:
+    """What a comparison reads from the base state before the change, computed once: per (standard, demand) the
+    summary and the per base table, and for the grid's road-near cells their snap, their base times and, per cell
+    of the grid, the nearest base time (the before side of the changed areas)."""
+
+    summary: dict[tuple[str, str], dict]
+    per_base: dict[tuple[str, str], pd.DataFrame]
+    near_cells: np.ndarray
+    near_snap: Snapped
+    near_times: sp.csr_matrix
+    nearest_before: np.ndarray
+    minutes: tuple[np.ndarray, list]
+
+    @classmethod
+    def of(cls, state: BaseState) -> _Kept:
+        results, grid = state.whatif.results, state.grid
+        near = np.flatnonzero(grid.near)
+        return cls(
+            {k: r.summary() for k, r in results.items()},
+            {k: per_base(r) for k, r in results.items()},
+            grid.on[near],
+            grid.table.point_snap.subset(near),
+            grid.table.times[:, near].tocsr(),
+            cell_nearest_s(grid),
+            (state.piece_minutes(state.whatif.node_t), state.road_minutes(state.whatif.node_t)),
+        )
 
 
 @dataclasses.dataclass(frozen=True)
@@ -242,6 +389,10 @@ class Evaluation:
     outcome: WhatIfOutcome
     comparisons: dict[tuple[str, str], Comparison]
     changed: ChangedAreas
+    per_base_after: dict[tuple[str, str], pd.DataFrame] = dataclasses.field(default_factory=dict)
 
 
-__all__ = ["BaseState", "Evaluation", "geojson"]
+__all__ = [
+    "AFTER_LAYERS", "AREA_KINDS", "PER_BASE_COLUMNS", "BaseState", "Evaluation", "after_layers", "area_json",
+    "geojson", "per_base_rows",
+]  # fmt: skip
