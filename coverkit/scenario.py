@@ -424,8 +424,8 @@ class ChangeLog:
         """Plain lines describing the changes (for the CLI and the report)."""
         out = []
         if len(self.closed_edge_ids):
-            roads = self.closed_roads()
-            names = ", ".join(dict.fromkeys(n or "(unnamed)" for n in roads["name"]))
+            # the names in the order of closed_roads() (sorted), without its group-by
+            names = ", ".join(dict.fromkeys(n or "(unnamed)" for n in sorted(set(self.closed["name"]))))
             out.append(
                 f"closed {self.closed_km:.2f} km of road ({len(self.closed_edge_ids):,} directed edges): {names}"
             )
@@ -1233,7 +1233,8 @@ def _changed_polygons(
         count = np.bincount(labels[dcell[pts]], minlength=n_lab + 1)
         inc = np.bincount(labels[inc_cell], minlength=n_lab + 1) if inc_cell is not None else np.zeros(n_lab + 1)
         poly = grid_polygons(labels.reshape(nrow, ncol), transform, d.crs, valid=labels.reshape(nrow, ncol) > 0)
-        poly = poly.dissolve("value", as_index=False)
+        if poly["value"].duplicated().any():  # a region traced in several rings; most are one polygon already
+            poly = poly.dissolve("value", as_index=False)
         lab = poly["value"].to_numpy(dtype=int)
         poly["change"] = kind
         poly["weight"] = weight[lab]

@@ -312,12 +312,12 @@ class WhatIf:
                 full_rows.append(j)
                 kept_parts.append((np.zeros(0, dtype=np.int64), np.zeros(0)))
                 continue
-            redo = cols
+            mark = np.zeros(n, dtype=bool)
+            mark[cols] = True
             if base in again:
                 moved = _dense_rows(self.node_t, np.array([i]))[0] != _dense_rows(node_t2, np.array([j]))[0]
-                redo = np.union1d(cols, e_point[moved[e_node]])
-            mark = np.zeros(n, dtype=bool)
-            mark[redo] = True
+                mark[e_point[moved[e_node]]] = True  # a mask, not a set union: no sort per base
+            redo = np.flatnonzero(mark) if base in again else cols
             lo, hi = stored.indptr[i], stored.indptr[i + 1]
             keep = ~mark[stored.indices[lo:hi]]
             kept_parts.append((stored.indices[lo:hi][keep], stored.data[lo:hi][keep]))

@@ -101,7 +101,10 @@ class Snapped:
         new_pos[index] = np.arange(len(index))
         keep = new_pos[self.entry_point] >= 0
         ep = new_pos[self.entry_point[keep]]
-        order = np.lexsort((self.entry_edge[keep], ep))
+        if len(index) < 2 or bool(np.all(index[1:] > index[:-1])):
+            order = slice(None)  # an increasing index keeps the (point, edge) order of the entries: no sort
+        else:
+            order = np.lexsort((self.entry_edge[keep], ep))
         return Snapped(
             ids=self.ids[index],
             on_network=self.on_network[index],
