@@ -56,7 +56,7 @@ def _dense_rows(m: sp.csr_matrix, rows: np.ndarray) -> np.ndarray:
     return out
 
 
-def _times_from_nodes(
+def times_from_nodes(
     net: RoadNetwork,
     node_t: sp.csr_matrix,
     base_snap: Snapped,
@@ -194,7 +194,7 @@ class WhatIf:
                 net, dem, max_snap_m=self.demand_snap_m[name], off_network="mask", what="demand points",
                 warn_islands=False, exclude_classes=demand_exclude_classes(dem),
             )  # fmt: skip
-            r, c, t = _times_from_nodes(
+            r, c, t = times_from_nodes(
                 net, self.node_t, self.base_snap, all_rows, snap, np.arange(len(dem)), self.horizon_s, direction
             )
             times = sp.csr_matrix((t, (r, c)), shape=(len(self.bases), len(dem)))
@@ -267,7 +267,7 @@ class WhatIf:
             net, node_t, base_snap, n = self.net, self.node_t, self.base_snap, len(self.bases)
         else:
             net, node_t, base_snap, n = outcome.network, outcome.node_t, outcome.base_snap, len(outcome.bases)
-        r, c, t = _times_from_nodes(
+        r, c, t = times_from_nodes(
             net, node_t, base_snap, np.arange(n), points, np.arange(len(points)), self.horizon_s, self.direction
         )
         return sp.csr_matrix((t, (r, c)), shape=(n, len(points)))
@@ -325,14 +325,14 @@ class WhatIf:
                 redo_of[j] = redo
         # the derived values in at most two passes: every point for the full rows, the union of the redo sets for
         # the others (each row then takes its own redo points only)
-        fr, fc, ft = _times_from_nodes(
+        fr, fc, ft = times_from_nodes(
             net2, node_t2, base_snap2, np.array(full_rows, dtype=np.int64), points, np.arange(n), self.horizon_s,
             self.direction,
         )  # fmt: skip
         if redo_of:
             rows = np.array(list(redo_of), dtype=np.int64)
             union = np.unique(np.concatenate(list(redo_of.values())))
-            pr, pc, pt = _times_from_nodes(
+            pr, pc, pt = times_from_nodes(
                 net2, node_t2, base_snap2, rows, points, union, self.horizon_s, self.direction
             )
             wanted = np.concatenate([j * n + r for j, r in redo_of.items()])
@@ -457,4 +457,4 @@ class WhatIf:
         return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new], node_t2, base_snap2)
 
 
-__all__ = ["NO_REACH_NOTE", "WhatIf", "WhatIfOutcome"]
+__all__ = ["NO_REACH_NOTE", "WhatIf", "WhatIfOutcome", "times_from_nodes"]

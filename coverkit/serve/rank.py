@@ -21,7 +21,7 @@ from coverkit.demand_sources import unit_word
 from coverkit.errors import StudyError
 from coverkit.scenario import Scenario
 from coverkit.travel import node_times, snap_points
-from coverkit.whatif import _times_from_nodes
+from coverkit.whatif import times_from_nodes
 
 
 @dataclass(frozen=True)
@@ -67,7 +67,7 @@ def candidate_times(state: Any, net: Any, candidates: gpd.GeoDataFrame, demand: 
     if len(rows):
         sub = snap.subset(rows)
         node_t = node_times(net, sub, w.horizon_s, w.direction)
-        r, c, t = _times_from_nodes(
+        r, c, t = times_from_nodes(
             net, node_t, sub, np.arange(len(rows)), pts, np.arange(len(w.demand[demand])), w.horizon_s, w.direction
         )
         times = sp.csr_matrix((t, (rows[r], c)), shape=(len(candidates), len(w.demand[demand])))

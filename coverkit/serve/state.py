@@ -23,6 +23,7 @@ from coverkit.compare_run import comparison_rows, whatif_from_study
 from coverkit.coverage import AreaLayers, area_layers, grid_polygons, per_base
 from coverkit.errors import StudyError
 from coverkit.progress import Steps
+from coverkit.report.web_map import RAMP, RAMP_MAX_MIN
 from coverkit.scenario import ChangedAreas, Comparison, Scenario, cell_nearest_s, changed_areas, compare_results
 from coverkit.stages import CoverageStage, availability_stage, coverage_stage
 from coverkit.study import load_study, study_area
@@ -33,7 +34,7 @@ from coverkit.whatif import WhatIf, WhatIfOutcome
 COORD_DIGITS = 6
 
 
-def _clean(value: Any) -> Any:
+def json_value(value: Any) -> Any:
     """A JSON-safe value: numpy scalars to Python, inf and NaN to None."""
     if isinstance(value, np.generic):
         value = value.item()
@@ -51,7 +52,7 @@ def geojson(frame: gpd.GeoDataFrame, columns: list[str]) -> dict[str, Any]:
     for i, geom in enumerate(geoms):
         if geom is None or geom.is_empty:
             continue
-        props = {c: _clean(v[i]) for c, v in cols.items()}
+        props = {c: json_value(v[i]) for c, v in cols.items()}
         features.append({"type": "Feature", "geometry": shapely.geometry.mapping(geom), "properties": props})
     return {"type": "FeatureCollection", "features": features}
 
@@ -106,7 +107,7 @@ def per_base_rows(frames: dict[tuple[str, str], pd.DataFrame]) -> list[dict[str,
         for i in range(len(table)):
             rows.append(
                 {"standard": std, "demand": dem, "base_id": str(cols["base_id"][i]),
-                 **{c: _clean(cols[c][i]) for c in PER_BASE_COLUMNS}}
+                 **{c: json_value(cols[c][i]) for c in PER_BASE_COLUMNS}}
             )  # fmt: skip
     return rows
 
@@ -146,6 +147,11 @@ class BaseState:
         self.layers = self._base_layers()
         self.info = self._study_info()
         self._kept = _Kept.of(self)
+
+    @property
+    def per_base_tables(self) -> dict[tuple[str, str], pd.DataFrame]:
+        """Per (standard, demand) the base state's :func:`coverkit.coverage.per_base` table (computed once)."""
+        return self._kept.per_base
 
     # -- roads --------------------------------------------------------------------------------------------------------
     def _road_pieces(self) -> None:
@@ -235,9 +241,12 @@ class BaseState:
             "demand": [{"name": d.name, "kind": d.kind} for d in self.study.demand],
             "bases": self.layers["bases"],
             "candidates": self.layers.get("candidates"),
-            "figures": [{k: _clean(v) for k, v in f.items()} for f in figures],
+            "figures": [{k: json_value(v) for k, v in f.items()} for f in figures],
             "layers": sorted(self.layers),
             "base_snap_m": self.whatif.base_snap_m,
+            # the road colours' one home is the report's map, so the page and the report agree
+            "ramp": list(RAMP),
+            "ramp_max_min": RAMP_MAX_MIN,
         }
 
     # -- one scenario -------------------------------------------------------------------------------------------------
@@ -311,7 +320,7 @@ class BaseState:
         rows = comparison_rows(scenario.name, ev.comparisons, self.kinds)
         answer = {
             "scenario": scenario.name,
-            "rows": [{k: _clean(v) for k, v in r.items()} for r in rows],
+            "rows": [{k: json_value(v) for k, v in r.items()} for r in rows],
             "changes": outcome.changes.lines(),
             "standard": ev.standard,
             "changed_areas": geojson(ca.polygons, ["area_id", "change", "weight", "points", "incidents", "area_km2"]),
@@ -346,8 +355,8 @@ class BaseState:
         return {
             "standard": std.name,
             "demand": dname,
-            "summary": {k: _clean(v) for k, v in run.summary.items()},
-            "units": [{k: _clean(v) for k, v in r.items()} for r in run.units.to_dict("records")],
+            "summary": {k: json_value(v) for k, v in run.summary.items()},
+            "units": [{k: json_value(v) for k, v in r.items()} for r in run.units.to_dict("records")],
         }
 
 
@@ -394,5 +403,5 @@ class Evaluation:
 
 __all__ = [
     "AFTER_LAYERS", "AREA_KINDS", "PER_BASE_COLUMNS", "BaseState", "Evaluation", "after_layers", "area_json",
-    "geojson", "per_base_rows",
+    "geojson", "json_value", "per_base_rows",
 ]  # fmt: skip

@@ -13,57 +13,13 @@ import geopandas as gpd
 import numpy as np
 import shapely
 
-from coverkit.coverage import CoverageResult, per_base
 from coverkit.demand_sources import unit_word
-from coverkit.serve.state import _clean, geojson
+from coverkit.serve.state import geojson, per_base_rows
 
-#: Per base columns sent (the order of :func:`coverkit.coverage.per_base` with the keys named first).
-PER_BASE_COLUMNS = (
-    "first_due_demand", "first_due_share", "first_due_covered", "sole_cover", "reaches_in_standard",
-)  # fmt: skip
 #: Most density cells sent for one demand layer: the cell side doubles until the occupied cells are this few.
 MAX_DENSITY_CELLS = 5000
 #: Smallest density cell side (m): finer than a few hundred metres says more than the demand data can (our choice).
 DENSITY_CELL_M = 250.0
-
-
-def per_base_rows(results: dict[tuple[str, str], CoverageResult]) -> list[dict[str, Any]]:
-    """One row per standard, demand layer and base: ``standard``, ``demand``, ``base_id`` and
-    :data:`PER_BASE_COLUMNS` (the shape of ``per_base`` in ``/api/study`` and ``per_base_after``)."""
-    rows = []
-    for (std, dem), res in results.items():
-        for r in per_base(res).to_dict("records"):
-            rows.append(
-                {"standard": std, "demand": dem, "base_id": r["base_id"], **{c: _clean(r[c]) for c in PER_BASE_COLUMNS}}
-            )
-    return rows
-
-
-def availability_json(state: Any, *, net: Any = None, bases: gpd.GeoDataFrame | None = None) -> dict[str, Any] | None:
-    """The study's ``[availability]`` answer on ``net`` and ``bases`` (default the base state's, e.g. a what-if
-    outcome's after a change), or None without that section: ``{standard, demand, summary, units}`` (the
-    ``availability_summary`` row and the ``availability_units`` rows, as a study run computes them)."""
-    from coverkit.stages import availability_stage
-
-    study = state.study
-    cfg = study.availability
-    if cfg is None:
-        return None
-    w = state.whatif
-    std = study.standard_named(cfg.standard, "availability.standard")
-    dname = study.demand_named(cfg.demand, "availability.demand", "incidents")
-    spec = next(d for d in study.demand if d.name == dname)
-    stage = availability_stage(
-        w.net if net is None else net, w.bases if bases is None else bases, w.demand[dname], std, cfg,
-        demand_name=dname, max_snap_m=w.demand_snap_m[dname], window=(spec.start, spec.end),
-    )  # fmt: skip
-    run = stage.run
-    return {
-        "standard": std.name,
-        "demand": dname,
-        "summary": {k: _clean(v) for k, v in run.summary.items()},
-        "units": [{k: _clean(v) for k, v in r.items()} for r in run.units.to_dict("records")],
-    }
 
 
 def road_lists(net: Any) -> dict[str, list[str]]:
@@ -83,8 +39,8 @@ def study_extras(state: Any) -> dict[str, Any]:
     """The keys ``GET /api/study`` adds to :attr:`coverkit.serve.state.BaseState.info`."""
     return {
         "demand": [{"name": d.name, "kind": d.kind, "unit": unit_word(d.kind)} for d in state.study.demand],
-        "per_base": per_base_rows(state.whatif.results),
-        "availability": availability_json(state),
+        "per_base": per_base_rows(state.per_base_tables),
+        "availability": state.availability_answer(),
         **road_lists(state.whatif.net),
     }
 
@@ -122,6 +78,5 @@ def demand_cells(demand: gpd.GeoDataFrame, unit: str) -> dict[str, Any]:
 
 
 __all__ = [
-    "DENSITY_CELL_M", "MAX_DENSITY_CELLS", "PER_BASE_COLUMNS", "availability_json", "demand_cells",
-    "per_base_rows", "road_lists", "study_extras",
+    "DENSITY_CELL_M", "MAX_DENSITY_CELLS", "demand_cells", "road_lists", "study_extras",
 ]  # fmt: skip

@@ -213,6 +213,8 @@ function wireSelectors(study) {
 async function start() {
   const [study, roads] = await Promise.all([getJSON("/api/study"), getJSON("/api/layers/roads")]);
   state.study = study;
+  RAMP = study.ramp;
+  RAMP_MAX_MIN = study.ramp_max_min;
   state.standard = study.standards[0].name;
   state.demand = study.demand[0].name;
   document.getElementById("study-name").textContent = study.name;

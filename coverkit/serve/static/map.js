@@ -1,9 +1,10 @@
 // coverkit serve page, part 3: the map. Leaflet on a plain background (no tile server); every vector layer shares
 // one canvas so a hover finds the top-most shape (areas under roads, roads under closures).
 "use strict";
-// sequential ramp, light = near, dark = far (cividis stops, matplotlib's perceptual colormap)
-const RAMP = ["#fee838", "#d3c164", "#a59c74", "#7c7b78", "#575d6d", "#31446b", "#00224e"];
-const RAMP_MAX_MIN = 14;
+// the road colours: a sequential ramp, light = near, dark = far, sent with the study (GET /api/study: ramp,
+// ramp_max_min) so the page and the static report share one ramp
+let RAMP = [];
+let RAMP_MAX_MIN = 1;
 const UNREACHED = "#c5c8cc";
 const CLOSED = "#d0257a";
 const CHANGE_COLOUR = { lost: "#b8432f", gained: "#2d6fa3" };
