@@ -292,8 +292,8 @@ def compare_map(run: Any) -> MapData:
         std = next(s for s in study.standards if s.name == std_name)
         data.standards[std_name] = {
             "text": std.describe(with_source=False),
-            "before": area_layers(ca.before, net.crs, depth=False),
-            "after": area_layers(ca.after, net.crs, depth=False),
+            "before": area_layers(ca.before, net.crs),
+            "after": area_layers(ca.after, net.crs),
         }
         cols = ["area_id", "change", "weight", "points", "incidents", "area_km2"]
         data.changed[std_name] = feature_collection(ca.polygons, cols, tolerance_m=abs(float(ca.transform.a)) / 2)
