@@ -320,3 +320,17 @@ class OutputsSettings:
             bool(t.get("maps", True)),
             bool(t.get("report", True)),
         )
+
+
+@dataclass(frozen=True)
+class ComputeSettings:
+    """``[compute]``: where the independent blocks of a study's steps run (:mod:`coverkit.compute`): a Dask
+    scheduler's address, or a local cluster of ``workers`` processes; neither: this process."""
+
+    scheduler: str | None = None
+    workers: int | None = None
+
+    @classmethod
+    def from_table(cls, t: dict[str, Any]) -> ComputeSettings:
+        """From the checked ``[compute]`` table."""
+        return cls(t.get("scheduler"), int(t["workers"]) if t.get("workers") is not None else None)

@@ -21,6 +21,7 @@ from coverkit.settings import (
     AvailabilitySettings,
     BasesSettings,
     CalibrationSettings,
+    ComputeSettings,
     DemandSettings,
     OutputsSettings,
     RoadsSettings,
@@ -115,6 +116,7 @@ SCHEMA: dict[str, Schema] = {
         "demand": (str, False),
     },
     "calibration": {"observed": (str, True), "hours": (list, False)},
+    "compute": {"scheduler": (str, False), "workers": (int, False)},
     "outputs": {
         "folder": (str, False),
         "isochrone_minutes": (list, False),
@@ -151,6 +153,7 @@ class Study:
     siting: SitingSettings | None = None
     availability: AvailabilitySettings | None = None
     calibration: CalibrationSettings | None = None
+    compute: ComputeSettings | None = None
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -258,6 +261,7 @@ def load_study(path: str | Path) -> Study:
         SitingSettings.from_table(siting_cfg) if siting_cfg else None,
         AvailabilitySettings.from_table(availability_cfg) if availability_cfg else None,
         CalibrationSettings.from_table(calibration_cfg) if calibration_cfg else None,
+        _compute_settings(raw, where),
     )
     if study.siting:
         study.standard_named(study.siting.standard, "siting.standard")
@@ -266,6 +270,16 @@ def load_study(path: str | Path) -> Study:
         study.standard_named(study.availability.standard, "availability.standard")
         study.demand_named(study.availability.demand, "availability.demand", "incidents")
     return study
+
+
+def _compute_settings(raw: dict[str, Any], where: str) -> ComputeSettings | None:
+    """``[compute]`` (None without it); ``workers`` must be at least 1."""
+    if "compute" not in raw:
+        return None
+    cfg = ComputeSettings.from_table(raw["compute"])
+    if cfg.workers is not None and cfg.workers < 1:
+        raise StudyError(f"{where}: compute.workers must be >= 1 (local worker processes), got {cfg.workers}.")
+    return cfg
 
 
 def _check_layout(raw: dict[str, Any], where: str) -> None:
@@ -608,11 +622,16 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     """
     import pandas as pd
 
+    from coverkit.compute import InProcess, current_runner, runner_for
     from coverkit.isochrones import drive_time_polygons, write_travel_surface
     from coverkit.progress import Steps
 
     if not isinstance(study, Study):
         study = load_study(study)
+    if study.compute and isinstance(current_runner(), InProcess):
+        # the study's [compute] section, unless the caller (e.g. the command line) already chose a runner
+        with runner_for(scheduler=study.compute.scheduler, workers=study.compute.workers):
+            return run_study(study, out)
     folder = Path(out) if out else study.folder / study.outputs.folder
     folder.mkdir(parents=True, exist_ok=True)
     opts = study.outputs

@@ -15,6 +15,7 @@ from collections.abc import Callable, Sequence
 from coverkit import CAUTION, __version__
 from coverkit.cli import availability, calibrate, compare, cover, demo, isochrones, network, run, serve, site
 from coverkit.cli.options import Parser, flag_for
+from coverkit.compute import runner_for
 from coverkit.errors import CoverkitError
 from coverkit.progress import set_quiet
 
@@ -51,7 +52,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     set_quiet(getattr(args, "quiet", False))
     try:
-        return COMMANDS[args.command](args)
+        if getattr(args, "workers", None) is not None and args.workers < 1:
+            raise CoverkitError("must be >= 1 (local Dask worker processes).", param="workers")
+        with runner_for(scheduler=getattr(args, "scheduler", None), workers=getattr(args, "workers", None)):
+            return COMMANDS[args.command](args)
     except CoverkitError as exc:
         # the library names its parameter; on the command line that is the flag the user typed
         text = exc.worded(flag_for(args._commands[args.command], exc.param)) if exc.param else str(exc)

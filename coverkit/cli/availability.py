@@ -14,6 +14,7 @@ from coverkit.cli.options import (
     positive_float,
     rejected_layer,
 )
+from coverkit.cli.options import compute as compute_options
 from coverkit.layer_names import demand_name_of, single_standard_name
 
 NAME = "availability"
@@ -62,6 +63,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     points_options(p)
     common(p)
+    compute_options(p)
 
 
 def run(args: argparse.Namespace) -> int:

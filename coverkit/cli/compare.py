@@ -7,6 +7,7 @@ from pathlib import Path
 
 from coverkit import CAUTION
 from coverkit.cli.options import common
+from coverkit.cli.options import compute as compute_options
 
 NAME = "compare"
 
@@ -23,6 +24,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("scenario", type=Path, help="scenario TOML file (see examples/scenarios/)")
     p.add_argument("--out", "-o", type=Path, required=True, help="output folder")
     common(p)
+    compute_options(p)
 
 
 def run(args: argparse.Namespace) -> int:

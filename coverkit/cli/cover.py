@@ -14,6 +14,7 @@ from coverkit.cli.options import (
     positive_float,
     rejected_layer,
 )
+from coverkit.cli.options import compute as compute_options
 from coverkit.layer_names import demand_name_of, layer_name, single_standard_name
 
 NAME = "cover"
@@ -65,6 +66,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     points_options(p)
     common(p)
+    compute_options(p)
 
 
 def run(args: argparse.Namespace) -> int:

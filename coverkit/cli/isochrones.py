@@ -7,6 +7,7 @@ from pathlib import Path
 
 from coverkit import CAUTION, settings
 from coverkit.cli.options import common, minutes_list, network_and_bases, points_options, positive_float
+from coverkit.cli.options import compute as compute_options
 
 NAME = "isochrones"
 
@@ -55,6 +56,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     points_options(p)
     common(p)
+    compute_options(p)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -54,6 +54,19 @@ def common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", "-q", action="store_true", help="no progress messages on stderr")
 
 
+def compute(p: argparse.ArgumentParser) -> None:
+    """``--scheduler`` and ``--workers``: where the command's independent blocks run (:mod:`coverkit.compute`)."""
+    g = p.add_argument_group("compute (optional)")
+    g.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        default=None,
+        help="spread the per-base search blocks over the Dask scheduler at ADDRESS (tcp://host:8786)",
+    )
+    g.add_argument("--workers", type=int, metavar="N", default=None,
+                   help="start a local Dask cluster of N worker processes for this command")  # fmt: skip
+
+
 def positive_float(text: str) -> float:
     """A number >= 0 (argparse type)."""
     try:

@@ -7,6 +7,7 @@ from pathlib import Path
 
 from coverkit import CAUTION
 from coverkit.cli.options import common
+from coverkit.cli.options import compute as compute_options
 
 NAME = "run"
 
@@ -22,6 +23,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("study", type=Path, help="study TOML file")
     p.add_argument("--out", "-o", type=Path, help="output folder (default: outputs.folder in the study)")
     common(p)
+    compute_options(p)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -16,6 +16,7 @@ from coverkit.cli.options import (
     positive_float,
     rejected_layer,
 )
+from coverkit.cli.options import compute as compute_options
 from coverkit.layer_names import demand_name_of, layer_name, map_file, single_standard_name, table_file
 
 NAME = "site"
@@ -67,6 +68,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     points_options(p)
     common(p)
+    compute_options(p)
 
 
 def _site_headline(s: dict) -> str:
