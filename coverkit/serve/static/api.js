@@ -5,7 +5,11 @@ const TOKEN = new URLSearchParams(location.search).get("token") || "";
 
 /** An API error; `missing` is true when the server has no such route (an older server: the feature degrades). */
 class ApiError extends Error {
-  constructor(message, status) { super(message); this.status = status; this.missing = status === 404 || status === 405; }
+  constructor(message, status) {
+    super(message);
+    this.status = status;
+    this.missing = status === 404 || status === 405;
+  }
 }
 async function failure(r) {
   const body = await r.json().catch(() => null);

@@ -66,7 +66,13 @@ function push(section, entry) { return apply([...plan.changes, change(section, e
 function step(move) {
   return serial(async () => {
     if (move()) {
-      try { state.answer = await compute(plan.changes); say(""); } catch (e) { state.answer = null; say(e.message, "warn"); }
+      try {
+        state.answer = await compute(plan.changes);
+        say("");
+      } catch (e) {
+        state.answer = null;
+        say(e.message, "warn");
+      }
       staleRank();
       await redraw();
     }
@@ -104,7 +110,8 @@ function stationClicked(marker, p) {
 function stationMoved(id, lon, lat) { push("base_change", { move: { id, lon: round6(lon), lat: round6(lat) } }); }
 function askUnits(marker, p) {
   const form = L.DomUtil.create("form", "units-form");
-  form.innerHTML = `<label>units at ${esc(p.id)} <input type="number" min="0" step="1" value="${p.units ?? 1}"></label>` +
+  form.innerHTML = `<label>units at ${esc(p.id)} ` +
+    `<input type="number" min="0" step="1" value="${p.units ?? 1}"></label>` +
     ` <button type="submit">set</button>`;
   L.DomEvent.disableClickPropagation(form);
   const pop = L.popup({ offset: [0, -4] }).setLatLng(marker.getLatLng()).setContent(form).openOn(map);
@@ -133,7 +140,8 @@ function roadClicked(ev, p) {
 
 // -- forms and buttons -----------------------------------------------------------------------------------------------
 function fillNames(roads) {
-  const names = state.study.road_names || [...new Set(roads.features.map((f) => f.properties.name).filter(Boolean))].sort();
+  const names = state.study.road_names ||
+    [...new Set(roads.features.map((f) => f.properties.name).filter(Boolean))].sort();
   const bridges = state.study.bridge_names || [];
   const only = document.getElementById("only-bridges");
   const fill = () => { document.getElementById("road-names").innerHTML = (only.checked ? bridges : names)

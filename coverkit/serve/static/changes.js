@@ -28,7 +28,8 @@ function describe(section, e) {
   if (section === "base_change") {
     if (e.add) {
       const u = e.add.units ?? 1;
-      return `new station ${e.add.id} at ${e.add.lon.toFixed(5)}, ${e.add.lat.toFixed(5)} (${u} unit${u === 1 ? "" : "s"})`;
+      return `new station ${e.add.id} at ${e.add.lon.toFixed(5)}, ${e.add.lat.toFixed(5)} ` +
+        `(${u} unit${u === 1 ? "" : "s"})`;
     }
     if (e.remove) return `take out station ${e.remove}`;
     if (e.move) return `move station ${e.move.id} to ${e.move.lon.toFixed(5)}, ${e.move.lat.toFixed(5)}`;

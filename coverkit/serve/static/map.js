@@ -213,7 +213,8 @@ function legend() {
   let html = `<b>Roads</b>: minutes from the nearest station${changed() ? " (after the changes)" : ""}` +
     `<div class="legend-ramp">${stops}</div><div class="legend-ticks"><span>0</span><span>${RAMP_MAX_MIN / 2}</span>` +
     `<span>${RAMP_MAX_MIN}+ min</span></div>` + sw(UNREACHED, "not reached") +
-    sw(CLOSED, "closed road", "height:4px") + `<div><i class="dot"></i> station <i class="dot new"></i> new station</div>`;
+    sw(CLOSED, "closed road", "height:4px") +
+    `<div><i class="dot"></i> station <i class="dot new"></i> new station</div>`;
   if (map.hasLayer(groups.candidates)) html += `<div><i class="dot cand"></i> candidate site</div>`;
   const before = (n) => (state.shown[n] && state.shown[n].before ? " <em>(before the changes)</em>" : "");
   if (state.shown.depth) html += sw(DEPTH_COLOUR, `coverage depth: darker = more stations in reach${before("depth")}`,

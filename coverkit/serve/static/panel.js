@@ -105,7 +105,8 @@ function showRank(answer) {
   const unit = esc(answer.unit || unitOf(answer.demand));
   table.querySelector("thead").innerHTML = `<tr><th>#</th><th>site</th><th>adds (${unit})</th><th>adds share</th>` +
     `<th>covered after (${unit})</th></tr>`;
-  table.querySelector("tbody").innerHTML = answer.candidates.map((c) => `<tr data-id="${esc(c.id)}"><td>${c.rank}</td>` +
+  table.querySelector("tbody").innerHTML = answer.candidates.map((c) =>
+    `<tr data-id="${esc(c.id)}"><td>${c.rank}</td>` +
     `<td>${esc(c.id)} ${esc(c.name || "")}</td><td>${whole(c.adds)}</td><td>${pct(c.adds_share)}</td>` +
     `<td>${whole(c.covered_after)}</td></tr>`).join("");
   table.querySelectorAll("tbody tr").forEach((tr) => (tr.onclick = () => {
