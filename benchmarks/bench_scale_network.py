@@ -35,7 +35,16 @@ REPO = Path(__file__).resolve().parents[1]
 CACHE = Path(__file__).resolve().parent / ".cache"
 
 #: Road classes of the grid lines, cycled by line number (mostly residential, a few arterials).
-CLASSES = ("residential", "residential", "residential", "tertiary", "residential", "secondary", "residential", "primary")
+CLASSES = (
+    "residential",
+    "residential",
+    "residential",
+    "tertiary",
+    "residential",
+    "secondary",
+    "residential",
+    "primary",
+)
 
 
 def synthetic_county_pbf(blocks: int, seed: int = 11, cache: Path = CACHE) -> Path:
@@ -68,7 +77,9 @@ def synthetic_county_pbf(blocks: int, seed: int = 11, cache: Path = CACHE) -> Pa
     b = np.concatenate([h_a + 1, v_a + side])
     line = np.concatenate([jy[:, :-1].ravel(), side + jx[:-1, :].ravel()])
     n_shape = rng.choice([2, 3], len(a), p=[0.2, 0.8])
-    f = (np.arange(n_shape.sum()) - np.repeat(np.cumsum(n_shape) - n_shape, n_shape) + 1) / np.repeat(n_shape + 1, n_shape)
+    f = (np.arange(n_shape.sum()) - np.repeat(np.cumsum(n_shape) - n_shape, n_shape) + 1) / np.repeat(
+        n_shape + 1, n_shape
+    )
     side_of = np.repeat(np.arange(len(a)), n_shape)
     wob = rng.normal(0, step * 0.01, (len(f), 2))
     s_lon = j_lon[a[side_of]] + f * (j_lon[b[side_of]] - j_lon[a[side_of]]) + wob[:, 0]
@@ -143,8 +154,9 @@ def _baseline_tree(ref: str, where: Path) -> Path:
     """A detached worktree of ``ref`` (the old code) under ``where``."""
     tree = where / f"baseline-{ref[:12]}"
     if not tree.exists():
-        subprocess.run(["git", "-C", str(REPO), "worktree", "add", "--detach", str(tree), ref], check=True,
-                       capture_output=True)
+        subprocess.run(
+            ["git", "-C", str(REPO), "worktree", "add", "--detach", str(tree), ref], check=True, capture_output=True
+        )
     return tree
 
 
@@ -162,7 +174,9 @@ def case_network_build(args: argparse.Namespace) -> None:
     """``coverkit network`` on the synthetic PBF: new code beside the baseline, wall time and peak RSS."""
     t0 = time.perf_counter()
     pbf = synthetic_county_pbf(args.blocks)
-    print(f"PBF {pbf.name}: {pbf.stat().st_size / 1e6:.1f} MB (generated or cached in {time.perf_counter() - t0:.1f} s)")
+    print(
+        f"PBF {pbf.name}: {pbf.stat().st_size / 1e6:.1f} MB (generated or cached in {time.perf_counter() - t0:.1f} s)"
+    )
     with tempfile.TemporaryDirectory(dir=CACHE) as tmp:
         tmp = Path(tmp)
         runs = {}
@@ -203,11 +217,15 @@ def case_network_load(args: argparse.Namespace) -> None:
             raise SystemExit(proc.stderr[-2000:])
         rows[label] = json.loads(proc.stdout.strip().splitlines()[-1])
         r = rows[label]
-        print(f"{label:>9}: load {r['load_s']:.2f} s, ready {r['ready_s']:.2f} s, peak {r['peak_mb']:.0f} MB "
-              f"({r['nodes']:,} nodes)")
+        print(
+            f"{label:>9}: load {r['load_s']:.2f} s, ready {r['ready_s']:.2f} s, peak {r['peak_mb']:.0f} MB "
+            f"({r['nodes']:,} nodes)"
+        )
     o, n = rows["old"], rows["new"]
-    print(f"network-load: ready new {n['ready_s']:.2f} s / old {o['ready_s']:.2f} s = {n['ready_s'] / o['ready_s']:.3f}"
-          "  (target at 1 M nodes: <= 2 s)")
+    print(
+        f"network-load: ready new {n['ready_s']:.2f} s / old {o['ready_s']:.2f} s = {n['ready_s'] / o['ready_s']:.3f}"
+        "  (target at 1 M nodes: <= 2 s)"
+    )
 
 
 CASES = {"network-build": case_network_build, "network-load": case_network_load}

@@ -83,12 +83,66 @@ class RoadNetwork:
     profile: Profile
     info: dict = field(default_factory=dict)
     _csr_cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
+    #: The columnar copy a loaded network reads its columns from (None: the tables above are the data).
+    _store: object = field(default=None, init=False, repr=False, compare=False)
+    #: Edge columns replacing the copy's (a loaded network with new times, see :meth:`with_travel_s`).
+    _overrides: dict = field(default_factory=dict, init=False, repr=False, compare=False)
+
+    @classmethod
+    def _from_store(cls, store: object, crs: CRS, profile: Profile, info: dict, overrides: dict | None = None):
+        """A network whose ``nodes`` and ``edges`` tables are built from ``store`` only when first used."""
+        net = object.__new__(cls)
+        net.__dict__.update(
+            crs=crs, profile=profile, info=info, _csr_cache={}, _store=store, _overrides=dict(overrides or {})
+        )
+        return net
+
+    def __getattr__(self, name: str):
+        # reached only when normal lookup fails: the tables of a network loaded from its columnar copy, built on
+        # first use (a search needs neither; drawing and exports do)
+        store = self.__dict__.get("_store")
+        if store is not None and name in ("nodes", "edges"):
+            table = store.nodes_frame(self.crs) if name == "nodes" else store.edges_frame(self.crs, self._overrides)
+            self.__dict__[name] = table
+            return table
+        raise AttributeError(f"{type(self).__name__!r} object has no attribute {name!r}")
+
+    def _lazy(self) -> bool:
+        """Whether the columns still come from the columnar copy (the edge table not yet built)."""
+        return self.__dict__.get("_store") is not None and "edges" not in self.__dict__
+
+    def edge_values(self, column: str) -> np.ndarray:
+        """One edge column as an array, without building the edge table of a loaded network."""
+        if self._lazy():
+            if column in self._overrides:
+                return self._overrides[column]
+            return np.asarray(self._store.edge_column(column))
+        return self.edges[column].to_numpy()
+
+    def has_edge_column(self, column: str) -> bool:
+        """Whether the edges carry ``column``."""
+        if self._lazy():
+            return column in self._overrides or column in self._store.edges.columns
+        return column in self.edges.columns
+
+    def node_values(self, column: str) -> np.ndarray:
+        """One node column as an array, without building the node table of a loaded network."""
+        if self.__dict__.get("_store") is not None and "nodes" not in self.__dict__:
+            return np.asarray(self._store.node_column(column))
+        return self.nodes[column].to_numpy()
+
+    def edge_geometry(self, index: np.ndarray | None = None) -> np.ndarray:
+        """Line geometries of the edges ``index`` (all by default); a loaded network builds only those."""
+        if self._lazy():
+            return self._store.edge_geometry(index)
+        geoms = self.edges.geometry.to_numpy()
+        return geoms if index is None else geoms[np.asarray(index, dtype=np.int64)]
 
     def __repr__(self) -> str:
         # one line: a notebook prints the network, not its tables
         crs = self.crs.to_string() if self.crs is not None else "no CRS"
         name = getattr(self.profile, "name", "?")
-        km = float(self.edges["length_m"].sum()) / 1000.0 if "length_m" in self.edges else float("nan")
+        km = float(self.length_m.sum()) / 1000.0 if self.has_edge_column("length_m") else float("nan")
         return (
             f"RoadNetwork({self.n_nodes:,} nodes, {self.n_edges:,} directed edges, {km:,.1f} km, "
             f"profile '{name}', {crs})"
@@ -98,37 +152,39 @@ class RoadNetwork:
     @property
     def n_nodes(self) -> int:
         """Number of nodes."""
+        if self.__dict__.get("_store") is not None and "nodes" not in self.__dict__:
+            return self._store.nodes.length
         return len(self.nodes)
 
     @property
     def n_edges(self) -> int:
         """Number of directed edges."""
-        return len(self.edges)
+        return self._store.edges.length if self._lazy() else len(self.edges)
 
     @property
     def u(self) -> np.ndarray:
         """Start node of each edge (int64)."""
-        return self.edges["u"].to_numpy(dtype=np.int64)
+        return np.asarray(self.edge_values("u"), dtype=np.int64)
 
     @property
     def v(self) -> np.ndarray:
         """End node of each edge (int64)."""
-        return self.edges["v"].to_numpy(dtype=np.int64)
+        return np.asarray(self.edge_values("v"), dtype=np.int64)
 
     @property
     def travel_s(self) -> np.ndarray:
         """Travel time of each edge (s)."""
-        return self.edges["travel_s"].to_numpy(dtype=float)
+        return np.asarray(self.edge_values("travel_s"), dtype=float)
 
     @property
     def length_m(self) -> np.ndarray:
         """Length of each edge (m)."""
-        return self.edges["length_m"].to_numpy(dtype=float)
+        return np.asarray(self.edge_values("length_m"), dtype=float)
 
     @property
     def xy(self) -> np.ndarray:
         """Node coordinates, shape (N, 2), metres."""
-        return self.nodes[["x", "y"]].to_numpy(dtype=float)
+        return np.column_stack([self.node_values("x"), self.node_values("y")]).astype(float, copy=False)
 
     def csr(self, weight: str = "travel_s") -> sp.csr_matrix:
         """Sparse N x N adjacency with the smallest ``weight`` over parallel edges (for ``scipy.sparse.csgraph``).
@@ -136,7 +192,7 @@ class RoadNetwork:
         Cached per weight; a network is treated as immutable (use :meth:`with_travel_s` for changed times).
         """
         if weight not in self._csr_cache:
-            w = np.maximum(self.edges[weight].to_numpy(dtype=float), MIN_EDGE_S)
+            w = np.maximum(np.asarray(self.edge_values(weight), dtype=float), MIN_EDGE_S)
             self._csr_cache[weight] = min_weight_csr(self.u, self.v, w, self.n_nodes)
         return self._csr_cache[weight]
 
@@ -144,7 +200,7 @@ class RoadNetwork:
         """Sparse N x N matrix whose entry (u, v) is 1 + the edge id chosen by :meth:`csr` for that pair."""
         key = f"edge_index:{weight}"
         if key not in self._csr_cache:
-            w = self.edges[weight].to_numpy(dtype=float)
+            w = np.asarray(self.edge_values(weight), dtype=float)
             best = _best_parallel_edges(self.u, self.v, w, self.n_nodes)
             self._csr_cache[key] = sp.csr_matrix(
                 (best.astype(np.int64) + 1, (self.u[best], self.v[best])),
@@ -170,20 +226,27 @@ class RoadNetwork:
         travel_s = np.asarray(travel_s, dtype=float)
         if travel_s.shape != (self.n_edges,):
             raise ValueError(f"travel_s must have shape ({self.n_edges},), got {travel_s.shape}")
-        edges = self.edges.drop(columns=[CLOSED_FROM_COL, CLOSED_TO_COL, STUB_RUN_COL], errors="ignore")
-        edges["travel_s"] = travel_s
+        changed = {"travel_s": travel_s}
         if closed_frac is not None:
             closed_frac = np.asarray(closed_frac, dtype=float)
             stub = np.asarray(stub_run_s, dtype=float)
             if closed_frac.shape != (self.n_edges, 2) or stub.shape != (self.n_edges,):
                 raise ValueError(f"closed_frac must have shape ({self.n_edges}, 2) and stub_run_s ({self.n_edges},)")
-            edges[CLOSED_FROM_COL] = closed_frac[:, 0]
-            edges[CLOSED_TO_COL] = closed_frac[:, 1]
-            edges[STUB_RUN_COL] = stub
+            changed.update({CLOSED_FROM_COL: closed_frac[:, 0], CLOSED_TO_COL: closed_frac[:, 1], STUB_RUN_COL: stub})
         info = dict(self.info)
         if note:
             info["changes"] = [*info.get("changes", []), note]
-        out = RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
+        if self._lazy():
+            # the copy keeps serving the unchanged columns; only the new ones are held
+            base = {k: v for k, v in self._overrides.items() if k not in (CLOSED_FROM_COL, CLOSED_TO_COL, STUB_RUN_COL)}
+            out = RoadNetwork._from_store(self._store, self.crs, self.profile, info, {**base, **changed})
+            if "nodes" in self.__dict__:
+                out.__dict__["nodes"] = self.nodes
+        else:
+            edges = self.edges.drop(columns=[CLOSED_FROM_COL, CLOSED_TO_COL, STUB_RUN_COL], errors="ignore")
+            for name, values in changed.items():
+                edges[name] = values
+            out = RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
         out._csr_cache.update({k: v for k, v in self._csr_cache.items() if k.startswith(GEOMETRY_CACHE)})
         return out
 
@@ -196,17 +259,18 @@ class RoadNetwork:
         closed = ~np.isfinite(self.travel_s)
         lo = np.where(closed, 0.0, np.nan)
         hi = np.where(closed, 1.0, np.nan)
-        if CLOSED_FROM_COL in self.edges.columns:
-            cut = closed & np.isfinite(self.edges[CLOSED_FROM_COL].to_numpy(dtype=float))
-            lo[cut] = self.edges[CLOSED_FROM_COL].to_numpy(dtype=float)[cut]
-            hi[cut] = self.edges[CLOSED_TO_COL].to_numpy(dtype=float)[cut]
+        if self.has_edge_column(CLOSED_FROM_COL):
+            frm = np.asarray(self.edge_values(CLOSED_FROM_COL), dtype=float)
+            cut = closed & np.isfinite(frm)
+            lo[cut] = frm[cut]
+            hi[cut] = np.asarray(self.edge_values(CLOSED_TO_COL), dtype=float)[cut]
         return lo, hi
 
     def stub_run_s(self) -> np.ndarray:
         """Running time (s) at which the open stubs of an edge closed in part are driven; ``inf`` elsewhere."""
-        if STUB_RUN_COL not in self.edges.columns:
+        if not self.has_edge_column(STUB_RUN_COL):
             return np.full(self.n_edges, np.inf)
-        stub = self.edges[STUB_RUN_COL].to_numpy(dtype=float)
+        stub = np.asarray(self.edge_values(STUB_RUN_COL), dtype=float)
         return np.where(np.isfinite(stub) & ~np.isfinite(self.travel_s), stub, np.inf)
 
     def road_lines(self) -> gpd.GeoDataFrame:
@@ -266,26 +330,33 @@ class RoadNetwork:
         return g
 
     # -- persistence ------------------------------------------------------------------------------------------------
-    def save(self, path: str | Path) -> Path:
-        """Write the network to a GeoPackage (layers ``nodes``, ``edges``, ``build_info``), atomically."""
+    def save(self, path: str | Path, *, arrays: bool = True) -> Path:
+        """Write the network to a GeoPackage (layers ``nodes``, ``edges``, ``build_info``), atomically.
+
+        With ``arrays`` (the default) also write its columnar copy beside it (see :mod:`coverkit.network.columnar`),
+        from which :meth:`load` serves the network without reading the GeoPackage.
+        """
+        from coverkit.network.columnar import content_id
+
         path = Path(path)
-        info_rows = {
-            "format_version": str(FORMAT_VERSION),
-            "crs": self.crs.to_wkt(),
-            "profile_toml": self.profile.to_toml(),
-            "info_json": json.dumps(self.info, sort_keys=True, default=_json_default),
-        }
+        nodes = self.nodes[[*NODE_COLUMNS, "geometry"]]
+        edges = self.edges[[*EDGE_COLUMNS, "geometry"]]
+        parts = _copy_parts(nodes, edges, self)
+        node_table, node_xy, edge_table, edge_geo, meta = parts
+        hashed = {f"n.{k}": v for k, v in node_table.columns.items()}
+        hashed |= {f"e.{k}": v for k, v in edge_table.columns.items()}
+        hashed |= {"n.xy": node_xy, **{f"g.{k}": v for k, v in edge_geo.items()}}
+        texts = json.dumps([node_table.text, edge_table.text, meta], sort_keys=True).encode()
+        hashed["meta"] = np.frombuffer(texts, dtype=np.uint8)
+        build_id = content_id(hashed)
+        info_rows = {**meta, "build_id": build_id}
         info_df = pd.DataFrame({"key": list(info_rows), "value": list(info_rows.values())})
         with atomic_path(path) as tmp:
-            pyogrio.write_dataframe(self.nodes[[*NODE_COLUMNS, "geometry"]], tmp, layer="nodes", driver="GPKG")
-            pyogrio.write_dataframe(
-                self.edges[[*EDGE_COLUMNS, "geometry"]],
-                tmp,
-                layer="edges",
-                driver="GPKG",
-                append=True,
-            )
+            pyogrio.write_dataframe(nodes, tmp, layer="nodes", driver="GPKG")
+            pyogrio.write_dataframe(edges, tmp, layer="edges", driver="GPKG", append=True)
             pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
+        if arrays:
+            _write_copy_or_note(path, build_id, parts, self.csr() if self.n_edges else None)
         return path
 
     @staticmethod
@@ -296,8 +367,12 @@ class RoadNetwork:
         return json.loads(meta.get("info_json", "{}"))
 
     @classmethod
-    def load(cls, path: str | Path) -> RoadNetwork:
+    def load(cls, path: str | Path, *, arrays: bool = True) -> RoadNetwork:
         """Read a network written by :meth:`save`.
+
+        With ``arrays`` (the default) the network comes from its columnar copy when that copy is fresh: columns are
+        memory-mapped and the tables (with geometry) built only when first used. A missing, stale or unreadable
+        copy is rebuilt from the GeoPackage (with a note on stderr); ``arrays=False`` reads the GeoPackage only.
 
         Raises
         ------
@@ -310,6 +385,55 @@ class RoadNetwork:
                 f"network file {path} not found; build a network and save it there first (`coverkit network`, or "
                 "build_network and save)."
             )
+        why = ""
+        if arrays:
+            from coverkit.network.columnar import open_copy
+
+            copy, why = open_copy(path, INFO_LAYER)
+            if copy is not None:
+                try:
+                    return cls._from_copy(path, copy)
+                except (OSError, ValueError, KeyError, TypeError):
+                    why = "unreadable"
+        net = cls._read_gpkg(path)
+        if arrays:
+            from coverkit.network.columnar import gpkg_build_id
+            from coverkit.progress import note
+
+            note(f"network {path.name}: columnar copy {why}; rebuilding it from the GeoPackage for faster loads")
+            parts = _copy_parts(net.nodes, net.edges, net)
+            _write_copy_or_note(path, gpkg_build_id(path, INFO_LAYER), parts, net.csr() if net.n_edges else None)
+        return net
+
+    @classmethod
+    def _from_copy(cls, path: Path, copy) -> RoadNetwork:
+        """The network served by a fresh columnar copy (every array header checked, no data read)."""
+        import tomllib
+
+        from coverkit.network.columnar import NetworkArrays
+
+        for name in copy.manifest["arrays"]:
+            copy.array(name)
+        meta = copy.manifest["meta"]
+        if int(meta.get("format_version", -1)) != FORMAT_VERSION:
+            raise ValueError("format")
+        crs = CRS.from_wkt(meta["crs"])
+        profile = profile_from_dict(
+            tomllib.loads(meta["profile_toml"]), where=f"{path}:profile", source_text=meta["profile_toml"]
+        )
+        store = NetworkArrays(copy)
+        if store.nodes.length and store.edges.length != len(copy.array("edges.geometry_offsets")) - 1:
+            raise ValueError("edge geometry count")
+        net = cls._from_store(store, crs, profile, json.loads(meta["info_json"]))
+        if copy.has("csr.travel_s.indptr"):
+            n = store.nodes.length
+            arrays = (copy.array(f"csr.travel_s.{k}") for k in ("data", "indices", "indptr"))
+            net._csr_cache["travel_s"] = sp.csr_matrix(tuple(arrays), shape=(n, n))
+        return net
+
+    @classmethod
+    def _read_gpkg(cls, path: Path) -> RoadNetwork:
+        """Read the network from its GeoPackage (every layer, every geometry)."""
         try:
             layers = {name for name, _ in pyogrio.list_layers(path)}
         except Exception:
@@ -338,6 +462,53 @@ class RoadNetwork:
         edges = edges.set_crs(crs, allow_override=True)
         edges["name"] = edges["name"].fillna("")
         return cls(nodes, edges, crs, profile, json.loads(meta["info_json"]))
+
+
+def _copy_parts(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, net: RoadNetwork) -> tuple:
+    """What the columnar copy holds: node and edge tables, node coordinates (m), edge geometry, and the metadata."""
+    from coverkit.network.columnar import split_table
+
+    node_table, _ = split_table(nodes, geometry=False)
+    edge_table, edge_geo = split_table(edges, geometry=True)
+    geoms = nodes.geometry.to_numpy()
+    node_xy = np.column_stack([shapely.get_x(geoms), shapely.get_y(geoms)])
+    meta = {
+        "format_version": str(FORMAT_VERSION),
+        "crs": net.crs.to_wkt(),
+        "profile_toml": net.profile.to_toml(),
+        "info_json": json.dumps(net.info, sort_keys=True, default=_json_default),
+    }
+    return node_table, node_xy, edge_table, edge_geo, meta
+
+
+def _write_copy_or_note(path: Path, build_id: str | None, parts: tuple, csr: sp.csr_matrix | None) -> None:
+    """Write the columnar copy of the GeoPackage ``path``; when the folder is not writable, say so and go on (the
+    GeoPackage alone is a complete network)."""
+    from coverkit.network.columnar import remove_copy, write_copy
+    from coverkit.progress import note
+
+    node_table, node_xy, edge_table, edge_geo, meta = parts
+    extra = {}
+    if csr is not None:
+        extra = {
+            "csr.travel_s.data": csr.data,
+            "csr.travel_s.indices": csr.indices,
+            "csr.travel_s.indptr": csr.indptr,
+        }
+    try:
+        write_copy(
+            path,
+            build_id=build_id,
+            nodes=node_table,
+            node_xy=node_xy,
+            edges=edge_table,
+            edge_geo=edge_geo,
+            meta=meta,
+            extra=extra,
+        )
+    except OSError as exc:
+        remove_copy(path)
+        note(f"network {path.name}: columnar copy not written ({exc}); loads will read the GeoPackage")
 
 
 def _json_default(obj: object) -> object:
