@@ -509,7 +509,7 @@ def _edge_arrays(net: RoadNetwork) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Running time (s, ``inf`` closed), end-node delay (s) and length (m) of every edge (cached on the network)."""
     key = "coverkit.isochrones:edge_arrays"
     if key not in net._csr_cache:
-        net._csr_cache[key] = (run_s(net), net.edges["delay_s"].to_numpy(dtype=float), net.length_m)
+        net._csr_cache[key] = (run_s(net), np.asarray(net.edge_values("delay_s"), dtype=float), net.length_m)
     return net._csr_cache[key]
 
 
@@ -633,14 +633,18 @@ def _piece_segments(net: RoadNetwork) -> dict:
     if key in net._csr_cache:
         return net._csr_cache[key]
     pieces = road_pieces(net)
-    geoms = net.edges.geometry.to_numpy()[pieces.rep_edge]
-    coords, idx = shapely.get_coordinates(geoms, return_index=True)
+    # vertices of the piece lines straight from the network (a loaded network builds no line objects for this)
+    n_geoms = len(pieces.rep_edge)
+    if net._lazy():
+        coords, idx = net._store.edge_coords(pieces.rep_edge)
+    else:
+        coords, idx = shapely.get_coordinates(net.edge_geometry(pieces.rep_edge), return_index=True)
     same = idx[1:] == idx[:-1]
     start = np.flatnonzero(same)
     seg_xy = np.column_stack([coords[start], coords[start + 1]])
     seg_piece = idx[start]
     seg_len = np.hypot(seg_xy[:, 2] - seg_xy[:, 0], seg_xy[:, 3] - seg_xy[:, 1])
-    total = np.bincount(seg_piece, weights=seg_len, minlength=len(geoms))
+    total = np.bincount(seg_piece, weights=seg_len, minlength=n_geoms)
     cum = np.cumsum(seg_len)
     first_of_piece = np.r_[True, seg_piece[1:] != seg_piece[:-1]]
     base = np.maximum.accumulate(np.where(first_of_piece, cum - seg_len, 0.0))
@@ -648,7 +652,7 @@ def _piece_segments(net: RoadNetwork) -> dict:
     tot = np.where(total[seg_piece] > 0, total[seg_piece], 1.0)
     f0 = start_m / tot
     f1 = np.where(total[seg_piece] > 0, (start_m + seg_len) / tot, 1.0)
-    ptr = np.concatenate([[0], np.cumsum(np.bincount(seg_piece, minlength=len(geoms)))])
+    ptr = np.concatenate([[0], np.cumsum(np.bincount(seg_piece, minlength=n_geoms))])
     out = {"xy": seg_xy, "f0": f0, "f1": f1, "ptr": ptr}
     net._csr_cache[key] = out
     return out
@@ -1101,7 +1105,7 @@ def _time_at(net, node_s, sources, piece, f, direction) -> np.ndarray:
     """Least time (s) at fraction ``f`` of ``piece`` over the piece's directed edges and the sources on it."""
     pieces = road_pieces(net)
     run = run_s(net)
-    delay = net.edges["delay_s"].to_numpy(dtype=float)
+    delay = np.asarray(net.edge_values("delay_s"), dtype=float)
     best = np.full(len(piece), np.inf)
     cnt = pieces.members_ptr[piece + 1] - pieces.members_ptr[piece]
     idx = np.repeat(np.arange(len(piece)), cnt)

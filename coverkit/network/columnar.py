@@ -164,16 +164,6 @@ def write_copy(
     return target
 
 
-def add_arrays(gpkg: Path, arrays: dict[str, np.ndarray]) -> None:
-    """Add arrays (a derived index) to an existing copy: each file written beside, then renamed into place."""
-    folder = copy_dir(gpkg)
-    for name, arr in arrays.items():
-        fd, tmp_name = tempfile.mkstemp(prefix=f".{name}.", suffix=".part.npy", dir=folder)
-        with os.fdopen(fd, "wb") as fh:
-            np.save(fh, np.ascontiguousarray(arr), allow_pickle=False)
-        os.replace(tmp_name, folder / f"{name}.npy")
-
-
 @dataclass
 class Copy:
     """An opened, fresh columnar copy: its manifest and a loader of arrays (memory-mapped, copy-on-write)."""
@@ -191,6 +181,14 @@ class Copy:
                 raise ValueError(f"{name}: dtype/shape {arr.dtype}{arr.shape} differ from the manifest")
             self._cache[name] = arr
         return self._cache[name]
+
+    def add(self, arrays: dict[str, np.ndarray]) -> None:
+        """Add arrays (a derived index) to the copy: each written beside its place, then renamed into it."""
+        for name, arr in arrays.items():
+            fd, tmp_name = tempfile.mkstemp(prefix=f".{name}.", suffix=".part.npy", dir=self.folder)
+            with os.fdopen(fd, "wb") as fh:
+                np.save(fh, np.ascontiguousarray(arr), allow_pickle=False)
+            os.replace(tmp_name, self.folder / f"{name}.npy")
 
     def has(self, name: str) -> bool:
         """Whether the array ``name`` is in the copy."""

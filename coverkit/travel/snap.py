@@ -14,7 +14,10 @@ by every copy of a network with changed times.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import hashlib
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 import shapely
@@ -24,7 +27,7 @@ from coverkit import settings
 from coverkit.errors import OffNetworkError
 from coverkit.network.model import GEOMETRY_CACHE, RoadNetwork
 from coverkit.progress import warn
-from coverkit.travel.nearest import nearest_pieces, segment_index
+from coverkit.travel.grid_index import GridIndex, build_grid_index, grid_nearest
 
 #: Default snap limit (m): a point farther than this from any road is off-network.
 DEFAULT_MAX_SNAP_M = settings.SNAP_M
@@ -135,8 +138,8 @@ class RoadPieces:
         CSR-style list of the edges of each piece: ``members[members_ptr[p]:members_ptr[p + 1]]``.
     reversed_of_edge
         ``True`` where an edge runs opposite to its piece's representative edge.
-    tree
-        STRtree over the piece geometries.
+    rep_geoms
+        Returns the piece geometries (the representative edges' lines), built only when a step needs them.
     """
 
     piece_of_edge: np.ndarray
@@ -144,7 +147,43 @@ class RoadPieces:
     members_ptr: np.ndarray
     members: np.ndarray
     reversed_of_edge: np.ndarray
-    tree: shapely.STRtree
+    rep_geoms: Callable[[], np.ndarray] = field(repr=False, compare=False)
+
+    @cached_property
+    def tree(self) -> shapely.STRtree:
+        """STRtree over the piece geometries (built on first use: only distances beyond the snap limit need it)."""
+        return shapely.STRtree(self.rep_geoms())
+
+    def to_arrays(self) -> dict[str, np.ndarray]:
+        """The grouping as named arrays (for the network's columnar copy)."""
+        names = ("piece_of_edge", "rep_edge", "members_ptr", "members", "reversed_of_edge")
+        return {name: getattr(self, name) for name in names}
+
+
+#: Prefix of the snap index arrays in a network's columnar copy (bump the version when their meaning changes).
+STORE_PREFIX = "snap1"
+
+
+def _stored(net: RoadNetwork, name: str, keys: tuple[str, ...]) -> dict[str, np.ndarray] | None:
+    """Arrays ``name.key`` kept in the network's columnar copy, or None (not a loaded network, or not kept yet)."""
+    store = net.__dict__.get("_store")
+    if store is None or not all(store.copy.has(f"{STORE_PREFIX}.{name}.{k}") for k in keys):
+        return None
+    try:
+        return {k: store.copy.array(f"{STORE_PREFIX}.{name}.{k}") for k in keys}
+    except (OSError, ValueError):
+        return None
+
+
+def _keep(net: RoadNetwork, name: str, arrays: dict[str, np.ndarray]) -> None:
+    """Add arrays to the network's columnar copy so later loads map them instead of computing them again."""
+    store = net.__dict__.get("_store")
+    if store is None:
+        return
+    try:
+        store.copy.add({f"{STORE_PREFIX}.{name}.{k}": v for k, v in arrays.items()})
+    except OSError:
+        pass  # a read-only folder: the index is simply rebuilt on the next load
 
 
 def road_pieces(net: RoadNetwork) -> RoadPieces:
@@ -157,10 +196,33 @@ def road_pieces(net: RoadNetwork) -> RoadPieces:
     key = f"{GEOMETRY_CACHE}coverkit.travel:pieces"
     if key in net._csr_cache:
         return net._csr_cache[key]
+    names = ("piece_of_edge", "rep_edge", "members_ptr", "members", "reversed_of_edge")
+    kept = _stored(net, "pieces", names)
+    if kept is not None and len(kept["piece_of_edge"]) == net.n_edges:
+        pieces = RoadPieces(**kept, rep_geoms=lambda: net.edge_geometry(kept["rep_edge"]))
+    else:
+        pieces = _group_pieces(net)
+        _keep(net, "pieces", pieces.to_arrays())
+    net._csr_cache[key] = pieces
+    return pieces
+
+
+def _planar_length_m(net: RoadNetwork) -> np.ndarray:
+    """Planar length (m) of every edge geometry, as GEOS measures it (vertex to vertex, in order)."""
+    if not net._lazy():
+        return shapely.length(net.edge_geometry())
+    coords, owner = net._store.edge_coords()
+    same = owner[1:] == owner[:-1]
+    step = np.diff(coords, axis=0)[same]
+    return np.bincount(
+        owner[1:][same], weights=np.sqrt(step[:, 0] * step[:, 0] + step[:, 1] * step[:, 1]), minlength=net.n_edges
+    )
+
+
+def _group_pieces(net: RoadNetwork) -> RoadPieces:
     u, v = net.u, net.v
     all_e = np.arange(net.n_edges)
-    geom = net.edges.geometry.to_numpy()
-    length = shapely.length(geom[all_e])
+    length = _planar_length_m(net)
     a = np.minimum(u[all_e], v[all_e])
     b = np.maximum(u[all_e], v[all_e])
     order = np.lexsort((all_e, length, b, a))
@@ -183,16 +245,14 @@ def road_pieces(net: RoadNetwork) -> RoadPieces:
     reversed_of_edge = np.zeros(net.n_edges, dtype=bool)
     rep_of_edge = rep_edge[piece_of_edge[all_e]]
     reversed_of_edge[all_e] = u[all_e] != u[rep_of_edge]
-    pieces = RoadPieces(
+    return RoadPieces(
         piece_of_edge=piece_of_edge,
         rep_edge=rep_edge,
         members_ptr=members_ptr,
         members=members,
         reversed_of_edge=reversed_of_edge,
-        tree=shapely.STRtree(geom[rep_edge]),
+        rep_geoms=lambda: net.edge_geometry(rep_edge),
     )
-    net._csr_cache[key] = pieces
-    return pieces
 
 
 def _off_network_error(
@@ -267,16 +327,17 @@ def snap_points(
     geoms, id_arr = _as_points(points, ids, net)
     n = len(geoms)
     pieces = road_pieces(net)
-    edge_geom = net.edges.geometry.to_numpy()
 
     dist_m = np.full(n, np.inf)
     piece = np.full(n, -1, dtype=np.int64)
     if n and len(pieces.rep_edge):
-        allowed, index, tree = _snap_targets(net, pieces, tuple(sorted(exclude_classes)))
-        sub_piece, dist_m = nearest_pieces(index, shapely.get_coordinates(geoms), max_snap_m, tree, tree.geometries)
+        exclude = tuple(sorted(exclude_classes))
+        allowed, index = _snap_targets(net, pieces, exclude)
+        sub_piece, dist_m = grid_nearest(index, shapely.get_coordinates(geoms), max_snap_m)
         piece = np.where(sub_piece >= 0, allowed[np.maximum(sub_piece, 0)], -1)
         far = np.flatnonzero(piece < 0)
         if len(far) and measure_far and len(allowed):
+            tree = _far_tree(net, pieces, allowed, exclude)
             (fi, _), fd = tree.query_nearest(geoms[far], return_distance=True)
             dist_m[far[fi]] = fd
     on = piece >= 0
@@ -291,7 +352,7 @@ def snap_points(
     entry_point = np.repeat(on_idx, cnt)
     local = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
     entry_edge = pieces.members[np.repeat(pieces.members_ptr[p_on], cnt) + local]
-    entry_frac = shapely.line_locate_point(edge_geom[entry_edge], geoms[entry_point], normalized=True)
+    entry_frac = shapely.line_locate_point(net.edge_geometry(entry_edge), geoms[entry_point], normalized=True)
     entry_frac = at_junctions(net, entry_edge, np.clip(np.nan_to_num(entry_frac, nan=0.0), 0.0, 1.0))
     order = np.lexsort((entry_edge, entry_point))
     entry_point, entry_edge, entry_frac = entry_point[order], entry_edge[order], entry_frac[order]
@@ -307,7 +368,7 @@ def snap_points(
     x = np.full(n, np.nan)
     y = np.full(n, np.nan)
     if on.any():
-        snapped_pts = shapely.line_interpolate_point(edge_geom[edge[on]], frac[on], normalized=True)
+        snapped_pts = shapely.line_interpolate_point(net.edge_geometry(edge[on]), frac[on], normalized=True)
         xy = shapely.get_coordinates(snapped_pts)
         x[on], y[on] = xy[:, 0], xy[:, 1]
 
@@ -334,16 +395,49 @@ def snap_points(
 FAR_OFF_M = 50_000.0
 
 
-def _snap_targets(net: RoadNetwork, pieces: RoadPieces, exclude: tuple[str, ...]):
-    """Pieces that may be snapped onto (indices), their segment index and STRtree; cached per exclusion set."""
+def _snap_targets(net: RoadNetwork, pieces: RoadPieces, exclude: tuple[str, ...]) -> tuple[np.ndarray, GridIndex]:
+    """Pieces that may be snapped onto (indices) and their grid index; cached per exclusion set, and kept in a
+    loaded network's columnar copy."""
     key = f"{GEOMETRY_CACHE}coverkit.travel:snap_targets:{','.join(exclude)}"
     if key not in net._csr_cache:
-        classes = net.edges["road_class"].to_numpy(dtype=object)[pieces.rep_edge]
-        allowed = np.flatnonzero(~np.isin(classes, list(exclude))) if exclude else np.arange(len(pieces.rep_edge))
-        geoms = pieces.tree.geometries[allowed] if exclude else pieces.tree.geometries
-        tree = shapely.STRtree(geoms) if exclude else pieces.tree
-        net._csr_cache[key] = (allowed, segment_index(geoms), tree)
+        tag = "all" if not exclude else hashlib.blake2b(",".join(exclude).encode(), digest_size=6).hexdigest()
+        names = ("allowed", "a", "b", "piece", "cell_ptr", "params")
+        kept = _stored(net, f"grid_{tag}", names)
+        if kept is not None:
+            allowed, index = kept.pop("allowed"), GridIndex.from_arrays(kept)
+        else:
+            if exclude:
+                classes = np.asarray(net.edge_values("road_class"), dtype=object)[pieces.rep_edge]
+                allowed = np.flatnonzero(~np.isin(classes, list(exclude)))
+            else:
+                allowed = np.arange(len(pieces.rep_edge))
+            coords, owner = _edge_coords(net, pieces.rep_edge[allowed])
+            index = build_grid_index(coords, owner)
+            _keep(net, f"grid_{tag}", {"allowed": allowed, **index.to_arrays()})
+        net._csr_cache[key] = (allowed, index)
     return net._csr_cache[key]
+
+
+def _edge_coords(net: RoadNetwork, edges: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Vertex coordinates (m) of ``edges`` and the position in ``edges`` of each vertex."""
+    if net._lazy():
+        return net._store.edge_coords(edges)
+    return shapely.get_coordinates(net.edge_geometry(edges), return_index=True)
+
+
+def _far_tree(net: RoadNetwork, pieces: RoadPieces, allowed: np.ndarray, exclude: tuple[str, ...]) -> shapely.STRtree:
+    """STRtree over the allowed pieces, for the distance of points beyond the snap limit (messages only)."""
+    if not exclude:
+        return pieces.tree
+    key = f"{GEOMETRY_CACHE}coverkit.travel:far_tree:{','.join(exclude)}"
+    if key not in net._csr_cache:
+        net._csr_cache[key] = shapely.STRtree(net.edge_geometry(pieces.rep_edge[allowed]))
+    return net._csr_cache[key]
+
+
+def snap_index(net: RoadNetwork) -> None:
+    """Build the snap index of ``net`` now (and keep it in a loaded network's columnar copy for later loads)."""
+    _snap_targets(net, road_pieces(net), ())
 
 
 def _distance_text(metres: float) -> str:
