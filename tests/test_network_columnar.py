@@ -322,3 +322,49 @@ def test_pbf_build_gives_the_same_network_as_the_reference_reader(tmp_path, monk
     old.info["source_sha256"] = new.info["source_sha256"]
     pd.testing.assert_frame_equal(new.edges, old.edges, check_exact=True)
     pd.testing.assert_frame_equal(new.nodes, old.nodes, check_exact=True)
+
+
+def test_snap_index_saved_with_the_network_is_mapped_and_equal(tmp_path):
+    """``save(indexes=(snap_index_arrays,))`` keeps the snap index in the copy; a load maps it (no table built) and
+    snaps exactly as the in-memory network does."""
+    from coverkit.travel.snap import STORE_PREFIX, snap_index_arrays
+
+    net = grid_network(30, 20, 90.0, 40.0)
+    path = net.save(tmp_path / "net.gpkg", indexes=(snap_index_arrays,))
+    assert (copy_dir(path) / f"{STORE_PREFIX}.grid_all.cell_ptr.npy").is_file()
+    rng = np.random.default_rng(5)
+    xy = rng.uniform(net.xy.min(axis=0) - 200, net.xy.max(axis=0) + 200, (2000, 2))
+    ref = snap_points(net, xy, max_snap_m=60.0, off_network="mask", warn_islands=False)
+    fast = RoadNetwork.load(path)
+    got = snap_points(fast, xy, max_snap_m=60.0, off_network="mask", warn_islands=False)
+    assert fast._lazy()
+    for name in ("on_network", "edge", "frac", "entry_point", "entry_edge", "entry_frac", "x", "y", "dist_m"):
+        np.testing.assert_array_equal(getattr(got, name), getattr(ref, name), err_msg=name)
+
+
+@pytest.mark.parametrize("how", ["no_fork", "child_fails"])
+def test_save_without_a_working_child_still_writes_everything(tmp_path, monkeypatch, how):
+    """Where processes cannot fork, or the forked GeoPackage writer fails, the save writes the GeoPackage itself:
+    the same network comes back both ways."""
+    from coverkit.network import model
+
+    real_fork = model._fork
+    if how == "no_fork":
+        monkeypatch.setattr(model, "_fork", lambda job: None)
+    else:
+
+        def failing(job):
+            def boom():
+                raise RuntimeError("disk full (simulated)")
+
+            return real_fork(boom)
+
+        monkeypatch.setattr(model, "_fork", failing)
+    net = grid_network(8, 6, 100.0, 40.0)
+    path = net.save(tmp_path / "net.gpkg")
+    _assert_same_network(RoadNetwork.load(path), RoadNetwork.load(path, arrays=False))
+    pd.testing.assert_frame_equal(
+        RoadNetwork.load(path, arrays=False).edges.drop(columns="geometry"),
+        net.edges.drop(columns="geometry"),
+        check_dtype=False,
+    )

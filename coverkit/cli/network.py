@@ -68,7 +68,10 @@ def run(args: argparse.Namespace) -> int:
         fields=fields,
         **layer_options,
     )
-    net.save(args.out)
+    from coverkit.travel.snap import snap_index_arrays
+
+    # the snap index goes into the network's columnar copy, so the commands reading the network map it
+    net.save(args.out, indexes=(snap_index_arrays,))
     print(report.summary_text())
     print(f"\nwrote {args.out}")
     print(CAUTION)

@@ -115,23 +115,18 @@ def split_table(frame: pd.DataFrame, *, geometry: bool) -> tuple[Table, dict[str
     return table, geo
 
 
-def write_copy(
+def stage_copy(
     gpkg: Path,
     *,
-    build_id: str,
     nodes: Table,
     node_xy: np.ndarray,
     edges: Table,
     edge_geo: dict[str, np.ndarray],
-    meta: dict,
     extra: dict[str, np.ndarray] | None = None,
 ) -> Path:
-    """Write the copy of ``gpkg`` (which must already be in place: its stamp is recorded) atomically.
-
-    The arrays go to a temporary folder beside the target that is then renamed over it, so a reader sees the old
-    copy or the new one, never half of one.
-    """
+    """Write the arrays of the copy of ``gpkg`` into a temporary folder beside it (see :func:`commit_copy`)."""
     target = copy_dir(gpkg)
+    target.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
     try:
         arrays = {f"nodes.{k}": v for k, v in nodes.columns.items()}
@@ -141,27 +136,43 @@ def write_copy(
         arrays.update(extra or {})
         for name, arr in arrays.items():
             np.save(tmp / f"{name}.npy", np.ascontiguousarray(arr), allow_pickle=False)
-        manifest = {
-            "format": COPY_FORMAT,
-            "build_id": build_id,
-            "gpkg": file_stamp(gpkg),
-            "meta": meta,
+        listing = {
             "nodes": {"length": nodes.length, "columns": list(nodes.columns), "text": nodes.text},
             "edges": {"length": edges.length, "columns": list(edges.columns), "text": edges.text},
             "arrays": {name: [str(arr.dtype), list(arr.shape)] for name, arr in arrays.items()},
         }
-        (tmp / MANIFEST).write_text(json.dumps(manifest), encoding="utf-8")
+        (tmp / "listing.json").write_text(json.dumps(listing), encoding="utf-8")
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return tmp
+
+
+def commit_copy(gpkg: Path, staged: Path, *, build_id: str | None, meta: dict) -> Path:
+    """Stamp a staged copy with the GeoPackage ``gpkg`` (which must be in place) and rename it over the old copy,
+    so a reader sees the old copy or the new one, never half of one."""
+    target = copy_dir(gpkg)
+    try:
+        listing = json.loads((staged / "listing.json").read_text(encoding="utf-8"))
+        (staged / "listing.json").unlink()
+        manifest = {"format": COPY_FORMAT, "build_id": build_id, "gpkg": file_stamp(gpkg), "meta": meta, **listing}
+        (staged / MANIFEST).write_text(json.dumps(manifest), encoding="utf-8")
         old = None
         if target.exists():
             old = target.with_name(f".{target.name}.old.{os.getpid()}")
             os.replace(target, old)
-        os.replace(tmp, target)
+        os.replace(staged, target)
         if old is not None:
             shutil.rmtree(old, ignore_errors=True)
     finally:
-        if tmp.exists():
-            shutil.rmtree(tmp, ignore_errors=True)
+        if staged.exists():
+            shutil.rmtree(staged, ignore_errors=True)
     return target
+
+
+def write_copy(gpkg: Path, *, build_id: str | None, meta: dict, **tables) -> Path:
+    """Write the copy of ``gpkg`` (already in place) in one go: :func:`stage_copy` then :func:`commit_copy`."""
+    return commit_copy(gpkg, stage_copy(gpkg, **tables), build_id=build_id, meta=meta)
 
 
 @dataclass

@@ -6,12 +6,16 @@ Nodes are numbered 0..N-1 and edges 0..E-1. Every edge is directed: a two-way st
 
 from __future__ import annotations
 
+import contextlib
 import json
+import os
+import sys
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import geopandas as gpd
-import networkx as nx
 import numpy as np
 import pandas as pd
 import pyogrio
@@ -22,6 +26,9 @@ from pyproj import CRS
 from coverkit.atomic import atomic_path
 from coverkit.errors import InputFileError
 from coverkit.network.profile import Profile, load_profile, profile_from_dict
+
+if TYPE_CHECKING:
+    import networkx as nx
 
 FORMAT_VERSION = 1
 INFO_LAYER = "build_info"
@@ -296,6 +303,8 @@ class RoadNetwork:
 
         Closed edges (infinite travel time) are left out.
         """
+        import networkx as nx
+
         g = nx.MultiDiGraph(crs=self.crs.to_string())
         g.add_nodes_from(
             (int(n), {"x": float(x), "y": float(y), "node_id": int(i)})
@@ -330,11 +339,19 @@ class RoadNetwork:
         return g
 
     # -- persistence ------------------------------------------------------------------------------------------------
-    def save(self, path: str | Path, *, arrays: bool = True) -> Path:
+    def save(
+        self,
+        path: str | Path,
+        *,
+        arrays: bool = True,
+        indexes: tuple[Callable[[RoadNetwork], dict[str, np.ndarray]], ...] = (),
+    ) -> Path:
         """Write the network to a GeoPackage (layers ``nodes``, ``edges``, ``build_info``), atomically.
 
         With ``arrays`` (the default) also write its columnar copy beside it (see :mod:`coverkit.network.columnar`),
-        from which :meth:`load` serves the network without reading the GeoPackage.
+        from which :meth:`load` serves the network without reading the GeoPackage; ``indexes`` are functions giving
+        more named arrays to keep in the copy (e.g. :func:`coverkit.travel.snap.snap_index_arrays`), computed while
+        the GeoPackage is written.
         """
         from coverkit.network.columnar import content_id
 
@@ -351,12 +368,24 @@ class RoadNetwork:
         build_id = content_id(hashed)
         info_rows = {**meta, "build_id": build_id}
         info_df = pd.DataFrame({"key": list(info_rows), "value": list(info_rows.values())})
+        staged = None
         with atomic_path(path) as tmp:
-            pyogrio.write_dataframe(nodes, tmp, layer="nodes", driver="GPKG")
-            pyogrio.write_dataframe(edges, tmp, layer="edges", driver="GPKG", append=True)
-            pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
-        if arrays:
-            _write_copy_or_note(path, build_id, parts, self.csr() if self.n_edges else None)
+            # the GeoPackage (SQLite, one row at a time) is written by a forked child while this process writes the
+            # columnar copy and the indexes: the two jobs run on two cores
+            child = _fork(lambda: _write_gpkg(tmp, nodes, edges, info_df)) if arrays else None
+            try:
+                if child is None:
+                    _write_gpkg(tmp, nodes, edges, info_df)
+                if arrays:
+                    staged = _stage_or_note(path, parts, self, indexes)
+            finally:
+                if child is not None and not _child_ok(child):
+                    _remove_partial(tmp)
+                    _write_gpkg(tmp, nodes, edges, info_df)  # the child failed: write it here instead
+        if staged is not None:
+            from coverkit.network.columnar import commit_copy
+
+            commit_copy(path, staged, build_id=build_id, meta=parts[4])
         return path
 
     @staticmethod
@@ -397,12 +426,14 @@ class RoadNetwork:
                     why = "unreadable"
         net = cls._read_gpkg(path)
         if arrays:
-            from coverkit.network.columnar import gpkg_build_id
+            from coverkit.network.columnar import commit_copy, gpkg_build_id
             from coverkit.progress import note
 
             note(f"network {path.name}: columnar copy {why}; rebuilding it from the GeoPackage for faster loads")
             parts = _copy_parts(net.nodes, net.edges, net)
-            _write_copy_or_note(path, gpkg_build_id(path, INFO_LAYER), parts, net.csr() if net.n_edges else None)
+            staged = _stage_or_note(path, parts, net)
+            if staged is not None:
+                commit_copy(path, staged, build_id=gpkg_build_id(path, INFO_LAYER), meta=parts[4])
         return net
 
     @classmethod
@@ -464,6 +495,44 @@ class RoadNetwork:
         return cls(nodes, edges, crs, profile, json.loads(meta["info_json"]))
 
 
+def _write_gpkg(tmp: Path, nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, info_df: pd.DataFrame) -> None:
+    """The three layers of a network GeoPackage."""
+    pyogrio.write_dataframe(nodes, tmp, layer="nodes", driver="GPKG")
+    pyogrio.write_dataframe(edges, tmp, layer="edges", driver="GPKG", append=True)
+    pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
+
+
+def _fork(job: Callable[[], None]) -> int | None:
+    """Run ``job`` in a forked child (its process id), or None where processes cannot fork (then run it here)."""
+    if not hasattr(os, "fork"):
+        return None
+    sys.stdout.flush()
+    sys.stderr.flush()
+    pid = os.fork()
+    if pid == 0:  # the child: do the job and leave at once (no cleanup of the parent's state)
+        code = 1
+        try:
+            job()
+            code = 0
+        except BaseException as exc:  # reported by the parent, which then does the job itself
+            print(f"network save (child): {type(exc).__name__}: {str(exc)[:200]}", file=sys.stderr, flush=True)
+        finally:
+            os._exit(code)
+    return pid
+
+
+def _child_ok(pid: int) -> bool:
+    """Wait for a forked child; whether it exited cleanly."""
+    _, status = os.waitpid(pid, 0)
+    return os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0
+
+
+def _remove_partial(tmp: Path) -> None:
+    for leftover in (tmp, Path(f"{tmp}-journal"), Path(f"{tmp}-wal"), Path(f"{tmp}-shm")):
+        with contextlib.suppress(FileNotFoundError):
+            leftover.unlink()
+
+
 def _copy_parts(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, net: RoadNetwork) -> tuple:
     """What the columnar copy holds: node and edge tables, node coordinates (m), edge geometry, and the metadata."""
     from coverkit.network.columnar import split_table
@@ -481,34 +550,28 @@ def _copy_parts(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, net: RoadNetwo
     return node_table, node_xy, edge_table, edge_geo, meta
 
 
-def _write_copy_or_note(path: Path, build_id: str | None, parts: tuple, csr: sp.csr_matrix | None) -> None:
-    """Write the columnar copy of the GeoPackage ``path``; when the folder is not writable, say so and go on (the
+def _csr_arrays(csr: sp.csr_matrix | None) -> dict[str, np.ndarray]:
+    if csr is None:
+        return {}
+    return {"csr.travel_s.data": csr.data, "csr.travel_s.indices": csr.indices, "csr.travel_s.indptr": csr.indptr}
+
+
+def _stage_or_note(path: Path, parts: tuple, net: RoadNetwork, indexes: tuple = ()) -> Path | None:
+    """Stage the columnar copy's arrays (and ``indexes``' arrays); when that fails, say so and go on (the
     GeoPackage alone is a complete network)."""
-    from coverkit.network.columnar import remove_copy, write_copy
+    from coverkit.network.columnar import remove_copy, stage_copy
     from coverkit.progress import note
 
-    node_table, node_xy, edge_table, edge_geo, meta = parts
-    extra = {}
-    if csr is not None:
-        extra = {
-            "csr.travel_s.data": csr.data,
-            "csr.travel_s.indices": csr.indices,
-            "csr.travel_s.indptr": csr.indptr,
-        }
+    node_table, node_xy, edge_table, edge_geo, _ = parts
     try:
-        write_copy(
-            path,
-            build_id=build_id,
-            nodes=node_table,
-            node_xy=node_xy,
-            edges=edge_table,
-            edge_geo=edge_geo,
-            meta=meta,
-            extra=extra,
-        )
+        extra = _csr_arrays(net.csr() if net.n_edges else None)
+        for index in indexes:
+            extra.update(index(net))
+        return stage_copy(path, nodes=node_table, node_xy=node_xy, edges=edge_table, edge_geo=edge_geo, extra=extra)
     except OSError as exc:
         remove_copy(path)
         note(f"network {path.name}: columnar copy not written ({exc}); loads will read the GeoPackage")
+        return None
 
 
 def _json_default(obj: object) -> object:

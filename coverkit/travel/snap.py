@@ -435,9 +435,14 @@ def _far_tree(net: RoadNetwork, pieces: RoadPieces, allowed: np.ndarray, exclude
     return net._csr_cache[key]
 
 
-def snap_index(net: RoadNetwork) -> None:
-    """Build the snap index of ``net`` now (and keep it in a loaded network's columnar copy for later loads)."""
-    _snap_targets(net, road_pieces(net), ())
+def snap_index_arrays(net: RoadNetwork) -> dict[str, np.ndarray]:
+    """The snap index of ``net`` (road pieces and the grid over all of them) as named arrays, for
+    :meth:`RoadNetwork.save`'s ``indexes``: a network loaded from the copy then maps them instead of building them."""
+    pieces = road_pieces(net)
+    allowed, index = _snap_targets(net, pieces, ())
+    out = {f"{STORE_PREFIX}.pieces.{k}": v for k, v in pieces.to_arrays().items()}
+    out.update({f"{STORE_PREFIX}.grid_all.{k}": v for k, v in {"allowed": allowed, **index.to_arrays()}.items()})
+    return out
 
 
 def _distance_text(metres: float) -> str:
