@@ -129,6 +129,7 @@ def stage_copy(
     target.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
     try:
+        tmp.chmod(0o755)  # mkdtemp makes it private; the copy is as readable as the GeoPackage beside it
         arrays = {f"nodes.{k}": v for k, v in nodes.columns.items()}
         arrays["nodes.geometry_xy"] = node_xy
         arrays.update({f"edges.{k}": v for k, v in edges.columns.items()})
