@@ -383,9 +383,7 @@ class RoadNetwork:
                     _remove_partial(tmp)
                     _write_gpkg(tmp, nodes, edges, info_df)  # the child failed: write it here instead
         if staged is not None:
-            from coverkit.network.columnar import commit_copy
-
-            commit_copy(path, staged, build_id=build_id, meta=parts[4])
+            _commit_or_note(path, staged, build_id, parts[4])
         return path
 
     @staticmethod
@@ -426,14 +424,14 @@ class RoadNetwork:
                     why = "unreadable"
         net = cls._read_gpkg(path)
         if arrays:
-            from coverkit.network.columnar import commit_copy, gpkg_build_id
+            from coverkit.network.columnar import gpkg_build_id
             from coverkit.progress import note
 
             note(f"network {path.name}: columnar copy {why}; rebuilding it from the GeoPackage for faster loads")
             parts = _copy_parts(net.nodes, net.edges, net)
             staged = _stage_or_note(path, parts, net)
             if staged is not None:
-                commit_copy(path, staged, build_id=gpkg_build_id(path, INFO_LAYER), meta=parts[4])
+                _commit_or_note(path, staged, gpkg_build_id(path, INFO_LAYER), parts[4])
         return net
 
     @classmethod
@@ -554,6 +552,18 @@ def _csr_arrays(csr: sp.csr_matrix | None) -> dict[str, np.ndarray]:
     if csr is None:
         return {}
     return {"csr.travel_s.data": csr.data, "csr.travel_s.indices": csr.indices, "csr.travel_s.indptr": csr.indptr}
+
+
+def _commit_or_note(path: Path, staged: Path, build_id: str | None, meta: dict) -> None:
+    """Put a staged copy in place; when that fails (another process renaming its own copy at the same moment, a
+    folder turned read-only), say so and go on: the next load checks the copy again."""
+    from coverkit.network.columnar import commit_copy
+    from coverkit.progress import note
+
+    try:
+        commit_copy(path, staged, build_id=build_id, meta=meta)
+    except OSError as exc:
+        note(f"network {path.name}: columnar copy not put in place ({exc}); loads will check it again")
 
 
 def _stage_or_note(path: Path, parts: tuple, net: RoadNetwork, indexes: tuple = ()) -> Path | None:
