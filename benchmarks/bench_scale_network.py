@@ -153,6 +153,12 @@ print(json.dumps({"import_s": t1 - t0, "load_s": t2 - t1, "ready_s": t3 - t1, "s
 """
 
 
+def _drop_baseline_trees(where: Path = CACHE) -> None:
+    """Remove the detached worktrees :func:`_baseline_tree` made (git keeps a record of each)."""
+    for tree in where.glob("baseline-*"):
+        subprocess.run(["git", "-C", str(REPO), "worktree", "remove", "--force", str(tree)], capture_output=True)
+
+
 def _baseline_tree(ref: str, where: Path) -> Path:
     """A detached worktree of ``ref`` (the old code) under ``where``."""
     tree = where / f"baseline-{ref[:12]}"
@@ -283,7 +289,10 @@ def main() -> None:
     parser.add_argument("--skip-old", action="store_true", help="run the new code only")
     parser.add_argument("--verbose", action="store_true", help="print the children's progress lines")
     args = parser.parse_args()
-    CASES[args.case](args)
+    try:
+        CASES[args.case](args)
+    finally:
+        _drop_baseline_trees()
 
 
 if __name__ == "__main__":
