@@ -368,3 +368,18 @@ def test_save_without_a_working_child_still_writes_everything(tmp_path, monkeypa
         net.edges.drop(columns="geometry"),
         check_dtype=False,
     )
+
+
+def test_a_loaded_network_pickles_and_maps_its_arrays_again(demo_saved):
+    """A network served by the copy (with its snap index cached) survives pickling, as a cluster worker receives
+    it: the same arrays and snaps come back."""
+    import pickle
+
+    net = RoadNetwork.load(demo_saved)
+    xy = _demo_points(RoadNetwork.load(demo_saved, arrays=False), 500, 4)
+    ref = snap_points(net, xy, max_snap_m=300.0, off_network="mask", warn_islands=False)
+    back = pickle.loads(pickle.dumps(net))
+    assert back._lazy() and back.travel_s.tobytes() == net.travel_s.tobytes()
+    got = snap_points(back, xy, max_snap_m=300.0, off_network="mask", warn_islands=False)
+    np.testing.assert_array_equal(got.entry_frac, ref.entry_frac)
+    np.testing.assert_array_equal(got.edge, ref.edge)

@@ -24,7 +24,6 @@ import os
 import shutil
 import sqlite3
 import tempfile
-from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -209,26 +208,29 @@ class Copy:
     def table(self, which: str) -> Table:
         """The ``nodes`` or ``edges`` table (columns mapped lazily on first use of each)."""
         spec = self.manifest[which]
-        return Table(
-            int(spec["length"]),
-            _LazyColumns(spec["columns"], lambda name: self.array(f"{which}.{name}")),
-            spec["text"],
-        )
+        return Table(int(spec["length"]), _LazyColumns(spec["columns"], self, which), spec["text"])
+
+    def __reduce__(self):
+        # pickled (sent to a worker) as its folder and manifest: the arrays are mapped again there, not copied
+        return (Copy, (self.folder, self.manifest))
 
 
 class _LazyColumns(dict):
     """Column name -> array, each array mapped on first access (keeps the column order of the manifest)."""
 
-    def __init__(self, names: list[str], load: Callable[[str], np.ndarray]) -> None:
+    def __init__(self, names: list[str], copy: Copy, which: str) -> None:
         super().__init__({name: None for name in names})
-        self._load = load
+        self._copy, self._which = copy, which
 
     def __getitem__(self, name: str) -> np.ndarray:
         value = super().__getitem__(name)
         if value is None:
-            value = self._load(name)
+            value = self._copy.array(f"{self._which}.{name}")
             super().__setitem__(name, value)
         return value
+
+    def __reduce__(self):
+        return (_LazyColumns, (list(self.keys()), self._copy, self._which))
 
     def items(self):
         return ((k, self[k]) for k in self)

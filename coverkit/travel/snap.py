@@ -199,7 +199,7 @@ def road_pieces(net: RoadNetwork) -> RoadPieces:
     names = ("piece_of_edge", "rep_edge", "members_ptr", "members", "reversed_of_edge")
     kept = _stored(net, "pieces", names)
     if kept is not None and len(kept["piece_of_edge"]) == net.n_edges:
-        pieces = RoadPieces(**kept, rep_geoms=lambda: net.edge_geometry(kept["rep_edge"]))
+        pieces = RoadPieces(**kept, rep_geoms=_RepGeoms(net, kept["rep_edge"]))
     else:
         pieces = _group_pieces(net)
         _keep(net, "pieces", pieces.to_arrays())
@@ -251,8 +251,18 @@ def _group_pieces(net: RoadNetwork) -> RoadPieces:
         members_ptr=members_ptr,
         members=members,
         reversed_of_edge=reversed_of_edge,
-        rep_geoms=lambda: net.edge_geometry(rep_edge),
+        rep_geoms=_RepGeoms(net, rep_edge),
     )
+
+
+class _RepGeoms:
+    """The piece geometries of a network, built when called (a class, not a closure: networks can be pickled)."""
+
+    def __init__(self, net: RoadNetwork, rep_edge: np.ndarray) -> None:
+        self.net, self.rep_edge = net, rep_edge
+
+    def __call__(self) -> np.ndarray:
+        return self.net.edge_geometry(self.rep_edge)
 
 
 def _off_network_error(
