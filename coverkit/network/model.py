@@ -501,8 +501,12 @@ def _write_gpkg(tmp: Path, nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, inf
 
 
 def _fork(job: Callable[[], None]) -> int | None:
-    """Run ``job`` in a forked child (its process id), or None where processes cannot fork (then run it here)."""
-    if not hasattr(os, "fork"):
+    """Run ``job`` in a forked child (its process id), or None where that is not safe (then run it here): no
+    ``fork`` on the platform, or other Python threads running (a server), one of which might hold a lock the child
+    would wait on forever."""
+    import threading
+
+    if not hasattr(os, "fork") or threading.active_count() > 1:
         return None
     sys.stdout.flush()
     sys.stderr.flush()
