@@ -361,29 +361,34 @@ def _chunked_search(net, sources, limit_s, direction, chunk_size, width, only=No
             yield src_idx, dijkstra(aug, directed=True, indices=indices, limit=limit_s)[:, :n]
 
 
-def same_edge_min(
+def same_edge_trips(
     net: RoadNetwork,
     sources: Snapped,
     targets: Snapped,
-    src_idx: np.ndarray,
-    block: np.ndarray,
     direction: str,
-) -> None:
-    """Lower ``block`` (chunk, n_targets) with the direct trip along an edge shared by source and target."""
-    local = np.full(len(sources), -1, dtype=np.int64)
-    local[src_idx] = np.arange(len(src_idx))
-    sel = local[sources.entry_point] >= 0
-    s_loc, s_e, s_f = local[sources.entry_point[sel]], sources.entry_edge[sel], sources.entry_frac[sel]
+    only: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The direct trips along an edge shared by a source and a target, in driving order: (source, target, time s).
+
+    ``only``: the sources to consider (default every one).
+    """
+    sel = np.ones(len(sources.entry_point), dtype=bool)
+    if only is not None:
+        wanted = np.zeros(len(sources), dtype=bool)
+        wanted[np.asarray(only, dtype=np.int64)] = True
+        sel = wanted[sources.entry_point]
+    s_pt, s_e, s_f = sources.entry_point[sel], sources.entry_edge[sel], sources.entry_frac[sel]
     t_pt, t_e, t_f = targets.entry_point, targets.entry_edge, targets.entry_frac
+    empty = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), np.zeros(0))
     if len(s_e) == 0 or len(t_e) == 0:
-        return
+        return empty
     order = np.argsort(t_e, kind="stable")
     te_sorted = t_e[order]
     lo = np.searchsorted(te_sorted, s_e, side="left")
     hi = np.searchsorted(te_sorted, s_e, side="right")
     cnt = hi - lo
     if cnt.sum() == 0:
-        return
+        return empty
     si = np.repeat(np.arange(len(s_e)), cnt)
     tj = order[np.repeat(lo, cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))]
     e = s_e[si]
@@ -395,7 +400,23 @@ def same_edge_min(
         # a trip across the closed stretch of a partly closed edge does not exist
         ok = (last >= first) & (last < 1.0) & ~((hi > first) & (lo < last))
     t = (last - first)[ok] * partial_run_s(net)[e[ok]]
-    np.minimum.at(block, (s_loc[si[ok]], t_pt[tj[ok]]), t)
+    return s_pt[si[ok]], t_pt[tj[ok]], t
+
+
+def same_edge_min(
+    net: RoadNetwork,
+    sources: Snapped,
+    targets: Snapped,
+    src_idx: np.ndarray,
+    block: np.ndarray,
+    direction: str,
+) -> None:
+    """Lower ``block`` (chunk, n_targets) with the direct trip along an edge shared by source and target."""
+    s, pt, t = same_edge_trips(net, sources, targets, direction, only=src_idx)
+    if len(s):
+        local = np.full(len(sources), -1, dtype=np.int64)
+        local[src_idx] = np.arange(len(src_idx))
+        np.minimum.at(block, (local[s], pt), t)
 
 
 def dense_to_csr(dist: np.ndarray, limit_s: float) -> sp.csr_matrix:
