@@ -304,9 +304,7 @@ def bounded_table(
     nearest = nearest_k_points(net, base_snap, point_snap, node_reach, k=orders)
     note(f"coverage: searching from {len(base_snap)} bases within {within_s:g} s")
     times = point_times(net, base_snap, point_snap, within_s, direction=direction)
-    return TravelTable(
-        base_snap, point_snap, times, float(horizon_s), direction, float(within_s), nearest, node_reach
-    )
+    return TravelTable(base_snap, point_snap, times, float(horizon_s), direction, float(within_s), nearest, node_reach)
 
 
 def times_within(times: sp.csr_matrix, within_s: float) -> sp.csr_matrix:
