@@ -22,6 +22,7 @@ from affine import Affine
 from coverkit import settings
 from coverkit.demand_sources import POPULATION_SOURCES
 from coverkit.errors import CoverkitError, FieldError
+from coverkit.memory import check_memory
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
 from coverkit.travel import NO_ACCESS_CLASSES, count_within, nearest_sources, point_times, snap_points
@@ -41,6 +42,9 @@ DEFAULT_CELL_M = settings.AREA_CELL_M
 DEFAULT_REACH_M = settings.AREA_REACH_M
 #: Grid cells up to this far from a road are assigned a first-due base (m); farther cells are left unassigned.
 DEFAULT_ASSIGN_M = 3000.0
+#: Peak bytes per cell while the area grid is built and snapped (cell centres, their points and the snap's
+#: candidate arrays; measured on the demo county, rounded up).
+GRID_CELL_BYTES = 600
 
 
 @dataclass(frozen=True)
@@ -606,6 +610,11 @@ def area_grid(
     x1, y1 = np.max([b[2:] for b in boxes], axis=0)
     ncol = int(np.ceil((x1 - x0) / cell_m)) + 1
     nrow = int(np.ceil((y1 - y0) / cell_m)) + 1
+    check_memory(
+        f"the area grid of {nrow:,} x {ncol:,} cells of {cell_m:g} m",
+        nrow * ncol * GRID_CELL_BYTES,
+        "a coarser grid cell, a smaller study area, or a cluster",
+    )
     transform = Affine(cell_m, 0, x0 - cell_m / 2, 0, -cell_m, y1 + cell_m / 2)
     rr, cc = np.mgrid[0:nrow, 0:ncol]
     cx = transform.c + (cc.ravel() + 0.5) * cell_m

@@ -37,6 +37,8 @@ from coverkit.network.model import MIN_EDGE_S, RoadNetwork
 from coverkit.travel.search import augmented_graph, exits, graph, same_edge_trips, seeds
 from coverkit.travel.snap import Snapped
 
+#: Points handled together when their nearest sources are picked from their road ends' (bounds the candidates).
+POINT_BLOCK = 500_000
 #: Sentinel source label above every real source index (int64), for the minimum-label propagation.
 _NO_SOURCE = np.iinfo(np.int64).max
 
@@ -240,32 +242,44 @@ def nearest_k_points(
     if reach.k < k:
         raise ValueError(f"the nodes hold {reach.k} nearest sources; {k} are asked for")
     n_t = len(targets)
-    t_pt, t_node, t_add = exits(net, targets, reach.direction)
-    kk = reach.k
-    pt = np.repeat(t_pt, kk)
-    t = (reach.time_s[t_node] + t_add[:, None]).ravel()
-    s = reach.source[t_node].ravel()
-    se_s, se_pt, se_t = same_edge_trips(net, sources, targets, reach.direction)
-    pt, t, s = np.r_[pt, se_pt], np.r_[t, se_t], np.r_[s, se_s]
-    keep = (s >= 0) & (t <= reach.limit_s)
-    pt, t, s = pt[keep], t[keep], s[keep]
     out_s = np.full((n_t, k), -1, dtype=np.int64)
     out_t = np.full((n_t, k), np.inf)
+    t_pt, t_node, t_add = exits(net, targets, reach.direction)
+    se_s, se_pt, se_t = same_edge_trips(net, sources, targets, reach.direction)
+    order = np.argsort(se_pt, kind="stable")
+    se_s, se_pt, se_t = se_s[order], se_pt[order], se_t[order]
+    # points in blocks, so the candidates stay a few hundred MB whatever the number of points
+    for lo in range(0, n_t, POINT_BLOCK):
+        hi = min(lo + POINT_BLOCK, n_t)
+        a, b = np.searchsorted(t_pt, [lo, hi])
+        c, d = np.searchsorted(se_pt, [lo, hi])
+        node = t_node[a:b]
+        pt = np.repeat(t_pt[a:b], k)
+        t = (reach.time_s[node, :k] + t_add[a:b, None]).ravel()
+        s = reach.source[node, :k].ravel()
+        pt, t, s = np.r_[pt, se_pt[c:d]], np.r_[t, se_t[c:d]], np.r_[s, se_s[c:d]]
+        _k_best(pt - lo, t, s, reach.limit_s, out_s[lo:hi], out_t[lo:hi])
+    return out_s, out_t
+
+
+def _k_best(pt: np.ndarray, t: np.ndarray, s: np.ndarray, limit_s: float, out_s: np.ndarray, out_t: np.ndarray):
+    """Fill ``out_s``/``out_t`` (n, k) with the k best (time, source) per point of the candidates (pt, t, s): each
+    source's best time first, then ordered by time and source index."""
+    keep = (s >= 0) & (t <= limit_s)
+    pt, t, s = pt[keep], t[keep], s[keep]
     if len(pt) == 0:
-        return out_s, out_t
-    # each source's best time per point, then the k best (time, source) per point
+        return
     order = np.lexsort((t, s, pt))
     pt, t, s = pt[order], t[order], s[order]
     first = np.r_[True, (pt[1:] != pt[:-1]) | (s[1:] != s[:-1])]
     pt, t, s = pt[first], t[first], s[first]
     order = np.lexsort((s, t, pt))
     pt, t, s = pt[order], t[order], s[order]
-    counts = np.bincount(pt, minlength=n_t)
+    counts = np.bincount(pt, minlength=len(out_s))
     rank = np.arange(len(pt)) - np.repeat(np.cumsum(counts) - counts, counts)
-    keep = rank < k
+    keep = rank < out_s.shape[1]
     out_s[pt[keep], rank[keep]] = s[keep]
     out_t[pt[keep], rank[keep]] = t[keep]
-    return out_s, out_t
 
 
 __all__ = ["NodeReach", "lowest_labels", "nearest_k_nodes", "nearest_k_points"]

@@ -34,6 +34,12 @@ DIRECTIONS = ("out", "in")
 #: Up to this many cells (sources x targets), nearest sources are found on a dense array.
 DENSE_NEAREST_CELLS = 20_000_000
 
+#: Peak bytes per stored entry of a sparse time table while it is built: a float64 time and an int64 index, held
+#: twice while the chunks are assembled into one matrix.
+TABLE_ENTRY_BYTES = 32
+#: What to change when a time table would not fit (the library names no command-line flag).
+TABLE_ADVICE = "a shorter horizon or travel standard, fewer demand points (a coarser raster or grid), or a cluster"
+
 
 def run_s(net: RoadNetwork) -> np.ndarray:
     """Running time of each edge without its end-node delay (s); ``inf`` for closed edges."""
@@ -131,10 +137,11 @@ def node_times(
     scipy.sparse.csr_matrix
         Shape (n_sources, n_nodes), stored entries = times (s).
     """
-    parts = [
-        (src_idx, dense_to_csr(dist, limit_s))
-        for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes)
-    ]
+    watch = _TableWatch(len(sources), net.n_nodes, limit_s, "nodes")
+    parts = []
+    for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes):
+        parts.append((src_idx, dense_to_csr(dist, limit_s)))
+        watch.add(src_idx, parts[-1][1].nnz)
     return _assemble(parts, (len(sources), net.n_nodes))
 
 
@@ -207,13 +214,42 @@ def point_times(
     targets_with = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
     width = max(net.n_nodes, len(t_pt))
     parts = []
+    watch = _TableWatch(len(sources), n_t, limit_s, "points")
     for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
         block = np.full((len(src_idx), n_t), np.inf)
         if len(t_pt):
             block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
         same_edge_min(net, sources, targets, src_idx, block, direction)
         parts.append((src_idx, dense_to_csr(block, limit_s)))
+        watch.add(src_idx, parts[-1][1].nnz)
     return _assemble(parts, (len(sources), n_t))
+
+
+class _TableWatch:
+    """Projects a table's stored entries from the chunks searched so far and stops (one line) when the whole table
+    would not fit in the memory budget, before the rest is searched and assembled."""
+
+    def __init__(self, n_sources: int, n_targets: int, limit_s: float, what: str) -> None:
+        from coverkit import settings
+
+        self.n_sources, self.n_targets, self.limit_s, self.what = n_sources, n_targets, limit_s, what
+        self.budget = settings.memory_budget_bytes()
+        self.entries = 0
+        self.done = 0
+
+    def add(self, src_idx: np.ndarray, nnz: int) -> None:
+        from coverkit.memory import check_memory
+
+        self.entries += int(nnz)
+        self.done += len(src_idx)
+        projected = self.entries * self.n_sources / max(self.done, 1)
+        check_memory(
+            f"the travel times of {self.n_sources:,} bases to {self.n_targets:,} {self.what} within "
+            f"{self.limit_s:g} s ({projected:,.0f} pairs)",
+            projected * TABLE_ENTRY_BYTES,
+            TABLE_ADVICE,
+            budget_bytes=self.budget,
+        )
 
 
 def nearest_node_times(
