@@ -25,6 +25,7 @@ from coverkit.coverage import (
     area_layers,
     default_horizon_s,
     evaluate_coverage,
+    times_within,
     travel_table,
 )
 from coverkit.errors import CoverkitError
@@ -173,15 +174,25 @@ def test_demo_area_layers_equal_the_dense_horizon_path(demo):
     np.testing.assert_array_equal(la_new.gaps["area_km2"], la_old.gaps["area_km2"])
 
 
-def test_stored_entries_grow_with_reached_pairs(demo):
+def test_stored_entries_grow_with_reached_pairs(demo, monkeypatch):
     """The stored tables hold exactly the (base, point) pairs within the standard - bases x points reached, not
-    bases x points - for the demand and the area grid; the per node arrays hold three orders per node."""
+    bases x points - for the demand and the area grid; the per node arrays hold three orders per node. The
+    reference horizon table is built from dense blocks only, the bounded one from the reached nodes only."""
+    import coverkit.travel.search as search
+
     net, bases, cells, std = demo
+    monkeypatch.setattr(search, "SPARSE_REACH_SHARE", 2.0)  # always gather from the reached nodes
     new = evaluate_coverage(net, bases, cells, std)
     table = new.extra["table"]
+    monkeypatch.setattr(search, "SPARSE_REACH_SHARE", -1.0)  # always dense blocks
     full = travel_table(net, bases, cells, default_horizon_s(std))
     within = int((full.times.data <= std.travel_s).sum())
     assert table.times.nnz == within
+    # and the very same entries (structure and values, bit for bit) as the horizon table cut at the standard
+    cut = times_within(full.times, std.travel_s)
+    for a, b in ((table.times, cut),):
+        assert np.array_equal(a.indptr, b.indptr) and np.array_equal(a.indices, b.indices)
+        assert np.array_equal(a.data, b.data)
     assert table.times.nnz < 0.3 * full.times.nnz  # the horizon table is several times larger
     assert table.node_reach.time_s.shape == (net.n_nodes, DUE_ORDERS)
     grid = area_grid(net, new)

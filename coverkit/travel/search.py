@@ -34,6 +34,10 @@ DIRECTIONS = ("out", "in")
 #: Up to this many cells (sources x targets), nearest sources are found on a dense array.
 DENSE_NEAREST_CELLS = 20_000_000
 
+#: Below this share of a chunk's (source, node) pairs reached, point times are gathered from the reached nodes only;
+#: above it, from dense blocks (faster when nearly everything is reached). Both give the same numbers.
+SPARSE_REACH_SHARE = 0.2
+
 #: Peak bytes per stored entry of a sparse time table while it is built: a float64 time and an int64 index, held
 #: twice while the chunks are assembled into one matrix.
 TABLE_ENTRY_BYTES = 32
@@ -213,16 +217,63 @@ def point_times(
     starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
     targets_with = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
     width = max(net.n_nodes, len(t_pt))
+    # the target entries by node (to gather from the reached nodes only) and the same-edge trips, found once
+    by_node = np.argsort(t_node, kind="stable")
+    node_ptr = np.searchsorted(t_node[by_node], np.arange(net.n_nodes + 1))
+    se_s, se_pt, se_t = same_edge_trips(net, sources, targets, direction)
+    order = np.argsort(se_s, kind="stable")
+    se_s, se_pt, se_t = se_s[order], se_pt[order], se_t[order]
     parts = []
     watch = _TableWatch(len(sources), n_t, limit_s, "points")
     for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
-        block = np.full((len(src_idx), n_t), np.inf)
-        if len(t_pt):
-            block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
-        same_edge_min(net, sources, targets, src_idx, block, direction)
-        parts.append((src_idx, dense_to_csr(block, limit_s)))
+        local = np.full(len(sources), -1, dtype=np.int64)
+        local[src_idx] = np.arange(len(src_idx))
+        trip = local[se_s] >= 0
+        trips = (local[se_s[trip]], se_pt[trip], se_t[trip])
+        reached = np.isfinite(dist)
+        if reached.mean() > SPARSE_REACH_SHARE:
+            block = np.full((len(src_idx), n_t), np.inf)
+            if len(t_pt):
+                block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
+            np.minimum.at(block, trips[:2], trips[2])
+            parts.append((src_idx, dense_to_csr(block, limit_s)))
+        else:
+            parts.append((src_idx, _reached_points(dist, reached, by_node, node_ptr, t_pt, t_add, trips, n_t, limit_s)))
         watch.add(src_idx, parts[-1][1].nnz)
     return _assemble(parts, (len(sources), n_t))
+
+
+def _reached_points(
+    dist: np.ndarray,
+    reached: np.ndarray,
+    by_node: np.ndarray,
+    node_ptr: np.ndarray,
+    t_pt: np.ndarray,
+    t_add: np.ndarray,
+    trips: tuple[np.ndarray, np.ndarray, np.ndarray],
+    n_t: int,
+    limit_s: float,
+) -> sp.csr_matrix:
+    """A chunk's point times from its reached nodes only: the same sums and minima as the dense block (so the same
+    numbers), at a cost that follows the reached (source, node) pairs instead of sources x targets."""
+    r, nd = np.nonzero(reached)
+    lo = node_ptr[nd]
+    cnt = node_ptr[nd + 1] - lo
+    e = by_node[np.repeat(lo - (np.cumsum(cnt) - cnt), cnt) + np.arange(int(cnt.sum()))]
+    rows = np.r_[np.repeat(r, cnt), trips[0]]
+    cols = np.r_[t_pt[e], trips[1]]
+    t = np.r_[np.repeat(dist[r, nd], cnt) + t_add[e], trips[2]]
+    key = rows * n_t + cols
+    order = np.argsort(key, kind="stable")
+    key, t = key[order], t[order]
+    first = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if len(key) else np.zeros(0, dtype=np.int64)
+    t = np.minimum.reduceat(t, first) if len(first) else t[:0]
+    key = key[first]
+    keep = t <= limit_s
+    key, t = key[keep], t[keep]
+    row, col = key // n_t, key % n_t
+    indptr = np.concatenate([[0], np.cumsum(np.bincount(row, minlength=len(dist)))])
+    return sp.csr_matrix((t, col, indptr), shape=(len(dist), n_t))
 
 
 class _TableWatch:
