@@ -22,6 +22,8 @@ from scipy.spatial import cKDTree
 MAX_SUBSEGMENT_M = 50.0
 #: Midpoints examined per point before falling back.
 K_CANDIDATES = 8
+#: Points whose candidates are examined together (bounds the memory of one step).
+POINT_BLOCK = 100_000
 
 
 @dataclass(frozen=True)
@@ -106,7 +108,13 @@ def nearest_pieces(
     if n == 0 or len(index.piece) == 0:
         return piece, dist
     half = index.max_len_m / 2.0
-    best, best_piece, proven = _best_of(index, xy, min(K_CANDIDATES, len(index.piece)), max_distance_m + half)
+    k = min(K_CANDIDATES, len(index.piece))
+    best, best_piece = np.empty(n), np.empty(n, dtype=np.int64)
+    proven = np.empty(n, dtype=bool)
+    # in blocks of points: the candidate arrays (points x k x 2) stay tens of MB however many points there are
+    for lo in range(0, n, POINT_BLOCK):
+        hi = min(lo + POINT_BLOCK, n)
+        best[lo:hi], best_piece[lo:hi], proven[lo:hi] = _best_of(index, xy[lo:hi], k, max_distance_m + half)
     within = best <= max_distance_m
     ok = proven & within
     piece[ok] = best_piece[ok]
