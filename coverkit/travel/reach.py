@@ -210,7 +210,7 @@ def lowest_labels(label: np.ndarray, tail: np.ndarray, head: np.ndarray, n: int)
     order = np.argsort(tail, kind="stable")
     tail, head = tail[order], head[order]
     indptr = np.searchsorted(tail, np.arange(n + 1))
-    frontier = np.unique(tail)
+    frontier = tail[np.r_[True, tail[1:] != tail[:-1]]]  # tail is sorted: its distinct values without a hash
     while len(frontier):
         start = indptr[frontier]
         cnt = indptr[frontier + 1] - start
@@ -219,8 +219,14 @@ def lowest_labels(label: np.ndarray, tail: np.ndarray, head: np.ndarray, n: int)
         better = cand < label[to]
         if not better.any():
             break
-        np.minimum.at(label, to[better], cand[better])
-        frontier = np.unique(to[better])
+        to, cand = to[better], cand[better]
+        np.minimum.at(label, to, cand)
+        if len(to) > n // 64:  # a wide front: a mask over the nodes is cheaper than sorting it
+            mark = np.zeros(n, dtype=bool)
+            mark[to] = True
+            frontier = np.flatnonzero(mark)
+        else:
+            frontier = np.unique(to)
     return label
 
 
