@@ -22,12 +22,18 @@ from affine import Affine
 from coverkit import settings
 from coverkit.demand_sources import POPULATION_SOURCES
 from coverkit.errors import CoverkitError, FieldError
+from coverkit.memory import check_memory
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
 from coverkit.travel import NO_ACCESS_CLASSES, count_within, nearest_sources, point_times, snap_points
+from coverkit.travel.reach import NodeReach, nearest_k_nodes, nearest_k_points
 
 #: Default search horizon beyond the standard, so response times past the standard are still measured (s).
 DEFAULT_HORIZON_S = 3600.0
+#: How many due orders are drawn as areas: first-, second- and third-due.
+DUE_ORDERS = 3
+#: How many nearest bases a demand point reports: first- and second-due.
+POINT_ORDERS = 2
 #: Default snap limit for demand points (m); farther points are off-network and counted, not moved.
 DEFAULT_DEMAND_SNAP_M = settings.SNAP_M
 #: Cell size of the area grid behind first-due areas and gap polygons (m).
@@ -36,6 +42,9 @@ DEFAULT_CELL_M = settings.AREA_CELL_M
 DEFAULT_REACH_M = settings.AREA_REACH_M
 #: Grid cells up to this far from a road are assigned a first-due base (m); farther cells are left unassigned.
 DEFAULT_ASSIGN_M = 3000.0
+#: Peak bytes per cell while the area grid is built and snapped (cell centres, their points and the snap's
+#: candidate arrays; measured on the demo county, rounded up).
+GRID_CELL_BYTES = 600
 
 
 @dataclass(frozen=True)
@@ -134,7 +143,9 @@ class CoverageResult:
     standard
         The standard evaluated.
     times
-        Sparse (n_bases, n_demand) travel times within the horizon (s).
+        Sparse (n_bases, n_demand) travel times within the travel standard (s): the reached pairs behind depth
+        and the per base figures. First- and second-due times beyond the standard, up to the horizon, are in
+        ``demand``.
     """
 
     demand: gpd.GeoDataFrame
@@ -182,7 +193,17 @@ class TravelTable:
     base_snap, point_snap
         Snapped bases and points.
     times
-        Sparse (n_bases, n_points) travel times (s) within ``horizon_s``.
+        Sparse (n_bases, n_points) travel times (s) within :attr:`stored_s`.
+    within_s
+        ``None``: ``times`` holds every pair within the horizon. A number (s): ``times`` holds the pairs within it
+        only (the reached area of each base, which is what depth and the per base figures need), and the nearest
+        bases up to the horizon come from one multi-source search per order (:mod:`coverkit.travel.reach`).
+    nearest
+        With ``within_s``: per point the :data:`POINT_ORDERS` nearest bases and their times up to the horizon, as
+        :func:`coverkit.travel.nearest_sources` gives them.
+    node_reach
+        With ``within_s``: the :data:`DUE_ORDERS` nearest bases of every node up to the horizon (reused for the
+        area grid).
     """
 
     base_snap: object
@@ -190,6 +211,24 @@ class TravelTable:
     times: sp.csr_matrix
     horizon_s: float
     direction: str
+    within_s: float | None = None
+    nearest: tuple[np.ndarray, np.ndarray] | None = None
+    node_reach: NodeReach | None = None
+
+    @property
+    def stored_s(self) -> float:
+        """The bound of the stored per-base times (s): ``within_s``, else the horizon."""
+        return self.horizon_s if self.within_s is None else float(self.within_s)
+
+    def nearest_bases(self, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """The ``k`` nearest bases of every point and their times up to the horizon: (source, time_s), each of
+        shape (n_points, k), as :func:`coverkit.travel.nearest_sources` of the full table gives them."""
+        if self.nearest is None:
+            return nearest_sources(self.times, k=k)
+        src, t = self.nearest
+        if src.shape[1] < k:
+            raise ValueError(f"the table holds {src.shape[1]} nearest bases per point; {k} are asked for")
+        return src[:, :k], t[:, :k]
 
 
 def demand_exclude_classes(points: object) -> tuple[str, ...]:
@@ -212,8 +251,24 @@ def travel_table(
     base_snap_m: float = DEFAULT_DEMAND_SNAP_M,
     direction: str = "out",
     what: str = "demand points",
+    *,
+    within_s: float | None = None,
+    orders: int = POINT_ORDERS,
+    node_reach: NodeReach | None = None,
 ) -> TravelTable:
-    """Snap bases (off-network is an error) and points (off-network is counted) and time every pair in range."""
+    """Snap bases (off-network is an error) and points (off-network is counted) and time every pair in range.
+
+    Parameters
+    ----------
+    within_s
+        Store per-base times within this bound only (s, e.g. the longest travel standard) and take the ``orders``
+        nearest bases up to ``horizon_s`` from multi-source searches: memory and time then grow with the pairs
+        each base reaches within the bound, not with bases x points. Default: every pair within the horizon.
+    orders
+        With ``within_s``: how many nearest bases per point to keep (2: first and second due).
+    node_reach
+        With ``within_s``: the nodes' nearest bases for these bases at this horizon when already searched.
+    """
     if len(bases) == 0:
         raise CoverkitError("no bases given; add at least one base (id, lon, lat).")
     note(f"coverage: snapping {len(bases)} bases and {len(points):,} {what}")
@@ -227,9 +282,44 @@ def travel_table(
         warn_islands=False,
         exclude_classes=demand_exclude_classes(points),
     )
-    note(f"coverage: searching from {len(bases)} bases (horizon {horizon_s:g} s)")
-    times = point_times(net, base_snap, point_snap, horizon_s, direction=direction)
-    return TravelTable(base_snap, point_snap, times, float(horizon_s), direction)
+    if within_s is None or within_s >= horizon_s:
+        note(f"coverage: searching from {len(bases)} bases (horizon {horizon_s:g} s)")
+        times = point_times(net, base_snap, point_snap, horizon_s, direction=direction)
+        return TravelTable(base_snap, point_snap, times, float(horizon_s), direction)
+    return bounded_table(net, base_snap, point_snap, horizon_s, within_s, direction, orders, node_reach)
+
+
+def bounded_table(
+    net: RoadNetwork,
+    base_snap: object,
+    point_snap: object,
+    horizon_s: float,
+    within_s: float,
+    direction: str,
+    orders: int,
+    node_reach: NodeReach | None = None,
+) -> TravelTable:
+    """A :class:`TravelTable` storing per-base times within ``within_s`` and the ``orders`` nearest bases of every
+    point up to ``horizon_s`` (from :func:`coverkit.travel.reach.nearest_k_nodes`, :data:`DUE_ORDERS` per node,
+    unless ``node_reach`` is given)."""
+    if node_reach is None:
+        note(f"coverage: nearest bases of every node ({DUE_ORDERS} multi-source searches, horizon {horizon_s:g} s)")
+        node_reach = nearest_k_nodes(net, base_snap, horizon_s, direction, k=max(DUE_ORDERS, orders))
+    nearest = nearest_k_points(net, base_snap, point_snap, node_reach, k=orders)
+    note(f"coverage: searching from {len(base_snap)} bases within {within_s:g} s")
+    times = point_times(net, base_snap, point_snap, within_s, direction=direction)
+    return TravelTable(base_snap, point_snap, times, float(horizon_s), direction, float(within_s), nearest, node_reach)
+
+
+def times_within(times: sp.csr_matrix, within_s: float) -> sp.csr_matrix:
+    """The stored entries of a sparse time table that are <= ``within_s`` (stored zeros kept, order kept)."""
+    times = sp.csr_matrix(times)
+    keep = times.data <= within_s
+    if keep.all():
+        return times
+    row = np.repeat(np.arange(times.shape[0]), np.diff(times.indptr))[keep]
+    indptr = np.concatenate([[0], np.cumsum(np.bincount(row, minlength=times.shape[0]))])
+    return sp.csr_matrix((times.data[keep], times.indices[keep], indptr), shape=times.shape)
 
 
 def default_horizon_s(standard: Standard) -> float:
@@ -271,21 +361,27 @@ def evaluate_coverage(
         ``"out"`` (base to demand, the default) or ``"in"`` (demand to base).
     table
         Travel times already computed by :func:`travel_table` for these bases and demand points (other standards
-        of the same study reuse them); horizon and direction then come from the table.
+        of the same study reuse them); horizon and direction then come from the table. Default: a table storing
+        per-base times within the standard only, the first and second due up to the horizon from multi-source
+        searches (:func:`bounded_table`).
     nearest
         ``nearest_sources(table.times, k=2)`` when the caller already has it (several standards on one table).
     """
     if table is None:
         horizon_s = float(horizon_s or default_horizon_s(standard))
-        table = travel_table(net, bases, demand, horizon_s, max_snap_m, base_snap_m, direction)
-    elif standard.travel_s > table.horizon_s:
+        table = travel_table(
+            net, bases, demand, horizon_s, max_snap_m, base_snap_m, direction, within_s=standard.travel_s
+        )
+    elif standard.travel_s > table.stored_s:
+        bound = "search horizon" if table.within_s is None else "stored travel times' bound"
         raise CoverkitError(
-            f"standard '{standard.name}' ({standard.travel_s:g} s) exceeds the search horizon {table.horizon_s:g} s; "
-            "raise the horizon."
+            f"standard '{standard.name}' ({standard.travel_s:g} s) exceeds the {bound} {table.stored_s:g} s; "
+            "raise the horizon (or the bound)."
         )
     horizon_s, direction = table.horizon_s, table.direction
-    base_snap, dem_snap, times = table.base_snap, table.point_snap, table.times
-    src, t = nearest_sources(times, k=2) if nearest is None else nearest
+    base_snap, dem_snap = table.base_snap, table.point_snap
+    times = times_within(table.times, standard.travel_s)
+    src, t = table.nearest_bases(POINT_ORDERS) if nearest is None else nearest
     depth = count_within(times, standard.travel_s)
     base_ids = bases["id"].astype(str).to_numpy()
     first = np.where(src[:, 0] >= 0, base_ids[np.maximum(src[:, 0], 0)], "")
@@ -307,9 +403,8 @@ def evaluate_coverage(
         out[name] = values
     lead = ["id", "weight", *cols]
     out = out[[*lead, *[c for c in out.columns if c not in lead]]]
-    return CoverageResult(
-        out, bases, standard, times, horizon_s, direction, {"base_snap": base_snap, "demand_snap": dem_snap}
-    )
+    extra = {"base_snap": base_snap, "demand_snap": dem_snap, "table": table}
+    return CoverageResult(out, bases, standard, times, horizon_s, direction, extra)
 
 
 def compliance_by(result: CoverageResult, field_name: str) -> pd.DataFrame:
@@ -404,8 +499,6 @@ def per_base(result: CoverageResult) -> pd.DataFrame:
 GAP_COUNT_PREFIX = "uncovered_"
 #: Status of a due-area row whose places no base reaches (in k-th place) within the search horizon.
 NOT_REACHED = "not reached"
-#: How many due orders are drawn as areas: first-, second- and third-due.
-DUE_ORDERS = 3
 
 
 def demand_unit(demand: gpd.GeoDataFrame) -> str:
@@ -517,6 +610,11 @@ def area_grid(
     x1, y1 = np.max([b[2:] for b in boxes], axis=0)
     ncol = int(np.ceil((x1 - x0) / cell_m)) + 1
     nrow = int(np.ceil((y1 - y0) / cell_m)) + 1
+    check_memory(
+        f"the area grid of {nrow:,} x {ncol:,} cells of {cell_m:g} m",
+        nrow * ncol * GRID_CELL_BYTES,
+        "a coarser grid cell, a smaller study area, or a cluster",
+    )
     transform = Affine(cell_m, 0, x0 - cell_m / 2, 0, -cell_m, y1 + cell_m / 2)
     rr, cc = np.mgrid[0:nrow, 0:ncol]
     cx = transform.c + (cc.ravel() + 0.5) * cell_m
@@ -546,8 +644,15 @@ def area_grid(
         fill = position[(ri * ncol + ci).ravel()]
     sub = snap.subset(on)
     base_snap = result.extra["base_snap"]
-    times = point_times(net, base_snap, sub, result.horizon_s, direction=result.direction)
-    table = TravelTable(base_snap, sub, times, result.horizon_s, result.direction)
+    made = result.extra.get("table")
+    if made is not None and made.within_s is not None:
+        # the cells like the demand: per-base times within the demand table's bound, the due orders from the nodes
+        table = bounded_table(
+            net, base_snap, sub, result.horizon_s, made.within_s, result.direction, DUE_ORDERS, made.node_reach
+        )
+    else:
+        times = point_times(net, base_snap, sub, result.horizon_s, direction=result.direction)
+        table = TravelTable(base_snap, sub, times, result.horizon_s, result.direction)
     return AreaGrid(nrow, ncol, cell_m, transform, on, near, table, area, fill)
 
 
@@ -619,7 +724,9 @@ def area_layers(
     nrow, ncol, transform, on = grid.nrow, grid.ncol, grid.transform, grid.on
     times = grid.table.times
     cell_m = grid.cell_m
-    src, t = nearest_sources(times, k=DUE_ORDERS)
+    if result.standard.travel_s > grid.table.stored_s:
+        raise ValueError("the area grid's stored times end before this standard: build the grid for it")
+    src, t = grid.table.nearest_bases(DUE_ORDERS)
     depth_on = count_within(times, result.standard.travel_s)
     near = grid.near
     depth_grid = np.full(nrow * ncol, -1, dtype=np.int32)  # -1: no road within reach

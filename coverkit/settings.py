@@ -69,6 +69,48 @@ OUTPUT_FOLDER = "results"
 MAX_REJECTED_SHARE = 0.01
 
 #: Allowed values of the settings that take a word.
+#: Share of the memory available when a step starts (``MemAvailable`` of ``/proc/meminfo``, or what is left under
+#: the process's address-space limit) that the step may plan to use; the rest is headroom for the interpreter, the
+#: operating system and other processes (our choice).
+MEMORY_SHARE = 0.8
+#: Environment variable giving the memory budget of a step in GB instead (a shared machine, a container, a test).
+MEMORY_ENV = "COVERKIT_MEMORY_GB"
+
+
+def memory_budget_bytes() -> int:
+    """How many bytes a step may plan to use: :data:`MEMORY_ENV` when set, else :data:`MEMORY_SHARE` of the memory
+    available now (the smaller of ``MemAvailable`` and the room left under ``ulimit -v``); a very large number where
+    neither can be read."""
+    import os
+
+    env = os.environ.get(MEMORY_ENV, "").strip()
+    if env:
+        return int(float(env) * 1e9)
+    room = []
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    room.append(int(line.split()[1]) * 1024)
+                    break
+    except OSError:
+        pass
+    try:
+        import resource
+
+        soft, _ = resource.getrlimit(resource.RLIMIT_AS)
+        if soft != resource.RLIM_INFINITY:
+            used = 0
+            with open("/proc/self/status", encoding="ascii") as fh:
+                for line in fh:
+                    if line.startswith("VmSize:"):
+                        used = int(line.split()[1]) * 1024
+            room.append(max(soft - used, 0))
+    except (OSError, ValueError, ImportError):
+        pass
+    return int(min(room) * MEMORY_SHARE) if room else 2**62
+
+
 DIRECTIONS = ("out", "in")
 QUEUES = ("infinite", "zero")
 AVAILABILITY_METHODS = ("auto", "exact", "approx")

@@ -246,6 +246,8 @@ def coverage_stage(
             by_zone[name] = compliance_by_zone(res, zones, zone_id_field)
         if "priority" in dem.columns:
             by_priority[name] = compliance_by(res, "priority")
+    if grid is not None and standard.travel_s > grid.table.stored_s:
+        grid = None  # the grid of a shorter standard stores too little for this one: build it again
     first = next(iter(demand))
     residents = next((n for n, k in kinds.items() if k == "residents"), first)
     incidents = next((n for n, k in kinds.items() if k == "incidents" and n != residents), None)

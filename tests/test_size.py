@@ -103,6 +103,16 @@ def coverage(world):
     return evaluate_coverage(net, bases, demand, std, horizon_s=HORIZON_S)
 
 
+@pytest.fixture(scope="module")
+def horizon_times(world, coverage):
+    """The engine's base x demand times within the horizon (the coverage result stores those within the standard
+    only; first and second due beyond it come from multi-source searches, tests/test_reach.py)."""
+    from coverkit.travel.search import point_times
+
+    snaps = coverage.extra
+    return point_times(world["net"], snaps["base_snap"], snaps["demand_snap"], HORIZON_S)
+
+
 def _same_snap(world, reference, coverage):
     """Free points that both snaps put on the same spot (ties between equidistant roads excepted)."""
     dsn = coverage.extra["demand_snap"]
@@ -125,7 +135,7 @@ def test_snap_distances_match_shapely(world, reference, coverage):
     assert same[:N_FREE].mean() > 0.99
 
 
-def test_point_times_match_heap_dijkstra(world, reference, coverage):
+def test_point_times_match_heap_dijkstra(world, reference, coverage, horizon_times):
     """Base-to-demand travel times, partial edges at both ends included, equal an independent heap Dijkstra over
     the exported edges to 1e-6 s on 30 bases x 45,000 off-junction points (source: Dijkstra 1959)."""
     same = _same_snap(world, reference, coverage)
@@ -135,9 +145,9 @@ def test_point_times_match_heap_dijkstra(world, reference, coverage):
     cols = cols[cols < N_FREE]
     assert len(cols) > 40_000
     want = reference["times"][:, cols]
-    got = coverage.times.toarray()[:, cols]
+    got = horizon_times.toarray()[:, cols]
     got_mask = np.zeros_like(want, dtype=bool)
-    coo = sp.csr_matrix(coverage.times)[:, cols].tocoo()
+    coo = sp.csr_matrix(horizon_times)[:, cols].tocoo()
     got_mask[coo.row, coo.col] = True
     within = want <= HORIZON_S - TOL_S
     beyond = want > HORIZON_S + TOL_S
@@ -146,21 +156,21 @@ def test_point_times_match_heap_dijkstra(world, reference, coverage):
     np.testing.assert_allclose(got[within], want[within], rtol=0, atol=TOL_S)
 
 
-def _junction_ok(reference, coverage):
+def _junction_ok(reference, horizon_times):
     jcols = np.arange(N_FREE, N_FREE + N_JUNCTION)
     got = np.full((N_BASES, N_JUNCTION), np.inf)
-    coo = sp.csr_matrix(coverage.times)[:, jcols].tocoo()
+    coo = sp.csr_matrix(horizon_times)[:, jcols].tocoo()
     got[coo.row, coo.col] = coo.data
     lo, hi = reference["j_arrive"], reference["j_label"]
     keep = hi <= HORIZON_S - TOL_S
     return got, lo, hi, keep
 
 
-def test_junction_points_get_the_junction_time(world, reference, coverage):
+def test_junction_points_get_the_junction_time(world, reference, horizon_times):
     """A point placed exactly on a junction gets the junction's time (design invariant; reference: heap Dijkstra
     over the exported edges). At a junction without a signal that is the node's label exactly; at a signal it lies
     between arriving there (delay unpaid) and the label."""
-    got, lo, hi, keep = _junction_ok(reference, coverage)
+    got, lo, hi, keep = _junction_ok(reference, horizon_times)
     signal = world["ex"].signal[world["junction_node"]]
     plain = keep & ~signal[None, :]
     np.testing.assert_allclose(got[plain], hi[plain], rtol=0, atol=TOL_S)
@@ -168,9 +178,9 @@ def test_junction_points_get_the_junction_time(world, reference, coverage):
     assert (got[sig] >= lo[sig] - TOL_S).all() and (got[sig] <= hi[sig] + TOL_S).all()
 
 
-def test_junction_points_never_early(world, reference, coverage):
+def test_junction_points_never_early(world, reference, horizon_times):
     """No junction-placed point is reached before any road arrives at its junction (reference: heap Dijkstra)."""
-    got, lo, _, keep = _junction_ok(reference, coverage)
+    got, lo, _, keep = _junction_ok(reference, horizon_times)
     assert (got[keep] >= lo[keep] - TOL_S).all()
 
 

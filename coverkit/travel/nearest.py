@@ -22,6 +22,8 @@ from scipy.spatial import cKDTree
 MAX_SUBSEGMENT_M = 50.0
 #: Midpoints examined per point before falling back.
 K_CANDIDATES = 8
+#: Points whose candidates are examined together (bounds the memory of one step).
+POINT_BLOCK = 100_000
 
 
 @dataclass(frozen=True)
@@ -53,13 +55,39 @@ def segment_index(geoms: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> Seg
 
 
 def _point_segment_distance(p: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    ab = b - a
-    denom = np.einsum("...i,...i->...", ab, ab)
-    t = np.where(denom > 0, np.einsum("...i,...i->...", p - a, ab) / np.where(denom > 0, denom, 1.0), 0.0)
+    """Distance from points ``p`` to segments ``a``-``b`` (arrays ending in x, y; broadcast), in the plane."""
+    # x and y apart: the two-term sums in the same order as a dot product, without einsum's overhead on (n, k, 2)
+    abx, aby = b[..., 0] - a[..., 0], b[..., 1] - a[..., 1]
+    pax, pay = p[..., 0] - a[..., 0], p[..., 1] - a[..., 1]
+    denom = abx * abx + aby * aby
+    pos = denom > 0
+    t = np.where(pos, (pax * abx + pay * aby) / np.where(pos, denom, 1.0), 0.0)
     t = np.clip(t, 0.0, 1.0)
-    closest = a + t[..., None] * ab
-    diff = p - closest
-    return np.sqrt(np.einsum("...i,...i->...", diff, diff))
+    dx = p[..., 0] - (a[..., 0] + t * abx)
+    dy = p[..., 1] - (a[..., 1] + t * aby)
+    return np.sqrt(dx * dx + dy * dy)
+
+
+def _best_of(index: SegmentIndex, xy: np.ndarray, k: int, bound_m: float) -> tuple[np.ndarray, ...]:
+    """Per point, from its ``k`` nearest midpoints within ``bound_m``: the smallest segment distance, the lowest piece
+    at it (ties within 1e-9 m), and whether that is proven the nearest of all pieces."""
+    n = len(xy)
+    half = index.max_len_m / 2.0
+    dk, ik = index.tree.query(xy, k=k, distance_upper_bound=bound_m, workers=-1)
+    dk = dk.reshape(n, k)
+    ik = ik.reshape(n, k)
+    valid = ik < len(index.piece)
+    safe = np.where(valid, ik, 0)
+    seg_d = _point_segment_distance(xy[:, None, :], index.a[safe], index.b[safe])
+    seg_d = np.where(valid, seg_d, np.inf)
+    cand_piece = np.where(valid, index.piece[safe], np.iinfo(np.int64).max)
+    best = seg_d.min(axis=1)
+    # lowest piece index among candidates at the minimum distance (ties within 1e-9 m)
+    at_min = seg_d <= best[:, None] + 1e-9
+    best_piece = np.where(at_min, cand_piece, np.iinfo(np.int64).max).min(axis=1)
+    # proven exact when the k-th midpoint is beyond best + half (or the query ran out of midpoints in range)
+    proven = (dk[:, -1] > best + half + 1e-9) | ~valid[:, -1]
+    return best, best_piece, proven
 
 
 def nearest_pieces(
@@ -79,23 +107,14 @@ def nearest_pieces(
     dist = np.full(n, np.inf)
     if n == 0 or len(index.piece) == 0:
         return piece, dist
-    k = min(K_CANDIDATES, len(index.piece))
     half = index.max_len_m / 2.0
-    dk, ik = index.tree.query(xy, k=k, distance_upper_bound=max_distance_m + half, workers=-1)
-    dk = dk.reshape(n, k)
-    ik = ik.reshape(n, k)
-    valid = ik < len(index.piece)
-    safe = np.where(valid, ik, 0)
-    seg_d = _point_segment_distance(xy[:, None, :], index.a[safe], index.b[safe])
-    seg_d = np.where(valid, seg_d, np.inf)
-    cand_piece = np.where(valid, index.piece[safe], np.iinfo(np.int64).max)
-    best = seg_d.min(axis=1)
-    # lowest piece index among candidates at the minimum distance (ties within 1e-9 m)
-    at_min = seg_d <= best[:, None] + 1e-9
-    best_piece = np.where(at_min, cand_piece, np.iinfo(np.int64).max).min(axis=1)
-    # proven exact when the k-th midpoint is beyond best + half (or the query ran out of midpoints in range)
-    kth = dk[:, -1]
-    proven = (kth > best + half + 1e-9) | ~valid[:, -1]
+    k = min(K_CANDIDATES, len(index.piece))
+    best, best_piece = np.empty(n), np.empty(n, dtype=np.int64)
+    proven = np.empty(n, dtype=bool)
+    # in blocks of points: the candidate arrays (points x k x 2) stay tens of MB however many points there are
+    for lo in range(0, n, POINT_BLOCK):
+        hi = min(lo + POINT_BLOCK, n)
+        best[lo:hi], best_piece[lo:hi], proven[lo:hi] = _best_of(index, xy[lo:hi], k, max_distance_m + half)
     within = best <= max_distance_m
     ok = proven & within
     piece[ok] = best_piece[ok]

@@ -34,6 +34,16 @@ DIRECTIONS = ("out", "in")
 #: Up to this many cells (sources x targets), nearest sources are found on a dense array.
 DENSE_NEAREST_CELLS = 20_000_000
 
+#: Below this share of a chunk's (source, node) pairs reached, point times are gathered from the reached nodes only;
+#: above it, from dense blocks (faster when nearly everything is reached). Both give the same numbers.
+SPARSE_REACH_SHARE = 0.2
+
+#: Peak bytes per stored entry of a sparse time table while it is built: a float64 time and an int64 index, held
+#: twice while the chunks are assembled into one matrix.
+TABLE_ENTRY_BYTES = 32
+#: What to change when a time table would not fit (the library names no command-line flag).
+TABLE_ADVICE = "a shorter horizon or travel standard, fewer demand points (a coarser raster or grid), or a cluster"
+
 
 def run_s(net: RoadNetwork) -> np.ndarray:
     """Running time of each edge without its end-node delay (s); ``inf`` for closed edges."""
@@ -131,10 +141,11 @@ def node_times(
     scipy.sparse.csr_matrix
         Shape (n_sources, n_nodes), stored entries = times (s).
     """
-    parts = [
-        (src_idx, dense_to_csr(dist, limit_s))
-        for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes)
-    ]
+    watch = _TableWatch(len(sources), net.n_nodes, limit_s, "nodes")
+    parts = []
+    for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes):
+        parts.append((src_idx, dense_to_csr(dist, limit_s)))
+        watch.add(src_idx, parts[-1][1].nnz)
     return _assemble(parts, (len(sources), net.n_nodes))
 
 
@@ -206,14 +217,90 @@ def point_times(
     starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
     targets_with = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
     width = max(net.n_nodes, len(t_pt))
+    # the target entries by node (to gather from the reached nodes only) and the same-edge trips, found once
+    by_node = np.argsort(t_node, kind="stable")
+    node_ptr = np.searchsorted(t_node[by_node], np.arange(net.n_nodes + 1))
+    se_s, se_pt, se_t = same_edge_trips(net, sources, targets, direction)
+    order = np.argsort(se_s, kind="stable")
+    se_s, se_pt, se_t = se_s[order], se_pt[order], se_t[order]
     parts = []
+    watch = _TableWatch(len(sources), n_t, limit_s, "points")
     for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
-        block = np.full((len(src_idx), n_t), np.inf)
-        if len(t_pt):
-            block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
-        same_edge_min(net, sources, targets, src_idx, block, direction)
-        parts.append((src_idx, dense_to_csr(block, limit_s)))
+        local = np.full(len(sources), -1, dtype=np.int64)
+        local[src_idx] = np.arange(len(src_idx))
+        trip = local[se_s] >= 0
+        trips = (local[se_s[trip]], se_pt[trip], se_t[trip])
+        reached = np.isfinite(dist)
+        if reached.mean() > SPARSE_REACH_SHARE:
+            block = np.full((len(src_idx), n_t), np.inf)
+            if len(t_pt):
+                block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
+            np.minimum.at(block, trips[:2], trips[2])
+            parts.append((src_idx, dense_to_csr(block, limit_s)))
+        else:
+            parts.append((src_idx, _reached_points(dist, reached, by_node, node_ptr, t_pt, t_add, trips, n_t, limit_s)))
+        watch.add(src_idx, parts[-1][1].nnz)
     return _assemble(parts, (len(sources), n_t))
+
+
+def _reached_points(
+    dist: np.ndarray,
+    reached: np.ndarray,
+    by_node: np.ndarray,
+    node_ptr: np.ndarray,
+    t_pt: np.ndarray,
+    t_add: np.ndarray,
+    trips: tuple[np.ndarray, np.ndarray, np.ndarray],
+    n_t: int,
+    limit_s: float,
+) -> sp.csr_matrix:
+    """A chunk's point times from its reached nodes only: the same sums and minima as the dense block (so the same
+    numbers), at a cost that follows the reached (source, node) pairs instead of sources x targets."""
+    r, nd = np.nonzero(reached)
+    lo = node_ptr[nd]
+    cnt = node_ptr[nd + 1] - lo
+    e = by_node[np.repeat(lo - (np.cumsum(cnt) - cnt), cnt) + np.arange(int(cnt.sum()))]
+    rows = np.r_[np.repeat(r, cnt), trips[0]]
+    cols = np.r_[t_pt[e], trips[1]]
+    t = np.r_[np.repeat(dist[r, nd], cnt) + t_add[e], trips[2]]
+    key = rows * n_t + cols
+    order = np.argsort(key, kind="stable")
+    key, t = key[order], t[order]
+    first = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if len(key) else np.zeros(0, dtype=np.int64)
+    t = np.minimum.reduceat(t, first) if len(first) else t[:0]
+    key = key[first]
+    keep = t <= limit_s
+    key, t = key[keep], t[keep]
+    row, col = key // n_t, key % n_t
+    indptr = np.concatenate([[0], np.cumsum(np.bincount(row, minlength=len(dist)))])
+    return sp.csr_matrix((t, col, indptr), shape=(len(dist), n_t))
+
+
+class _TableWatch:
+    """Projects a table's stored entries from the chunks searched so far and stops (one line) when the whole table
+    would not fit in the memory budget, before the rest is searched and assembled."""
+
+    def __init__(self, n_sources: int, n_targets: int, limit_s: float, what: str) -> None:
+        from coverkit import settings
+
+        self.n_sources, self.n_targets, self.limit_s, self.what = n_sources, n_targets, limit_s, what
+        self.budget = settings.memory_budget_bytes()
+        self.entries = 0
+        self.done = 0
+
+    def add(self, src_idx: np.ndarray, nnz: int) -> None:
+        from coverkit.memory import check_memory
+
+        self.entries += int(nnz)
+        self.done += len(src_idx)
+        projected = self.entries * self.n_sources / max(self.done, 1)
+        check_memory(
+            f"the travel times of {self.n_sources:,} bases to {self.n_targets:,} {self.what} within "
+            f"{self.limit_s:g} s ({projected:,.0f} pairs)",
+            projected * TABLE_ENTRY_BYTES,
+            TABLE_ADVICE,
+            budget_bytes=self.budget,
+        )
 
 
 def nearest_node_times(
@@ -361,29 +448,34 @@ def _chunked_search(net, sources, limit_s, direction, chunk_size, width, only=No
             yield src_idx, dijkstra(aug, directed=True, indices=indices, limit=limit_s)[:, :n]
 
 
-def same_edge_min(
+def same_edge_trips(
     net: RoadNetwork,
     sources: Snapped,
     targets: Snapped,
-    src_idx: np.ndarray,
-    block: np.ndarray,
     direction: str,
-) -> None:
-    """Lower ``block`` (chunk, n_targets) with the direct trip along an edge shared by source and target."""
-    local = np.full(len(sources), -1, dtype=np.int64)
-    local[src_idx] = np.arange(len(src_idx))
-    sel = local[sources.entry_point] >= 0
-    s_loc, s_e, s_f = local[sources.entry_point[sel]], sources.entry_edge[sel], sources.entry_frac[sel]
+    only: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The direct trips along an edge shared by a source and a target, in driving order: (source, target, time s).
+
+    ``only``: the sources to consider (default every one).
+    """
+    sel = np.ones(len(sources.entry_point), dtype=bool)
+    if only is not None:
+        wanted = np.zeros(len(sources), dtype=bool)
+        wanted[np.asarray(only, dtype=np.int64)] = True
+        sel = wanted[sources.entry_point]
+    s_pt, s_e, s_f = sources.entry_point[sel], sources.entry_edge[sel], sources.entry_frac[sel]
     t_pt, t_e, t_f = targets.entry_point, targets.entry_edge, targets.entry_frac
+    empty = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), np.zeros(0))
     if len(s_e) == 0 or len(t_e) == 0:
-        return
+        return empty
     order = np.argsort(t_e, kind="stable")
     te_sorted = t_e[order]
     lo = np.searchsorted(te_sorted, s_e, side="left")
     hi = np.searchsorted(te_sorted, s_e, side="right")
     cnt = hi - lo
     if cnt.sum() == 0:
-        return
+        return empty
     si = np.repeat(np.arange(len(s_e)), cnt)
     tj = order[np.repeat(lo, cnt) + (np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt))]
     e = s_e[si]
@@ -395,7 +487,23 @@ def same_edge_min(
         # a trip across the closed stretch of a partly closed edge does not exist
         ok = (last >= first) & (last < 1.0) & ~((hi > first) & (lo < last))
     t = (last - first)[ok] * partial_run_s(net)[e[ok]]
-    np.minimum.at(block, (s_loc[si[ok]], t_pt[tj[ok]]), t)
+    return s_pt[si[ok]], t_pt[tj[ok]], t
+
+
+def same_edge_min(
+    net: RoadNetwork,
+    sources: Snapped,
+    targets: Snapped,
+    src_idx: np.ndarray,
+    block: np.ndarray,
+    direction: str,
+) -> None:
+    """Lower ``block`` (chunk, n_targets) with the direct trip along an edge shared by source and target."""
+    s, pt, t = same_edge_trips(net, sources, targets, direction, only=src_idx)
+    if len(s):
+        local = np.full(len(sources), -1, dtype=np.int64)
+        local[src_idx] = np.arange(len(src_idx))
+        np.minimum.at(block, (local[s], pt), t)
 
 
 def dense_to_csr(dist: np.ndarray, limit_s: float) -> sp.csr_matrix:
