@@ -20,8 +20,8 @@ SUMMARY_COLUMNS = ("replication", "calls", "waited_share", "mean_wait_s", "lost_
 CONFIDENCE = 0.95
 
 
-def interval(values) -> tuple[float, float, float]:
-    """Mean and 95 % t-interval (low, high) of replication figures; the interval is NaN for one replication.
+def interval(values, confidence: float = CONFIDENCE) -> tuple[float, float, float]:
+    """Mean and t-interval (low, high; 95 % by default) of replication figures; NaN for one replication.
 
     >>> m, lo, hi = interval([1.0, 2.0, 3.0])  # s = 1, t(0.975, 2) = 4.303 (t tables)
     >>> round(m, 3), round(hi - m, 3)
@@ -31,7 +31,7 @@ def interval(values) -> tuple[float, float, float]:
     m = float(x.mean())
     if x.size < 2 or not np.isfinite(x).all():
         return m, float("nan"), float("nan")
-    half = stats.t.ppf(0.5 + CONFIDENCE / 2, x.size - 1) * x.std(ddof=1) / np.sqrt(x.size)
+    half = stats.t.ppf(0.5 + confidence / 2, x.size - 1) * x.std(ddof=1) / np.sqrt(x.size)
     return m, m - half, m + half
 
 
