@@ -116,6 +116,13 @@ SCHEMA: dict[str, Schema] = {
         "demand": (str, False),
     },
     "calibration": {"observed": (str, True), "hours": (list, False)},
+    "simulation": {
+        **{k: (str, False) for k in ("calls", "service_dist", "service_field", "queue", "time_field", "demand")},
+        **{k: (_NUM, False) for k in ("hours", "calls_per_h", "service_min", "service_cv", "turnout_s")},
+        **{k: (_NUM, False) for k in ("turnout_cv", "travel_cv", "mutual_aid_after_s")},
+        **{k: (int, False) for k in ("replications", "seed")},
+        "priority_field": (str, False),
+    },
     "compute": {"scheduler": (str, False), "workers": (int, False)},
     "outputs": {
         "folder": (str, False),
@@ -154,6 +161,7 @@ class Study:
     availability: AvailabilitySettings | None = None
     calibration: CalibrationSettings | None = None
     compute: ComputeSettings | None = None
+    simulation: settings.SimulationSettings | None = None
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -263,6 +271,7 @@ def load_study(path: str | Path) -> Study:
         CalibrationSettings.from_table(calibration_cfg) if calibration_cfg else None,
         _compute_settings(raw, where),
     )
+    study.simulation = settings.SimulationSettings.from_table(raw["simulation"]) if "simulation" in raw else None
     if study.siting:
         study.standard_named(study.siting.standard, "siting.standard")
         study.demand_named(study.siting.demand, "siting.demand", "residents")

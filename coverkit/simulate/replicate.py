@@ -68,18 +68,11 @@ def replicate(rep: int, inputs: SimInputs, engine=run_calls) -> list[RepResult]:
         )
         response = np.where(unit >= 0, wait + turnout + travel, np.inf)
         waited = (wait > 0) | ((unit < 0) & (max_wait > 0))
+        first_due = turnout + fleet.out_s.min(axis=0)[point] * mult  # the closest unit, were it always free
         calls = CallResults(
-            t,
-            point,
-            prio,
-            hour_of_day(inputs.source, t),
-            unit,
-            wait,
-            response,
-            qlen,
-            waited,
-            inputs.source.priority_labels,
-        )
+            t, point, prio, hour_of_day(inputs.source, t), unit, wait, response, qlen, waited, first_due,
+            priority_labels=inputs.source.priority_labels,
+        )  # fmt: skip
         span = max(inputs.source.span_s, 1.0)
         out.append(rep_result(calls, fleet, list(inputs.standards), span, busy, n_calls, all_busy, inputs.zones))
     out_summary_extra = {"unserved_calls": int((~keep).sum())}

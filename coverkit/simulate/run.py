@@ -50,6 +50,7 @@ class SimulationRun:
     bases: gpd.GeoDataFrame
     trace: np.ndarray
     standards: tuple
+    hist: np.ndarray  # (replications, bins) calls per response-time bin (metrics.HIST_EDGES_S)
     after: SimulationRun | None = None
     difference: pd.DataFrame | None = None
     notes: tuple[str, ...] = field(default=MODEL_NOTES)
@@ -131,7 +132,7 @@ def _tables(reps, demand, bases, fleet, inputs, cfg) -> SimulationRun:
     return SimulationRun(
         cfg, inputs.source, summary, aggregate.interval_table(summary), units, aggregate.groups_table(reps),
         aggregate.dispatch_table(reps, fleet.base_id), _points_layer(demand, fleet, reps, inputs.standards),
-        _bases_layer(bases, units), reps[0].trace, inputs.standards,
+        _bases_layer(bases, units), reps[0].trace, inputs.standards, np.stack([r.hist for r in reps]),
     )  # fmt: skip
 
 
