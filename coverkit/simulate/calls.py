@@ -180,7 +180,7 @@ def weekly_source(replay: CallSource, hours: float | None) -> CallSource:
 
 def _hour_of_week(start: pd.Timestamp | None, t_s: np.ndarray) -> np.ndarray:
     """Hour of week (Monday 00:00 = 0) of times ``t_s`` after ``start``."""
-    offset_h = 0 if start is None else start.dayofweek * 24 + start.hour
+    offset_h = 0 if start is None else start.day_of_week * 24 + start.hour
     return ((offset_h + np.floor(t_s / S_PER_H)).astype(np.int64)) % H_PER_WEEK
 
 
