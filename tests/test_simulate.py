@@ -120,3 +120,4 @@ def test_the_hand_replay_with_mutual_aid(engine):
         unit, _, _, _, busy, _, all_busy = engine(*_hand_case(), max_wait, 1)
         assert unit.tolist() == expect
         assert all_busy == (660.0 if expect[2] < 0 else 860.0)
+        assert busy.tolist() == ([760.0, 860.0] if expect[2] < 0 else [1520.0, 860.0])
