@@ -447,6 +447,7 @@ class StudyRun:
     siting_stage: SitingStage | None = None
     availability_stage: AvailabilityStage | None = None
     calibration_stage: CalibrationStage | None = None
+    simulation: Any = None  # coverkit.simulate.run.SimulationRun when the study has [simulation]
 
     @property
     def site_plan(self) -> SitePlan | None:
@@ -686,6 +687,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     site_plan = _study_siting(study, net, bases, demand, snaps) if study.siting else None
     avail = _study_availability(study, net, bases, demand, snaps) if study.availability else None
     calibration = _study_calibration(study, net, bases) if study.calibration else None
+    simulation = _study_simulation(study, net, bases, demand, kinds, snaps) if study.simulation else None
 
     steps.step("writing layers and tables")
     layers: dict[str, pd.DataFrame] = {layer_name("bases"): bases, **polygon_layers(polygons)}
@@ -699,6 +701,11 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             layers.update(stage.layers())
     layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
     outputs = _write_outputs(folder, surface_path, layers, summary, site_plan, calibration)
+    if simulation is not None:
+        from coverkit.simulate.outputs import write_simulation
+
+        sim_folder = output_file(folder, "simulate_folder")
+        outputs.update(write_simulation(simulation, sim_folder, charts=opts.maps or opts.report))
     result = StudyRun(
         study,
         net,
@@ -714,6 +721,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         site_plan,
         avail,
         calibration,
+        simulation=simulation,
     )
 
     return result
@@ -812,3 +820,10 @@ def headline_lines(run: StudyRun) -> list[str]:
     for srun in run.runs:
         lines.extend(srun.gap_lines())
     return lines
+
+
+def _study_simulation(study: Study, net: RoadNetwork, bases, demand, kinds, snaps):
+    """The ``[simulation]`` section's run (:mod:`coverkit.simulate`) on the study's loaded inputs."""
+    from coverkit.simulate.study_run import simulation_settings, study_simulation
+
+    return study_simulation(study, net, bases, demand, kinds, snaps, simulation_settings(study))

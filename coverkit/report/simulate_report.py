@@ -150,3 +150,29 @@ def write_simulate_report(sim, folder: str | Path, charts: dict[str, Path]) -> P
     rep.add_caution(CAUTION)
     add_simulation(rep, sim, charts)
     return rep.write(output_file(folder, "simulate_report"))
+
+
+def beside_table(run) -> pd.DataFrame:
+    """Per standard of a study run: the drive-time share (coverage stage), the hypercube's availability-adjusted
+    share (when ``[availability]`` uses that standard) and the simulated share of the same calls."""
+    sim = run.simulation
+    av = run.availability
+    rows = []
+    for std in sim.standards:
+        cov = run.summary[(run.summary["standard"] == std.name) & (run.summary["demand"] == sim.cfg.demand)]
+        hyper = (
+            av.summary["availability_coverage"] if av is not None and av.summary["standard"] == std.describe() else None
+        )
+        rows.append({
+            "standard": std.name,
+            "drive time (closest unit always free)": _pct(float(cov["covered_share"].iloc[0])) if len(cov) else "-",
+            "hypercube (availability-adjusted)": _pct(hyper) if hyper is not None else "-",
+            "simulated (95 % interval)": _with_interval(sim, f"covered_share_{slug(std.name)}", _pct),
+        })  # fmt: skip
+    if av is not None:
+        rows.append({
+            "standard": "every unit busy (share of time)", "drive time (closest unit always free)": "-",
+            "hypercube (availability-adjusted)": _pct(av.summary["all_busy_probability"]),
+            "simulated (95 % interval)": _with_interval(sim, "all_busy_share", _pct),
+        })  # fmt: skip
+    return pd.DataFrame(rows)
