@@ -24,7 +24,7 @@ def interval(values, confidence: float = CONFIDENCE) -> tuple[float, float, floa
     """Mean and t-interval (low, high; 95 % by default) of replication figures; NaN for one replication.
 
     >>> m, lo, hi = interval([1.0, 2.0, 3.0])  # s = 1, t(0.975, 2) = 4.303 (t tables)
-    >>> round(m, 3), round(hi - m, 3)
+    >>> round(m, 3), round(float(hi - m), 3)
     (2.0, 2.484)
     """
     x = np.asarray(values, dtype=float)
@@ -32,7 +32,7 @@ def interval(values, confidence: float = CONFIDENCE) -> tuple[float, float, floa
     if x.size < 2 or not np.isfinite(x).all():
         return m, float("nan"), float("nan")
     half = stats.t.ppf(0.5 + confidence / 2, x.size - 1) * x.std(ddof=1) / np.sqrt(x.size)
-    return m, m - half, m + half
+    return m, float(m - half), float(m + half)
 
 
 def _column(key: str) -> str:
