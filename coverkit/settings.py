@@ -383,6 +383,7 @@ class SimulationSettings:
     time_field: str = TIME_FIELD
     priority_field: str = SIM_PRIORITY_FIELD
     demand: str | None = None
+    travel_cv_source: str = "given"
 
     @property
     def max_wait_s(self) -> float:

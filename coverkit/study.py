@@ -824,6 +824,6 @@ def headline_lines(run: StudyRun) -> list[str]:
 
 def _study_simulation(study: Study, net: RoadNetwork, bases, demand, kinds, snaps):
     """The ``[simulation]`` section's run (:mod:`coverkit.simulate`) on the study's loaded inputs."""
-    from coverkit.simulate.study_run import simulation_settings, study_simulation
+    from coverkit.simulate.study_run import study_settings, study_simulation
 
-    return study_simulation(study, net, bases, demand, kinds, snaps, simulation_settings(study))
+    return study_simulation(study, net, bases, demand, kinds, snaps, study_settings(study, net, bases, {}))

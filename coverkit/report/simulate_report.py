@@ -57,7 +57,9 @@ def source_words(sim) -> str:
         + (f", sd/mean {cfg.service_cv:g}" if cfg.service_dist == "lognormal" else "")
     )
     travel = (
-        "network times as they are" if cfg.travel_cv == 0 else f"a lognormal travel multiplier, sd {cfg.travel_cv:g}"
+        "network times as they are"
+        if cfg.travel_cv == 0
+        else f"travel times times a lognormal multiplier, mean 1, sd {cfg.travel_cv:.3f} ({cfg.travel_cv_source})"
     )
     queue = (
         "zero queue: a call finding every unit busy goes to mutual aid at once"

@@ -24,6 +24,31 @@ def simulation_settings(study, **overrides) -> settings.SimulationSettings:
     return dataclasses.replace(cfg, **given) if given else cfg
 
 
+def spread_is_given(study, overrides: dict) -> bool:
+    """Whether the travel spread was set (by the caller or the study's ``[simulation]``), not left to the data."""
+    return overrides.get("travel_cv") is not None or "travel_cv" in study.raw.get("simulation", {})
+
+
+def with_observed_spread(study, net, bases, cfg: settings.SimulationSettings) -> settings.SimulationSettings:
+    """``cfg`` with the travel spread fitted to ``[calibration]``'s observed trips
+    (:mod:`coverkit.simulate.travel_spread`)."""
+    from coverkit.calibrate import read_observed
+    from coverkit.simulate.travel_spread import travel_cv_from_observed
+
+    observed = read_observed(str(study.calibration.observed), base_ids=bases["id"].astype(str).tolist())
+    cv = travel_cv_from_observed(net, bases, observed, study.bases.snap_m)
+    return dataclasses.replace(cfg, travel_cv=cv, travel_cv_source=f"fitted to {study.calibration.observed.name}")
+
+
+def study_settings(study, net, bases, overrides: dict) -> settings.SimulationSettings:
+    """The settings a study's simulation runs with: ``[simulation]``, the caller's overrides, and the travel spread
+    from ``[calibration]``'s observed trips when neither sets it."""
+    cfg = simulation_settings(study, **overrides)
+    if study.calibration and not spread_is_given(study, overrides):
+        cfg = with_observed_spread(study, net, bases, cfg)
+    return cfg
+
+
 def simulation_demand(study, kinds: dict[str, str], cfg: settings.SimulationSettings) -> str:
     """The demand layer whose calls are simulated: ``demand`` when set, else the first incidents layer, else the
     first layer."""
@@ -70,6 +95,7 @@ def simulate_study(
     try:
         inputs = study_inputs(study_path, cache_folder=out)
         net, bases = inputs["network"], inputs["bases"]
+        cfg = study_settings(study, net, bases, overrides)
         after = None
         if scenario is not None:
             net2, bases2, _ = apply_scenario(net, bases, scenario)
