@@ -174,3 +174,26 @@ def test_the_command_prints_the_cautions(folder, first_run, capsys):
     assert main(["simulate", str(study), "--replications", "2", "--out", str(out), "--quiet"]) == 0
     text = capsys.readouterr().out
     assert CAUTION in text and "not for live dispatch" in text and "ALS 8 min" in text
+
+
+def test_the_travel_spread_fitted_to_observed_trips(folder):
+    """Observed trips made from the model's own times times a lognormal multiplier of sigma 0.2: the fitted
+    coefficient of variation is the lognormal's, sqrt(exp(0.04) - 1) = 0.2020 (lognormal moments), within the
+    sampling error of 400 trips (the sd of a sample sd is about sigma / sqrt(2 n) = 0.007)."""
+    from coverkit.compare_run import study_inputs
+    from coverkit.simulate.system import fleet_on_network
+    from coverkit.simulate.travel_spread import travel_cv_from_observed
+
+    inputs = study_inputs(_study(folder, folder / "calls.csv"))
+    calls = inputs["demand"]["calls"].iloc[:400]
+    fleet = fleet_on_network(inputs["network"], inputs["bases"], calls, 500.0)
+    rng = np.random.default_rng(5)
+    base = rng.integers(0, len(fleet.base_id), len(calls))
+    modelled = fleet.out_s[base, np.arange(len(calls))]
+    ok = np.isfinite(modelled) & (modelled > 0)
+    ll = calls.to_crs("EPSG:4326").geometry.get_coordinates()
+    noisy = modelled * rng.lognormal(0.0, 0.2, len(calls))
+    observed = pd.DataFrame({"base_id": np.array(fleet.base_id)[base], "lon": ll["x"].to_numpy(),
+                             "lat": ll["y"].to_numpy(), "observed_s": noisy})[ok]  # fmt: skip
+    cv = travel_cv_from_observed(inputs["network"], inputs["bases"], observed.reset_index(drop=True), 500.0)
+    assert abs(cv - np.sqrt(np.expm1(0.04))) < 0.03
