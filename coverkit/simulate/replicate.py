@@ -73,7 +73,11 @@ def replicate(rep: int, inputs: SimInputs, engine=run_calls) -> list[RepResult]:
             t, point, prio, hour_of_day(inputs.source, t), unit, wait, response, qlen, waited, first_due,
             priority_labels=inputs.source.priority_labels,
         )  # fmt: skip
-        span = max(inputs.source.span_s, 1.0)
+        # the observed period runs until the last unit clears: utilisation and the all-busy share stay <= 1 when an
+        # overloaded system is still working off its queue after the last call
+        served = unit >= 0
+        end = float((t + wait + turnout + travel + service)[served].max()) if served.any() else 0.0
+        span = max(inputs.source.span_s, end, 1.0)
         out.append(rep_result(calls, fleet, list(inputs.standards), span, busy, n_calls, all_busy, inputs.zones))
     out_summary_extra = {"unserved_calls": int((~keep).sum())}
     for r in out:
