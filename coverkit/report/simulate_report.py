@@ -136,6 +136,19 @@ def add_simulation(rep: HtmlReport, sim, charts: dict[str, Path], beside: pd.Dat
     ):
         if key in charts:
             rep.add_image(charts[key], caption)  # fmt: skip
+    for by, word in (("priority", "priority"), ("zone", "zone")):
+        g = sim.groups[sim.groups["by"] == by]
+        if len(g):
+            g = g.assign(
+                within=[
+                    f"{_pct(m)} ({_pct(max(lo, 0.0))} to {_pct(hi)})" if np.isfinite(lo) else _pct(m)
+                    for m, lo, hi in zip(g["covered_share"], g["covered_low_95"], g["covered_high_95"], strict=True)
+                ],
+                fractile=[_min(x) for x in g["fractile_s"]],
+            )
+            rep.add_table(g[["group", "standard", "calls", "within", "fractile"]].rename(columns={"group": word}),
+                          caption=f"Share of calls answered within each standard, by {word} (95 % interval)",
+                          formats={"calls": lambda x: f"{x:,.1f}"})  # fmt: skip
     units = sim.units[sim.units["replication"] == "all"].drop(columns="replication")
     rep.add_table(units, caption="Units: share of time committed and calls per replication (mean)",
                   formats={"utilisation": _pct, "calls": lambda x: f"{x:,.1f}"})  # fmt: skip
