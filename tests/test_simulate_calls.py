@@ -119,3 +119,28 @@ service_cv = 0.3
     path.write_text(body.replace("replications = 7", 'replications = "many"'))
     with pytest.raises(CoverkitError, match="replications"):
         load_study(path)
+
+
+class _ListRunner:
+    """A runner that is not the in-process default: it maps the blocks itself, as a cluster would (in order)."""
+
+    def __init__(self):
+        self.blocks = 0
+
+    def map(self, fn, blocks, shared):
+        self.blocks += len(blocks)
+        return [fn(b, **shared) for b in blocks]
+
+
+def test_replications_as_blocks_of_a_cluster_runner_give_the_same_numbers():
+    """On a front end's runner (a Dask cluster in use) each replication is one block; same seeds, same figures."""
+    from coverkit.compute import use_runner
+
+    cfg = SimulationSettings(service_min=40.0, turnout_s=60.0, replications=3, seed=9)
+    inputs = SimInputs(rate_source(np.array([1.0, 2.0]), 2.0, 200.0), (_fleet([1, 1]),), cfg, STD, 60.0)
+    local = summary_table([r[0] for r in run_replications(inputs, 3, processes=1)])
+    runner = _ListRunner()
+    with use_runner(runner):
+        blocks = summary_table([r[0] for r in run_replications(inputs, 3)])
+    assert runner.blocks == 3
+    pd.testing.assert_frame_equal(local, blocks)

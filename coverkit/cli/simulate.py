@@ -7,6 +7,7 @@ from pathlib import Path
 
 from coverkit import CAUTION, settings
 from coverkit.cli.options import common, positive_float
+from coverkit.cli.options import compute as compute_options
 
 NAME = "simulate"
 
@@ -60,6 +61,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     g.add_argument("--queue", choices=settings.QUEUES, help="infinite: calls wait; zero: mutual aid at once")
     g.add_argument("--mutual-aid-after-s", type=_nonnegative, help="a waiting call goes to mutual aid after (s)")
     common(p)
+    compute_options(p)
 
 
 #: argparse destinations passed to the library as settings overrides

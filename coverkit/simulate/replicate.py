@@ -96,13 +96,27 @@ def _in_worker(rep: int) -> list[RepResult]:
     return replicate(rep, _WORKER["inputs"])
 
 
+def replicate_block(rep: int, *, inputs: SimInputs) -> list[RepResult]:
+    """One replication as a block of :func:`coverkit.compute.map_blocks` (a Dask worker runs it by name)."""
+    return replicate(rep, inputs)
+
+
 def default_processes() -> int:
     """Worker processes: the CPUs this process may use."""
     return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
 
 
 def run_replications(inputs: SimInputs, replications: int, processes: int | None = None) -> list[list[RepResult]]:
-    """Every replication, in replication order (the same figures for any number of processes)."""
+    """Every replication, in replication order (the same figures for any number of processes).
+
+    On a cluster runner (a front end's ``use_runner``, e.g. a Dask scheduler) the replications are its blocks;
+    otherwise they run in ``processes`` local worker processes (default: the CPUs available).
+    """
+    from coverkit.compute import InProcess, current_runner, map_blocks
+
+    if not isinstance(current_runner(), InProcess):
+        note(f"simulate: {replications} replications on {current_runner()!r}")
+        return map_blocks(replicate_block, list(range(replications)), shared={"inputs": inputs})
     processes = min(default_processes() if processes is None else processes, replications)
     if processes <= 1:
         results = []
