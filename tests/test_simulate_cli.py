@@ -197,3 +197,14 @@ def test_the_travel_spread_fitted_to_observed_trips(folder):
                              "lat": ll["y"].to_numpy(), "observed_s": noisy})[ok]  # fmt: skip
     cv = travel_cv_from_observed(inputs["network"], inputs["bases"], observed.reset_index(drop=True), 500.0)
     assert abs(cv - np.sqrt(np.expm1(0.04))) < 0.03
+
+
+def test_a_study_run_with_a_simulation_section_writes_it_and_reports_it(folder):
+    """`coverkit run` on a study with [simulation]: its files in simulation/ and its section in the report."""
+    study = _study(folder, folder / "calls.csv", "isochrone_minutes = [8]\n[simulation]\nreplications = 2\n")
+    out = folder / "cache"
+    assert main(["run", str(study), "--out", str(out), "--quiet"]) == 0
+    summary = pd.read_csv(out / "simulation" / "summary.csv", dtype={"replication": str})
+    assert summary["replication"].tolist() == ["1", "2", "all"]
+    page = (out / "report.html").read_text()
+    assert "Simulated response system" in page and "beside the drive-time and hypercube figures" in page
