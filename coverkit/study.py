@@ -826,4 +826,9 @@ def _study_simulation(study: Study, net: RoadNetwork, bases, demand, kinds, snap
     """The ``[simulation]`` section's run (:mod:`coverkit.simulate`) on the study's loaded inputs."""
     from coverkit.simulate.study_run import study_settings, study_simulation
 
-    return study_simulation(study, net, bases, demand, kinds, snaps, study_settings(study, net, bases, {}))
+    try:
+        return study_simulation(study, net, bases, demand, kinds, snaps, study_settings(study, net, bases, {}))
+    except CoverkitError as exc:  # name the [simulation] key, not another section's key of the same name
+        if exc.param is None:
+            raise
+        raise type(exc)(f"{study.path}: {exc.worded('simulation.' + exc.param)}") from None

@@ -160,6 +160,9 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(folder, capsys):
     _fails(["simulate", str(_study(folder, folder / "negative.csv")), "--service-field", "busy_min", "--out",
             str(out)], capsys, "row 6", "busy_min")  # fmt: skip
     assert not out.exists()
+    _fails(["simulate", str(_study(folder, folder / "calls.csv")), "--calls", "synthetic", "--calls-per-h", "3",
+            "--out", str(out)], capsys, "--hours")  # fmt: skip
+    assert not out.exists()
     scenario = folder / "no-units.toml"
     scenario.write_text('[scenario]\nname = "no units"\n' + "".join(
         f'[[base_change]]\nunits = {{ id = "S{i}", units = 0 }}\n' for i in range(1, 5)))  # fmt: skip

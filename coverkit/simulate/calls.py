@@ -77,7 +77,7 @@ def _stamps(demand: pd.DataFrame, time_field: str) -> pd.Series:
     return stamps
 
 
-def _priorities(demand: pd.DataFrame, field: str) -> tuple[np.ndarray, tuple[str, ...]]:
+def priority_codes(demand: pd.DataFrame, field: str) -> tuple[np.ndarray, tuple[str, ...]]:
     """Priority codes 0.. (most urgent first: the smallest value) and their labels."""
     if field not in demand.columns:
         return np.zeros(len(demand), np.int64), ("all",)
@@ -88,7 +88,7 @@ def _priorities(demand: pd.DataFrame, field: str) -> tuple[np.ndarray, tuple[str
     return codes.astype(np.int64), tuple(f"{v:g}" if isinstance(v, float) else str(v) for v in labels)
 
 
-def _service(demand: pd.DataFrame, field: str | None) -> np.ndarray | None:
+def service_seconds(demand: pd.DataFrame, field: str | None) -> np.ndarray | None:
     """Busy minutes per incident from ``field``, in seconds; negative or missing values are an error."""
     if field is None:
         return None
@@ -118,8 +118,8 @@ def replay_source(demand: pd.DataFrame, time_field: str, priority_field: str, se
     order = np.argsort(stamps.to_numpy(), kind="stable")
     start = stamps.min().normalize()
     arrival = (stamps - start).dt.total_seconds().to_numpy(dtype=float)
-    codes, labels = _priorities(demand, priority_field)
-    service = _service(demand, service_field)
+    codes, labels = priority_codes(demand, priority_field)
+    service = service_seconds(demand, service_field)
     span = max(float(arrival.max()) if len(arrival) else 0.0, S_PER_H)
     rate = np.array([len(demand) / (span / S_PER_H)])
     return CallSource(

@@ -66,10 +66,10 @@ def call_source(demand: gpd.GeoDataFrame, cfg: settings.SimulationSettings) -> C
             raise FieldError(
                 f"synthetic calls at a given rate need {PARAM}, the simulated span in hours.", param="hours"
             )
-        from coverkit.simulate.calls import _priorities, _service
+        from coverkit.simulate.calls import priority_codes, service_seconds
 
-        prio, labels = _priorities(demand, cfg.priority_field)
-        service = _service(demand, cfg.service_field)
+        prio, labels = priority_codes(demand, cfg.priority_field)
+        service = service_seconds(demand, cfg.service_field)
         return rate_source(demand["weight"].to_numpy(float), cfg.calls_per_h, cfg.hours, prio, labels, service)
     replay = replay_source(demand, cfg.time_field, cfg.priority_field, cfg.service_field)
     return replay if mode == "replay" else weekly_source(replay, cfg.hours)
