@@ -18,7 +18,14 @@ from coverkit.errors import PARAM, FieldError
 from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
 from coverkit.simulate import aggregate
-from coverkit.simulate.calls import CallSource, rate_source, replay_source, weekly_source
+from coverkit.simulate.calls import (
+    CallSource,
+    priority_codes,
+    rate_source,
+    replay_source,
+    service_seconds,
+    weekly_source,
+)
 from coverkit.simulate.replicate import SimInputs, run_replications
 from coverkit.simulate.system import Fleet, fleet_on_network
 from coverkit.simulate.variates import check_spread
@@ -66,8 +73,6 @@ def call_source(demand: gpd.GeoDataFrame, cfg: settings.SimulationSettings) -> C
             raise FieldError(
                 f"synthetic calls at a given rate need {PARAM}, the simulated span in hours.", param="hours"
             )
-        from coverkit.simulate.calls import priority_codes, service_seconds
-
         prio, labels = priority_codes(demand, cfg.priority_field)
         service = service_seconds(demand, cfg.service_field)
         return rate_source(demand["weight"].to_numpy(float), cfg.calls_per_h, cfg.hours, prio, labels, service)
