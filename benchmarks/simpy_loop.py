@@ -12,7 +12,8 @@ import numpy as np
 import simpy
 
 
-def run_calls_simpy(arrival, point, priority, service, turnout, mult, unit_station, out_s, back_s, max_wait_s, n_prio):
+def run_calls_simpy(arrival, point, priority, service, turnout, mult, unit_station, out_s, back_s, max_wait_s, n_prio,
+                    move_s=None, rules=None):  # fmt: skip
     """One replication on SimPy; the results of :func:`coverkit.simulate.kernel.run_calls`."""
     env = simpy.Environment()
     n, m = len(arrival), len(unit_station)
@@ -79,4 +80,4 @@ def run_calls_simpy(arrival, point, priority, service, turnout, mult, unit_stati
 
     env.process(calls())
     env.run()
-    return unit_of_call, wait, travel, queue_len, busy, n_calls, state["all_busy"]
+    return unit_of_call, wait, travel, queue_len, busy, n_calls, state["all_busy"], np.zeros(0, np.int64)

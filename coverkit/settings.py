@@ -364,6 +364,8 @@ class SimulationSettings:
 
     ``mutual_aid_after_s`` is the longest a call waits for a unit of the fleet before it goes to mutual aid (None:
     as long as it takes); ``queue = "zero"`` is the same as 0. ``turnout_s`` None takes each standard's own.
+    ``cover`` holds the planner's cover rules, ``"EMPTY:FROM:MINUTES"`` (base ids; see
+    :mod:`coverkit.simulate.kernel`).
     """
 
     calls: str | None = None
@@ -383,6 +385,7 @@ class SimulationSettings:
     time_field: str = TIME_FIELD
     priority_field: str = SIM_PRIORITY_FIELD
     demand: str | None = None
+    cover: tuple[str, ...] = ()
     travel_cv_source: str = "given"
 
     @property
@@ -396,4 +399,7 @@ class SimulationSettings:
     def from_table(cls, t: dict[str, Any]) -> SimulationSettings:
         """From the checked ``[simulation]`` table."""
         names = cls.__dataclass_fields__
-        return cls(**{k: v for k, v in t.items() if k in names})
+        table = {k: v for k, v in t.items() if k in names}
+        if "cover" in table:
+            table["cover"] = tuple(str(rule) for rule in table["cover"])
+        return cls(**table)

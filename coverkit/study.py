@@ -122,6 +122,7 @@ SCHEMA: dict[str, Schema] = {
         **{k: (_NUM, False) for k in ("turnout_cv", "travel_cv", "mutual_aid_after_s")},
         **{k: (int, False) for k in ("replications", "seed")},
         "priority_field": (str, False),
+        "cover": (list, False),
     },
     "compute": {"scheduler": (str, False), "workers": (int, False)},
     "outputs": {

@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 from coverkit.coverage import Standard
+from coverkit.errors import CoverkitError
 from coverkit.queueing import erlang_b, erlang_c, hypercube_exact, preference_lists
 from coverkit.settings import SimulationSettings
 from coverkit.simulate.aggregate import interval
@@ -22,7 +23,7 @@ from coverkit.simulate.calls import rate_source
 from coverkit.simulate.heap_loop import run_calls_heap
 from coverkit.simulate.kernel import run_calls
 from coverkit.simulate.replicate import SimInputs, run_replications
-from coverkit.simulate.system import fleet_from_tables
+from coverkit.simulate.system import cover_rules, fleet_from_tables
 
 STD = (Standard("any", 480.0, 0.0),)
 
@@ -103,7 +104,7 @@ def test_a_replay_worked_by_hand(engine):
     100 + 300 = 400 s of travel, a wait of 560 s, response 560 + 60 + 400 = 1020 s; A clears at 1520.
     Every unit is busy from t=100 until B clears at 960: 860 s. A was committed 760 + 760 = 1520 s, B 860 s.
     """
-    unit, wait, travel, qlen, busy, n_calls, all_busy = engine(*_hand_case(), np.inf, 1)
+    unit, wait, travel, qlen, busy, n_calls, all_busy, _moves = engine(*_hand_case(), np.inf, 1)
     assert unit.tolist() == [0, 1, 0]
     assert wait.tolist() == [0.0, 0.0, 560.0]
     assert travel.tolist() == [100.0, 200.0, 400.0]
@@ -117,7 +118,33 @@ def test_the_hand_replay_with_mutual_aid(engine):
     """Same calls: with a zero queue call 2 goes to mutual aid at once; waiting at most 300 s it is gone at t=500,
     before A clears at 760; waiting up to 600 s (until 800) A takes it as before. All busy 100..760 without it."""
     for max_wait, expect in ((0.0, [0, 1, -1]), (300.0, [0, 1, -1]), (600.0, [0, 1, 0])):
-        unit, _, _, _, busy, _, all_busy = engine(*_hand_case(), max_wait, 1)
+        unit, _, _, _, busy, _, all_busy, _moves = engine(*_hand_case(), max_wait, 1)
         assert unit.tolist() == expect
         assert all_busy == (660.0 if expect[2] < 0 else 860.0)
         assert busy.tolist() == ([760.0, 860.0] if expect[2] < 0 else [1520.0, 860.0])
+
+
+def test_a_cover_rule_worked_by_hand():
+    """Stations A and B, one unit each, 300 s apart; rule "A:B:10": when A has had no free unit for 10 min, B's
+    free unit moves to A. Travel (s): A->p0 100, A->p1 500, B->p0 400, B->p1 100 (the same way back); no turnout.
+
+    t=0 call to p0 (3000 s on scene): A's unit goes (100 s), clears at 3100. A is empty from t=0; at t=600 B's
+    unit moves to A, there at 900. t=1000 call to p0: B's unit answers from A in 100 s (400 s from B without the
+    rule); clears at 1600, back at A at 1700. t=2000 call to p1: B's unit, still posted at A, takes 500 s; clears at
+    2600. t=3100 A's unit is free at home: B's unit goes home (there at 3400). t=3200 call to p1: B's unit, 200 s
+    from home, 100 s beyond: 300 s; A's unit would need 500 s. One move. Without the rule: 100, 400, 400, 100.
+    """
+    out = np.array([[100.0, 500.0], [400.0, 100.0]])
+    calls = (np.array([0.0, 1000.0, 2000.0, 3200.0]), np.array([0, 0, 1, 1]), np.zeros(4, np.int64),
+             np.array([3000.0, 500.0, 100.0, 100.0]), np.zeros(4), np.ones(4), np.array([0, 1]), out, out.copy(),
+             np.inf, 1)  # fmt: skip
+    move = np.array([[0.0, 300.0], [300.0, 0.0]])
+    rules = cover_rules(["A:B:10"], ["A", "B"])
+    unit, _, travel, *_, moves = run_calls(*calls, move, rules)
+    assert unit.tolist() == [0, 1, 1, 1]
+    assert travel.tolist() == [100.0, 100.0, 500.0, 300.0]
+    assert moves.tolist() == [1]
+    unit, _, travel, *_, moves = run_calls(*calls, move)
+    assert travel.tolist() == [100.0, 400.0, 400.0, 100.0] and moves.size == 0
+    with pytest.raises(CoverkitError, match="EMPTY:FROM:MINUTES"):
+        cover_rules(["A:C:10"], ["A", "B"])

@@ -60,6 +60,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     g = p.add_argument_group("queue")
     g.add_argument("--queue", choices=settings.QUEUES, help="infinite: calls wait; zero: mutual aid at once")
     g.add_argument("--mutual-aid-after-s", type=_nonnegative, help="a waiting call goes to mutual aid after (s)")
+    g.add_argument("--cover", action="append", metavar="EMPTY:FROM:MIN",
+                   help="cover rule: when base EMPTY has had no free unit for MIN minutes, move the free unit of base "
+                   "FROM there (repeatable)")  # fmt: skip
     common(p)
     compute_options(p)
 
@@ -77,6 +80,7 @@ def run(args: argparse.Namespace) -> int:
     from coverkit.simulate.study_run import simulate_study
 
     overrides = {k: getattr(args, k) for k in _OVERRIDES}
+    overrides["cover"] = tuple(args.cover) if args.cover else None
     sim, outputs = simulate_study(args.study, args.out, scenario_path=args.scenario, processes=args.processes,
                                   **overrides)  # fmt: skip
     outputs["simulate_report"] = write_simulate_report(sim, args.out, outputs)

@@ -86,6 +86,9 @@ def summary_lines(sim) -> list[str]:
             f"(closest unit always free: {_pct(_figure(sim, f'drive_time_share_{s}')[0])}); "
             f"{std.fractile * 100:g} % fractile {_min(_figure(sim, f'fractile_s_{s}')[0])}"
         )
+    if sim.cfg.cover:
+        lines.append(f"cover rules {', '.join(sim.cfg.cover)} (EMPTY:FROM:MINUTES): "
+                     f"{_with_interval(sim, 'cover_moves', lambda x: f'{x:,.1f}')} moves per replication")  # fmt: skip
     if _figure(sim, "max_queue")[0] > 0 and _unstable(sim):
         lines.append("the queue grows over the run: calls arrive faster than the fleet serves them (see the chart)")
     if sim.difference is not None:

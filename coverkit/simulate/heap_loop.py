@@ -13,8 +13,12 @@ from collections import deque
 import numpy as np
 
 
-def run_calls_heap(arrival, point, priority, service, turnout, mult, unit_station, out_s, back_s, max_wait_s, n_prio):
-    """One replication; same arguments and results as :func:`coverkit.simulate.kernel.run_calls`."""
+def run_calls_heap(arrival, point, priority, service, turnout, mult, unit_station, out_s, back_s, max_wait_s, n_prio,
+                   move_s=None, rules=None):  # fmt: skip
+    """One replication; same arguments and results as :func:`coverkit.simulate.kernel.run_calls`, without cover
+    rules (the compiled loop alone has them)."""
+    if rules is not None and len(rules[0]):
+        raise NotImplementedError("the plain heap loop has no cover rules; use coverkit.simulate.kernel.run_calls")
     n, m = len(arrival), len(unit_station)
     unit_of_call = np.full(n, -1, np.int64)
     wait, travel = np.zeros(n), np.full(n, np.nan)
@@ -71,4 +75,4 @@ def run_calls_heap(arrival, point, priority, service, turnout, mult, unit_statio
             if state["committed"] == m:
                 state["all_busy"] += t - state["from"]
             state["committed"] -= 1
-    return unit_of_call, wait, travel, queue_len, busy, n_calls, state["all_busy"]
+    return unit_of_call, wait, travel, queue_len, busy, n_calls, state["all_busy"], np.zeros(0, np.int64)

@@ -17,9 +17,9 @@ import numpy as np
 
 from coverkit.progress import note
 from coverkit.simulate.calls import CallSource, draw_calls, hour_of_day
-from coverkit.simulate.kernel import run_calls
+from coverkit.simulate.kernel import NO_RULES, run_calls
 from coverkit.simulate.metrics import CallResults, RepResult, rep_result
-from coverkit.simulate.system import Fleet
+from coverkit.simulate.system import Fleet, cover_rules
 from coverkit.simulate.variates import call_draws
 
 
@@ -63,9 +63,11 @@ def replicate(rep: int, inputs: SimInputs, engine=run_calls) -> list[RepResult]:
     n_prio = max(len(inputs.source.priority_labels), int(prio.max()) + 1 if n else 1)
     out = []
     for fleet in inputs.fleets:
-        unit, wait, travel, qlen, busy, n_calls, all_busy = engine(
-            t, point, prio, service, turnout, mult, fleet.unit_station, fleet.out_s, fleet.back_s, max_wait, n_prio
-        )
+        rules = cover_rules(inputs.cfg.cover, fleet.base_id) if inputs.cfg.cover else NO_RULES
+        unit, wait, travel, qlen, busy, n_calls, all_busy, moves = engine(
+            t, point, prio, service, turnout, mult, fleet.unit_station, fleet.out_s, fleet.back_s, max_wait, n_prio,
+            fleet.move_s, rules,
+        )  # fmt: skip
         response = np.where(unit >= 0, wait + turnout + travel, np.inf)
         waited = (wait > 0) | ((unit < 0) & (max_wait > 0))
         first_due = turnout + fleet.out_s.min(axis=0)[point] * mult  # the closest unit, were it always free
@@ -79,6 +81,7 @@ def replicate(rep: int, inputs: SimInputs, engine=run_calls) -> list[RepResult]:
         end = float((t + wait + turnout + travel + service)[served].max()) if served.any() else 0.0
         span = max(inputs.source.span_s, end, 1.0)
         out.append(rep_result(calls, fleet, list(inputs.standards), span, busy, n_calls, all_busy, inputs.zones))
+        out[-1].summary["cover_moves"] = int(moves.sum())
     out_summary_extra = {"unserved_calls": int((~keep).sum())}
     for r in out:
         r.summary |= out_summary_extra

@@ -27,7 +27,7 @@ from coverkit.simulate.calls import (
     weekly_source,
 )
 from coverkit.simulate.replicate import SimInputs, run_replications
-from coverkit.simulate.system import Fleet, fleet_on_network
+from coverkit.simulate.system import Fleet, cover_rules, fleet_on_network
 from coverkit.simulate.variates import check_spread
 
 #: The model in words, for the report and the command's output (one home).
@@ -39,6 +39,9 @@ MODEL_NOTES = (
     "bound on the time from where it is (exact at the base).",
     "Calls that find every unit busy wait first come first served within priority, or go to mutual aid after the "
     "stated wait (at once with a zero queue); those are counted, not timed.",
+    "Cover rules, when given (EMPTY:FROM:MINUTES): a station without a free unit for that long gets the free unit "
+    "of the named station with the least way home left; it answers from there until a unit of that station is "
+    "free at home again. Moves are counted.",
 )
 
 
@@ -177,6 +180,8 @@ def simulate(
     fleets = [fleet_on_network(net, bases, demand, max_snap_m)]
     if after is not None:
         fleets.append(fleet_on_network(after[0], after[1], demand, max_snap_m))
+    for fleet in fleets:  # the cover rules name bases of every system (checked before any replication runs)
+        cover_rules(cfg.cover, fleet.base_id)
     inputs = SimInputs(source, tuple(fleets), cfg, standards, turnout, zones)
     note(f"simulate: {cfg.replications} replications of {source.mode} calls through {len(fleets[0].unit_id)} units")
     results = run_replications(inputs, int(cfg.replications), processes)

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from coverkit.coverage import travel_table
-from coverkit.errors import ModelError
+from coverkit.errors import PARAM, ModelError
 from coverkit.network.model import RoadNetwork
 from coverkit.queueing import expand_station_units
 
@@ -33,6 +33,8 @@ class Fleet:
         Travel time from each base to each demand point (s), shape (n_bases, n_points); ``inf`` where unreached.
     back_s
         Travel time from each demand point back to each base (s), same shape.
+    move_s
+        Travel time from base to base (s), shape (n_bases, n_bases): the moves of cover rules.
     """
 
     unit_station: np.ndarray
@@ -40,6 +42,7 @@ class Fleet:
     base_id: tuple[str, ...]
     out_s: np.ndarray
     back_s: np.ndarray
+    move_s: np.ndarray | None = None
 
     @property
     def served(self) -> np.ndarray:
@@ -59,15 +62,17 @@ def units_per_station(bases: pd.DataFrame) -> np.ndarray:
     return pd.to_numeric(bases["units"], errors="coerce").fillna(1).astype(np.int64).to_numpy()
 
 
-def fleet_from_tables(base_ids, units: np.ndarray, out_s: np.ndarray, back_s: np.ndarray) -> Fleet:
-    """A fleet from given tables (s, shape (n_bases, n_points)); raises when there is no unit."""
+def fleet_from_tables(base_ids, units: np.ndarray, out_s: np.ndarray, back_s: np.ndarray, move_s=None) -> Fleet:
+    """A fleet from given tables (s, shape (n_bases, n_points); ``move_s`` base to base, default 0); raises when
+    there is no unit."""
     units = np.asarray(units, dtype=np.int64)
     if units.sum() < 1:
         raise ModelError("no units: every base has units = 0 (or the scenario removes them all); keep at least one.")
     station, number = expand_station_units(units)
     ids = tuple(str(b) for b in base_ids)
     unit_id = tuple(f"{ids[s]}-{n}" for s, n in zip(station, number, strict=True))
-    return Fleet(station.astype(np.int64), unit_id, ids, np.asarray(out_s, float), np.asarray(back_s, float))
+    moves = np.zeros((len(ids), len(ids))) if move_s is None else np.asarray(move_s, float)
+    return Fleet(station.astype(np.int64), unit_id, ids, np.asarray(out_s, float), np.asarray(back_s, float), moves)
 
 
 def _dense(table, n_bases: int, n_points: int) -> np.ndarray:
@@ -84,5 +89,30 @@ def fleet_on_network(net: RoadNetwork, bases: gpd.GeoDataFrame, points: gpd.GeoD
         fleet_from_tables(bases["id"], units, np.zeros((len(bases), 0)), np.zeros((len(bases), 0)))
     out = travel_table(net, bases, points, np.inf, max_snap_m, direction="out", what="call points")
     back = travel_table(net, bases, points, np.inf, max_snap_m, direction="in", what="call points")
-    n = len(points)
-    return fleet_from_tables(bases["id"], units, _dense(out, len(bases), n), _dense(back, len(bases), n))
+    between = travel_table(net, bases, bases, np.inf, max_snap_m, what="bases")
+    n, b = len(points), len(bases)
+    move = _dense(between, b, b)
+    np.fill_diagonal(move, 0.0)
+    return fleet_from_tables(bases["id"], units, _dense(out, b, n), _dense(back, b, n), move)
+
+
+def cover_rules(rules, base_ids) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Cover rules ``"EMPTY:FROM:MINUTES"`` as the event loop's arrays (station rows and seconds).
+
+    >>> [a.tolist() for a in cover_rules(["S3:S1:10"], ["S1", "S2", "S3"])]
+    [[2], [0], [600.0]]
+    """
+    row = {str(b): i for i, b in enumerate(base_ids)}
+    empty, send, after = [], [], []
+    for rule in rules:
+        parts = str(rule).split(":")
+        try:
+            e, f, minutes = row[parts[0].strip()], row[parts[1].strip()], float(parts[2])
+        except (IndexError, KeyError, ValueError):
+            raise ModelError(
+                f"{PARAM}: '{rule}' is not EMPTY:FROM:MINUTES with two base ids ({', '.join(row)}) and minutes, "
+                "e.g. S3:S1:10.", param="cover") from None  # fmt: skip
+        if not (minutes > 0) or e == f:
+            raise ModelError(f"{PARAM}: '{rule}' needs minutes > 0 and two different bases.", param="cover")
+        empty.append(e), send.append(f), after.append(minutes * 60.0)
+    return np.array(empty, np.int64), np.array(send, np.int64), np.array(after, float)
