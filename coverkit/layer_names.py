@@ -59,6 +59,12 @@ KINDS: dict[str, tuple[str, str]] = {
     "changed_areas": ("changed_areas_{standard}", "comparison: areas that lose or gain coverage"),
     "gaps_before": ("gaps_before_{standard}", "comparison: gaps before the scenario"),
     "gaps_after": ("gaps_after_{standard}", "comparison: gaps after the scenario"),
+    "simulate_points": ("simulate_points", "simulation: per demand point, calls per replication, share in standard"),
+    "simulate_bases": ("simulate_bases", "simulation: per base, its units' utilisation and calls per replication"),
+    "simulate_intervals": ("simulate_intervals", "simulation: every summary figure with its 95 % interval"),
+    "simulate_groups": ("simulate_groups", "simulation: compliance per priority, hour of day and zone, 95 % interval"),
+    "simulate_dispatch": ("simulate_dispatch", "simulation: share of each first-due area's calls each base answered"),
+    "simulate_difference": ("simulate_difference", "simulation: scenario minus system per figure, paired interval"),
 }
 
 #: Files a run writes into its output folder (maps go into ``MAPS_FOLDER``).
@@ -72,6 +78,11 @@ FILES: dict[str, tuple[str, str]] = {
     "compare_layers": ("compare.gpkg", "every layer of a comparison"),
     "compare_csv": ("comparison.csv", "the comparison table"),
     "compare_report": ("compare_report.html", "the self-contained comparison report"),
+    "simulate_folder": ("simulation", "a study run's simulation outputs (the files below)"),
+    "simulate_layers": ("simulate.gpkg", "simulation: every simulate_ layer"),
+    "simulate_summary": ("summary.csv", "simulation: one row per replication and an `all` row"),
+    "simulate_units": ("units.csv", "simulation: utilisation and calls per unit and replication"),
+    "simulate_report": ("simulate-report.html", "simulation: the self-contained report"),
 }
 MAPS_FOLDER = "maps"
 
@@ -87,6 +98,9 @@ MAPS: dict[str, tuple[str, str]] = {
     "calibration": ("calibration.png", "observed against modelled travel times"),
     "difference": ("difference_{standard}.png", "comparison: areas that lose or gain coverage"),
     "gaps_after": ("gaps_after_{standard}.png", "comparison: gaps after the scenario"),
+    "simulate_response": ("simulate_response.png", "simulation: share of calls answered within each time"),
+    "simulate_units": ("simulate_units.png", "simulation: utilisation per unit with its 95 % interval"),
+    "simulate_queue": ("simulate_queue.png", "simulation: calls waiting, found by arriving calls, over time"),
 }
 
 

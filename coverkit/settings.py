@@ -376,3 +376,72 @@ class ComputeSettings:
     def from_table(cls, t: dict[str, Any]) -> ComputeSettings:
         """From the checked ``[compute]`` table."""
         return cls(t.get("scheduler"), int(t["workers"]) if t.get("workers") is not None else None)
+
+
+# -- simulation (issue 15) --------------------------------------------------------------------------------------------
+#: How calls enter the simulation: the incidents as they happened, or drawn from a Poisson process.
+SIM_CALLS = ("replay", "synthetic")
+#: Service-time distributions when the incidents carry no busy time per call.
+SIM_SERVICE_DISTS = ("lognormal", "exponential")
+#: Replications of a simulation: 20 gives a 95 % t-interval whose half-width is about 0.47 standard deviations
+#: (t(0.975, 19) = 2.093 over sqrt(20)); common practice, no single source.
+SIM_REPLICATIONS = 20
+#: Seed of the first replication's stream (every replication gets its own child seed).
+SIM_SEED = 1
+#: Mean busy time per call when the incidents carry none (min): an example value for the demo, set it locally.
+SIM_SERVICE_MIN = 45.0
+#: Spread of the lognormal busy time: coefficient of variation (sd / mean); an example value, set it locally.
+SIM_SERVICE_CV = 0.5
+#: Lognormal travel-time multiplier's coefficient of variation; 0 = the engine's times as they are.
+SIM_TRAVEL_CV = 0.0
+#: Coefficient of variation of turnout around the standard turnout; 0 = fixed.
+SIM_TURNOUT_CV = 0.0
+#: Field with each call's priority (1 most urgent); calls without one are one priority class.
+SIM_PRIORITY_FIELD = "priority"
+
+
+@dataclass(frozen=True)
+class SimulationSettings:
+    """``[simulation]``: calls replayed or drawn through the fleet (:mod:`coverkit.simulate`).
+
+    ``mutual_aid_after_s`` is the longest a call waits for a unit of the fleet before it goes to mutual aid (None:
+    as long as it takes); ``queue = "zero"`` is the same as 0. ``turnout_s`` None takes each standard's own.
+    ``cover`` holds the planner's cover rules, ``"EMPTY:FROM:MINUTES"`` (base ids; see
+    :mod:`coverkit.simulate.kernel`).
+    """
+
+    calls: str | None = None
+    hours: float | None = None
+    calls_per_h: float | None = None
+    service_min: float = SIM_SERVICE_MIN
+    service_dist: str = "lognormal"
+    service_cv: float = SIM_SERVICE_CV
+    service_field: str | None = None
+    turnout_s: float | None = None
+    turnout_cv: float = SIM_TURNOUT_CV
+    travel_cv: float = SIM_TRAVEL_CV
+    queue: str = QUEUE
+    mutual_aid_after_s: float | None = None
+    replications: int = SIM_REPLICATIONS
+    seed: int = SIM_SEED
+    time_field: str = TIME_FIELD
+    priority_field: str = SIM_PRIORITY_FIELD
+    demand: str | None = None
+    cover: tuple[str, ...] = ()
+    travel_cv_source: str = "given"
+
+    @property
+    def max_wait_s(self) -> float:
+        """Longest wait before mutual aid (s): 0 with a zero queue, infinite when calls wait as long as it takes."""
+        if self.queue == "zero":
+            return 0.0
+        return float("inf") if self.mutual_aid_after_s is None else float(self.mutual_aid_after_s)
+
+    @classmethod
+    def from_table(cls, t: dict[str, Any]) -> SimulationSettings:
+        """From the checked ``[simulation]`` table."""
+        names = cls.__dataclass_fields__
+        table = {k: v for k, v in t.items() if k in names}
+        if "cover" in table:
+            table["cover"] = tuple(str(rule) for rule in table["cover"])
+        return cls(**table)

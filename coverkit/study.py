@@ -116,6 +116,14 @@ SCHEMA: dict[str, Schema] = {
         "demand": (str, False),
     },
     "calibration": {"observed": (str, True), "hours": (list, False)},
+    "simulation": {
+        **{k: (str, False) for k in ("calls", "service_dist", "service_field", "queue", "time_field", "demand")},
+        **{k: (_NUM, False) for k in ("hours", "calls_per_h", "service_min", "service_cv", "turnout_s")},
+        **{k: (_NUM, False) for k in ("turnout_cv", "travel_cv", "mutual_aid_after_s")},
+        **{k: (int, False) for k in ("replications", "seed")},
+        "priority_field": (str, False),
+        "cover": (list, False),
+    },
     "compute": {"scheduler": (str, False), "workers": (int, False)},
     "outputs": {
         "folder": (str, False),
@@ -154,6 +162,7 @@ class Study:
     availability: AvailabilitySettings | None = None
     calibration: CalibrationSettings | None = None
     compute: ComputeSettings | None = None
+    simulation: settings.SimulationSettings | None = None
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -263,6 +272,7 @@ def load_study(path: str | Path) -> Study:
         CalibrationSettings.from_table(calibration_cfg) if calibration_cfg else None,
         _compute_settings(raw, where),
     )
+    study.simulation = settings.SimulationSettings.from_table(raw["simulation"]) if "simulation" in raw else None
     if study.siting:
         study.standard_named(study.siting.standard, "siting.standard")
         study.demand_named(study.siting.demand, "siting.demand", "residents")
@@ -438,6 +448,7 @@ class StudyRun:
     siting_stage: SitingStage | None = None
     availability_stage: AvailabilityStage | None = None
     calibration_stage: CalibrationStage | None = None
+    simulation: Any = None  # coverkit.simulate.run.SimulationRun when the study has [simulation]
 
     @property
     def site_plan(self) -> SitePlan | None:
@@ -677,6 +688,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     site_plan = _study_siting(study, net, bases, demand, snaps) if study.siting else None
     avail = _study_availability(study, net, bases, demand, snaps) if study.availability else None
     calibration = _study_calibration(study, net, bases) if study.calibration else None
+    simulation = _study_simulation(study, net, bases, demand, kinds, snaps) if study.simulation else None
 
     steps.step("writing layers and tables")
     layers: dict[str, pd.DataFrame] = {layer_name("bases"): bases, **polygon_layers(polygons)}
@@ -690,6 +702,11 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
             layers.update(stage.layers())
     layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
     outputs = _write_outputs(folder, surface_path, layers, summary, site_plan, calibration)
+    if simulation is not None:
+        from coverkit.simulate.outputs import write_simulation
+
+        sim_folder = output_file(folder, "simulate_folder")
+        outputs.update(write_simulation(simulation, sim_folder, charts=opts.maps or opts.report))
     result = StudyRun(
         study,
         net,
@@ -705,6 +722,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         site_plan,
         avail,
         calibration,
+        simulation=simulation,
     )
 
     return result
@@ -803,3 +821,15 @@ def headline_lines(run: StudyRun) -> list[str]:
     for srun in run.runs:
         lines.extend(srun.gap_lines())
     return lines
+
+
+def _study_simulation(study: Study, net: RoadNetwork, bases, demand, kinds, snaps):
+    """The ``[simulation]`` section's run (:mod:`coverkit.simulate`) on the study's loaded inputs."""
+    from coverkit.simulate.study_run import study_settings, study_simulation
+
+    try:
+        return study_simulation(study, net, bases, demand, kinds, snaps, study_settings(study, net, bases, {}))
+    except CoverkitError as exc:  # name the [simulation] key, not another section's key of the same name
+        if exc.param is None:
+            raise
+        raise type(exc)(f"{study.path}: {exc.worded('simulation.' + exc.param)}") from None

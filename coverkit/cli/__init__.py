@@ -13,14 +13,14 @@ import sys
 from collections.abc import Callable, Sequence
 
 from coverkit import CAUTION, __version__
-from coverkit.cli import availability, calibrate, compare, cover, demo, isochrones, network, run, serve, site
+from coverkit.cli import availability, calibrate, compare, cover, demo, isochrones, network, run, serve, simulate, site
 from coverkit.cli.options import Parser, flag_for
 from coverkit.compute import runner_for
 from coverkit.errors import CoverkitError
 from coverkit.progress import set_quiet
 
 #: the sub-command modules, in the order ``coverkit --help`` lists them
-MODULES = (network, isochrones, cover, site, availability, calibrate, compare, run, demo, serve)
+MODULES = (network, isochrones, cover, site, availability, calibrate, compare, run, demo, serve, simulate)
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {m.NAME: m.run for m in MODULES}
 
 __all__ = ["COMMANDS", "build_parser", "main"]

@@ -350,6 +350,13 @@ def _calibration(page: ReportPage) -> None:
     rep.add_image(page.run.outputs["calibration_chart"], "Observed and modelled travel times")
 
 
+def simulation_section(page: ReportPage) -> None:
+    """The simulation beside the drive-time and hypercube figures (:mod:`coverkit.report.simulate_report`)."""
+    from coverkit.report.simulate_report import add_simulation, beside_table
+
+    add_simulation(page.rep, page.run.simulation, page.run.outputs, beside=beside_table(page.run))
+
+
 def _about(page: ReportPage) -> None:
     page.rep.add_heading("About this report")
     page.rep.add_paragraph(f"Made with coverkit {__version__}. {CAUTION}")
@@ -375,6 +382,7 @@ REPORT_SECTIONS: tuple[ReportSection, ...] = (
     ReportSection("siting", _siting, lambda run: run.site_plan is not None),
     ReportSection("availability", _availability, lambda run: run.availability is not None),
     ReportSection("calibration", _calibration, lambda run: run.calibration is not None),
+    ReportSection("simulation", lambda page: simulation_section(page), lambda run: run.simulation is not None),
     ReportSection("about", _about),
 )
 
