@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from coverkit.travel.nearest import MAX_SUBSEGMENT_M, _point_segment_distance
+from coverkit.travel.nearest import MAX_SUBSEGMENT_M, cut_segments, point_segment_distance
 
 #: Sub-segments per cell aimed at when choosing the cell size (common practice for bucket grids: a few per cell).
 SEGMENTS_PER_CELL = 4.0
@@ -74,21 +74,6 @@ class GridIndex:
             (int(p[3]), int(p[4])),
             float(p[5]),
         )
-
-
-def cut_segments(coords: np.ndarray, owner: np.ndarray, max_len_m: float) -> tuple[np.ndarray, ...]:
-    """Straight sub-segments no longer than ``max_len_m`` of the lines whose vertices are ``coords`` (line ``owner``
-    of each vertex, non-decreasing): ends ``a``, ``b`` and the line of each."""
-    same = owner[1:] == owner[:-1]
-    a, b, line = coords[:-1][same], coords[1:][same], owner[1:][same]
-    seg_len = np.hypot(*(b - a).T)
-    parts = np.maximum(1, np.ceil(seg_len / max_len_m).astype(np.int64))
-    rep = np.repeat(np.arange(len(a)), parts)
-    k = np.arange(parts.sum()) - np.repeat(np.cumsum(parts) - parts, parts)
-    t0 = (k / parts[rep])[:, None]
-    t1 = ((k + 1) / parts[rep])[:, None]
-    d = (b - a)[rep]
-    return a[rep] + t0 * d, a[rep] + t1 * d, line[rep]
 
 
 def build_grid_index(coords: np.ndarray, owner: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> GridIndex:
@@ -179,7 +164,7 @@ def _nearest_chunk(index: GridIndex, xy: np.ndarray, max_d: float) -> tuple[np.n
         if count.sum():
             owner = np.repeat(np.repeat(active, len(ring)), count)
             seg = np.repeat(index.cell_ptr[cell].ravel() - np.cumsum(count) + count, count) + np.arange(count.sum())
-            d = _point_segment_distance(xy[owner], index.a[seg], index.b[seg])
+            d = point_segment_distance(xy[owner], index.a[seg], index.b[seg])
             ring_d = np.full(n, np.inf)
             np.minimum.at(ring_d, owner, d)
             at_min = d <= ring_d[owner] + _TIE_M

@@ -37,11 +37,11 @@ class SegmentIndex:
     tree: cKDTree
 
 
-def segment_index(geoms: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> SegmentIndex:
-    """Cut line geometries into straight sub-segments of at most ``max_len_m`` and index their midpoints."""
-    coords, owner = shapely.get_coordinates(geoms, return_index=True)
+def cut_segments(coords: np.ndarray, owner: np.ndarray, max_len_m: float) -> tuple[np.ndarray, ...]:
+    """Straight sub-segments no longer than ``max_len_m`` of the lines whose vertices are ``coords`` (line ``owner``
+    of each vertex, non-decreasing): ends ``a``, ``b`` and the line of each."""
     same = owner[1:] == owner[:-1]
-    a, b, piece = coords[:-1][same], coords[1:][same], owner[1:][same]
+    a, b, line = coords[:-1][same], coords[1:][same], owner[1:][same]
     seg_len = np.hypot(*(b - a).T)
     parts = np.maximum(1, np.ceil(seg_len / max_len_m).astype(np.int64))
     rep = np.repeat(np.arange(len(a)), parts)
@@ -49,12 +49,17 @@ def segment_index(geoms: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> Seg
     t0 = (k / parts[rep])[:, None]
     t1 = ((k + 1) / parts[rep])[:, None]
     d = (b - a)[rep]
-    sa = a[rep] + t0 * d
-    sb = a[rep] + t1 * d
-    return SegmentIndex(sa, sb, piece[rep], float(max_len_m), cKDTree((sa + sb) / 2.0))
+    return a[rep] + t0 * d, a[rep] + t1 * d, line[rep]
 
 
-def _point_segment_distance(p: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+def segment_index(geoms: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> SegmentIndex:
+    """Cut line geometries into straight sub-segments of at most ``max_len_m`` and index their midpoints."""
+    coords, owner = shapely.get_coordinates(geoms, return_index=True)
+    sa, sb, piece = cut_segments(coords, owner, max_len_m)
+    return SegmentIndex(sa, sb, piece, float(max_len_m), cKDTree((sa + sb) / 2.0))
+
+
+def point_segment_distance(p: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Distance from points ``p`` to segments ``a``-``b`` (arrays ending in x, y; broadcast), in the plane."""
     # x and y apart: the two-term sums in the same order as a dot product, without einsum's overhead on (n, k, 2)
     abx, aby = b[..., 0] - a[..., 0], b[..., 1] - a[..., 1]
@@ -78,7 +83,7 @@ def _best_of(index: SegmentIndex, xy: np.ndarray, k: int, bound_m: float) -> tup
     ik = ik.reshape(n, k)
     valid = ik < len(index.piece)
     safe = np.where(valid, ik, 0)
-    seg_d = _point_segment_distance(xy[:, None, :], index.a[safe], index.b[safe])
+    seg_d = point_segment_distance(xy[:, None, :], index.a[safe], index.b[safe])
     seg_d = np.where(valid, seg_d, np.inf)
     cand_piece = np.where(valid, index.piece[safe], np.iinfo(np.int64).max)
     best = seg_d.min(axis=1)
