@@ -41,6 +41,7 @@ from coverkit.scenario import (
     slowed_travel_s,
 )
 from coverkit.travel import nearest_sources, node_times, snap_points
+from coverkit.travel.repair import can_repair, repaired_node_times
 from coverkit.travel.search import CHUNK_CELLS, dense_to_csr, exits, same_edge_min
 from coverkit.travel.snap import Snapped
 
@@ -53,6 +54,18 @@ def _dense_rows(m: sp.csr_matrix, rows: np.ndarray) -> np.ndarray:
     sub = m[rows].tocoo()
     out = np.full((len(rows), m.shape[1]), np.inf)
     out[sub.row, sub.col] = sub.data
+    return out
+
+
+def _row_masks(keys: np.ndarray, rows: np.ndarray, ids: list[str], n: int) -> dict[str, np.ndarray]:
+    """Per row ``rows[i]`` (named by ``ids[rows[i]]``), a boolean per node: True at the flat keys ``keys``
+    (``row x n + node``, increasing) of that row."""
+    cuts = np.searchsorted(keys, np.r_[rows * np.int64(n), rows * np.int64(n) + n].reshape(2, -1))
+    out = {}
+    for r, lo, hi in zip(rows.tolist(), cuts[0], cuts[1], strict=True):
+        mask = np.zeros(n, dtype=bool)
+        mask[keys[lo:hi] - r * n] = True
+        out[ids[r]] = mask
     return out
 
 
@@ -114,6 +127,8 @@ class WhatIfOutcome:
     node_t, base_snap
         Per base after the change, the node times of its bounded search (sparse, s) and the snapped bases: what
         :meth:`WhatIf.point_times` derives further point times from.
+    moved_nodes
+        Per base whose stored search was repaired: a boolean per node, True where its time may have changed.
     """
 
     results: dict
@@ -123,6 +138,7 @@ class WhatIfOutcome:
     recomputed_bases: list[str]
     node_t: sp.csr_matrix | None = None
     base_snap: Snapped | None = None
+    moved_nodes: dict[str, np.ndarray] | None = None
 
     @property
     def result(self) -> CoverageResult:
@@ -282,8 +298,9 @@ class WhatIf:
         outcome's node times, as :meth:`run` does for the demand points."""
         new_ids = outcome.bases["id"].astype(str).tolist()
         return self._derived_times(
-            points, stored, new_ids, set(outcome.recomputed_bases), outcome.network, outcome.node_t, outcome.base_snap
-        )
+            points, stored, new_ids, set(outcome.recomputed_bases), outcome.network, outcome.node_t, outcome.base_snap,
+            outcome.moved_nodes,
+        )  # fmt: skip
 
     def _derived_times(
         self,
@@ -294,9 +311,11 @@ class WhatIf:
         net2: RoadNetwork,
         node_t2: sp.csr_matrix,
         base_snap2: Snapped,
+        known_moved: dict[str, np.ndarray] | None = None,
     ) -> sp.csr_matrix:
         """Times of ``points`` (stored before) from the bases ``new_ids`` after a change (``again``: the bases
-        searched again; ``net2``, ``node_t2``, ``base_snap2``: network, node times and snapped bases after)."""
+        searched again; ``net2``, ``node_t2``, ``base_snap2``: network, node times and snapped bases after;
+        ``known_moved``: per repaired base, the nodes whose time may have changed)."""
         where = {b: i for i, b in enumerate(self.bases["id"].astype(str).tolist())}
         n = len(points)
         stored = sp.csr_matrix(stored)
@@ -305,9 +324,11 @@ class WhatIf:
         _, e_node, _ = exits(self.net, points, self.direction)
         e_point = points.entry_point
         kept_parts, full_rows, redo_of = [], [], {}
+        old_row = [where[b] if b not in again else self._same_snap(b, where, new_ids, base_snap2) for b in new_ids]
+        moved_of = self._moved_nodes(new_ids, again, old_row, node_t2, known_moved or {})
         # row by row (one step per base): which points keep their stored value, which are derived again
         for j, base in enumerate(new_ids):
-            i = where[base] if base not in again else self._same_snap(base, where, new_ids, base_snap2)
+            i = old_row[j]
             if i is None:  # added, moved or re-snapped: every point again
                 full_rows.append(j)
                 kept_parts.append((np.zeros(0, dtype=np.int64), np.zeros(0)))
@@ -315,7 +336,7 @@ class WhatIf:
             mark = np.zeros(n, dtype=bool)
             mark[cols] = True
             if base in again:
-                moved = _dense_rows(self.node_t, np.array([i]))[0] != _dense_rows(node_t2, np.array([j]))[0]
+                moved = moved_of[j]
                 mark[e_point[moved[e_node]]] = True  # a mask, not a set union: no sort per base
             redo = np.flatnonzero(mark) if base in again else cols
             lo, hi = stored.indptr[i], stored.indptr[i + 1]
@@ -352,6 +373,29 @@ class WhatIf:
         data = np.concatenate(t_parts) if t_parts else np.zeros(0)
         return sp.csr_matrix((data, indices, indptr), shape=(len(new_ids), n))
 
+    def _moved_nodes(
+        self,
+        new_ids: list[str],
+        again: set[str],
+        old_row: list[int | None],
+        node_t2: sp.csr_matrix,
+        known: dict[str, np.ndarray],
+    ) -> dict[int, np.ndarray]:
+        """Per row searched again at the same snap: a boolean per node, True where its time changed (``known``: the
+        rows already known by base id)."""
+        out = {j: known[b] for j, b in enumerate(new_ids) if b in known}
+        pairs = [
+            (j, i)
+            for j, (b, i) in enumerate(zip(new_ids, old_row, strict=True))
+            if b in again and i is not None and j not in out
+        ]
+        chunk = max(1, CHUNK_CELLS // max(self.net.n_nodes, 1))
+        for start in range(0, len(pairs), chunk):
+            js, iss = (np.array(x, dtype=np.int64) for x in zip(*pairs[start : start + chunk], strict=True))
+            moved = _dense_rows(self.node_t, iss) != _dense_rows(node_t2, js)
+            out.update(zip(js.tolist(), moved, strict=True))
+        return out
+
     def _same_snap(self, base_id: str, where: dict[str, int], new_ids: list[str], base_snap2: Snapped) -> int | None:
         """The base's row before when it stands where it stood, with the same snap entries after the change."""
         i = where.get(base_id)
@@ -364,6 +408,26 @@ class WhatIf:
         return i if same else None
 
     # -- the incremental recomputation ---------------------------------------------------------------------------------
+    def _repairable_rows(
+        self,
+        rows: np.ndarray,
+        new_ids: list[str],
+        keep_src: np.ndarray,
+        base_snap2: Snapped,
+        changed: np.ndarray,
+        net2: RoadNetwork,
+    ) -> np.ndarray:
+        """The rows (of ``new_ids``) among ``rows`` whose stored searches can be repaired: the base stands where it
+        stood with the same snap (its stored row ``keep_src``), off every changed edge, and no edge time fell."""
+        if not len(rows) or not len(changed) or not can_repair(self.net, net2, self.direction):
+            return np.zeros(0, dtype=np.int64)
+        where = {b: i for i, b in enumerate(self.bases["id"].astype(str).tolist())}
+        seated = np.zeros(len(new_ids), dtype=bool)
+        seated[base_snap2.entry_point[np.isin(base_snap2.entry_edge, changed)]] = True
+        same = [self._same_snap(new_ids[j], where, new_ids, base_snap2) for j in rows]
+        ok = [j for j, i in zip(rows, same, strict=True) if not seated[j] and i is not None and keep_src[j] == i]
+        return np.asarray(ok, dtype=np.int64)
+
     def affected_bases(self, travel_s: np.ndarray) -> np.ndarray:
         """Boolean per base: can the edge times ``travel_s`` change this base's searches? (see the class notes)"""
         old = self.net.travel_s
@@ -417,25 +481,50 @@ class WhatIf:
         rows_new = np.flatnonzero(search)
         # node times after: stored rows for untouched bases, a new search for the others
         keep_src = np.array([old_pos.get(b, -1) for b in new_ids])
-        kept = np.flatnonzero(~search)
-        stored = self.node_t[keep_src[kept]].tocoo()
-        parts_r, parts_c, parts_t = [kept[stored.row]], [stored.col], [stored.data]
-        if len(rows_new):
-            note(f"what-if: searching again from {len(rows_new)} of {len(new_ids)} bases")
-            fresh = node_times(net2, base_snap2.subset(rows_new), self.horizon_s, self.direction).tocoo()
-            parts_r.append(rows_new[fresh.row])
-            parts_c.append(fresh.col)
-            parts_t.append(fresh.data)
-        node_t2 = sp.csr_matrix(
-            (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
-            shape=(len(new_ids), net2.n_nodes),
-        )
+        moved_nodes: dict[str, np.ndarray] = {}
+        repair = self._repairable_rows(rows_new, new_ids, keep_src, base_snap2, changed, net2)
+        full = np.setdiff1d(rows_new, repair)
+        if len(repair) and not len(full) and new_ids == old_ids and len(old_pos) == len(old_ids):
+            # every base kept or repaired (times that only rose): repair the whole table at once; a base without a
+            # tight changed edge keeps its row as it is
+            node_t2, touched = repaired_node_times(
+                self.net, net2, base_snap2, self.node_t, self.horizon_s, self.direction, return_affected=True
+            )
+            moved_nodes = _row_masks(touched, repair, new_ids, net2.n_nodes)
+        else:
+            kept = np.flatnonzero(~search)
+            stored = self.node_t[keep_src[kept]].tocoo()
+            parts_r, parts_c, parts_t = [kept[stored.row]], [stored.col], [stored.data]
+            if len(repair):
+                # times that only rose: repair the stored searches instead of searching again (same times exactly)
+                fixed, touched = repaired_node_times(
+                    self.net, net2, base_snap2.subset(repair), self.node_t[keep_src[repair]], self.horizon_s,
+                    self.direction, return_affected=True,
+                )  # fmt: skip
+                local = _row_masks(touched, np.arange(len(repair)), [new_ids[j] for j in repair], net2.n_nodes)
+                moved_nodes.update(local)
+                fixed = fixed.tocoo()
+                parts_r.append(repair[fixed.row])
+                parts_c.append(fixed.col)
+                parts_t.append(fixed.data)
+            if len(full):
+                note(f"what-if: searching again from {len(full)} of {len(new_ids)} bases")
+                fresh = node_times(net2, base_snap2.subset(full), self.horizon_s, self.direction).tocoo()
+                parts_r.append(full[fresh.row])
+                parts_c.append(fresh.col)
+                parts_t.append(fresh.data)
+            node_t2 = sp.csr_matrix(
+                (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
+                shape=(len(new_ids), net2.n_nodes),
+            )
         results = {}
         again = {new_ids[i] for i in rows_new}
         for name, dem in self.demand.items():
             snap2 = self.point_snap[name]
             # stored times where nothing they depend on changed; derived from the node times after elsewhere
-            times = self._derived_times(snap2, self.tables[name].times, new_ids, again, net2, node_t2, base_snap2)
+            times = self._derived_times(
+                snap2, self.tables[name].times, new_ids, again, net2, node_t2, base_snap2, moved_nodes
+            )
             table = TravelTable(base_snap2, snap2, times, self.horizon_s, self.direction)
             nearest = nearest_sources(times, k=2)  # the same for every standard
             for s in self.standards:
@@ -454,7 +543,9 @@ class WhatIf:
                 )
             else:
                 log.notes.append("coverage unchanged")
-        return WhatIfOutcome(results, net2, bases_after, log, [new_ids[i] for i in rows_new], node_t2, base_snap2)
+        return WhatIfOutcome(
+            results, net2, bases_after, log, [new_ids[i] for i in rows_new], node_t2, base_snap2, moved_nodes
+        )
 
 
 __all__ = ["NO_REACH_NOTE", "WhatIf", "WhatIfOutcome", "times_from_nodes"]

@@ -255,6 +255,11 @@ class RoadNetwork:
                 edges[name] = values
             out = RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
         out._csr_cache.update({k: v for k, v in self._csr_cache.items() if k.startswith(GEOMETRY_CACHE)})
+        if "travel_s" in self._csr_cache:
+            # a what-if changes a handful of edges: patch the search graph instead of sorting every edge again
+            g = updated_min_weight_csr(self._csr_cache["travel_s"], self.u, self.v, self.travel_s, travel_s)
+            if g is not None:
+                out._csr_cache["travel_s"] = g
         return out
 
     def closed_stretch(self) -> tuple[np.ndarray, np.ndarray]:
@@ -613,6 +618,48 @@ def min_weight_csr(u: np.ndarray, v: np.ndarray, w: np.ndarray, n: int) -> sp.cs
     """N x N CSR matrix holding, for each (u, v), the smallest finite weight among parallel edges."""
     best = _best_parallel_edges(u, v, w, n)
     return sp.csr_matrix((w[best], (u[best], v[best])), shape=(n, n))
+
+
+def updated_min_weight_csr(
+    g: sp.csr_matrix, u: np.ndarray, v: np.ndarray, w_before: np.ndarray, w_after: np.ndarray
+) -> sp.csr_matrix | None:
+    """:func:`min_weight_csr` of the weights ``w_after`` (s, per edge, before the :data:`MIN_EDGE_S` floor), given
+    ``g``, the graph of ``w_before``: only the (u, v) pairs of changed edges are recomputed. ``None`` when a pair
+    absent from ``g`` (every edge of it closed) gets a finite weight (then build the graph whole)."""
+    w_before, w_after = np.asarray(w_before, dtype=float), np.asarray(w_after, dtype=float)
+    changed = np.flatnonzero(~((w_before == w_after) | (np.isnan(w_before) & np.isnan(w_after))))
+    if not len(changed):
+        return g.copy()
+    n = g.shape[0]
+    pair = np.unique(u[changed] * np.int64(n) + v[changed])
+    key = u * np.int64(n) + v
+    members = np.flatnonzero(np.isin(key, pair))
+    w = np.maximum(w_after[members], MIN_EDGE_S)
+    w = np.where(np.isfinite(w), w, np.inf)
+    slot = np.searchsorted(pair, key[members])
+    best = np.full(len(pair), np.inf)
+    np.minimum.at(best, slot, w)
+    a, b = np.divmod(pair, n)
+    lo, hi = g.indptr[a], g.indptr[a + 1]
+    counts = hi - lo
+    which = np.repeat(np.arange(len(pair)), counts)
+    at = np.repeat(lo - np.cumsum(counts) + counts, counts) + np.arange(int(counts.sum()))
+    match = g.indices[at] == b[which]
+    where = np.full(len(pair), -1, dtype=np.int64)
+    where[which[match]] = at[match]
+    if np.any((where < 0) & np.isfinite(best)):
+        return None
+    out = g.copy()
+    present = where >= 0
+    out.data[where[present]] = best[present]
+    gone = where[present & ~np.isfinite(best)]
+    if len(gone):
+        keep = np.ones(out.nnz, dtype=bool)
+        keep[gone] = False
+        row = np.repeat(np.arange(n), np.diff(out.indptr))
+        indptr = np.concatenate([[0], np.cumsum(np.bincount(row[keep], minlength=n))]).astype(out.indptr.dtype)
+        out = sp.csr_matrix((out.data[keep], out.indices[keep], indptr), shape=out.shape)
+    return out
 
 
 def network_from_arrays(
