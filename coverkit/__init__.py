@@ -53,6 +53,7 @@ _LAZY = {
     "coverage_stage": "coverkit.stages",
     "compare_study": "coverkit.compare_run",
     "layer_name": "coverkit.layer_names",
+    "simulate": "coverkit.simulate.run",
 }
 
 __all__ = [
@@ -81,6 +82,7 @@ __all__ = [
     "read_points",
     "report_study",
     "run_study",
+    "simulate",
     "snap_points",
     "solve",
     "write_travel_surface",
@@ -103,6 +105,7 @@ if TYPE_CHECKING:  # for type checkers and editors; at run time the names load o
     from coverkit.network import RoadNetwork, build_network, load_profile
     from coverkit.report.study_report import report_study
     from coverkit.scenario import load_scenario
+    from coverkit.simulate.run import simulate
     from coverkit.site_plan import build_problem, solve
     from coverkit.stages import coverage_stage
     from coverkit.study import load_study, run_study
