@@ -36,7 +36,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--crs", help="metric CRS for the network (default: the UTM zone of the data)")
     p.add_argument(
         "--fields",
-        help="centerline field mapping, e.g. class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY "
+        help="centerline field mapping, e.g. class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY, or ng911 for the NENA "
+        "NG9-1-1 road centerline fields (ng911,name=St_Name adds to it) "
         "(also name=, id=, bridge=, tunnel=, speed_unit=mph|kph, oneway_forward=FT, oneway_backward=TF, "
         "class_map=LOC:residential;COL:tertiary)",
     )

@@ -1,7 +1,8 @@
 """Read road centerline layers (GeoPackage, Shapefile, GeoJSON, ...) with a field mapping.
 
 County centerline layers carry their own class codes, speeds in mph or km/h and one-way flags with local values.
-The user maps them with ``fields`` (``class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY``); topology comes from shared
+The user maps them with ``fields`` (``class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY``, or ``ng911`` for the NENA
+NG9-1-1 GIS data model's fields, :mod:`coverkit.network.ng911`); topology comes from shared
 line endpoints, merged within a tolerance. Endpoints that nearly meet another line's end without touching
 (the usual defect of such layers) are counted and reported, never silently joined.
 """
@@ -20,6 +21,7 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from coverkit.errors import FieldError, InputFileError
+from coverkit.network.ng911 import PRESET, ng911_fields
 from coverkit.network.profile import KPH_PER_MPH, Profile
 from coverkit.network.raw import SEGMENT_COLUMNS, RawRoads
 from coverkit.network.road_classes import CENTERLINE_ALIASES
@@ -42,11 +44,24 @@ TWO_WAY_VALUES = frozenset({"", "0", "n", "no", "false", "b", "both", "two way",
 def parse_fields(text: str) -> dict[str, str]:
     """Parse ``class=ROADCLASS,speed=SPEED_MPH,oneway=ONEWAY`` (plus optional ``name``, ``id``, ``bridge``,
     ``tunnel``, ``speed_unit=mph|kph``, ``oneway_forward=FT;1``, ``oneway_backward=TF``).
+
+    A first part ``ng911`` starts from the NENA NG9-1-1 road centerline fields
+    (:func:`coverkit.network.ng911.ng911_fields`); the parts after it override single keys (``ng911,name=St_Name``).
+
+    >>> parse_fields("ng911,name=St_Name")["name"], parse_fields("ng911")["oneway"]
+    ('St_Name', 'OneWay')
     """
     out: dict[str, str] = {}
-    for part in filter(None, (p.strip() for p in text.split(","))):
+    parts = [p.strip() for p in text.split(",") if p.strip()]
+    if parts and parts[0].lower() == PRESET:
+        out.update(ng911_fields())
+        parts = parts[1:]
+    for part in parts:
         if "=" not in part:
-            raise FieldError(f"field mapping: '{part}' is not key=FIELD; write e.g. class=ROADCLASS,speed=SPEED_MPH.")
+            raise FieldError(
+                f"field mapping: '{part}' is not key=FIELD; write e.g. class=ROADCLASS,speed=SPEED_MPH "
+                f"(or {PRESET} first for the NENA NG9-1-1 fields)."
+            )
         key, value = (s.strip() for s in part.split("=", 1))
         allowed = (*FIELD_KEYS, "speed_unit", "oneway_forward", "oneway_backward", "class_map")
         if key not in allowed:
@@ -226,7 +241,12 @@ def _read_layer(path: Path, layer: str | None, fields: dict[str, str]) -> gpd.Ge
     if gdf.crs is None:
         raise InputFileError(f"{path}: the layer has no CRS; assign one (e.g. in a desktop GIS) and retry.")
     gdf = gdf[gdf.geometry.notna() & ~gdf.geometry.is_empty]
-    for key in ("class", "speed", "oneway", "name", "id", "bridge", "tunnel"):
+    # field names differ only in case between formats (a Shapefile's ROADCLASS is a GeoPackage's RoadClass)
+    by_lower = {str(c).lower(): c for c in gdf.columns}
+    for key in FIELD_KEYS:
+        if key in fields and fields[key] not in gdf.columns and fields[key].lower() in by_lower:
+            gdf = gdf.rename(columns={by_lower[fields[key].lower()]: fields[key]})
+    for key in FIELD_KEYS:
         if key in fields and fields[key] not in gdf.columns:
             raise FieldError(
                 f"{path}: field '{fields[key]}' (mapped as {key}) is not in the layer; "
