@@ -44,12 +44,14 @@ from scipy.optimize import least_squares
 
 import coverkit
 from coverkit.atomic import atomic_path, write_text_atomic
+from coverkit.distance_bands import DEFAULT_BANDS_KM, band_labels, band_of, check_bands
 from coverkit.distance_time import KolesarFit, fit_kolesar, kolesar_time_s
 from coverkit.errors import FieldError, InputFileError, ModelError, OffNetworkError, ProfileError
 from coverkit.network.model import RoadNetwork
 from coverkit.network.profile import ClassSpeed, Profile, load_profile, profile_to_toml
 from coverkit.network.timing import edge_times
 from coverkit.progress import note, warn
+from coverkit.spread import SpreadFit, fit_spread
 from coverkit.travel.points import (
     DEFAULT_MAX_REJECTED_SHARE,
     DELIMITER_NAMES,
@@ -65,8 +67,6 @@ from coverkit.travel.points import (
 from coverkit.travel.routes import Routes, shortest_routes
 from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, snap_points
 
-#: Upper edges of the route-length bands (km); the last band is open (``> 10 km``).
-DEFAULT_BANDS_KM = (2.0, 5.0, 10.0)
 #: Bounds on the fitted multiplier of a class's speed factor.
 DEFAULT_BOUNDS = (0.3, 3.0)
 #: Bounds on a fitted signal delay (s).
@@ -296,25 +296,6 @@ def scaled_profile(profile: Profile, multipliers: dict[str, float], signal_delay
 # ------------------------------------------------------------------------------------------------------------------
 
 
-def band_labels(bands_km: Sequence[float] = DEFAULT_BANDS_KM) -> list[str]:
-    """Labels of the route-length bands: ``0-2 km``, ``2-5 km``, ..., ``>10 km``."""
-    edges = [0.0, *(float(b) for b in bands_km)]
-    labels = [f"{edges[i]:g}-{edges[i + 1]:g} km" for i in range(len(edges) - 1)]
-    return [*labels, f">{edges[-1]:g} km"]
-
-
-def band_of(route_m: np.ndarray, bands_km: Sequence[float] = DEFAULT_BANDS_KM) -> np.ndarray:
-    """Band index of each route length (m): band k holds lengths in (edge k, edge k+1] km (the first from 0)."""
-    _check_bands(bands_km)
-    return np.searchsorted(np.asarray(bands_km, dtype=float) * 1000.0, np.asarray(route_m, dtype=float), side="left")
-
-
-def _check_bands(bands_km: Sequence[float]) -> None:
-    b = np.asarray(bands_km, dtype=float)
-    if b.ndim != 1 or b.size == 0 or not np.all(np.isfinite(b)) or b[0] <= 0 or np.any(np.diff(b) <= 0):
-        raise FieldError(f"distance bands {list(bands_km)} must be increasing positive kilometres, e.g. 2, 5, 10.")
-
-
 def error_summary(
     modelled_s: np.ndarray,
     observed_s: np.ndarray,
@@ -405,6 +386,9 @@ class CalibrationResult:
         Fit settings (loss, f_scale, bounds, min_exposure_s, min_routes, bands_km, hours).
     network
         The network timed with the calibrated profile.
+    spread
+        The spread of ``ln(observed / calibrated modelled)`` by route-length band (:func:`coverkit.spread.fit_spread`,
+        after Budge, Ingolfsson & Zerom 2010), on the calibrated routes.
     """
 
     profile_before: Profile
@@ -427,6 +411,7 @@ class CalibrationResult:
     n_rejected: int = 0
     settings: dict = field(default_factory=dict)
     network: RoadNetwork | None = field(default=None, repr=False, compare=False)
+    spread: SpreadFit | None = field(default=None, repr=False, compare=False)
 
     @property
     def n_used(self) -> int:
@@ -670,6 +655,7 @@ def _calibration_result(
         source=source,
         settings=settings_table,
         network=net_after,
+        spread=fit_spread(obs_s[usable], after_s, route_m, bands_km=options["bands_km"], source=source),
     )
 
 
@@ -696,7 +682,7 @@ def _starting_routes(trips, base0, obs, model, n_classes, fit_signal_delay, *, n
 
 def _check_fit_options(bands_km: Sequence[float], loss: str, bounds: tuple[float, float]) -> tuple[float, float]:
     """Check the bands, the loss and the multiplier bounds; the bounds as floats."""
-    _check_bands(bands_km)
+    check_bands(bands_km)
     if loss not in _LOSSES:
         raise FieldError(f"loss '{loss}' is not known; use one of {', '.join(_LOSSES)}.")
     lo, hi = (float(b) for b in bounds)
@@ -1225,8 +1211,21 @@ def summary_text(result: CalibrationResult) -> str:
             f"distance-time curve (Kolesar, Walker, Hausner 1975): acceleration {k.accel_mps2:.2f} m/s2, cruise "
             f"{k.cruise_kph:.1f} km/h, critical distance {k.critical_m:.0f} m, RMSE {k.rmse_s:.0f} s"
         )
+    lines += _spread_lines(result)
     lines += ["", coverkit.CAUTION]
     return "\n".join(lines)
+
+
+def _spread_lines(result: CalibrationResult) -> list[str]:
+    """The travel-time spread by band: sigma of ln(observed / modelled) with its standard error."""
+    if result.spread is None:
+        return []
+    lines = ["", "travel-time spread, ln(observed/modelled) after calibration (after Budge, Ingolfsson & Zerom 2010)"]
+    lines.append(f"{'band':<12}{'n':>5}{'mu':>9}{'+-se':>8}{'sigma':>9}{'+-se':>8}")
+    for r in result.spread.table.itertuples(index=False):
+        note_text = "  (few trips: all trips' figures)" if r.from_all else ""
+        lines.append(f"{r.band:<12}{r.n:>5}{r.mu:>9.3f}{r.mu_se:>8.3f}{r.sigma:>9.3f}{r.sigma_se:>8.3f}{note_text}")
+    return lines
 
 
 _STATUS_TEXT = {

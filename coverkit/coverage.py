@@ -181,7 +181,15 @@ class CoverageResult:
             "meets_standard": bool(frac_resp <= self.standard.response_s),
             "off_network": off,
             "off_network_points": int((~on).sum()),
+            **self._expected_cover(w, total),
         }
+
+    def _expected_cover(self, w: np.ndarray, total: float) -> dict:
+        """Expected covered demand from the travel-time spread (``p_in_standard``, :mod:`coverkit.spread`), if any."""
+        if "p_in_standard" not in self.demand.columns:
+            return {}
+        expected = float(np.sum(w * self.demand["p_in_standard"].to_numpy(dtype=float)))
+        return {"expected_covered": expected, "expected_covered_share": expected / total if total else float("nan")}
 
 
 @dataclass

@@ -48,6 +48,7 @@ KINDS: dict[str, tuple[str, str]] = {
     "availability_summary": ("availability_summary", "call rate, offered load, chance all units are busy"),
     "calibration_classes": ("calibration_classes", "fitted speed factor per road class"),
     "calibration_errors": ("calibration_errors", "errors before and after, by route length"),
+    "calibration_spread": ("calibration_spread", "travel-time spread: ln(observed/modelled) by route length, with SEs"),
     "bases_before": ("bases_before", "comparison: bases before the scenario"),
     "bases_after": ("bases_after", "comparison: bases after the scenario"),
     "closed_roads": ("closed_roads", "comparison: road stretches closed"),
@@ -75,6 +76,10 @@ FILES: dict[str, tuple[str, str]] = {
     "summary_csv": ("summary.csv", "the summary table"),
     "report": ("report.html", "the self-contained study report"),
     "calibrated_profile": ("calibrated_profile.toml", "speed profile with the fitted factors"),
+    "travel_spread": (
+        "travel_spread.csv",
+        "travel-time spread by route length, with standard errors (a calibration output)",
+    ),
     "compare_layers": ("compare.gpkg", "every layer of a comparison"),
     "compare_csv": ("comparison.csv", "the comparison table"),
     "compare_report": ("compare_report.html", "the self-contained comparison report"),

@@ -31,6 +31,7 @@ if TYPE_CHECKING:
     from coverkit.network import RoadNetwork
     from coverkit.settings import AvailabilitySettings, SitingSettings
     from coverkit.site_plan import SitePlan, SitingProblem
+    from coverkit.spread import SpreadFit
 
 
 def demand_kind(demand: gpd.GeoDataFrame) -> str:
@@ -161,6 +162,15 @@ class CoverageStage:
             out.append(f"rejected     {rejected.text(verb=False)}; see layer {layer_name('rejected', name)}")
         out += [
             f"covered      {s['covered']:,.0f} {unit} = {s['covered_share'] * 100:.1f} %",
+        ]
+        if "expected_covered" in s:
+            src = res.extra["spread"].source or "the given fit"
+            out.append(
+                f"expected     {s['expected_covered']:,.0f} {unit} = {s['expected_covered_share'] * 100:.1f} % "
+                f"(each point's demand times its chance of arriving within the standard, travel-time spread from {src}; "
+                "'covered' above is the deterministic figure: modelled time within the standard)"
+            )
+        out += [
             f"depth        once {s['covered_once']:,.0f}, twice or more {s['covered_twice_or_more']:,.0f}",
             f"fractile     {self.standard.fractile * 100:g}th percentile response {frac_text}: {verdict} "
             f"{self.standard.response_s:,.0f} s",
@@ -198,6 +208,7 @@ def coverage_stage(
     demand_snap_m: Mapping[str, float] | None = None,
     base_snap_m: float | None = None,
     direction: str | None = None,
+    spread: SpreadFit | None = None,
 ) -> CoverageStage:
     """Coverage of each demand layer under ``standard``, then the due areas and gaps of the whole study area.
 
@@ -222,6 +233,10 @@ def coverage_stage(
     demand_snap_m, base_snap_m, direction
         Snap limits (m) and search direction passed to :func:`coverkit.coverage.evaluate_coverage` when no table is
         given.
+    spread
+        A travel-time spread fit (:func:`coverkit.spread.read_spread`): each point also gets its probability of
+        arriving within the standard and each summary the expected covered demand
+        (:func:`coverkit.spread.add_arrival_probability`), beside the deterministic figures.
     """
     from coverkit.coverage import area_layers, compliance_by, compliance_by_zone, evaluate_coverage, per_base
 
@@ -240,6 +255,10 @@ def coverage_stage(
             if direction is not None:
                 options["direction"] = direction
         res = evaluate_coverage(net, bases, dem, standard, **options)
+        if spread is not None:
+            from coverkit.spread import add_arrival_probability
+
+            add_arrival_probability(net, res, spread)
         results[name] = res
         by_base[name] = per_base(res)
         if zones is not None:
@@ -418,6 +437,7 @@ class CalibrationStage:
         return {
             layer_name("calibration_classes"): self.result.classes,
             layer_name("calibration_errors"): self.result.errors,
+            **({layer_name("calibration_spread"): self.result.spread.table} if self.result.spread else {}),
         }
 
     def headline(self, profile_name: str = "") -> str:

@@ -790,6 +790,9 @@ def _write_outputs(
             calibration.result, output_file(folder, "calibrated_profile")
         )
         outputs["calibration_chart"] = calibration_chart(calibration.result, map_file(folder, "calibration"))
+        from coverkit.spread import write_spread
+
+        outputs["travel_spread"] = write_spread(calibration.result.spread, output_file(folder, "travel_spread"))
     outputs["layers"] = write_gpkg_layers(output_file(folder, "layers"), layers)
     outputs["summary_csv"] = write_csv_atomic(output_file(folder, "summary_csv"), summary)
     return outputs

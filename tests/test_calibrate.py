@@ -491,3 +491,23 @@ def test_hours_without_hour_column(grid_case, tmp_path):
     with pytest.raises(FieldError) as exc:
         calibrate_speeds(net, bases, obs, hours=[8])
     assert "hour" in _one_line(exc)
+
+
+def test_spread_of_the_calibrated_residuals_recovers_the_noise_sigma(grid_case, tmp_path, capsys):
+    """Synthetic ground truth: observed = true time x lognormal(0, NOISE_SIGMA); after calibration the fitted
+    spread of ln(observed / modelled) over all trips is NOISE_SIGMA within 3 standard errors, and the CLI writes it."""
+    from coverkit.calibrate import summary_text
+    from coverkit.cli import main
+    from coverkit.spread import read_spread
+
+    res = grid_case["result"]
+    whole = res.spread.table.iloc[-1]
+    assert whole["band"] == "all" and whole["n"] == N_OBS
+    assert abs(whole["sigma"] - NOISE_SIGMA) <= 3 * whole["sigma_se"]
+    assert "travel-time spread" in summary_text(res)
+    out = tmp_path / "cal.toml"
+    args = ["calibrate", str(grid_case["net_path"]), "--observed", str(grid_case["obs_path"])]
+    assert main([*args, "--bases", str(grid_case["bases_path"]), "--out", str(out), "--quiet"]) == 0
+    back = read_spread(tmp_path / "cal_spread.csv")
+    assert back.sigma_all == pytest.approx(whole["sigma"], rel=1e-5)
+    assert "cal_spread.csv" in capsys.readouterr().out

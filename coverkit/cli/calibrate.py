@@ -26,6 +26,11 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--profile", help="starting profile (default: the one the network was built with)")
     p.add_argument("--out", "-o", type=Path, required=True, help="calibrated profile TOML to write")
     p.add_argument("--chart", type=Path, help="also write the diagnostic distance-time chart (PNG)")
+    p.add_argument(
+        "--spread-out",
+        type=Path,
+        help="travel-time spread CSV to write (default: beside --out, <name>_spread.csv); cover --spread reads it",
+    )
     p.add_argument("--hours", help="only observations in these hours of day, e.g. 7-19 or 0,1,2")
     p.add_argument(
         "--max-rejected",
@@ -68,10 +73,14 @@ def run(args: argparse.Namespace) -> int:
         hours=_hours(args.hours),
         max_rejected_share=args.max_rejected,
     )
+    from coverkit.spread import write_spread
+
+    spread_out = args.spread_out or args.out.with_name(f"{args.out.stem}_spread.csv")
     write_calibrated_profile(result, args.out)
+    write_spread(result.spread, spread_out)
     print(summary_text(result))
     if args.chart:
         calibration_chart(result, args.chart)
-    print(f"\nwrote {args.out}" + (f" and {args.chart}" if args.chart else ""))
+    print(f"\nwrote {args.out}, {spread_out}" + (f" and {args.chart}" if args.chart else ""))
     print(f"use it with: coverkit network <roads> --profile {args.out} --out calibrated-net.gpkg")
     return 0

@@ -64,6 +64,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         default=settings.DIRECTION,
         help="out: base to demand; in: demand to base (default %(default)s)",
     )
+    p.add_argument(
+        "--spread",
+        type=Path,
+        help="travel-time spread CSV from `coverkit calibrate`: also give each point's chance of arriving within "
+        "the standard and the expected covered demand",
+    )
     points_options(p)
     common(p)
     compute_options(p)
@@ -83,6 +89,11 @@ def run(args: argparse.Namespace) -> int:
     if (args.zones is None) != (args.zone_field is None):
         raise FieldError("--zones and --zone-field go together: give the polygon layer and its id field.")
     std = Standard(single_standard_name(args.minutes), args.minutes * 60.0, args.turnout_s, args.fractile)
+    spread = None
+    if args.spread:
+        from coverkit.spread import read_spread
+
+        spread = read_spread(args.spread)
     dname = demand_name_of(args.demand)
     zones = read_zones(args.zones, args.zone_field) if args.zones else None
     net, bases = network_and_bases(args)
@@ -110,6 +121,7 @@ def run(args: argparse.Namespace) -> int:
         demand_snap_m={dname: args.demand_snap_m},
         base_snap_m=args.snap_m,
         direction=args.direction,
+        spread=spread,
     )
     layers = {layer_name("bases"): bases, **stage.layers()}
     rejected_layer(demand, layers, dname)
