@@ -167,7 +167,7 @@ class CoverageStage:
             src = res.extra["spread"].source or "the given fit"
             out.append(
                 f"expected     {s['expected_covered']:,.0f} {unit} = {s['expected_covered_share'] * 100:.1f} % "
-                f"(each point's demand times its chance of arriving within the standard, travel-time spread from {src}; "
+                f"(each point's demand times its chance of arriving within the standard, spread from {src}; "
                 "'covered' above is the deterministic figure: modelled time within the standard)"
             )
         out += [

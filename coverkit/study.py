@@ -53,6 +53,7 @@ if TYPE_CHECKING:
     from coverkit.calibrate import CalibrationResult
     from coverkit.network.model import RoadNetwork
     from coverkit.site_plan import SitePlan
+    from coverkit.spread import SpreadFit
 
 # -- schema -----------------------------------------------------------------------------------------------------------
 # key -> (type(s), required). Types are Python types accepted after TOML parsing.
@@ -116,6 +117,7 @@ SCHEMA: dict[str, Schema] = {
         "demand": (str, False),
     },
     "calibration": {"observed": (str, True), "hours": (list, False)},
+    "travel_spread": {"file": (str, True)},
     "simulation": {
         **{k: (str, False) for k in ("calls", "service_dist", "service_field", "queue", "time_field", "demand")},
         **{k: (_NUM, False) for k in ("hours", "calls_per_h", "service_min", "service_cv", "turnout_s")},
@@ -163,6 +165,7 @@ class Study:
     calibration: CalibrationSettings | None = None
     compute: ComputeSettings | None = None
     simulation: settings.SimulationSettings | None = None
+    spread: SpreadFit | None = None
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -273,6 +276,10 @@ def load_study(path: str | Path) -> Study:
         _compute_settings(raw, where),
     )
     study.simulation = settings.SimulationSettings.from_table(raw["simulation"]) if "simulation" in raw else None
+    if "travel_spread" in raw:
+        from coverkit.spread import read_spread
+
+        study.spread = read_spread(_file(folder, raw["travel_spread"]["file"], "travel_spread.file", where))
     if study.siting:
         study.standard_named(study.siting.standard, "siting.standard")
         study.demand_named(study.siting.demand, "siting.demand", "residents")
@@ -763,6 +770,7 @@ def _coverage_runs(
             grid=grid,
             cell_m=opts.grid_cell_m,
             reach_m=opts.area_reach_m,
+            spread=study.spread,
         )
         grid = stage.areas.grid
         runs.append(stage)

@@ -151,3 +151,56 @@ def test_cover_with_a_bad_spread_file_exits_2_and_writes_nothing(demo_net_path, 
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and "bad.csv" in err
     assert not out.exists()
+
+
+def _spread_study(tmp_path, extra: str) -> object:
+    from tests.conftest import DEMO, demo_study_head
+
+    path = tmp_path / "study.toml"
+    path.write_text(
+        demo_study_head("spread test")
+        + f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\nkind = "incidents"\n'
+        + '[[standard]]\nname = "8 min"\ntravel_s = 480\n'
+        + f'[outputs]\nfolder = "{tmp_path / "out"}"\nmaps = false\nisochrone_minutes = [8]\n'
+        + extra
+    )
+    return path
+
+
+def test_a_study_names_the_fit_and_the_simulation_draws_from_it(tmp_path):
+    """[travel_spread] file = ...: the study's simulation takes the fit's all-trips sigma as its lognormal
+    multiplier, whose coefficient of variation is sqrt(exp(sigma^2) - 1) (lognormal moments)."""
+    from coverkit.errors import StudyError
+    from coverkit.simulate.study_run import study_settings
+    from coverkit.study import load_study
+
+    fit_path = _demo_spread(tmp_path, sigma=0.25)
+    study = load_study(_spread_study(tmp_path, f'[travel_spread]\nfile = "{fit_path}"\n'))
+    assert study.spread.sigma_all == 0.25
+    cfg = study_settings(study, None, None, {})
+    assert cfg.travel_cv == pytest.approx(np.sqrt(np.expm1(0.0625)), rel=1e-12)
+    assert cfg.travel_cv_source.endswith("spread.csv")
+    # a caller's own spread still wins
+    assert study_settings(study, None, None, {"travel_cv": 0.1}).travel_cv == 0.1
+    with pytest.raises(StudyError, match=r"travel_spread\.file"):
+        load_study(_spread_study(tmp_path, '[travel_spread]\nfile = "missing.csv"\n'))
+
+
+def test_a_study_run_with_a_spread_fit_reports_expected_cover(tmp_path):
+    from coverkit.study import run_study
+
+    fit_path = _demo_spread(tmp_path, sigma=0.2)
+    run = run_study(_spread_study(tmp_path, f'[travel_spread]\nfile = "{fit_path}"\n'))
+    res = run.runs[0].results["calls"]
+    d = res.demand
+    t = d["travel_s"].to_numpy(float)
+    ok = np.isfinite(t)
+    expect = np.zeros(len(t))
+    expect[ok] = stats.lognorm.cdf(480.0, s=0.2, scale=t[ok])
+    np.testing.assert_allclose(d["p_in_standard"].to_numpy(float), expect, rtol=1e-9, atol=1e-12)
+    assert res.summary()["expected_covered"] == pytest.approx(np.sum(d["weight"].to_numpy(float) * expect))
+    from coverkit.report.study_report import report_study
+
+    out = report_study(run)
+    page = out["report"].read_text()
+    assert "Covered demand with the travel-time spread" in page and "deterministic figure" in page

@@ -350,6 +350,20 @@ def _calibration(page: ReportPage) -> None:
     rep.add_image(page.run.outputs["calibration_chart"], "Observed and modelled travel times")
 
 
+def _expected_cover(page: ReportPage) -> None:
+    """Expected covered demand from the travel-time spread, beside the deterministic figure (numbers from the run)."""
+    run, rep = page.run, page.rep
+    rep.add_heading("Covered demand with the travel-time spread")
+    rep.add_paragraph(
+        f"Travel times scatter around the modelled ones (spread fit {run.study.spread.source}, after Budge, "
+        "Ingolfsson & Zerom 2010). 'covered' is the deterministic figure: demand whose modelled travel time is "
+        "within the standard. 'expected covered' weights each point's demand by its chance of arriving within the "
+        "standard (lognormal, by route-length band). Both are planning estimates of the same model."
+    )
+    cols = ["standard", "demand", "covered", "covered_share", "expected_covered", "expected_covered_share"]
+    _table(rep, run.summary[cols].rename(columns={"demand": "demand layer"}), "Deterministic and expected cover")
+
+
 def simulation_section(page: ReportPage) -> None:
     """The simulation beside the drive-time and hypercube figures (:mod:`coverkit.report.simulate_report`)."""
     from coverkit.report.simulate_report import add_simulation, beside_table
@@ -378,6 +392,7 @@ REPORT_SECTIONS: tuple[ReportSection, ...] = (
     ReportSection("assumptions", _assumptions),
     ReportSection("web_map", _web_map),
     ReportSection("summary", _summary),
+    ReportSection("expected_cover", _expected_cover, lambda run: "expected_covered" in run.summary.columns),
     ReportSection("standards", _standards),
     ReportSection("siting", _siting, lambda run: run.site_plan is not None),
     ReportSection("availability", _availability, lambda run: run.availability is not None),

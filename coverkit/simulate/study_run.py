@@ -42,8 +42,13 @@ def with_observed_spread(study, net, bases, cfg: settings.SimulationSettings) ->
 
 def study_settings(study, net, bases, overrides: dict) -> settings.SimulationSettings:
     """The settings a study's simulation runs with: ``[simulation]``, the caller's overrides, and the travel spread
-    from ``[calibration]``'s observed trips when neither sets it."""
+    from the study's ``[travel_spread]`` fit, else ``[calibration]``'s observed trips, when neither sets it."""
     cfg = simulation_settings(study, **overrides)
+    if getattr(study, "spread", None) is not None and not spread_is_given(study, overrides):
+        from coverkit.simulate.travel_spread import travel_cv_from_spread
+
+        cv = travel_cv_from_spread(study.spread)
+        return dataclasses.replace(cfg, travel_cv=cv, travel_cv_source=f"the spread fit {study.spread.source}")
     if study.calibration and not spread_is_given(study, overrides):
         cfg = with_observed_spread(study, net, bases, cfg)
     return cfg

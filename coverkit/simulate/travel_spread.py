@@ -5,6 +5,10 @@ the engine's base-to-point time on the study's network. The residual is ``ln(obs
 standard deviation ``sigma`` is the spread of a lognormal multiplier, whose coefficient of variation is
 ``sqrt(exp(sigma^2) - 1)`` (lognormal moments). Only the spread is taken: the multiplier keeps mean 1, since a
 systematic bias is the calibration's job (fitted speed factors), not noise.
+
+The fit itself (``mu`` and ``sigma`` of the residuals per route-length band, with standard errors) is
+:func:`coverkit.spread.fit_spread`, the one home shared with the coverage probabilities; the simulation draws one
+multiplier per trip from the spread of all trips (:func:`travel_cv_from_spread`).
 """
 
 from __future__ import annotations
@@ -16,6 +20,7 @@ import shapely
 from coverkit.coverage import travel_table
 from coverkit.errors import FieldError
 from coverkit.network.model import RoadNetwork
+from coverkit.spread import SpreadFit, fit_spread
 
 
 def lognormal_cv(log_residuals: np.ndarray) -> float:
@@ -24,8 +29,22 @@ def lognormal_cv(log_residuals: np.ndarray) -> float:
     >>> round(lognormal_cv(np.array([-0.1, 0.1])), 4)  # sigma = 0.1414: sqrt(exp(0.02) - 1)
     0.1421
     """
-    sigma = float(np.std(log_residuals, ddof=1))
+    return cv_of_sigma(float(np.std(log_residuals, ddof=1)))
+
+
+def cv_of_sigma(sigma: float) -> float:
+    """Coefficient of variation ``sqrt(exp(sigma^2) - 1)`` of a lognormal with log-scale spread ``sigma``
+    (lognormal moments).
+
+    >>> round(cv_of_sigma(0.5), 4)
+    0.5329
+    """
     return float(np.sqrt(np.expm1(sigma * sigma)))
+
+
+def travel_cv_from_spread(fit: SpreadFit) -> float:
+    """The multiplier's coefficient of variation from a calibration's spread fit (its all-trips ``sigma``)."""
+    return cv_of_sigma(fit.sigma_all)
 
 
 def travel_cv_from_observed(net: RoadNetwork, bases: gpd.GeoDataFrame, observed, max_snap_m: float) -> float:
@@ -42,4 +61,5 @@ def travel_cv_from_observed(net: RoadNetwork, bases: gpd.GeoDataFrame, observed,
     ok = (modelled > 0) & (obs > 0)
     if ok.sum() < 3:
         raise FieldError("fewer than 3 observed trips match a modelled route; give the travel spread instead.")
-    return lognormal_cv(np.log(obs[ok] / modelled[ok]))
+    # no route lengths here: every trip in the first band; only the all-trips sigma is used
+    return travel_cv_from_spread(fit_spread(obs[ok], modelled[ok], np.zeros(int(ok.sum()))))
