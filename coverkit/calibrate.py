@@ -47,6 +47,7 @@ from coverkit.atomic import atomic_path, write_text_atomic
 from coverkit.distance_bands import DEFAULT_BANDS_KM, band_labels, band_of, check_bands
 from coverkit.distance_time import KolesarFit, fit_kolesar, kolesar_time_s
 from coverkit.errors import FieldError, InputFileError, ModelError, OffNetworkError, ProfileError
+from coverkit.network.hour_bands import iso_weekdays
 from coverkit.network.model import RoadNetwork
 from coverkit.network.profile import ClassSpeed, Profile, load_profile, profile_to_toml
 from coverkit.network.timing import edge_times
@@ -97,7 +98,8 @@ def read_observed(
     ----------
     path
         CSV with columns ``base_id``, ``lon``, ``lat`` (incident position, degrees, EPSG:4326), ``observed_s``
-        (seconds from leaving the base to arrival) and optionally ``hour`` (0-23, hour of day).
+        (seconds from leaving the base to arrival) and optionally ``hour`` (0-23, hour of day) and ``weekday``
+        (1-7, ISO 8601 Monday = 1, or an English day name such as ``Mon`` or ``Monday``).
     base_ids
         Known base ids; a row naming another base is an error. ``None`` skips the check.
     bases_name
@@ -111,7 +113,8 @@ def read_observed(
     -------
     pandas.DataFrame
         Columns ``line`` (CSV line number, header = 1), ``base_id`` (str), ``lon``, ``lat``, ``observed_s``
-        (float) and ``hour`` (Int64, missing as <NA>), in file order; ``attrs["rejected"]`` (a
+        (float), ``hour`` and ``weekday`` (Int64, ISO 8601 Monday = 1 ... Sunday = 7; missing as <NA>), in file
+        order; ``attrs["rejected"]`` (a
         :class:`~coverkit.travel.points.RejectedRows`, ``id`` = base id) for the rows left out.
 
     Raises
@@ -158,6 +161,7 @@ def read_observed(
         raise FieldError(f"{path}: line {line[i]} has no base_id; name the base each trip left from.")
     obs = _observed_seconds(path, df, line)
     hour = _observed_hours(path, df, line)
+    weekday = _observed_weekdays(path, df, line)
     if base_ids is not None:
         _check_base_ids(path, base, line, base_ids, bases_name)
     out = pd.DataFrame(
@@ -168,6 +172,7 @@ def read_observed(
             "lat": lat,
             "observed_s": obs,
             "hour": hour,
+            "weekday": weekday,
         }
     )
     out.attrs["rejected"] = RejectedRows(rejected_table(rejected), rows_read)
@@ -209,6 +214,19 @@ def _observed_hours(path: Path, df: pd.DataFrame, line: np.ndarray) -> pd.api.ex
             )
         hour = pd.array(np.where(given, val, np.nan), dtype="Float64").astype("Int64")
     return hour
+
+
+def _observed_weekdays(path: Path, df: pd.DataFrame, line: np.ndarray) -> pd.api.extensions.ExtensionArray:
+    """The optional ``weekday`` column as Int64 ISO weekdays (<NA> where empty or absent)."""
+    if "weekday" not in df.columns:
+        return pd.array([pd.NA] * len(df), dtype="Int64")
+    days, bad = iso_weekdays(df["weekday"].tolist())
+    if bad is not None:
+        raise FieldError(
+            f"{path}: line {line[bad]} has weekday '{df['weekday'].iloc[bad]}'; give 1-7 (ISO 8601, Monday = 1), "
+            "a day name such as Mon, or leave it empty."
+        )
+    return pd.array(np.where(days > 0, days, np.nan), dtype="Float64").astype("Int64")
 
 
 def _check_base_ids(path: Path, base: pd.Series, line: np.ndarray, base_ids: Iterable[str], bases_name: str) -> None:
@@ -1113,6 +1131,14 @@ def calibrate_files(
     ``max_rejected_share`` goes to :func:`read_observed`; ``options`` are the keyword options of
     :func:`calibrate_speeds` (``source`` is set to the observed file name).
     """
+    net, bases, observed = calibration_inputs(network_path, observed_path, bases_path, max_rejected_share)
+    return calibrate_speeds(net, bases, observed, profile, source=Path(observed_path).name, **options)
+
+
+def calibration_inputs(
+    network_path: str | Path, observed_path: str | Path, bases_path: str | Path, max_rejected_share: float
+) -> tuple[RoadNetwork, gpd.GeoDataFrame, pd.DataFrame]:
+    """The network, the bases and the checked observations a calibration from files reads."""
     net = RoadNetwork.load(network_path)
     bases = read_points(bases_path, net.crs, what="bases")
     observed = read_observed(
@@ -1121,7 +1147,7 @@ def calibrate_files(
         bases_name=Path(bases_path).name,
         max_rejected_share=max_rejected_share,
     )
-    return calibrate_speeds(net, bases, observed, profile, source=Path(observed_path).name, **options)
+    return net, bases, observed
 
 
 # ------------------------------------------------------------------------------------------------------------------

@@ -227,8 +227,13 @@ def compare_study(
     out_folder: str | Path,
     cell_m: float | None = None,
     reach_m: float | None = None,
+    *,
+    at: str | None = None,
 ) -> CompareRun:
     """Run a study's coverage before and after a scenario, compare, and write layers and a table.
+
+    ``at`` (a time of day ``HH:MM`` or an hour band's name) times the study's network for that moment first
+    (:func:`coverkit.network.hour_bands.network_at`).
 
     Writes ``compare.gpkg`` (layers ``bases_before``, ``bases_after``, ``closed_roads``, ``slowed_roads``,
     ``comparison``, ``about`` and per standard ``change_points_<demand>_<standard>``,
@@ -243,10 +248,14 @@ def compare_study(
     # created (holding at most the network cache), so a rejected scenario leaves nothing behind
     load_study(study_path)
     scenario = load_scenario(scenario_path)
+    if at and ":" in at:
+        from coverkit.network.hour_bands import parse_at
+
+        parse_at(at)
     created = not out.exists()
     out.mkdir(parents=True, exist_ok=True)
     try:
-        return _compare(study_path, scenario, out, cell_m, reach_m, steps)
+        return _compare(study_path, scenario, out, cell_m, reach_m, steps, at)
     except CoverkitError:
         if created:
             shutil.rmtree(out, ignore_errors=True)
@@ -260,9 +269,14 @@ def _compare(
     cell_m: float | None,
     reach_m: float | None,
     steps: Steps,
+    at: str | None = None,
 ) -> CompareRun:
     inputs = study_inputs(study_path, cache_folder=out)
     study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
+    if at:
+        from coverkit.network.hour_bands import network_at
+
+        net = network_at(net, at)
     kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]
     steps.step("coverage before")
     base_snap_m = study.bases.snap_m

@@ -33,6 +33,11 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--hours", help="only observations in these hours of day, e.g. 7-19 or 0,1,2")
     p.add_argument(
+        "--hour-bands",
+        help="fit speed factors per road class for these hour bands, e.g. am=7-9@weekday,pm=16-18@weekday "
+        "(default: the starting profile's [hour_bands], when the rows carry hours)",
+    )
+    p.add_argument(
         "--max-rejected",
         type=share,
         default=DEFAULT_MAX_REJECTED_SHARE,
@@ -63,22 +68,31 @@ def _hours(text: str | None) -> list[int] | None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``coverkit calibrate`` on the parsed ``args``; the exit status (0)."""
-    from coverkit.calibrate import calibrate_files, calibration_chart, summary_text, write_calibrated_profile
+    from coverkit.calibrate import calibration_chart, summary_text, write_calibrated_profile
+    from coverkit.calibrate_hours import HourBandCalibration, calibrate_files_by_hour, hour_band_lines
+    from coverkit.network.hour_bands import parse_band_spec
 
-    result = calibrate_files(
+    bands = parse_band_spec(args.hour_bands) if args.hour_bands else None
+    result = calibrate_files_by_hour(
         args.network,
         args.observed,
         args.bases,
         args.profile,
+        bands=bands,
         hours=_hours(args.hours),
         max_rejected_share=args.max_rejected,
     )
+    banded = None
+    if isinstance(result, HourBandCalibration):
+        banded, result = result, result.result()
     from coverkit.spread import write_spread
 
     spread_out = args.spread_out or args.out.with_name(f"{args.out.stem}_spread.csv")
     write_calibrated_profile(result, args.out)
     write_spread(result.spread, spread_out)
     print(summary_text(result))
+    if banded is not None:
+        print("\n".join(hour_band_lines(banded)))
     if args.chart:
         calibration_chart(result, args.chart)
     print(f"\nwrote {args.out}, {spread_out}" + (f" and {args.chart}" if args.chart else ""))

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from coverkit import CAUTION
-from coverkit.cli.options import common
+from coverkit.cli.options import common, time_of_day
 from coverkit.cli.options import compute as compute_options
 
 NAME = "compare"
@@ -23,6 +23,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("study", type=Path, help="study TOML file")
     p.add_argument("scenario", type=Path, help="scenario TOML file (see examples/scenarios/)")
     p.add_argument("--out", "-o", type=Path, required=True, help="output folder")
+    time_of_day(p)
     common(p)
     compute_options(p)
 
@@ -32,7 +33,7 @@ def run(args: argparse.Namespace) -> int:
     from coverkit.compare_run import compare_study
     from coverkit.report.compare_report import write_compare_report
 
-    run = compare_study(args.study, args.scenario, args.out)
+    run = compare_study(args.study, args.scenario, args.out, at=args.at)
     run.outputs.update(write_compare_report(run, args.out))
     print("\n".join(line for line in run.lines() if line != CAUTION))
     print(f"\nwrote {run.outputs['layers']}, {run.outputs['table']} and {run.outputs['report']}")

@@ -13,6 +13,7 @@ from coverkit.cli.options import (
     points_options,
     positive_float,
     rejected_layer,
+    time_of_day,
 )
 from coverkit.cli.options import compute as compute_options
 from coverkit.layer_names import demand_name_of, layer_name, single_standard_name
@@ -71,6 +72,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         "the standard and the expected covered demand",
     )
     points_options(p)
+    time_of_day(p)
     common(p)
     compute_options(p)
 

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from coverkit import CAUTION, settings
-from coverkit.cli.options import common, minutes_list, network_and_bases, points_options, positive_float
+from coverkit.cli.options import common, minutes_list, network_and_bases, points_options, positive_float, time_of_day
 from coverkit.cli.options import compute as compute_options
 
 NAME = "isochrones"
@@ -55,6 +55,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         help="out: from base; in: to base (default %(default)s)",
     )
     points_options(p)
+    time_of_day(p)
     common(p)
     compute_options(p)
 

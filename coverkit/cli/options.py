@@ -150,12 +150,32 @@ def points_options(p: argparse.ArgumentParser) -> None:
     )
 
 
+def time_of_day(p: argparse.ArgumentParser) -> None:
+    """``--at``: time the network for a moment of the day (the profile's hour bands)."""
+    p.add_argument(
+        "--at",
+        help="time of day HH:MM (optionally after a day, 'sat 08:15'), or an hour band's name: edge times scaled "
+        "by the profile's hour-band speed factors (default: the profile's own times)",
+    )
+
+
 def network_and_bases(args: argparse.Namespace):
-    """The saved network and the bases projected to its CRS (commands taking NETWORK and --bases)."""
+    """The saved network and the bases projected to its CRS (commands taking NETWORK and --bases); with ``--at``,
+    the network retimed for that moment (:func:`coverkit.network.hour_bands.network_at`, the one shared stage)."""
     from coverkit.network import RoadNetwork
+    from coverkit.network.hour_bands import network_at, parse_at
     from coverkit.travel import read_points
 
+    at = getattr(args, "at", None)
+    if at and ":" in at:
+        parse_at(at)  # a bad time fails before the network is read
     net = RoadNetwork.load(args.network)
+    if at:
+        timed = network_at(net, at)
+        changes = timed.info.get("changes", [])
+        said = changes[-1] if timed is not net and changes else "outside every hour band: the profile's own times"
+        print(f"at {at}: {said}")
+        net = timed
     return net, read_points(args.bases, net.crs, id_field=args.id_field, what="bases")
 
 

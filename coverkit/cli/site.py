@@ -15,6 +15,7 @@ from coverkit.cli.options import (
     points_options,
     positive_float,
     rejected_layer,
+    time_of_day,
 )
 from coverkit.cli.options import compute as compute_options
 from coverkit.layer_names import demand_name_of, layer_name, map_file, single_standard_name, table_file
@@ -67,6 +68,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         help="GeoPackage to write (layers site_chosen, site_ranking, site_curve, ...)",
     )
     points_options(p)
+    time_of_day(p)
     common(p)
     compute_options(p)
 

@@ -32,6 +32,7 @@ _TOP_KEYS = {
     "against_oneway_classes",
     "private_access",
     "speeds",
+    "hour_bands",
 }
 _CLASS_KEYS = {"default_kph", "factor", "cap_kph"}
 
@@ -93,6 +94,7 @@ class Profile:
     private_access: bool = False
     description: str = ""
     source_text: str = field(default="", repr=False, compare=False)
+    hour_bands: tuple = ()  # HourBand tables (coverkit.network.hour_bands): speed factors by time of day
 
     @property
     def road_classes(self) -> list[str]:
@@ -138,6 +140,10 @@ def profile_to_toml(profile: Profile, header: str = "") -> str:
         if math.isfinite(rule.cap_kph):
             lines.append(f"cap_kph = {rule.cap_kph!r}")
         lines.append("")
+    if profile.hour_bands:
+        from coverkit.network.hour_bands import hour_bands_toml
+
+        lines.append(hour_bands_toml(profile.hour_bands))
     return "\n".join(lines)
 
 
@@ -233,6 +239,11 @@ def profile_from_dict(data: dict, where: str = "profile", source_text: str = "")
     name = data.get("name", Path(where).stem)
     if not isinstance(name, str) or not name:
         raise ProfileError(f"{where}: key 'name' must be a non-empty string.")
+    hour_bands = ()
+    if "hour_bands" in data:
+        from coverkit.network.hour_bands import hour_bands_from_dict
+
+        hour_bands = hour_bands_from_dict(data["hour_bands"], list(speeds), where)
     return Profile(
         name=name,
         speeds=speeds,
@@ -243,6 +254,7 @@ def profile_from_dict(data: dict, where: str = "profile", source_text: str = "")
         private_access=private,
         description=str(data.get("description", "")),
         source_text=source_text,
+        hour_bands=hour_bands,
     )
 
 

@@ -59,3 +59,19 @@ def edge_times(
     delay_s = np.where(np.asarray(signal_at_end, dtype=bool), profile.signal_delay_s, 0.0)
     travel_s = np.asarray(length_m, dtype=float) / (speed_kph / 3.6) * factor + delay_s
     return EdgeTimes(speed_kph, delay_s, travel_s)
+
+
+def scaled_running_s(travel_s: np.ndarray, delay_s: np.ndarray, factor: np.ndarray) -> np.ndarray:
+    """Edge travel times (s) with the running part's speed multiplied by ``factor`` (delays kept).
+
+    ``(travel_s - delay_s) / factor + delay_s``: the running time is ``length / speed``, so a speed ``factor``
+    times higher takes ``1 / factor`` of it; ``inf`` (a closed edge) stays ``inf``. Used by the time-of-day
+    retiming (:mod:`coverkit.network.hour_bands`).
+
+    >>> scaled_running_s(np.array([70.0, np.inf]), np.array([10.0, 0.0]), np.array([0.5, 0.5])).tolist()
+    [130.0, inf]
+    """
+    travel_s = np.asarray(travel_s, dtype=float)
+    with np.errstate(invalid="ignore"):
+        out = (travel_s - delay_s) / factor + delay_s
+    return np.where(np.isfinite(travel_s), out, np.inf)
