@@ -48,6 +48,7 @@ KINDS: dict[str, tuple[str, str]] = {
     "availability_summary": ("availability_summary", "call rate, offered load, chance all units are busy"),
     "calibration_classes": ("calibration_classes", "fitted speed factor per road class"),
     "calibration_errors": ("calibration_errors", "errors before and after, by route length"),
+    "period_compliance": ("period_compliance", "compliance of each standard and demand layer per time-of-day period"),
     "calibration_spread": ("calibration_spread", "travel-time spread: ln(observed/modelled) by route length, with SEs"),
     "bases_before": ("bases_before", "comparison: bases before the scenario"),
     "bases_after": ("bases_after", "comparison: bases after the scenario"),

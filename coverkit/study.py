@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -118,6 +118,7 @@ SCHEMA: dict[str, Schema] = {
     },
     "calibration": {"observed": (str, True), "hours": (list, False)},
     "travel_spread": {"file": (str, True)},
+    "period": {"name": (str, True), "at": (str, True)},
     "simulation": {
         **{k: (str, False) for k in ("calls", "service_dist", "service_field", "queue", "time_field", "demand")},
         **{k: (_NUM, False) for k in ("hours", "calls_per_h", "service_min", "service_cv", "turnout_s")},
@@ -138,7 +139,7 @@ SCHEMA: dict[str, Schema] = {
         "report": (bool, False),
     },
 }
-LIST_SECTIONS = {"demand", "standard"}
+LIST_SECTIONS = {"demand", "standard", "period"}
 REQUIRED_SECTIONS = ("study", "roads", "bases", "demand", "standard")
 DEMAND_KINDS = settings.DEMAND_KINDS
 
@@ -166,6 +167,7 @@ class Study:
     compute: ComputeSettings | None = None
     simulation: settings.SimulationSettings | None = None
     spread: SpreadFit | None = None
+    periods: list[tuple[str, str]] = field(default_factory=list)  # [[period]]: (name, at), in file order
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -276,6 +278,7 @@ def load_study(path: str | Path) -> Study:
         _compute_settings(raw, where),
     )
     study.simulation = settings.SimulationSettings.from_table(raw["simulation"]) if "simulation" in raw else None
+    study.periods = _periods(raw, study, where)
     if "travel_spread" in raw:
         from coverkit.spread import read_spread
 
@@ -287,6 +290,26 @@ def load_study(path: str | Path) -> Study:
         study.standard_named(study.availability.standard, "availability.standard")
         study.demand_named(study.availability.demand, "availability.demand", "incidents")
     return study
+
+
+def _periods(raw: dict[str, Any], study: Study, where: str) -> list[tuple[str, str]]:
+    """The [[period]] list: unique names, each ``at`` a time of day or an hour band of the study's profile."""
+    from coverkit.network.hour_bands import band_at
+    from coverkit.network.profile import load_profile
+
+    periods = [(str(p["name"]), str(p["at"])) for p in raw.get("period", [])]
+    if not periods:
+        return []
+    names = [n for n, _ in periods]
+    if len(set(names)) < len(names):
+        raise StudyError(f"{where}: [[period]] names must differ; '{names[0]}' is used twice or more.")
+    profile = load_profile(study.roads.profile)
+    for name, at in periods:
+        try:
+            band_at(profile, at, param="at")
+        except CoverkitError as exc:
+            raise StudyError(f"{where}: [[period]] '{name}': {exc.worded('period.at')}") from None
+    return periods
 
 
 def _compute_settings(raw: dict[str, Any], where: str) -> ComputeSettings | None:
@@ -456,6 +479,7 @@ class StudyRun:
     availability_stage: AvailabilityStage | None = None
     calibration_stage: CalibrationStage | None = None
     simulation: Any = None  # coverkit.simulate.run.SimulationRun when the study has [simulation]
+    periods: pd.DataFrame | None = None  # compliance per [[period]] (time of day), side by side
 
     @property
     def site_plan(self) -> SitePlan | None:
@@ -692,6 +716,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     )
     runs = _coverage_runs(study, net, bases, demand, kinds, snaps, zones)
     summary = pd.DataFrame([row for run in runs for row in run.summary_rows()])
+    periods = _period_table(study, net, bases, demand, kinds, snaps, zones) if study.periods else None
     site_plan = _study_siting(study, net, bases, demand, snaps) if study.siting else None
     avail = _study_availability(study, net, bases, demand, snaps) if study.availability else None
     calibration = _study_calibration(study, net, bases) if study.calibration else None
@@ -708,6 +733,8 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         if stage is not None:
             layers.update(stage.layers())
     layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
+    if periods is not None:
+        layers[layer_name("period_compliance")] = periods
     outputs = _write_outputs(folder, surface_path, layers, summary, site_plan, calibration)
     if simulation is not None:
         from coverkit.simulate.outputs import write_simulation
@@ -730,9 +757,29 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         avail,
         calibration,
         simulation=simulation,
+        periods=periods,
     )
 
     return result
+
+
+def _period_table(study: Study, net: RoadNetwork, bases, demand, kinds, snaps, zones) -> pd.DataFrame:
+    """Compliance of every standard and demand layer in each [[period]]: the coverage stages on the network timed
+    for that moment (:func:`coverkit.network.hour_bands.network_at`, the stage the commands' ``at`` uses)."""
+    import pandas as pd
+
+    from coverkit.network.hour_bands import network_at
+
+    rows = []
+    for name, at in study.periods:
+        timed = network_at(net, at)
+        band = timed.info.get("changes", [""])[-1] if timed is not net else "outside every hour band"
+        for run in _coverage_runs(study, timed, bases, demand, kinds, snaps, zones):
+            for r in run.summary_rows():
+                row = {"period": name, "at": at, "timing": band, "standard": r["standard"], "demand": r["demand"]}
+                keep = ("covered", "covered_share", "fractile_response_s", "meets_standard", "expected_covered_share")
+                rows.append(row | {k: r[k] for k in keep if k in r})
+    return pd.DataFrame(rows)
 
 
 def _coverage_runs(

@@ -210,3 +210,59 @@ def test_bad_hour_bands_are_one_line_errors(tmp_path, capsys):
     code = main(["calibrate", "missing.gpkg", "--observed", "o.csv", "--bases", "b.csv", "--out", str(out),
                  "--hour-bands", "am=9", "--quiet"])  # fmt: skip
     assert code == 2 and "--hour-bands" in capsys.readouterr().err and not out.exists()
+
+
+def _demo_banded_profile(folder):
+    """The shipped emergency profile with a weekday morning band (factors: our test values)."""
+    from importlib import resources
+
+    text = (resources.files("coverkit.network") / "profiles" / "emergency.toml").read_text()
+    band = '\n[hour_bands.am]\ndays = "weekday"\nstart_h = 7\nend_h = 9\n'
+    band += "factors = { primary = 0.6, secondary = 0.6, tertiary = 0.7, residential = 0.8 }\n"
+    path = folder / "banded.toml"
+    path.write_text(text + band)
+    return path
+
+
+def _period_study(folder, periods: str):
+    from tests.conftest import DEMO, demo_study_head
+
+    head = demo_study_head("periods").replace("[bases]", f'profile = "{_demo_banded_profile(folder)}"\n[bases]')
+    path = folder / "study.toml"
+    path.write_text(
+        head
+        + f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\nkind = "incidents"\n'
+        + '[[standard]]\nname = "8 min"\ntravel_s = 480\n'
+        + f'[outputs]\nfolder = "{folder / "out"}"\nmaps = false\nisochrone_minutes = [8]\n'
+        + periods
+    )
+    return path
+
+
+def test_a_study_reports_compliance_per_period_side_by_side(tmp_path):
+    """Each period's figures equal the coverage stage on the network timed by network_at (the --at stage)."""
+    from coverkit.report.study_report import report_study
+    from coverkit.stages import coverage_stage
+    from coverkit.study import load_inputs, run_study
+
+    periods = '[[period]]\nname = "night"\nat = "03:00"\n[[period]]\nname = "morning"\nat = "mon 08:00"\n'
+    run = run_study(_period_study(tmp_path, periods))
+    p = run.periods.set_index("period")
+    assert list(p.index) == ["night", "morning"]
+    assert p.loc["night", "covered_share"] == pytest.approx(run.summary["covered_share"].iloc[0])
+    bases, demand, _, _ = load_inputs(run.study, run.network)
+    stage = coverage_stage(network_at(run.network, "08:00"), bases, demand, run.study.standards[0])
+    assert p.loc["morning", "covered_share"] == pytest.approx(stage.summary_rows()[0]["covered_share"], rel=1e-12)
+    assert p.loc["morning", "covered_share"] < p.loc["night", "covered_share"]  # slower roads, less cover
+    page = report_study(run)["report"].read_text()
+    assert "Compliance by time of day" in page and "morning" in page
+
+
+def test_a_study_with_a_bad_period_stops_in_one_line(tmp_path):
+    from coverkit.errors import StudyError
+    from coverkit.study import load_study
+
+    for at, word in (("25:00", "not a time of day"), ("rush", "neither HH:MM nor an hour band")):
+        with pytest.raises(StudyError, match=word) as err:
+            load_study(_period_study(tmp_path, f'[[period]]\nname = "x"\nat = "{at}"\n'))
+        assert len(str(err.value).splitlines()) == 1 and "period.at" in str(err.value)

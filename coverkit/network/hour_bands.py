@@ -206,6 +206,8 @@ def band_at(profile: Profile, when: Moment | str, *, param: str = "at") -> HourB
         named = {b.name: b for b in bands}
         if when in named:
             return named[when]
+        if ":" in when:
+            return band_at(profile, parse_at(when, param=param), param=param)
         try:
             when = parse_at(when, param=param)
         except FieldError:

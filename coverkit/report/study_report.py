@@ -364,6 +364,22 @@ def _expected_cover(page: ReportPage) -> None:
     _table(rep, run.summary[cols].rename(columns={"demand": "demand layer"}), "Deterministic and expected cover")
 
 
+def _periods(page: ReportPage) -> None:
+    """Compliance per time-of-day period, side by side (numbers from the run)."""
+    run, rep = page.run, page.rep
+    rep.add_heading("Compliance by time of day")
+    rep.add_paragraph(
+        "Each [[period]] times the network for its moment with the profile's hour-band speed factors (edge times "
+        "of each road class scaled); the coverage is then computed as above. Covered share per period:"
+    )
+    p = run.periods
+    wide = p.pivot_table(index=["standard", "demand"], columns="period", values="covered_share", sort=False)
+    wide = wide[[n for n, _ in run.study.periods]].reset_index().rename(columns={"demand": "demand layer"})
+    wide.columns = [str(c) if c in ("standard", "demand layer") else f"{c}_share" for c in wide.columns]
+    _table(rep, wide, "Covered share per period")
+    _table(rep, p[["period", "at", "timing"]].drop_duplicates(), "How each period was timed")
+
+
 def simulation_section(page: ReportPage) -> None:
     """The simulation beside the drive-time and hypercube figures (:mod:`coverkit.report.simulate_report`)."""
     from coverkit.report.simulate_report import add_simulation, beside_table
@@ -393,6 +409,7 @@ REPORT_SECTIONS: tuple[ReportSection, ...] = (
     ReportSection("web_map", _web_map),
     ReportSection("summary", _summary),
     ReportSection("expected_cover", _expected_cover, lambda run: "expected_covered" in run.summary.columns),
+    ReportSection("periods", _periods, lambda run: run.periods is not None),
     ReportSection("standards", _standards),
     ReportSection("siting", _siting, lambda run: run.site_plan is not None),
     ReportSection("availability", _availability, lambda run: run.availability is not None),
