@@ -266,3 +266,22 @@ def test_a_study_with_a_bad_period_stops_in_one_line(tmp_path):
         with pytest.raises(StudyError, match=word) as err:
             load_study(_period_study(tmp_path, f'[[period]]\nname = "x"\nat = "{at}"\n'))
         assert len(str(err.value).splitlines()) == 1 and "period.at" in str(err.value)
+
+
+def test_compare_at_a_time_of_day_starts_from_the_timed_network(tmp_path, capsys):
+    """`compare --at`: the 'before' figures are the coverage stage on the network timed by network_at."""
+    from coverkit.stages import coverage_stage
+    from coverkit.study import load_inputs, run_study
+    from tests.conftest import REPO
+
+    study = _period_study(tmp_path, "")
+    scenario = REPO / "examples" / "scenarios" / "station-s3-closed.toml"
+    out = tmp_path / "cmp"
+    assert main(["compare", str(study), str(scenario), "--out", str(out), "--at", "tue 07:30", "--quiet"]) == 0
+    assert "hour band am" in capsys.readouterr().out
+    table = pd.read_csv(out / "comparison.csv")
+    run = run_study(study)
+    bases, demand, _, _ = load_inputs(run.study, run.network)
+    stage = coverage_stage(network_at(run.network, "07:30"), bases, demand, run.study.standards[0])
+    assert table["covered_share_before"].iloc[0] == pytest.approx(stage.summary_rows()[0]["covered_share"], rel=1e-12)
+    assert table["covered_share_before"].iloc[0] < run.summary["covered_share"].iloc[0]

@@ -35,6 +35,9 @@ def run(args: argparse.Namespace) -> int:
 
     run = compare_study(args.study, args.scenario, args.out, at=args.at)
     run.outputs.update(write_compare_report(run, args.out))
+    if args.at:
+        timed = [c for c in run.network_before.info.get("changes", []) if c.startswith("timed for hour band")]
+        print(f"at {args.at}: " + (timed[-1] if timed else "outside every hour band: the profile's own times"))
     print("\n".join(line for line in run.lines() if line != CAUTION))
     print(f"\nwrote {run.outputs['layers']}, {run.outputs['table']} and {run.outputs['report']}")
     print(CAUTION)
