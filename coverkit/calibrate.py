@@ -1202,8 +1202,9 @@ def write_calibrated_profile(result: CalibrationResult, out_toml: str | Path) ->
     return write_text_atomic(out, calibrated_profile_toml(result))
 
 
-def summary_text(result: CalibrationResult) -> str:
-    """A one-screen summary: observations used, factors per class, errors before and after by band."""
+def summary_text(result: CalibrationResult, extra: Sequence[str] = ()) -> str:
+    """A one-screen summary: observations used, factors per class, errors before and after by band (then the
+    ``extra`` lines, e.g. the hour bands, before the caution)."""
     lines = [
         f"observations  {result.n_used} used of {result.n_rows} ({result.n_off_network} off-network, "
         f"{result.n_unreachable} unreachable"
@@ -1238,7 +1239,7 @@ def summary_text(result: CalibrationResult) -> str:
             f"{k.cruise_kph:.1f} km/h, critical distance {k.critical_m:.0f} m, RMSE {k.rmse_s:.0f} s"
         )
     lines += _spread_lines(result)
-    lines += ["", coverkit.CAUTION]
+    lines += [*extra, "", coverkit.CAUTION]
     return "\n".join(lines)
 
 

@@ -66,7 +66,7 @@ SCHEMA: dict[str, Schema] = {
         "buffer_m": (_NUM, False),
         "profile": (str, False),
         "crs": (str, False),
-        "fields": (dict, False),
+        "fields": ((dict, str), False),  # a table, or a field mapping text such as "ng911"
         "layer": (str, False),
     },
     "bases": {"file": (str, True), "id_field": (str, False), "snap_m": (_NUM, False), "layer": (str, False)},
@@ -350,6 +350,13 @@ def _roads_and_bases(raw: dict[str, Any], folder: Path, where: str) -> tuple[dic
         roads["boundary"] = str(_file(folder, roads["boundary"], "roads.boundary", where))
     if "profile" in roads and (roads["profile"].endswith(".toml") or "/" in roads["profile"]):
         roads["profile"] = str(_file(folder, roads["profile"], "roads.profile", where))
+    if isinstance(roads.get("fields"), str):  # a mapping text, e.g. "ng911" (the NENA NG9-1-1 fields)
+        from coverkit.network.centerlines import parse_fields
+
+        try:
+            roads["fields"] = parse_fields(roads["fields"])
+        except CoverkitError as exc:
+            raise StudyError(f"{where}: roads.fields: {exc}") from None
     bases = dict(raw["bases"])
     bases["file"] = str(_file(folder, bases["file"], "bases.file", where))
     return roads, bases

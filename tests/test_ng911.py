@@ -116,3 +116,27 @@ def test_readme_table_is_the_printed_one():
 
     readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
     assert "\n".join("  " + line for line in readme_table().splitlines()) in readme
+
+
+def test_a_study_may_name_the_preset(tmp_path):
+    """`[roads] fields = "ng911"` is the same mapping as the CLI's --fields ng911; a bad text is one line."""
+    from coverkit.errors import StudyError
+    from coverkit.study import load_study
+    from tests.conftest import DEMO
+
+    roads = _layer(tmp_path / "ng911.gpkg", ("RoadClass", "SpeedLimit", "OneWay"))
+
+    def study(fields: str):
+        path = tmp_path / "study.toml"
+        path.write_text(
+            f'[study]\nname = "n"\n[roads]\nsource = "{roads}"\nfields = "{fields}"\n'
+            f'[bases]\nfile = "{DEMO / "stations.csv"}"\n'
+            f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\n'
+            '[[standard]]\nname = "8 min"\ntravel_s = 480\n'
+        )
+        return path
+
+    assert load_study(study("ng911")).roads.fields == parse_fields("ng911")
+    with pytest.raises(StudyError, match="roads.fields") as err:
+        load_study(study("ng911,speed"))
+    assert len(str(err.value).splitlines()) == 1

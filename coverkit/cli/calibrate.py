@@ -90,9 +90,7 @@ def run(args: argparse.Namespace) -> int:
     spread_out = args.spread_out or args.out.with_name(f"{args.out.stem}_spread.csv")
     write_calibrated_profile(result, args.out)
     write_spread(result.spread, spread_out)
-    print(summary_text(result))
-    if banded is not None:
-        print("\n".join(hour_band_lines(banded)))
+    print(summary_text(result, hour_band_lines(banded) if banded is not None else ()))
     if args.chart:
         calibration_chart(result, args.chart)
     print(f"\nwrote {args.out}, {spread_out}" + (f" and {args.chart}" if args.chart else ""))
