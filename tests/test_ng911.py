@@ -137,6 +137,6 @@ def test_a_study_may_name_the_preset(tmp_path):
         return path
 
     assert load_study(study("ng911")).roads.fields == parse_fields("ng911")
-    with pytest.raises(StudyError, match="roads.fields") as err:
+    with pytest.raises(StudyError, match=r"roads\.fields") as err:
         load_study(study("ng911,speed"))
     assert len(str(err.value).splitlines()) == 1
