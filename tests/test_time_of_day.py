@@ -285,3 +285,28 @@ def test_compare_at_a_time_of_day_starts_from_the_timed_network(tmp_path, capsys
     stage = coverage_stage(network_at(run.network, "07:30"), bases, demand, run.study.standards[0])
     assert table["covered_share_before"].iloc[0] == pytest.approx(stage.summary_rows()[0]["covered_share"], rel=1e-12)
     assert table["covered_share_before"].iloc[0] < run.summary["covered_share"].iloc[0]
+
+
+def test_isochrones_at_a_peak_hour_reach_less_road(case, tmp_path, capsys):
+    """With every band factor below 1 the peak network is slower on every class: the polygons hold less road."""
+    prof = write_calibrated_profile(case["cal"].result(), tmp_path / "cal.toml")
+    net, _ = build_network(case["dir"] / "grid.osm", prof)
+    net_path = net.save(tmp_path / "net.gpkg")
+    base = ["isochrones", str(net_path), "--bases", str(case["dir"] / "bases.csv"), "--minutes", "2", "--quiet"]
+    assert main([*base, "--out", str(tmp_path / "noon.gpkg"), "--at", "12:00"]) == 0
+    assert main([*base, "--out", str(tmp_path / "pm.gpkg"), "--at", "thu 17:10"]) == 0
+    assert "hour band pm" in capsys.readouterr().out
+    noon = gpd.read_file(tmp_path / "noon.gpkg", layer="reach_by_base").sort_values("base_id")
+    pm = gpd.read_file(tmp_path / "pm.gpkg", layer="reach_by_base").sort_values("base_id")
+    assert np.all(pm["road_km"].to_numpy() < noon["road_km"].to_numpy())
+
+
+def test_a_bad_weekday_names_the_row(tmp_path):
+    path = tmp_path / "obs.csv"
+    path.write_text("base_id,lon,lat,observed_s,hour,weekday\nA,-35.59,40.51,100,8,Mon\nA,-35.59,40.51,100,8,Funday\n")
+    with pytest.raises(FieldError, match="line 3 has weekday 'Funday'") as err:
+        read_observed(path)
+    assert len(str(err.value).splitlines()) == 1
+    good = path.with_name("good.csv")
+    good.write_text("base_id,lon,lat,observed_s,weekday\nA,-35.59,40.51,100,7\nA,-35.59,40.51,100,\n")
+    assert read_observed(good)["weekday"].tolist() == [7, pd.NA]
