@@ -54,6 +54,10 @@ _LAZY = {
     "compare_study": "coverkit.compare_run",
     "layer_name": "coverkit.layer_names",
     "simulate": "coverkit.simulate.run",
+    "network_at": "coverkit.network.hour_bands",
+    "calibrate_hour_bands": "coverkit.calibrate_hours",
+    "fit_spread": "coverkit.spread",
+    "read_spread": "coverkit.spread",
 }
 
 __all__ = [
@@ -67,19 +71,23 @@ __all__ = [
     "area_layers",
     "build_network",
     "build_problem",
+    "calibrate_hour_bands",
     "calibrate_speeds",
     "compare_study",
     "compliance_by_zone",
     "coverage_stage",
     "drive_time_polygons",
     "evaluate_coverage",
+    "fit_spread",
     "layer_name",
     "load_demand",
     "load_profile",
     "load_scenario",
     "load_study",
+    "network_at",
     "per_base",
     "read_points",
+    "read_spread",
     "report_study",
     "run_study",
     "simulate",
@@ -90,6 +98,7 @@ __all__ = [
 
 if TYPE_CHECKING:  # for type checkers and editors; at run time the names load on first use
     from coverkit.calibrate import calibrate_speeds
+    from coverkit.calibrate_hours import calibrate_hour_bands
     from coverkit.compare_run import compare_study
     from coverkit.coverage import (
         CoverageResult,
@@ -103,10 +112,12 @@ if TYPE_CHECKING:  # for type checkers and editors; at run time the names load o
     from coverkit.isochrones import drive_time_polygons, write_travel_surface
     from coverkit.layer_names import layer_name
     from coverkit.network import RoadNetwork, build_network, load_profile
+    from coverkit.network.hour_bands import network_at
     from coverkit.report.study_report import report_study
     from coverkit.scenario import load_scenario
     from coverkit.simulate.run import simulate
     from coverkit.site_plan import build_problem, solve
+    from coverkit.spread import fit_spread, read_spread
     from coverkit.stages import coverage_stage
     from coverkit.study import load_study, run_study
     from coverkit.travel import read_points, snap_points
