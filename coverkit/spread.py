@@ -214,7 +214,12 @@ def add_arrival_probability(net: RoadNetwork, result: CoverageResult, fit: Sprea
     route_m = np.full(len(d), np.nan)
     if len(reached):
         src = np.array([base_row[b] for b in d["first_base"].astype(str).to_numpy()[reached]], dtype=np.int64)
-        routes = shortest_routes(net, result.extra["base_snap"], result.extra["demand_snap"], src, reached)
+        # bounded just past the farthest first-due time: the outbound routes wanted all end within it (an inbound
+        # coverage's outbound routes may be longer: unbounded then)
+        limit_s = float(travel[reached].max()) * (1 + 1e-9) + 1.0 if result.direction == "out" else np.inf
+        routes = shortest_routes(
+            net, result.extra["base_snap"], result.extra["demand_snap"], src, reached, limit_s=limit_s
+        )
         route_m[reached] = routes.length_m(net)
     mu, sigma = fit.band_values(route_m)
     d["first_route_m"] = route_m

@@ -85,6 +85,8 @@ def shortest_routes(
     source_index: np.ndarray,
     target_index: np.ndarray,
     chunk_size: int | None = None,
+    *,
+    limit_s: float = np.inf,
 ) -> Routes:
     """Shortest outbound routes from ``sources[source_index[k]]`` to ``targets[target_index[k]]``.
 
@@ -98,6 +100,8 @@ def shortest_routes(
         One pair per position (int arrays of equal length).
     chunk_size
         Sources per ``dijkstra`` call (default: keep the dense block under the search module's cell budget).
+    limit_s
+        Search bound (s): targets farther than it give routes that are not found (default: none).
 
     Returns
     -------
@@ -128,7 +132,7 @@ def shortest_routes(
 
     usable = sources.on_network[source_index] & targets.on_network[target_index]
     chunks = node_time_blocks(
-        net, sources, np.inf, "out", chunk_size, only=np.unique(source_index[usable]), predecessors=True
+        net, sources, limit_s, "out", chunk_size, only=np.unique(source_index[usable]), predecessors=True
     )
     for src, dist, pred in chunks:
         local = np.full(len(sources), -1, dtype=np.int64)
