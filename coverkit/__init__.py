@@ -58,6 +58,9 @@ _LAZY = {
     "calibrate_hour_bands": "coverkit.calibrate_hours",
     "fit_spread": "coverkit.spread",
     "read_spread": "coverkit.spread",
+    "read_units": "coverkit.units",
+    "place_units": "coverkit.site_units",
+    "availability_by_type": "coverkit.availability_types",
 }
 
 __all__ = [
@@ -69,6 +72,7 @@ __all__ = [
     "WhatIf",
     "__version__",
     "area_layers",
+    "availability_by_type",
     "build_network",
     "build_problem",
     "calibrate_hour_bands",
@@ -86,8 +90,10 @@ __all__ = [
     "load_study",
     "network_at",
     "per_base",
+    "place_units",
     "read_points",
     "read_spread",
+    "read_units",
     "report_study",
     "run_study",
     "simulate",
@@ -97,6 +103,7 @@ __all__ = [
 ]
 
 if TYPE_CHECKING:  # for type checkers and editors; at run time the names load on first use
+    from coverkit.availability_types import availability_by_type
     from coverkit.calibrate import calibrate_speeds
     from coverkit.calibrate_hours import calibrate_hour_bands
     from coverkit.compare_run import compare_study
@@ -117,10 +124,12 @@ if TYPE_CHECKING:  # for type checkers and editors; at run time the names load o
     from coverkit.scenario import load_scenario
     from coverkit.simulate.run import simulate
     from coverkit.site_plan import build_problem, solve
+    from coverkit.site_units import place_units
     from coverkit.spread import fit_spread, read_spread
     from coverkit.stages import coverage_stage
     from coverkit.study import load_study, run_study
     from coverkit.travel import read_points, snap_points
+    from coverkit.units import read_units
     from coverkit.whatif import WhatIf
 
 

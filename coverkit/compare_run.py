@@ -30,7 +30,7 @@ from coverkit.scenario import (
     compare_results,
     load_scenario,
 )
-from coverkit.study import Study, cached_network, load_inputs, load_study, reusable_network
+from coverkit.study import Study, cached_network, load_inputs, load_study, refuse_unit_standards, reusable_network
 from coverkit.study_errors import study_keys
 from coverkit.whatif import WhatIf
 
@@ -60,6 +60,7 @@ def study_inputs(study_path: str | Path, cache_folder: str | Path | None = None)
         ``snaps`` (``{name: snap limit m}``), ``horizon_s``.
     """
     study = load_study(study_path)
+    refuse_unit_standards(study, "a comparison or what-if")
     net = _study_network(study, cache_folder)
     bases, demand, kinds, snaps = load_inputs(study, net)
     return {
@@ -246,7 +247,7 @@ def compare_study(
     steps.step("study inputs")
     # both files are checked before the output folder exists; a run that stops on bad input removes a folder it
     # created (holding at most the network cache), so a rejected scenario leaves nothing behind
-    load_study(study_path)
+    refuse_unit_standards(load_study(study_path), "a comparison")
     scenario = load_scenario(scenario_path)
     if at and ":" in at:
         from coverkit.network.hour_bands import parse_at

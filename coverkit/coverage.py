@@ -20,6 +20,7 @@ import shapely
 from affine import Affine
 
 from coverkit import settings
+from coverkit.arrivals import check_fleet, unit_columns
 from coverkit.demand_sources import POPULATION_SOURCES
 from coverkit.errors import CoverkitError, FieldError
 from coverkit.memory import check_memory
@@ -27,6 +28,7 @@ from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
 from coverkit.travel import NO_ACCESS_CLASSES, count_within, nearest_sources, point_times, snap_points
 from coverkit.travel.reach import NodeReach, nearest_k_nodes, nearest_k_points
+from coverkit.units import Fleet
 
 #: Default search horizon beyond the standard, so response times past the standard are still measured (s).
 DEFAULT_HORIZON_S = 3600.0
@@ -63,6 +65,14 @@ class Standard:
         Share of demand (by weight) that should be reached within ``turnout_s + travel_s`` (0..1).
     source
         Where the standard comes from (e.g. ``"NFPA 1710"``), shown in reports.
+    unit_type, nth
+        Judge the ``nth`` arriving unit of this type (``"engine"``, 1: the first engine) instead of the first base
+        (needs a units table, :mod:`coverkit.units`).
+    personnel
+        Judge the time at which the staffing of the arriving units, nearest first, adds up to this many people.
+    assignment
+        Judge the time at which a whole assignment has arrived: ``(("engine", 2), ("ladder", 1))``, each unit counted
+        once (the latest of the required arrivals). At most one of ``unit_type``, ``personnel``, ``assignment``.
     """
 
     name: str
@@ -70,8 +80,43 @@ class Standard:
     turnout_s: float = settings.TURNOUT_S
     fractile: float = settings.FRACTILE
     source: str = ""
+    unit_type: str | None = None
+    nth: int = 1
+    personnel: int | None = None
+    assignment: tuple[tuple[str, int], ...] = ()
+
+    @property
+    def kind(self) -> str:
+        """What the standard judges: ``"base"`` (the first base), ``"unit_type"``, ``"personnel"`` or
+        ``"assignment"``."""
+        if self.unit_type is not None:
+            return "unit_type"
+        if self.personnel is not None:
+            return "personnel"
+        return "assignment" if self.assignment else "base"
+
+    def _check_units(self) -> None:
+        given = [k for k, v in (("unit_type", self.unit_type), ("personnel", self.personnel)) if v is not None]
+        given += ["assignment"] if self.assignment else []
+        if len(given) > 1:
+            raise CoverkitError(
+                f"standard '{self.name}' gives both {given[0]} and {given[1]}; a standard judges one of unit_type, "
+                "personnel or assignment: split it into two standards."
+            )
+        if self.nth != 1 and self.unit_type is None:
+            raise CoverkitError(f"standard '{self.name}': nth goes with unit_type (the nth unit of that type).")
+        if not (isinstance(self.nth, int | np.integer) and self.nth >= 1):
+            raise CoverkitError(f"standard '{self.name}': nth must be a whole number >= 1, got {self.nth}.")
+        if self.personnel is not None and not (self.personnel == int(self.personnel) and self.personnel > 0):
+            raise CoverkitError(f"standard '{self.name}': personnel must be a whole number > 0, got {self.personnel}.")
+        for unit_type, count in self.assignment:
+            if not (count == int(count) and count > 0):
+                raise CoverkitError(
+                    f"standard '{self.name}': assignment {unit_type} = {count}; give a whole number of units > 0."
+                )
 
     def __post_init__(self) -> None:
+        self._check_units()
         if not (self.travel_s > 0):
             raise CoverkitError(f"standard '{self.name}': travel time must be > 0 s, got {self.travel_s}.")
         if self.turnout_s < 0:
@@ -92,7 +137,27 @@ class Standard:
             else f"{self.travel_s:g} s travel"
         )
         src = f" ({self.source})" if self.source and with_source else ""
-        return f"{self.name}: {parts}, {self.fractile * 100:g} % of demand{src}"
+        return f"{self.name}: {self.judged()}{parts}, {self.fractile * 100:g} % of demand{src}"
+
+    def unreached_text(self) -> str:
+        """Words for a time not known: "not reached" (within the search horizon), or for a standard judging units,
+        whose arrivals are known up to the standard's travel time only, "beyond the standard"."""
+        return "not reached" if self.kind == "base" else "beyond the standard"
+
+    def judged(self) -> str:
+        """What arrives, in words, with a trailing ``" in "`` (empty for a plain standard).
+
+        >>> Standard("x", 240, unit_type="engine", nth=2).judged(), Standard("y", 480, personnel=15).judged()
+        ('second engine in ', '15 people on scene in ')
+        """
+        if self.kind == "unit_type":
+            nth = {1: "first", 2: "second", 3: "third"}.get(self.nth, f"{self.nth}th")
+            return f"{nth} {self.unit_type} in "
+        if self.kind == "personnel":
+            return f"{self.personnel:g} people on scene in "
+        if self.kind == "assignment":
+            return "assignment " + " + ".join(f"{n} {t}" for t, n in self.assignment) + " in "
+        return ""
 
 
 def weighted_fractile(values: np.ndarray, weights: np.ndarray | None, q: float) -> float:
@@ -347,6 +412,7 @@ def evaluate_coverage(
     table: TravelTable | None = None,
     *,
     nearest: tuple[np.ndarray, np.ndarray] | None = None,
+    fleet: Fleet | None = None,
 ) -> CoverageResult:
     """Travel from every base to every demand point; first- and second-due base, depth and coverage.
 
@@ -374,7 +440,13 @@ def evaluate_coverage(
         searches (:func:`bounded_table`).
     nearest
         ``nearest_sources(table.times, k=2)`` when the caller already has it (several standards on one table).
+    fleet
+        The units at the bases (:mod:`coverkit.units`). With it the demand gets the first arrival per type
+        (``first_<type>_s``) and the people on scene in time (``personnel_in_time``), and a standard by type or
+        force sets ``travel_s``, ``response_s`` and ``covered`` to what it judges (:mod:`coverkit.arrivals`;
+        ``inf`` past the standard's travel time). Without it nothing changes.
     """
+    check_fleet(fleet, standard)
     if table is None:
         horizon_s = float(horizon_s or default_horizon_s(standard))
         table = travel_table(
@@ -407,12 +479,29 @@ def evaluate_coverage(
         "on_network": dem_snap.on_network,
         "snap_m": dem_snap.dist_m,
     }
+    if fleet is not None:
+        cols = _with_units(cols, times, fleet, standard)
     for name, values in cols.items():
         out[name] = values
     lead = ["id", "weight", *cols]
     out = out[[*lead, *[c for c in out.columns if c not in lead]]]
     extra = {"base_snap": base_snap, "demand_snap": dem_snap, "table": table}
+    if fleet is not None:
+        extra["fleet"] = fleet
     return CoverageResult(out, bases, standard, times, horizon_s, direction, extra)
+
+
+def _with_units(cols: dict, times: sp.csr_matrix, fleet: Fleet, standard: Standard) -> dict:
+    """The demand columns with the fleet's: per-type first arrivals and people in time after ``depth``; a standard
+    by type or force judging ``travel_s``, ``response_s`` and ``covered`` (the other columns keep the bases)."""
+    unit_cols, judged = unit_columns(times, fleet, standard)
+    cols = dict(cols)
+    if judged is not None:
+        cols["travel_s"] = judged
+        cols["response_s"] = judged + standard.turnout_s
+        cols["covered"] = judged <= standard.travel_s
+    lead = {k: v for k, v in cols.items() if k not in ("on_network", "snap_m")}
+    return {**lead, **unit_cols, "on_network": cols["on_network"], "snap_m": cols["snap_m"]}
 
 
 def compliance_by(result: CoverageResult, field_name: str) -> pd.DataFrame:
@@ -692,6 +781,29 @@ def _due_areas(grid: AreaGrid, source: np.ndarray, base_ids: np.ndarray, crs: ob
     return out.iloc[order].reset_index(drop=True)
 
 
+def first_due_by_type(grid: AreaGrid, result: CoverageResult) -> gpd.GeoDataFrame | None:
+    """Per unit type of the result's fleet, the study area split by the base whose unit of that type arrives first
+    within the standard's travel time (places farther from every such unit are the row "not reached"), as
+    :attr:`AreaLayers.first_due` splits it by the first base; column ``type``. None without a fleet."""
+    from coverkit.arrivals import arrivals
+
+    fleet, std = result.extra.get("fleet"), result.standard
+    if fleet is None:
+        return None
+    arr = arrivals(times_within(grid.table.times, std.travel_s), fleet, std.travel_s)
+    base_ids = result.bases["id"].astype(str).to_numpy()
+    frames = []
+    for unit_type in fleet.types:
+        mine = fleet.type[arr.unit] == unit_type
+        pt, unit = arr.point[mine], arr.unit[mine]
+        first = np.r_[True, pt[1:] != pt[:-1]] if len(pt) else np.zeros(0, dtype=bool)
+        source = np.full(len(grid.on), -1, dtype=np.int64)
+        source[pt[first]] = fleet.base[unit[first]]
+        frames.append(_due_areas(grid, source, base_ids, result.demand.crs).assign(type=unit_type))
+    out = pd.concat(frames, ignore_index=True)
+    return gpd.GeoDataFrame(out[["type", *[c for c in out.columns if c != "type"]]], crs=result.demand.crs)
+
+
 def area_layers(
     net: RoadNetwork,
     result: CoverageResult,
@@ -740,7 +852,7 @@ def area_layers(
     depth_grid = np.full(nrow * ncol, -1, dtype=np.int32)  # -1: no road within reach
     depth_grid[on[near]] = depth_on[near]
     uncovered = np.zeros(nrow * ncol, dtype=bool)
-    uncovered[on[near]] = t[near, 0] > result.standard.travel_s
+    uncovered[on[near]] = _cell_times(grid, result, t[:, 0])[near] > result.standard.travel_s
 
     # the cell of every uncovered point (-1 outside the grid); a cell holding covered demand only stays out
     point_cells, point_unc = [], []
@@ -804,6 +916,15 @@ def area_layers(
         incident_gap_id=label_to_gap[gap_of_points[1]] if len(counted) > 1 else None,
         uncovered_outside=outside,
     )
+
+
+def _cell_times(grid: AreaGrid, result: CoverageResult, first_s: np.ndarray) -> np.ndarray:
+    """Per timed cell the travel time the standard judges: the first base's, or for a standard by type or force the
+    fleet's (:mod:`coverkit.arrivals`), so that gaps follow that standard."""
+    fleet, std = result.extra.get("fleet"), result.standard
+    if fleet is None or std.kind == "base":
+        return first_s
+    return unit_columns(times_within(grid.table.times, std.travel_s), fleet, std)[1]
 
 
 def label_regions(mask: np.ndarray) -> np.ndarray:

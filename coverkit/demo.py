@@ -57,6 +57,7 @@ FILE_NAMES = {
     "blocks": "blocks.gpkg",
     "districts": "districts.geojson",
     "stations": "stations.csv",
+    "units": "units.csv",
     "candidates": "candidates.csv",
     "incidents": "incidents.csv",
     "observed_times": "observed_times.csv",
@@ -1246,6 +1247,17 @@ _STATIONS = [
     ("S3", "Stalbury Cross", (5620.0, 8580.0), 1),
     ("S4", "Widdon Ash", (18420.0, 21930.0), 1),
 ]
+#: The mixed fleet: (unit_id, base_id, type, staffing, hours). As many units per station as its ``units``; invented
+#: crews of common sizes (4 on an engine or ladder, 2 on a medic unit, 2 in the command car; common practice).
+_UNITS = [
+    ("E1", "S1", "engine", 4, ""),
+    ("L1", "S1", "ladder", 4, ""),
+    ("C1", "S1", "command", 2, ""),
+    ("E2", "S2", "engine", 4, ""),
+    ("M2", "S2", "medic-als", 2, ""),
+    ("E3", "S3", "engine", 3, ""),
+    ("M4", "S4", "medic-als", 2, "07-19"),
+]
 _CANDIDATES = [
     ("C01", "Fennick Green hall", (3600.0, 21380.0)),
     ("C02", "Harl End yard", (3100.0, 2620.0)),
@@ -1366,6 +1378,11 @@ def _readme(facts: dict[str, object]) -> str:
         ),
         ("`districts.geojson`", f"{facts['districts']} planning zones, field `district` (name)"),
         ("`stations.csv`", "existing stations: `id,name,lon,lat,units` (units: vehicles based there)"),
+        (
+            "`units.csv`",
+            "the mixed fleet: `unit_id,base_id,type,staffing,hours` (engines, one ladder, medic units, a command "
+            "car; hours `07-19`: a peak-time unit)",
+        ),
         ("`candidates.csv`", "candidate station sites: `id,name,lon,lat` (each within 100 m of a road)"),
         (
             "`incidents.csv`",
@@ -1476,6 +1493,7 @@ def generate_demo(folder: Path, seed: int = DEFAULT_SEED) -> dict[str, Path]:
             [(s[0], s[1], f"{ll[0]:.6f}", f"{ll[1]:.6f}", s[3]) for s, ll in zip(_STATIONS, st_ll, strict=True)],
         ),
     )
+    write_text_atomic(paths["units"], _csv(["unit_id", "base_id", "type", "staffing", "hours"], _UNITS))
     write_text_atomic(
         paths["candidates"],
         _csv(

@@ -30,11 +30,14 @@ KINDS: dict[str, tuple[str, str]] = {
     "by_zone": ("by_zone_{demand}_{standard}", "compliance per zone"),
     "by_priority": ("by_priority_{demand}_{standard}", "compliance per call priority (point demand)"),
     "first_due": ("first_due_{standard}", "area each base reaches first"),
+    "first_due_by_type": ("first_due_by_type_{standard}", "per unit type: area each base's unit reaches first"),
     "second_due": ("second_due_{standard}", "area each base reaches second"),
     "third_due": ("third_due_{standard}", "area each base reaches third"),
     "gaps": ("gaps_{standard}", "contiguous areas not covered within the standard, largest first"),
     "single_cover": ("single_cover_{standard}", "areas reached by exactly one base within the standard"),
     "depth": ("depth_{standard}", "coverage depth areas: how many bases reach each place within the standard"),
+    "density_zones": ("density_zones", "NFPA 1720 demand zones by population density (urban, suburban, rural)"),
+    "by_density_zone": ("by_density_zone_{demand}", "each NFPA 1720 density zone judged against its own row"),
     "road_minutes": ("road_minutes", "per road piece: minutes from the nearest base (serve export)"),
     "summary": ("summary", "one row per standard and demand layer: covered share, fractile response"),
     "rejected": ("rejected_{demand}", "point rows set aside (no usable position), with the reason"),
@@ -43,9 +46,16 @@ KINDS: dict[str, tuple[str, str]] = {
     "site_curve": ("site_curve", "covered share for 0, 1, 2 ... new sites"),
     "site_candidates": ("site_candidates", "the candidate sites, snapped"),
     "site_summary": ("site_summary", "model, solver, objective, covered share before and after"),
+    "site_unit_chosen": (
+        "site_unit_chosen",
+        "sites of the added units of a type, in order, and what each adds",
+    ),
+    "site_unit_summary": ("site_unit_summary", "unit type, standard, method, covered share before and after"),
     "availability_units": ("availability_units", "per unit: workload (busy fraction) and calls answered per hour"),
     "availability_demand": ("availability_demand", "per demand point: drive-time and availability-adjusted cover"),
     "availability_summary": ("availability_summary", "call rate, offered load, chance all units are busy"),
+    "availability_by_type": ("availability_by_type", "per unit type: its calls' share, workloads, covered shares"),
+    "availability_type_units": ("availability_type_units", "per unit of each type: workload, calls answered per hour"),
     "calibration_classes": ("calibration_classes", "fitted speed factor per road class"),
     "calibration_errors": ("calibration_errors", "errors before and after, by route length"),
     "period_compliance": ("period_compliance", "compliance of each standard and demand layer per time-of-day period"),
@@ -95,6 +105,7 @@ MAPS_FOLDER = "maps"
 #: Maps: kind -> (file pattern, what it shows).
 MAPS: dict[str, tuple[str, str]] = {
     "travel_time": ("travel_time.png", "travel time from the nearest base, in bands"),
+    "density_zones": ("density_zones.png", "NFPA 1720 demand zones by population density"),
     "depth": ("depth_{standard}.png", "coverage depth: bases reaching each place within the standard"),
     "gaps": ("gaps_{standard}.png", "gaps, shaded by the demand they hold"),
     "first_due": ("first_due_{standard}.png", "first-due areas"),
@@ -164,9 +175,10 @@ def output_file(folder: str | os.PathLike[str], kind: str) -> Path:
     return Path(folder) / FILES[kind][0]
 
 
-def single_standard_name(minutes: float) -> str:
-    """The standard's name in a single command: the travel minutes given (``8`` -> ``"8 min"``)."""
-    return f"{minutes:g} min"
+def single_standard_name(minutes: float, judged: str = "") -> str:
+    """The standard's name in a single command: the travel minutes given (``8`` -> ``"8 min"``), after what a
+    standard by unit type or force judges (``"first engine"`` -> ``"first engine 4 min"``)."""
+    return f"{judged} {minutes:g} min" if judged else f"{minutes:g} min"
 
 
 def demand_name_of(path: str | os.PathLike[str]) -> str:

@@ -252,6 +252,20 @@ class ZonesSettings:
 
 
 @dataclass(frozen=True)
+class UnitsSettings:
+    """``[units]``: a units table (``unit_id, base_id, type, staffing[, hours]``, :mod:`coverkit.units`)."""
+
+    file: Path
+    layer: str | None = None
+    hour: float | None = None  # clock hour (0..24) whose units are in service; None: every unit at every hour
+
+    @classmethod
+    def from_table(cls, t: dict[str, Any]) -> UnitsSettings:
+        """From the checked ``[units]`` table."""
+        return cls(Path(t["file"]), t.get("layer"), None if t.get("hour") is None else float(t["hour"]))
+
+
+@dataclass(frozen=True)
 class SitingSettings:
     """``[siting]``: candidate sites and the covering model (a name of :data:`coverkit.siting_models.NAMES`)."""
 
@@ -268,6 +282,8 @@ class SitingSettings:
     curve: int | None = None
     standard: str | None = None
     demand: str | None = None
+    unit_type: str | None = None  # place units of this type (coverkit.site_units) instead of new stations
+    staffing: int | None = None  # people on each added unit (default: the type's median crew)
 
     @classmethod
     def from_table(cls, t: dict[str, Any]) -> SitingSettings:
@@ -288,6 +304,8 @@ class SitingSettings:
             t.get("curve"),
             t.get("standard"),
             t.get("demand"),
+            t.get("unit_type"),
+            t.get("staffing"),
         )
 
 

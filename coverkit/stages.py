@@ -26,12 +26,15 @@ if TYPE_CHECKING:
     import geopandas as gpd
 
     from coverkit.availability import AvailabilityRun
+    from coverkit.availability_types import TypeAvailability
     from coverkit.calibrate import CalibrationResult
     from coverkit.coverage import AreaGrid, AreaLayers, CoverageResult
     from coverkit.network import RoadNetwork
     from coverkit.settings import AvailabilitySettings, SitingSettings
     from coverkit.site_plan import SitePlan, SitingProblem
+    from coverkit.site_units import UnitPlan
     from coverkit.spread import SpreadFit
+    from coverkit.units import Fleet
 
 
 def demand_kind(demand: gpd.GeoDataFrame) -> str:
@@ -101,6 +104,7 @@ class CoverageStage:
     by_base: Mapping[str, pd.DataFrame] = field(default_factory=dict)
     by_zone: Mapping[str, pd.DataFrame] = field(default_factory=dict)
     by_priority: Mapping[str, pd.DataFrame] = field(default_factory=dict)
+    type_due: gpd.GeoDataFrame | None = None  # with units: first-due areas per unit type
 
     def summary_rows(self) -> list[dict[str, Any]]:
         """One row per demand layer: the standard, the demand, its kind and :meth:`CoverageResult.summary`."""
@@ -117,6 +121,8 @@ class CoverageStage:
             area = getattr(self.areas, kind, None)
             if area is not None:
                 out[layer_name(kind, standard=name)] = area
+        if self.type_due is not None:
+            out[layer_name("first_due_by_type", standard=name)] = self.type_due
         out[layer_name("gaps", standard=name)] = self.areas.gaps
         out[layer_name("single_cover", standard=name)] = self.areas.single
         for kind, tables in (("by_base", self.by_base), ("by_zone", self.by_zone), ("by_priority", self.by_priority)):
@@ -150,7 +156,7 @@ class CoverageStage:
         unit = unit_word(kind)
         where_word = row_word(res.demand["source"].iloc[0]) if len(res.demand) else "points"
         frac = s["fractile_response_s"]
-        frac_text = "not reached" if frac == float("inf") else f"{frac:,.0f} s ({frac / 60:.1f} min)"
+        frac_text = self.standard.unreached_text() if frac == float("inf") else f"{frac:,.0f} s ({frac / 60:.1f} min)"
         verdict = "meets" if s["meets_standard"] else "misses"
         out = [
             self.standard.describe(),
@@ -182,6 +188,7 @@ class CoverageStage:
             + (f" ({outside:,.0f} more lie outside every gap, beyond the grid)" if outside > 0 else "")
             + (f"; largest {gaps[count].iloc[0]:,.0f} {unit}, {gaps['area_km2'].iloc[0]:.1f} km2" if len(gaps) else "")
         )
+        out += _unit_lines(res)
         out += ["", "per base (first due)"]
         for r in self.by_base[name].itertuples(index=False):
             out.append(
@@ -189,6 +196,29 @@ class CoverageStage:
                 f"sole cover {r.sole_cover:,.0f}"
             )
         return out
+
+
+def _unit_lines(res: CoverageResult) -> list[str]:
+    """The fleet's figures: the weighted share reached in time by each type's first unit, and the median people
+    on scene in time (empty without units)."""
+    from coverkit.arrivals import PERSONNEL_COLUMN
+    from coverkit.coverage import weighted_fractile
+    from coverkit.units import type_column
+
+    fleet = res.extra.get("fleet")
+    if fleet is None:
+        return []
+    d = res.demand
+    w = d["weight"].to_numpy(dtype=float)
+    total = float(w.sum()) or float("nan")
+    shares = ", ".join(
+        f"{t} {w[d[type_column(t)].to_numpy() <= res.standard.travel_s].sum() / total * 100:.1f} %" for t in fleet.types
+    )
+    people = weighted_fractile(d[PERSONNEL_COLUMN].to_numpy(dtype=float), w, 0.5)
+    return [
+        f"units        {len(fleet)} units ({', '.join(fleet.types)}); first of each type in time: {shares}",
+        f"people       median on scene within {res.standard.travel_s:g} s travel: {people:,.0f} (weighted by demand)",
+    ]
 
 
 def coverage_stage(
@@ -209,6 +239,7 @@ def coverage_stage(
     base_snap_m: float | None = None,
     direction: str | None = None,
     spread: SpreadFit | None = None,
+    fleet: Fleet | None = None,
 ) -> CoverageStage:
     """Coverage of each demand layer under ``standard``, then the due areas and gaps of the whole study area.
 
@@ -237,8 +268,18 @@ def coverage_stage(
         A travel-time spread fit (:func:`coverkit.spread.read_spread`): each point also gets its probability of
         arriving within the standard and each summary the expected covered demand
         (:func:`coverkit.spread.add_arrival_probability`), beside the deterministic figures.
+    fleet
+        The units at the bases (:func:`coverkit.units.read_units`): per-type arrivals, and the standard by type or
+        force judged on them, gaps included.
     """
-    from coverkit.coverage import area_layers, compliance_by, compliance_by_zone, evaluate_coverage, per_base
+    from coverkit.coverage import (
+        area_layers,
+        compliance_by,
+        compliance_by_zone,
+        evaluate_coverage,
+        first_due_by_type,
+        per_base,
+    )
 
     if (zones is None) != (zone_id_field is None):
         raise FieldError("zones and their id field go together: give the polygon layer and the field naming zones.")
@@ -254,6 +295,8 @@ def coverage_stage(
                 options["base_snap_m"] = base_snap_m
             if direction is not None:
                 options["direction"] = direction
+        if fleet is not None:
+            options["fleet"] = fleet
         res = evaluate_coverage(net, bases, dem, standard, **options)
         if spread is not None:
             from coverkit.spread import add_arrival_probability
@@ -282,7 +325,8 @@ def coverage_stage(
     results[residents].demand["gap_id"] = areas.demand_gap_id
     if incidents and areas.incident_gap_id is not None:
         results[incidents].demand["gap_id"] = areas.incident_gap_id
-    return CoverageStage(standard, results, kinds, areas, by_base, by_zone, by_priority)
+    type_due = first_due_by_type(areas.grid, results[residents]) if fleet is not None else None
+    return CoverageStage(standard, results, kinds, areas, by_base, by_zone, by_priority, type_due)
 
 
 # -- siting -----------------------------------------------------------------------------------------------------------
@@ -310,6 +354,30 @@ class SitingStage:
         ids = ", ".join(self.plan.chosen["id"].astype(str))
         return (
             f"siting ({s['model']}, {s['method']}): new sites {ids or '-'}; {self.demand} covered "
+            f"{s['covered_share_before'] * 100:.1f} % -> {s['covered_share_after'] * 100:.1f} %"
+        )
+
+
+@dataclass(frozen=True)
+class UnitSitingStage:
+    """Where the next units of a type go (:func:`coverkit.site_units.place_units`) on one demand layer."""
+
+    plan: UnitPlan
+    demand: str
+
+    def layers(self) -> dict[str, Any]:
+        """The chosen sites in order and the summary row."""
+        return {
+            layer_name("site_unit_chosen"): self.plan.chosen,
+            layer_name("site_unit_summary"): pd.DataFrame([self.plan.summary]),
+        }
+
+    def headline(self) -> str:
+        """One line: the type, the sites, covered share before and after."""
+        s = self.plan.summary
+        ids = ", ".join(self.plan.chosen["site_id"].astype(str))
+        return (
+            f"next {s['unit_type']} units ({s['method']}): at {ids}; {self.demand} covered "
             f"{s['covered_share_before'] * 100:.1f} % -> {s['covered_share_after'] * 100:.1f} %"
         )
 
@@ -370,14 +438,34 @@ class AvailabilityStage:
 
     run: AvailabilityRun
     demand: str
+    by_type: TypeAvailability | None = None
 
     def layers(self) -> dict[str, Any]:
-        """Per unit, per demand point, and the summary row."""
-        return {
+        """Per unit, per demand point, and the summary row (and, with units by type, the per-type tables)."""
+        out = {
             layer_name("availability_units"): self.run.units,
             layer_name("availability_demand"): self.run.demand,
             layer_name("availability_summary"): pd.DataFrame([self.run.summary]),
         }
+        if self.by_type is not None:
+            out[layer_name("availability_by_type")] = self.by_type.summary.drop(columns="standard")
+            out[layer_name("availability_type_units")] = self.by_type.units
+        return out
+
+    def type_lines(self) -> list[str]:
+        """One line per unit type: its calls, the busiest unit, covered by drive time and by the answering unit."""
+        if self.by_type is None:
+            return []
+        lines = []
+        for r in self.by_type.summary.itertuples(index=False):
+            units = self.by_type.units[self.by_type.units["type"] == r.type]
+            busy = units.loc[units["workload"].idxmax()]
+            lines.append(
+                f"{r.type:<14} {r.calls_share * 100:5.1f} % of calls, {r.units} units, busiest {busy['unit_id']} "
+                f"{busy['workload']:.2f}; in standard {r.drive_time_coverage * 100:.1f} % by drive time, "
+                f"{r.availability_coverage * 100:.1f} % by the unit that answers"
+            )
+        return lines
 
     def headline(self) -> str:
         """One line: the call rate and the covered share by drive time and by the unit that answers."""
@@ -399,11 +487,14 @@ def availability_stage(
     demand_name: str,
     max_snap_m: float | None = None,
     window: tuple[str | None, str | None] = (None, None),
+    fleet: Fleet | None = None,
+    needs_field: str = "needs",
 ) -> AvailabilityStage:
     """Busy units on ``demand`` (incidents) under ``standard``: :func:`coverkit.availability.availability`.
 
     ``window`` is the time window the incidents were selected from (ISO times or None): the call rate is counted
-    over it.
+    over it. With ``fleet`` each unit type is also run on the calls that need it
+    (:func:`coverkit.availability_types.availability_by_type`).
     """
     from coverkit.availability import availability
 
@@ -422,7 +513,16 @@ def availability_stage(
         **options,
     )
     run.summary["demand"] = demand_name
-    return AvailabilityStage(run, demand_name)
+    by_type = None
+    if fleet is not None:
+        from coverkit.availability_types import availability_by_type
+
+        rate = cfg.calls_per_h or run.summary["calls_per_h"]
+        by_type = availability_by_type(
+            net, bases, demand, standard, fleet, cfg.service_min, calls_per_h=rate, queue=cfg.queue,
+            method=cfg.method, time_field=cfg.time_field, window=window, needs_field=needs_field, **options,
+        )  # fmt: skip
+    return AvailabilityStage(run, demand_name, by_type)
 
 
 # -- calibration ------------------------------------------------------------------------------------------------------

@@ -33,6 +33,7 @@ from coverkit.stages import (
     CalibrationStage,
     CoverageStage,
     SitingStage,
+    UnitSitingStage,
     availability_stage,
     check_zones,
     coverage_stage,
@@ -54,6 +55,7 @@ if TYPE_CHECKING:
     from coverkit.network.model import RoadNetwork
     from coverkit.site_plan import SitePlan
     from coverkit.spread import SpreadFit
+    from coverkit.units import Fleet
 
 # -- schema -----------------------------------------------------------------------------------------------------------
 # key -> (type(s), required). Types are Python types accepted after TOML parsing.
@@ -85,12 +87,21 @@ SCHEMA: dict[str, Schema] = {
         "max_rejected_share": (_NUM, False),
     },
     "standard": {
-        "name": (str, True),
-        "travel_s": (_NUM, True),
+        "name": (str, False),
+        "preset": (str, False),
+        "engine_type": (str, False),
+        "als_type": (str, False),
+        "density_window_m": (_NUM, False),
+        "travel_s": (_NUM, False),
         "turnout_s": (_NUM, False),
         "fractile": (_NUM, False),
         "source": (str, False),
+        "unit_type": (str, False),
+        "nth": (int, False),
+        "personnel": (int, False),
+        "assignment": (dict, False),
     },
+    "units": {"file": (str, True), "layer": (str, False), "hour": (_NUM, False)},
     "zones": {"file": (str, True), "id_field": (str, True), "layer": (str, False)},
     "siting": {
         "candidates": (str, False),
@@ -106,6 +117,8 @@ SCHEMA: dict[str, Schema] = {
         "curve": (int, False),
         "standard": (str, False),
         "demand": (str, False),
+        "unit_type": (str, False),
+        "staffing": (int, False),
     },
     "availability": {
         "service_min": (_NUM, True),
@@ -168,6 +181,7 @@ class Study:
     simulation: settings.SimulationSettings | None = None
     spread: SpreadFit | None = None
     periods: list[tuple[str, str]] = field(default_factory=list)  # [[period]]: (name, at), in file order
+    units: settings.UnitsSettings | None = None
 
     def standard_named(self, name: str | None, key: str) -> Standard:
         """The standard called ``name`` (the first when None); a StudyError names ``key`` otherwise."""
@@ -283,6 +297,10 @@ def load_study(path: str | Path) -> Study:
         from coverkit.spread import read_spread
 
         study.spread = read_spread(_file(folder, raw["travel_spread"]["file"], "travel_spread.file", where))
+    if "units" in raw:
+        units = dict(raw["units"], file=str(_file(folder, raw["units"]["file"], "units.file", where)))
+        study.units = settings.UnitsSettings.from_table(units)
+    _check_unit_standards(study, where)
     if study.siting:
         study.standard_named(study.siting.standard, "siting.standard")
         study.demand_named(study.siting.demand, "siting.demand", "residents")
@@ -396,10 +414,127 @@ def _demand_settings(raw: dict[str, Any], folder: Path, where: str) -> list[Dema
     return demand
 
 
+def _check_unit_standards(study: Study, where: str) -> None:
+    """A standard by unit type or force needs the ``[units]`` section."""
+    from coverkit.arrivals import check_fleet
+    from coverkit.units import read_units
+
+    if study.siting and study.siting.unit_type and study.units is None:
+        raise StudyError(f"{where}: siting.unit_type needs a [units] section with file = the units table.")
+    judged = next((s for s in study.standards if s.kind != "base"), None)
+    if judged is not None and study.units is None:
+        raise StudyError(
+            f"{where}: standard '{judged.name}' judges {judged.judged().removesuffix(' in ')}; add a [units] section "
+            "with file = the units table (unit_id, base_id, type, staffing)."
+        )
+    if study.units is not None:  # the table's own rows and the standards' types, before any work is done
+        fleet = read_units(study.units.file, None, layer=study.units.layer)
+        if study.units.hour is not None:
+            if not 0 <= study.units.hour < 24:
+                raise StudyError(f"{where}: units.hour must be a clock hour 0..24 (e.g. 8.5), got {study.units.hour}.")
+            fleet = fleet.on_duty(study.units.hour)
+        for std in study.standards:
+            try:
+                check_fleet(fleet, std)
+            except CoverkitError as exc:
+                raise StudyError(f"{where}: {exc}") from None
+
+
+def refuse_unit_standards(study: Study, what: str) -> None:
+    """Stop ``what`` (a comparison, the web page) on a study with standards by unit type or force, which it does not
+    evaluate yet: one line naming the standard."""
+    judged = next((s for s in study.standards if s.kind != "base"), None)
+    if judged is not None:
+        raise StudyError(
+            f"{study.path}: {what} does not yet evaluate standards by unit type or force ('{judged.name}'); run "
+            "them with `coverkit run`, or keep a copy of the study without them."
+        )
+
+
+def _unit_keys(item: dict[str, Any]) -> dict[str, Any]:
+    """The unit keys of one ``[[standard]]`` as :class:`Standard` keywords."""
+    from coverkit.units import parse_assignment
+
+    out: dict[str, Any] = {k: item[k] for k in ("unit_type", "nth", "personnel") if k in item}
+    if "assignment" in item:
+        out["assignment"] = parse_assignment(item["assignment"])
+    return out
+
+
+def load_fleet(study: Study, bases: gpd.GeoDataFrame):
+    """The study's units table checked against its bases (None without ``[units]``)."""
+    from coverkit.units import read_units
+
+    if study.units is None:
+        return None
+    fleet = read_units(study.units.file, bases["id"].astype(str).tolist(), layer=study.units.layer)
+    return fleet if study.units.hour is None else fleet.on_duty(study.units.hour)
+
+
+def _preset(item: dict[str, Any], where: str) -> list[Standard]:
+    """The standards of a ``preset`` entry (:mod:`coverkit.nfpa`; its figures are quoted from memory)."""
+    from coverkit import nfpa
+
+    name = item["preset"]
+    if name not in nfpa.PRESETS:
+        raise StudyError(f"{where}: preset '{name}' is not known; use one of {', '.join(nfpa.PRESETS)}.")
+    try:
+        if name == "nfpa1710":
+            return nfpa.nfpa1710_standards(
+                engine=item.get("engine_type", "engine"), als=item.get("als_type", "medic-als")
+            )
+        return nfpa.nfpa1720_standards(float(item.get("turnout_s", nfpa.NFPA1720_TURNOUT_S)))
+    except CoverkitError as exc:
+        raise StudyError(f"{where}: {exc.worded('turnout_s')}") from None
+
+
+def density_zone_layers(study: Study, net: RoadNetwork, runs: list[CoverageStage]) -> dict[str, Any]:
+    """With an ``nfpa1720`` preset: the density zones of the first raster demand layer and, per demand layer, each
+    zone judged against its own row (:func:`coverkit.nfpa.zone_table`); empty otherwise."""
+    from coverkit import nfpa
+
+    window = density_window_m(study)
+    if window is None:
+        return {}
+    raster = next((spec.path for spec in study.demand if spec.source_kind == "raster"), None)
+    blocks = next((spec for spec in study.demand if spec.source_kind == "polygons"), None)
+    if raster is not None:
+        zones = nfpa.density_zones(raster, net.crs, window)
+    elif blocks is not None:
+        zones = nfpa.density_zones_from_blocks(blocks.path, blocks.population_field, net.crs)
+    else:
+        raise StudyError(
+            f"{study.path}: the nfpa1720 preset takes its density zones from a population raster or blocks; add a "
+            "[[demand]] with raster = the population raster (or polygons = blocks with population_field)."
+        )
+    out: dict[str, Any] = {layer_name("density_zones"): zones}
+    names = {nfpa.zone_standard_name(z) for z in nfpa.NFPA1720_ZONES}
+    for dname in runs[0].results:
+        results = {run.standard.name: run.results[dname] for run in runs if run.standard.name in names}
+        out[layer_name("by_density_zone", dname)] = nfpa.zone_table(results, zones)
+    return out
+
+
+def density_window_m(study: Study) -> float | None:
+    """The density window of the study's ``nfpa1720`` preset (m), or None when it has none."""
+    from coverkit import nfpa
+
+    for item in study.raw.get("standard", []):
+        if item.get("preset") == "nfpa1720":
+            return float(item.get("density_window_m", nfpa.DENSITY_WINDOW_M))
+    return None
+
+
 def _standards(raw: dict[str, Any], where: str) -> list[Standard]:
     """The [[standard]] entries as :class:`Standard` (which checks its own values); names must differ."""
     standards = []
     for i, item in enumerate(raw["standard"]):
+        if "preset" in item:
+            standards += _preset(item, f"{where}: standard[{i}]")
+            continue
+        for key in ("name", "travel_s"):
+            if key not in item:
+                raise StudyError(f"{where}: standard[{i}] has no {key}; give it (or a preset, e.g. 'nfpa1710').")
         try:
             standards.append(
                 Standard(
@@ -408,6 +543,7 @@ def _standards(raw: dict[str, Any], where: str) -> list[Standard]:
                     float(item.get("turnout_s", settings.TURNOUT_S)),
                     float(item.get("fractile", settings.FRACTILE)),
                     item.get("source", ""),
+                    **_unit_keys(item),
                 )
             )
         except Exception as exc:  # Standard validates its own values
@@ -429,7 +565,7 @@ def _siting_table(raw: dict[str, Any], folder: Path, where: str) -> dict[str, An
         names = siting_models.NAMES
         raise StudyError(f"{where}: siting.model '{model}' is unknown; use {', '.join(names[:-1])} or {names[-1]}.")
     for needed in siting_models.BY_NAME[model].needs:
-        if needed not in siting_cfg:
+        if needed not in siting_cfg and "unit_type" not in siting_cfg:  # units of a type need no covering model
             raise StudyError(
                 f"{where}: [siting] with model {model} needs {needed} ({siting_models.PARAMETERS[needed]})."
             )
@@ -487,6 +623,8 @@ class StudyRun:
     calibration_stage: CalibrationStage | None = None
     simulation: Any = None  # coverkit.simulate.run.SimulationRun when the study has [simulation]
     periods: pd.DataFrame | None = None  # compliance per [[period]] (time of day), side by side
+    unit_siting: UnitSitingStage | None = None  # [siting] unit_type: the next units of a type
+    density_layers: dict[str, Any] | None = None  # the nfpa1720 preset's zones and per-zone tables
 
     @property
     def site_plan(self) -> SitePlan | None:
@@ -630,8 +768,37 @@ def _study_siting(
     return siting_stage(problem, cfg, dname)
 
 
+def _study_unit_siting(study: Study, net: RoadNetwork, bases, demand: dict, snaps, fleet) -> UnitSitingStage:
+    """``[siting]`` with ``unit_type``: the next units of the type (:func:`coverkit.site_units.place_units`)."""
+    from coverkit.site_plan import generate_candidates
+    from coverkit.site_units import place_units
+    from coverkit.travel import read_points
+
+    cfg = study.siting
+    if fleet is None:
+        raise StudyError(f"{study.path}: siting.unit_type needs a [units] section (the units table).")
+    std = study.standard_named(cfg.standard, "siting.standard")
+    dname = study.demand_named(cfg.demand, "siting.demand", "residents")
+    if (cfg.candidates is None) == (cfg.generate is None):
+        raise StudyError(f"{study.path}: [siting] needs either candidates or generate (not both, not neither).")
+    if cfg.candidates is not None:
+        candidates = read_points(str(cfg.candidates), net.crs, what="candidates")
+    else:
+        candidates = generate_candidates(net, cfg.generate, cfg.spacing_m)
+    plan = place_units(
+        net, bases, candidates, demand[dname], std, fleet, cfg.unit_type, cfg.add or 1, staffing=cfg.staffing,
+        max_snap_m=snaps[dname], base_snap_m=study.bases.snap_m,
+    )  # fmt: skip
+    return UnitSitingStage(plan, dname)
+
+
 def _study_availability(
-    study: Study, net: RoadNetwork, bases: gpd.GeoDataFrame, demand: dict, snaps: dict[str, float]
+    study: Study,
+    net: RoadNetwork,
+    bases: gpd.GeoDataFrame,
+    demand: dict,
+    snaps: dict[str, float],
+    fleet: Fleet | None = None,
 ) -> AvailabilityStage:
     cfg = study.availability
     std = study.standard_named(cfg.standard, "availability.standard")
@@ -646,6 +813,7 @@ def _study_availability(
         demand_name=dname,
         max_snap_m=snaps[dname],
         window=(spec.start, spec.end),
+        **({"fleet": fleet} if fleet is not None else {}),
     )
 
 
@@ -671,6 +839,7 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     """
     import pandas as pd
 
+    from coverkit.arrivals import check_fleet
     from coverkit.compute import InProcess, current_runner, runner_for
     from coverkit.isochrones import drive_time_polygons, write_travel_surface
     from coverkit.progress import Steps
@@ -691,6 +860,9 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
 
     steps.step("bases and demand")
     bases, demand, kinds, snaps = load_inputs(study, net)
+    fleet = load_fleet(study, bases)
+    for std in study.standards:
+        check_fleet(fleet, std)
     zones = None
     if study.zones:
         zones = read_zones(study.zones.file, study.zones.id_field, layer=study.zones.layer)
@@ -721,11 +893,15 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         + (", siting" if study.siting else "")
         + (", availability" if study.availability else "")
     )
-    runs = _coverage_runs(study, net, bases, demand, kinds, snaps, zones)
+    runs = _coverage_runs(study, net, bases, demand, kinds, snaps, zones, fleet=fleet)
     summary = pd.DataFrame([row for run in runs for row in run.summary_rows()])
-    periods = _period_table(study, net, bases, demand, kinds, snaps, zones) if study.periods else None
-    site_plan = _study_siting(study, net, bases, demand, snaps) if study.siting else None
-    avail = _study_availability(study, net, bases, demand, snaps) if study.availability else None
+    periods = _period_table(study, net, bases, demand, kinds, snaps, zones, fleet) if study.periods else None
+    site_plan, unit_siting = None, None
+    if study.siting and study.siting.unit_type:
+        unit_siting = _study_unit_siting(study, net, bases, demand, snaps, fleet)
+    elif study.siting:
+        site_plan = _study_siting(study, net, bases, demand, snaps)
+    avail = _study_availability(study, net, bases, demand, snaps, fleet) if study.availability else None
     calibration = _study_calibration(study, net, bases) if study.calibration else None
     simulation = _study_simulation(study, net, bases, demand, kinds, snaps) if study.simulation else None
 
@@ -733,10 +909,12 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
     layers: dict[str, pd.DataFrame] = {layer_name("bases"): bases, **polygon_layers(polygons)}
     for run in runs:
         layers.update(run.layers())
+    density = density_zone_layers(study, net, runs)
+    layers.update(density)
     for name, d in demand.items():  # point rows set aside for want of a usable position
         if d.attrs.get("rejected"):
             layers[layer_name("rejected", name)] = d.attrs["rejected"].table
-    for stage in (site_plan, avail, calibration):
+    for stage in (site_plan, unit_siting, avail, calibration):
         if stage is not None:
             layers.update(stage.layers())
     layers[layer_name("summary")] = summary.drop(columns=["standard_text"])
@@ -765,12 +943,14 @@ def run_study(study: Study | str | Path, out: str | Path | None = None) -> Study
         calibration,
         simulation=simulation,
         periods=periods,
+        density_layers=density or None,
+        unit_siting=unit_siting,
     )
 
     return result
 
 
-def _period_table(study: Study, net: RoadNetwork, bases, demand, kinds, snaps, zones) -> pd.DataFrame:
+def _period_table(study: Study, net: RoadNetwork, bases, demand, kinds, snaps, zones, fleet=None) -> pd.DataFrame:
     """Compliance of every standard and demand layer in each [[period]]: the coverage stages on the network timed
     for that moment (:func:`coverkit.network.hour_bands.network_at`, the stage the commands' ``at`` uses)."""
     import pandas as pd
@@ -781,7 +961,7 @@ def _period_table(study: Study, net: RoadNetwork, bases, demand, kinds, snaps, z
     for name, at in study.periods:
         timed = network_at(net, at)
         band = timed.info.get("changes", [""])[-1] if timed is not net else "outside every hour band"
-        for run in _coverage_runs(study, timed, bases, demand, kinds, snaps, zones):
+        for run in _coverage_runs(study, timed, bases, demand, kinds, snaps, zones, fleet=fleet):
             for r in run.summary_rows():
                 row = {"period": name, "at": at, "timing": band, "standard": r["standard"], "demand": r["demand"]}
                 keep = ("covered", "covered_share", "fractile_response_s", "meets_standard", "expected_covered_share")
@@ -797,6 +977,8 @@ def _coverage_runs(
     kinds: dict[str, str],
     snaps: dict[str, float],
     zones: gpd.GeoDataFrame | None,
+    *,
+    fleet: Fleet | None = None,
 ) -> list[CoverageStage]:
     """The coverage stage of every standard, in the study's order, sharing one travel table per demand layer."""
     from coverkit.coverage import travel_table
@@ -825,6 +1007,7 @@ def _coverage_runs(
             cell_m=opts.grid_cell_m,
             reach_m=opts.area_reach_m,
             spread=study.spread,
+            **({"fleet": fleet} if fleet is not None else {}),
         )
         grid = stage.areas.grid
         runs.append(stage)
@@ -869,16 +1052,17 @@ def headline_lines(run: StudyRun) -> list[str]:
                 f"{name}: {d.attrs['rejected'].text(verb=False)} rejected; see layer {layer_name('rejected', name)}"
             )
     # thousands separated by a comma in every figure, as in the report (coverkit.report.tables.THOUSANDS)
+    standards = {s.name: s for s in run.study.standards}
     for r in run.summary.itertuples(index=False):
         frac = r.fractile_response_s
-        frac_text = "not reached" if frac == float("inf") else f"{frac / 60:.1f} min"
+        frac_text = standards[r.standard].unreached_text() if frac == float("inf") else f"{frac / 60:.1f} min"
         unit = demand_sources.unit_word(r.kind)
         lines.append(
             f"{r.standard:<22} {r.demand:<12} covered {r.covered_share * 100:5.1f} % "
             f"({r.covered:,.0f} of {r.demand_total:,.0f} {unit}); {r.fractile * 100:g}th percentile response "
             f"{frac_text} - {'meets' if r.meets_standard else 'misses'} the standard"
         )
-    for stage in (run.siting_stage, run.availability_stage):
+    for stage in (run.siting_stage, run.unit_siting, run.availability_stage):
         if stage is not None:
             lines.append(stage.headline())
     if run.calibration_stage is not None:

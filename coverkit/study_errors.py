@@ -34,6 +34,8 @@ STUDY_KEY_OF_PARAM = {
     "calls_per_h": "availability.calls_per_h",
     "mean_service_min": "availability.service_min",
     "reach_m": "outputs.reach_m",
+    "units": "units.file",
+    "hour": "units.hour",
 }
 
 

@@ -33,6 +33,7 @@ BYTE_EQUAL = [
     "districts",
     "flood_zone",
     "stations",
+    "units",
     "candidates",
     "incidents",
     "observed_times",

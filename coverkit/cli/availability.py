@@ -12,7 +12,9 @@ from coverkit.cli.options import (
     network_and_bases,
     points_options,
     positive_float,
+    read_fleet,
     rejected_layer,
+    units_options,
 )
 from coverkit.cli.options import compute as compute_options
 from coverkit.layer_names import demand_name_of, single_standard_name
@@ -61,7 +63,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         required=True,
         help="GeoPackage to write (layers availability_units, availability_demand, ...)",
     )
+    p.add_argument(
+        "--needs-field", default="needs", help="with --units: incident field naming the unit types a call needs "
+        "(engine+medic-als; default needs; without it every call needs every type)",
+    )  # fmt: skip
     points_options(p)
+    units_options(p, standard=False)
     common(p)
     compute_options(p)
 
@@ -76,6 +83,7 @@ def run(args: argparse.Namespace) -> int:
     from coverkit.stages import availability_stage
 
     net, bases = network_and_bases(args)
+    fleet = read_fleet(args, bases)
     demand = load_demand(
         args.demand,
         net,
@@ -93,9 +101,14 @@ def run(args: argparse.Namespace) -> int:
         method=args.method,
         time_field=args.time_field,
     )
+    if fleet is not None and args.needs_field in demand.columns:
+        from coverkit.availability_types import needs_mask
+
+        needs_mask(demand, fleet.types[0], fleet.types, args.needs_field)  # a type no unit has: fail before work
     stage = availability_stage(
-        net, bases, demand, std, cfg, demand_name=demand_name_of(args.demand), window=(args.start, args.end)
-    )
+        net, bases, demand, std, cfg, demand_name=demand_name_of(args.demand), window=(args.start, args.end),
+        fleet=fleet, needs_field=args.needs_field,
+    )  # fmt: skip
     run = stage.run
     layers = stage.layers()
     rejected = rejected_layer(demand, layers, demand_name_of(args.demand))
@@ -117,6 +130,9 @@ def run(args: argparse.Namespace) -> int:
         f"covered by the unit that answers {s['availability_coverage'] * 100:6.1f} % of calls (availability-adjusted)"
     )
     print(f"mean travel of the answering unit {s['expected_travel_s'] / 60:.1f} min")
+    if stage.by_type is not None:
+        print("\nby unit type, on the calls that need it")
+        print("\n".join(stage.type_lines()))
     print(f"\nwrote {args.out}")
     print(CAUTION)
     return 0

@@ -12,8 +12,11 @@ from coverkit.cli.options import (
     network_and_bases,
     points_options,
     positive_float,
+    read_fleet,
     rejected_layer,
     time_of_day,
+    unit_standard,
+    units_options,
 )
 from coverkit.cli.options import compute as compute_options
 from coverkit.layer_names import demand_name_of, layer_name, single_standard_name
@@ -73,6 +76,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     )
     points_options(p)
     time_of_day(p)
+    units_options(p)
     common(p)
     compute_options(p)
 
@@ -81,6 +85,7 @@ def run(args: argparse.Namespace) -> int:
     """Run ``coverkit cover`` on the parsed ``args``; the exit status (0)."""
     import pandas as pd
 
+    from coverkit.arrivals import check_fleet
     from coverkit.atomic import write_gpkg_layers
     from coverkit.coverage import Standard
     from coverkit.demand import load_demand
@@ -90,15 +95,20 @@ def run(args: argparse.Namespace) -> int:
 
     if (args.zones is None) != (args.zone_field is None):
         raise FieldError("--zones and --zone-field go together: give the polygon layer and its id field.")
-    std = Standard(single_standard_name(args.minutes), args.minutes * 60.0, args.turnout_s, args.fractile)
     spread = None
     if args.spread:
         from coverkit.spread import read_spread
 
         spread = read_spread(args.spread)
+    judged = unit_standard(args)
+    std = Standard("", args.minutes * 60.0, **judged)  # what it judges, in words, names it
+    name = single_standard_name(args.minutes, std.judged().removesuffix(" in "))
+    std = Standard(name, args.minutes * 60.0, args.turnout_s, args.fractile, **judged)
     dname = demand_name_of(args.demand)
     zones = read_zones(args.zones, args.zone_field) if args.zones else None
     net, bases = network_and_bases(args)
+    fleet = read_fleet(args, bases)
+    check_fleet(fleet, std)
     demand = load_demand(
         args.demand,
         net,
@@ -124,6 +134,7 @@ def run(args: argparse.Namespace) -> int:
         base_snap_m=args.snap_m,
         direction=args.direction,
         spread=spread,
+        fleet=fleet,
     )
     layers = {layer_name("bases"): bases, **stage.layers()}
     rejected_layer(demand, layers, dname)

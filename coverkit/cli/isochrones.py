@@ -54,6 +54,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         default=settings.DIRECTION,
         help="out: from base; in: to base (default %(default)s)",
     )
+    g = p.add_argument_group("units by type (optional)")
+    g.add_argument("--units", type=Path, help="units table: CSV or layer with unit_id, base_id, type, staffing")
+    g.add_argument("--unit-type", help="with --units: polygons from the bases holding a unit of this type only")
     points_options(p)
     time_of_day(p)
     common(p)
@@ -65,6 +68,17 @@ def run(args: argparse.Namespace) -> int:
     from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons, write_travel_surface
 
     net, bases = network_and_bases(args)
+    if args.unit_type is not None:
+        from coverkit.cli.options import read_fleet
+        from coverkit.errors import FieldError
+
+        if args.units is None:
+            raise FieldError("--unit-type needs --units, the units table (unit_id, base_id, type, staffing).")
+        bases = bases[read_fleet(args, bases).holds(args.unit_type, len(bases))].reset_index(drop=True)
+    elif args.units is not None:
+        from coverkit.cli.options import read_fleet
+
+        read_fleet(args, bases)  # checked, so a bad table fails here as it would elsewhere
     polygons = drive_time_polygons(
         net,
         bases,

@@ -19,6 +19,7 @@ from coverkit.travel.points import DEFAULT_MAX_REJECTED_SHARE
 #: library parameter -> flag, where the flag's name is not the parameter's; any other parameter is looked up among
 #: the sub-command's own options by its name (``calls_per_h`` -> ``--calls-per-h``)
 FLAG_OF_PARAM = {
+    "hour": "--units-hour",
     "q": "--busy-fraction",
     "mean_service_min": "--service-min",
 }
@@ -140,6 +141,52 @@ def coverage_inputs(
             default=settings.FRACTILE,
             help=f"share of demand to reach, 0..1 ({settings.FRACTILE:g})",
         )
+
+
+def units_options(p: argparse.ArgumentParser, standard: bool = True) -> None:
+    """``--units`` (a units table) and, with ``standard``, the standard by unit type or force."""
+    g = p.add_argument_group("units by type and staffing (optional)")
+    g.add_argument(
+        "--units", type=Path, help="units table: CSV or layer with unit_id, base_id, type, staffing[, hours]"
+    )
+    g.add_argument(
+        "--units-hour", type=float, help="with --units: only the units in service at this clock hour (0..24)"
+    )
+    if not standard:
+        return
+    judged = g.add_mutually_exclusive_group()
+    judged.add_argument("--unit-type", help="judge the first arriving unit of this type (e.g. engine)")
+    judged.add_argument("--personnel", type=int, help="judge the time at which this many people are on scene")
+    judged.add_argument("--assignment", help="judge the time a whole assignment has arrived: engine=2,ladder=1,...")
+    g.add_argument("--nth", type=int, default=1, help="with --unit-type: judge the nth unit of that type (1)")
+
+
+def unit_standard(args: argparse.Namespace) -> dict:
+    """The :class:`coverkit.coverage.Standard` keywords of ``--unit-type/--nth/--personnel/--assignment``."""
+    from coverkit.errors import CoverkitError
+    from coverkit.units import parse_assignment
+
+    if args.nth != 1 and args.unit_type is None:
+        raise CoverkitError("--nth goes with --unit-type (the nth unit of that type).")
+    out: dict = {}
+    if args.unit_type is not None:
+        out = {"unit_type": args.unit_type, "nth": args.nth}
+    elif args.personnel is not None:
+        out = {"personnel": args.personnel}
+    elif args.assignment is not None:
+        out = {"assignment": parse_assignment(args.assignment)}
+    return out
+
+
+def read_fleet(args: argparse.Namespace, bases):
+    """The ``--units`` table checked against the bases, or None."""
+    from coverkit.units import read_units
+
+    if not args.units:
+        return None
+    fleet = read_units(args.units, bases["id"].astype(str).tolist())
+    hour = getattr(args, "units_hour", None)
+    return fleet if hour is None else fleet.on_duty(hour)
 
 
 def points_options(p: argparse.ArgumentParser) -> None:

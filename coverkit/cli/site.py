@@ -67,10 +67,63 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         required=True,
         help="GeoPackage to write (layers site_chosen, site_ranking, site_curve, ...)",
     )
+    g = p.add_argument_group("the next unit of a type (optional)")
+    g.add_argument("--units", type=Path, help="units table: CSV or layer with unit_id, base_id, type, staffing")
+    g.add_argument("--unit-type", help="place --add units of this type (default 1) at bases or candidate sites")
+    g.add_argument("--staffing", type=int, help="people on each added unit (default: the type's median crew)")
+    judged = g.add_mutually_exclusive_group()
+    judged.add_argument("--personnel", type=int, help="judge a force of this many people (default: first unit)")
+    judged.add_argument("--assignment", help="judge a whole assignment, e.g. engine=2,ladder=1")
     points_options(p)
     time_of_day(p)
     common(p)
     compute_options(p)
+
+
+def _run_units(args: argparse.Namespace, net, bases, demand) -> int:
+    """``--unit-type``: the next units of a type (:func:`coverkit.site_units.place_units`)."""
+    import pandas as pd
+
+    from coverkit.atomic import write_gpkg_layers
+    from coverkit.cli.options import read_fleet
+    from coverkit.coverage import Standard
+    from coverkit.errors import FieldError
+    from coverkit.site_plan import generate_candidates
+    from coverkit.site_units import place_units
+    from coverkit.travel import read_points
+    from coverkit.units import parse_assignment
+
+    if args.units is None:
+        raise FieldError("--unit-type needs --units, the units table (unit_id, base_id, type, staffing).")
+    fleet = read_fleet(args, bases)
+    if args.candidates is not None:
+        candidates = read_points(str(args.candidates), net.crs, what="candidates")
+    else:
+        candidates = generate_candidates(net, args.generate_candidates, args.spacing_m)
+    judged = {"personnel": args.personnel} if args.personnel else {}
+    if args.assignment:
+        judged = {"assignment": parse_assignment(args.assignment)}
+    std = Standard("", args.minutes * 60.0, **judged)
+    name = single_standard_name(args.minutes, std.judged().removesuffix(" in ") or f"first {args.unit_type}")
+    std = Standard(name, args.minutes * 60.0, args.turnout_s, args.fractile, **judged)
+    plan = place_units(
+        net, bases, candidates, demand, std, fleet, args.unit_type, args.add or 1, staffing=args.staffing,
+        base_snap_m=args.snap_m,
+    )  # fmt: skip
+    s = plan.summary
+    write_gpkg_layers(
+        args.out,
+        {layer_name("site_unit_chosen"): plan.chosen, layer_name("site_unit_summary"): pd.DataFrame([s])},
+    )
+    print(f"{s['units_added']} {s['unit_type']} unit(s) of {s['staffing']}: {s['method']}; best possible: "
+          f"{s['best_possible']}")  # fmt: skip
+    print(s["standard"])
+    print(f"covered: before {s['covered_share_before'] * 100:.1f} %, after {s['covered_share_after'] * 100:.1f} %")
+    for r in plan.chosen.itertuples(index=False):
+        print(f"  {r.step}. {r.site_id:<10} ({r.site_kind}) adds {r.added_demand:,.0f}")
+    print(f"\nwrote {args.out}")
+    print(CAUTION)
+    return 0
 
 
 def _site_headline(s: dict) -> str:
@@ -108,6 +161,8 @@ def run(args: argparse.Namespace) -> int:
         population_field=args.population_field,
         max_rejected_share=args.max_rejected,
     )
+    if args.unit_type:
+        return _run_units(args, net, bases, demand)
     std = Standard(single_standard_name(args.minutes), args.minutes * 60.0, args.turnout_s, args.fractile)
     cfg = SitingSettings(
         candidates=args.candidates,

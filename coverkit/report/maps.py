@@ -953,6 +953,37 @@ def first_due_map(
     return page.save(out_png, title)
 
 
+def density_zone_map(
+    out_png: str | os.PathLike[str],
+    zones: gpd.GeoDataFrame,
+    bases: gpd.GeoDataFrame | None,
+    roads: gpd.GeoDataFrame | None,
+    title: str,
+    standard_text: str,
+    *,
+    frame: MapFrame | None = None,
+) -> Path:
+    """Demand zones by population density (``zone`` per polygon, in the order given: densest first), shaded on the
+    sequential colormap from dark (dense) to light (sparse)."""
+    standard_text = _check_standard(standard_text)
+    crs = _map_crs(getattr(zones, "crs", None), "density zones layer")
+    zones = _layer(zones, "density zones", crs, ["zone"])
+    bases = _layer(bases, "bases", crs, ["base_id"])
+    roads = _layer(roads, "roads", crs)
+    page = _Page(title, standard_text, crs, _bounds_union(zones, bases), frame)
+    names = list(dict.fromkeys(zones["zone"].tolist()))
+    cmap = matplotlib.colormaps[SEQUENTIAL_CMAP]
+    colour = {z: cmap(0.85 - 0.7 * i / max(len(names) - 1, 1)) for i, z in enumerate(names)}
+    faces = [colour[z] for z in zones["zone"].tolist()]
+    _draw_polygons(page.ax, zones.geometry.to_numpy(), faces, edgecolors="white", linewidths=0.6, zorder=1)
+    page.roads(roads)
+    page.bases(bases)
+    for z in names:
+        page.add_legend(Patch(fc=colour[z], ec="#777", lw=0.4), z)
+    page.legend("Demand zones")
+    return page.save(out_png, title)
+
+
 def _draw_closures(page: _Page, closure_areas: gpd.GeoDataFrame | None, closed_roads: gpd.GeoDataFrame | None) -> None:
     """A scenario's closed areas (hatched, outlined) and closed roads (dashed casing), with their legend entries."""
     if closure_areas is not None and len(closure_areas):

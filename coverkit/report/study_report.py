@@ -18,11 +18,12 @@ import rasterio
 from coverkit import CAUTION, __version__, siting_models
 from coverkit.coverage import GAP_COUNT_PREFIX, gap_count_columns
 from coverkit.demand_sources import row_word
-from coverkit.layer_names import map_file, output_file, slug
+from coverkit.layer_names import layer_name, map_file, output_file, slug
 from coverkit.report.html import HtmlReport
 from coverkit.report.maps import (
     MapFrame,
     coverage_depth_map,
+    density_zone_map,
     first_due_map,
     gaps_map,
     line_chart,
@@ -244,6 +245,19 @@ def _assumptions(page: ReportPage) -> None:
             "Gaps, coverage depth and first-due areas are drawn on a grid of road-near cells timed like demand points.",
         ]
     )
+    if run.study.units is not None:
+        rep.add_list(
+            [
+                f"Units: {run.study.units.file.name}; each unit leaves from its base with the staffing the table gives "
+                + (
+                    "and is counted at every hour. "
+                    if run.study.units.hour is None
+                    else f"and only the units in service at hour {run.study.units.hour:g} are counted. "
+                )
+                + "A standard by unit type or force is met when the units it names have "
+                "arrived (a unit counted once); their arrival times are known up to the standard's travel time.",
+            ]
+        )
 
 
 def _web_map(page: ReportPage) -> None:
@@ -295,6 +309,40 @@ def _standards(page: ReportPage) -> None:
                 rep.add_image(out[f"map_{kind}_{s}"], f"{what} areas - {srun.standard.name}")
 
 
+def _density_zones(page: ReportPage) -> None:
+    """The NFPA 1720 preset: the zones' map and each zone judged against its own row."""
+    from coverkit.nfpa import FROM_MEMORY
+
+    run, rep = page.run, page.rep
+    layers = run.density_layers
+    zones = layers[layer_name("density_zones")]
+    rep.add_heading("NFPA 1720 demand zones")
+    rep.add_list(
+        [
+            f"Zones by population density (over a square window of the population raster, or per block); rows "
+            f"{FROM_MEMORY}.",
+            "Each demand point counts in the zone it lies in and is judged against that zone's row (staff on scene "
+            "within the response time, turnout included).",
+        ]
+    )
+    _table(rep, zones.drop(columns="geometry"), "Demand zones")
+    for name in run.study.demand:
+        table = layers.get(layer_name("by_density_zone", name.name))
+        if table is not None:
+            _table(rep, table, f"Each zone against its own row - {name.name}", page.words.get(name.name, "points"))
+    png = density_zone_map(
+        map_file(page.folder, "density_zones"),
+        zones,
+        run.bases.rename(columns={"id": "base_id"}),
+        run.network.road_lines(),
+        "NFPA 1720 demand zones",
+        f"NFPA 1720 zones ({FROM_MEMORY})",
+        frame=study_map_frame(run, run.bases.rename(columns={"id": "base_id"})),
+    )
+    page.out["map_density_zones"] = png
+    rep.add_image(png, "NFPA 1720 demand zones by population density")
+
+
 def _siting(page: ReportPage) -> None:
     rep = page.rep
     plan = page.run.site_plan
@@ -334,6 +382,28 @@ def _availability(page: ReportPage) -> None:
         }
     )
     _table(rep, av.units, "Unit workloads (share of time busy) and calls answered per hour")
+    by_type = page.run.availability_stage.by_type
+    if by_type is not None:
+        rep.add_heading("By unit type, on the calls that need it", 3)
+        rep.add_paragraph(
+            "Each type is its own dispatch system (the same model) on the calls whose needs name it, at their share "
+            "of the call rate; a call needing two types keeps one unit of each busy."
+        )
+        cols = ["type", "calls_share", "units", "mean_workload", "drive_time_coverage", "availability_coverage"]
+        _table(rep, by_type.summary[cols], "Per unit type")
+        _table(rep, by_type.units, "Per unit of each type")
+
+
+def _unit_siting(page: ReportPage) -> None:
+    rep, stage = page.rep, page.run.unit_siting
+    s = stage.plan.summary
+    rep.add_heading(f"The next {s['unit_type']} units")
+    rep.add_paragraph(
+        f"{s['units_added']} unit(s) of {s['staffing']} people at existing bases or candidate sites, judged by "
+        f"{s['standard']}; {s['method']}; best possible: {s['best_possible']}. Covered "
+        f"{s['covered_share_before'] * 100:.1f} % -> {s['covered_share_after'] * 100:.1f} % of '{stage.demand}'."
+    )
+    _table(rep, stage.plan.chosen.drop(columns="geometry"), "Sites of the added units, in order")
 
 
 def _calibration(page: ReportPage) -> None:
@@ -411,7 +481,9 @@ REPORT_SECTIONS: tuple[ReportSection, ...] = (
     ReportSection("expected_cover", _expected_cover, lambda run: "expected_covered" in run.summary.columns),
     ReportSection("periods", _periods, lambda run: run.periods is not None),
     ReportSection("standards", _standards),
+    ReportSection("density_zones", _density_zones, lambda run: bool(getattr(run, "density_layers", None))),
     ReportSection("siting", _siting, lambda run: run.site_plan is not None),
+    ReportSection("unit_siting", _unit_siting, lambda run: getattr(run, "unit_siting", None) is not None),
     ReportSection("availability", _availability, lambda run: run.availability is not None),
     ReportSection("calibration", _calibration, lambda run: run.calibration is not None),
     ReportSection("simulation", lambda page: simulation_section(page), lambda run: run.simulation is not None),

@@ -63,6 +63,14 @@ HEADINGS: dict[str, str] = {
     "expected_covered": "expected covered (with spread)",
     "expected_covered_share": "expected covered with spread (%)",
     "p_in_standard": "chance within the standard",
+    "personnel_in_time": "people on scene in time",
+    "staff": "staff required",
+    "zone": "zone",
+    "people": "people",
+    "type": "unit type",
+    "unit_id": "unit",
+    "site_kind": "existing base or candidate",
+    "staffing": "people on the unit",
 }
 
 #: Columns (besides ``*_share``) holding a share 0..1, shown in percent.
@@ -76,7 +84,8 @@ WHOLE = {"demand_total", "covered", "uncovered", "covered_once", "covered_twice_
          "first_due_demand", "first_due_covered", "reaches_in_standard", "sole_cover", "uncovered_people",
          "uncovered_calls", "uncovered_demand",
          "added_demand", "added_weight", "added_second_weight", "only_this_site", "lost_weight", "gained_weight",
-         "demand", "weight", "points", "n", "n_routes", "new_sites", "calls", "expected_covered"}  # fmt: skip
+         "demand", "weight", "points", "n", "n_routes", "new_sites", "calls", "expected_covered", "people",
+         "personnel_in_time"}  # fmt: skip
 #: Speed factors and multipliers: two decimals (1.05 and 1.15 must not both read 1.1).
 FACTORS = {"factor", "multiplier", "factor_before", "factor_after", "f0", "f1"}
 

