@@ -289,7 +289,7 @@ def retime_network(net: RoadNetwork, profile: Profile, note_text: str = "") -> R
     info = dict(net.info)
     if note_text:
         info["changes"] = [*info.get("changes", []), note_text]
-    return RoadNetwork(net.nodes, new, net.crs, profile, info)
+    return RoadNetwork(net.nodes, new, net.crs, profile, info, turn_bans=net.turn_bans)
 
 
 def scaled_profile(profile: Profile, multipliers: dict[str, float], signal_delay_s: float | None = None) -> Profile:
@@ -1072,6 +1072,7 @@ def _fit_once(
     """One bounded robust least-squares fit on fixed routes; returns (multiplier per class, signal delay s)."""
     run_use = routes.run_use[usable]
     delay_use = routes.delay_use[usable]
+    turn_s = routes.turn_s[usable] if routes.turn_s is not None else 0.0  # turn costs: fixed, not fitted
     sig = np.asarray(delay_use @ model.signal_end)
     n_e = len(model.length_m)
     fe = np.flatnonzero(np.isin(model.class_code, fit_classes))
@@ -1088,7 +1089,7 @@ def _fit_once(
         m, d = unpack(x)
         run, below = model.run_s(m)
         delay_e = model.signal_end * d if fit_delay else model.fixed_delay_s
-        pred = run_use @ run + delay_use @ delay_e
+        pred = run_use @ run + delay_use @ delay_e + turn_s
         return np.maximum(pred, 1.0), run, below
 
     def resid(x: np.ndarray) -> np.ndarray:

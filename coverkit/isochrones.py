@@ -58,7 +58,8 @@ from coverkit.polygon_kernels import (
     trace_level,
 )
 from coverkit.progress import counted, note
-from coverkit.travel.search import _check_direction, nearest_node_times, node_time_blocks, run_s
+from coverkit.travel import turns
+from coverkit.travel.search import _check_direction, nearest_node_times, node_time_blocks, run_s, search_size
 from coverkit.travel.snap import DEFAULT_MAX_SNAP_M, Snapped, road_pieces, snap_points
 
 #: Default reach distance from a reached road (m): how far off the road a place still counts as reached.
@@ -157,11 +158,12 @@ def drive_time_polygons(
     n_workers = max(1, min(workers or os.cpu_count() or 1, len(snapped)))
     # one source's row at a time from chunked dense blocks (memory: a chunk, plus the rows in flight); the "any
     # base" times are their running least (the multi-source search from all bases at once)
-    d_any = np.full(net.n_nodes, np.inf) if any_base else None
+    # times at every vertex of the search graph (with turns modelled, the turn states give each edge's start)
+    d_any = np.full(search_size(net), np.inf) if any_base else None
 
     def per_base_results(pool):
         pending: deque = deque()
-        for src, block in node_time_blocks(net, snapped, float(bands_s[-1]), direction):
+        for src, block in node_time_blocks(net, snapped, float(bands_s[-1]), direction, states=True):
             for r, i in enumerate(src):
                 lap("search")
                 if d_any is not None:
@@ -407,8 +409,13 @@ def reached_pieces(
     pieces = road_pieces(net)
     n_b = len(bands_s)
     node_s = np.asarray(node_s, dtype=float)
-    nodes = np.flatnonzero(node_s <= bands_s[-1])
     ptr, e_run, e_delay, e_piece, e_rev = _edge_lists(net, direction)
+    anchor = turns.edge_anchor_s(net, node_s, direction)
+    if anchor is not None:
+        # turns modelled: each edge is looked at from its own start time (the kernel's "node" is then the edge)
+        node_s = np.ascontiguousarray(anchor[_edge_order(net, direction)])
+        ptr = np.arange(len(node_s) + 1, dtype=np.int64)
+    nodes = np.flatnonzero(node_s <= bands_s[-1])
     n_p = len(pieces.rep_edge)
     # per touched piece and band, the longest stretch reached from each end (the union of stretches anchored at
     # one end is the longest of them), in one compiled pass over the edges at the reached nodes
@@ -538,6 +545,14 @@ def _edge_lists(net: RoadNetwork, direction: str) -> tuple[np.ndarray, ...]:
             pieces.piece_of_edge[order].astype(np.int64),
             pieces.reversed_of_edge[order].copy(),
         )
+    return net._csr_cache[key]
+
+
+def _edge_order(net: RoadNetwork, direction: str) -> np.ndarray:
+    """The edges in the grouped order of :func:`_edge_lists` (cached)."""
+    key = f"coverkit.isochrones:edge_order:{direction}"
+    if key not in net._csr_cache:
+        net._csr_cache[key] = np.argsort(_u(net) if direction == "out" else _v(net), kind="stable")
     return net._csr_cache[key]
 
 
@@ -1067,7 +1082,7 @@ def travel_surface(
         if len(match) == 0:
             raise CoverkitError(f"base '{base_id}' is not in the bases file; give one of its ids.")
         snapped = snapped.subset(match[:1])
-    d, _ = nearest_node_times(net, snapped, limit_s, direction=direction)
+    d, _ = nearest_node_times(net, snapped, limit_s, direction=direction, states=True)
     with _compile_notice():
         reached = reached_pieces(net, d, snapped, np.array([limit_s]), direction)
     # sample reached road every cell/2 with exact times; the time of a sample is its minimum over increments
@@ -1113,10 +1128,13 @@ def _time_at(net, node_s, sources, piece, f, direction) -> np.ndarray:
         np.repeat(pieces.members_ptr[piece], cnt) + np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
     ]
     fe = np.where(pieces.reversed_of_edge[e], 1.0 - f[idx], f[idx])
+    anchor = turns.edge_anchor_s(net, node_s, direction)
+    if anchor is None:
+        anchor = node_s[net.u] if direction == "out" else node_s[net.v]
     if direction == "out":
-        t = node_s[net.u[e]] + fe * run[e]
+        t = anchor[e] + fe * run[e]
     else:
-        t = node_s[net.v[e]] + delay[e] + (1.0 - fe) * run[e]
+        t = anchor[e] + delay[e] + (1.0 - fe) * run[e]
     np.minimum.at(best, idx, t)
     # source points on the piece: along their own edge in the driving direction
     sp_e = sources.entry_edge

@@ -40,7 +40,7 @@ from coverkit.scenario import (
     edge_changes,
     slowed_travel_s,
 )
-from coverkit.travel import nearest_sources, node_times, snap_points
+from coverkit.travel import nearest_sources, node_times, snap_points, turns
 from coverkit.travel.repair import can_repair, repaired_node_times
 from coverkit.travel.search import CHUNK_CELLS, dense_to_csr, exits, same_edge_min
 from coverkit.travel.snap import Snapped
@@ -93,7 +93,7 @@ def times_from_nodes(
     t_pt, t_node, t_add = exits(net, sub, direction)
     starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
     with_entries = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
-    chunk = max(1, CHUNK_CELLS // max(net.n_nodes, len(t_pt), 1))
+    chunk = max(1, CHUNK_CELLS // max(node_t.shape[1], len(t_pt), 1))
     out_r, out_c, out_t = [], [], []
     for start in range(0, len(rows), chunk):
         r = rows[start : start + chunk]
@@ -321,8 +321,7 @@ class WhatIf:
         stored = sp.csr_matrix(stored)
         is_changed = self.net.travel_s != net2.travel_s
         cols = np.unique(points.entry_point[is_changed[points.entry_edge]])
-        _, e_node, _ = exits(self.net, points, self.direction)
-        e_point = points.entry_point
+        e_point, e_node, _ = exits(self.net, points, self.direction)
         kept_parts, full_rows, redo_of = [], [], {}
         old_row = [where[b] if b not in again else self._same_snap(b, where, new_ids, base_snap2) for b in new_ids]
         moved_of = self._moved_nodes(new_ids, again, old_row, node_t2, known_moved or {})
@@ -439,9 +438,15 @@ class WhatIf:
         u, v = self.net.u[changed], self.net.v[changed]
         tail, head = (u, v) if self.direction == "out" else (v, u)
         w = np.maximum(np.minimum(old[changed], new[changed]), MIN_EDGE_S)
+        if turns.active(self.net):
+            # with turns modelled the searches run on the turn-aware graph: test its arcs that carry these edges
+            arcs = turns.changed_arcs(self.net, changed, w, self.direction)
+            if arcs is None:
+                return np.ones(len(self.bases), dtype=bool)
+            tail, head, w = arcs
         # a base seated on a changed edge starts differently
         hit[np.unique(self.base_snap.entry_point[np.isin(self.base_snap.entry_edge, changed)])] = True
-        chunk = max(1, CHUNK_CELLS // max(self.net.n_nodes, 1))
+        chunk = max(1, CHUNK_CELLS // max(self.node_t.shape[1], 1))
         tol_s = 1e-7  # conservative: a near-tie counts as tight, so a base is searched again rather than skipped
         for start in range(0, len(self.bases), chunk):
             r = np.arange(start, min(start + chunk, len(self.bases)))
@@ -515,7 +520,7 @@ class WhatIf:
                 parts_t.append(fresh.data)
             node_t2 = sp.csr_matrix(
                 (np.concatenate(parts_t), (np.concatenate(parts_r), np.concatenate(parts_c))),
-                shape=(len(new_ids), net2.n_nodes),
+                shape=(len(new_ids), self.node_t.shape[1]),  # the search graph's vertices (turn states too)
             )
         results = {}
         again = {new_ids[i] for i in rows_new}

@@ -37,6 +37,7 @@ LAYER_SUFFIXES = (".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gml", ".zip")
 _FORWARD = frozenset({"yes", "true", "1"})
 _BACKWARD = frozenset({"-1", "reverse"})
 _TWO_WAY = frozenset({"no", "false", "0"})
+_REVERSIBLE = frozenset({"reversible"})  # OSM wiki, key:oneway: the direction changes with the time of day
 _ROUNDABOUT = frozenset({"roundabout", "circular"})  # OSM wiki, key:junction: implies oneway=yes
 
 
@@ -57,6 +58,7 @@ class BuildReport:
     km_dropped: float = 0.0
     signals: int = 0
     oneway_segments: int = 0
+    turns: dict[str, int | str] = field(default_factory=dict)
 
     def to_dict(self) -> dict:
         """JSON-serialisable form."""
@@ -90,12 +92,34 @@ class BuildReport:
                     f"  ({', '.join(r['class_values_unmapped'])}; map them with class_map=VALUE:class)"
                 )
             lines.append(f"  near-miss endpoints (check data)  {r.get('near_miss_endpoints', 0):>8,}")
+        if "gates_read" in r:
+            lines.append(f"  road pieces closed by gates       {r.get('segments_closed_by_gates', 0):>8,}")
         lines.append(f"  segments outside boundary+buffer  {self.outside_boundary:>8,}")
         lines.append(
             f"  disconnected pieces               {self.pieces_dropped:>8,}"
             f"  ({self.edges_dropped:,} edges, {self.km_dropped:,.2f} km)"
         )
-        return "\n".join(lines)
+        return "\n".join(lines + self._turn_lines())
+
+    def _turn_lines(self) -> list[str]:
+        """What was read and used of the turn restrictions, directional speeds, reversible ways and gates."""
+        t, r = self.turns, self.read
+        if not t and "gates_read" not in r:
+            return []
+        rows = []
+        if t:
+            rows.append(("turn restrictions read", f"{t.get('restrictions_read', 0):,}"))
+            rows.append(("  matched to kept roads", f"{t.get('restrictions_used', 0):,}"))
+            if t.get("restrictions_exempt"):
+                rows.append(("  not for this vehicle (except=)", f"{t['restrictions_exempt']:,}"))
+            rows.append(("banned turns stored", f"{t.get('bans', 0):,}  ({t.get('policy', '')} by this profile)"))
+            rows.append(("turn costs (s)", t.get("costs", "")))
+        if "gates_read" in r:
+            rows.append(("gates read / closed", f"{r['gates_read']:,} / {r.get('gates_closed', 0):,}"))
+            rows.append(("ways with maxspeed:forward/back", f"{r.get('maxspeed_directional_ways', 0):,}"))
+        if "reversible_segments" in t:
+            rows.append(("oneway=reversible segments", f"{t['reversible_segments']:,}  ({t.get('reversible')})"))
+        return ["", "turns and special tags", *(f"  {label:<34}{value}" for label, value in rows)]
 
 
 def source_kind(path: Path) -> str:
@@ -246,6 +270,7 @@ def build_network(
     network_edges, nodes, dropped = _largest_strong_piece(network_edges, nodes)
     if len(network_edges) == 0:
         raise NetworkError(f"{source}: the drivable roads form no connected network; check the data.")
+    bans, turn_counts = _turn_bans(raw, network_edges, nodes, segments, prof)
     report = BuildReport(
         source=str(source),
         profile=prof.name,
@@ -260,6 +285,7 @@ def build_network(
         km_dropped=dropped["km"],
         signals=int(nodes["signal"].sum()),
         oneway_segments=int((network_edges["oneway"] & ~network_edges["against_oneway"]).sum()),
+        turns=turn_counts,
     )
     steps.step("done")
     nodes_gdf = gpd.GeoDataFrame(nodes, geometry=shapely.points(nodes[["x", "y"]].to_numpy()), crs=target)
@@ -273,7 +299,36 @@ def build_network(
         "source_sha256": file_digest(source) if source.is_file() else "",
         **report.to_dict(),
     }
-    return RoadNetwork(nodes_gdf, edges_gdf, target, prof, info), report
+    return RoadNetwork(nodes_gdf, edges_gdf, target, prof, info, turn_bans=bans), report
+
+
+def _turn_bans(
+    raw: RawRoads, edges: pd.DataFrame, nodes: pd.DataFrame, segments: pd.DataFrame, prof: Profile
+) -> tuple[pd.DataFrame | None, dict]:
+    """The turn restrictions of ``raw`` as banned edge sequences of the kept edges, and what was read and used."""
+    from coverkit.network.osm_restrictions import resolve_bans
+
+    if raw.restrictions is None:
+        return None, {}
+    bans, counts = resolve_bans(
+        raw.restrictions,
+        u=edges["u"].to_numpy(),
+        v=edges["v"].to_numpy(),
+        way=edges["source_id"].to_numpy(),
+        node_id=nodes["node_id"].to_numpy(),
+        vehicle=prof.access_keys[0],
+    )
+    rules = prof.turns
+    oneway = segments["oneway"].fillna("").astype(str).str.lower().str.strip()
+    counts.update(
+        bans=len(bans),
+        policy="obeyed" if rules.obeys else "ignored",
+        costs=f"straight {rules.straight_s:g}, right {rules.right_s:g}, left {rules.left_s:g}, "
+        f"U-turn {rules.uturn_s:g}",
+        reversible_segments=int(oneway.isin(sorted(_REVERSIBLE)).sum()),
+        reversible=prof.reversible,
+    )
+    return bans, counts
 
 
 def geodesic_length_m(lonlat_lines: np.ndarray) -> np.ndarray:
@@ -287,9 +342,13 @@ def geodesic_length_m(lonlat_lines: np.ndarray) -> np.ndarray:
     return np.bincount(index[1:][same], weights=np.asarray(dist)[same], minlength=len(lonlat_lines))
 
 
-def _directions(segments: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
-    """Forward and backward travel allowed per segment, from ``oneway``, ``junction`` and the road class."""
+def _directions(segments: pd.DataFrame, reversible: str = "two_way") -> tuple[np.ndarray, np.ndarray]:
+    """Forward and backward travel allowed per segment, from ``oneway``, ``junction`` and the road class.
+
+    ``oneway=reversible`` (direction set by the hour) is two-way or closed as the profile's ``reversible`` says.
+    """
     oneway = segments["oneway"].fillna("").astype(str).str.lower().str.strip().to_numpy()
+    closed = np.isin(oneway, list(_REVERSIBLE)) & (reversible == "closed")
     junction = segments["junction"].fillna("").astype(str).str.lower().to_numpy()
     highway = segments["highway"].to_numpy(dtype=object)
     backward_only = np.isin(oneway, list(_BACKWARD))
@@ -299,7 +358,7 @@ def _directions(segments: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
         & ~backward_only
         & (np.isin(junction, list(_ROUNDABOUT)) | np.isin(highway, list(IMPLIED_ONEWAY_CLASSES)))
     )
-    return ~backward_only, ~forward_only
+    return ~backward_only & ~closed, ~forward_only & ~closed
 
 
 def _directed_edges(
@@ -309,11 +368,17 @@ def _directed_edges(
     raw_nodes: pd.DataFrame,
     prof: Profile,
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
-    fwd, bwd = _directions(segments)
+    fwd, bwd = _directions(segments, prof.reversible)
     n_seg = len(segments)
     posted = segments["speed_kph"].to_numpy(dtype=float).copy()
     missing = ~np.isfinite(posted)
     posted[missing] = parse_maxspeed_array(segments["maxspeed"].to_numpy(dtype=object)[missing])
+    # maxspeed:forward / :backward (along / against the way's drawn direction) refine maxspeed per direction
+    posted_dir = [posted, posted]
+    for d, col in enumerate(("maxspeed_forward", "maxspeed_backward")):
+        if col in segments.columns:
+            parsed = parse_maxspeed_array(segments[col].to_numpy(dtype=object))
+            posted_dir[d] = np.where(missing & np.isfinite(parsed), parsed, posted)
     road_class = segments["highway"].to_numpy(dtype=object)
     oneway = fwd ^ bwd
 
@@ -355,10 +420,12 @@ def _directed_edges(
     node_x[v_idx], node_y[v_idx] = shapely.get_x(ends), shapely.get_y(ends)
 
     seg_len = length_m[sel]
+    # direction 0 travels along the way (maxspeed:forward), direction 1 against it (maxspeed:backward)
+    posted_edge = np.where(direction == 0, posted_dir[0][sel], posted_dir[1][sel])
     times = edge_times(
         prof,
         road_class=road_class[sel],
-        posted_kph=posted[sel],
+        posted_kph=posted_edge,
         length_m=seg_len,
         against_oneway=against,
         signal_at_end=signal[v],
@@ -369,7 +436,7 @@ def _directed_edges(
             "v": v.astype(np.int64),
             "road_class": pd.array(road_class[sel].astype(str), dtype="str"),
             "length_m": seg_len,
-            "posted_kph": posted[sel],
+            "posted_kph": posted_edge,
             "speed_kph": times.speed_kph,
             "delay_s": times.delay_s,
             "travel_s": times.travel_s,

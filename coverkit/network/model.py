@@ -32,6 +32,8 @@ if TYPE_CHECKING:
 
 FORMAT_VERSION = 1
 INFO_LAYER = "build_info"
+#: GeoPackage table of the turn bans, and the prefix of their arrays in the columnar copy.
+BANS_LAYER, BAN_PREFIX = "turn_bans", "turns."
 
 #: Edge columns every network carries, in this order (geometry last).
 EDGE_COLUMNS = [
@@ -82,6 +84,10 @@ class RoadNetwork:
         The speed profile the network was built with.
     info
         Build summary (JSON-serialisable): source, counts, what was dropped.
+    turn_bans
+        Banned turns from the road data's turn restrictions (:data:`coverkit.network.osm_restrictions.BAN_COLUMNS`:
+        ``from_edge -> to_edge``, or ``from_edge -> via_edge -> to_edge``); None or empty when there are none. Used
+        by searches when the profile obeys restrictions (:mod:`coverkit.travel.turns`).
     """
 
     nodes: gpd.GeoDataFrame
@@ -89,6 +95,7 @@ class RoadNetwork:
     crs: CRS
     profile: Profile
     info: dict = field(default_factory=dict)
+    turn_bans: pd.DataFrame | None = None
     _csr_cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
     #: The columnar copy a loaded network reads its columns from (None: the tables above are the data).
     _store: object = field(default=None, init=False, repr=False, compare=False)
@@ -96,11 +103,19 @@ class RoadNetwork:
     _overrides: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     @classmethod
-    def _from_store(cls, store: object, crs: CRS, profile: Profile, info: dict, overrides: dict | None = None):
+    def _from_store(
+        cls, store: object, crs: CRS, profile: Profile, info: dict, overrides: dict | None = None, turn_bans=None
+    ):
         """A network whose ``nodes`` and ``edges`` tables are built from ``store`` only when first used."""
         net = object.__new__(cls)
         net.__dict__.update(
-            crs=crs, profile=profile, info=info, _csr_cache={}, _store=store, _overrides=dict(overrides or {})
+            crs=crs,
+            profile=profile,
+            info=info,
+            turn_bans=turn_bans,
+            _csr_cache={},
+            _store=store,
+            _overrides=dict(overrides or {}),
         )
         return net
 
@@ -246,14 +261,16 @@ class RoadNetwork:
         if self._lazy():
             # the copy keeps serving the unchanged columns; only the new ones are held
             base = {k: v for k, v in self._overrides.items() if k not in (CLOSED_FROM_COL, CLOSED_TO_COL, STUB_RUN_COL)}
-            out = RoadNetwork._from_store(self._store, self.crs, self.profile, info, {**base, **changed})
+            out = RoadNetwork._from_store(
+                self._store, self.crs, self.profile, info, {**base, **changed}, turn_bans=self.turn_bans
+            )
             if "nodes" in self.__dict__:
                 out.__dict__["nodes"] = self.nodes
         else:
             edges = self.edges.drop(columns=[CLOSED_FROM_COL, CLOSED_TO_COL, STUB_RUN_COL], errors="ignore")
             for name, values in changed.items():
                 edges[name] = values
-            out = RoadNetwork(self.nodes, edges, self.crs, self.profile, info)
+            out = RoadNetwork(self.nodes, edges, self.crs, self.profile, info, turn_bans=self.turn_bans)
         out._csr_cache.update({k: v for k, v in self._csr_cache.items() if k.startswith(GEOMETRY_CACHE)})
         if "travel_s" in self._csr_cache:
             # a what-if changes a handful of edges: patch the search graph instead of sorting every edge again
@@ -370,6 +387,8 @@ class RoadNetwork:
         hashed |= {"n.xy": node_xy, **{f"g.{k}": v for k, v in edge_geo.items()}}
         texts = json.dumps([node_table.text, edge_table.text, meta], sort_keys=True).encode()
         hashed["meta"] = np.frombuffer(texts, dtype=np.uint8)
+        bans = ban_arrays(self.turn_bans)
+        hashed |= bans
         build_id = content_id(hashed)
         info_rows = {**meta, "build_id": build_id}
         info_df = pd.DataFrame({"key": list(info_rows), "value": list(info_rows.values())})
@@ -377,16 +396,16 @@ class RoadNetwork:
         with atomic_path(path) as tmp:
             # the GeoPackage (SQLite, one row at a time) is written by a forked child while this process writes the
             # columnar copy and the indexes: the two jobs run on two cores
-            child = _fork(lambda: _write_gpkg(tmp, nodes, edges, info_df)) if arrays else None
+            child = _fork(lambda: _write_gpkg(tmp, nodes, edges, info_df, self.turn_bans)) if arrays else None
             try:
                 if child is None:
-                    _write_gpkg(tmp, nodes, edges, info_df)
+                    _write_gpkg(tmp, nodes, edges, info_df, self.turn_bans)
                 if arrays:
                     staged = _stage_or_note(path, parts, self, indexes)
             finally:
                 if child is not None and not _child_ok(child):
                     _remove_partial(tmp)
-                    _write_gpkg(tmp, nodes, edges, info_df)  # the child failed: write it here instead
+                    _write_gpkg(tmp, nodes, edges, info_df, self.turn_bans)  # the child failed: write it here instead
         if staged is not None:
             _commit_or_note(path, staged, build_id, parts[4])
         return path
@@ -458,7 +477,8 @@ class RoadNetwork:
         store = NetworkArrays(copy)
         if store.nodes.length and store.edges.length != len(copy.array("edges.geometry_offsets")) - 1:
             raise ValueError("edge geometry count")
-        net = cls._from_store(store, crs, profile, json.loads(meta["info_json"]))
+        bans = bans_from_arrays({k: copy.array(k) for k in copy.manifest["arrays"] if k.startswith(BAN_PREFIX)})
+        net = cls._from_store(store, crs, profile, json.loads(meta["info_json"]), turn_bans=bans)
         if copy.has("csr.travel_s.indptr"):
             n = store.nodes.length
             arrays = (copy.array(f"csr.travel_s.{k}") for k in ("data", "indices", "indptr"))
@@ -495,14 +515,21 @@ class RoadNetwork:
         nodes = nodes.set_crs(crs, allow_override=True)
         edges = edges.set_crs(crs, allow_override=True)
         edges["name"] = edges["name"].fillna("")
-        return cls(nodes, edges, crs, profile, json.loads(meta["info_json"]))
+        bans = pyogrio.read_dataframe(path, layer=BANS_LAYER) if BANS_LAYER in layers else None
+        if bans is not None:
+            bans = bans.astype({c: np.int64 for c in ("relation_id", "from_edge", "via_edge", "to_edge")})
+        return cls(nodes, edges, crs, profile, json.loads(meta["info_json"]), turn_bans=bans)
 
 
-def _write_gpkg(tmp: Path, nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, info_df: pd.DataFrame) -> None:
-    """The three layers of a network GeoPackage."""
+def _write_gpkg(
+    tmp: Path, nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, info_df: pd.DataFrame, bans: pd.DataFrame | None
+) -> None:
+    """The layers of a network GeoPackage (the turn bans' table only when there are some)."""
     pyogrio.write_dataframe(nodes, tmp, layer="nodes", driver="GPKG")
     pyogrio.write_dataframe(edges, tmp, layer="edges", driver="GPKG", append=True)
     pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
+    if bans is not None and len(bans):
+        pyogrio.write_dataframe(pd.DataFrame(bans), tmp, layer=BANS_LAYER, driver="GPKG", append=True)
 
 
 def _fork(job: Callable[[], None]) -> int | None:
@@ -584,6 +611,7 @@ def _stage_or_note(path: Path, parts: tuple, net: RoadNetwork, indexes: tuple = 
     node_table, node_xy, edge_table, edge_geo, _ = parts
     try:
         extra = _csr_arrays(net.csr() if net.n_edges else None)
+        extra.update(ban_arrays(net.turn_bans))
         for index in indexes:
             extra.update(index(net))
         return stage_copy(path, nodes=node_table, node_xy=node_xy, edges=edge_table, edge_geo=edge_geo, extra=extra)
@@ -591,6 +619,26 @@ def _stage_or_note(path: Path, parts: tuple, net: RoadNetwork, indexes: tuple = 
         remove_copy(path)
         note(f"network {path.name}: columnar copy not written ({exc}); loads will read the GeoPackage")
         return None
+
+
+def ban_arrays(bans: pd.DataFrame | None) -> dict[str, np.ndarray]:
+    """The turn bans as named arrays of the columnar copy (none when there are no bans)."""
+    if bans is None or len(bans) == 0:
+        return {}
+    out = {
+        f"{BAN_PREFIX}{c}": bans[c].to_numpy(dtype=np.int64)
+        for c in ("relation_id", "from_edge", "via_edge", "to_edge")
+    }
+    out[f"{BAN_PREFIX}restriction"] = bans["restriction"].to_numpy(dtype=str)
+    return out
+
+
+def bans_from_arrays(arrays: dict[str, np.ndarray]) -> pd.DataFrame | None:
+    """The turn bans from the columnar copy's arrays (None when it holds none)."""
+    if not arrays:
+        return None
+    cols = ("relation_id", "restriction", "from_edge", "via_edge", "to_edge")
+    return pd.DataFrame({c: np.asarray(arrays[f"{BAN_PREFIX}{c}"]) for c in cols}).astype({"restriction": object})
 
 
 def _json_default(obj: object) -> object:
@@ -683,7 +731,13 @@ def network_from_arrays(
     u = np.asarray(u, dtype=np.int64)
     v = np.asarray(v, dtype=np.int64)
     n_edges = len(u)
-    profile = profile or load_profile("normal")
+    if profile is None:
+        # arrays carry no turn data: the normal profile's speeds, without its turn costs
+        import dataclasses
+
+        from coverkit.network.turn_rules import TurnRules
+
+        profile = dataclasses.replace(load_profile("normal"), turns=TurnRules(), source_text="")
     signal = np.zeros(len(xy), dtype=bool) if signal is None else np.asarray(signal, dtype=bool)
     if geometry is None:
         coords = np.stack([xy[u], xy[v]], axis=1).reshape(-1, 2)

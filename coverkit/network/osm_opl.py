@@ -19,7 +19,9 @@ import re
 import numpy as np
 import pandas as pd
 
-from coverkit.network.osm_ways import WAY_TAGS, OsmWays, tags_frame
+from coverkit.network.osm_restrictions import GATE_BARRIERS, restrictions_frame
+from coverkit.network.osm_ways import WAY_TAGS, OsmWays, gates_frame, tags_frame
+from coverkit.network.profile import ACCESS_KEYS
 
 _SPACE, _NEWLINE, _COMMA = ord(" "), ord("\n"), ord(",")
 _ESCAPE = re.compile(r"%([0-9a-fA-F]+)%")
@@ -46,16 +48,24 @@ def parse_highway_opl(text: bytes) -> OsmWays:
     w_start, w_end = line_start[ways], line_end[ways]
     w_sp1 = spaces[first_sp[ways]]
     w_sp2 = spaces[first_sp[ways] + 1]
-    way_id = parse_ints(buf, w_start + 1, w_sp1)
     tags = tags_frame_from_fields(text, w_sp1 + 2, w_sp2, WAY_TAGS)
+    # ways kept for other keys (a fence's barrier) are not roads
+    road = tags["highway"].notna().to_numpy()
+    w_start, w_end, w_sp1, w_sp2 = w_start[road], w_end[road], w_sp1[road], w_sp2[road]
+    tags = tags[road].reset_index(drop=True)
+    way_id = parse_ints(buf, w_start + 1, w_sp1)
     refs, lon_e7, lat_e7, count = _way_nodes(buf, w_sp2 + 2, w_end)
 
     n_start = line_start[nodes]
     n_sp1 = spaces[first_sp[nodes]]
     n_sp2 = spaces[first_sp[nodes] + 1]
-    node_tags = tags_frame_from_fields(text, n_sp1 + 2, n_sp2, ("highway",))
+    node_tags = tags_frame_from_fields(text, n_sp1 + 2, n_sp2, ("highway", "barrier", *ACCESS_KEYS))
+    n_ids = parse_ints(buf, n_start + 1, n_sp1)
     signal = node_tags["highway"].to_numpy(dtype=object) == "traffic_signals"
-    signal_ids = np.unique(parse_ints(buf, n_start + 1, n_sp1)[signal])
+    signal_ids = np.unique(n_ids[signal])
+    gate = node_tags["barrier"].isin(sorted(GATE_BARRIERS)).to_numpy()
+    gates = gates_frame(n_ids[gate].tolist(), node_tags[gate].to_dict("records"))
+    restrictions = restrictions_frame(_relations(text, line_start[kind == ord("r")], line_end[kind == ord("r")]))
 
     offsets = np.concatenate([[0], np.cumsum(count)]).astype(np.int64)
     order = np.argsort(way_id, kind="stable")
@@ -76,7 +86,24 @@ def parse_highway_opl(text: bytes) -> OsmWays:
         lon=lon_e7[first] / COORDINATE_PRECISION,
         lat=lat_e7[first] / COORDINATE_PRECISION,
         signal_ids=signal_ids,
+        restrictions=restrictions,
+        gates=gates,
     )
+
+
+def _relations(text: bytes, lo: np.ndarray, hi: np.ndarray) -> list[dict]:
+    """Relation lines ``r<id> T<tags> M<type><ref>@<role>,...`` as dicts (relations are few: a Python pass each)."""
+    kinds = {"n": "node", "w": "way", "r": "relation"}
+    out = []
+    for a, b in zip(lo.tolist(), hi.tolist(), strict=True):
+        fields = text[a:b].decode("utf-8").split(" ")
+        tags = _decode_tags(fields[1][1:].encode()) if len(fields) > 1 else {}
+        members = []
+        for m in fields[2][1:].split(",") if len(fields) > 2 and len(fields[2]) > 1 else []:
+            ref, _, role = m[1:].partition("@")
+            members.append({"type": kinds.get(m[:1], ""), "ref": int(ref), "role": _unescape(role)})
+        out.append({"id": int(fields[0][1:]), "tags": tags, "members": members})
+    return out
 
 
 def _ranges(start: np.ndarray, count: np.ndarray) -> np.ndarray:

@@ -16,12 +16,14 @@ from coverkit.errors import InputFileError
 from coverkit.network.osm_opl import parse_highway_opl
 from coverkit.network.osm_ways import OsmWays
 
+#: Objects kept: roads and signals (``highway``), gates (``barrier``), turn restrictions (relations' ``type``).
+OSM_KEYS = ("highway", "barrier", "type")
 #: libosmium output options: OPL text, no version/user metadata, node locations written on the way nodes.
 OPL_FORMAT = "opl,add_metadata=false,locations_on_ways=true"
 
 
 def read_osm_pbf(path: str | Path) -> OsmWays:
-    """Read highway ways, their node locations and traffic-signal nodes from an OSM PBF file.
+    """Read highway ways, their node locations, traffic-signal and gate nodes and turn restrictions from a PBF file.
 
     Raises
     ------
@@ -40,7 +42,7 @@ def read_osm_pbf(path: str | Path) -> OsmWays:
 
 
 def extract_highways(path: Path, opl: Path) -> None:
-    """Write the objects of ``path`` tagged ``highway`` to ``opl`` (OPL with node locations), all in libosmium."""
+    """Write the objects of ``path`` tagged with one of :data:`OSM_KEYS` to ``opl`` (OPL, node locations on ways)."""
     import osmium
 
     try:
@@ -49,7 +51,7 @@ def extract_highways(path: Path, opl: Path) -> None:
         locations = osmium.NodeLocationsForWays(osmium.index.create_map("flex_mem"))
         locations.ignore_errors()
         with osmium.SimpleWriter(osmium.io.File(str(opl), OPL_FORMAT)) as writer:
-            osmium.apply(str(path), locations, osmium.filter.KeyFilter("highway"), writer)
+            osmium.apply(str(path), locations, osmium.filter.KeyFilter(*OSM_KEYS), writer)
     except RuntimeError as exc:
         raise InputFileError(
             f"{path}: not readable as OSM PBF ({str(exc)[:80]}); give an .osm.pbf, .osm or .osm.bz2 file."

@@ -6,24 +6,30 @@ drivable filter and the splitting below are the same code for both, so the two r
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 import shapely
 from pyproj import CRS
 
-from coverkit.network.profile import Profile
+from coverkit.network.osm_restrictions import READ_COLUMNS
+from coverkit.network.profile import ACCESS_KEYS, Profile
 from coverkit.network.raw import SEGMENT_COLUMNS, RawRoads
 
 #: Way tags kept from OSM (``motor_vehicle`` refines ``access`` for cars and trucks).
 WAY_TAGS = (
     "highway",
     "maxspeed",
+    "maxspeed:forward",
+    "maxspeed:backward",
     "oneway",
     "junction",
     "access",
     "motor_vehicle",
+    "motorcar",
+    "vehicle",
+    "emergency",
     "bridge",
     "tunnel",
     "name",
@@ -54,6 +60,10 @@ class OsmWays:
         Located nodes (sorted by id): ids, longitude and latitude (degrees).
     signal_ids
         Ids of nodes tagged ``highway=traffic_signals``.
+    restrictions
+        Turn restrictions as read (:data:`coverkit.network.osm_restrictions.READ_COLUMNS`).
+    gates
+        Gate nodes: ``node_id`` and the access tags :data:`coverkit.network.profile.ACCESS_KEYS` (None where absent).
     """
 
     way_id: np.ndarray
@@ -64,6 +74,43 @@ class OsmWays:
     lon: np.ndarray
     lat: np.ndarray
     signal_ids: np.ndarray
+    restrictions: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=list(READ_COLUMNS)))
+    gates: pd.DataFrame = field(default_factory=lambda: gates_frame([], []))
+
+
+def gates_frame(node_ids: list[int], tags: list[dict]) -> pd.DataFrame:
+    """Gate nodes with their access tags (one row per node, sorted by id)."""
+    frame = pd.DataFrame({"node_id": np.asarray(node_ids, dtype=np.int64)})
+    for key in ACCESS_KEYS:
+        frame[key] = pd.Series([t.get(key) for t in tags], dtype=object)
+    return frame.sort_values("node_id", kind="stable").reset_index(drop=True)
+
+
+def access_value(tags: pd.DataFrame, profile: Profile) -> tuple[np.ndarray, np.ndarray]:
+    """The access value that decides for the profile (its first access key tagged) and that key, per row.
+
+    Values are lower-cased; "" (and key "") where none of the profile's keys is tagged.
+    """
+    value = np.full(len(tags), "", dtype=object)
+    key = np.full(len(tags), "", dtype=object)
+    for k in reversed(profile.access_keys):
+        if k not in tags.columns:
+            continue
+        col = tags[k]
+        has = col.notna().to_numpy()
+        value[has] = col[has].astype(str).str.lower().to_numpy()
+        key[has] = k
+    return value, key
+
+
+def closing_access(value: np.ndarray, key: np.ndarray, profile: Profile) -> np.ndarray:
+    """Whether each access value closes the road (or gate) to the profile's vehicle.
+
+    ``private_access`` reopens all but the physically impassable values; an explicit ``emergency=no`` always closes.
+    """
+    closing = CLOSED_ALWAYS if profile.private_access else CLOSED_ACCESS | CLOSED_ALWAYS
+    closed = np.isin(value, np.array(sorted(closing), dtype=object))
+    return closed | ((key == "emergency") & (value == "no"))
 
 
 def drivable_mask(tags: pd.DataFrame, profile: Profile) -> tuple[np.ndarray, np.ndarray]:
@@ -72,16 +119,14 @@ def drivable_mask(tags: pd.DataFrame, profile: Profile) -> tuple[np.ndarray, np.
     Returns
     -------
     road, closed
-        ``road``: the ``highway`` value is one of the profile's classes. ``closed``: a road whose ``access`` (or
-        the more specific ``motor_vehicle``) tag closes it; the profile's ``private_access`` reopens all but the
-        physically impassable ones.
+        ``road``: the ``highway`` value is one of the profile's classes. ``closed``: a road whose access tag (the
+        first of the profile's ``access_keys`` tagged, see :func:`access_value`) closes it; the profile's
+        ``private_access`` reopens all but the physically impassable ones.
     """
     highway = tags["highway"].to_numpy(dtype=object)
     road = np.isin(highway, np.array(profile.road_classes, dtype=object))
-    access = tags["motor_vehicle"].where(tags["motor_vehicle"].notna(), tags["access"])
-    access = access.fillna("").astype(str).str.lower().to_numpy()
-    closing = CLOSED_ALWAYS if profile.private_access else CLOSED_ACCESS | CLOSED_ALWAYS
-    closed = road & np.isin(access, np.array(sorted(closing), dtype=object))
+    value, key = access_value(tags, profile)
+    closed = road & closing_access(value, key, profile)
     return road, closed
 
 
@@ -131,7 +176,12 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     is_last[:-1] = way_of_ref[1:] != way_of_ref[:-1]
     uniq, inverse, counts = np.unique(refs, return_inverse=True, return_counts=True)
     signal_node = np.isin(uniq, ways.signal_ids)
-    split = is_first | is_last | (counts[inverse] > 1) | signal_node[inverse]
+    closed_gates = _closed_gates(ways.gates, profile)
+    stats["gates_read"] = len(ways.gates)
+    stats["gates_closed"] = len(closed_gates)
+    # a closed gate becomes a graph node so that the road pieces it closes end there
+    gate_node = np.isin(uniq, closed_gates)
+    split = is_first | is_last | (counts[inverse] > 1) | signal_node[inverse] | gate_node[inverse]
 
     starts, ends = _segment_bounds(split, way_of_ref)
     # a closed loop with no junction on it (a loop road, a lone roundabout) is split at its middle vertex
@@ -142,6 +192,10 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     loops = refs[starts] == refs[ends]
     stats["segments_self_loop"] = int(loops.sum())
     starts, ends = starts[~loops], ends[~loops]
+    # a closed gate closes the road pieces on both sides of it, up to the next junction
+    gated = np.isin(refs[starts], closed_gates) | np.isin(refs[ends], closed_gates)
+    stats["segments_closed_by_gates"] = int(gated.sum())
+    starts, ends = starts[~gated], ends[~gated]
 
     n_vert = ends - starts + 1
     seg_of_vert = np.repeat(np.arange(len(starts)), n_vert)
@@ -152,7 +206,7 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
 
     seg_way = way_of_ref[starts]
     tags = ways.tags.iloc[seg_way].reset_index(drop=True)
-    access = tags["motor_vehicle"].where(tags["motor_vehicle"].notna(), tags["access"])
+    access, _ = access_value(tags, profile)
     segments = pd.DataFrame(
         {
             "u_key": refs[starts].astype(np.int64),
@@ -160,10 +214,12 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
             "source_id": ways.way_id[seg_way].astype(np.int64),
             "highway": tags["highway"].to_numpy(dtype=object),
             "maxspeed": tags["maxspeed"].to_numpy(dtype=object),
+            "maxspeed_forward": tags["maxspeed:forward"].to_numpy(dtype=object),
+            "maxspeed_backward": tags["maxspeed:backward"].to_numpy(dtype=object),
             "speed_kph": np.full(len(starts), np.nan),
             "oneway": tags["oneway"].to_numpy(dtype=object),
             "junction": tags["junction"].to_numpy(dtype=object),
-            "access": access.to_numpy(dtype=object),
+            "access": np.where(access == "", None, access),
             "bridge": _yes(tags["bridge"]),
             "tunnel": _yes(tags["tunnel"]),
             # a bridge's own name ("Ferry Bridge") is what a closure names; the road's name otherwise
@@ -184,7 +240,20 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
             "signal": np.isin(node_keys, ways.signal_ids),
         }
     )
-    return RawRoads(segments, np.asarray(geometry, dtype=object), nodes, CRS.from_epsg(4326), source, stats)
+    stats["maxspeed_directional_ways"] = int(
+        (usable_way & (ways.tags["maxspeed:forward"].notna() | ways.tags["maxspeed:backward"].notna())).sum()
+    )
+    raw = RawRoads(segments, np.asarray(geometry, dtype=object), nodes, CRS.from_epsg(4326), source, stats)
+    raw.restrictions = ways.restrictions
+    return raw
+
+
+def _closed_gates(gates: pd.DataFrame, profile: Profile) -> np.ndarray:
+    """Ids of the gate nodes closed to the profile's vehicle by their access tags (a gate without any is open)."""
+    if len(gates) == 0:
+        return np.zeros(0, dtype=np.int64)
+    value, key = access_value(gates, profile)
+    return np.sort(gates["node_id"].to_numpy(dtype=np.int64)[closing_access(value, key, profile)])
 
 
 def _segment_bounds(split: np.ndarray, way_of_ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -10,14 +10,16 @@ from xml.sax import SAXParseException
 import numpy as np
 
 from coverkit.errors import InputFileError
-from coverkit.network.osm_ways import OsmWays, tags_frame
+from coverkit.network.osm_restrictions import GATE_BARRIERS, restrictions_frame
+from coverkit.network.osm_ways import OsmWays, gates_frame, tags_frame
 
 
 def read_osm_xml(path: str | Path) -> OsmWays:
     """Read highway ways and their nodes from an OSM XML file.
 
     osmnx parses the file (plain, bz2 or gzip) into Overpass-style elements; only ways with a ``highway`` tag are
-    kept, and nodes tagged ``highway=traffic_signals`` are recorded as signals.
+    kept, nodes tagged ``highway=traffic_signals`` are recorded as signals, gate nodes (``barrier=gate`` and the
+    like) with their access tags, and ``type=restriction`` relations as turn restrictions.
 
     Raises
     ------
@@ -56,6 +58,8 @@ def read_osm_xml(path: str | Path) -> OsmWays:
         sorted(int(e["id"]) for e in node_els if e.get("tags", {}).get("highway") == "traffic_signals"),
         dtype=np.int64,
     )
+    gate_els = [e for e in node_els if e.get("tags", {}).get("barrier") in GATE_BARRIERS]
+    rel_els = [e for e in elements if e.get("type") == "relation" and e.get("tags", {}).get("type") == "restriction"]
     way_els.sort(key=lambda e: int(e["id"]))
     refs_list = [np.asarray(e.get("nodes", []), dtype=np.int64) for e in way_els]
     lengths = np.array([len(r) for r in refs_list], dtype=np.int64)
@@ -68,4 +72,6 @@ def read_osm_xml(path: str | Path) -> OsmWays:
         lon=lon[order],
         lat=lat[order],
         signal_ids=signal_ids,
+        restrictions=restrictions_frame(rel_els),
+        gates=gates_frame([int(e["id"]) for e in gate_els], [e["tags"] for e in gate_els]),
     )

@@ -18,11 +18,18 @@ import numpy as np
 import pandas as pd
 
 from coverkit.errors import ProfileError
+from coverkit.network.turn_rules import TurnRules, turn_rules_from_dict, turn_rules_toml
 
 KPH_PER_MPH = 1.609344  # exact: 1 mile = 1609.344 m
 KPH_PER_KNOT = 1.852  # exact: 1 nautical mile = 1852 m
 
 ONEWAY_POLICIES = ("obey", "against")
+#: What an ``oneway=reversible`` way is for the profile: closed (its direction changes by hour), or two-way.
+REVERSIBLE_POLICIES = ("closed", "two_way")
+#: Access keys read when a profile names none: the way's ``motor_vehicle`` tag, else its ``access`` tag.
+DEFAULT_ACCESS_KEYS = ("motor_vehicle", "access")
+#: Access keys a profile may list, most specific first (OSM wiki, key:access: the transport-mode hierarchy).
+ACCESS_KEYS = ("emergency", "motorcar", "motor_vehicle", "vehicle", "access")
 _TOP_KEYS = {
     "name",
     "description",
@@ -31,8 +38,11 @@ _TOP_KEYS = {
     "against_oneway_factor",
     "against_oneway_classes",
     "private_access",
+    "reversible",
+    "access_keys",
     "speeds",
     "hour_bands",
+    "turns",
 }
 _CLASS_KEYS = {"default_kph", "factor", "cap_kph"}
 
@@ -81,6 +91,12 @@ class Profile:
         Road classes where travel against the one-way direction is allowed (never motorways by default).
     private_access
         Whether ways tagged ``access=private/no`` are usable (emergency access).
+    reversible
+        ``"closed"`` or ``"two_way"``: how ``oneway=reversible`` ways are driven (see :data:`REVERSIBLE_POLICIES`).
+    access_keys
+        OSM access keys read for ways and gates, most specific first; the first one tagged decides.
+    turns
+        Turn restrictions and turn costs (:class:`~coverkit.network.turn_rules.TurnRules`).
     source_text
         The TOML text the profile was read from, kept so a saved network records it exactly.
     """
@@ -93,6 +109,9 @@ class Profile:
     against_oneway_classes: tuple[str, ...] = ()
     private_access: bool = False
     description: str = ""
+    reversible: str = "two_way"
+    access_keys: tuple[str, ...] = DEFAULT_ACCESS_KEYS
+    turns: TurnRules = field(default_factory=lambda: TurnRules())
     source_text: str = field(default="", repr=False, compare=False)
     hour_bands: tuple = ()  # HourBand tables (coverkit.network.hour_bands): speed factors by time of day
 
@@ -130,7 +149,10 @@ def profile_to_toml(profile: Profile, header: str = "") -> str:
         f"against_oneway_factor = {profile.against_oneway_factor!r}",
         "against_oneway_classes = [" + ", ".join(f'"{c}"' for c in profile.against_oneway_classes) + "]",
         f"private_access = {'true' if profile.private_access else 'false'}",
+        f'reversible = "{profile.reversible}"',
+        "access_keys = [" + ", ".join(f'"{k}"' for k in profile.access_keys) + "]",
         "",
+        *turn_rules_toml(profile.turns),
     ]
     for cls in profile.road_classes:
         rule = profile.speeds[cls]
@@ -236,6 +258,20 @@ def profile_from_dict(data: dict, where: str = "profile", source_text: str = "")
     private = data.get("private_access", False)
     if not isinstance(private, bool):
         raise ProfileError(f"{where}: key 'private_access' must be true or false.")
+    reversible = data.get("reversible", "two_way")
+    if reversible not in REVERSIBLE_POLICIES:
+        raise ProfileError(
+            f"{where}: key 'reversible' must be one of {', '.join(REVERSIBLE_POLICIES)}, got {reversible!r}."
+        )
+    access_keys = data.get("access_keys", list(DEFAULT_ACCESS_KEYS))
+    if (
+        not isinstance(access_keys, list)
+        or not access_keys
+        or not all(isinstance(k, str) and k in ACCESS_KEYS for k in access_keys)
+    ):
+        raise ProfileError(
+            f"{where}: key 'access_keys' must be a non-empty list of {', '.join(ACCESS_KEYS)}, got {access_keys!r}."
+        )
     name = data.get("name", Path(where).stem)
     if not isinstance(name, str) or not name:
         raise ProfileError(f"{where}: key 'name' must be a non-empty string.")
@@ -253,6 +289,9 @@ def profile_from_dict(data: dict, where: str = "profile", source_text: str = "")
         against_oneway_classes=tuple(sorted(against_classes)),
         private_access=private,
         description=str(data.get("description", "")),
+        reversible=reversible,
+        access_keys=tuple(access_keys),
+        turns=turn_rules_from_dict(data.get("turns", {}), where),
         source_text=source_text,
         hour_bands=hour_bands,
     )

@@ -49,6 +49,10 @@ class RawRoads:
         Path of the file read.
     stats
         Counts from reading, e.g. ``ways_read``, ``ways_unusable`` (too few located nodes), ``near_miss_endpoints``.
+    restrictions
+        OSM turn restrictions as read (:data:`coverkit.network.osm_restrictions.READ_COLUMNS`), None for data
+        without them. Optional segment columns ``maxspeed_forward`` and ``maxspeed_backward`` carry directional
+        speed tags (along and against the drawn direction).
     """
 
     segments: pd.DataFrame
@@ -57,6 +61,7 @@ class RawRoads:
     crs: CRS
     source: str
     stats: dict = field(default_factory=dict)
+    restrictions: pd.DataFrame | None = None
 
     def __post_init__(self) -> None:
         if len(self.segments) != len(self.geometry):

@@ -50,10 +50,11 @@ class NodeReach:
     Attributes
     ----------
     time_s
-        Shape (n_nodes, k): travel time (s) from (``"out"``) or to (``"in"``) the j-th nearest source, ``inf``
-        where fewer than j + 1 sources lie within ``limit_s``.
+        Shape (n, k): travel time (s) from (``"out"``) or to (``"in"``) the j-th nearest source, ``inf``
+        where fewer than j + 1 sources lie within ``limit_s``. Rows are the search graph's vertices: the nodes
+        (``n_nodes``) and, with turns modelled (:mod:`coverkit.travel.turns`), the turn states after them.
     source
-        Shape (n_nodes, k): index of that source, ``-1`` where none.
+        Shape (n, k): index of that source, ``-1`` where none.
     limit_s
         The search bound (s).
     direction
@@ -92,13 +93,16 @@ def nearest_k_nodes(
     k
         How many nearest sources per node (>= 1).
     """
-    n, n_src = net.n_nodes, len(sources)
+    n_src = len(sources)
+    s_pt, s_node, s_t = seeds(net, sources, direction, states=True)
+    if len(s_pt) == 0 or net.n_nodes == 0:
+        empty = np.full((net.n_nodes, k), np.inf), np.full((net.n_nodes, k), -1, dtype=np.int64)
+        return NodeReach(*empty, float(limit_s), direction)
+    # the search graph's vertices (the nodes first; more with turns modelled, see coverkit.travel.turns)
+    g = graph(net, direction)
+    n = g.shape[0]
     time_s = np.full((n, k), np.inf)
     source = np.full((n, k), -1, dtype=np.int64)
-    s_pt, s_node, s_t = seeds(net, sources, direction)
-    if len(s_pt) == 0 or n == 0:
-        return NodeReach(time_s, source, float(limit_s), direction)
-    g = graph(net, direction)
     aug = augmented_graph(g, s_pt, s_node, s_t, n_src)
     dist, _, reached_from = dijkstra(
         aug, directed=True, indices=n + np.arange(n_src), limit=limit_s, min_only=True, return_predecessors=True

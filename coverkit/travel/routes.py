@@ -21,6 +21,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from coverkit.network.model import RoadNetwork
+from coverkit.travel import turns
 from coverkit.travel.search import exits, node_time_blocks, run_s, seeds
 from coverkit.travel.snap import Snapped
 
@@ -43,6 +44,9 @@ class Routes:
         Sparse (n_pairs, n_edges): 1 where the route passes the edge's end node and pays its delay.
     direct
         ``True`` where the route is the direct trip along one edge shared by source and target.
+    turn_s
+        Turn costs (s) of each route when the network models turns (:mod:`coverkit.travel.turn_routes`); None
+        otherwise. Part of ``time_s``, not of the edges' times.
     """
 
     source: np.ndarray
@@ -52,6 +56,7 @@ class Routes:
     run_use: sp.csr_matrix
     delay_use: sp.csr_matrix
     direct: np.ndarray
+    turn_s: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.source)
@@ -64,6 +69,8 @@ class Routes:
     def priced_s(self, run_edge_s: np.ndarray, delay_edge_s: np.ndarray) -> np.ndarray:
         """Time of each route (s) for other per-edge running times and delays (same edge set); NaN where not found."""
         out = self.run_use @ run_edge_s + self.delay_use @ delay_edge_s
+        if self.turn_s is not None:
+            out = out + self.turn_s
         return np.where(self.found, out, np.nan)
 
     def same_paths(self, other: Routes) -> bool:
@@ -114,12 +121,16 @@ def shortest_routes(
     target_index = np.asarray(target_index, dtype=np.int64).reshape(-1)
     if source_index.shape != target_index.shape:
         raise ValueError("source_index and target_index must have the same length")
+    if turns.active(net):
+        from coverkit.travel.turn_routes import shortest_turn_routes
+
+        return shortest_turn_routes(net, sources, targets, source_index, target_index, chunk_size)
     n, n_pairs = net.n_nodes, len(source_index)
     run = run_s(net)
     edge_key, edge_of_key = _edge_lookup(net)
     start = _start_arcs(net, sources)
 
-    t_pt, t_node, t_add = exits(net, targets, "out")
+    t_pt, t_node, t_add = exits(net, targets, "out", states=False)
     t_edge, t_frac = targets.entry_edge, targets.entry_frac
     t_count = np.bincount(t_pt, minlength=len(targets))
     t_ptr = np.concatenate([[0], np.cumsum(t_count)])

@@ -24,6 +24,7 @@ import scipy.sparse as sp
 from scipy.sparse.csgraph import dijkstra
 
 from coverkit.network.model import MIN_EDGE_S, RoadNetwork
+from coverkit.travel import turns
 from coverkit.travel.snap import Snapped
 
 #: Upper bound on the cells of one chunk's dense distance block (float64): ~80 MB.
@@ -53,8 +54,12 @@ def run_s(net: RoadNetwork) -> np.ndarray:
 
 
 def graph(net: RoadNetwork, direction: str = "out") -> sp.csr_matrix:
-    """The CSR graph to search: ``net.csr()`` for ``"out"``, its transpose for ``"in"`` (cached)."""
+    """The CSR graph to search: ``net.csr()`` for ``"out"``, its transpose for ``"in"`` (cached); the turn-aware
+    graph of :mod:`coverkit.travel.turns` when the network's profile models turns (its first ``N`` vertices are the
+    nodes)."""
     _check_direction(direction)
+    if turns.active(net):
+        return turns.turn_graph(net, direction)
     if direction == "out":
         return net.csr()
     key = "coverkit.travel:csr_T"
@@ -73,7 +78,9 @@ def partial_run_s(net: RoadNetwork) -> np.ndarray:
     return np.where(np.isfinite(run), run, stub)
 
 
-def seeds(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def seeds(
+    net: RoadNetwork, snapped: Snapped, direction: str = "out", *, states: bool = False
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Initial labels of a search from snapped points: (point index, node, time s) per usable entry.
 
     ``"out"``: leaving the point toward the edge's end node ``v`` costs the rest of the run plus the end-node delay.
@@ -83,6 +90,9 @@ def seeds(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[n
     street it was snapped to. On an edge closed in part (:meth:`RoadNetwork.closed_stretch`) a point is left toward
     ``v`` only from beyond the closed stretch and reached from ``u`` only before it; entries cut off that way are
     dropped (a point on a stretch closed from both sides has none).
+
+    With ``states``, the labels are vertices of :func:`graph` (:func:`coverkit.travel.turns.lift_seeds` when the
+    network models turns; the nodes otherwise).
     """
     _check_direction(direction)
     e, f = snapped.entry_edge, snapped.entry_frac
@@ -100,18 +110,33 @@ def seeds(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[n
             t = np.where(at_node, 0.0, f * run)
             cut = f > lo
     keep = at_node | (~cut & np.isfinite(t))
+    if states and turns.active(net):
+        return turns.lift_seeds(net, direction, snapped.entry_point[keep], node[keep], t[keep], e[keep], at_node[keep])
     return snapped.entry_point[keep], node[keep], t[keep]
 
 
-def exits(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def exits(
+    net: RoadNetwork, snapped: Snapped, direction: str = "out", *, states: bool = True
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """How a search reaches snapped target points: (point index, node, added time s) per entry.
 
     ``"out"``: a target is reached from the edge's start ``u`` plus ``frac`` of the run (no end-node delay).
     ``"in"``: from the target the trip leaves toward ``v``: the rest of the run plus the end-node delay.
+    With ``states`` (the default) the entries are vertices of :func:`graph` in the layout of a ``direction`` search
+    (the nodes when turns are not modelled), as the columns of :func:`node_times` are; without, nodes.
     """
     _check_direction(direction)
     other = "in" if direction == "out" else "out"
-    return seeds(net, snapped, other)
+    pt, node, t = seeds(net, snapped, other, states=states)
+    if states and turns.active(net):
+        # the other direction's seeds are laid out for its own search: swap the node blocks back
+        node = turns.turn_structure(net).swap(node)
+    return pt, node, t
+
+
+def search_size(net: RoadNetwork) -> int:
+    """Vertices of the search graph: the nodes, and with turns modelled the turn states after them."""
+    return turns.turn_structure(net).out.shape[0] if turns.active(net) else net.n_nodes
 
 
 def node_times(
@@ -139,14 +164,16 @@ def node_times(
     Returns
     -------
     scipy.sparse.csr_matrix
-        Shape (n_sources, n_nodes), stored entries = times (s).
+        Shape (n_sources, :func:`search_size`), stored entries = times (s): the nodes' times in the first
+        ``n_nodes`` columns, then (turns modelled) the turn states', which :func:`exits` may name.
     """
+    width = search_size(net)
     watch = _TableWatch(len(sources), net.n_nodes, limit_s, "nodes")
     parts = []
-    for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=net.n_nodes):
+    for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
         parts.append((src_idx, dense_to_csr(dist, limit_s)))
         watch.add(src_idx, parts[-1][1].nnz)
-    return _assemble(parts, (len(sources), net.n_nodes))
+    return _assemble(parts, (len(sources), width))
 
 
 def node_time_blocks(
@@ -157,6 +184,8 @@ def node_time_blocks(
     chunk_size: int | None = None,
     only: np.ndarray | None = None,
     predecessors: bool = False,
+    *,
+    states: bool = False,
 ):
     """Dense times between on-network sources and every node, chunk by chunk (for callers that use each source's
     row once and let it go: memory stays at one chunk).
@@ -169,6 +198,9 @@ def node_time_blocks(
         Search from these source indices only (default: every on-network source).
     predecessors
         Also yield the shortest-path predecessors.
+    states
+        Yield every vertex of the search graph (:func:`search_size` columns: the nodes, then the turn states when
+        turns are modelled), not the nodes only.
 
     Yields
     ------
@@ -181,7 +213,9 @@ def node_time_blocks(
         With ``predecessors`` only: shape (len(src_idx), n_nodes + len(src_idx)), the previous node on each
         shortest path; indices from ``n_nodes`` on are the chunk's virtual source nodes.
     """
-    yield from _chunked_search(net, sources, limit_s, direction, chunk_size, net.n_nodes, only, predecessors)
+    n = search_size(net) if states else net.n_nodes
+    for out in _chunked_search(net, sources, limit_s, direction, chunk_size, n, only, predecessors):
+        yield (out[0], out[1][:, :n], *out[2:])
 
 
 def point_times(
@@ -216,10 +250,11 @@ def point_times(
     has[t_pt] = True
     starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
     targets_with = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
-    width = max(net.n_nodes, len(t_pt))
+    n_space = search_size(net)
+    width = max(n_space, len(t_pt))
     # the target entries by node (to gather from the reached nodes only) and the same-edge trips, found once
     by_node = np.argsort(t_node, kind="stable")
-    node_ptr = np.searchsorted(t_node[by_node], np.arange(net.n_nodes + 1))
+    node_ptr = np.searchsorted(t_node[by_node], np.arange(n_space + 1))
     se_s, se_pt, se_t = same_edge_trips(net, sources, targets, direction)
     order = np.argsort(se_s, kind="stable")
     se_s, se_pt, se_t = se_s[order], se_pt[order], se_t[order]
@@ -304,9 +339,12 @@ class _TableWatch:
 
 
 def nearest_node_times(
-    net: RoadNetwork, sources: Snapped, limit_s: float, direction: str = "out"
+    net: RoadNetwork, sources: Snapped, limit_s: float, direction: str = "out", *, states: bool = False
 ) -> tuple[np.ndarray, np.ndarray]:
     """Time to (or from) the nearest source for every node, and which source, in one search.
+
+    With ``states``, for every vertex of the search graph (the nodes first, then the turn states when turns are
+    modelled), as :func:`node_time_blocks` gives them.
 
     Returns
     -------
@@ -315,21 +353,22 @@ def nearest_node_times(
     source
         Shape (n_nodes,), index of the nearest source, ``-1`` where none is within the limit.
     """
-    n = net.n_nodes
-    s_pt, s_node, s_t = seeds(net, sources, direction)
+    n = search_size(net) if states else net.n_nodes
+    s_pt, s_node, s_t = seeds(net, sources, direction, states=True)
     if len(s_pt) == 0:
         return np.full(n, np.inf), np.full(n, -1, dtype=np.int64)
-    aug = augmented_graph(graph(net, direction), s_pt, s_node, s_t, len(sources))
+    g = graph(net, direction)
+    aug = augmented_graph(g, s_pt, s_node, s_t, len(sources))
     dist, _, src = dijkstra(
         aug,
         directed=True,
-        indices=n + np.arange(len(sources)),
+        indices=g.shape[0] + np.arange(len(sources)),
         limit=limit_s,
         min_only=True,
         return_predecessors=True,
     )
     time_s = dist[:n].copy()
-    source = np.where(np.isfinite(time_s), src[:n] - n, -1).astype(np.int64)
+    source = np.where(np.isfinite(time_s), src[:n] - g.shape[0], -1).astype(np.int64)
     return time_s, source
 
 
@@ -428,9 +467,9 @@ def _chunked_search(net, sources, limit_s, direction, chunk_size, width, only=No
     these source indices instead); with ``predecessors``, also the predecessor block (chunk, n_nodes + chunk), in
     which indices from ``n_nodes`` on are the chunk's virtual source nodes."""
     _check_direction(direction)
-    n = net.n_nodes
     g = graph(net, direction)
-    s_pt, s_node, s_t = seeds(net, sources, direction)
+    s_pt, s_node, s_t = seeds(net, sources, direction, states=True)
+    n_g = g.shape[0]
     src_all = np.flatnonzero(sources.on_network) if only is None else np.asarray(only, dtype=np.int64)
     if chunk_size is None:
         chunk_size = max(1, CHUNK_CELLS // max(width, 1))
@@ -440,12 +479,12 @@ def _chunked_search(net, sources, limit_s, direction, chunk_size, width, only=No
         local[src_idx] = np.arange(len(src_idx))
         sel = local[s_pt] >= 0
         aug = augmented_graph(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src_idx))
-        indices = n + np.arange(len(src_idx))
+        indices = n_g + np.arange(len(src_idx))
         if predecessors:
             dist, pred = dijkstra(aug, directed=True, indices=indices, limit=limit_s, return_predecessors=True)
-            yield src_idx, dist[:, :n], pred
+            yield src_idx, dist[:, :n_g], pred
         else:
-            yield src_idx, dijkstra(aug, directed=True, indices=indices, limit=limit_s)[:, :n]
+            yield src_idx, dijkstra(aug, directed=True, indices=indices, limit=limit_s)[:, :n_g]
 
 
 def same_edge_trips(
