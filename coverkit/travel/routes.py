@@ -124,7 +124,7 @@ def shortest_routes(
     if turns.active(net):
         from coverkit.travel.turn_routes import shortest_turn_routes
 
-        return shortest_turn_routes(net, sources, targets, source_index, target_index, chunk_size)
+        return shortest_turn_routes(net, sources, targets, source_index, target_index, chunk_size, limit_s=limit_s)
     n, n_pairs = net.n_nodes, len(source_index)
     run = run_s(net)
     edge_key, edge_of_key = _edge_lookup(net)

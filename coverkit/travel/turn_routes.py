@@ -124,7 +124,7 @@ def edge_of_vertex(net: RoadNetwork):
     return of
 
 
-def shortest_turn_routes(net, sources, targets, source_index, target_index, chunk_size=None):
+def shortest_turn_routes(net, sources, targets, source_index, target_index, chunk_size=None, *, limit_s=np.inf):
     """:func:`coverkit.travel.routes.shortest_routes` on the turn-aware graph (same arguments and result, with
     ``turn_s`` filled)."""
     from coverkit.travel.routes import Routes, _best_exits, _direct_trips, _UseParts
@@ -143,7 +143,7 @@ def shortest_turn_routes(net, sources, targets, source_index, target_index, chun
     direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run_s(net))
     usable = sources.on_network[source_index] & targets.on_network[target_index]
     only = np.unique(source_index[usable])
-    for src, dist, pred in _chunked_search(net, sources, np.inf, "out", chunk_size, m, only, True):
+    for src, dist, pred in _chunked_search(net, sources, limit_s, "out", chunk_size, m, only, True):
         local = np.full(len(sources), -1, dtype=np.int64)
         local[src] = np.arange(len(src))
         pairs = np.flatnonzero(usable & (local[source_index] >= 0))
