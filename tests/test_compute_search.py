@@ -1,0 +1,127 @@
+"""The per-base search blocks on a Dask cluster give the single-process results (issue 13, point 5).
+
+References: networkx Dijkstra on the hand-built split graph of ``tests/test_travel_search.py`` (an outside library,
+to 1e-6 s) for the times themselves; the same command run in this process for the cluster run (the outputs must be
+equal, value for value: every block is the same function on the same inputs, so nothing may differ).
+"""
+
+from __future__ import annotations
+
+import geopandas as gpd
+import networkx as nx
+import numpy as np
+import pyogrio
+import pytest
+import scipy.sparse as sp
+
+from coverkit.cli import main
+from coverkit.compute import DaskRunner, InProcess, current_runner, use_runner
+from coverkit.travel import search
+from coverkit.travel.search import node_times, point_times
+from coverkit.travel.snap import snap_points
+
+from .conftest import DEMO, site_cli
+from .test_travel_search import TOL_S, irregular_network, reference_graph
+
+
+@pytest.fixture(scope="module")
+def cluster():
+    """A local cluster of two worker processes (so blocks and shared inputs really travel by pickle)."""
+    with DaskRunner(workers=2) as runner:
+        yield runner
+
+
+def _same(a: sp.csr_matrix, b: sp.csr_matrix) -> bool:
+    """Same stored entries (stored zeros included) and the same values, bit for bit."""
+    a, b = a.tocsr(), b.tocsr()
+    a.sort_indices()
+    b.sort_indices()
+    return (
+        a.shape == b.shape
+        and np.array_equal(a.indptr, b.indptr)
+        and np.array_equal(a.indices, b.indices)
+        and np.array_equal(a.data, b.data)
+    )
+
+
+def _graphs_sent(runner: DaskRunner) -> list[sp.csr_matrix]:
+    """The sparse graphs the runner has sent to its workers (each once: they are kept by object)."""
+    return [value for value, _ in runner._sent.values() if sp.issparse(value)]
+
+
+@pytest.mark.parametrize("direction", ["out", "in"])
+def test_point_times_on_the_cluster_match_networkx_and_the_single_process_run(cluster, direction):
+    """Source: networkx single_source_dijkstra_path_length on the split graph (to 1e-6 s); chunks of 2 sources so
+    the rows come back from several blocks on both workers and are put back in source order."""
+    net = irregular_network()
+    rng = np.random.default_rng(5)
+    lo, hi = net.xy.min(axis=0), net.xy.max(axis=0)
+    bases_xy, targets_xy = rng.uniform(lo, hi, (7, 2)), rng.uniform(lo, hi, (30, 2))
+    bases, targets = snap_points(net, bases_xy), snap_points(net, targets_xy)
+    limit = 600.0
+    here = point_times(net, bases, targets, limit, direction=direction)
+    graphs_before = _graphs_sent(cluster)
+    with use_runner(cluster):
+        there = point_times(net, bases, targets, limit, direction=direction, chunk_size=2)
+        nodes_there = node_times(net, bases, limit, direction=direction, chunk_size=3)
+        # a second search on the same network: its graph is not sent again
+        point_times(net, bases, targets, limit / 2, direction=direction, chunk_size=2)
+        graphs = [g for g in _graphs_sent(cluster) if all(g is not b for b in graphs_before)]
+    assert isinstance(current_runner(), InProcess)
+    assert len(graphs) == 1 and graphs[0] is search.graph(net, direction)
+    assert _same(there, here)
+    assert _same(nodes_there, node_times(net, bases, limit, direction=direction))
+    ref_g = reference_graph(net, np.vstack([bases_xy, targets_xy]))
+    if direction == "in":
+        ref_g = ref_g.reverse(copy=True)
+    got, n_b = there.toarray(), len(bases_xy)
+    for i in range(n_b):
+        ref = nx.single_source_dijkstra_path_length(ref_g, ("p", i), cutoff=limit, weight="weight")
+        reached = set(there.indices[there.indptr[i] : there.indptr[i + 1]].tolist())
+        expect = {j for j in range(len(targets_xy)) if ("p", n_b + j) in ref}
+        assert reached == expect
+        for j in expect:
+            assert abs(got[i, j] - ref[("p", n_b + j)]) < TOL_S
+
+
+def _layers(path) -> dict[str, gpd.GeoDataFrame]:
+    return {name: gpd.read_file(path, layer=name) for name, _ in pyogrio.list_layers(path)}
+
+
+#: Columns that hold a run's wall time, not a result (they differ between any two runs).
+WALL_TIME_COLUMNS = {"solve_s"}
+
+
+def _assert_same_layers(a, b) -> None:
+    la, lb = _layers(a), _layers(b)
+    assert sorted(la) == sorted(lb) and la
+    for name, frame in la.items():
+        other = lb[name]
+        assert list(frame.columns) == list(other.columns), name
+        for col in set(frame.columns) - WALL_TIME_COLUMNS:
+            if isinstance(frame, gpd.GeoDataFrame) and col == frame.geometry.name:
+                assert frame.geometry.geom_equals_exact(other.geometry, 0.0).all(), name
+            else:
+                assert frame[col].equals(other[col]), f"{name}.{col}"
+
+
+def test_cover_and_site_on_the_cluster_write_the_single_process_layers(cluster, demo_net_path, tmp_path, monkeypatch):
+    """The demo county's `cover` and `site` with ``--scheduler``: every layer equal to the run in this process.
+    The chunks are cut small for the cluster run (one source each) so several blocks are spread."""
+    address = cluster.client.scheduler.address
+    cover = [
+        "cover",
+        str(demo_net_path),
+        "--bases",
+        str(DEMO / "stations.csv"),
+        "--demand",
+        str(DEMO / "population.tif"),
+    ]
+    cover += ["--minutes", "8", "--boundary", str(DEMO / "boundary.geojson"), "--quiet", "--out"]
+    assert main([*cover, str(tmp_path / "cover_here.gpkg")]) == 0
+    assert site_cli(demo_net_path, tmp_path / "site_here.gpkg", "--add", "2") == 0
+    monkeypatch.setattr(search, "CHUNK_CELLS", 1)
+    assert main([*cover, str(tmp_path / "cover_there.gpkg"), "--scheduler", address]) == 0
+    assert site_cli(demo_net_path, tmp_path / "site_there.gpkg", "--add", "2", "--scheduler", address) == 0
+    _assert_same_layers(tmp_path / "cover_here.gpkg", tmp_path / "cover_there.gpkg")
+    _assert_same_layers(tmp_path / "site_here.gpkg", tmp_path / "site_there.gpkg")
