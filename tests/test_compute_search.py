@@ -10,17 +10,21 @@ from __future__ import annotations
 import geopandas as gpd
 import networkx as nx
 import numpy as np
-import pyogrio
 import pytest
 import scipy.sparse as sp
 
-from coverkit.cli import main
 from coverkit.compute import DaskRunner, InProcess, current_runner, use_runner
-from coverkit.travel import search
+from coverkit.coverage import Standard
+from coverkit.demand import load_demand
+from coverkit.network import RoadNetwork
+from coverkit.network.build import read_boundary
+from coverkit.settings import SitingSettings
+from coverkit.stages import coverage_stage, siting_problem, siting_stage
+from coverkit.travel import read_points, search
 from coverkit.travel.search import node_times, point_times
 from coverkit.travel.snap import snap_points
 
-from .conftest import DEMO, site_cli
+from .conftest import DEMO
 from .test_travel_search import TOL_S, irregular_network, reference_graph
 
 
@@ -84,16 +88,11 @@ def test_point_times_on_the_cluster_match_networkx_and_the_single_process_run(cl
             assert abs(got[i, j] - ref[("p", n_b + j)]) < TOL_S
 
 
-def _layers(path) -> dict[str, gpd.GeoDataFrame]:
-    return {name: gpd.read_file(path, layer=name) for name, _ in pyogrio.list_layers(path)}
-
-
 #: Columns that hold a run's wall time, not a result (they differ between any two runs).
 WALL_TIME_COLUMNS = {"solve_s"}
 
 
-def _assert_same_layers(a, b) -> None:
-    la, lb = _layers(a), _layers(b)
+def _assert_same_layers(la: dict, lb: dict) -> None:
     assert sorted(la) == sorted(lb) and la
     for name, frame in la.items():
         other = lb[name]
@@ -105,23 +104,27 @@ def _assert_same_layers(a, b) -> None:
                 assert frame[col].equals(other[col]), f"{name}.{col}"
 
 
-def test_cover_and_site_on_the_cluster_write_the_single_process_layers(cluster, demo_net_path, tmp_path, monkeypatch):
-    """The demo county's `cover` and `site` with ``--scheduler``: every layer equal to the run in this process.
-    The chunks are cut small for the cluster run (one source each) so several blocks are spread."""
-    address = cluster.client.scheduler.address
-    cover = [
-        "cover",
-        str(demo_net_path),
-        "--bases",
-        str(DEMO / "stations.csv"),
-        "--demand",
-        str(DEMO / "population.tif"),
-    ]
-    cover += ["--minutes", "8", "--boundary", str(DEMO / "boundary.geojson"), "--quiet", "--out"]
-    assert main([*cover, str(tmp_path / "cover_here.gpkg")]) == 0
-    assert site_cli(demo_net_path, tmp_path / "site_here.gpkg", "--add", "2") == 0
+def test_cover_and_site_on_the_cluster_give_the_single_process_layers(cluster, demo_net_path, monkeypatch):
+    """The demo county's coverage and siting stages (what `cover` and `site` write) run on the cluster: every layer
+    equal to the run in this process (an area grid of 250 m cells keeps the test short). The cluster run cuts its
+    chunks to one source each, so the demand and grid times and siting's coverage matrix come from several blocks."""
+    net = RoadNetwork.load(demo_net_path)
+    bases = read_points(DEMO / "stations.csv", net.crs, what="bases")
+    demand = load_demand(DEMO / "population.tif", net)
+    area = read_boundary(DEMO / "boundary.geojson").to_crs(net.crs).union_all()
+    std = Standard("8 min", 480.0, 60.0, 0.9)
+    cfg = SitingSettings(candidates=DEMO / "candidates.csv", add=2)
+
+    def stages() -> tuple[dict, dict]:
+        cover = coverage_stage(net, bases, {"residents": demand}, std, area=area, cell_m=250.0)
+        site = siting_stage(siting_problem(net, bases, demand, std, cfg), cfg, "residents")
+        return cover.layers(), site.layers()
+
+    cover_here, site_here = stages()
+    sent_before = len(cluster._sent)
     monkeypatch.setattr(search, "CHUNK_CELLS", 1)
-    assert main([*cover, str(tmp_path / "cover_there.gpkg"), "--scheduler", address]) == 0
-    assert site_cli(demo_net_path, tmp_path / "site_there.gpkg", "--add", "2", "--scheduler", address) == 0
-    _assert_same_layers(tmp_path / "cover_here.gpkg", tmp_path / "cover_there.gpkg")
-    _assert_same_layers(tmp_path / "site_here.gpkg", tmp_path / "site_there.gpkg")
+    with use_runner(cluster):
+        cover_there, site_there = stages()
+    assert len(cluster._sent) > sent_before  # the blocks did go to the cluster
+    _assert_same_layers(cover_here, cover_there)
+    _assert_same_layers(site_here, site_there)
