@@ -49,8 +49,8 @@ def _same(a: sp.csr_matrix, b: sp.csr_matrix) -> bool:
 
 
 def _graphs_sent(runner: DaskRunner) -> list[sp.csr_matrix]:
-    """The sparse graphs the runner has sent to its workers (each once: they are kept by object)."""
-    return [value for value, _ in runner._sent.values() if sp.issparse(value)]
+    """The sparse graphs the runner holds on its workers (each sent once: they are kept by object)."""
+    return [hold() for hold, _ in runner._sent.values() if sp.issparse(hold())]
 
 
 @pytest.mark.parametrize("direction", ["out", "in"])
@@ -73,6 +73,9 @@ def test_point_times_on_the_cluster_match_networkx_and_the_single_process_run(cl
         graphs = [g for g in _graphs_sent(cluster) if all(g is not b for b in graphs_before)]
     assert isinstance(current_runner(), InProcess)
     assert len(graphs) == 1 and graphs[0] is search.graph(net, direction)
+    # a search's own inputs (its sources' entries, the targets' ends) leave the workers with the search
+    held = [type(hold()).__name__ for hold, _ in cluster._sent.values()]
+    assert "_PointEnds" not in held and "_Entries" not in held
     assert _same(there, here)
     assert _same(nodes_there, node_times(net, bases, limit, direction=direction))
     ref_g = reference_graph(net, np.vstack([bases_xy, targets_xy]))
@@ -121,10 +124,14 @@ def test_cover_and_site_on_the_cluster_give_the_single_process_layers(cluster, d
         return cover.layers(), site.layers()
 
     cover_here, site_here = stages()
-    sent_before = len(cluster._sent)
     monkeypatch.setattr(search, "CHUNK_CELLS", 1)
+    mapped = []
+    client_map = cluster.client.map
+    monkeypatch.setattr(
+        cluster.client, "map", lambda fn, blocks, **kw: mapped.append(fn.__name__) or client_map(fn, blocks, **kw)
+    )
     with use_runner(cluster):
         cover_there, site_there = stages()
-    assert len(cluster._sent) > sent_before  # the blocks did go to the cluster
+    assert mapped.count("_point_rows") >= 3  # the blocks did go to the cluster: demand, area cells, siting matrix
     _assert_same_layers(cover_here, cover_there)
     _assert_same_layers(site_here, site_there)
