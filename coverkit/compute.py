@@ -182,7 +182,8 @@ def map_blocks(fn: Callable[..., Any], blocks: Sequence[Any], *, shared: dict[st
     """``[fn(block, **shared) for block in blocks]`` on the current runner, in block order.
 
     ``fn`` must be a module-level function (a cluster pickles it by name); ``shared`` holds the large inputs every
-    block reads (sent to each worker once), the blocks the small ones.
+    block reads (sent to each worker once, so they must not be changed in place while they live: make a new
+    object instead), the blocks the small ones.
 
     >>> import operator
     >>> map_blocks(operator.neg, [1, 2, 3])
