@@ -62,8 +62,8 @@ def compute(p: argparse.ArgumentParser) -> None:
         "--scheduler",
         metavar="ADDRESS",
         default=None,
-        help="run on the Dask scheduler at ADDRESS (tcp://host:8786): the bounded per-base searches (times from "
-        "the bases to the demand points and area cells, siting's coverage matrix) and simulation replications; "
+        help="run on the Dask scheduler at ADDRESS (tcp://host:8786): the per-base searches (times from the bases "
+        "to the demand points, area cells and call points; siting's coverage matrix) and simulation replications; "
         "the nearest-base searches, the models and the maps stay in this process",
     )
     g.add_argument("--workers", type=int, metavar="N", default=None,
