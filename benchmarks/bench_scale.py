@@ -1,7 +1,7 @@
 """Metro and state scale: whole commands on generated data, wall time and peak memory beside their floors.
 
 Run: ``python benchmarks/bench_scale.py --case cover [--n-side 1000] [--bases 300] [--points 1000000]
-[--minutes 8] [--work DIR]``.
+[--minutes 8] [--work DIR] [--workers 4]``.
 
 ``--case cover``: the synthetic county of ``bench_isochrones.py`` (``--n-side`` squared nodes: 1000 gives a million)
 with ``--bases`` bases and ``--points`` weighted demand points at random places, generated here and kept in
@@ -11,6 +11,12 @@ the floor measured in another child of the same run on the same data: loading th
 for the first-due times and the bases' searches bounded at the travel standard (no tables, no points, no files).
 The ratios are what to watch; the targets of issue 13 are <= 60 s and <= 4 GB for the whole command at a million
 nodes, 300 bases and a million points.
+
+``--workers N`` also runs the same command on a local Dask cluster of N worker processes (one thread each, as
+``coverkit cover --workers N`` starts it), started here so each worker's peak resident size can be read from the
+worker itself (``client.run``) before the cluster stops: the command gets ``--scheduler`` with the cluster's
+address. Reported: its wall time beside the single-process run, the command process's own peak (``os.wait4``),
+each worker's peak, and whether every layer it wrote equals the single-process output (it must).
 
 Other cases (network build and load) can be added beside ``cover`` as further ``--case`` values.
 
@@ -35,6 +41,9 @@ import numpy as np
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent
+# this checkout's coverkit, here and in the children: the scheduler and workers of the cluster case start with this
+# process's import path, and every part of a cluster must run the command's version of coverkit
+sys.path.insert(0, str(REPO))
 
 #: The floor, run in a child process: network load, one multi-source search, the bounded searches.
 FLOOR_CODE = """
@@ -61,6 +70,77 @@ print(f"{t1 - t0:.3f} {t2 - t1:.3f} {t3 - t2:.3f}")
 def peak_children_gb() -> float:
     """Peak resident size of the largest child waited for so far (GB; Linux reports KiB)."""
     return resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024 / 1e9
+
+
+def run_child(cmd: list[str], env: dict[str, str]) -> tuple[float, float, int, str]:
+    """Run ``cmd``; its wall time (s), its own peak resident size (GB, from ``os.wait4``), exit status, stderr."""
+    with tempfile.TemporaryFile("w+") as err:
+        t0 = time.perf_counter()
+        child = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=err, env=env, text=True)
+        _, status, usage = os.wait4(child.pid, 0)
+        wall = time.perf_counter() - t0
+        child.returncode = os.waitstatus_to_exitcode(status)
+        err.seek(0)
+        return wall, usage.ru_maxrss * 1024 / 1e9, child.returncode, err.read()
+
+
+def worker_rss_gb() -> tuple[float, float]:
+    """On a worker: (resident size now, peak resident size) in GB (Linux reports the peak in KiB)."""
+    with open("/proc/self/statm") as f:
+        now = int(f.read().split()[1]) * os.sysconf("SC_PAGE_SIZE") / 1e9
+    return now, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024 / 1e9
+
+
+def same_layers(a: Path, b: Path) -> tuple[bool, str]:
+    """Whether two GeoPackages hold the same layers with equal values (geometry as WKB); the first difference."""
+    import pyogrio
+
+    names = sorted(n for n, _ in pyogrio.list_layers(a))
+    if names != sorted(n for n, _ in pyogrio.list_layers(b)):
+        return False, "layer names differ"
+    for name in names:
+        fa = pyogrio.read_dataframe(a, layer=name, read_geometry=True)
+        fb = pyogrio.read_dataframe(b, layer=name, read_geometry=True)
+        if list(fa.columns) != list(fb.columns) or len(fa) != len(fb):
+            return False, f"{name}: columns or rows differ"
+        for col in fa.columns:
+            if col == "geometry":
+                if not (fa.geometry.to_wkb() == fb.geometry.to_wkb()).all():
+                    return False, f"{name}.geometry"
+            elif not fa[col].equals(fb[col]):
+                return False, f"{name}.{col}"
+    return True, f"{len(names)} layers equal"
+
+
+def case_cover_cluster(args, cmd: list[str], env: dict[str, str], out: Path, wall_1: float) -> None:
+    """The same ``coverkit cover`` on a local cluster of ``args.workers`` processes: time, peaks, same output."""
+    from dask.distributed import Client, LocalCluster
+
+    t0 = time.perf_counter()
+    cluster = LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True, dashboard_address=None)
+    client = Client(cluster)
+    start_s = time.perf_counter() - t0
+    try:
+        before = client.run(worker_rss_gb)
+        out_d = out.with_name("cover_out_dask.gpkg")
+        wall, peak_gb, rc, err = run_child(
+            [*cmd[:-2], str(out_d), "--quiet", "--scheduler", cluster.scheduler_address], env
+        )
+        if rc != 0:
+            print(err[-4000:])
+            raise SystemExit(f"coverkit cover --scheduler exited {rc}")
+        after = client.run(worker_rss_gb)
+    finally:
+        client.close()
+        cluster.close()
+    same, what = same_layers(out, out_d)
+    print(f"  {args.workers} Dask workers (local cluster, 1 thread each; started in {start_s:.1f} s, not counted)")
+    print(f"    whole command      {wall:8.1f} s   command process peak {peak_gb:5.2f} GB   {wall / wall_1:5.2f} x the "
+          f"single-process time")  # fmt: skip
+    for i, addr in enumerate(sorted(after)):
+        print(f"    worker {i}           peak {after[addr][1]:5.2f} GB (idle after start {before[addr][0]:4.2f} GB)")
+    print(f"    output             {'identical' if same else 'DIFFERENT'} to the single-process run ({what})")
+    print(f"    machine            {os.cpu_count()} cores (workers beyond the cores share them)")
 
 
 def make_cover_inputs(work: Path, n_side: int, n_bases: int, n_points: int, seed: int = 13) -> dict[str, Path]:
@@ -127,13 +207,11 @@ def case_cover(args: argparse.Namespace) -> None:
         *env_python, "-m", "coverkit", "cover", str(files["network"]), "--bases", str(files["bases"]),
         "--demand", str(files["demand"]), "--minutes", f"{args.minutes:g}", "--out", str(out), "--quiet",
     ]  # fmt: skip
-    t0 = time.perf_counter()
-    run = subprocess.run(cmd, capture_output=True, text=True, env=env)
-    wall = time.perf_counter() - t0
-    peak_gb = peak_children_gb()
-    if run.returncode != 0:
-        print(run.stdout[-2000:], run.stderr[-4000:], sep="\n")
-        raise SystemExit(f"coverkit cover exited {run.returncode}")
+    wall, own_gb, rc, err = run_child(cmd, env)
+    peak_gb = max(own_gb, floor_gb)  # as before: the largest child so far
+    if rc != 0:
+        print(err[-4000:])
+        raise SystemExit(f"coverkit cover exited {rc}")
     search_s = multi_s + bounded_s
     print(
         f"cover: {args.n_side**2:,} nodes, {args.bases} bases, {args.points:,} points, {args.minutes:g} min "
@@ -147,6 +225,8 @@ def case_cover(args: argparse.Namespace) -> None:
     print(f"  ratio to the bare searches   {wall / search_s:6.1f} x time")
     print(f"  ratio to the floor child     {wall / floor_wall:6.1f} x time, {peak_gb / floor_gb:5.2f} x memory")
     print("  targets (issue 13, 1 M nodes, 300 bases, 1 M points): <= 60 s, <= 4 GB")
+    if args.workers:
+        case_cover_cluster(args, cmd, env, out, wall)
 
 
 CASES = {"cover": case_cover}
@@ -159,6 +239,7 @@ def main() -> None:
     p.add_argument("--bases", type=int, default=300)
     p.add_argument("--points", type=int, default=1_000_000)
     p.add_argument("--minutes", type=float, default=8.0, help="travel standard (min)")
+    p.add_argument("--workers", type=int, default=0, help="also run on a local Dask cluster of this many workers")
     work = Path(tempfile.gettempdir()) / "coverkit_bench_scale"
     p.add_argument("--work", default=str(work), help="folder for the generated data (reused)")
     args = p.parse_args()

@@ -8,17 +8,19 @@ command line from its scheduler options, a study from its ``[compute]`` section,
     with use_runner(DaskRunner(workers=4)):
         table = travel_table(net, bases, demand, horizon_s)
 
-A :class:`DaskRunner` sends each shared input to every worker once per runner (``Client.scatter`` with
-``broadcast=True``; the same object is not sent again), maps the blocks (``Client.map``) and gathers the results in
-block order, so the outcome is the same as in process: every block is computed by the same function on the same
-inputs and the caller assembles them in the same order (tests/test_compute.py). ``dask.distributed`` is imported
-only when a cluster is asked for.
+A :class:`DaskRunner` sends each shared input to every worker once (``Client.scatter`` with ``broadcast=True``; the
+same object is not sent again while it lives, and the workers' copies are released when it is collected), maps the
+blocks (``Client.map``) and gathers the results in block order, so the outcome is the same as in process: every
+block is computed by the same function on the same inputs and the caller assembles them in the same order
+(tests/test_compute.py, tests/test_compute_search.py). ``dask.distributed`` is imported only when a cluster is asked
+for.
 """
 
 from __future__ import annotations
 
 import contextlib
 import contextvars
+import weakref
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any, Protocol
 
@@ -89,16 +91,17 @@ class DaskRunner:
                     "(`dask scheduler`) and its workers, or run without a scheduler.",
                     param="scheduler",
                 ) from None
-        self._sent: dict[int, tuple[Any, Any]] = {}
+        self._sent: dict[int, tuple[Callable[[], Any], Any]] = {}
 
     def _shared(self, shared: dict[str, Any]) -> dict[str, Any]:
-        """Futures of the shared inputs, each sent to every worker once per runner (keyed by the object)."""
+        """Futures of the shared inputs, each sent to every worker once while the object lives (keyed by the object):
+        the network's graph, cached on the network, goes once per run; a step's own inputs leave the workers when
+        the step lets them go."""
         out = {}
         for key, value in shared.items():
             kept = self._sent.get(id(value))
-            if kept is None or kept[0] is not value:
-                # hold the object itself too: an id is only unique while the object lives
-                kept = (value, self.client.scatter(value, broadcast=True, hash=False))
+            if kept is None or kept[0]() is not value:
+                kept = (_holder(value, self._sent), self.client.scatter(value, broadcast=True, hash=False))
                 self._sent[id(value)] = kept
             out[key] = kept[1]
         return out
@@ -130,6 +133,18 @@ class DaskRunner:
 
     def __repr__(self) -> str:
         return f"DaskRunner({self.describe()})"
+
+
+def _holder(value: Any, sent: dict[int, Any]) -> Callable[[], Any]:
+    """A callable giving ``value`` back (to tell it from a later object of the same id): a weak reference whose
+    object's collection drops its entry from ``sent``, and with it the workers' copy; for objects that take no weak
+    reference (numbers, tuples: small) the object itself, kept as long as the runner."""
+    try:
+        ref = weakref.ref(value)
+    except TypeError:
+        return lambda: value
+    weakref.finalize(value, sent.pop, id(value), None)
+    return ref
 
 
 _IN_PROCESS = InProcess()
@@ -167,7 +182,8 @@ def map_blocks(fn: Callable[..., Any], blocks: Sequence[Any], *, shared: dict[st
     """``[fn(block, **shared) for block in blocks]`` on the current runner, in block order.
 
     ``fn`` must be a module-level function (a cluster pickles it by name); ``shared`` holds the large inputs every
-    block reads (sent to each worker once), the blocks the small ones.
+    block reads (sent to each worker once, so they must not be changed in place while they live: make a new
+    object instead), the blocks the small ones.
 
     >>> import operator
     >>> map_blocks(operator.neg, [1, 2, 3])

@@ -7,7 +7,6 @@ from pathlib import Path
 
 from coverkit import CAUTION, settings
 from coverkit.cli.options import common, minutes_list, network_and_bases, points_options, positive_float, time_of_day
-from coverkit.cli.options import compute as compute_options
 
 NAME = "isochrones"
 
@@ -60,7 +59,6 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     points_options(p)
     time_of_day(p)
     common(p)
-    compute_options(p)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -62,10 +62,12 @@ def compute(p: argparse.ArgumentParser) -> None:
         "--scheduler",
         metavar="ADDRESS",
         default=None,
-        help="spread the per-base search blocks over the Dask scheduler at ADDRESS (tcp://host:8786)",
+        help="run on the Dask scheduler at ADDRESS (tcp://host:8786): the per-base searches (times from the bases "
+        "to the demand points, area cells and call points; siting's coverage matrix) and simulation replications; "
+        "the nearest-base searches, the models and the maps stay in this process",
     )
     g.add_argument("--workers", type=int, metavar="N", default=None,
-                   help="start a local Dask cluster of N worker processes for this command")  # fmt: skip
+                   help="start a local Dask cluster of N worker processes for those steps of this command")  # fmt: skip
 
 
 def positive_float(text: str) -> float:

@@ -19,6 +19,8 @@ not stored lies beyond the limit.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import dijkstra
@@ -31,6 +33,9 @@ from coverkit.travel.snap import Snapped
 CHUNK_CELLS = 10_000_000
 
 DIRECTIONS = ("out", "in")
+
+#: Chunks handed to a cluster runner at a time (enough to keep its workers busy; the memory stop looks between).
+CLUSTER_BATCH = 64
 
 #: Up to this many cells (sources x targets), nearest sources are found on a dense array.
 DENSE_NEAREST_CELLS = 20_000_000
@@ -48,7 +53,7 @@ TABLE_ADVICE = "a shorter horizon or travel standard, fewer demand points (a coa
 
 def run_s(net: RoadNetwork) -> np.ndarray:
     """Running time of each edge without its end-node delay (s); ``inf`` for closed edges."""
-    delay = net.edges["delay_s"].to_numpy(dtype=float)
+    delay = np.asarray(net.edge_values("delay_s"), dtype=float)
     t = net.travel_s
     return np.where(np.isfinite(t), np.maximum(t - delay, 0.0), np.inf)
 
@@ -103,7 +108,7 @@ def seeds(
     with np.errstate(invalid="ignore"):  # NaN stretch ends (open edges) compare False: nothing is cut off
         if direction == "out":
             node = np.where(at_u, net.u[e], net.v[e])
-            t = np.where(at_node, 0.0, (1.0 - f) * run + net.edges["delay_s"].to_numpy(dtype=float)[e])
+            t = np.where(at_node, 0.0, (1.0 - f) * run + np.asarray(net.edge_values("delay_s"), dtype=float)[e])
             cut = f < hi
         else:
             node = np.where(at_v, net.v[e], net.u[e])
@@ -168,12 +173,9 @@ def node_times(
         ``n_nodes`` columns, then (turns modelled) the turn states', which :func:`exits` may name.
     """
     width = search_size(net)
+    chunks, shared = _chunks(net, sources, limit_s, direction, chunk_size, width=width)
     watch = _TableWatch(len(sources), net.n_nodes, limit_s, "nodes")
-    parts = []
-    for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
-        parts.append((src_idx, dense_to_csr(dist, limit_s)))
-        watch.add(src_idx, parts[-1][1].nnz)
-    return _assemble(parts, (len(sources), width))
+    return _assemble(_row_blocks(_node_rows, chunks, shared, watch), (len(sources), width))
 
 
 def node_time_blocks(
@@ -246,10 +248,7 @@ def point_times(
     n_t = len(targets)
     t_pt, t_node, t_add = exits(net, targets, direction)
     # entries are sorted by point: reduceat boundaries per target with at least one entry
-    has = np.zeros(n_t, dtype=bool)
-    has[t_pt] = True
     starts = np.flatnonzero(np.r_[True, t_pt[1:] != t_pt[:-1]]) if len(t_pt) else np.zeros(0, dtype=np.int64)
-    targets_with = t_pt[starts] if len(t_pt) else np.zeros(0, dtype=np.int64)
     n_space = search_size(net)
     width = max(n_space, len(t_pt))
     # the target entries by node (to gather from the reached nodes only) and the same-edge trips, found once
@@ -257,25 +256,45 @@ def point_times(
     node_ptr = np.searchsorted(t_node[by_node], np.arange(n_space + 1))
     se_s, se_pt, se_t = same_edge_trips(net, sources, targets, direction)
     order = np.argsort(se_s, kind="stable")
-    se_s, se_pt, se_t = se_s[order], se_pt[order], se_t[order]
-    parts = []
+    ends = _PointEnds(n_t, t_pt, t_node, t_add, starts, by_node, node_ptr, se_s[order], se_pt[order], se_t[order])
+    chunks, shared = _chunks(net, sources, limit_s, direction, chunk_size, width=width)
     watch = _TableWatch(len(sources), n_t, limit_s, "points")
-    for src_idx, dist in _chunked_search(net, sources, limit_s, direction, chunk_size, width=width):
-        local = np.full(len(sources), -1, dtype=np.int64)
-        local[src_idx] = np.arange(len(src_idx))
-        trip = local[se_s] >= 0
-        trips = (local[se_s[trip]], se_pt[trip], se_t[trip])
-        reached = np.isfinite(dist)
-        if reached.mean() > SPARSE_REACH_SHARE:
-            block = np.full((len(src_idx), n_t), np.inf)
-            if len(t_pt):
-                block[:, targets_with] = _group_min(dist, t_node, t_add, starts)
-            np.minimum.at(block, trips[:2], trips[2])
-            parts.append((src_idx, dense_to_csr(block, limit_s)))
-        else:
-            parts.append((src_idx, _reached_points(dist, reached, by_node, node_ptr, t_pt, t_add, trips, n_t, limit_s)))
-        watch.add(src_idx, parts[-1][1].nnz)
-    return _assemble(parts, (len(sources), n_t))
+    return _assemble(_row_blocks(_point_rows, chunks, {**shared, "ends": ends}, watch), (len(sources), n_t))
+
+
+@dataclass(frozen=True)
+class _PointEnds:
+    """How a search's nodes reach the target points (:func:`exits`, grouped) and the same-edge trips by source: the
+    shared input of every chunk of :func:`point_times` (one object, so a cluster sends it whole, once)."""
+
+    n_t: int
+    t_pt: np.ndarray
+    t_node: np.ndarray
+    t_add: np.ndarray
+    starts: np.ndarray
+    by_node: np.ndarray
+    node_ptr: np.ndarray
+    se_s: np.ndarray
+    se_pt: np.ndarray
+    se_t: np.ndarray
+
+
+def _point_rows(src_idx: np.ndarray, *, ends: _PointEnds, limit_s: float, **search) -> sp.csr_matrix:
+    """One chunk of :func:`point_times`: its sources' times to the target points within ``limit_s`` (a block of
+    :func:`coverkit.compute.map_blocks`; module level so a cluster worker runs it by name)."""
+    dist = _search_block(src_idx, limit_s=limit_s, **search)
+    local = np.full(search["n_sources"], -1, dtype=np.int64)
+    local[src_idx] = np.arange(len(src_idx))
+    trip = local[ends.se_s] >= 0
+    trips = (local[ends.se_s[trip]], ends.se_pt[trip], ends.se_t[trip])
+    reached = np.isfinite(dist)
+    if reached.mean() > SPARSE_REACH_SHARE:
+        block = np.full((len(src_idx), ends.n_t), np.inf)
+        if len(ends.t_pt):
+            block[:, ends.t_pt[ends.starts]] = _group_min(dist, ends.t_node, ends.t_add, ends.starts)
+        np.minimum.at(block, trips[:2], trips[2])
+        return dense_to_csr(block, limit_s)
+    return _reached_points(dist, reached, ends.by_node, ends.node_ptr, ends.t_pt, ends.t_add, trips, ends.n_t, limit_s)
 
 
 def _reached_points(
@@ -462,29 +481,75 @@ def augmented_graph(g: sp.csr_matrix, pt: np.ndarray, node: np.ndarray, t: np.nd
     return sp.csr_matrix((data, indices, indptr), shape=(size, size))
 
 
-def _chunked_search(net, sources, limit_s, direction, chunk_size, width, only=None, predecessors=False):
-    """Yield ``(source indices, dense times block (chunk, n_nodes))`` per chunk of on-network sources (``only``:
-    these source indices instead); with ``predecessors``, also the predecessor block (chunk, n_nodes + chunk), in
-    which indices from ``n_nodes`` on are the chunk's virtual source nodes."""
+def _chunks(net, sources, limit_s, direction, chunk_size, width, only=None):
+    """The chunks of on-network source indices (``only``: these instead) of a search, and what every chunk shares:
+    the graph to search (cached on the network, so a cluster sends it once per run), the sources' entries, the
+    bound. A chunk's dense block has at most :data:`CHUNK_CELLS` cells of ``width`` columns."""
     _check_direction(direction)
-    g = graph(net, direction)
     s_pt, s_node, s_t = seeds(net, sources, direction, states=True)
-    n_g = g.shape[0]
     src_all = np.flatnonzero(sources.on_network) if only is None else np.asarray(only, dtype=np.int64)
     if chunk_size is None:
         chunk_size = max(1, CHUNK_CELLS // max(width, 1))
-    for start in range(0, len(src_all), chunk_size):
-        src_idx = src_all[start : start + chunk_size]
-        local = np.full(len(sources), -1, dtype=np.int64)
-        local[src_idx] = np.arange(len(src_idx))
-        sel = local[s_pt] >= 0
-        aug = augmented_graph(g, local[s_pt[sel]], s_node[sel], s_t[sel], len(src_idx))
-        indices = n_g + np.arange(len(src_idx))
-        if predecessors:
-            dist, pred = dijkstra(aug, directed=True, indices=indices, limit=limit_s, return_predecessors=True)
-            yield src_idx, dist[:, :n_g], pred
-        else:
-            yield src_idx, dijkstra(aug, directed=True, indices=indices, limit=limit_s)[:, :n_g]
+    chunks = [src_all[start : start + chunk_size] for start in range(0, len(src_all), chunk_size)]
+    shared = {"g": graph(net, direction), "entries": _Entries(s_pt, s_node, s_t), "n_sources": len(sources)}
+    return chunks, {**shared, "limit_s": float(limit_s)}
+
+
+@dataclass(frozen=True)
+class _Entries:
+    """The sources' entries into the graph (:func:`seeds`): point index, node, time (s)."""
+
+    pt: np.ndarray
+    node: np.ndarray
+    t: np.ndarray
+
+
+def _search_block(src_idx, *, g, entries: _Entries, n_sources: int, limit_s: float, predecessors: bool = False):
+    """One chunk's search: the graph ``g`` plus one virtual node per source of ``src_idx`` (its entries as arcs),
+    ``csgraph.dijkstra`` from the virtual nodes within ``limit_s``. Returns the dense times (chunk, n_nodes) and,
+    with ``predecessors``, the predecessor block (chunk, n_nodes + chunk)."""
+    n = g.shape[0]
+    local = np.full(n_sources, -1, dtype=np.int64)
+    local[src_idx] = np.arange(len(src_idx))
+    sel = local[entries.pt] >= 0
+    aug = augmented_graph(g, local[entries.pt[sel]], entries.node[sel], entries.t[sel], len(src_idx))
+    indices = n + np.arange(len(src_idx))
+    if predecessors:
+        dist, pred = dijkstra(aug, directed=True, indices=indices, limit=limit_s, return_predecessors=True)
+        return dist[:, :n], pred
+    return dijkstra(aug, directed=True, indices=indices, limit=limit_s)[:, :n]
+
+
+def _node_rows(src_idx: np.ndarray, *, limit_s: float, **search) -> sp.csr_matrix:
+    """One chunk of :func:`node_times` as sparse rows (a block of :func:`coverkit.compute.map_blocks`)."""
+    return dense_to_csr(_search_block(src_idx, limit_s=limit_s, **search), limit_s)
+
+
+def _row_blocks(fn, chunks, shared, watch) -> list[tuple[np.ndarray, sp.csr_matrix]]:
+    """``(chunk, fn(chunk, **shared))`` for every chunk, in chunk order, on the current runner: in this process one
+    chunk at a time, on a cluster :data:`CLUSTER_BATCH` chunks at a time (the shared inputs go to each worker
+    once). ``watch`` sees every block as it arrives, so the memory stop comes before the rest is searched."""
+    from coverkit.compute import InProcess, current_runner, map_blocks
+
+    batch = 1 if isinstance(current_runner(), InProcess) else CLUSTER_BATCH
+    parts = []
+    for lo in range(0, len(chunks), batch):
+        some = chunks[lo : lo + batch]
+        for src_idx, rows in zip(some, map_blocks(fn, some, shared=shared), strict=True):
+            parts.append((src_idx, rows))
+            watch.add(src_idx, rows.nnz)
+    return parts
+
+
+def _chunked_search(net, sources, limit_s, direction, chunk_size, width, only=None, predecessors=False):
+    """Yield ``(source indices, dense times block (chunk, n_nodes))`` per chunk of on-network sources (``only``:
+    these source indices instead); with ``predecessors``, also the predecessor block (chunk, n_nodes + chunk), in
+    which indices from ``n_nodes`` on are the chunk's virtual source nodes. In this process: the dense blocks are
+    the caller's, one chunk at a time."""
+    chunks, shared = _chunks(net, sources, limit_s, direction, chunk_size, width, only)
+    for src_idx in chunks:
+        out = _search_block(src_idx, predecessors=predecessors, **shared)
+        yield (src_idx, *out) if predecessors else (src_idx, out)
 
 
 def same_edge_trips(
