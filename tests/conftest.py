@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+import numpy as np
 import pytest
 from hypothesis import settings
 
@@ -113,4 +114,18 @@ def site_cli(net_path: Path, out: Path, *extra: str) -> int:
             "--quiet",
             *extra,
         ]
+    )
+
+
+def same_table(a, b) -> bool:
+    """Two sparse time tables hold the same stored entries (stored zeros included) with the same values, bit for
+    bit, whatever their index order."""
+    a, b = a.tocsr().copy(), b.tocsr().copy()
+    a.sort_indices()
+    b.sort_indices()
+    return (
+        a.shape == b.shape
+        and np.array_equal(a.indptr, b.indptr)
+        and np.array_equal(a.indices, b.indices)
+        and np.array_equal(a.data, b.data)
     )

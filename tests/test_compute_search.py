@@ -24,7 +24,7 @@ from coverkit.travel import read_points, search
 from coverkit.travel.search import node_times, point_times
 from coverkit.travel.snap import snap_points
 
-from .conftest import DEMO
+from .conftest import DEMO, same_table
 from .test_travel_search import TOL_S, irregular_network, reference_graph
 
 
@@ -33,19 +33,6 @@ def cluster():
     """A local cluster of two worker processes (so blocks and shared inputs really travel by pickle)."""
     with DaskRunner(workers=2) as runner:
         yield runner
-
-
-def _same(a: sp.csr_matrix, b: sp.csr_matrix) -> bool:
-    """Same stored entries (stored zeros included) and the same values, bit for bit."""
-    a, b = a.tocsr(), b.tocsr()
-    a.sort_indices()
-    b.sort_indices()
-    return (
-        a.shape == b.shape
-        and np.array_equal(a.indptr, b.indptr)
-        and np.array_equal(a.indices, b.indices)
-        and np.array_equal(a.data, b.data)
-    )
 
 
 def _graphs_sent(runner: DaskRunner) -> list[sp.csr_matrix]:
@@ -76,8 +63,8 @@ def test_point_times_on_the_cluster_match_networkx_and_the_single_process_run(cl
     # a search's own inputs (its sources' entries, the targets' ends) leave the workers with the search
     held = [type(hold()).__name__ for hold, _ in cluster._sent.values()]
     assert "_PointEnds" not in held and "_Entries" not in held
-    assert _same(there, here)
-    assert _same(nodes_there, node_times(net, bases, limit, direction=direction))
+    assert same_table(there, here)
+    assert same_table(nodes_there, node_times(net, bases, limit, direction=direction))
     ref_g = reference_graph(net, np.vstack([bases_xy, targets_xy]))
     if direction == "in":
         ref_g = ref_g.reverse(copy=True)

@@ -37,7 +37,7 @@ from coverkit.study import load_study
 from coverkit.travel import read_points, snap_points
 from coverkit.whatif import NO_REACH_NOTE, WhatIf
 
-from .conftest import DEMO
+from .conftest import DEMO, same_table
 
 ALS = Standard("ALS", 480, 60, 0.9, "NFPA 1710")
 FIRST_DUE = Standard("First due", 240, 60, 0.9, "NFPA 1710")
@@ -88,18 +88,6 @@ def _without_edges(net: RoadNetwork, drop: np.ndarray) -> RoadNetwork:
     edges = net.edges.iloc[keep].reset_index(drop=True)
     edges["edge_id"] = np.arange(len(edges))
     return RoadNetwork(net.nodes, edges, net.crs, net.profile, {"source": "test: edges removed"})
-
-
-def _same_table(a, b) -> bool:
-    a, b = a.copy(), b.copy()
-    a.sort_indices()
-    b.sort_indices()
-    return (
-        a.shape == b.shape
-        and np.array_equal(a.indptr, b.indptr)
-        and np.array_equal(a.indices, b.indices)
-        and np.array_equal(a.data, b.data)
-    )
 
 
 def _nx_node_times(net: RoadNetwork, base_snap, i: int, weight: np.ndarray) -> dict[int, float]:
@@ -209,7 +197,7 @@ def test_closed_network_times_equal_networkx(demo, whatif):
 def test_whatif_base_state_equals_travel_table(demo, whatif):
     """The what-if's base times (derived from stored node times) equal coverage.travel_table exactly."""
     ref = travel_table(demo["net"], demo["bases"], demo["calls"], whatif.horizon_s)
-    assert _same_table(whatif.tables["calls"].times, ref.times)
+    assert same_table(whatif.tables["calls"].times, ref.times)
 
 
 def _full(out, demo, std):
@@ -246,7 +234,7 @@ def test_whatif_equals_full_recompute_exactly(demo, whatif, change):
     for std in (ALS, FIRST_DUE):
         full = _full(out, demo, std)
         got = out.results[(std.name, "calls")]
-        assert _same_table(got.times, full.times)
+        assert same_table(got.times, full.times)
         for col in ("travel_s", "second_travel_s", "snap_m"):
             assert np.array_equal(got.demand[col].to_numpy(), full.demand[col].to_numpy(), equal_nan=True), col
         for col in ("first_base", "second_base", "covered", "depth", "on_network"):
@@ -271,7 +259,7 @@ def test_whatif_skipping_some_bases_is_still_exact(demo, whatif):
         out = whatif.close_edges([e])
         assert 0 < len(out.recomputed_bases) < len(out.bases)
         full = _full(out, demo, ALS)
-        assert _same_table(out.results[(ALS.name, "calls")].times, full.times)
+        assert same_table(out.results[(ALS.name, "calls")].times, full.times)
         assert np.array_equal(out.results[(ALS.name, "calls")].demand["travel_s"], full.demand["travel_s"])
 
 
@@ -290,7 +278,7 @@ def test_whatif_runs_a_whole_scenario_exactly(demo, whatif, tmp_path):
     net2, bases2, _ = apply_scenario(demo["net"], demo["bases"], scen)
     assert "S3" in out.recomputed_bases and np.array_equal(net2.travel_s, out.network.travel_s)
     full = evaluate_coverage(net2, bases2, demo["calls"], ALS, horizon_s=1800)
-    assert _same_table(out.results[(ALS.name, "calls")].times, full.times)
+    assert same_table(out.results[(ALS.name, "calls")].times, full.times)
     assert (out.results[(ALS.name, "calls")].demand["first_base"] == full.demand["first_base"]).all()
 
 
@@ -305,7 +293,7 @@ def test_whatif_inbound_direction_equals_full_recompute(demo):
         wi.slow_edges(np.flatnonzero(net.edges["road_class"] == "tertiary"), 1.7),
     ):
         full = evaluate_coverage(out.network, out.bases, dem, ALS, horizon_s=1200, direction="in")
-        assert _same_table(out.result.times, full.times)
+        assert same_table(out.result.times, full.times)
 
 
 def test_closure_out_of_every_search_changes_nothing(demo):

@@ -22,21 +22,10 @@ from coverkit.travel import node_times, snap_points
 from coverkit.travel.repair import can_repair, repaired_node_times
 from coverkit.whatif import WhatIf
 
+from .conftest import same_table
 from .reference_search import synthetic_network
 
 X0, Y0 = 500000.0, 5000000.0
-
-
-def _same(a, b) -> bool:
-    a, b = a.tocsr(), b.tocsr()
-    a.sort_indices()
-    b.sort_indices()
-    return (
-        a.shape == b.shape
-        and np.array_equal(a.indptr, b.indptr)
-        and np.array_equal(a.indices, b.indices)
-        and np.array_equal(a.data, b.data)
-    )
 
 
 @pytest.fixture(scope="module")
@@ -63,7 +52,7 @@ def test_detour_worked_by_hand():
     row = out.toarray()[0]
     assert row[2] == pytest.approx(40.0) and row[5] == pytest.approx(30.0) and row[1] == pytest.approx(10.0)
     assert touched.tolist() == [2, 5]
-    assert _same(out, node_times(after_net, src, 1e4))
+    assert same_table(out, node_times(after_net, src, 1e4))
 
 
 def test_against_networkx_on_a_closed_grid():
@@ -112,7 +101,7 @@ def test_repair_equals_a_full_search(small, seed, n_changed, factor, direction, 
     before = node_times(net, bases, limit_s, direction)
     out, touched = repaired_node_times(net, after_net, bases, before, limit_s, direction, return_affected=True)
     full = node_times(after_net, bases, limit_s, direction)
-    assert _same(out, full)
+    assert same_table(out, full)
     keep = np.ones(before.shape, dtype=bool)
     keep.ravel()[touched] = False
     a, b = before.toarray(), full.toarray()
@@ -140,7 +129,7 @@ def test_patched_search_graph_equals_a_rebuilt_one(small, seed, n_changed, kind)
     t[ids] = {"close": np.inf, "slow": 2.0, "fast": 0.5}[kind] * t[ids]
     patched = updated_min_weight_csr(net.csr(), net.u, net.v, net.travel_s, t)
     rebuilt = min_weight_csr(net.u, net.v, np.maximum(t, MIN_EDGE_S), net.n_nodes)
-    assert patched is not None and _same(patched, rebuilt)
+    assert patched is not None and same_table(patched, rebuilt)
 
 
 def test_county_size_closure_equals_a_full_recomputation():
@@ -166,4 +155,4 @@ def test_county_size_closure_equals_a_full_recomputation():
     full = evaluate_coverage(out.network, bases, calls, std, horizon_s=1800)
     np.testing.assert_array_equal(out.result.demand["travel_s"].to_numpy(), full.demand["travel_s"].to_numpy())
     assert (out.result.demand["first_base"] == full.demand["first_base"]).all()
-    assert _same(out.result.times, full.times)
+    assert same_table(out.result.times, full.times)
