@@ -16,12 +16,10 @@ import sys
 import time
 from pathlib import Path
 
-import geopandas as gpd
 import numpy as np
-import shapely
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_isochrones import synthetic_network
+from bench_isochrones import county_inputs, synthetic_network
 
 from coverkit.coverage import Standard, evaluate_coverage
 from coverkit.network.hour_bands import HourBand, network_at
@@ -35,18 +33,8 @@ def main() -> int:
     classes = sorted(set(net.edges["road_class"].astype(str)))
     band = HourBand("am", "weekday", 7, 9, {c: 0.8 for c in classes})
     net.profile = dataclasses.replace(net.profile, hour_bands=(band,))
-    rng = np.random.default_rng(11)
-    base_nodes = rng.choice(net.n_nodes, 30, replace=False)
-    bases = gpd.GeoDataFrame(
-        {"id": [f"B{i}" for i in range(30)]}, geometry=shapely.points(net.xy[base_nodes]), crs=net.crs
-    )
-    x0, y0, x1, y1 = net.nodes.total_bounds
-    n = 100_000
-    demand = gpd.GeoDataFrame(
-        {"id": np.arange(n).astype(str), "weight": rng.uniform(0, 10, n)},
-        geometry=shapely.points(np.column_stack([rng.uniform(x0, x1, n), rng.uniform(y0, y1, n)])),
-        crs=net.crs,
-    )
+    bases, demand = county_inputs(net)
+    rng = np.random.default_rng(12)
     std = Standard("8 min", 480.0)
     route = rng.uniform(0, 15000, 2000)
     fit = fit_spread(np.exp(rng.normal(0, 0.2, 2000)) * 300, np.full(2000, 300.0), route)
@@ -65,7 +53,7 @@ def main() -> int:
     base, retime, at_total, spread = (min(c) for c in zip(*rows, strict=True))
     expected = float((res.demand["weight"] * res.demand["p_in_standard"]).sum())
     covered = float(res.demand.loc[res.demand["covered"], "weight"].sum())
-    print(f"network {net.n_nodes:,} nodes, {net.n_edges:,} edges; 30 bases; {n:,} demand points (best of 3)")
+    print(f"network {net.n_nodes:,} nodes, {net.n_edges:,} edges; 30 bases; {len(demand):,} demand points (best of 3)")
     print(f"(a) coverage                         {base:8.3f} s")
     print(f"(b) network_at retiming alone        {retime:8.3f} s   ratio to (a) {retime / base:.3f}")
     print(f"    retiming + coverage              {at_total:8.3f} s   ratio to (a) {at_total / base:.2f}")

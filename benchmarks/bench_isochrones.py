@@ -73,6 +73,28 @@ def synthetic_network(n_side: int = 300, spacing_m: float = 150.0, seed: int = 7
     )
 
 
+def county_inputs(
+    net: RoadNetwork, n_bases: int = 30, n_points: int = 100_000, seed: int = 11
+) -> tuple[gpd.GeoDataFrame, gpd.GeoDataFrame]:
+    """The county-size case the benchmarks share on ``net``: ``n_bases`` bases at random nodes (ids ``B0``..., the
+    node index in ``node``) and
+    ``n_points`` demand points uniform over the network's extent with weights uniform in 0..10 (seeded)."""
+    rng = np.random.default_rng(seed)
+    base_nodes = rng.choice(net.n_nodes, n_bases, replace=False)
+    bases = gpd.GeoDataFrame(
+        {"id": [f"B{i}" for i in range(n_bases)], "node": base_nodes},
+        geometry=shapely.points(net.xy[base_nodes]),
+        crs=net.crs,
+    )
+    x0, y0, x1, y1 = net.nodes.total_bounds
+    demand = gpd.GeoDataFrame(
+        {"id": np.arange(n_points).astype(str), "weight": rng.uniform(0, 10, n_points)},
+        geometry=shapely.points(np.column_stack([rng.uniform(x0, x1, n_points), rng.uniform(y0, y1, n_points)])),
+        crs=net.crs,
+    )
+    return bases, demand
+
+
 def timed(fn, *args, **kwargs):
     t0 = time.perf_counter()
     out = fn(*args, **kwargs)

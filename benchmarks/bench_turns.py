@@ -15,13 +15,11 @@ import sys
 import time
 from pathlib import Path
 
-import geopandas as gpd
 import numpy as np
 import pandas as pd
-import shapely
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_isochrones import synthetic_network
+from bench_isochrones import county_inputs, synthetic_network
 
 from coverkit.coverage import Standard, evaluate_coverage
 from coverkit.isochrones import drive_time_polygons
@@ -66,17 +64,7 @@ def main() -> int:
     set_quiet(True)
     plain = synthetic_network()
     turned = with_turns(plain)
-    rng = np.random.default_rng(11)
-    base_nodes = rng.choice(plain.n_nodes, 30, replace=False)
-    bases = gpd.GeoDataFrame(
-        {"id": [f"B{i}" for i in range(30)]}, geometry=shapely.points(plain.xy[base_nodes]), crs=plain.crs
-    )
-    x0, y0, x1, y1 = plain.nodes.total_bounds
-    demand = gpd.GeoDataFrame(
-        {"id": np.arange(N_DEMAND).astype(str), "weight": rng.uniform(0, 10, N_DEMAND)},
-        geometry=shapely.points(np.column_stack([rng.uniform(x0, x1, N_DEMAND), rng.uniform(y0, y1, N_DEMAND)])),
-        crs=plain.crs,
-    )
+    bases, demand = county_inputs(plain, n_points=N_DEMAND)
     std = Standard("8 min", 480.0)
     tg, t_build = timed(turns.turn_structure, turned)
     print(

@@ -16,13 +16,11 @@ import sys
 import time
 from pathlib import Path
 
-import geopandas as gpd
 import numpy as np
 import pandas as pd
-import shapely
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_isochrones import synthetic_network
+from bench_isochrones import county_inputs, synthetic_network
 
 from coverkit.coverage import Standard, evaluate_coverage
 from coverkit.progress import set_quiet
@@ -45,16 +43,8 @@ def _fleet(ids: list[str]):
 def main() -> int:
     set_quiet(True)
     net = synthetic_network()
-    rng = np.random.default_rng(11)
-    base_nodes = rng.choice(net.n_nodes, N_BASES, replace=False)
-    ids = [f"B{i}" for i in range(N_BASES)]
-    bases = gpd.GeoDataFrame({"id": ids}, geometry=shapely.points(net.xy[base_nodes]), crs=net.crs)
-    x0, y0, x1, y1 = net.nodes.total_bounds
-    demand = gpd.GeoDataFrame(
-        {"id": np.arange(N_POINTS).astype(str), "weight": rng.uniform(0, 10, N_POINTS)},
-        geometry=shapely.points(np.column_stack([rng.uniform(x0, x1, N_POINTS), rng.uniform(y0, y1, N_POINTS)])),
-        crs=net.crs,
-    )
+    bases, demand = county_inputs(net, N_BASES, N_POINTS)
+    ids = bases["id"].tolist()
     fleet = _fleet(ids)
     horizon = 1800.0
     cases = {
