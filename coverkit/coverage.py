@@ -28,6 +28,7 @@ from coverkit.network.model import RoadNetwork
 from coverkit.progress import note
 from coverkit.travel import NO_ACCESS_CLASSES, count_within, nearest_sources, point_times, snap_points
 from coverkit.travel.reach import NodeReach, nearest_k_nodes, nearest_k_points
+from coverkit.unit_reach import fill_beyond
 from coverkit.units import Fleet
 
 #: Default search horizon beyond the standard, so response times past the standard are still measured (s).
@@ -140,9 +141,9 @@ class Standard:
         return f"{self.name}: {self.judged()}{parts}, {self.fractile * 100:g} % of demand{src}"
 
     def unreached_text(self) -> str:
-        """Words for a time not known: "not reached" (within the search horizon), or for a standard judging units,
-        whose arrivals are known up to the standard's travel time only, "beyond the standard"."""
-        return "not reached" if self.kind == "base" else "beyond the standard"
+        """Words for a time not known: "not reached" within the search horizon (for a standard judging units too:
+        their arrivals are filled up to the horizon, :mod:`coverkit.unit_reach`)."""
+        return "not reached"
 
     def judged(self) -> str:
         """What arrives, in words, with a trailing ``" in "`` (empty for a plain standard).
@@ -480,7 +481,7 @@ def evaluate_coverage(
         "snap_m": dem_snap.dist_m,
     }
     if fleet is not None:
-        cols = _with_units(cols, times, fleet, standard)
+        cols = _with_units(cols, times, fleet, standard, net, table)
     for name, values in cols.items():
         out[name] = values
     lead = ["id", "weight", *cols]
@@ -491,10 +492,14 @@ def evaluate_coverage(
     return CoverageResult(out, bases, standard, times, horizon_s, direction, extra)
 
 
-def _with_units(cols: dict, times: sp.csr_matrix, fleet: Fleet, standard: Standard) -> dict:
+def _with_units(
+    cols: dict, times: sp.csr_matrix, fleet: Fleet, standard: Standard, net: RoadNetwork, table: TravelTable
+) -> dict:
     """The demand columns with the fleet's: per-type first arrivals and people in time after ``depth``; a standard
-    by type or force judging ``travel_s``, ``response_s`` and ``covered`` (the other columns keep the bases)."""
+    by type or force judging ``travel_s``, ``response_s`` and ``covered`` (the other columns keep the bases). The
+    arrival times past the standard are filled up to the horizon (:mod:`coverkit.unit_reach`)."""
     unit_cols, judged = unit_columns(times, fleet, standard)
+    unit_cols, judged = fill_beyond(net, table, fleet, standard, unit_cols, judged)
     cols = dict(cols)
     if judged is not None:
         cols["travel_s"] = judged

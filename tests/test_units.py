@@ -189,7 +189,8 @@ def _check_against_reference(net, bases, calls, table, reference, kind, travel_s
     res = evaluate_coverage(net, bases, calls, std, fleet=fleet)
     d = res.demand
     on = d["on_network"].to_numpy()
-    brute = _brute_force(reference, table, ids, travel_s)
+    # arrivals are known up to the search horizon, past the standard's travel time (coverkit.unit_reach)
+    brute = _brute_force(reference, table, ids, res.horizon_s)
     if "unit_type" in kind:
         want = [_nth(a, kind["unit_type"], kind.get("nth", 1)) for a in brute]
     elif "personnel" in kind:
@@ -198,7 +199,8 @@ def _check_against_reference(net, bases, calls, table, reference, kind, travel_s
         want = [max(_nth(a, t, n) for t, n in kind["assignment"]) for a in brute]
     want = np.array(want)[on]
     got = d["travel_s"].to_numpy()[on]
-    assert np.isfinite(want).sum() > 50 and (~np.isfinite(want)).sum() > 0  # both outcomes occur
+    assert (want <= travel_s).sum() > 50 and (want > travel_s).sum() > 0  # both outcomes occur
+    assert (np.isfinite(want) & (want > travel_s)).sum() > 0  # and times past the standard are measured
     np.testing.assert_array_equal(np.isfinite(got), np.isfinite(want))
     np.testing.assert_allclose(got[np.isfinite(got)], want[np.isfinite(want)], rtol=1e-9, atol=1e-6)
     np.testing.assert_array_equal(d["covered"].to_numpy()[on], want <= travel_s)
@@ -206,7 +208,7 @@ def _check_against_reference(net, bases, calls, table, reference, kind, travel_s
     for unit_type in fleet.types:
         first = np.array([_nth(a, unit_type, 1) for a in brute])[on]
         np.testing.assert_allclose(d[type_column(unit_type)].to_numpy()[on], first, rtol=1e-9, atol=1e-6)
-    people = np.array([sum(s for _, _, s in a) for a in brute])[on]
+    people = np.array([sum(s for t, _, s in a if t <= travel_s) for a in brute])[on]
     np.testing.assert_array_equal(d["personnel_in_time"].to_numpy()[on], people)
 
 
@@ -242,12 +244,35 @@ def helsinki_inputs(helsinki_network, tmp_path_factory):
 
 @pytest.mark.parametrize(
     "kind",
-    [{"unit_type": "engine", "nth": 2}, {"personnel": 12}, {"assignment": (("engine", 2), ("medic-als", 1))}],
-    ids=["second engine", "force 12", "assignment"],
+    [
+        {"unit_type": "engine", "nth": 2},
+        {"unit_type": "engine", "nth": 4},  # 4 nearest bases: one pass past the table's 3 nearest
+        {"personnel": 12},
+        {"personnel": 20},  # crews per base 3, 4, 5, 6 add to 18 < 20: the 5 nearest staffed bases
+        {"assignment": (("engine", 2), ("medic-als", 1))},
+    ],
+    ids=["second engine", "fourth engine", "force 12", "force 20", "assignment"],
 )
 def test_arrivals_equal_networkx_on_the_helsinki_extract(helsinki_inputs, kind):
     net, bases, calls, reference = helsinki_inputs
     _check_against_reference(net, bases, calls, HELSINKI_FLEET, reference, kind, 420.0)
+
+
+def test_a_full_table_and_a_bounded_one_give_the_same_arrivals_past_the_standard(demo_inputs):
+    """Two routes to the same numbers: every pair stored up to the horizon (the arrivals engine reads them all)
+    against the per-base times within the standard plus the k-nearest searches (coverkit.unit_reach); equal to the
+    networkx reference by the tests above, so equal to each other (exact arithmetic on the same edge sums)."""
+    from coverkit.coverage import travel_table
+
+    net, bases, calls = demo_inputs
+    fleet = _fleet(FLEET, bases["id"].astype(str).tolist())
+    std = Standard("asg", 300.0, assignment=(("engine", 2), ("ladder", 1)))
+    full = travel_table(net, bases, calls, 3600.0)
+    a = evaluate_coverage(net, bases, calls, std, table=full, fleet=fleet).demand
+    b = evaluate_coverage(net, bases, calls, std, horizon_s=3600.0, fleet=fleet).demand
+    assert ((a["travel_s"] > 300.0) & np.isfinite(a["travel_s"])).sum() > 20  # filled past the standard
+    for col in ("travel_s", "first_engine_s", "first_ladder_s", "first_command_s", "personnel_in_time"):
+        np.testing.assert_allclose(a[col].to_numpy(), b[col].to_numpy(), rtol=1e-12)
 
 
 def test_a_plain_standard_with_units_keeps_every_base_column(demo_inputs):

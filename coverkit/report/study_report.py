@@ -255,7 +255,7 @@ def _assumptions(page: ReportPage) -> None:
                     else f"and only the units in service at hour {run.study.units.hour:g} are counted. "
                 )
                 + "A standard by unit type or force is met when the units it names have "
-                "arrived (a unit counted once); their arrival times are known up to the standard's travel time.",
+                "arrived (a unit counted once); their arrival times are measured up to the search horizon.",
             ]
         )
 

@@ -73,7 +73,13 @@ class NodeReach:
 
 
 def nearest_k_nodes(
-    net: RoadNetwork, sources: Snapped, limit_s: float, direction: str = "out", *, k: int = 2
+    net: RoadNetwork,
+    sources: Snapped,
+    limit_s: float,
+    direction: str = "out",
+    *,
+    k: int = 2,
+    start: NodeReach | None = None,
 ) -> NodeReach:
     """The ``k`` nearest sources of every node within ``limit_s``, from ``k`` multi-source searches.
 
@@ -92,6 +98,9 @@ def nearest_k_nodes(
         ``"out"`` (source to node) or ``"in"`` (node to source).
     k
         How many nearest sources per node (>= 1).
+    start
+        The nearest sources of every node already found for these ``sources``, ``limit_s`` and ``direction``
+        (fewer than ``k``): only the passes after them run.
     """
     n_src = len(sources)
     s_pt, s_node, s_t = seeds(net, sources, direction, states=True)
@@ -104,24 +113,41 @@ def nearest_k_nodes(
     time_s = np.full((n, k), np.inf)
     source = np.full((n, k), -1, dtype=np.int64)
     aug = augmented_graph(g, s_pt, s_node, s_t, n_src)
+    coo = aug.tocoo()
+    g_coo = g.tocoo()
+    # the entry arcs of the sources as they enter the graph (the virtual nodes' arcs, smallest weight per node)
+    arc = coo.row >= n
+    entry = (coo.row[arc] - n, coo.col[arc], coo.data[arc])
+    j0 = _start_passes(start, time_s, source, limit_s, direction)
+    if j0 == 0:
+        time_s[:, 0], source[:, 0] = _first_nearest(aug, coo, n, n_src, limit_s)
+    for j in range(max(j0, 1), k):
+        time_s[:, j], source[:, j] = _next_nearest(g_coo, entry, time_s[:, :j], source[:, :j], limit_s, n_src)
+    return NodeReach(time_s, source, float(limit_s), direction)
+
+
+def _start_passes(start: NodeReach | None, time_s: np.ndarray, source: np.ndarray, limit_s: float, direction: str):
+    """Copy the nearest sources of ``start`` into ``time_s``/``source``; how many passes they stand for."""
+    if start is None:
+        return 0
+    if start.limit_s != float(limit_s) or start.direction != direction or start.time_s.shape[0] != len(time_s):
+        raise ValueError("the nearest sources to start from were searched at another limit, direction or graph")
+    j0 = min(start.k, time_s.shape[1])
+    time_s[:, :j0], source[:, :j0] = start.time_s[:, :j0], start.source[:, :j0]
+    return j0
+
+
+def _first_nearest(aug: sp.csr_matrix, coo: sp.coo_matrix, n: int, n_src: int, limit_s: float):
+    """The nearest source of every vertex: one multi-source search, ties to the lowest source index."""
     dist, _, reached_from = dijkstra(
         aug, directed=True, indices=n + np.arange(n_src), limit=limit_s, min_only=True, return_predecessors=True
     )
     label = np.where(reached_from >= 0, reached_from - n, _NO_SOURCE).astype(np.int64)
     label[n:] = np.arange(n_src)
-    coo = aug.tocoo()
     tight = np.isfinite(dist[coo.row]) & (dist[coo.row] + coo.data == dist[coo.col])
     label = lowest_labels(label, coo.row[tight], coo.col[tight], n + n_src)
     d1 = dist[:n]
-    time_s[:, 0] = d1
-    source[:, 0] = np.where(np.isfinite(d1), label[:n], -1)
-    g_coo = g.tocoo()
-    # the entry arcs of the sources as they enter the graph (the virtual nodes' arcs, smallest weight per node)
-    arc = coo.row >= n
-    entry = (coo.row[arc] - n, coo.col[arc], coo.data[arc])
-    for j in range(1, k):
-        time_s[:, j], source[:, j] = _next_nearest(g_coo, entry, time_s[:, :j], source[:, :j], limit_s, n_src)
-    return NodeReach(time_s, source, float(limit_s), direction)
+    return d1, np.where(np.isfinite(d1), label[:n], -1)
 
 
 def _region_keys(source: np.ndarray, n_src: int) -> np.ndarray:
