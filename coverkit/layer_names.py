@@ -36,7 +36,10 @@ KINDS: dict[str, tuple[str, str]] = {
     "gaps": ("gaps_{standard}", "contiguous areas not covered within the standard, largest first"),
     "single_cover": ("single_cover_{standard}", "areas reached by exactly one base within the standard"),
     "depth": ("depth_{standard}", "coverage depth areas: how many bases reach each place within the standard"),
-    "density_zones": ("density_zones", "NFPA 1720 demand zones by population density (urban, suburban, rural)"),
+    "density_zones": (
+        "density_zones",
+        ("NFPA 1720 demand zones by population density (urban, suburban, rural) and road distance (remote)"),
+    ),
     "by_density_zone": ("by_density_zone_{demand}", "each NFPA 1720 density zone judged against its own row"),
     "road_minutes": ("road_minutes", "per road piece: minutes from the nearest base (serve export)"),
     "summary": ("summary", "one row per standard and demand layer: covered share, fractile response"),

@@ -10,7 +10,9 @@ NFPA 1720 states its objectives per demand zone, by population density, as a num
 response time that runs from the dispatch notice to arrival (turnout included), for a share of incidents. Here each
 demand point takes the zone of the population density around it (people per square mile over a square window of the
 population raster), and each zone is judged against its own row. The remote zone (travel distance of 8 miles or
-more) has no time objective to evaluate and is not classified here.
+more from the nearest station, whatever the density) is classified by road distance (one multi-source search on the
+edges' lengths, :func:`coverkit.travel.distance.nearest_distance_m`); its row (4 staff, 90 %) sets no time, so its
+table row gives the time by which 4 staff are on scene for 90 % of its demand and no pass or fail.
 """
 
 from __future__ import annotations
@@ -60,6 +62,39 @@ NFPA1720_ZONES = (
 )
 
 
+#: NFPA 1720 remote zone (from memory; check the edition you are bound by): travel distance to the nearest station of
+#: 8 miles (1 mile = 1609.344 m) or more, 4 staff on scene, 90 %; its time depends on the distance (none given).
+REMOTE_DISTANCE_M = 8 * 1609.344
+NFPA1720_REMOTE = DensityZone("remote", np.nan, np.nan, 4, np.nan, 0.9)
+#: Every NFPA 1720 zone row: the density rows, densest first, then the remote zone (its index in zone layers).
+ZONE_ROWS = (*NFPA1720_ZONES, NFPA1720_REMOTE)
+
+
+def remote_mask(net: object, stations: object, points: object) -> np.ndarray:
+    """Per point (GeoSeries, any CRS) whether it lies in the NFPA 1720 remote zone: a road distance from the
+    nearest of ``stations`` (GeoDataFrame) of :data:`REMOTE_DISTANCE_M` or more. A point beyond the snap limit of
+    every road is left to its density zone (its distance is not known).
+
+    >>> from coverkit.network.model import grid_network
+    >>> import shapely
+    >>> net = grid_network(30, 1, 1000.0, 50.0)  # a 29 km straight road, nodes 1 km apart
+    >>> st = gpd.GeoDataFrame(geometry=shapely.points([[500000.0, 5e6]]), crs=net.crs)
+    >>> pts = gpd.GeoSeries(shapely.points([[512000.0, 5e6], [513000.0, 5e6]]), crs=net.crs)
+    >>> remote_mask(net, st, pts).tolist()  # 12 km < 12.87 km <= 13 km
+    [False, True]
+    """
+    from coverkit.travel import snap_points
+    from coverkit.travel.distance import nearest_distance_m
+
+    pts = gpd.GeoSeries(points).to_crs(net.crs)
+    frame = gpd.GeoDataFrame({"id": np.arange(len(pts))}, geometry=pts.to_numpy(), crs=net.crs)
+    st = gpd.GeoDataFrame({"id": np.arange(len(stations))}, geometry=stations.geometry.to_numpy(), crs=stations.crs)
+    s_snap = snap_points(net, st.to_crs(net.crs), off_network="raise", what="bases")
+    p_snap = snap_points(net, frame, off_network="mask", what="zone cells", warn_islands=False)
+    dist = nearest_distance_m(net, s_snap, p_snap, REMOTE_DISTANCE_M)
+    return p_snap.on_network & ~(dist < REMOTE_DISTANCE_M)
+
+
 def nfpa1710_standards(
     *, engine: str = "engine", als: str = "medic-als", fire_turnout_s: float = 80.0, ems_turnout_s: float = 60.0
 ) -> list[Standard]:
@@ -105,6 +140,15 @@ def nfpa1720_standards(turnout_s: float = NFPA1720_TURNOUT_S) -> list[Standard]:
     return out
 
 
+def remote_standard(rural: Standard) -> Standard:
+    """The force standard behind the remote zone's row: 4 staff (from memory), 90 %, with the rural row's turnout
+    and travel time (the row sets no time; only its fractile response is reported, from the arrivals up to the
+    search horizon)."""
+    z = NFPA1720_REMOTE
+    src = f"NFPA 1720 remote: {z.staff} staff, {z.fractile:.0%}, travel distance >= 8 miles ({FROM_MEMORY})"
+    return Standard(zone_standard_name(z), rural.travel_s, rural.turnout_s, z.fractile, src, personnel=z.staff)
+
+
 def zone_standard_name(zone: DensityZone) -> str:
     """The name of a zone's standard (``"NFPA 1720 urban"``)."""
     return f"NFPA 1720 {zone.name}"
@@ -134,9 +178,13 @@ def classify_density(density: np.ndarray) -> np.ndarray:
     return out
 
 
-def density_zones(path: str | Path, crs: object, window_m: float = DENSITY_WINDOW_M) -> gpd.GeoDataFrame:
+def density_zones(
+    path: str | Path, crs: object, window_m: float = DENSITY_WINDOW_M, *, remote: object | None = None
+) -> gpd.GeoDataFrame:
     """The NFPA 1720 zones of a population raster as polygons (``zone``, ``people``, ``area_km2``) in ``crs``; every
-    cell lies in one zone, so the zones' people add up to the raster's total.
+    cell lies in one zone, so the zones' people add up to the raster's total. ``remote`` (a function of a GeoSeries
+    of points giving a bool per point, e.g. :func:`remote_mask` bound to a network and stations) moves the cells
+    whose centre it marks into the remote zone.
 
     Raises
     ------
@@ -157,12 +205,18 @@ def density_zones(path: str | Path, crs: object, window_m: float = DENSITY_WINDO
     people = np.where(np.isfinite(data) & (data > 0), data, 0.0)
     cell_m = abs(transform.a)
     zone = classify_density(density_per_sqmi(people, cell_m, window_m))
+    if remote is not None:
+        rows, cols = (a.ravel() + 0.5 for a in np.indices(zone.shape))
+        x = transform.c + transform.a * cols + transform.b * rows
+        y = transform.f + transform.d * cols + transform.e * rows
+        centres = gpd.GeoSeries(gpd.points_from_xy(x, y), crs=raster_crs)
+        zone.ravel()[np.asarray(remote(centres), dtype=bool)] = len(NFPA1720_ZONES)
     polys = grid_polygons(zone, transform, raster_crs, valid=np.ones(zone.shape, dtype=bool))
     polys = polys.dissolve("value", as_index=False).sort_values("value")
-    sums = np.bincount(zone.ravel(), weights=people.ravel(), minlength=len(NFPA1720_ZONES))
+    sums = np.bincount(zone.ravel(), weights=people.ravel(), minlength=len(ZONE_ROWS))
     value = polys["value"].to_numpy(dtype=int)
     out = gpd.GeoDataFrame(
-        {"zone": [NFPA1720_ZONES[v].name for v in value], "people": sums[value]},
+        {"zone": [ZONE_ROWS[v].name for v in value], "people": sums[value]},
         geometry=polys.geometry.to_numpy(),
         crs=raster_crs,
     ).to_crs(crs)
@@ -171,11 +225,12 @@ def density_zones(path: str | Path, crs: object, window_m: float = DENSITY_WINDO
 
 
 def density_zones_from_blocks(
-    path: str | Path, population_field: str, crs: object, *, layer: str | None = None
+    path: str | Path, population_field: str, crs: object, *, layer: str | None = None, remote: object | None = None
 ) -> gpd.GeoDataFrame:
     """The NFPA 1720 zones of census-like blocks: each block's density is its population over its own area (people
     per sq mi; the block is the window), blocks of one zone dissolved (``zone``, ``people``, ``area_km2``), in
-    ``crs`` (projected, metres). The zones' people add up to the blocks' total.
+    ``crs`` (projected, metres). The zones' people add up to the blocks' total. ``remote`` (as in
+    :func:`density_zones`) moves the blocks whose representative point it marks into the remote zone.
 
     Raises
     ------
@@ -205,10 +260,13 @@ def density_zones_from_blocks(
         blocks["_people"].to_numpy() * SQ_MILE_M2, area_m2, out=np.zeros(len(blocks)), where=area_m2 > 0
     )
     blocks["_zone"] = classify_density(density)
+    if remote is not None:
+        far = np.asarray(remote(blocks.geometry.representative_point()), dtype=bool)
+        blocks.loc[far, "_zone"] = len(NFPA1720_ZONES)
     out = blocks[["_zone", "_people", "geometry"]].dissolve("_zone", aggfunc="sum", as_index=False)
     out = out.sort_values("_zone")
     zones = gpd.GeoDataFrame(
-        {"zone": [NFPA1720_ZONES[v].name for v in out["_zone"]], "people": out["_people"].to_numpy()},
+        {"zone": [ZONE_ROWS[v].name for v in out["_zone"]], "people": out["_people"].to_numpy()},
         geometry=out.geometry.to_numpy(),
         crs=blocks.crs,
     )
@@ -219,15 +277,21 @@ def density_zones_from_blocks(
 def zone_table(results: dict[str, object], zones: gpd.GeoDataFrame) -> pd.DataFrame:
     """Each NFPA 1720 zone judged against its own row: ``results`` maps each zone's standard name
     (:func:`zone_standard_name`) to its :class:`coverkit.coverage.CoverageResult` on one demand layer; the points
-    inside a zone's polygons count for that zone only."""
+    inside a zone's polygons count for that zone only. The remote row (when ``results`` holds
+    :func:`remote_standard`'s) reports its demand and the fractile time of 4 staff, with no covered share and no
+    pass or fail (NFPA 1720 sets it no time)."""
     from coverkit.coverage import compliance_by_zone
 
     rows = []
-    for z in NFPA1720_ZONES:
+    for z in ZONE_ROWS:
+        if z is NFPA1720_REMOTE and zone_standard_name(z) not in results:
+            continue  # the remote row without its force result: nothing to report on
         res = results[zone_standard_name(z)]
         table = compliance_by_zone(res, zones, "zone")
         mine = table[table["zone"] == z.name]
         row = mine.iloc[0].to_dict() if len(mine) else {"points": 0, "demand": 0.0, "covered": 0.0}
+        if z is NFPA1720_REMOTE:  # no time objective: the time 4 staff take, no covered share, no pass or fail
+            row = {**row, "covered": np.nan, "covered_share": np.nan, "meets_standard": None}
         rows.append(
             {
                 "zone": z.name,
@@ -239,19 +303,24 @@ def zone_table(results: dict[str, object], zones: gpd.GeoDataFrame) -> pd.DataFr
                 "covered": float(row.get("covered", 0.0)),
                 "covered_share": float(row.get("covered_share", np.nan)),
                 "fractile_response_s": float(row.get("fractile_response_s", np.nan)),
-                "meets_standard": bool(row.get("meets_standard", False)),
+                "meets_standard": None if z is NFPA1720_REMOTE else bool(row.get("meets_standard", False)),
             }
         )
     return pd.DataFrame(rows)
 
 
 __all__ = [
+    "NFPA1720_REMOTE",
     "NFPA1720_ZONES",
+    "REMOTE_DISTANCE_M",
+    "ZONE_ROWS",
     "DensityZone",
     "classify_density",
     "density_per_sqmi",
     "density_zones",
     "nfpa1710_standards",
     "nfpa1720_standards",
+    "remote_mask",
+    "remote_standard",
     "zone_table",
 ]

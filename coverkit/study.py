@@ -10,11 +10,12 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from coverkit import __version__, demand_sources, settings, siting_models
-from coverkit.coverage import Standard, default_horizon_s
+from coverkit.coverage import CoverageResult, Standard, default_horizon_s, evaluate_coverage
 from coverkit.errors import CoverkitError, StudyError
 from coverkit.layer_names import layer_name, map_file, output_file, table_file
 from coverkit.settings import (
@@ -498,10 +499,12 @@ def density_zone_layers(study: Study, net: RoadNetwork, runs: list[CoverageStage
         return {}
     raster = next((spec.path for spec in study.demand if spec.source_kind == "raster"), None)
     blocks = next((spec for spec in study.demand if spec.source_kind == "polygons"), None)
+    first = next(iter(runs[0].results.values()))
+    remote = partial(nfpa.remote_mask, net, first.bases)
     if raster is not None:
-        zones = nfpa.density_zones(raster, net.crs, window)
+        zones = nfpa.density_zones(raster, net.crs, window, remote=remote)
     elif blocks is not None:
-        zones = nfpa.density_zones_from_blocks(blocks.path, blocks.population_field, net.crs)
+        zones = nfpa.density_zones_from_blocks(blocks.path, blocks.population_field, net.crs, remote=remote)
     else:
         raise StudyError(
             f"{study.path}: the nfpa1720 preset takes its density zones from a population raster or blocks; add a "
@@ -509,10 +512,22 @@ def density_zone_layers(study: Study, net: RoadNetwork, runs: list[CoverageStage
         )
     out: dict[str, Any] = {layer_name("density_zones"): zones}
     names = {nfpa.zone_standard_name(z) for z in nfpa.NFPA1720_ZONES}
+    rural = nfpa.zone_standard_name(nfpa.NFPA1720_ZONES[-1])
     for dname in runs[0].results:
         results = {run.standard.name: run.results[dname] for run in runs if run.standard.name in names}
+        results[nfpa.zone_standard_name(nfpa.NFPA1720_REMOTE)] = _remote_result(net, results[rural])
         out[layer_name("by_density_zone", dname)] = nfpa.zone_table(results, zones)
     return out
+
+
+def _remote_result(net: RoadNetwork, rural: CoverageResult) -> CoverageResult:
+    """The NFPA 1720 remote row's force (4 staff) on the rural standard's demand, table and fleet."""
+    from coverkit import nfpa
+
+    std = nfpa.remote_standard(rural.standard)
+    demand = rural.demand[[c for c in rural.demand.columns if c in ("id", "weight", "geometry")]]
+    extra = rural.extra
+    return evaluate_coverage(net, rural.bases, demand, std, table=extra["table"], fleet=extra.get("fleet"))
 
 
 def density_window_m(study: Study) -> float | None:

@@ -607,3 +607,108 @@ def test_density_zones_from_blocks_hand_worked_and_total_kept(tmp_path):
     total = gpd.read_file(DEMO / "blocks.gpkg", layer="blocks")["residents"].sum()
     assert demo["people"].sum() == pytest.approx(total)
     assert set(demo["zone"]) == {"urban", "suburban", "rural"}
+
+
+# -- NFPA 1720 remote zone: road distance to the nearest station -------------------------------------------------------
+def test_road_distance_to_the_nearest_station_equals_networkx(demo_inputs):
+    """networkx (reference library): multi-source Dijkstra on ``length_m`` over the open edges, the stations placed
+    on road nodes (so no partial edge), against the one multi-source search of coverkit.travel.distance, on every
+    node of the demo county taken as a target point."""
+    from coverkit.travel import snap_points
+    from coverkit.travel.distance import nearest_distance_m
+
+    net = demo_inputs[0]
+    rng = np.random.default_rng(7)
+    st_nodes = rng.choice(net.n_nodes, 3, replace=False)
+    g = nx.DiGraph()
+    for a, b, w in zip(net.u.tolist(), net.v.tolist(), net.length_m.tolist(), strict=True):
+        if not g.has_edge(a, b) or g[a][b]["weight"] > w:
+            g.add_edge(a, b, weight=w)
+    want = nx.multi_source_dijkstra_path_length(g, set(st_nodes.tolist()), cutoff=15_000.0, weight="weight")
+    targets = np.arange(net.n_nodes)
+    frame = lambda nodes: gpd.GeoDataFrame(  # noqa: E731
+        {"id": np.arange(len(nodes))}, geometry=shapely.points(net.xy[nodes]), crs=net.crs
+    )
+    s_snap = snap_points(net, frame(st_nodes), off_network="raise")
+    t_snap = snap_points(net, frame(targets), off_network="mask", warn_islands=False)
+    got = nearest_distance_m(net, s_snap, t_snap, 15_000.0)
+    ref_d = np.array([want.get(int(n), np.inf) for n in targets])
+    on = t_snap.on_network & (t_snap.dist_m < 1e-6)  # the point is the node itself
+    assert on.sum() > 0.9 * net.n_nodes and np.isfinite(ref_d[on]).sum() > 500 and np.isinf(ref_d[on]).sum() > 0
+    np.testing.assert_array_equal(np.isfinite(got[on]), np.isfinite(ref_d[on]))
+    fin = on & np.isfinite(ref_d)
+    np.testing.assert_allclose(got[fin], ref_d[fin], rtol=1e-9, atol=1e-6)
+
+
+def test_remote_is_eight_road_miles_from_the_nearest_station():
+    """NFPA 1720 remote zone, from memory: travel distance of 8 miles or more (international mile, 1609.344 m: 8 mi
+    = 12,874.752 m). Hand-worked on a straight two-way road with nodes 500 m apart and the station at its west end:
+    12,870 m is not remote, 12,880 m is; a point 40 m off the road's far end but 20 km along is remote; the road
+    distance, not the straight line, decides (a U-shaped road: 6 km apart in a line, 16 km along the road)."""
+    from coverkit.network.model import grid_network
+    from coverkit.nfpa import REMOTE_DISTANCE_M, remote_mask
+
+    assert REMOTE_DISTANCE_M == pytest.approx(12_874.752)
+    net = grid_network(41, 1, 500.0, 50.0)
+    st = gpd.GeoDataFrame(geometry=shapely.points([[500000.0, 5e6]]), crs=net.crs)
+    pts = gpd.GeoSeries(shapely.points([[512870.0, 5e6], [512880.0, 5e6], [520000.0, 5e6 + 40]]), crs=net.crs)
+    assert remote_mask(net, st, pts).tolist() == [False, True, True]
+    # a U: two parallel 13 km roads 1 km apart, joined only at their north ends once the other rungs are closed
+    ladder = grid_network(2, 14, 1000.0, 50.0)
+    rung = ladder.xy[ladder.u, 1] == ladder.xy[ladder.v, 1]
+    top = ladder.xy[ladder.u, 1] == 5e6 + 13_000.0
+    u_road = ladder.with_travel_s(np.where(rung & ~top, np.inf, ladder.travel_s))
+    across = gpd.GeoSeries(shapely.points([[501000.0, 5e6]]), crs=net.crs)  # 1 km in a line
+    assert remote_mask(ladder, st, across).tolist() == [False]  # the bottom rung: 1 km
+    assert remote_mask(u_road, st, across).tolist() == [True]  # 13 + 1 + 13 = 27 km along the road
+
+
+def test_a_study_with_the_nfpa1720_preset_reports_the_remote_zone(tmp_path):
+    """The demo county's far corner lies 8 road miles or more from every station (NFPA 1720 remote, from memory):
+    the zones layer holds it and the per-zone table gives it a row (4 staff, 90 %, no pass or fail). Its fractile
+    time is checked against a second route: the force of 4 from a table of every pair up to the horizon (the
+    arrivals engine alone, no k-nearest search), over the residents inside the remote polygons (shapely), and
+    weighted_fractile; and 4 staff never take longer than the rural row's 6 (hand fact: a force of 6 holds 4)."""
+    from coverkit.coverage import travel_table, weighted_fractile
+    from coverkit.layer_names import layer_name
+    from coverkit.nfpa import NFPA1720_REMOTE, REMOTE_DISTANCE_M
+    from coverkit.report.study_report import write_study_report
+    from coverkit.study import run_study
+
+    path = _study(tmp_path, DEMO / "units.csv", 'preset = "nfpa1720"\nturnout_s = 80')
+    text = path.read_text().replace('[[standard]]\nname = "force"\n', "[[standard]]\n")
+    text = text.replace(
+        "[[demand]]", f'[[demand]]\nname = "residents"\nraster = "{DEMO / "population.tif"}"\n[[demand]]'
+    )
+    path.write_text(text.replace("report = false", "report = true"))
+    run = run_study(path)
+    zones = run.density_layers[layer_name("density_zones")]
+    table = run.density_layers[layer_name("by_density_zone", "residents")]
+    assert table["zone"].tolist() == ["urban", "suburban", "rural", "remote"]
+    remote = table.iloc[3]
+    assert (remote["staff"], remote["fractile"]) == (NFPA1720_REMOTE.staff, 0.9)
+    assert remote["meets_standard"] is None and np.isnan(remote["covered_share"])
+    assert remote["demand"] > 100  # people live out there
+    import rasterio
+
+    with rasterio.open(DEMO / "population.tif") as src:
+        pop = src.read(1, masked=True).filled(0.0)
+    assert zones["people"].sum() == pytest.approx(float(pop[pop > 0].sum()))  # moving cells keeps the total
+    rural_run = next(r for r in run.runs if r.standard.name == "NFPA 1720 rural")
+    res = rural_run.results["residents"]
+    area = zones.loc[zones["zone"] == "remote"].union_all()
+    pts = res.demand.geometry.to_numpy()
+    inside = shapely.contains_xy(area, shapely.get_x(pts), shapely.get_y(pts))
+    assert res.demand["weight"].to_numpy()[inside].sum() == pytest.approx(remote["demand"])
+    dem = res.demand[["id", "weight", "source", "geometry"]]  # the source keeps population off the carriageways
+    full = travel_table(run.network, res.bases, dem, res.horizon_s)
+    four = Standard("four", res.standard.travel_s, res.standard.turnout_s, 0.9, personnel=4)
+    d = evaluate_coverage(run.network, res.bases, dem, four, table=full, fleet=res.extra["fleet"]).demand
+    w = d["weight"].to_numpy()[inside]
+    want = weighted_fractile(d["response_s"].to_numpy()[inside], w, 0.9)
+    assert np.isfinite(want) and want > res.standard.response_s * 0.5
+    assert remote["fractile_response_s"] == pytest.approx(want)
+    assert (d["travel_s"].to_numpy() <= res.demand["travel_s"].to_numpy()).all()
+    assert REMOTE_DISTANCE_M / 1609.344 == pytest.approx(8.0)
+    html = write_study_report(run, tmp_path / "report")["report"].read_text()
+    assert "8 road miles or more" in html and "remote" in html

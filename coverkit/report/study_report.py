@@ -323,6 +323,9 @@ def _density_zones(page: ReportPage) -> None:
             f"{FROM_MEMORY}.",
             "Each demand point counts in the zone it lies in and is judged against that zone's row (staff on scene "
             "within the response time, turnout included).",
+            "The remote zone is the area 8 road miles or more from the nearest station (road distance, whatever the "
+            "density); its row sets no time, so its table gives the time by which 4 staff are on scene for 90 % of "
+            "its demand, without a pass or fail.",
         ]
     )
     _table(rep, zones.drop(columns="geometry"), "Demand zones")
