@@ -151,7 +151,7 @@ def check_fleet(fleet: Fleet | None, standard: object) -> None:
         )
     wanted = [standard.unit_type] if kind == "unit_type" else [t for t, _ in standard.assignment]
     for unit_type in wanted:
-        if fleet.count(unit_type) == 0:
+        if fleet.count(unit_type) == 0 and unit_type not in fleet.gone_types:
             raise CoverkitError(
                 f"standard '{name}' names unit type '{unit_type}', which no unit in {fleet.source} has; "
                 f"its types are {', '.join(fleet.types)}."

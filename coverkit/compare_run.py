@@ -18,6 +18,7 @@ import pandas as pd
 
 from coverkit import CAUTION
 from coverkit.atomic import write_csv_atomic, write_gpkg_layers
+from coverkit.compare_units import plain_twin, unit_results
 from coverkit.demand_sources import row_word, unit_word
 from coverkit.errors import CoverkitError
 from coverkit.layer_names import layer_name, output_file
@@ -30,7 +31,15 @@ from coverkit.scenario import (
     compare_results,
     load_scenario,
 )
-from coverkit.study import Study, cached_network, load_inputs, load_study, refuse_unit_standards, reusable_network
+from coverkit.study import (
+    Study,
+    cached_network,
+    load_fleet,
+    load_inputs,
+    load_study,
+    refuse_unit_standards,
+    reusable_network,
+)
 from coverkit.study_errors import study_keys
 from coverkit.whatif import WhatIf
 
@@ -46,24 +55,32 @@ def _study_network(study: Study, cache_folder: str | Path | None) -> RoadNetwork
 
 
 @study_keys
-def study_inputs(study_path: str | Path, cache_folder: str | Path | None = None) -> dict[str, Any]:
+def study_inputs(
+    study_path: str | Path, cache_folder: str | Path | None = None, *, with_units: bool = False
+) -> dict[str, Any]:
     """The inputs of a study, loaded as :func:`coverkit.study.run_study` does: network (cached), bases, demand.
 
     The network is reused from the study's own output folder when a valid cache is there (read only), otherwise
     built and cached in ``cache_folder`` (default: the study's output folder). Bases and demand come from
     :func:`coverkit.study.load_inputs`, the loader :func:`coverkit.study.run_study` uses.
 
+    Without ``with_units`` a study with standards by unit type or force is refused (the what-if and the web page
+    do not evaluate them); with it the study's units come too.
+
     Returns
     -------
     dict
         ``study``, ``network``, ``bases``, ``demand`` (``{name: GeoDataFrame}``), ``kinds`` (``{name: kind}``),
-        ``snaps`` (``{name: snap limit m}``), ``horizon_s``.
+        ``snaps`` (``{name: snap limit m}``), ``horizon_s``, and with ``with_units`` ``fleet`` (None without units).
     """
     study = load_study(study_path)
-    refuse_unit_standards(study, "a comparison or what-if")
+    if not with_units:
+        refuse_unit_standards(study, "a what-if")
     net = _study_network(study, cache_folder)
     bases, demand, kinds, snaps = load_inputs(study, net)
+    extra = {"fleet": load_fleet(study, bases)} if with_units else {}
     return {
+        **extra,
         "study": study,
         "network": net,
         "bases": bases,
@@ -247,7 +264,7 @@ def compare_study(
     steps.step("study inputs")
     # both files are checked before the output folder exists; a run that stops on bad input removes a folder it
     # created (holding at most the network cache), so a rejected scenario leaves nothing behind
-    refuse_unit_standards(load_study(study_path), "a comparison")
+    load_study(study_path)
     scenario = load_scenario(scenario_path)
     if at and ":" in at:
         from coverkit.network.hour_bands import parse_at
@@ -272,24 +289,32 @@ def _compare(
     steps: Steps,
     at: str | None = None,
 ) -> CompareRun:
-    inputs = study_inputs(study_path, cache_folder=out)
+    inputs = study_inputs(study_path, cache_folder=out, with_units=True)
     study, net, bases, demand = inputs["study"], inputs["network"], inputs["bases"], inputs["demand"]
     if at:
         from coverkit.network.hour_bands import network_at
 
         net = network_at(net, at)
-    kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]
+    kinds, horizon_s = inputs["kinds"], inputs["horizon_s"]  # the horizon of every standard, units ones too
     steps.step("coverage before")
     base_snap_m = study.bases.snap_m
+    plain = [s for s in study.standards if s.kind == "base"]
+    typed = [s for s in study.standards if s.kind != "base"]
     # the incremental what-if snaps each demand layer once and searches again only from the bases the scenario can
-    # touch; it equals a full recomputation (tests/test_scenario.py)
-    whatif = WhatIf(net, bases, demand, study.standards, horizon_s, study.direction, inputs["snaps"], base_snap_m)
+    # touch; it equals a full recomputation (tests/test_scenario.py). Standards judging units are evaluated on its
+    # tables (coverkit.compare_units); a study of those only gives it a plain twin to search for.
+    searched = plain or [plain_twin(typed[0])]
+    whatif = WhatIf(net, bases, demand, searched, horizon_s, study.direction, inputs["snaps"], base_snap_m)
     steps.step("coverage after the scenario")
     outcome = whatif.run(scenario)
     net2, bases2, log = outcome.network, outcome.bases, outcome.changes
+    unit_before, unit_after = {}, {}
+    if typed:
+        unit_before, unit_after, notes = unit_results(whatif, outcome, typed, inputs["fleet"])
+        log.notes.extend(notes)
     keys = [(s.name, name) for name in demand for s in study.standards]
-    before = {k: whatif.results[k] for k in keys}
-    after = {k: outcome.results[k] for k in keys}
+    before = {k: unit_before[k] if k in unit_before else whatif.results[k] for k in keys}
+    after = {k: unit_after[k] if k in unit_after else outcome.results[k] for k in keys}
     comparisons = {k: compare_results(before[k], after[k]) for k in before}
     if all(c.unchanged for c in comparisons.values()) and not len(log.base_changes):
         log.notes.append("coverage unchanged: no travel time to any demand point changed")

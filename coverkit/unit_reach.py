@@ -114,7 +114,7 @@ def fill_beyond(
     for unit_type in fleet.types:
         column = type_column(unit_type)
         need = np.flatnonzero(np.isinf(cols[column]))
-        if len(need):
+        if len(need) and fleet.count(unit_type):
             times = searches.times(fleet.holds(unit_type, n_bases), orders[unit_type], need)
             cols[column][need] = _blocks(times, fleet, table.horizon_s, lambda a, t=unit_type: nth_of_type(a, fleet, t))
     if judged is None:
@@ -125,6 +125,8 @@ def fill_beyond(
         return cols, judged
     if standard.kind == "personnel":
         staff = np.bincount(fleet.base, weights=fleet.staffing, minlength=n_bases)
+        if not (staff > 0).any():  # no unit left at all
+            return cols, judged
         m = orders_needed(staff[staff > 0], int(standard.personnel))
         times = searches.times(staff > 0, m, need)
         judged[need] = _blocks(times, fleet, table.horizon_s, lambda a: force_time(a, fleet, int(standard.personnel)))
@@ -132,6 +134,9 @@ def fill_beyond(
     wanted = ((standard.unit_type, standard.nth),) if standard.kind == "unit_type" else standard.assignment
     far = np.zeros(len(need))
     for unit_type, count in wanted:
+        if fleet.count(unit_type) == 0:  # every unit of it left with its base: never arrives
+            far[:] = np.inf
+            break
         times = searches.times(fleet.holds(unit_type, n_bases), orders[unit_type], need)
         nth = _blocks(times, fleet, table.horizon_s, lambda a, t=unit_type, c=int(count): nth_of_type(a, fleet, t, c))
         far = np.maximum(far, nth)

@@ -59,6 +59,9 @@ class Fleet:
         Per unit its in-service hours as ``(start_h, end_h)``, ``(0, 24)`` for all day.
     source
         The file (or section) the units came from, for messages.
+    gone_types
+        Types the units table holds but this fleet no longer has (every unit of them left with its base in a
+        scenario, :meth:`at_bases`): still judged, and never arriving.
     """
 
     unit_id: np.ndarray
@@ -67,14 +70,39 @@ class Fleet:
     staffing: np.ndarray
     hours: tuple[tuple[int, int], ...]
     source: str = "units"
+    gone_types: tuple[str, ...] = ()
 
     def __len__(self) -> int:
         return len(self.unit_id)
 
     @property
     def types(self) -> tuple[str, ...]:
-        """The unit types of the fleet, sorted."""
-        return tuple(sorted(set(self.type.tolist())))
+        """The unit types of the fleet (and its :attr:`gone_types`), sorted."""
+        return tuple(sorted(set(self.type.tolist()) | set(self.gone_types)))
+
+    def at_bases(self, ids_before: list[str], ids_after: list[str]) -> Fleet:
+        """The fleet on the bases after a change of bases: a base that is gone takes its units with it, a base kept
+        under its id (moved or not) keeps them, a new base holds none (the units table names none there).
+
+        >>> f = fleet_from_table(pd.DataFrame({"unit_id": ["E1", "L1", "E2"], "base_id": ["A", "A", "B"],
+        ...     "type": ["engine", "ladder", "engine"], "staffing": [4, 3, 4]}), ["A", "B"])
+        >>> g = f.at_bases(["A", "B"], ["B", "C"])
+        >>> g.unit_id.tolist(), g.base.tolist(), g.types, g.count("ladder")
+        (['E2'], [0], ('engine', 'ladder'), 0)
+        """
+        where = {b: i for i, b in enumerate(ids_after)}
+        new = np.array([where.get(ids_before[b], -1) for b in self.base.tolist()], dtype=np.int64)
+        keep = new >= 0
+        kept_types = set(self.type[keep].tolist())
+        return Fleet(
+            self.unit_id[keep],
+            new[keep],
+            self.type[keep],
+            self.staffing[keep],
+            tuple(h for h, k in zip(self.hours, keep.tolist(), strict=True) if k),
+            self.source,
+            tuple(t for t in self.types if t not in kept_types),
+        )
 
     def type_codes(self) -> np.ndarray:
         """Per unit the position of its type in :attr:`types` (int64)."""

@@ -712,3 +712,79 @@ def test_a_study_with_the_nfpa1720_preset_reports_the_remote_zone(tmp_path):
     assert REMOTE_DISTANCE_M / 1609.344 == pytest.approx(8.0)
     html = write_study_report(run, tmp_path / "report")["report"].read_text()
     assert "8 road miles or more" in html and "remote" in html
+
+
+# -- coverkit compare with standards by unit type or force -------------------------------------------------------------
+COMPARE_STANDARDS = """[[standard]]
+name = "ALS"
+turnout_s = 60
+travel_s = 480
+unit_type = "medic-als"
+[[standard]]
+name = "force 10"
+turnout_s = 80
+travel_s = 600
+personnel = 10
+[[standard]]
+name = "plain"
+turnout_s = 60
+travel_s = 480
+"""
+
+
+def _compare_study(folder: Path, stations: Path, units: Path, standards: str) -> Path:
+    from .conftest import demo_study_head
+
+    head = demo_study_head("units compare").replace(str(DEMO / "stations.csv"), str(stations))
+    text = head + f'[units]\nfile = "{units}"\n[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\n'
+    text += 'kind = "incidents"\n' + standards + "[outputs]\nisochrone_minutes = [4]\nmaps = false\nreport = false\n"
+    path = folder / "study.toml"
+    path.write_text(text)
+    return path
+
+
+def test_compare_evaluates_unit_standards_and_a_removed_base_takes_its_units(tmp_path, capsys):
+    """Two routes to the after figures: `coverkit compare` with a scenario removing S2 (the what-if's tables, the
+    fleet less E2 and M2) against `run_study` on copies of the stations and units files without S2 (bounded tables
+    and the k-nearest searches, no what-if), equal point by point. Invariant (design card: removing a base never
+    shortens a time): no time falls; and an assignment whose only ladder leaves (S1) is never complete after."""
+    from coverkit.cli import main
+    from coverkit.compare_run import compare_study
+    from coverkit.study import run_study
+
+    stations = pd.read_csv(DEMO / "stations.csv")
+    units = pd.read_csv(DEMO / "units.csv", dtype={"hours": str})
+    study = _compare_study(tmp_path, DEMO / "stations.csv", DEMO / "units.csv", COMPARE_STANDARDS)
+    scen = tmp_path / "scen.toml"
+    scen.write_text('[scenario]\nname = "S2 closes"\n[[base_change]]\nremove = "S2"\n')
+    assert main(["compare", str(study), str(scen), "--out", str(tmp_path / "cmp"), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "units leaving with their removed bases: E2, M2" in out
+    table = pd.read_csv(tmp_path / "cmp" / "comparison.csv")
+    assert table["standard"].tolist() == ["ALS", "force 10", "plain"]
+    assert (tmp_path / "cmp" / "compare_report.html").is_file()
+    run = compare_study(study, scen, tmp_path / "cmp2")
+    ref_dir = tmp_path / "ref"
+    ref_dir.mkdir()
+    stations[stations["id"] != "S2"].to_csv(ref_dir / "stations.csv", index=False)
+    units[units["base_id"] != "S2"].to_csv(ref_dir / "units.csv", index=False)
+    ref = run_study(_compare_study(ref_dir, ref_dir / "stations.csv", ref_dir / "units.csv", COMPARE_STANDARDS))
+    rose = {}
+    for r in ref.runs:
+        got, want = run.after[(r.standard.name, "calls")].demand, r.results["calls"].demand
+        before = run.before[(r.standard.name, "calls")].demand
+        for col in ("travel_s", "covered", "first_engine_s", "first_medic_als_s", "personnel_in_time"):
+            if col in want.columns and col in got.columns:
+                np.testing.assert_allclose(got[col].to_numpy(dtype=float), want[col].to_numpy(dtype=float), rtol=1e-9)
+        assert (got["travel_s"].to_numpy() >= before["travel_s"].to_numpy() - 1e-9).all()
+        rose[r.standard.name] = int((got["travel_s"].to_numpy() > before["travel_s"].to_numpy() + 1e-9).sum())
+    # S2's calls wait longer for a medic unit and a base; S1's crew of 10 alone is a force of 10, so that one holds
+    assert rose["ALS"] > 20 and rose["plain"] > 20
+    asg = 'name = "box"\ntravel_s = 900\nassignment = { engine = 1, ladder = 1 }\n'
+    study2 = _compare_study(tmp_path / "cmp2", DEMO / "stations.csv", DEMO / "units.csv", "[[standard]]\n" + asg)
+    scen1 = tmp_path / "scen1.toml"
+    scen1.write_text('[scenario]\nname = "S1 closes"\n[[base_change]]\nremove = "S1"\n')
+    box = compare_study(study2, scen1, tmp_path / "cmp3")
+    before, after = box.before[("box", "calls")].demand, box.after[("box", "calls")].demand
+    assert before["covered"].sum() > 100 and not after["covered"].any() and np.isinf(after["travel_s"]).all()
+    assert "no unit left of type command, ladder: their arrivals never come" in box.changes.lines()
