@@ -5,7 +5,8 @@ fleet of 3 types (an engine at every base, a ladder at every third, a medic unit
 
 (a) plain: ``evaluate_coverage`` under an 8 min travel standard, no units (today's run);
 (b) the same call with the fleet under a standard by type (second engine), by force (15 people) and by assignment
-    (engine=2, ladder=1, medic-als=1), each from scratch (snapping, searches, arrivals).
+    (engine=2, ladder=1, medic-als=1), each from scratch (snapping, searches, arrivals, and the arrival times past
+    the standard up to the horizon: the k-nearest searches of ``coverkit.unit_reach``).
 
 Ratios (b)/(a) are printed (target <= 3). Run: ``python benchmarks/bench_units.py``.
 """

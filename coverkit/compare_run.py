@@ -75,7 +75,7 @@ def study_inputs(
     """
     study = load_study(study_path)
     if not with_units:
-        refuse_unit_standards(study, "a what-if")
+        refuse_unit_standards(study, "a what-if or simulation")
     net = _study_network(study, cache_folder)
     bases, demand, kinds, snaps = load_inputs(study, net)
     extra = {"fleet": load_fleet(study, bases)} if with_units else {}

@@ -444,8 +444,9 @@ def evaluate_coverage(
     fleet
         The units at the bases (:mod:`coverkit.units`). With it the demand gets the first arrival per type
         (``first_<type>_s``) and the people on scene in time (``personnel_in_time``), and a standard by type or
-        force sets ``travel_s``, ``response_s`` and ``covered`` to what it judges (:mod:`coverkit.arrivals`;
-        ``inf`` past the standard's travel time). Without it nothing changes.
+        force sets ``travel_s``, ``response_s`` and ``covered`` to what it judges (:mod:`coverkit.arrivals`; times
+        past the standard up to the horizon from :mod:`coverkit.unit_reach`, ``inf`` beyond). Without it nothing
+        changes.
     """
     check_fleet(fleet, standard)
     if table is None:

@@ -788,3 +788,21 @@ def test_compare_evaluates_unit_standards_and_a_removed_base_takes_its_units(tmp
     before, after = box.before[("box", "calls")].demand, box.after[("box", "calls")].demand
     assert before["covered"].sum() > 100 and not after["covered"].any() and np.isinf(after["travel_s"]).all()
     assert "no unit left of type command, ladder: their arrivals never come" in box.changes.lines()
+
+
+def test_nearest_bases_extended_from_a_start_equal_a_search_from_scratch(demo_inputs):
+    """The k-nearest passes continued from the 3 nearest a table holds give the same 4 nearest as the passes run
+    from scratch (the same arithmetic; checked against networkx above through the fourth engine on Helsinki)."""
+    from coverkit.travel import snap_points
+    from coverkit.travel.reach import nearest_k_nodes
+
+    net, bases, _ = demo_inputs
+    snap = snap_points(net, bases, off_network="raise", what="bases")
+    three = nearest_k_nodes(net, snap, 1800.0, k=3)
+    fresh = nearest_k_nodes(net, snap, 1800.0, k=4)
+    extended = nearest_k_nodes(net, snap, 1800.0, k=4, start=three)
+    np.testing.assert_array_equal(extended.time_s, fresh.time_s)
+    np.testing.assert_array_equal(extended.source, fresh.source)
+    assert np.isfinite(fresh.time_s[:, 3]).sum() > 0.5 * net.n_nodes  # the fourth base is found for most nodes
+    with pytest.raises(ValueError, match="another limit"):
+        nearest_k_nodes(net, snap, 900.0, k=4, start=three)
