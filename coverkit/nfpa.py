@@ -73,7 +73,9 @@ ZONE_ROWS = (*NFPA1720_ZONES, NFPA1720_REMOTE)
 def remote_mask(net: object, stations: object, points: object) -> np.ndarray:
     """Per point (GeoSeries, any CRS) whether it lies in the NFPA 1720 remote zone: a road distance from the
     nearest of ``stations`` (GeoDataFrame) of :data:`REMOTE_DISTANCE_M` or more. A point beyond the snap limit of
-    every road is left to its density zone (its distance is not known).
+    every road is left to its density zone (its distance is not known). Points snap as population does, never onto
+    a carriageway without access (:data:`coverkit.travel.NO_ACCESS_CLASSES`: a cell beside a motorway is reached
+    from its own streets, not from the nearest interchange).
 
     >>> from coverkit.network.model import grid_network
     >>> import shapely
@@ -83,14 +85,16 @@ def remote_mask(net: object, stations: object, points: object) -> np.ndarray:
     >>> remote_mask(net, st, pts).tolist()  # 12 km < 12.87 km <= 13 km
     [False, True]
     """
-    from coverkit.travel import snap_points
+    from coverkit.travel import NO_ACCESS_CLASSES, snap_points
     from coverkit.travel.distance import nearest_distance_m
 
     pts = gpd.GeoSeries(points).to_crs(net.crs)
     frame = gpd.GeoDataFrame({"id": np.arange(len(pts))}, geometry=pts.to_numpy(), crs=net.crs)
     st = gpd.GeoDataFrame({"id": np.arange(len(stations))}, geometry=stations.geometry.to_numpy(), crs=stations.crs)
     s_snap = snap_points(net, st.to_crs(net.crs), off_network="raise", what="bases")
-    p_snap = snap_points(net, frame, off_network="mask", what="zone cells", warn_islands=False)
+    p_snap = snap_points(
+        net, frame, off_network="mask", what="zone cells", warn_islands=False, exclude_classes=NO_ACCESS_CLASSES
+    )
     dist = nearest_distance_m(net, s_snap, p_snap, REMOTE_DISTANCE_M)
     return p_snap.on_network & ~(dist < REMOTE_DISTANCE_M)
 

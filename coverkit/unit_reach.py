@@ -65,11 +65,10 @@ class _Searches:
         index = np.flatnonzero(holds)
         key = holds.tobytes()
         reach = self.found.get(key)
+        sub = t.base_snap.subset(index)
         if reach is None or reach.k < m:
-            sub = t.base_snap.subset(index)
             reach = nearest_k_nodes(self.net, sub, t.horizon_s, t.direction, k=m, start=reach)
             self.found[key] = reach
-        sub = t.base_snap.subset(index)
         src, time_s = nearest_k_points(self.net, sub, t.point_snap.subset(points), reach, k=m)
         ok = src >= 0
         col = np.broadcast_to(np.arange(len(points))[:, None], src.shape)
