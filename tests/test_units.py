@@ -806,3 +806,25 @@ def test_nearest_bases_extended_from_a_start_equal_a_search_from_scratch(demo_in
     assert np.isfinite(fresh.time_s[:, 3]).sum() > 0.5 * net.n_nodes  # the fourth base is found for most nodes
     with pytest.raises(ValueError, match="another limit"):
         nearest_k_nodes(net, snap, 900.0, k=4, start=three)
+
+
+def test_blocks_eight_road_miles_out_form_the_remote_zone(tmp_path):
+    """Hand-worked, NFPA 1720 remote zone from memory (8 miles = 12,874.752 m): two 1 km square blocks of 10 people
+    each (10 / 0.386 sq mi = 25.9 per sq mi: rural by density) on a straight road from the station; the block whose
+    representative point lies 2 km along stays rural, the one 20 km along is remote; the people add up to 20."""
+    from functools import partial
+
+    from coverkit.network.model import grid_network
+    from coverkit.nfpa import density_zones_from_blocks, remote_mask
+
+    net = grid_network(50, 1, 500.0, 50.0)  # 24.5 km of road along y = 5,000,000
+    st = gpd.GeoDataFrame(geometry=shapely.points([[500000.0, 5e6]]), crs=net.crs)
+    blocks = gpd.GeoDataFrame(
+        {"pop": [10.0, 10.0]},
+        geometry=[shapely.box(501500, 5e6 - 500, 502500, 5e6 + 500), shapely.box(519500, 5e6 - 500, 520500, 5e6 + 500)],
+        crs=net.crs,
+    )
+    path = tmp_path / "blocks.gpkg"
+    blocks.to_file(path)
+    zones = density_zones_from_blocks(path, "pop", net.crs, remote=partial(remote_mask, net, st))
+    assert dict(zip(zones["zone"], zones["people"], strict=True)) == {"rural": 10.0, "remote": 10.0}
