@@ -259,3 +259,31 @@ def test_synthetic_county_equals_the_dense_horizon_path():
     for direction in ("out", "in"):
         new, full = _compare_with_dense(net, bases, demand, std, direction)
         assert new.extra["table"].times.nnz == int((full.times.data <= std.travel_s).sum())
+
+
+def test_k_best_kernel_ranks_candidates_as_the_two_sorts_do():
+    """The compiled ranking equals the numpy one (each source's best time, then time and source index) on random
+    candidates with repeated sources, tied times, unreached (-1) and over-limit entries; a worked case by hand."""
+    from coverkit.travel.kernels import k_best_kernel
+    from coverkit.travel.reach import k_best_numpy
+
+    rng = np.random.default_rng(5)
+    n, k = 400, 3
+    for cut in (0, 1500):
+        pt = np.sort(rng.integers(0, n, 3000))
+        t = rng.integers(0, 40, 3000).astype(float)  # whole seconds: many ties
+        s = rng.integers(-1, 12, 3000)
+        ref_s, ref_t = np.full((n, k), -1), np.full((n, k), np.inf)
+        k_best_numpy(pt, t, s, 30.0, ref_s, ref_t)
+        got_s, got_t = np.full((n, k), -1), np.full((n, k), np.inf)
+        a, b = slice(0, cut), slice(cut, None)  # two lists grouped by point, as exits and same-edge trips come
+        ptr_a = np.searchsorted(pt[a], np.arange(n + 1))
+        ptr_b = np.searchsorted(pt[b], np.arange(n + 1))
+        k_best_kernel(ptr_a, t[a], s[a], ptr_b, t[b], s[b], 30.0, got_s, got_t)
+        np.testing.assert_array_equal(got_s, ref_s)
+        np.testing.assert_array_equal(got_t, ref_t)
+    # by hand: source 4 at 7 s and 5 s keeps 5 s; 2 and 1 tie at 6 s, the lower index first; 9 is over the limit
+    out_s, out_t = np.full((1, 3), -1), np.full((1, 3), np.inf)
+    k_best_kernel(np.array([0, 4]), np.array([7.0, 6.0, 5.0, 6.0]), np.array([4, 2, 4, 1]), np.array([0, 1]),
+                  np.array([31.0]), np.array([9]), 30.0, out_s, out_t)  # fmt: skip
+    assert out_s.tolist() == [[4, 1, 2]] and out_t.tolist() == [[5.0, 6.0, 6.0]]

@@ -132,10 +132,42 @@ def grid_nearest(index: GridIndex, xy: np.ndarray, max_distance_m: float) -> tup
     dist = np.full(n, np.inf)
     if n == 0 or len(index.piece) == 0:
         return piece, dist
+    from coverkit.travel.kernels import grid_nearest_kernel
+
+    nx, ny = index.shape
+    c, half, max_d = index.cell_m, index.max_len_m / 2.0, float(max_distance_m)
+    ix, iy = _point_cells(index, xy, max_d)
+    grid_nearest_kernel(
+        np.ascontiguousarray(xy), ix, iy, np.asarray(index.a), np.asarray(index.b),
+        np.asarray(index.piece, dtype=np.int64), np.asarray(index.cell_ptr, dtype=np.int64),
+        float(index.origin_m[0]), float(index.origin_m[1]), float(c), int(nx), int(ny), half, max_d, piece, dist,
+    )  # fmt: skip
+    return piece, dist
+
+
+def grid_nearest_numpy(index: GridIndex, xy: np.ndarray, max_distance_m: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`grid_nearest` in numpy, chunk by chunk: the reference the compiled kernel is held to in the tests."""
+    xy = np.asarray(xy, dtype=float).reshape(-1, 2)
+    n = len(xy)
+    piece = np.full(n, -1, dtype=np.int64)
+    dist = np.full(n, np.inf)
+    if n == 0 or len(index.piece) == 0:
+        return piece, dist
     for lo in range(0, n, CHUNK_POINTS):
         p, d = _nearest_chunk(index, xy[lo : lo + CHUNK_POINTS], float(max_distance_m))
         piece[lo : lo + len(p)], dist[lo : lo + len(p)] = p, d
     return piece, dist
+
+
+def _point_cells(index: GridIndex, xy: np.ndarray, max_d: float) -> tuple[np.ndarray, np.ndarray]:
+    """The cell (ix, iy) of each point, clipped a ring beyond the reach of the limit (may lie outside the grid:
+    its cells there are simply empty)."""
+    nx, ny = index.shape
+    c = index.cell_m
+    fx = np.floor((xy[:, 0] - index.origin_m[0]) / c)
+    fy = np.floor((xy[:, 1] - index.origin_m[1]) / c)
+    far = max(nx, ny) + int(np.ceil((max_d + index.max_len_m / 2.0) / c)) + 2
+    return np.clip(fx, -far, nx + far).astype(np.int64), np.clip(fy, -far, ny + far).astype(np.int64)
 
 
 def _nearest_chunk(index: GridIndex, xy: np.ndarray, max_d: float) -> tuple[np.ndarray, np.ndarray]:
@@ -144,12 +176,7 @@ def _nearest_chunk(index: GridIndex, xy: np.ndarray, max_d: float) -> tuple[np.n
     c = index.cell_m
     half = index.max_len_m / 2.0
     big = np.iinfo(np.int64).max
-    # cell of each point (may lie outside the grid: its cells there are simply empty)
-    fx = np.floor((xy[:, 0] - index.origin_m[0]) / c)
-    fy = np.floor((xy[:, 1] - index.origin_m[1]) / c)
-    far = max(nx, ny) + int(np.ceil((max_d + half) / c)) + 2
-    ix = np.clip(fx, -far, nx + far).astype(np.int64)
-    iy = np.clip(fy, -far, ny + far).astype(np.int64)
+    ix, iy = _point_cells(index, xy, max_d)
     best_d = np.full(n, np.inf)
     best_p = np.full(n, big, dtype=np.int64)
     active = np.arange(n)

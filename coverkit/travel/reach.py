@@ -284,18 +284,29 @@ def nearest_k_points(
     se_s, se_pt, se_t = same_edge_trips(net, sources, targets, reach.direction)
     order = np.argsort(se_pt, kind="stable")
     se_s, se_pt, se_t = se_s[order], se_pt[order], se_t[order]
+    from coverkit.travel.kernels import k_best_kernel
+
     # points in blocks, so the candidates stay a few hundred MB whatever the number of points
     for lo in range(0, n_t, POINT_BLOCK):
         hi = min(lo + POINT_BLOCK, n_t)
         a, b = np.searchsorted(t_pt, [lo, hi])
         c, d = np.searchsorted(se_pt, [lo, hi])
         node = t_node[a:b]
-        pt = np.repeat(t_pt[a:b], k)
+        # each exit's k candidates, grouped by point (t_pt is sorted), and the same-edge trips (se_pt sorted)
+        ptr_a = np.searchsorted(t_pt[a:b], np.arange(lo, hi + 1)) * k
+        ptr_b = np.searchsorted(se_pt[c:d], np.arange(lo, hi + 1))
         t = (reach.time_s[node, :k] + t_add[a:b, None]).ravel()
-        s = reach.source[node, :k].ravel()
-        pt, t, s = np.r_[pt, se_pt[c:d]], np.r_[t, se_t[c:d]], np.r_[s, se_s[c:d]]
-        _k_best(pt - lo, t, s, reach.limit_s, out_s[lo:hi], out_t[lo:hi])
+        s = np.ascontiguousarray(reach.source[node, :k]).ravel()
+        k_best_kernel(ptr_a, t, s, ptr_b, se_t[c:d], se_s[c:d], float(reach.limit_s), out_s[lo:hi], out_t[lo:hi])
     return out_s, out_t
+
+
+def k_best_numpy(
+    pt: np.ndarray, t: np.ndarray, s: np.ndarray, limit_s: float, out_s: np.ndarray, out_t: np.ndarray
+) -> None:
+    """The candidate ranking of :func:`nearest_k_points` in numpy (two sorts): the reference the compiled kernel
+    (:func:`coverkit.travel.kernels.k_best_kernel`) is held to in the tests."""
+    _k_best(pt, t, s, limit_s, out_s, out_t)
 
 
 def _k_best(pt: np.ndarray, t: np.ndarray, s: np.ndarray, limit_s: float, out_s: np.ndarray, out_t: np.ndarray):
