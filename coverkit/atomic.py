@@ -76,8 +76,14 @@ def null_missing(frame: object) -> object:
             out[col] = values.where(np.isfinite(values.to_numpy(dtype=float, na_value=np.nan)))
         elif values.dtype == object or pd.api.types.is_string_dtype(values.dtype):
             raw = values.to_numpy(dtype=object)
-            missing = pd.isna(raw) | np.fromiter((_is_blank(v) for v in raw), dtype=bool, count=len(raw))
-            text = np.array([None if m else str(v) for v, m in zip(raw, missing, strict=True)], dtype=object)
+            if pd.api.types.infer_dtype(raw, skipna=True) in ("string", "empty"):
+                # text and missing values only (ids, base names): compared in bulk, no per-row Python
+                text, missing = raw.copy(), pd.isna(raw)
+                missing[~missing] = raw[~missing] == ""
+                text[missing] = None
+            else:
+                missing = pd.isna(raw) | np.fromiter((_is_blank(v) for v in raw), dtype=bool, count=len(raw))
+                text = np.array([None if m else str(v) for v, m in zip(raw, missing, strict=True)], dtype=object)
             out[col] = pd.Series(text, index=out.index, dtype=object)
     return out
 

@@ -362,7 +362,8 @@ def snap_points(
     entry_point = np.repeat(on_idx, cnt)
     local = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
     entry_edge = pieces.members[np.repeat(pieces.members_ptr[p_on], cnt) + local]
-    entry_frac = shapely.line_locate_point(net.edge_geometry(entry_edge), geoms[entry_point], normalized=True)
+    entry_geoms = net.edge_geometry(entry_edge)
+    entry_frac = shapely.line_locate_point(entry_geoms, geoms[entry_point], normalized=True)
     entry_frac = at_junctions(net, entry_edge, np.clip(np.nan_to_num(entry_frac, nan=0.0), 0.0, 1.0))
     order = np.lexsort((entry_edge, entry_point))
     entry_point, entry_edge, entry_frac = entry_point[order], entry_edge[order], entry_frac[order]
@@ -378,7 +379,8 @@ def snap_points(
     x = np.full(n, np.nan)
     y = np.full(n, np.nan)
     if on.any():
-        snapped_pts = shapely.line_interpolate_point(net.edge_geometry(edge[on]), frac[on], normalized=True)
+        # the first entry of each point is its edge: its line is built already (in point order, as ``on`` is)
+        snapped_pts = shapely.line_interpolate_point(entry_geoms[order][first], frac[on], normalized=True)
         xy = shapely.get_coordinates(snapped_pts)
         x[on], y[on] = xy[:, 0], xy[:, 1]
 
