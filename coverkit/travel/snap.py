@@ -357,17 +357,7 @@ def snap_points(
 
     # Entries: every directed edge of the snapped piece, with the fraction along that edge.
     on_idx = np.flatnonzero(on)
-    p_on = piece[on_idx]
-    cnt = pieces.members_ptr[p_on + 1] - pieces.members_ptr[p_on]
-    entry_point = np.repeat(on_idx, cnt)
-    local = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
-    entry_edge = pieces.members[np.repeat(pieces.members_ptr[p_on], cnt) + local]
-    entry_geoms = net.edge_geometry(entry_edge)
-    entry_frac = shapely.line_locate_point(entry_geoms, geoms[entry_point], normalized=True)
-    entry_frac = at_junctions(net, entry_edge, np.clip(np.nan_to_num(entry_frac, nan=0.0), 0.0, 1.0))
-    order = np.lexsort((entry_edge, entry_point))
-    entry_point, entry_edge, entry_frac = entry_point[order], entry_edge[order], entry_frac[order]
-
+    entry_point, entry_edge, entry_frac, x_on, y_on = _entries(net, pieces, piece, on_idx, geoms)
     edge = np.full(n, -1, dtype=np.int64)
     frac = np.full(n, np.nan)
     first = np.ones(len(entry_point), dtype=bool)
@@ -378,11 +368,7 @@ def snap_points(
     offset_m[on] = frac[on] * net.length_m[edge[on]]
     x = np.full(n, np.nan)
     y = np.full(n, np.nan)
-    if on.any():
-        # the first entry of each point is its edge: its line is built already (in point order, as ``on`` is)
-        snapped_pts = shapely.line_interpolate_point(entry_geoms[order][first], frac[on], normalized=True)
-        xy = shapely.get_coordinates(snapped_pts)
-        x[on], y[on] = xy[:, 0], xy[:, 1]
+    x[on], y[on] = x_on, y_on
 
     result = Snapped(
         ids=id_arr,
@@ -401,6 +387,47 @@ def snap_points(
     if warn_islands and on.any():
         _warn_islands(net, result, what)
     return result
+
+
+#: Snapped points whose road lines are built at a time (bounds the lines held: a few hundred MB at most).
+ENTRY_BLOCK = 250_000
+
+
+def _entries(
+    net: RoadNetwork, pieces: RoadPieces, piece: np.ndarray, on_idx: np.ndarray, geoms: np.ndarray
+) -> tuple[np.ndarray, ...]:
+    """Every directed edge of the snapped piece of each on-network point (``on_idx``, increasing) with the fraction
+    along it, sorted by point then edge, and each point's snapped position (x, y) on its first entry's edge.
+
+    Points go in blocks: each block's lines are built once, serve both the fractions and the positions, and are
+    dropped before the next block (the values are those of one pass over all points).
+    """
+    p_on = piece[on_idx]
+    cnt = pieces.members_ptr[p_on + 1] - pieces.members_ptr[p_on]
+    ptr = np.concatenate([[0], np.cumsum(cnt)])
+    entry_point = np.repeat(on_idx, cnt)
+    local = np.arange(ptr[-1]) - np.repeat(ptr[:-1], cnt)
+    entry_edge = pieces.members[np.repeat(pieces.members_ptr[p_on], cnt) + local]
+    entry_frac = np.empty(len(entry_edge))
+    x, y = np.empty(len(on_idx)), np.empty(len(on_idx))
+    for lo in range(0, len(on_idx), ENTRY_BLOCK):
+        hi = min(lo + ENTRY_BLOCK, len(on_idx))
+        a, b = ptr[lo], ptr[hi]
+        pt, e = entry_point[a:b], entry_edge[a:b]
+        lines = net.edge_geometry(e)
+        f = shapely.line_locate_point(lines, geoms[pt], normalized=True)
+        f = at_junctions(net, e, np.clip(np.nan_to_num(f, nan=0.0), 0.0, 1.0))
+        # the points are in order and each one's entries together: sorting the block sorts them all
+        order = np.lexsort((e, pt))
+        entry_edge[a:b], entry_frac[a:b] = e[order], f[order]
+        lines = lines[order]
+        first = np.ones(b - a, dtype=bool)
+        first[1:] = pt[1:] != pt[:-1]  # pt is unchanged by the sort (entries stay within their point)
+        xy = shapely.get_coordinates(
+            shapely.line_interpolate_point(lines[first], entry_frac[a:b][first], normalized=True)
+        )
+        x[lo:hi], y[lo:hi] = xy[:, 0], xy[:, 1]
+    return entry_point, entry_edge, entry_frac, x, y
 
 
 #: A point this far from every road (m) is taken as a coordinate mistake in messages.
