@@ -731,6 +731,7 @@ def area_grid(
         what="grid cells",
         warn_islands=False,
         measure_far=False,
+        positions=False,  # cells are only timed
     )
     on = np.flatnonzero(snap.on_network)
     near = snap.dist_m[on] <= reach_m

@@ -291,6 +291,8 @@ def snap_points(
     warn_islands: bool = True,
     measure_far: bool = True,
     exclude_classes: tuple[str, ...] = (),
+    *,
+    positions: bool = True,
 ) -> Snapped:
     """Snap projected points to the nearest road edge (closed or not: a closure never moves a point).
 
@@ -317,6 +319,9 @@ def snap_points(
     measure_far
         Also measure the distance to the nearest road of off-network points (for messages); grids of many cells
         that only need on/off skip it (their ``dist_m`` stays inf).
+    positions
+        Also give the snapped position on the road (``x``, ``y``); grids of many cells that are only timed skip it
+        (their ``x``, ``y`` stay NaN).
     warn_islands
         Warn (``coverkit.progress.warn``) when points snap onto road pieces not connected to the largest connected
         part of the network, since they reach (or are reached from) only that part.
@@ -357,7 +362,7 @@ def snap_points(
 
     # Entries: every directed edge of the snapped piece, with the fraction along that edge.
     on_idx = np.flatnonzero(on)
-    entry_point, entry_edge, entry_frac, x_on, y_on = _entries(net, pieces, piece, on_idx, geoms)
+    entry_point, entry_edge, entry_frac, x_on, y_on = _entries(net, pieces, piece, on_idx, geoms, positions)
     edge = np.full(n, -1, dtype=np.int64)
     frac = np.full(n, np.nan)
     first = np.ones(len(entry_point), dtype=bool)
@@ -394,7 +399,12 @@ ENTRY_BLOCK = 250_000
 
 
 def _entries(
-    net: RoadNetwork, pieces: RoadPieces, piece: np.ndarray, on_idx: np.ndarray, geoms: np.ndarray
+    net: RoadNetwork,
+    pieces: RoadPieces,
+    piece: np.ndarray,
+    on_idx: np.ndarray,
+    geoms: np.ndarray,
+    positions: bool = True,
 ) -> tuple[np.ndarray, ...]:
     """Every directed edge of the snapped piece of each on-network point (``on_idx``, increasing) with the fraction
     along it, sorted by point then edge, and each point's snapped position (x, y) on its first entry's edge.
@@ -409,7 +419,7 @@ def _entries(
     local = np.arange(ptr[-1]) - np.repeat(ptr[:-1], cnt)
     entry_edge = pieces.members[np.repeat(pieces.members_ptr[p_on], cnt) + local]
     entry_frac = np.empty(len(entry_edge))
-    x, y = np.empty(len(on_idx)), np.empty(len(on_idx))
+    x, y = np.full(len(on_idx), np.nan), np.full(len(on_idx), np.nan)
     for lo in range(0, len(on_idx), ENTRY_BLOCK):
         hi = min(lo + ENTRY_BLOCK, len(on_idx))
         a, b = ptr[lo], ptr[hi]
@@ -420,6 +430,8 @@ def _entries(
         # the points are in order and each one's entries together: sorting the block sorts them all
         order = np.lexsort((e, pt))
         entry_edge[a:b], entry_frac[a:b] = e[order], f[order]
+        if not positions:
+            continue
         lines = lines[order]
         first = np.ones(b - a, dtype=bool)
         first[1:] = pt[1:] != pt[:-1]  # pt is unchanged by the sort (entries stay within their point)
