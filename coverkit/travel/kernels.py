@@ -42,11 +42,15 @@ def _seg_dist(px, py, ax, ay, bx, by):
 
 
 @njit(cache=True, nogil=True)
-def _ring_best(x, y, ix, iy, r, a, b, piece, cell_ptr, nx, ny):
+def _ring_best(x, y, ix, iy, r, a, b, piece, cell_ptr, nx, ny, buf_d, buf_p):
     """Smallest distance from (x, y) to the sub-segments filed in the cells at Chebyshev distance ``r`` around
-    (ix, iy), and the lowest piece within the tie tolerance of it (``inf``, ``_BIG`` when the ring is empty)."""
+    (ix, iy), and the lowest piece within the tie tolerance of it (``inf``, ``_BIG`` when the ring is empty).
+
+    The distances of the first sweep are kept in ``buf_d``/``buf_p`` for the second (the lowest piece at the
+    minimum, as the numpy ring finds it); a ring with more sub-segments than the buffer holds is swept again."""
     ring_d = np.inf
-    for sweep in range(2):  # first the minimum, then the lowest piece at it (as the numpy ring does)
+    n = 0
+    for sweep in range(2):
         ring_p = _BIG
         for dy in range(-r, r + 1):
             step = 1 if (dy == -r or dy == r) else 2 * r
@@ -60,9 +64,18 @@ def _ring_best(x, y, ix, iy, r, a, b, piece, cell_ptr, nx, ny):
                         if sweep == 0:
                             if d < ring_d:
                                 ring_d = d
+                            if n < len(buf_d):
+                                buf_d[n] = d
+                                buf_p[n] = piece[s]
+                            n += 1
                         elif d <= ring_d + _TIE_M and piece[s] < ring_p:
                             ring_p = piece[s]
                 dx += max(step, 1)
+        if sweep == 0 and n <= len(buf_d):
+            for j in range(n):
+                if buf_d[j] <= ring_d + _TIE_M and buf_p[j] < ring_p:
+                    ring_p = buf_p[j]
+            return ring_d, ring_p
     return ring_d, ring_p
 
 
@@ -71,13 +84,15 @@ def grid_nearest_kernel(xy, ix, iy, a, b, piece, cell_ptr, ox, oy, c, nx, ny, ha
     """Nearest piece of every point by rings of cells (see :mod:`coverkit.travel.grid_index` for the proof and
     the stopping rule); ``ix``, ``iy`` are the points' (clipped) cells. Fills ``out_p`` (-1 none within ``max_d``)
     and ``out_d`` (``inf`` none)."""
+    buf_d = np.empty(4096)
+    buf_p = np.empty(4096, dtype=np.int64)
     for i in range(len(xy)):
         x, y = xy[i, 0], xy[i, 1]
         best_d = np.inf
         best_p = _BIG
         r = 0
         while True:
-            ring_d, ring_p = _ring_best(x, y, ix[i], iy[i], r, a, b, piece, cell_ptr, nx, ny)
+            ring_d, ring_p = _ring_best(x, y, ix[i], iy[i], r, a, b, piece, cell_ptr, nx, ny, buf_d, buf_p)
             if ring_d < np.inf:
                 new_d = min(best_d, ring_d)
                 keep_old = best_d <= new_d + _TIE_M
