@@ -733,6 +733,7 @@ def area_grid(
         measure_far=False,
         positions=False,  # cells are only timed
     )
+    del cells, rr, cc, cx, cy  # millions of points: freed before the cells are timed
     on = np.flatnonzero(snap.on_network)
     near = snap.dist_m[on] <= reach_m
     note(

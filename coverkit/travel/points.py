@@ -134,13 +134,14 @@ def read_point_rows(
     lines = gdf.index.to_numpy()
     gdf = gdf.reset_index(drop=True)
     ids = gdf[id_field]
-    blank = ids.isna() | (ids.astype(str).str.strip() == "")
+    stripped = ids.astype(str).str.strip()  # once: the blank check and the ids both use it
+    blank = ids.isna() | (stripped == "")
     # lenient: a row without an id is an error only when its position is fine (else it is rejected with it)
     check = blank.to_numpy() & (pd.isna(reasons) if lenient else True)
     if check.any():
         row = int(np.flatnonzero(check)[0])
         raise FieldError(f"{path}: {_row_label(path, lines[row])} has no '{id_field}'; give every {what[:-1]} an id.")
-    ids = ids.astype(str).str.strip()
+    ids = stripped
     if lenient:
         ids = ids.mask(blank, "")
     dup = ids.duplicated(keep="first") & ~blank
