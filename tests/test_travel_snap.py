@@ -30,6 +30,27 @@ def test_two_way_street_gives_both_directions_with_offsets():
     assert np.isclose(s.x[0], X0 + 40.0) and np.isclose(s.y[0], Y0)
 
 
+def test_points_in_blocks_and_without_positions_snap_the_same(monkeypatch):
+    """Blocks of points give what one pass gives, and ``positions=False`` only leaves x, y out (geometry of the
+    worked case above: the point 30 m off the street at 40 m along it lies at (40, 0) on it)."""
+    import coverkit.travel.snap as snap_module
+
+    net = grid_network(4, 3, 100.0, 36.0)
+    rng = np.random.default_rng(3)
+    xy = np.column_stack([X0 + rng.uniform(-20, 320, 60), Y0 + rng.uniform(-20, 220, 60)])
+    xy[0] = [X0 + 40.0, Y0 + 30.0]
+    whole = snap_points(net, xy, off_network="mask")
+    monkeypatch.setattr(snap_module, "ENTRY_BLOCK", 7)
+    blocks = snap_points(net, xy, off_network="mask")
+    bare = snap_points(net, xy, off_network="mask", positions=False)
+    for name in ("edge", "frac", "dist_m", "entry_point", "entry_edge", "entry_frac", "x", "y"):
+        np.testing.assert_array_equal(getattr(blocks, name), getattr(whole, name))
+    for name in ("edge", "frac", "offset_m", "entry_point", "entry_edge", "entry_frac"):
+        np.testing.assert_array_equal(getattr(bare, name), getattr(whole, name))
+    assert np.isnan(bare.x).all() and np.isnan(bare.y).all()
+    assert np.isclose(whole.x[0], X0 + 40.0) and np.isclose(whole.y[0], Y0)
+
+
 def test_one_way_street_has_one_entry():
     """Geometry, exact: a one-way edge carries a single direction."""
     net = network_from_arrays(np.array([[X0, Y0], [X0 + 100.0, Y0]]), [0], [1], 36.0, oneway=True)
