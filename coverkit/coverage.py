@@ -699,7 +699,7 @@ def area_grid(
     """
     from scipy.ndimage import distance_transform_edt
 
-    nx0, ny0, nx1, ny1 = net.nodes.total_bounds
+    nx0, ny0, nx1, ny1 = net.node_bounds()
     if area is None:
         area = shapely.box(nx0, ny0, nx1, ny1)
     boxes = [np.array([nx0, ny0, nx1, ny1]), np.asarray(area.bounds, dtype=float)]

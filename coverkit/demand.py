@@ -316,7 +316,7 @@ def check_extent(
     FieldError
         When most points fall outside, the usual cause being swapped lon/lat or a wrong CRS.
     """
-    x0, y0, x1, y1 = net.nodes.total_bounds
+    x0, y0, x1, y1 = net.node_bounds()
     xy = shapely.get_coordinates(demand.geometry.to_numpy())
     inside = (xy[:, 0] >= x0 - margin_m) & (xy[:, 0] <= x1 + margin_m) & (xy[:, 1] >= y0 - margin_m)
     inside &= xy[:, 1] <= y1 + margin_m
@@ -364,7 +364,7 @@ def load_demand(
             kinds = set()
         if any("Polygon" in k for k in kinds):
             raise FieldError(f"{path} holds polygons; name the population field (population_field) to spread them.")
-        x0, y0, x1, y1 = net.nodes.total_bounds
+        x0, y0, x1, y1 = net.node_bounds()
         m = EXTENT_MARGIN_M
         demand = demand_from_points(
             path,

@@ -58,6 +58,8 @@ def test_copy_equals_the_geopackage_load(demo_saved):
     slow = RoadNetwork.load(demo_saved, arrays=False)
     # arrays first (before the tables are built from the copy), then the tables
     assert fast.u.tobytes() == slow.u.tobytes() and fast.travel_s.tobytes() == slow.travel_s.tobytes()
+    # the nodes' extent from the copy's coordinates, without the table: the GeoPackage table's total_bounds
+    assert fast.node_bounds().tobytes() == slow.nodes.total_bounds.tobytes() and "nodes" not in fast.__dict__
     _assert_same_network(fast, slow)
 
 

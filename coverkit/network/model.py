@@ -129,6 +129,18 @@ class RoadNetwork:
             return table
         raise AttributeError(f"{type(self).__name__!r} object has no attribute {name!r}")
 
+    def node_bounds(self) -> np.ndarray:
+        """``(xmin, ymin, xmax, ymax)`` of the nodes (m): the nodes table's ``total_bounds``, read from the columnar
+        copy's coordinates when the table is not built (a million-node table costs a second and its memory)."""
+        store = self.__dict__.get("_store")
+        if store is None or "nodes" in self.__dict__:
+            return np.asarray(self.nodes.total_bounds, dtype=float)
+        xy = np.asarray(store.copy.array("nodes.geometry_xy"), dtype=float).reshape(-1, 2)
+        if len(xy) == 0:
+            return np.full(4, np.nan)
+        lo, hi = np.nanmin(xy, axis=0), np.nanmax(xy, axis=0)
+        return np.array([lo[0], lo[1], hi[0], hi[1]])
+
     def _lazy(self) -> bool:
         """Whether the columns still come from the columnar copy (the edge table not yet built)."""
         return self.__dict__.get("_store") is not None and "edges" not in self.__dict__
