@@ -42,4 +42,20 @@ def check_memory(step: str, need_bytes: float, advice: str, *, budget_bytes: int
         )
 
 
-__all__ = ["check_memory", "gb_text"]
+def release_free_memory() -> None:
+    """Hand freed heap pages back to the operating system (glibc's ``malloc_trim``; a no-op elsewhere).
+
+    Why: glibc keeps freed blocks of big temporary arrays in the process's heap, where they still count as resident.
+    Before a fork (the network save's GeoPackage writer) those pages would count again in the child.
+    """
+    import ctypes
+
+    try:
+        trim = getattr(ctypes.CDLL(None), "malloc_trim", None)  # the symbols already loaded: libc's on Linux
+    except (OSError, TypeError):
+        trim = None
+    if trim is not None:
+        trim(0)
+
+
+__all__ = ["check_memory", "gb_text", "release_free_memory"]

@@ -265,12 +265,18 @@ def build_network(
         steps.step("no boundary given: keeping all roads")
     steps.step("directing edges and timing them")
     length_m = geodesic_length_m(lonlat)
-    network_edges, nodes = _directed_edges(segments, geometry, length_m, raw.nodes, prof)
+    # the degree lines are done with once measured: at a million nodes they hold about half a gigabyte
+    raw_nodes, restrictions, stats = raw.nodes, raw.restrictions, dict(raw.stats)
+    del lonlat, raw
+    network_edges, nodes, edge_lines = _directed_edges(segments, geometry, length_m, raw_nodes, prof)
+    del geometry
     steps.step("keeping the largest strongly connected piece")
-    network_edges, nodes, dropped = _largest_strong_piece(network_edges, nodes)
+    network_edges, nodes, dropped, kept = _largest_strong_piece(network_edges, nodes)
+    edge_lines = take_lines(*edge_lines, np.flatnonzero(kept))
     if len(network_edges) == 0:
         raise NetworkError(f"{source}: the drivable roads form no connected network; check the data.")
-    bans, turn_counts = _turn_bans(raw, network_edges, nodes, segments, prof)
+    bans, turn_counts = _turn_bans(restrictions, network_edges, nodes, segments, prof)
+    del segments, raw_nodes
     report = BuildReport(
         source=str(source),
         profile=prof.name,
@@ -278,7 +284,7 @@ def build_network(
         nodes=len(nodes),
         edges=len(network_edges),
         km_by_class=_km_by_class(network_edges),
-        read=dict(raw.stats),
+        read=stats,
         outside_boundary=outside,
         pieces_dropped=dropped["pieces"],
         edges_dropped=dropped["edges"],
@@ -288,30 +294,69 @@ def build_network(
         turns=turn_counts,
     )
     steps.step("done")
-    nodes_gdf = gpd.GeoDataFrame(nodes, geometry=shapely.points(nodes[["x", "y"]].to_numpy()), crs=target)
-    edges_gdf = gpd.GeoDataFrame(
-        network_edges.drop(columns=["geometry", "seg"]),
-        geometry=network_edges["geometry"].to_numpy(),
-        crs=target,
-    )
     info = {
         "source": str(source),
         "source_sha256": file_digest(source) if source.is_file() else "",
         **report.to_dict(),
     }
-    return RoadNetwork(nodes_gdf, edges_gdf, target, prof, info, turn_bans=bans), report
+    return _held_as_arrays(nodes, network_edges.drop(columns="seg"), edge_lines, target, prof, info, bans), report
+
+
+def _held_as_arrays(
+    nodes: pd.DataFrame,
+    edges: pd.DataFrame,
+    edge_lines: tuple[np.ndarray, np.ndarray],
+    crs: CRS,
+    prof: Profile,
+    info: dict,
+    bans: pd.DataFrame | None,
+) -> RoadNetwork:
+    """The network served from its columnar layout in memory (tables with geometry built only when used).
+
+    Why: a million-node network's 3.8 M line objects cost about three times the memory of their flat coordinates,
+    and a build followed by a save (the ``network`` command) never needs them.
+    """
+    from coverkit.network.columnar import MemoryCopy, NetworkArrays, split_table
+
+    node_table, _ = split_table(nodes, geometry=False)
+    edge_table, _ = split_table(edges, geometry=False)
+    node_xy = np.column_stack([nodes["x"].to_numpy(dtype=float), nodes["y"].to_numpy(dtype=float)])
+    coords, offsets = edge_lines
+    store = NetworkArrays(MemoryCopy(node_table, node_xy, edge_table, {"coords": coords, "offsets": offsets}))
+    return RoadNetwork._from_store(store, crs, prof, info, turn_bans=bans)
+
+
+def take_lines(
+    coords: np.ndarray, offsets: np.ndarray, index: np.ndarray, reverse: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """The lines ``index`` of a ragged line array (flat ``coords``, ``offsets``), each drawn backwards where
+    ``reverse``: their flat coordinates and offsets (the vertex order of ``shapely.reverse``)."""
+    index = np.asarray(index, dtype=np.int64)
+    count = offsets[index + 1] - offsets[index]
+    new_offsets = np.zeros(len(index) + 1, dtype=np.int64)
+    np.cumsum(count, out=new_offsets[1:])
+    within = np.arange(new_offsets[-1], dtype=np.int64) - np.repeat(new_offsets[:-1], count)
+    if reverse is not None and reverse.any():
+        flip = np.repeat(reverse, count)
+        within[flip] = np.repeat(count, count)[flip] - 1 - within[flip]
+    within += np.repeat(offsets[index], count)
+    return coords[within], new_offsets
 
 
 def _turn_bans(
-    raw: RawRoads, edges: pd.DataFrame, nodes: pd.DataFrame, segments: pd.DataFrame, prof: Profile
+    restrictions: pd.DataFrame | None,
+    edges: pd.DataFrame,
+    nodes: pd.DataFrame,
+    segments: pd.DataFrame,
+    prof: Profile,
 ) -> tuple[pd.DataFrame | None, dict]:
-    """The turn restrictions of ``raw`` as banned edge sequences of the kept edges, and what was read and used."""
+    """The turn ``restrictions`` as read, as banned edge sequences of the kept edges, and what was read and used."""
     from coverkit.network.osm_restrictions import resolve_bans
 
-    if raw.restrictions is None:
+    if restrictions is None:
         return None, {}
     bans, counts = resolve_bans(
-        raw.restrictions,
+        restrictions,
         u=edges["u"].to_numpy(),
         v=edges["v"].to_numpy(),
         way=edges["source_id"].to_numpy(),
@@ -319,7 +364,7 @@ def _turn_bans(
         vehicle=prof.access_keys[0],
     )
     rules = prof.turns
-    oneway = segments["oneway"].fillna("").astype(str).str.lower().str.strip()
+    oneway = pd.Series(normalised_tag(segments["oneway"]))
     counts.update(
         bans=len(bans),
         policy="obeyed" if rules.obeys else "ignored",
@@ -342,14 +387,21 @@ def geodesic_length_m(lonlat_lines: np.ndarray) -> np.ndarray:
     return np.bincount(index[1:][same], weights=np.asarray(dist)[same], minlength=len(lonlat_lines))
 
 
+def normalised_tag(values: pd.Series) -> np.ndarray:
+    """Tag values as stripped lower-case text ("" where missing), each distinct value cleaned once."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    cleaned = np.array([str(u).lower().strip() for u in uniques] + [""], dtype=object)
+    return cleaned[codes]
+
+
 def _directions(segments: pd.DataFrame, reversible: str = "two_way") -> tuple[np.ndarray, np.ndarray]:
     """Forward and backward travel allowed per segment, from ``oneway``, ``junction`` and the road class.
 
     ``oneway=reversible`` (direction set by the hour) is two-way or closed as the profile's ``reversible`` says.
     """
-    oneway = segments["oneway"].fillna("").astype(str).str.lower().str.strip().to_numpy()
+    oneway = normalised_tag(segments["oneway"])
     closed = np.isin(oneway, list(_REVERSIBLE)) & (reversible == "closed")
-    junction = segments["junction"].fillna("").astype(str).str.lower().to_numpy()
+    junction = normalised_tag(segments["junction"])
     highway = segments["highway"].to_numpy(dtype=object)
     backward_only = np.isin(oneway, list(_BACKWARD))
     explicit_two_way = np.isin(oneway, list(_TWO_WAY))
@@ -402,8 +454,9 @@ def _directed_edges(
     order = np.lexsort((direction, sel))
     sel, direction, against = sel[order], direction[order], against[order]
     rev = direction == 1
-    geom = np.asarray(geometry, dtype=object)[sel]
-    geom[rev] = shapely.reverse(geom[rev])
+    _, seg_coords, (seg_offsets,) = shapely.to_ragged_array(np.asarray(geometry, dtype=object))
+    seg_offsets = np.asarray(seg_offsets, dtype=np.int64)
+    edge_lines = take_lines(seg_coords, seg_offsets, sel, rev)
     u = np.where(rev, v_idx[sel], u_idx[sel])
     v = np.where(rev, u_idx[sel], v_idx[sel])
 
@@ -412,12 +465,11 @@ def _directed_edges(
     node_y = raw_nodes["y"].to_numpy()[key_pos]
     signal = raw_nodes["signal"].to_numpy(dtype=bool)[key_pos]
     # node coordinates are taken from the projected geometry ends so that nodes and edges agree exactly
-    starts = shapely.get_point(np.asarray(geometry, dtype=object), 0)
-    ends = shapely.get_point(np.asarray(geometry, dtype=object), -1)
+    first_xy, last_xy = seg_coords[seg_offsets[:-1]], seg_coords[seg_offsets[1:] - 1]
     node_x = node_x.astype(float)
     node_y = node_y.astype(float)
-    node_x[u_idx], node_y[u_idx] = shapely.get_x(starts), shapely.get_y(starts)
-    node_x[v_idx], node_y[v_idx] = shapely.get_x(ends), shapely.get_y(ends)
+    node_x[u_idx], node_y[u_idx] = first_xy[:, 0], first_xy[:, 1]
+    node_x[v_idx], node_y[v_idx] = last_xy[:, 0], last_xy[:, 1]
 
     seg_len = length_m[sel]
     # direction 0 travels along the way (maxspeed:forward), direction 1 against it (maxspeed:backward)
@@ -447,11 +499,10 @@ def _directed_edges(
             "name": pd.array(segments["name"].fillna("").to_numpy(dtype=object)[sel].astype(str), dtype="str"),
             "source_id": segments["source_id"].to_numpy(dtype=np.int64)[sel],
             "seg": sel,
-            "geometry": geom,
         }
     )
     nodes = pd.DataFrame({"node_id": node_keys.astype(np.int64), "x": node_x, "y": node_y, "signal": signal})
-    return edges, nodes
+    return edges, nodes, edge_lines
 
 
 def _largest_strong_piece(edges: pd.DataFrame, nodes: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
@@ -480,7 +531,7 @@ def _largest_strong_piece(edges: pd.DataFrame, nodes: pd.DataFrame) -> tuple[pd.
     edges.insert(0, "edge_id", np.arange(len(edges), dtype=np.int64))
     nodes = nodes[keep_node].reset_index(drop=True)
     nodes.insert(0, "node", np.arange(len(nodes), dtype=np.int64))
-    return edges, nodes, dropped
+    return edges, nodes, dropped, keep_edge
 
 
 def _km_by_class(edges: pd.DataFrame) -> dict[str, float]:

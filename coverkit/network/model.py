@@ -390,9 +390,7 @@ class RoadNetwork:
         from coverkit.network.columnar import content_id
 
         path = Path(path)
-        nodes = self.nodes[[*NODE_COLUMNS, "geometry"]]
-        edges = self.edges[[*EDGE_COLUMNS, "geometry"]]
-        parts = _copy_parts(nodes, edges, self)
+        nodes, edges, parts = _save_sources(self)
         node_table, node_xy, edge_table, edge_geo, meta = parts
         hashed = {f"n.{k}": v for k, v in node_table.columns.items()}
         hashed |= {f"e.{k}": v for k, v in edge_table.columns.items()}
@@ -405,6 +403,9 @@ class RoadNetwork:
         info_rows = {**meta, "build_id": build_id}
         info_df = pd.DataFrame({"key": list(info_rows), "value": list(info_rows.values())})
         staged = None
+        from coverkit.memory import release_free_memory
+
+        release_free_memory()
         with atomic_path(path) as tmp:
             # the GeoPackage (SQLite, one row at a time) is written by a forked child while this process writes the
             # columnar copy and the indexes: the two jobs run on two cores
@@ -533,12 +534,61 @@ class RoadNetwork:
         return cls(nodes, edges, crs, profile, json.loads(meta["info_json"]), turn_bans=bans)
 
 
-def _write_gpkg(
-    tmp: Path, nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, info_df: pd.DataFrame, bans: pd.DataFrame | None
-) -> None:
-    """The layers of a network GeoPackage (the turn bans' table only when there are some)."""
-    pyogrio.write_dataframe(nodes, tmp, layer="nodes", driver="GPKG")
-    pyogrio.write_dataframe(edges, tmp, layer="edges", driver="GPKG", append=True)
+def _save_sources(net: RoadNetwork) -> tuple:
+    """The rows of the ``nodes`` and ``edges`` layers (:class:`~coverkit.network.gpkg_write.LayerRows`) and the
+    columnar copy's parts (see :func:`_copy_parts`) of ``net``.
+
+    A network still held as its columnar layout (just built, or loaded and not changed) is written from its arrays,
+    a batch of geometries at a time; otherwise from its tables.
+    """
+    from coverkit.network.columnar import Table
+    from coverkit.network.gpkg_write import LayerRows, frame_rows
+
+    store = net.__dict__.get("_store")
+    if store is None or net._overrides or "nodes" in net.__dict__ or "edges" in net.__dict__:
+        nodes = net.nodes[[*NODE_COLUMNS, "geometry"]]
+        edges = net.edges[[*EDGE_COLUMNS, "geometry"]]
+        return frame_rows(nodes), frame_rows(edges), _copy_parts(nodes, edges, net)
+
+    def table(of: Table, names: list[str]) -> Table:
+        return Table(of.length, {c: of.columns[c] for c in names}, {c: of.text[c] for c in names if c in of.text})
+
+    node_rows = LayerRows(
+        store.nodes.length,
+        lambda start, stop: store.node_rows(start, stop, NODE_COLUMNS),
+        store.node_points,
+        "Point",
+        net.crs,
+    )
+    edge_rows = LayerRows(
+        store.edges.length,
+        lambda start, stop: store.edge_rows(start, stop, EDGE_COLUMNS),
+        store.edge_lines,
+        "LineString",
+        net.crs,
+    )
+    copy = store.copy
+    edge_geo = {k: copy.array(f"edges.geometry_{k}") for k in ("coords", "offsets")}
+    parts = (
+        table(store.nodes, NODE_COLUMNS),
+        np.asarray(copy.array("nodes.geometry_xy")),
+        table(store.edges, EDGE_COLUMNS),
+        edge_geo,
+        _copy_meta(net),
+    )
+    return node_rows, edge_rows, parts
+
+
+def _write_gpkg(tmp: Path, nodes, edges, info_df: pd.DataFrame, bans: pd.DataFrame | None) -> None:
+    """The layers of a network GeoPackage (the turn bans' table only when there are some).
+
+    ``nodes`` and ``edges`` are :class:`~coverkit.network.gpkg_write.LayerRows`: the two big layers go to GDAL as
+    Arrow batches, the small ones feature by feature.
+    """
+    from coverkit.network.gpkg_write import write_layer
+
+    write_layer(nodes, tmp, layer="nodes")
+    write_layer(edges, tmp, layer="edges", append=True)
     pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
     if bans is not None and len(bans):
         pyogrio.write_dataframe(pd.DataFrame(bans), tmp, layer=BANS_LAYER, driver="GPKG", append=True)
@@ -587,13 +637,17 @@ def _copy_parts(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, net: RoadNetwo
     edge_table, edge_geo = split_table(edges, geometry=True)
     geoms = nodes.geometry.to_numpy()
     node_xy = np.column_stack([shapely.get_x(geoms), shapely.get_y(geoms)])
-    meta = {
+    return node_table, node_xy, edge_table, edge_geo, _copy_meta(net)
+
+
+def _copy_meta(net: RoadNetwork) -> dict[str, str]:
+    """The text the copy and the GeoPackage's info table carry: format, CRS, profile and build summary."""
+    return {
         "format_version": str(FORMAT_VERSION),
         "crs": net.crs.to_wkt(),
         "profile_toml": net.profile.to_toml(),
         "info_json": json.dumps(net.info, sort_keys=True, default=_json_default),
     }
-    return node_table, node_xy, edge_table, edge_geo, meta
 
 
 def _csr_arrays(csr: sp.csr_matrix | None) -> dict[str, np.ndarray]:

@@ -342,8 +342,7 @@ def parse_maxspeed_kph(value: object) -> float:
 
 def parse_maxspeed_array(values: np.ndarray) -> np.ndarray:
     """Parse many ``maxspeed`` values; distinct strings are parsed once (tag values repeat heavily)."""
-    values = np.asarray(values, dtype=object)
-    keys = pd.Series(values, dtype=object).fillna("").astype(str).to_numpy()
-    uniq, inverse = np.unique(keys, return_inverse=True)
-    parsed = np.array([parse_maxspeed_kph(u) for u in uniq], dtype=float)
-    return parsed[inverse]
+    # a hash factorisation, not a sort of millions of strings; missing values take the last slot (NaN)
+    codes, uniq = pd.factorize(pd.Series(np.asarray(values, dtype=object), dtype=object), use_na_sentinel=True)
+    parsed = np.array([parse_maxspeed_kph(str(u)) for u in uniq] + [math.nan], dtype=float)
+    return parsed[codes]
