@@ -22,7 +22,7 @@ from scipy.sparse.csgraph import connected_components
 
 from coverkit import settings
 from coverkit.errors import PARAM, InputFileError, NetworkError
-from coverkit.network.crs import parse_crs, transform_geometry, transform_xy, utm_crs_for
+from coverkit.network.crs import parse_crs, transform_xy, utm_crs_for
 from coverkit.network.model import RoadNetwork
 from coverkit.network.profile import Profile, load_profile, parse_maxspeed_array
 from coverkit.network.raw import RawRoads
@@ -236,40 +236,45 @@ def build_network(
             "check the file covers a road area, or use a profile that includes its road classes."
         )
     steps.step("projecting")
-    lonlat = transform_geometry(raw.geometry, raw.crs, CRS.from_epsg(4326))
+    # the lines go on as flat coordinates and offsets (shapely's ragged layout): projected, measured and directed
+    # as arrays, with no line object per segment (at a million nodes, about a gigabyte less)
+    _, raw_xy, (line_offsets,) = shapely.to_ragged_array(raw.geometry, include_z=False)
+    line_offsets = np.asarray(line_offsets, dtype=np.int64)
+    lonlat_xy = np.column_stack(transform_xy(raw_xy[:, 0], raw_xy[:, 1], raw.crs, CRS.from_epsg(4326)))
     if crs is None:
-        bounds = shapely.total_bounds(lonlat)
-        target = utm_crs_for((bounds[0] + bounds[2]) / 2, (bounds[1] + bounds[3]) / 2)
+        lo, hi = lonlat_xy.min(axis=0), lonlat_xy.max(axis=0)
+        target = utm_crs_for((lo[0] + hi[0]) / 2, (lo[1] + hi[1]) / 2)
     else:
         target = parse_crs(crs)
-    geometry = transform_geometry(raw.geometry, raw.crs, target)
+    line_xy = np.column_stack(transform_xy(raw_xy[:, 0], raw_xy[:, 1], raw.crs, target))
     segments = raw.segments
+    raw_nodes, restrictions, stats = raw.nodes, raw.restrictions, dict(raw.stats)
+    del raw, raw_xy
     outside = 0
     if boundary is not None:
         steps.step(f"clipping to {Path(boundary).name} + {buffer_m:g} m")
         area = read_boundary(boundary).to_crs(target).union_all().buffer(buffer_m)
         shapely.prepare(area)
-        inside = shapely.intersects(area, geometry)
+        lines = shapely.from_ragged_array(shapely.GeometryType.LINESTRING, line_xy, (line_offsets,))
+        inside = shapely.intersects(area, lines)
+        del lines
         if not inside.any():
             raise NetworkError(
                 f"boundary {boundary} does not overlap the road data in {source}; check both cover the same area "
                 "(and the boundary's CRS)."
             )
         outside = int((~inside).sum())
-        segments, geometry, lonlat = (
-            segments[inside].reset_index(drop=True),
-            geometry[inside],
-            lonlat[inside],
-        )
+        keep = np.flatnonzero(inside)
+        segments = segments[inside].reset_index(drop=True)
+        lonlat_xy = take_lines(lonlat_xy, line_offsets, keep)[0]
+        line_xy, line_offsets = take_lines(line_xy, line_offsets, keep)
     else:
         steps.step("no boundary given: keeping all roads")
     steps.step("directing edges and timing them")
-    length_m = geodesic_length_m(lonlat)
-    # the degree lines are done with once measured: at a million nodes they hold about half a gigabyte
-    raw_nodes, restrictions, stats = raw.nodes, raw.restrictions, dict(raw.stats)
-    del lonlat, raw
-    network_edges, nodes, edge_lines = _directed_edges(segments, geometry, length_m, raw_nodes, prof)
-    del geometry
+    length_m = geodesic_length_flat_m(lonlat_xy, line_offsets)
+    del lonlat_xy
+    network_edges, nodes, edge_lines = _directed_edges(segments, (line_xy, line_offsets), length_m, raw_nodes, prof)
+    del line_xy
     steps.step("keeping the largest strongly connected piece")
     network_edges, nodes, dropped, kept = _largest_strong_piece(network_edges, nodes)
     edge_lines = take_lines(*edge_lines, np.flatnonzero(kept))
@@ -378,13 +383,22 @@ def _turn_bans(
 
 def geodesic_length_m(lonlat_lines: np.ndarray) -> np.ndarray:
     """WGS84 geodesic length of each line (m), summed over its vertex pairs (pyproj ``Geod.inv``)."""
-    coords, index = shapely.get_coordinates(lonlat_lines, return_index=True)
-    if len(coords) < 2:
-        return np.zeros(len(lonlat_lines))
+    _, coords, (offsets,) = shapely.to_ragged_array(np.asarray(lonlat_lines, dtype=object), include_z=False)
+    return geodesic_length_flat_m(coords, np.asarray(offsets, dtype=np.int64))
+
+
+def geodesic_length_flat_m(lonlat_xy: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """WGS84 geodesic length (m) of each line of a ragged array (lon/lat vertices ``lonlat_xy``, line ``offsets``),
+    summed over its vertex pairs (pyproj ``Geod.inv``, Karney 2013)."""
+    n_lines = len(offsets) - 1
+    if len(lonlat_xy) < 2:
+        return np.zeros(n_lines)
+    index = np.repeat(np.arange(n_lines), np.diff(offsets))
     geod = Geod(ellps="WGS84")
-    _, _, dist = geod.inv(coords[:-1, 0], coords[:-1, 1], coords[1:, 0], coords[1:, 1])
+    x, y = lonlat_xy[:, 0], lonlat_xy[:, 1]
+    _, _, dist = geod.inv(x[:-1], y[:-1], x[1:], y[1:])
     same = index[1:] == index[:-1]
-    return np.bincount(index[1:][same], weights=np.asarray(dist)[same], minlength=len(lonlat_lines))
+    return np.bincount(index[1:][same], weights=np.asarray(dist)[same], minlength=n_lines)
 
 
 def normalised_tag(values: pd.Series) -> np.ndarray:
@@ -415,7 +429,7 @@ def _directions(segments: pd.DataFrame, reversible: str = "two_way") -> tuple[np
 
 def _directed_edges(
     segments: pd.DataFrame,
-    geometry: np.ndarray,
+    lines: tuple[np.ndarray, np.ndarray],
     length_m: np.ndarray,
     raw_nodes: pd.DataFrame,
     prof: Profile,
@@ -454,8 +468,7 @@ def _directed_edges(
     order = np.lexsort((direction, sel))
     sel, direction, against = sel[order], direction[order], against[order]
     rev = direction == 1
-    _, seg_coords, (seg_offsets,) = shapely.to_ragged_array(np.asarray(geometry, dtype=object))
-    seg_offsets = np.asarray(seg_offsets, dtype=np.int64)
+    seg_coords, seg_offsets = lines
     edge_lines = take_lines(seg_coords, seg_offsets, sel, rev)
     u = np.where(rev, v_idx[sel], u_idx[sel])
     v = np.where(rev, u_idx[sel], v_idx[sel])

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from coverkit.travel.nearest import MAX_SUBSEGMENT_M, cut_segments, point_segment_distance
+from coverkit.travel.nearest import MAX_SUBSEGMENT_M, cut_segments_compiled, point_segment_distance
 
 #: Sub-segments per cell aimed at when choosing the cell size (common practice for bucket grids: a few per cell).
 SEGMENTS_PER_CELL = 4.0
@@ -78,7 +78,7 @@ class GridIndex:
 
 def build_grid_index(coords: np.ndarray, owner: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> GridIndex:
     """A :class:`GridIndex` over the lines given by vertex ``coords`` (m) and the line index ``owner`` of each."""
-    a, b, piece = cut_segments(np.asarray(coords, dtype=float), np.asarray(owner), max_len_m)
+    a, b, piece = cut_segments_compiled(np.asarray(coords, dtype=float), np.asarray(owner), max_len_m)
     mid = (a + b) / 2.0
     if len(mid) == 0:
         return GridIndex(a, b, piece.astype(np.int64), np.zeros(2, np.int64), (0.0, 0.0), 1.0, (1, 1), max_len_m)
@@ -88,13 +88,20 @@ def build_grid_index(coords: np.ndarray, owner: np.ndarray, max_len_m: float = M
     nx, ny = (np.floor(span / cell_m).astype(np.int64) + 1).tolist()
     ix = np.minimum(((mid[:, 0] - lo[0]) // cell_m).astype(np.int64), nx - 1)
     iy = np.minimum(((mid[:, 1] - lo[1]) // cell_m).astype(np.int64), ny - 1)
+    del mid
     cell = iy * nx + ix
+    del ix, iy
     order = np.argsort(cell, kind="stable")
     ptr = np.concatenate([[0], np.cumsum(np.bincount(cell, minlength=nx * ny))]).astype(np.int64)
+    del cell
+    # reordered one array at a time, each old copy freed before the next is made (millions of rows)
+    a = np.ascontiguousarray(a[order])
+    b = np.ascontiguousarray(b[order])
+    piece = piece[order].astype(np.int64)
     return GridIndex(
-        np.ascontiguousarray(a[order]),
-        np.ascontiguousarray(b[order]),
-        piece[order].astype(np.int64),
+        a,
+        b,
+        piece,
         ptr,
         (float(lo[0]), float(lo[1])),
         cell_m,

@@ -159,3 +159,25 @@ def k_best_kernel(ptr_a, t_a, s_a, ptr_b, t_b, s_b, limit_s, out_s, out_t):
         for j in range(n):
             out_s[p, j] = bs[j]
             out_t[p, j] = bt[j]
+
+
+@njit(cache=True, nogil=True)
+def cut_segments_kernel(coords, start, parts, owner, out_a, out_b, out_line):
+    """Fill the straight sub-segments of the segments ``coords[start[i]] -> coords[start[i] + 1]``, each cut into
+    ``parts[i]`` equal pieces: the operations of :func:`coverkit.travel.nearest.cut_segments`, in its order."""
+    j = 0
+    for i in range(len(start)):
+        s = start[i]
+        p = parts[i]
+        ax, ay = coords[s, 0], coords[s, 1]
+        dx, dy = coords[s + 1, 0] - ax, coords[s + 1, 1] - ay
+        line = owner[s + 1]
+        for k in range(p):
+            t0 = k / p
+            t1 = (k + 1) / p
+            out_a[j, 0] = ax + t0 * dx
+            out_a[j, 1] = ay + t0 * dy
+            out_b[j, 0] = ax + t1 * dx
+            out_b[j, 1] = ay + t1 * dy
+            out_line[j] = line
+            j += 1
