@@ -17,10 +17,11 @@ import shapely
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from coverkit.network import RoadNetwork, build_network, gpkg_write
+from coverkit import gpkg_batches
+from coverkit.gpkg_batches import frame_rows, write_layer
+from coverkit.network import RoadNetwork, build_network
 from coverkit.network.build import take_lines
 from coverkit.network.columnar import copy_dir
-from coverkit.network.gpkg_write import frame_rows, write_layer
 from coverkit.network.model import EDGE_COLUMNS, NODE_COLUMNS
 from tests.test_network_columnar import DEMO, _assert_same_network
 
@@ -65,7 +66,7 @@ def test_saving_from_arrays_or_from_tables_writes_the_same_files(helsinki_pbf, t
 def test_batched_layer_equals_pyogrio_write_dataframe(tmp_path, monkeypatch):
     """Layers written in many small Arrow batches read back equal to pyogrio's own write, with the same schema."""
     net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency")
-    monkeypatch.setattr(gpkg_write, "BATCH_ROWS", 97)  # many batches, the last one short
+    monkeypatch.setattr(gpkg_batches, "BATCH_ROWS", 97)  # many batches, the last one short
     for layer, frame in (
         ("nodes", net.nodes[[*NODE_COLUMNS, "geometry"]]),
         ("edges", net.edges[[*EDGE_COLUMNS, "geometry"]]),

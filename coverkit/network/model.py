@@ -535,14 +535,14 @@ class RoadNetwork:
 
 
 def _save_sources(net: RoadNetwork) -> tuple:
-    """The rows of the ``nodes`` and ``edges`` layers (:class:`~coverkit.network.gpkg_write.LayerRows`) and the
+    """The rows of the ``nodes`` and ``edges`` layers (:class:`~coverkit.gpkg_batches.LayerRows`) and the
     columnar copy's parts (see :func:`_copy_parts`) of ``net``.
 
     A network still held as its columnar layout (just built, or loaded and not changed) is written from its arrays,
     a batch of geometries at a time; otherwise from its tables.
     """
+    from coverkit.gpkg_batches import LayerRows, frame_rows
     from coverkit.network.columnar import Table
-    from coverkit.network.gpkg_write import LayerRows, frame_rows
 
     store = net.__dict__.get("_store")
     if store is None or net._overrides or "nodes" in net.__dict__ or "edges" in net.__dict__:
@@ -582,10 +582,10 @@ def _save_sources(net: RoadNetwork) -> tuple:
 def _write_gpkg(tmp: Path, nodes, edges, info_df: pd.DataFrame, bans: pd.DataFrame | None) -> None:
     """The layers of a network GeoPackage (the turn bans' table only when there are some).
 
-    ``nodes`` and ``edges`` are :class:`~coverkit.network.gpkg_write.LayerRows`: the two big layers go to GDAL as
+    ``nodes`` and ``edges`` are :class:`~coverkit.gpkg_batches.LayerRows`: the two big layers go to GDAL as
     Arrow batches, the small ones feature by feature.
     """
-    from coverkit.network.gpkg_write import write_layer
+    from coverkit.gpkg_batches import write_layer
 
     write_layer(nodes, tmp, layer="nodes")
     write_layer(edges, tmp, layer="edges", append=True)

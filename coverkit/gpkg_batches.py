@@ -60,7 +60,10 @@ def write_layer(rows: LayerRows, path: str | Path, *, layer: str, append: bool =
     """
     import pyarrow as pa
 
-    head = pa.Table.from_pandas(rows.attributes(0, 0), preserve_index=False).schema
+    # the field types come from the first batch; a text column with no value in it (all NULL) is text, as pyogrio
+    # makes it, not Arrow's null type, which GDAL refuses
+    first = pa.Table.from_pandas(rows.attributes(0, min(BATCH_ROWS, rows.length)), preserve_index=False).schema
+    head = pa.schema([f.with_type(pa.string()) if pa.types.is_null(f.type) else f for f in first])
     geom_field = pa.field("geometry", pa.binary(), metadata={"ARROW:extension:name": "geoarrow.wkb"})
     schema = head.append(geom_field)
 
