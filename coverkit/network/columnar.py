@@ -4,7 +4,8 @@ Why: the GeoPackage is the file users open in a desktop GIS, but reading a milli
 (a feature at a time through OGR) and builds every geometry. The copy keeps each column as one ``.npy`` file that
 ``np.load(mmap_mode="c")`` maps without reading (copy-on-write: callers get writeable arrays, the files never change);
 edge geometries are kept as flat coordinates and offsets (shapely's ragged-array layout) and built only for the edges
-a step asks for. NumPy files were chosen over Arrow/Parquet because they map with no decoding and add no dependency.
+a step asks for. NumPy files were chosen over Arrow/Parquet because they map with no decoding (Arrow is used only to
+hand the GeoPackage's rows to GDAL, :mod:`coverkit.gpkg_batches`).
 
 Layout of ``<network>.gpkg.arrays/``: ``manifest.json`` (format, the GeoPackage's build id, size and modification
 time, the CRS, profile and build summary, the columns and their kinds) and one ``.npy`` per array. Text columns are
