@@ -231,7 +231,8 @@ GRID_CELL_M = 200.0
 PERIODS = '[[period]]\nname = "night"\nat = "03:00"\n[[period]]\nname = "morning"\nat = "mon 08:00"\n'
 
 
-def _period_study(folder, periods: str):
+def _period_study(folder, periods: str, out=None):
+    """The study file in ``folder`` (outputs to ``out``, default ``folder/out``) with ``periods``."""
     from tests.conftest import DEMO, demo_study_head
 
     head = demo_study_head("periods").replace("[bases]", f'profile = "{_demo_banded_profile(folder)}"\n[bases]')
@@ -240,7 +241,7 @@ def _period_study(folder, periods: str):
         head
         + f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\nkind = "incidents"\n'
         + '[[standard]]\nname = "8 min"\ntravel_s = 480\n'
-        + f'[outputs]\nfolder = "{folder / "out"}"\nmaps = false\nisochrone_minutes = [8]\n'
+        + f'[outputs]\nfolder = "{out or folder / "out"}"\nmaps = false\nisochrone_minutes = [8]\n'
         + f"grid_cell_m = {GRID_CELL_M}\n"
         + periods
     )
@@ -294,7 +295,8 @@ def test_compare_at_a_time_of_day_starts_from_the_timed_network(period_run, tmp_
     without periods; its network and untimed figures are those of the shared period run: same inputs)."""
     from tests.conftest import REPO
 
-    study = _period_study(tmp_path, "")
+    # outputs beside the period run's: compare reads the network that run cached (same inputs, read only)
+    study = _period_study(tmp_path, "", out=period_run.study.folder / period_run.study.outputs.folder)
     scenario = REPO / "examples" / "scenarios" / "station-s3-closed.toml"
     out = tmp_path / "cmp"
     assert main(["compare", str(study), str(scenario), "--out", str(out), "--at", "tue 07:30", "--quiet"]) == 0
