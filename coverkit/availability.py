@@ -7,7 +7,8 @@ the calls is its share of the demand weight.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
@@ -79,19 +80,71 @@ class AvailabilityRun:
     result: object  # HypercubeResult
 
 
+@dataclass(frozen=True)
+class AvailabilityOptions:
+    """Options of a hypercube run beyond its inputs: the one home of their names, defaults and checks, for
+    :func:`availability` and :func:`coverkit.availability_types.availability_by_type` (both take them as keywords).
+
+    Attributes
+    ----------
+    calls_per_h
+        Total call rate (calls per hour); None or 0: counted from the incidents' timestamps (:func:`call_rate_per_h`).
+    queue
+        ``"infinite"`` (calls wait) or ``"zero"`` (calls that find every unit busy are lost, e.g. to mutual aid).
+    method
+        ``"exact"`` (2^N states), ``"approx"`` (Larson 1975) or ``"auto"`` (exact for small N).
+    time_field
+        Demand field holding the incidents' ISO 8601 times (for the counted call rate).
+    max_snap_m
+        Farthest a base or demand point may lie from the road network (m).
+    window
+        The (start, end) the incidents were selected from (ISO 8601, either open): the call rate is counted over it.
+
+    Raises
+    ------
+    ModelError
+        ``calls_per_h`` is negative or not a number.
+    """
+
+    calls_per_h: float | None = None
+    queue: str = settings.QUEUE
+    method: str = settings.AVAILABILITY_METHOD
+    time_field: str = settings.TIME_FIELD
+    max_snap_m: float = settings.SNAP_M
+    window: tuple[str | None, str | None] = (None, None)
+
+    def __post_init__(self) -> None:
+        if self.calls_per_h is not None and not self.calls_per_h >= 0:  # 0 or None: counted from the timestamps
+            raise ModelError(
+                f"{PARAM}, the call rate, must be a number of calls per hour >= 0, got {self.calls_per_h}.",
+                param="calls_per_h",
+            )
+
+    @classmethod
+    def of(cls, caller: str, options: dict[str, Any]) -> AvailabilityOptions:
+        """The options given to ``caller`` as keywords; a ``TypeError`` naming the first unknown one."""
+        known = {f.name for f in fields(cls)}
+        unknown = sorted(set(options) - known)
+        if unknown:
+            raise TypeError(
+                f"{caller}() got an unexpected keyword argument '{unknown[0]}' (options: {', '.join(sorted(known))})"
+            )
+        return cls(**options)
+
+    def rate_per_h(self, demand: gpd.GeoDataFrame) -> float:
+        """The total call rate (calls per hour): the one given, else counted from ``demand``'s timestamps."""
+        if self.calls_per_h:
+            return float(self.calls_per_h)
+        return call_rate_per_h(demand, self.time_field, start=self.window[0], end=self.window[1])
+
+
 def availability(
     net: RoadNetwork,
     bases: gpd.GeoDataFrame,
     demand: gpd.GeoDataFrame,
     standard: Standard,
     mean_service_min: float,
-    calls_per_h: float | None = None,
-    queue: str = settings.QUEUE,
-    method: str = settings.AVAILABILITY_METHOD,
-    time_field: str = settings.TIME_FIELD,
-    max_snap_m: float = settings.SNAP_M,
-    *,
-    window: tuple[str | None, str | None] = (None, None),
+    **options: Any,
 ) -> AvailabilityRun:
     """Hypercube model with closest-available dispatch on the road network's travel times.
 
@@ -105,24 +158,16 @@ def availability(
         Travel standard used for "reached within the standard".
     mean_service_min
         Mean time a unit is busy per call (minutes): travel, on scene, transport, return.
-    calls_per_h
-        Total call rate; default from the incidents' timestamps (:func:`call_rate_per_h`).
-    queue
-        ``"infinite"`` (calls wait) or ``"zero"`` (calls that find every unit busy are lost, e.g. to mutual aid).
-    method
-        ``"exact"`` (2^N states), ``"approx"`` (Larson 1975) or ``"auto"`` (exact for small N).
-    window
-        The (start, end) the incidents were selected from (ISO 8601, either open): the call rate is counted over it.
+    **options
+        The fields of :class:`AvailabilityOptions` (call rate, queue, method, time field, snap distance, window).
     """
     if not mean_service_min > 0:
         raise ModelError(
             f"{PARAM}, the mean service time, must be positive minutes, got {mean_service_min}.",
             param="mean_service_min",
         )
-    if calls_per_h is not None and not calls_per_h >= 0:  # 0 or None: counted from the incidents' timestamps
-        raise ModelError(
-            f"{PARAM}, the call rate, must be a number of calls per hour >= 0, got {calls_per_h}.", param="calls_per_h"
-        )
+    opts = AvailabilityOptions.of("availability", options)
+    queue = opts.queue
     units_per_station = (
         pd.to_numeric(bases["units"], errors="coerce").fillna(1).astype(int).to_numpy()
         if "units" in bases.columns
@@ -130,9 +175,9 @@ def availability(
     )
     if units_per_station.sum() == 0:
         raise ModelError("no units: every base has units = 0; give at least one unit.")
-    rate = float(calls_per_h) if calls_per_h else call_rate_per_h(demand, time_field, start=window[0], end=window[1])
+    rate = opts.rate_per_h(demand)
     # no horizon: a backup unit may come from far away, and its full travel time counts
-    table = travel_table(net, bases, demand, np.inf, max_snap_m)
+    table = travel_table(net, bases, demand, np.inf, opts.max_snap_m)
     dense = np.full((len(bases), len(demand)), np.inf)
     coo = table.times.tocoo()
     dense[coo.row, coo.col] = coo.data
@@ -147,7 +192,7 @@ def availability(
     w = w_all[ok]
     # every call still occupies a unit: the calls of unserved points are spread over the served ones
     atom_rate = rate * w / w.sum()
-    res = hypercube(atom_rate, pref, mean_service_min, queue=queue, method=method)
+    res = hypercube(atom_rate, pref, mean_service_min, queue=queue, method=opts.method)
     cov = np.zeros(len(demand))
     cov[ok] = availability_coverage(res, unit_t, standard.travel_s)
     exp_t = np.full(len(demand), np.inf)

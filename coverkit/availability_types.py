@@ -11,14 +11,15 @@ Results are planning estimates, not for live dispatch or routing.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
 
-from coverkit import settings
-from coverkit.availability import AvailabilityRun, availability, call_rate_per_h
+from coverkit.availability import AvailabilityOptions, AvailabilityRun, availability
 from coverkit.coverage import Standard
 from coverkit.errors import FieldError
 from coverkit.network.model import RoadNetwork
@@ -71,20 +72,17 @@ def availability_by_type(
     fleet: Fleet,
     mean_service_min: float,
     *,
-    calls_per_h: float | None = None,
-    queue: str = settings.QUEUE,
-    method: str = settings.AVAILABILITY_METHOD,
-    time_field: str = settings.TIME_FIELD,
-    max_snap_m: float = settings.SNAP_M,
-    window: tuple[str | None, str | None] = (None, None),
     needs_field: str = NEEDS_FIELD,
+    **options: Any,
 ) -> TypeAvailability:
     """The hypercube model per unit type on the calls needing it (see the module notes).
 
-    The total call rate is ``calls_per_h`` or the incidents' (:func:`coverkit.availability.call_rate_per_h`); a type
-    gets the share of it that its calls carry by weight.
+    ``options`` are those of :func:`coverkit.availability.availability` (:class:`~coverkit.availability.
+    AvailabilityOptions`). The total call rate is ``calls_per_h`` or the incidents'
+    (:func:`coverkit.availability.call_rate_per_h`); a type gets the share of it that its calls carry by weight.
     """
-    rate = float(calls_per_h) if calls_per_h else call_rate_per_h(demand, time_field, start=window[0], end=window[1])
+    opts = AvailabilityOptions.of("availability_by_type", options)
+    rate = opts.rate_per_h(demand)
     w_all = float(demand["weight"].sum())
     out = TypeAvailability()
     units, rows = [], []
@@ -97,9 +95,8 @@ def availability_by_type(
         sub_bases = bases[held].assign(units=count[held]).reset_index(drop=True)
         calls = demand[need].reset_index(drop=True)
         share = float(calls["weight"].sum()) / w_all
-        run = availability(
-            net, sub_bases, calls, standard, mean_service_min, rate * share, queue, method, time_field, max_snap_m
-        )
+        type_options = dataclasses.asdict(opts) | {"calls_per_h": rate * share}
+        run = availability(net, sub_bases, calls, standard, mean_service_min, **type_options)
         out.runs[unit_type] = run
         # the hypercube's units go station by station, in the table's order within a station
         mine = np.flatnonzero(fleet.type == unit_type)

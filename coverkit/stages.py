@@ -498,30 +498,25 @@ def availability_stage(
     """
     from coverkit.availability import availability
 
-    options = {"max_snap_m": max_snap_m} if max_snap_m is not None else {}
-    run = availability(
-        net,
-        bases,
-        demand,
-        standard,
-        cfg.service_min,
-        calls_per_h=cfg.calls_per_h,
-        queue=cfg.queue,
-        method=cfg.method,
-        time_field=cfg.time_field,
-        window=window,
-        **options,
-    )
+    options = {
+        "calls_per_h": cfg.calls_per_h,
+        "queue": cfg.queue,
+        "method": cfg.method,
+        "time_field": cfg.time_field,
+        "window": window,
+        **({"max_snap_m": max_snap_m} if max_snap_m is not None else {}),
+    }
+    run = availability(net, bases, demand, standard, cfg.service_min, **options)
     run.summary["demand"] = demand_name
     by_type = None
     if fleet is not None:
         from coverkit.availability_types import availability_by_type
 
-        rate = cfg.calls_per_h or run.summary["calls_per_h"]
+        # the types share the call rate of the whole run (counted once)
+        options["calls_per_h"] = cfg.calls_per_h or run.summary["calls_per_h"]
         by_type = availability_by_type(
-            net, bases, demand, standard, fleet, cfg.service_min, calls_per_h=rate, queue=cfg.queue,
-            method=cfg.method, time_field=cfg.time_field, window=window, needs_field=needs_field, **options,
-        )  # fmt: skip
+            net, bases, demand, standard, fleet, cfg.service_min, needs_field=needs_field, **options
+        )
     return AvailabilityStage(run, demand_name, by_type)
 
 

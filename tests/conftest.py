@@ -93,6 +93,33 @@ def demo_net_path(tmp_path_factory) -> Path:
     return net.save(tmp_path_factory.mktemp("demo-net") / "net.gpkg")
 
 
+@pytest.fixture(scope="session")
+def demo_command(tmp_path_factory):
+    """``coverkit demo`` run once for the session (it is the slowest study: maps and report included): its output
+    folder, what it printed, and the study run it reported on (kept by a pass-through wrapper around
+    :func:`coverkit.study.run_study`, which the command calls; nothing else is changed)."""
+    import contextlib
+    import io
+
+    import coverkit.study
+    from coverkit.cli import main
+
+    runs = []
+    real = coverkit.study.run_study
+
+    def keep(*args, **kwargs):
+        runs.append(real(*args, **kwargs))
+        return runs[-1]
+
+    out = tmp_path_factory.mktemp("demo")
+    printed = io.StringIO()
+    with pytest.MonkeyPatch.context() as mp, contextlib.redirect_stdout(printed):
+        mp.setattr(coverkit.study, "run_study", keep)
+        code = main(["demo", "--out", str(out), "--quiet"])
+    assert code == 0 and len(runs) == 1
+    return out, printed.getvalue(), runs[0]
+
+
 def site_cli(net_path: Path, out: Path, *extra: str) -> int:
     """``coverkit site`` on the demo county's stations, candidates and population at 8 min, plus ``extra``."""
     from coverkit.cli import main

@@ -89,19 +89,16 @@ def _map_data(path: Path) -> dict:
 
 
 @pytest.fixture(scope="module")
-def demo_run(tmp_path_factory):
-    """The demo study (examples/demo-study.toml) run once, maps and report included."""
-    from coverkit.report.study_report import report_study
-    from coverkit.study import run_study
-
-    run = run_study(REPO / "examples" / "demo-study.toml", tmp_path_factory.mktemp("web-map") / "run")
-    report_study(run)
-    return run
+def demo_run(demo_command):
+    """The demo study (examples/demo-study.toml, the template ``coverkit demo`` writes and runs), maps and report
+    included: the study run of the session's ``coverkit demo`` (tests/conftest.py)."""
+    return demo_command[2]
 
 
 @pytest.fixture(scope="module")
 def compared(tmp_path_factory):
-    """The flood scenario (closed roads, slower roads) on the demo county, one standard, with its report."""
+    """The flood scenario (closed roads, slower roads) on the demo county, one standard, with its report (a 200 m area
+    grid: the checks are sums over its areas and what the browser draws, which hold at any cell size)."""
     from coverkit.compare_run import compare_study
     from coverkit.report.compare_report import write_compare_report
 
@@ -120,6 +117,8 @@ kind = "incidents"
 name = "ALS 8 min"
 turnout_s = 60
 travel_s = 480
+[outputs]
+grid_cell_m = 200
 """
     )
     run = compare_study(study, REPO / "examples" / "scenarios" / "flood-and-winter.toml", folder / "out")

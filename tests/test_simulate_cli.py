@@ -204,7 +204,9 @@ def test_the_travel_spread_fitted_to_observed_trips(folder):
 
 def test_a_study_run_with_a_simulation_section_writes_it_and_reports_it(folder):
     """`coverkit run` on a study with [simulation]: its files in simulation/ and its section in the report."""
-    study = _study(folder, folder / "calls.csv", "isochrone_minutes = [8]\n[simulation]\nreplications = 2\n")
+    # a 200 m area grid: the checks are on the simulation's files and the report's section, not the grid's areas
+    extra = "isochrone_minutes = [8]\ngrid_cell_m = 200\n[simulation]\nreplications = 2\n"
+    study = _study(folder, folder / "calls.csv", extra)
     out = folder / "cache"
     assert main(["run", str(study), "--out", str(out), "--quiet"]) == 0
     summary = pd.read_csv(out / "simulation" / "summary.csv", dtype={"replication": str})

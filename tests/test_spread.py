@@ -162,6 +162,8 @@ def _spread_study(tmp_path, extra: str) -> object:
         + f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\nkind = "incidents"\n'
         + '[[standard]]\nname = "8 min"\ntravel_s = 480\n'
         + f'[outputs]\nfolder = "{tmp_path / "out"}"\nmaps = false\nisochrone_minutes = [8]\n'
+        # a 200 m area grid: the checks are on point figures and report text, not the grid's areas
+        + "grid_cell_m = 200\n"
         + extra
     )
     return path

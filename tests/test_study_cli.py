@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import io
 import re
+from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
@@ -22,36 +23,29 @@ import shapely
 from coverkit.cli import main
 from coverkit.demand import demand_from_polygons, load_demand, raster_total
 from coverkit.errors import FieldError, InputFileError, StudyError
-from coverkit.network import RoadNetwork, build_network
+from coverkit.network import RoadNetwork
 from coverkit.study import load_study
 
 from .conftest import DEMO, REPO
 
 
 @pytest.fixture(scope="module")
-def demo_net(tmp_path_factory):
-    net, _ = build_network(DEMO / "varrowby.osm.bz2", "emergency", boundary=DEMO / "boundary.geojson")
-    path = tmp_path_factory.mktemp("net") / "net.gpkg"
-    net.save(path)
-    return net, path
+def demo_net(demo_net_path):
+    """The demo county's network (built once for the session, tests/conftest.py) and its GeoPackage."""
+    return RoadNetwork.load(demo_net_path), demo_net_path
 
 
 @pytest.fixture(scope="module")
-def demo_run(tmp_path_factory):
-    out = tmp_path_factory.mktemp("demo")
-    printed = io.StringIO()
-    with contextlib.redirect_stdout(printed):
-        code = main(["demo", "--out", str(out), "--quiet"])
-    assert code == 0
-    (out.parent / "demo-stdout.txt").write_text(printed.getvalue())
-    return out
+def demo_run(demo_command):
+    """The output folder of ``coverkit demo`` (run once for the session, tests/conftest.py)."""
+    return demo_command[0]
 
 
-def _printed(demo_run) -> str:
-    return (demo_run.parent / "demo-stdout.txt").read_text()
+def _printed(demo_command) -> str:
+    return demo_command[1]
 
 
-def test_demo_totals_match_the_input_files(demo_run):
+def test_demo_totals_match_the_input_files(demo_run, demo_command):
     """The demo's demand totals are the inputs' own: residents = the population raster's sum (rasterio, nodata
     masked), calls = the incident rows (pandas); the printed headline repeats summary.csv's figures."""
     summary = pd.read_csv(demo_run / "summary.csv")
@@ -62,21 +56,21 @@ def test_demo_totals_match_the_input_files(demo_run):
     calls = summary[summary["demand"] == "calls"]
     assert np.allclose(res["demand_total"], float(pop.sum()), rtol=1e-6)
     assert (calls["demand_total"] == n_calls).all()
-    text = _printed(demo_run)
+    text = _printed(demo_command)
     for row in summary.itertuples():
         unit = "people" if row.demand == "residents" else "calls"
         line = f"covered {100 * row.covered_share:5.1f} % ({row.covered:,.0f} of {row.demand_total:,.0f} {unit})"
         assert line in text, line
 
 
-def test_demo_busy_units_follow_the_call_rate_of_the_incident_file(demo_run):
+def test_demo_busy_units_follow_the_call_rate_of_the_incident_file(demo_run, demo_command):
     """Units' workloads sum to the offered load: calls per hour from the incident timestamps (first to last, counted
     here with pandas) x 45 min service (Erlang 1917; Little's law); the printed rate is the same figure."""
     src = pd.read_csv(DEMO / "incidents.csv", parse_dates=["received_at"])
     rate = len(src) / ((src["received_at"].max() - src["received_at"].min()).total_seconds() / 3600.0)
     units = gpd.read_file(demo_run / "coverage.gpkg", layer="availability_units")
     assert units["workload"].sum() == pytest.approx(rate * 45 / 60, rel=1e-6)
-    assert f"busy units ({rate:.2f} calls/h, 45 min each)" in _printed(demo_run)
+    assert f"busy units ({rate:.2f} calls/h, 45 min each)" in _printed(demo_command)
 
 
 def test_demo_reached_residents_lie_inside_the_any_base_polygon(demo_run):
@@ -91,13 +85,13 @@ def test_demo_reached_residents_lie_inside_the_any_base_polygon(demo_run):
     assert inside.all(), f"{(~inside).sum()} reached points outside the polygon"
 
 
-def test_demo_printed_calibration_errors_are_the_table_s(demo_run):
+def test_demo_printed_calibration_errors_are_the_table_s(demo_run, demo_command):
     """The printed calibration line gives the before/after mean absolute errors of the calibration table."""
     e = gpd.read_file(demo_run / "coverage.gpkg", layer="calibration_errors")
     before = e[(e["stage"] == "before") & (e["band"] == "all")]["mae_s"].iloc[0]
     after = e[(e["stage"] == "after") & (e["band"] == "all")]["mae_s"].iloc[0]
     assert after < before
-    assert f"mean absolute error {before:.0f} s -> {after:.0f} s" in _printed(demo_run)
+    assert f"mean absolute error {before:.0f} s -> {after:.0f} s" in _printed(demo_command)
 
 
 def test_demo_writes_report_layers_and_maps(demo_run):
@@ -201,30 +195,42 @@ def test_polygon_demand_total_equals_field_sum(demo_net):
     )
 
 
-def test_cover_command_output_contract(demo_net, tmp_path, capsys):
-    _, net_path = demo_net
-    out = tmp_path / "calls.gpkg"
-    code = main(
-        [
-            "cover",
-            str(net_path),
-            "--bases",
-            str(DEMO / "stations.csv"),
-            "--demand",
-            str(DEMO / "incidents.csv"),
-            "--where",
-            "priority in (1, 2)",
-            "--minutes",
-            "8",
-            "--turnout-s",
-            "60",
-            "--out",
-            str(out),
-            "--quiet",
-        ]
-    )
+def _cover_calls(net_path, out) -> str:
+    """``coverkit cover`` on the priority 1-2 incidents at 8 min with 60 s turnout; what it printed."""
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        code = main(
+            [
+                "cover",
+                str(net_path),
+                "--bases",
+                str(DEMO / "stations.csv"),
+                "--demand",
+                str(DEMO / "incidents.csv"),
+                "--where",
+                "priority in (1, 2)",
+                "--minutes",
+                "8",
+                "--turnout-s",
+                "60",
+                "--out",
+                str(out),
+                "--quiet",
+            ]
+        )
     assert code == 0
-    text = capsys.readouterr().out
+    return printed.getvalue()
+
+
+@pytest.fixture(scope="module")
+def calls_cover(demo_net, tmp_path_factory):
+    """One ``coverkit cover`` of the priority 1-2 calls (shared by the output contract and the determinism check)."""
+    out = tmp_path_factory.mktemp("cover") / "calls.gpkg"
+    return out, _cover_calls(demo_net[1], out)
+
+
+def test_cover_command_output_contract(calls_cover):
+    out, text = calls_cover
     assert "covered" in text and "Planning estimates only" in text
     demand = gpd.read_file(out, layer="demand_incidents_8_min")
     for col in ("id", "weight", "travel_s", "response_s", "first_base", "second_base", "depth", "covered"):
@@ -369,11 +375,29 @@ def test_study_file_errors_name_the_key(tmp_path, edit, needle):
     assert needle in str(info.value) and "\n" not in str(info.value)
 
 
-def test_run_reuses_the_cached_network(tmp_path, capsys):
-    study = _study(tmp_path, BASE_STUDY + "\n[outputs]\nmaps = false\nreport = false\nisochrone_minutes = [4]\n")
-    out = tmp_path / "res"
+#: Outputs of the `coverkit run` checks: no maps or report, one isochrone band, a 200 m area grid (the checks are on
+#: point figures and the network cache, which the grid's cell size does not enter).
+RUN_OUTPUTS = "\n[outputs]\nmaps = false\nreport = false\nisochrone_minutes = [4]\ngrid_cell_m = 200\n"
+
+
+@pytest.fixture(scope="module")
+def base_run(tmp_path_factory):
+    """``coverkit run`` of the base study once: (study file, output folder); tests that run again work on a copy."""
+    folder = tmp_path_factory.mktemp("base-run")
+    study = _study(folder, BASE_STUDY + RUN_OUTPUTS)
+    out = folder / "res"
     assert main(["run", str(study), "--out", str(out), "--quiet"]) == 0
+    return study, out
+
+
+def test_run_reuses_the_cached_network(base_run, tmp_path, capsys):
+    import shutil
+
+    # the first run is the shared one; copy2 keeps the cached network's modification time
+    study = Path(shutil.copy2(base_run[0], tmp_path / "s.toml"))
+    out = Path(shutil.copytree(base_run[1], tmp_path / "res"))
     first = (out / "network.gpkg").stat().st_mtime_ns
+    assert first == (base_run[1] / "network.gpkg").stat().st_mtime_ns
     assert main(["run", str(study), "--out", str(out)]) == 0
     assert "reusing" in capsys.readouterr().err
     assert (out / "network.gpkg").stat().st_mtime_ns == first
@@ -415,31 +439,11 @@ def test_demand_errors_are_field_errors(demo_net):
         load_demand(DEMO / "blocks.gpkg", net)
 
 
-def test_same_inputs_give_the_same_outputs(demo_net, tmp_path):
+def test_same_inputs_give_the_same_outputs(demo_net, calls_cover, tmp_path):
     """Determinism: two runs of `cover` give identical layers (values, order and geometry)."""
-    _, net_path = demo_net
-    outs = []
-    for k in range(2):
-        out = tmp_path / f"c{k}.gpkg"
-        assert (
-            main(
-                [
-                    "cover",
-                    str(net_path),
-                    "--bases",
-                    str(DEMO / "stations.csv"),
-                    "--demand",
-                    str(DEMO / "incidents.csv"),
-                    "--minutes",
-                    "8",
-                    "--out",
-                    str(out),
-                    "--quiet",
-                ]
-            )
-            == 0
-        )
-        outs.append(out)
+    again = tmp_path / "again.gpkg"
+    _cover_calls(demo_net[1], again)
+    outs = [calls_cover[0], again]
     for layer in ("demand_incidents_8_min", "gaps_8_min", "first_due_8_min", "by_base_incidents_8_min"):
         a = gpd.read_file(outs[0], layer=layer)
         b = gpd.read_file(outs[1], layer=layer)
@@ -524,14 +528,12 @@ def test_swapped_base_coordinates_get_a_hint(demo_net, tmp_path, capsys):
     assert code == 2 and "swapped" in err and len(err.splitlines()) == 1
 
 
-def test_run_figures_match_the_inputs_and_the_cover_command(tmp_path):
+def test_run_figures_match_the_inputs_and_the_cover_command(base_run, tmp_path):
     """``coverkit run``: the residents total is the population raster's sum (rasterio), and the covered weight,
     covered share and fractile response equal what ``coverkit cover`` reports on the run's own network for the
     same bases, demand and standard (design card: every entry point calls the same stages and gives the same
     figures)."""
-    study = _study(tmp_path, BASE_STUDY + "\n[outputs]\nmaps = false\nreport = false\nisochrone_minutes = [4]\n")
-    out = tmp_path / "res"
-    assert main(["run", str(study), "--out", str(out), "--quiet"]) == 0
+    out = base_run[1]
     row = pd.read_csv(out / "summary.csv").iloc[0]
     with rasterio.open(DEMO / "population.tif") as src:
         assert row["demand_total"] == pytest.approx(float(src.read(1, masked=True).sum()), rel=1e-6)

@@ -224,7 +224,15 @@ def _demo_banded_profile(folder):
     return path
 
 
-def _period_study(folder, periods: str):
+#: Area grid cell (m) of the period studies and of their reference coverage stages: the checks are on point
+#: figures (covered shares), which the grid's cell size does not enter; 200 m keeps the grid small.
+GRID_CELL_M = 200.0
+#: The periods of the shared study run.
+PERIODS = '[[period]]\nname = "night"\nat = "03:00"\n[[period]]\nname = "morning"\nat = "mon 08:00"\n'
+
+
+def _period_study(folder, periods: str, out=None):
+    """The study file in ``folder`` (outputs to ``out``, default ``folder/out``) with ``periods``."""
     from tests.conftest import DEMO, demo_study_head
 
     head = demo_study_head("periods").replace("[bases]", f'profile = "{_demo_banded_profile(folder)}"\n[bases]')
@@ -233,26 +241,40 @@ def _period_study(folder, periods: str):
         head
         + f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\nkind = "incidents"\n'
         + '[[standard]]\nname = "8 min"\ntravel_s = 480\n'
-        + f'[outputs]\nfolder = "{folder / "out"}"\nmaps = false\nisochrone_minutes = [8]\n'
+        + f'[outputs]\nfolder = "{out or folder / "out"}"\nmaps = false\nisochrone_minutes = [8]\n'
+        + f"grid_cell_m = {GRID_CELL_M}\n"
         + periods
     )
     return path
 
 
-def test_a_study_reports_compliance_per_period_side_by_side(tmp_path):
+@pytest.fixture(scope="module")
+def period_run(tmp_path_factory):
+    """The period study (night and Monday morning) run once; its summary is the untimed network's."""
+    from coverkit.study import run_study
+
+    return run_study(_period_study(tmp_path_factory.mktemp("periods"), PERIODS))
+
+
+def _timed_share(run, at: str) -> float:
+    """Covered share of the coverage stage on the run's network timed by network_at (the --at stage)."""
+    from coverkit.stages import coverage_stage
+    from coverkit.study import load_inputs
+
+    bases, demand, _, _ = load_inputs(run.study, run.network)
+    stage = coverage_stage(network_at(run.network, at), bases, demand, run.study.standards[0], cell_m=GRID_CELL_M)
+    return stage.summary_rows()[0]["covered_share"]
+
+
+def test_a_study_reports_compliance_per_period_side_by_side(period_run):
     """Each period's figures equal the coverage stage on the network timed by network_at (the --at stage)."""
     from coverkit.report.study_report import report_study
-    from coverkit.stages import coverage_stage
-    from coverkit.study import load_inputs, run_study
 
-    periods = '[[period]]\nname = "night"\nat = "03:00"\n[[period]]\nname = "morning"\nat = "mon 08:00"\n'
-    run = run_study(_period_study(tmp_path, periods))
+    run = period_run
     p = run.periods.set_index("period")
     assert list(p.index) == ["night", "morning"]
     assert p.loc["night", "covered_share"] == pytest.approx(run.summary["covered_share"].iloc[0])
-    bases, demand, _, _ = load_inputs(run.study, run.network)
-    stage = coverage_stage(network_at(run.network, "08:00"), bases, demand, run.study.standards[0])
-    assert p.loc["morning", "covered_share"] == pytest.approx(stage.summary_rows()[0]["covered_share"], rel=1e-12)
+    assert p.loc["morning", "covered_share"] == pytest.approx(_timed_share(run, "08:00"), rel=1e-12)
     assert p.loc["morning", "covered_share"] < p.loc["night", "covered_share"]  # slower roads, less cover
     page = report_study(run)["report"].read_text()
     assert "Compliance by time of day" in page and "morning" in page
@@ -268,23 +290,21 @@ def test_a_study_with_a_bad_period_stops_in_one_line(tmp_path):
         assert len(str(err.value).splitlines()) == 1 and "period.at" in str(err.value)
 
 
-def test_compare_at_a_time_of_day_starts_from_the_timed_network(tmp_path, capsys):
-    """`compare --at`: the 'before' figures are the coverage stage on the network timed by network_at."""
-    from coverkit.stages import coverage_stage
-    from coverkit.study import load_inputs, run_study
+def test_compare_at_a_time_of_day_starts_from_the_timed_network(period_run, tmp_path, capsys):
+    """`compare --at`: the 'before' figures are the coverage stage on the network timed by network_at (the study
+    without periods; its network and untimed figures are those of the shared period run: same inputs)."""
     from tests.conftest import REPO
 
-    study = _period_study(tmp_path, "")
+    # outputs beside the period run's: compare reads the network that run cached (same inputs, read only)
+    study = _period_study(tmp_path, "", out=period_run.study.folder / period_run.study.outputs.folder)
     scenario = REPO / "examples" / "scenarios" / "station-s3-closed.toml"
     out = tmp_path / "cmp"
     assert main(["compare", str(study), str(scenario), "--out", str(out), "--at", "tue 07:30", "--quiet"]) == 0
     assert "hour band am" in capsys.readouterr().out
     table = pd.read_csv(out / "comparison.csv")
-    run = run_study(study)
-    bases, demand, _, _ = load_inputs(run.study, run.network)
-    stage = coverage_stage(network_at(run.network, "07:30"), bases, demand, run.study.standards[0])
-    assert table["covered_share_before"].iloc[0] == pytest.approx(stage.summary_rows()[0]["covered_share"], rel=1e-12)
-    assert table["covered_share_before"].iloc[0] < run.summary["covered_share"].iloc[0]
+    before = table["covered_share_before"].iloc[0]
+    assert before == pytest.approx(_timed_share(period_run, "07:30"), rel=1e-12)
+    assert before < period_run.summary["covered_share"].iloc[0]
 
 
 def test_isochrones_at_a_peak_hour_reach_less_road(case, tmp_path, capsys):

@@ -343,6 +343,11 @@ def test_bad_units_on_the_command_line_exit_2_and_write_nothing(demo_net_path, t
 
 
 # -- study file -------------------------------------------------------------------------------------------------------
+#: Area grid cell (m) of the test studies: their checks are on point figures, zones from the population raster and
+#: report text, which the grid's cell size does not enter; 200 m keeps the grid small.
+GRID_CELL_M = 200.0
+
+
 def _study(folder: Path, units: str | None, standard: str) -> Path:
     from .conftest import demo_study_head
 
@@ -350,7 +355,7 @@ def _study(folder: Path, units: str | None, standard: str) -> Path:
     text = demo_study_head("units") + (f'[units]\nfile = "{units}"\n' if units else "")
     text += f'[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\n'
     text += f'[[standard]]\nname = "force"\n{standard}\n[outputs]\nisochrone_minutes = [4]\nmaps = false\n'
-    text += "report = false\n"
+    text += f"report = false\ngrid_cell_m = {GRID_CELL_M}\n"
     path.write_text(text)
     return path
 
@@ -738,20 +743,30 @@ def _compare_study(folder: Path, stations: Path, units: Path, standards: str) ->
     head = demo_study_head("units compare").replace(str(DEMO / "stations.csv"), str(stations))
     text = head + f'[units]\nfile = "{units}"\n[[demand]]\nname = "calls"\npoints = "{DEMO / "incidents.csv"}"\n'
     text += 'kind = "incidents"\n' + standards + "[outputs]\nisochrone_minutes = [4]\nmaps = false\nreport = false\n"
+    text += f"grid_cell_m = {GRID_CELL_M}\n"
     path = folder / "study.toml"
     path.write_text(text)
     return path
 
 
-def test_compare_evaluates_unit_standards_and_a_removed_base_takes_its_units(tmp_path, capsys):
+def test_compare_evaluates_unit_standards_and_a_removed_base_takes_its_units(tmp_path, capsys, monkeypatch):
     """Two routes to the after figures: `coverkit compare` with a scenario removing S2 (the what-if's tables, the
     fleet less E2 and M2) against `run_study` on copies of the stations and units files without S2 (bounded tables
     and the k-nearest searches, no what-if), equal point by point. Invariant (design card: removing a base never
     shortens a time): no time falls; and an assignment whose only ladder leaves (S1) is never complete after."""
+    import coverkit.compare_run
     from coverkit.cli import main
     from coverkit.compare_run import compare_study
     from coverkit.study import run_study
 
+    # the command's own comparison is kept (a pass-through wrapper) and checked below, not computed a second time
+    compared = []
+
+    def keep(*args, **kwargs):
+        compared.append(compare_study(*args, **kwargs))
+        return compared[-1]
+
+    monkeypatch.setattr(coverkit.compare_run, "compare_study", keep)
     stations = pd.read_csv(DEMO / "stations.csv")
     units = pd.read_csv(DEMO / "units.csv", dtype={"hours": str})
     study = _compare_study(tmp_path, DEMO / "stations.csv", DEMO / "units.csv", COMPARE_STANDARDS)
@@ -763,7 +778,9 @@ def test_compare_evaluates_unit_standards_and_a_removed_base_takes_its_units(tmp
     table = pd.read_csv(tmp_path / "cmp" / "comparison.csv")
     assert table["standard"].tolist() == ["ALS", "force 10", "plain"]
     assert (tmp_path / "cmp" / "compare_report.html").is_file()
-    run = compare_study(study, scen, tmp_path / "cmp2")
+    monkeypatch.undo()
+    assert len(compared) == 1
+    run = compared[0]
     ref_dir = tmp_path / "ref"
     ref_dir.mkdir()
     stations[stations["id"] != "S2"].to_csv(ref_dir / "stations.csv", index=False)
@@ -781,10 +798,11 @@ def test_compare_evaluates_unit_standards_and_a_removed_base_takes_its_units(tmp
     # S2's calls wait longer for a medic unit and a base; S1's crew of 10 alone is a force of 10, so that one holds
     assert rose["ALS"] > 20 and rose["plain"] > 20
     asg = 'name = "box"\ntravel_s = 900\nassignment = { engine = 1, ladder = 1 }\n'
-    study2 = _compare_study(tmp_path / "cmp2", DEMO / "stations.csv", DEMO / "units.csv", "[[standard]]\n" + asg)
+    (tmp_path / "box").mkdir()
+    study2 = _compare_study(tmp_path / "box", DEMO / "stations.csv", DEMO / "units.csv", "[[standard]]\n" + asg)
     scen1 = tmp_path / "scen1.toml"
     scen1.write_text('[scenario]\nname = "S1 closes"\n[[base_change]]\nremove = "S1"\n')
-    box = compare_study(study2, scen1, tmp_path / "cmp3")
+    box = compare_study(study2, scen1, tmp_path / "box" / "out")
     before, after = box.before[("box", "calls")].demand, box.after[("box", "calls")].demand
     assert before["covered"].sum() > 100 and not after["covered"].any() and np.isinf(after["travel_s"]).all()
     assert "no unit left of type command, ladder: their arrivals never come" in box.changes.lines()

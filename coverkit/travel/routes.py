@@ -15,6 +15,7 @@ of operations is the depth of the deepest route, not the number of routes).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -125,47 +126,105 @@ def shortest_routes(
         from coverkit.travel.turn_routes import shortest_turn_routes
 
         return shortest_turn_routes(net, sources, targets, source_index, target_index, chunk_size, limit_s=limit_s)
-    n, n_pairs = net.n_nodes, len(source_index)
-    run = run_s(net)
+    n = net.n_nodes
     edge_key, edge_of_key = _edge_lookup(net)
     start = _start_arcs(net, sources)
-
     t_pt, t_node, t_add = exits(net, targets, "out", states=False)
-    t_edge, t_frac = targets.entry_edge, targets.entry_frac
-    t_count = np.bincount(t_pt, minlength=len(targets))
-    t_ptr = np.concatenate([[0], np.cumsum(t_count)])
+    layout = ExitLayout(t_pt, t_node, t_add, targets.entry_edge, targets.entry_frac)
 
+    def walk(use: _UseParts, pred: np.ndarray, ent: np.ndarray, row_local: np.ndarray, row_pair: np.ndarray) -> None:
+        # a node-graph route reaches its target's edge at the edge's start node
+        cur = net.u[layout.edge[ent]]
+        _walk_back(use, pred, (cur, row_local, row_pair), source_index, n, start, edge_key, edge_of_key)
+
+    return walked_routes(net, sources, targets, source_index, target_index, chunk_size, limit_s, layout, walk)
+
+
+@dataclass(frozen=True)
+class ExitLayout:
+    """How an outbound search reaches the target points, one row per exit entry (sorted by point).
+
+    Attributes
+    ----------
+    point
+        Target point index of the entry.
+    vertex
+        Search-graph column the entry is read from (a node, or a turn-graph vertex when turns are modelled).
+    add_s
+        Time (s) added to the vertex's time to reach the point.
+    edge
+        Edge the route drives in part to reach the point (-1: none, the point stands at the vertex).
+    share
+        Share of that edge's running time driven.
+    """
+
+    point: np.ndarray
+    vertex: np.ndarray
+    add_s: np.ndarray
+    edge: np.ndarray
+    share: np.ndarray
+
+
+#: ``walk(use, pred, entry, local source row, pair)``: add to ``use`` the edges of each route, from its source to
+#: the vertex of its exit entry (``entry`` indexes the :class:`ExitLayout`), read back from the predecessor block.
+PathWalk = Callable[["_UseParts", np.ndarray, np.ndarray, np.ndarray, np.ndarray], None]
+
+
+def walked_routes(
+    net: RoadNetwork,
+    sources: Snapped,
+    targets: Snapped,
+    source_index: np.ndarray,
+    target_index: np.ndarray,
+    chunk_size: int | None,
+    limit_s: float,
+    layout: ExitLayout,
+    walk: PathWalk,
+) -> Routes:
+    """Shortest routes for the pairs, chunk of sources by chunk: the bookkeeping shared by the node graph and the
+    turn-aware graph, which differ only in ``layout`` (their exits) and ``walk`` (how a path is read back).
+
+    Per chunk: each pair's cheapest exit; the direct trip along a shared edge when it is no slower (it passes no
+    node, so it wins ties); otherwise the partial edge reaching the target plus the walked path. ``turn_s`` is left
+    None (the turn-aware caller fills it).
+    """
+    n_pairs = len(source_index)
+    t_count = np.bincount(layout.point, minlength=len(targets))
+    t_ptr = np.concatenate([[0], np.cumsum(t_count)])
     time_s = np.full(n_pairs, np.inf)
     direct = np.zeros(n_pairs, dtype=bool)
     use = _UseParts()
-
-    direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run)
-
+    direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run_s(net))
     usable = sources.on_network[source_index] & targets.on_network[target_index]
     chunks = node_time_blocks(
-        net, sources, limit_s, "out", chunk_size, only=np.unique(source_index[usable]), predecessors=True
+        net,
+        sources,
+        limit_s,
+        "out",
+        chunk_size,
+        only=np.unique(source_index[usable]),
+        predecessors=True,
+        states=True,
     )
     for src, dist, pred in chunks:
         local = np.full(len(sources), -1, dtype=np.int64)
         local[src] = np.arange(len(src))
-
         pairs = np.flatnonzero(usable & (local[source_index] >= 0))
         ls = local[source_index[pairs]]
-        best, best_s = _best_exits(dist, ls, target_index[pairs], t_count, t_ptr, t_node, t_add)
+        best, best_s = _best_exits(dist, ls, target_index[pairs], t_count, t_ptr, layout.vertex, layout.add_s)
         # the direct trip along a shared edge wins ties: it passes no node
         use_direct = direct_s[pairs] <= best_s
         net_ok = np.isfinite(best_s) & ~use_direct
         time_s[pairs] = np.minimum(best_s, direct_s[pairs])
         direct[pairs[use_direct]] = True
-
         dp = pairs[use_direct]
         use.add(dp, direct_edge[dp], direct_share[dp], np.zeros(len(dp)))
-
         p_idx = np.flatnonzero(net_ok)
-        e_end = t_edge[best[p_idx]]
-        use.add(pairs[p_idx], e_end, t_frac[best[p_idx]], np.zeros(len(p_idx)))
-        walk = (net.u[e_end], ls[p_idx], pairs[p_idx])
-        _walk_back(use, pred, walk, source_index, n, start, edge_key, edge_of_key)
+        ent = best[p_idx]
+        partial = layout.edge[ent] >= 0
+        rows = pairs[p_idx][partial]
+        use.add(rows, layout.edge[ent][partial], layout.share[ent][partial], np.zeros(len(rows)))
+        walk(use, pred, ent, ls[p_idx], pairs[p_idx])
 
     run_use, delay_use = use.matrices(n_pairs, net.n_edges)
     return Routes(
@@ -320,4 +379,4 @@ def _direct_trips(
     return out_s, out_e, out_w
 
 
-__all__ = ["Routes", "shortest_routes"]
+__all__ = ["ExitLayout", "PathWalk", "Routes", "shortest_routes", "walked_routes"]

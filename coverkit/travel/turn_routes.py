@@ -11,6 +11,8 @@ rest of the source's edge. What the edges do not account for is the turns' cost,
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
 from coverkit.network.model import MIN_EDGE_S, RoadNetwork
@@ -127,46 +129,23 @@ def edge_of_vertex(net: RoadNetwork):
 def shortest_turn_routes(net, sources, targets, source_index, target_index, chunk_size=None, *, limit_s=np.inf):
     """:func:`coverkit.travel.routes.shortest_routes` on the turn-aware graph (same arguments and result, with
     ``turn_s`` filled)."""
-    from coverkit.travel.routes import Routes, _best_exits, _direct_trips, _UseParts
-    from coverkit.travel.search import _chunked_search, run_s
+    from coverkit.travel.routes import ExitLayout, walked_routes
 
-    n_pairs = len(source_index)
     m = turns.turn_structure(net).out.shape[0]
-    t_pt, t_vx, t_add, t_edge, t_share = turn_exits(net, targets)
-    t_count = np.bincount(t_pt, minlength=len(targets))
-    t_ptr = np.concatenate([[0], np.cumsum(t_count)])
+    layout = ExitLayout(*turn_exits(net, targets))
     start = start_arcs(net, sources)
     edge_of = edge_of_vertex(net)
-    time_s = np.full(n_pairs, np.inf)
-    direct = np.zeros(n_pairs, dtype=bool)
-    use = _UseParts()
-    direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run_s(net))
-    usable = sources.on_network[source_index] & targets.on_network[target_index]
-    only = np.unique(source_index[usable])
-    for src, dist, pred in _chunked_search(net, sources, limit_s, "out", chunk_size, m, only, True):
-        local = np.full(len(sources), -1, dtype=np.int64)
-        local[src] = np.arange(len(src))
-        pairs = np.flatnonzero(usable & (local[source_index] >= 0))
-        ls = local[source_index[pairs]]
-        best, best_s = _best_exits(dist, ls, target_index[pairs], t_count, t_ptr, t_vx, t_add)
-        use_direct = direct_s[pairs] <= best_s
-        net_ok = np.isfinite(best_s) & ~use_direct
-        time_s[pairs] = np.minimum(best_s, direct_s[pairs])
-        direct[pairs[use_direct]] = True
-        dp = pairs[use_direct]
-        use.add(dp, direct_edge[dp], direct_share[dp], np.zeros(len(dp)))
-        p_idx = np.flatnonzero(net_ok)
-        ent = best[p_idx]
-        partial = t_edge[ent] >= 0
-        use.add(pairs[p_idx][partial], t_edge[ent][partial], t_share[ent][partial], np.zeros(int(partial.sum())))
-        exit_vx = t_vx[ent]
-        walk = (pred[ls[p_idx], exit_vx], exit_vx, ls[p_idx], pairs[p_idx], edge_of)
-        walk_back(use, pred, walk, source_index, start, m)
-    run_use, delay_use = use.matrices(n_pairs, net.n_edges)
-    found = np.isfinite(time_s)
-    edges_s = run_use @ run_s_finite(net) + delay_use @ np.asarray(net.edge_values("delay_s"), dtype=float)
-    turn_s = np.where(found & ~direct, np.maximum(time_s - edges_s, 0.0), 0.0)
-    return Routes(source_index, target_index, found, time_s, run_use, delay_use, direct, turn_s=turn_s)
+
+    def walk(use, pred, ent, row_local, row_pair) -> None:
+        # the exit vertex is the target's edge state (or junction vertex): its edge is the layout's partial edge
+        exit_vx = layout.vertex[ent]
+        walk_back(use, pred, (pred[row_local, exit_vx], exit_vx, row_local, row_pair, edge_of), source_index, start, m)
+
+    routes = walked_routes(net, sources, targets, source_index, target_index, chunk_size, limit_s, layout, walk)
+    delay_s = np.asarray(net.edge_values("delay_s"), dtype=float)
+    edges_s = routes.run_use @ run_s_finite(net) + routes.delay_use @ delay_s
+    turn_s = np.where(routes.found & ~routes.direct, np.maximum(routes.time_s - edges_s, 0.0), 0.0)
+    return dataclasses.replace(routes, turn_s=turn_s)
 
 
 def run_s_finite(net: RoadNetwork) -> np.ndarray:
