@@ -276,6 +276,22 @@ def case_isochrones_cli(args: argparse.Namespace) -> None:
             f"isochrones 90k: new {n['wall_s']:.2f} s / old {o['wall_s']:.2f} s = {n['wall_s'] / o['wall_s']:.2f}; "
             f"CPU new {n['cpu_s']:.2f} s / old {o['cpu_s']:.2f} s = {n['cpu_s'] / o['cpu_s']:.2f}  (target <= 2 s)"
         )
+        # the floor: what any such command pays (new code), step by step in one fresh process, best of three each
+        floor: dict[str, list[float]] = {}
+        for k in range(3):
+            out = str(Path(tmp) / f"floor{k}.gpkg")
+            proc = subprocess.run(
+                [sys.executable, "-c", FLOOR_CHILD, str(gpkg), str(bases), out],
+                capture_output=True,
+                text=True,
+                env=dict(os.environ, PYTHONPATH=str(REPO)),
+                check=True,
+            )
+            for step, wall_cpu in json.loads(proc.stdout.strip().splitlines()[-1]).items():
+                floor.setdefault(step, []).append(wall_cpu)
+        print("steps of one run, best of three (wall s / CPU s):")
+        for step, values in floor.items():
+            print(f"  {step:<58}{min(v[0] for v in values):6.2f} /{min(v[1] for v in values):5.2f}")
 
 
 TIMED_CHILD = """
@@ -287,6 +303,39 @@ if proc.returncode:
     sys.exit(proc.stderr[-2000:])
 use = resource.getrusage(resource.RUSAGE_CHILDREN)
 print(json.dumps({"wall_s": wall, "cpu_s": use.ru_utime + use.ru_stime, "peak_mb": use.ru_maxrss / 1024}))
+"""
+
+
+FLOOR_CHILD = """
+import json, sys, time
+steps, last = {}, (time.perf_counter(), time.process_time())
+def lap(step):
+    global last
+    now = (time.perf_counter(), time.process_time())
+    steps[step] = (now[0] - last[0], now[1] - last[1])
+    last = now
+import numpy, scipy.sparse.csgraph, shapely, pyproj, pyogrio
+lap("import numpy, scipy.sparse.csgraph, shapely, pyproj, pyogrio")
+import numba
+lap("import numba")
+from coverkit.travel.kernels import _seg_dist
+_seg_dist(0.0, 0.0, 0.0, 0.0, 1.0, 1.0)
+lap("numba start-up (first call of one cached kernel)")
+from coverkit.cli.options import network_and_bases
+from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons
+from coverkit.progress import set_quiet
+set_quiet(True)
+lap("import the rest of coverkit's command")
+from types import SimpleNamespace
+args = SimpleNamespace(network=sys.argv[1], bases=sys.argv[2], id_field="id", at=None)
+net, bases = network_and_bases(args)
+lap("load the network (columnar copy), read and project the bases")
+polygons = drive_time_polygons(net, bases, [4.0, 8.0, 12.0])
+lap("drive-time polygons (first call: kernels loaded from numba's cache)")
+summary_table(polygons)
+write_polygons(polygons, sys.argv[3])
+lap("table and GeoPackage")
+print(json.dumps(steps))
 """
 
 
