@@ -8,17 +8,31 @@ message is printed as one line, with the flag in place of the library parameter 
 from __future__ import annotations
 
 import argparse
-import gc
 import os
 import sys
 from collections.abc import Callable, Sequence
 
 from coverkit import CAUTION, __version__
-from coverkit.cli import availability, calibrate, compare, cover, demo, isochrones, network, run, serve, simulate, site
-from coverkit.cli.options import Parser, flag_for
-from coverkit.compute import runner_for
-from coverkit.errors import CoverkitError
-from coverkit.progress import set_quiet
+from coverkit.cli.startup import collections_paused, freeze
+
+with collections_paused():  # the sub-commands' modules bring numpy, scipy, pandas and geopandas
+    from coverkit.cli import (
+        availability,
+        calibrate,
+        compare,
+        cover,
+        demo,
+        isochrones,
+        network,
+        run,
+        serve,
+        simulate,
+        site,
+    )
+    from coverkit.cli.options import Parser, flag_for
+    from coverkit.compute import runner_for
+    from coverkit.errors import CoverkitError
+    from coverkit.progress import set_quiet
 
 #: the sub-command modules, in the order ``coverkit --help`` lists them
 MODULES = (network, isochrones, cover, site, availability, calibrate, compare, run, demo, serve, simulate)
@@ -44,18 +58,16 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``coverkit`` command: the exit status of the sub-command (``argv``: the arguments, default
     the command line's)."""
-    status = _run(argv)
-    if argv is None:
-        # run as the program (both entry points pass no arguments; callers in Python pass them), so the process
-        # ends next: its final garbage collections would walk every object of the loaded libraries (numba's typing
-        # tables, pandas, scipy) for 0.4-0.8 s on a 2-core machine. Frozen objects are skipped; exit handlers, thread
-        # joins and the removal of temporary files still run.
-        gc.freeze()
+    program = argv is None  # both entry points pass no arguments; callers in Python pass them
+    status = _run(argv, program)
+    if program:
+        freeze()  # the process ends next: its final collections skip the frozen objects (coverkit.cli.startup)
     return status
 
 
-def _run(argv: Sequence[str] | None) -> int:
-    """Parse ``argv`` and run the sub-command; its exit status (2 for bad input, with a one-line message)."""
+def _run(argv: Sequence[str] | None, program: bool) -> int:
+    """Parse ``argv`` and run the sub-command; its exit status (2 for bad input, with a one-line message). For a
+    ``program`` run, the objects of the libraries loaded so far are frozen first (see :mod:`coverkit.cli.startup`)."""
     parser = build_parser()
     args, extra = parser.parse_known_args(argv)
     if extra:
@@ -68,6 +80,8 @@ def _run(argv: Sequence[str] | None) -> int:
     try:
         if getattr(args, "workers", None) is not None and args.workers < 1:
             raise CoverkitError("must be >= 1 (local Dask worker processes).", param="workers")
+        if program:
+            freeze()
         with runner_for(scheduler=getattr(args, "scheduler", None), workers=getattr(args, "workers", None)):
             return COMMANDS[args.command](args)
     except CoverkitError as exc:
