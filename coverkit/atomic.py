@@ -58,6 +58,14 @@ def unsynced_gpkg() -> Iterator[None]:
     The temporary file is renamed only when complete and is removed after a failure, so the syncs protect nothing
     a reader can see; the file's content is the same. The process-wide GDAL setting is restored when the last of
     several threads inside leaves.
+
+    >>> import pyogrio
+    >>> before = pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS")
+    >>> with unsynced_gpkg():  # pyogrio reads GDAL's ON/OFF as booleans
+    ...     pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS")
+    False
+    >>> pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS") == before
+    True
     """
     import pyogrio
 

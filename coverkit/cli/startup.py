@@ -21,7 +21,16 @@ _PAUSE = {"lock": threading.Lock(), "depth": 0, "was_enabled": True}
 
 @contextlib.contextmanager
 def collections_paused() -> Iterator[None]:
-    """No garbage collection while inside (around imports of large libraries); the previous state after."""
+    """No garbage collection while inside (around imports of large libraries); the previous state after.
+
+    >>> import gc
+    >>> before = gc.isenabled()
+    >>> with collections_paused():
+    ...     gc.isenabled()
+    False
+    >>> gc.isenabled() == before
+    True
+    """
     with _PAUSE["lock"]:
         if _PAUSE["depth"] == 0:
             _PAUSE["was_enabled"] = gc.isenabled()
