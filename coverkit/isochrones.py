@@ -42,7 +42,7 @@ import pandas as pd
 import shapely
 
 from coverkit import settings
-from coverkit.atomic import atomic_path
+from coverkit.atomic import atomic_path, unsynced_gpkg
 from coverkit.errors import PARAM, CoverkitError
 from coverkit.network.model import RoadNetwork
 from coverkit.polygon_kernels import (
@@ -359,7 +359,7 @@ def write_polygons(polygons: gpd.GeoDataFrame, path: str | Path) -> Path:
     path = Path(path)
     by_base = polygons[polygons["base_id"] != ANY_BASE_ID]
     anyb = polygons[polygons["base_id"] == ANY_BASE_ID]
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, unsynced_gpkg():
         by_base.to_file(tmp, layer=layer_name("reach_by_base"), driver="GPKG")
         if len(anyb):
             anyb.to_file(tmp, layer=layer_name("reach_any_base"), driver="GPKG", mode="a")

@@ -13,11 +13,26 @@ import sys
 from collections.abc import Callable, Sequence
 
 from coverkit import CAUTION, __version__
-from coverkit.cli import availability, calibrate, compare, cover, demo, isochrones, network, run, serve, simulate, site
-from coverkit.cli.options import Parser, flag_for
-from coverkit.compute import runner_for
-from coverkit.errors import CoverkitError
-from coverkit.progress import set_quiet
+from coverkit.cli.startup import collections_paused, freeze
+
+with collections_paused():  # the sub-commands' modules bring numpy, scipy, pandas and geopandas
+    from coverkit.cli import (
+        availability,
+        calibrate,
+        compare,
+        cover,
+        demo,
+        isochrones,
+        network,
+        run,
+        serve,
+        simulate,
+        site,
+    )
+    from coverkit.cli.options import Parser, flag_for
+    from coverkit.compute import runner_for
+    from coverkit.errors import CoverkitError
+    from coverkit.progress import set_quiet
 
 #: the sub-command modules, in the order ``coverkit --help`` lists them
 MODULES = (network, isochrones, cover, site, availability, calibrate, compare, run, demo, serve, simulate)
@@ -41,7 +56,18 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Entry point of the ``coverkit`` command."""
+    """Entry point of the ``coverkit`` command: the exit status of the sub-command (``argv``: the arguments, default
+    the command line's)."""
+    program = argv is None  # both entry points pass no arguments; callers in Python pass them
+    status = _run(argv, program)
+    if program:
+        freeze()  # the process ends next: its final collections skip the frozen objects (coverkit.cli.startup)
+    return status
+
+
+def _run(argv: Sequence[str] | None, program: bool) -> int:
+    """Parse ``argv`` and run the sub-command; its exit status (2 for bad input, with a one-line message). For a
+    ``program`` run, the objects of the libraries loaded so far are frozen first (see :mod:`coverkit.cli.startup`)."""
     parser = build_parser()
     args, extra = parser.parse_known_args(argv)
     if extra:
@@ -54,6 +80,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         if getattr(args, "workers", None) is not None and args.workers < 1:
             raise CoverkitError("must be >= 1 (local Dask worker processes).", param="workers")
+        if program:
+            freeze()
         with runner_for(scheduler=getattr(args, "scheduler", None), workers=getattr(args, "workers", None)):
             return COMMANDS[args.command](args)
     except CoverkitError as exc:

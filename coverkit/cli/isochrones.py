@@ -63,7 +63,10 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``coverkit isochrones`` on the parsed ``args``; the exit status (0)."""
-    from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons, write_travel_surface
+    from coverkit.cli.startup import collections_paused
+
+    with collections_paused():  # numba, for the compiled polygon kernels
+        from coverkit.isochrones import drive_time_polygons, summary_table, write_polygons, write_travel_surface
 
     net, bases = network_and_bases(args)
     if args.unit_type is not None:

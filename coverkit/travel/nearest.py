@@ -13,10 +13,14 @@ unseen sub-segment can be closer). Points that fail this check go to the STRtree
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 import shapely
-from scipy.spatial import cKDTree
+
+if TYPE_CHECKING:  # imported where a tree is built: scipy.spatial costs a tenth of a second to import, and the
+    # snap kernels (coverkit.travel.grid_index) use this module's distances without any tree
+    from scipy.spatial import cKDTree
 
 #: Longest sub-segment (m). Shorter means more midpoints but fewer candidates needed per point.
 MAX_SUBSEGMENT_M = 50.0
@@ -72,6 +76,8 @@ def cut_segments_compiled(coords: np.ndarray, owner: np.ndarray, max_len_m: floa
 
 def segment_index(geoms: np.ndarray, max_len_m: float = MAX_SUBSEGMENT_M) -> SegmentIndex:
     """Cut line geometries into straight sub-segments of at most ``max_len_m`` and index their midpoints."""
+    from scipy.spatial import cKDTree
+
     coords, owner = shapely.get_coordinates(geoms, return_index=True)
     sa, sb, piece = cut_segments(coords, owner, max_len_m)
     return SegmentIndex(sa, sb, piece, float(max_len_m), cKDTree((sa + sb) / 2.0))
