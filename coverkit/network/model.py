@@ -585,13 +585,15 @@ def _write_gpkg(tmp: Path, nodes, edges, info_df: pd.DataFrame, bans: pd.DataFra
     ``nodes`` and ``edges`` are :class:`~coverkit.gpkg_batches.LayerRows`: the two big layers go to GDAL as
     Arrow batches, the small ones feature by feature.
     """
+    from coverkit.atomic import unsynced_gpkg
     from coverkit.gpkg_batches import write_layer
 
-    write_layer(nodes, tmp, layer="nodes")
-    write_layer(edges, tmp, layer="edges", append=True)
-    pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
-    if bans is not None and len(bans):
-        pyogrio.write_dataframe(pd.DataFrame(bans), tmp, layer=BANS_LAYER, driver="GPKG", append=True)
+    with unsynced_gpkg():  # a temporary file, renamed into place only when complete
+        write_layer(nodes, tmp, layer="nodes")
+        write_layer(edges, tmp, layer="edges", append=True)
+        pyogrio.write_dataframe(info_df, tmp, layer=INFO_LAYER, driver="GPKG", append=True)
+        if bans is not None and len(bans):
+            pyogrio.write_dataframe(pd.DataFrame(bans), tmp, layer=BANS_LAYER, driver="GPKG", append=True)
 
 
 def _fork(job: Callable[[], None]) -> int | None:
