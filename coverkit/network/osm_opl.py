@@ -19,6 +19,15 @@ import re
 import numpy as np
 import pandas as pd
 
+from coverkit.network.opl_kernels import (
+    NO_LOCATION,
+    OK,
+    distinct_sorted_kernel,
+    factorize_fields_kernel,
+    ints_kernel,
+    line_fields_kernel,
+    way_nodes_kernel,
+)
 from coverkit.network.osm_restrictions import GATE_BARRIERS, restrictions_frame
 from coverkit.network.osm_ways import WAY_TAGS, OsmWays, gates_frame, tags_frame
 from coverkit.network.profile import ACCESS_KEYS
@@ -32,51 +41,39 @@ COORDINATE_PRECISION = 10_000_000
 def parse_highway_opl(text: bytes) -> OsmWays:
     """Ways (sorted by id), their located node references and the traffic-signal node ids from OPL ``text``."""
     buf = np.frombuffer(text, dtype=np.uint8)
-    line_end = np.flatnonzero(buf == _NEWLINE)
-    if len(buf) and buf[-1] != _NEWLINE:
-        line_end = np.append(line_end, len(buf))
-    line_start = np.concatenate([[0], line_end[:-1] + 1])
-    nonempty = line_end > line_start
-    line_start, line_end = line_start[nonempty], line_end[nonempty]
-    spaces = np.flatnonzero(buf == _SPACE)
-    # the first two field separators of each line: after the id, after the tags
-    first_sp = np.searchsorted(spaces, line_start)
+    line_start, line_end, sp1, sp2 = line_fields_kernel(buf)
     kind = buf[line_start]
     ways = kind == ord("w")
-    nodes = kind == ord("n")
-
-    w_start, w_end = line_start[ways], line_end[ways]
-    w_sp1 = spaces[first_sp[ways]]
-    w_sp2 = spaces[first_sp[ways] + 1]
-    tags = tags_frame_from_fields(text, w_sp1 + 2, w_sp2, WAY_TAGS)
+    w_codes, w_table = _tag_table(text, buf, sp1[ways] + 2, sp2[ways], WAY_TAGS)
     # ways kept for other keys (a fence's barrier) are not roads
-    road = tags["highway"].notna().to_numpy()
-    w_start, w_end, w_sp1, w_sp2 = w_start[road], w_end[road], w_sp1[road], w_sp2[road]
-    tags = tags[road].reset_index(drop=True)
-    way_id = parse_ints(buf, w_start + 1, w_sp1)
-    refs, lon_e7, lat_e7, count = _way_nodes(buf, w_sp2 + 2, w_end)
+    road = w_table["highway"].notna().to_numpy()[w_codes]
+    w_codes = w_codes[road]
+    tags = w_table.iloc[w_codes].reset_index(drop=True) if len(w_codes) else w_table.iloc[:0]
+    del w_codes, w_table
+    w_start, w_sp1 = line_start[ways][road], sp1[ways][road]
+    way_id = ints_kernel(buf, w_start + 1, w_sp1)
+    refs, lon_e7, lat_e7, count = way_nodes(buf, sp2[ways][road] + 2, line_end[ways][road])
 
-    n_start = line_start[nodes]
-    n_sp1 = spaces[first_sp[nodes]]
-    n_sp2 = spaces[first_sp[nodes] + 1]
-    node_tags = tags_frame_from_fields(text, n_sp1 + 2, n_sp2, ("highway", "barrier", *ACCESS_KEYS))
-    n_ids = parse_ints(buf, n_start + 1, n_sp1)
-    signal = node_tags["highway"].to_numpy(dtype=object) == "traffic_signals"
+    nodes = kind == ord("n")
+    n_codes, n_table = _tag_table(text, buf, sp1[nodes] + 2, sp2[nodes], ("highway", "barrier", *ACCESS_KEYS))
+    n_ids = ints_kernel(buf, line_start[nodes] + 1, sp1[nodes])
+    signal = (n_table["highway"].to_numpy(dtype=object) == "traffic_signals")[n_codes]
     signal_ids = np.unique(n_ids[signal])
-    gate = node_tags["barrier"].isin(sorted(GATE_BARRIERS)).to_numpy()
-    gates = gates_frame(n_ids[gate].tolist(), node_tags[gate].to_dict("records"))
+    gate = n_table["barrier"].isin(sorted(GATE_BARRIERS)).to_numpy()[n_codes]
+    gate_tags = n_table.iloc[n_codes[gate]].to_dict("records")
+    gates = gates_frame(n_ids[gate].tolist(), gate_tags)
     restrictions = restrictions_frame(_relations(text, line_start[kind == ord("r")], line_end[kind == ord("r")]))
 
-    offsets = np.concatenate([[0], np.cumsum(count)]).astype(np.int64)
     order = np.argsort(way_id, kind="stable")
     if not np.all(order == np.arange(len(order))):
         # PBF files are sorted by id by convention; reorder if one is not, to keep the output deterministic
+        offsets = np.concatenate([[0], np.cumsum(count)]).astype(np.int64)
         take = _ranges(offsets[:-1][order], count[order])
         refs, lon_e7, lat_e7 = refs[take], lon_e7[take], lat_e7[take]
         count, way_id = count[order], way_id[order]
         tags = tags.iloc[order].reset_index(drop=True)
-        offsets = np.concatenate([[0], np.cumsum(count)]).astype(np.int64)
-    node_id, first = np.unique(refs, return_index=True)
+    offsets = np.concatenate([[0], np.cumsum(count)]).astype(np.int64)
+    node_id, first, ref_node = _unique_nodes(refs)
     return OsmWays(
         way_id=way_id,
         tags=tags,
@@ -88,7 +85,34 @@ def parse_highway_opl(text: bytes) -> OsmWays:
         signal_ids=signal_ids,
         restrictions=restrictions,
         gates=gates,
+        ref_node=ref_node,
     )
+
+
+def _unique_nodes(refs: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sorted distinct ``refs``, the first position of each and the place of every reference among them.
+
+    The first two are ``np.unique(refs, return_index=True)`` (the same stable sort); the third, its inverse, comes
+    from the same sort instead of a later search.
+    """
+    order = np.argsort(refs, kind="stable")
+    ref_node = np.empty(len(refs), dtype=np.int32 if len(refs) < np.iinfo(np.int32).max else np.int64)
+    node_id, first = distinct_sorted_kernel(refs, order, ref_node)
+    return node_id, first, ref_node
+
+
+def way_nodes(buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Located references of the ``N`` fields ``buf[lo:hi]``: ids, lon and lat (1e-7 degree, int32), count per way.
+
+    The compiled one-pass form of :func:`way_nodes_numpy` (same values). References without a location are left
+    out (as the earlier reader did), so counts are of located ones.
+    """
+    refs, lon_e7, lat_e7, count, status = way_nodes_kernel(buf, lo.astype(np.int64), hi.astype(np.int64))
+    if status == NO_LOCATION:
+        raise ValueError("OPL way node list without locations; write it with locations_on_ways=true")
+    if status != OK:
+        raise ValueError("OPL way node coordinate with more than seven decimals or beyond 214.7 degrees")
+    return refs, lon_e7, lat_e7, count
 
 
 def _relations(text: bytes, lo: np.ndarray, hi: np.ndarray) -> list[dict]:
@@ -112,10 +136,11 @@ def _ranges(start: np.ndarray, count: np.ndarray) -> np.ndarray:
     return np.repeat(start - np.cumsum(count) + count, count) + np.arange(total)
 
 
-def _way_nodes(buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, ...]:
+def way_nodes_numpy(buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, ...]:
     """Located references of the ``N`` fields ``buf[lo:hi]``: ids, lon and lat (1e-7 degree), count per way.
 
-    References without a location are left out (as the earlier reader did), so counts are of located ones.
+    The numpy reference of :func:`way_nodes` (the tests hold the kernel to it): a mask and a position array per
+    separator character, one digit column per pass of the number parsers.
     """
     n_pos, x_pos, y_pos = (_inside(np.flatnonzero(buf == ord(c)), lo, hi) for c in "nxy")
     if not (len(n_pos) == len(x_pos) == len(y_pos)):
@@ -177,16 +202,23 @@ def parse_fixed_e7(buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarra
 
 
 def tags_frame_from_fields(text: bytes, lo: np.ndarray, hi: np.ndarray, keys: tuple[str, ...]) -> pd.DataFrame:
-    """The tags ``keys`` of each ``T`` field ``text[lo:hi]`` (None where absent).
+    """The tags ``keys`` of each ``T`` field ``text[lo:hi]`` (None where absent)."""
+    codes, table = _tag_table(text, np.frombuffer(text, dtype=np.uint8), lo, hi, keys)
+    return table.iloc[codes].reset_index(drop=True) if len(codes) else table.iloc[:0]
+
+
+def _tag_table(
+    text: bytes, buf: np.ndarray, lo: np.ndarray, hi: np.ndarray, keys: tuple[str, ...]
+) -> tuple[np.ndarray, pd.DataFrame]:
+    """The distinct ``T`` fields ``text[lo:hi]`` as a table of the tags ``keys`` (object columns, None where absent)
+    and the row of each field in it (numbered in order of first appearance).
 
     Ways share few distinct tag sets (a street's pieces repeat its tags), so each distinct field is decoded once.
     """
-    fields = [text[a:b] for a, b in zip(lo.tolist(), hi.tolist(), strict=True)]
-    codes, uniques = pd.factorize(pd.Series(fields, dtype=object), sort=False)
-    rows = [_decode_tags(field) for field in uniques]
+    codes, first = factorize_fields_kernel(buf, np.asarray(lo, dtype=np.int64), np.asarray(hi, dtype=np.int64))
+    rows = [_decode_tags(text[lo[i] : hi[i]]) for i in first.tolist()]
     table = tags_frame(rows) if keys == WAY_TAGS else pd.DataFrame({k: [r.get(k) for r in rows] for k in keys})
-    table = table.astype(object)
-    return table.iloc[codes].reset_index(drop=True) if len(codes) else table.iloc[:0]
+    return codes, table.astype(object)
 
 
 def _decode_tags(field: bytes) -> dict[str, str]:

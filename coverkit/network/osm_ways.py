@@ -16,6 +16,7 @@ from pyproj import CRS
 from coverkit.network.osm_restrictions import READ_COLUMNS
 from coverkit.network.profile import ACCESS_KEYS, Profile
 from coverkit.network.raw import SEGMENT_COLUMNS, RawRoads
+from coverkit.network.way_kernels import segment_vertices_kernel, segments_kernel
 
 #: Way tags kept from OSM (``motor_vehicle`` refines ``access`` for cars and trucks).
 WAY_TAGS = (
@@ -64,6 +65,10 @@ class OsmWays:
         Turn restrictions as read (:data:`coverkit.network.osm_restrictions.READ_COLUMNS`).
     gates
         Gate nodes: ``node_id`` and the access tags :data:`coverkit.network.profile.ACCESS_KEYS` (None where absent).
+    ref_node
+        Optional, shape (R,): the place of each reference in ``node_id`` (-1 where not located), from a reader that
+        knows it already (the PBF reader gets it from the sort that makes ``node_id``); None to have
+        :func:`ways_to_roads` look the references up.
     """
 
     way_id: np.ndarray
@@ -76,6 +81,7 @@ class OsmWays:
     signal_ids: np.ndarray
     restrictions: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=list(READ_COLUMNS)))
     gates: pd.DataFrame = field(default_factory=lambda: gates_frame([], []))
+    ref_node: np.ndarray | None = None
 
 
 def gates_frame(node_ids: list[int], tags: list[dict]) -> pd.DataFrame:
@@ -98,7 +104,7 @@ def access_value(tags: pd.DataFrame, profile: Profile) -> tuple[np.ndarray, np.n
             continue
         col = tags[k]
         has = col.notna().to_numpy()
-        value[has] = col[has].astype(str).str.lower().to_numpy()
+        value[has] = _lower_text(col[has])
         key[has] = k
     return value, key
 
@@ -131,8 +137,19 @@ def drivable_mask(tags: pd.DataFrame, profile: Profile) -> tuple[np.ndarray, np.
 
 
 def _yes(values: pd.Series) -> np.ndarray:
-    text = values.fillna("").astype(str).str.lower().to_numpy()
+    text = _lower_text(values.fillna(""))
     return ~np.isin(text, np.array(["", "no", "0", "false"], dtype=object))
+
+
+def _lower_text(values: pd.Series) -> np.ndarray:
+    """``values.astype(str).str.lower()`` as an object array, worked once per distinct value.
+
+    Tag columns repeat few distinct values over millions of rows; pandas' string conversion of every row was most
+    of the tag work of a large county.
+    """
+    codes, uniques = pd.factorize(values, use_na_sentinel=False)
+    lowered = pd.Series(np.asarray(uniques, dtype=object), dtype=object).astype(str).str.lower().to_numpy(object)
+    return lowered[codes]
 
 
 def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
@@ -143,101 +160,45 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     ending there). References to nodes missing from the file are skipped; a way left with fewer than two located
     nodes is unusable and counted.
     """
-    n_ways = len(ways.way_id)
     road, closed = drivable_mask(ways.tags, profile)
     keep_way = road & ~closed
     stats = {
-        "ways_read": int(n_ways),
+        "ways_read": len(ways.way_id),
         "ways_not_road": int((~road).sum()),
         "ways_closed_access": int(closed.sum()),
     }
-    lengths = np.diff(ways.offsets)
-    way_of_ref = np.repeat(np.arange(n_ways), lengths)
-    refs = ways.refs
-    # locate references; drop unknown nodes and consecutive duplicates
-    pos = np.searchsorted(ways.node_id, refs)
-    pos = np.clip(pos, 0, max(len(ways.node_id) - 1, 0))
-    located = (len(ways.node_id) > 0) & (ways.node_id[pos] == refs) if len(refs) else np.zeros(0, bool)
-    sel = keep_way[way_of_ref] & located
-    refs, way_of_ref, pos = refs[sel], way_of_ref[sel], pos[sel]
-    dup = np.zeros(len(refs), dtype=bool)
-    dup[1:] = (refs[1:] == refs[:-1]) & (way_of_ref[1:] == way_of_ref[:-1])
-    refs, way_of_ref, pos = refs[~dup], way_of_ref[~dup], pos[~dup]
-    count_per_way = np.bincount(way_of_ref, minlength=n_ways)
-    usable_way = keep_way & (count_per_way >= 2)
-    stats["ways_unusable"] = int((keep_way & ~usable_way).sum())
-    sel = usable_way[way_of_ref]
-    refs, way_of_ref, pos = refs[sel], way_of_ref[sel], pos[sel]
-    stats["ways_kept"] = int(usable_way.sum())
-
-    is_first = np.ones(len(refs), dtype=bool)
-    is_first[1:] = way_of_ref[1:] != way_of_ref[:-1]
-    is_last = np.ones(len(refs), dtype=bool)
-    is_last[:-1] = way_of_ref[1:] != way_of_ref[:-1]
-    uniq, inverse, counts = np.unique(refs, return_inverse=True, return_counts=True)
-    signal_node = np.isin(uniq, ways.signal_ids)
+    way_of_ref, pos, usable_way = _kept_references(ways, keep_way, stats)
     closed_gates = _closed_gates(ways.gates, profile)
     stats["gates_read"] = len(ways.gates)
     stats["gates_closed"] = len(closed_gates)
+    signal_node = np.isin(ways.node_id, ways.signal_ids)
     # a closed gate becomes a graph node so that the road pieces it closes end there
-    gate_node = np.isin(uniq, closed_gates)
-    split = is_first | is_last | (counts[inverse] > 1) | signal_node[inverse] | gate_node[inverse]
-
-    starts, ends = _segment_bounds(split, way_of_ref)
-    # a closed loop with no junction on it (a loop road, a lone roundabout) is split at its middle vertex
-    loops = (refs[starts] == refs[ends]) & (ends - starts >= 2)
-    if loops.any():
-        split[(starts[loops] + ends[loops]) // 2] = True
-        starts, ends = _segment_bounds(split, way_of_ref)
-    loops = refs[starts] == refs[ends]
-    stats["segments_self_loop"] = int(loops.sum())
-    starts, ends = starts[~loops], ends[~loops]
+    gate_node = np.isin(ways.node_id, closed_gates)
+    starts, ends, n_loops = segments_kernel(way_of_ref, pos, signal_node | gate_node, len(ways.node_id))
+    stats["segments_self_loop"] = int(n_loops)
     # a closed gate closes the road pieces on both sides of it, up to the next junction
-    gated = np.isin(refs[starts], closed_gates) | np.isin(refs[ends], closed_gates)
-    stats["segments_closed_by_gates"] = int(gated.sum())
-    starts, ends = starts[~gated], ends[~gated]
-
-    n_vert = ends - starts + 1
-    seg_of_vert = np.repeat(np.arange(len(starts)), n_vert)
-    first_of_seg = np.repeat(np.cumsum(n_vert) - n_vert, n_vert)
-    vert = np.repeat(starts, n_vert) + (np.arange(n_vert.sum()) - first_of_seg)
-    coords = np.column_stack([ways.lon[pos[vert]], ways.lat[pos[vert]]])
-    geometry = shapely.linestrings(coords, indices=seg_of_vert) if len(starts) else np.array([], dtype=object)
-
-    seg_way = way_of_ref[starts]
-    tags = ways.tags.iloc[seg_way].reset_index(drop=True)
-    access, _ = access_value(tags, profile)
-    segments = pd.DataFrame(
-        {
-            "u_key": refs[starts].astype(np.int64),
-            "v_key": refs[ends].astype(np.int64),
-            "source_id": ways.way_id[seg_way].astype(np.int64),
-            "highway": tags["highway"].to_numpy(dtype=object),
-            "maxspeed": tags["maxspeed"].to_numpy(dtype=object),
-            "maxspeed_forward": tags["maxspeed:forward"].to_numpy(dtype=object),
-            "maxspeed_backward": tags["maxspeed:backward"].to_numpy(dtype=object),
-            "speed_kph": np.full(len(starts), np.nan),
-            "oneway": tags["oneway"].to_numpy(dtype=object),
-            "junction": tags["junction"].to_numpy(dtype=object),
-            "access": np.where(access == "", None, access),
-            "bridge": _yes(tags["bridge"]),
-            "tunnel": _yes(tags["tunnel"]),
-            # a bridge's own name ("Ferry Bridge") is what a closure names; the road's name otherwise
-            "name": tags["bridge:name"]
-            .where(tags["bridge:name"].notna(), tags["name"])
-            .fillna("")
-            .to_numpy(dtype=object),
-        }
-    )
-    segments = segments.astype({k: v for k, v in SEGMENT_COLUMNS.items() if v != "object"})
-    node_keys = np.unique(np.concatenate([segments["u_key"].to_numpy(), segments["v_key"].to_numpy()]))
-    npos = np.searchsorted(ways.node_id, node_keys)
+    open_seg = ~(gate_node[pos[starts]] | gate_node[pos[ends]])
+    stats["segments_closed_by_gates"] = int((~open_seg).sum())
+    starts, ends = starts[open_seg], ends[open_seg]
+    geometry = np.array([], dtype=object)
+    if len(starts):
+        coords, seg_of_vert = segment_vertices_kernel(ways.lon, ways.lat, pos, starts, ends)
+        geometry = shapely.linestrings(coords, indices=seg_of_vert)
+        del coords, seg_of_vert
+    u_pos, v_pos, seg_way = pos[starts], pos[ends], way_of_ref[starts]
+    del way_of_ref, pos, starts, ends
+    segments = _segment_table(ways, profile, seg_way, ways.node_id[u_pos], ways.node_id[v_pos])
+    # every segment end, in node_id order (node_id is sorted and distinct: this is np.unique of the keys)
+    end_node = np.zeros(len(ways.node_id), dtype=bool)
+    end_node[u_pos] = True
+    end_node[v_pos] = True
+    npos = np.flatnonzero(end_node)
     nodes = pd.DataFrame(
         {
-            "key": node_keys,
-            "x": ways.lon[npos] if len(node_keys) else np.zeros(0),
-            "y": ways.lat[npos] if len(node_keys) else np.zeros(0),
-            "signal": np.isin(node_keys, ways.signal_ids),
+            "key": ways.node_id[npos].astype(np.int64),
+            "x": ways.lon[npos] if len(npos) else np.zeros(0),
+            "y": ways.lat[npos] if len(npos) else np.zeros(0),
+            "signal": signal_node[npos],
         }
     )
     stats["maxspeed_directional_ways"] = int(
@@ -248,20 +209,86 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     return raw
 
 
+def _kept_references(ways: OsmWays, keep_way: np.ndarray, stats: dict) -> tuple[np.ndarray, ...]:
+    """The references of the usable kept ways, in order: their way and their place in ``ways.node_id``; and which
+    ways are usable.
+
+    References to unknown nodes and consecutive repeats are dropped; a kept way left with fewer than two is
+    unusable (counted in ``stats``).
+    """
+    n_ways = len(ways.way_id)
+    way_of_ref = np.repeat(np.arange(n_ways, dtype=np.int32 if n_ways < 2**31 else np.int64), np.diff(ways.offsets))
+    if ways.ref_node is not None:
+        pos = ways.ref_node
+        sel = keep_way[way_of_ref] & (pos >= 0)
+    else:
+        pos = np.searchsorted(ways.node_id, ways.refs)
+        pos = np.clip(pos, 0, max(len(ways.node_id) - 1, 0))
+        located = (ways.node_id[pos] == ways.refs) if len(ways.node_id) else np.zeros(len(pos), bool)
+        sel = keep_way[way_of_ref] & located
+    way_of_ref, pos = way_of_ref[sel], pos[sel]
+    keep = np.ones(len(pos), dtype=bool)
+    # a repeat is the same node again (the same place in node_id) on the same way
+    keep[1:] = (pos[1:] != pos[:-1]) | (way_of_ref[1:] != way_of_ref[:-1])
+    way_of_ref, pos = way_of_ref[keep], pos[keep]
+    usable_way = keep_way & (np.bincount(way_of_ref, minlength=n_ways) >= 2)
+    stats["ways_unusable"] = int((keep_way & ~usable_way).sum())
+    stats["ways_kept"] = int(usable_way.sum())
+    sel = usable_way[way_of_ref]
+    return way_of_ref[sel], pos[sel], usable_way
+
+
+def _segment_table(ways: OsmWays, profile: Profile, seg_way: np.ndarray, u_key, v_key) -> pd.DataFrame:
+    """The :data:`SEGMENT_COLUMNS` of the segments of ways ``seg_way`` (their tags worked once per way, then taken)."""
+    tags = ways.tags
+    access, _ = access_value(tags, profile)
+    # a bridge's own name ("Ferry Bridge") is what a closure names; the road's name otherwise
+    name = tags["bridge:name"].where(tags["bridge:name"].notna(), tags["name"]).fillna("")
+    segments = pd.DataFrame(
+        {
+            "u_key": u_key.astype(np.int64),
+            "v_key": v_key.astype(np.int64),
+            "source_id": ways.way_id[seg_way].astype(np.int64),
+            "highway": _taken(tags["highway"], seg_way),
+            "maxspeed": _taken(tags["maxspeed"], seg_way),
+            "maxspeed_forward": _taken(tags["maxspeed:forward"], seg_way),
+            "maxspeed_backward": _taken(tags["maxspeed:backward"], seg_way),
+            "speed_kph": np.full(len(seg_way), np.nan),
+            "oneway": _taken(tags["oneway"], seg_way),
+            "junction": _taken(tags["junction"], seg_way),
+            "access": _taken(np.where(access == "", None, access), seg_way),
+            "bridge": _yes(tags["bridge"])[seg_way],
+            "tunnel": _yes(tags["tunnel"])[seg_way],
+            "name": _taken(name, seg_way),
+        }
+    )
+    return segments.astype({k: v for k, v in SEGMENT_COLUMNS.items() if v != "object"})
+
+
+def _taken(values: pd.Series | np.ndarray, take: np.ndarray) -> np.ndarray | pd.api.extensions.ExtensionArray:
+    """``values[take]`` (objects) in the form a DataFrame keeps it: pandas' string array where pandas infers its
+    string dtype for the values taken, built from each distinct value once instead of from every row.
+
+    Tag columns repeat few distinct values over millions of segments; the string conversion of every row cost
+    seconds.
+    """
+    values = np.asarray(values, dtype=object)
+    codes, uniques = pd.factorize(values)
+    codes = codes[take] + 1
+    used = np.bincount(codes, minlength=len(uniques) + 1) > 0
+    # the distinct values taken (None first where a missing value is), for pandas to infer their dtype
+    distinct = pd.Series(np.concatenate([np.array([None], dtype=object), np.asarray(uniques, dtype=object)])[used])
+    if not len(take) or not isinstance(distinct.dtype, pd.StringDtype):
+        return values[take]
+    return distinct.array.take(np.cumsum(used)[codes] - 1)
+
+
 def _closed_gates(gates: pd.DataFrame, profile: Profile) -> np.ndarray:
     """Ids of the gate nodes closed to the profile's vehicle by their access tags (a gate without any is open)."""
     if len(gates) == 0:
         return np.zeros(0, dtype=np.int64)
     value, key = access_value(gates, profile)
     return np.sort(gates["node_id"].to_numpy(dtype=np.int64)[closing_access(value, key, profile)])
-
-
-def _segment_bounds(split: np.ndarray, way_of_ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Start and end positions of segments between consecutive split points of the same way."""
-    split_pos = np.flatnonzero(split)
-    starts, ends = split_pos[:-1], split_pos[1:]
-    same_way = way_of_ref[starts] == way_of_ref[ends]
-    return starts[same_way], ends[same_way]
 
 
 def tags_frame(rows: list[dict]) -> pd.DataFrame:
