@@ -49,7 +49,6 @@ def parse_highway_opl(text: bytes) -> OsmWays:
     road = w_table["highway"].notna().to_numpy()[w_codes]
     w_codes = w_codes[road]
     tags = w_table.iloc[w_codes].reset_index(drop=True) if len(w_codes) else w_table.iloc[:0]
-    del w_codes, w_table
     w_start, w_sp1 = line_start[ways][road], sp1[ways][road]
     way_id = ints_kernel(buf, w_start + 1, w_sp1)
     refs, lon_e7, lat_e7, count = way_nodes(buf, sp2[ways][road] + 2, line_end[ways][road])
@@ -72,6 +71,7 @@ def parse_highway_opl(text: bytes) -> OsmWays:
         refs, lon_e7, lat_e7 = refs[take], lon_e7[take], lat_e7[take]
         count, way_id = count[order], way_id[order]
         tags = tags.iloc[order].reset_index(drop=True)
+        w_codes = w_codes[order]
     offsets = np.concatenate([[0], np.cumsum(count)]).astype(np.int64)
     node_id, first, ref_node = _unique_nodes(refs)
     return OsmWays(
@@ -86,6 +86,8 @@ def parse_highway_opl(text: bytes) -> OsmWays:
         restrictions=restrictions,
         gates=gates,
         ref_node=ref_node,
+        tag_sets=w_table,
+        way_tag_set=w_codes,
     )
 
 

@@ -16,7 +16,7 @@ from pyproj import CRS
 from coverkit.network.osm_restrictions import READ_COLUMNS
 from coverkit.network.profile import ACCESS_KEYS, Profile
 from coverkit.network.raw import SEGMENT_COLUMNS, RawRoads
-from coverkit.network.way_kernels import segment_vertices_kernel, segments_kernel
+from coverkit.network.way_kernels import kept_references_kernel, segment_vertices_kernel, segments_kernel
 
 #: Way tags kept from OSM (``motor_vehicle`` refines ``access`` for cars and trucks).
 WAY_TAGS = (
@@ -69,6 +69,10 @@ class OsmWays:
         Optional, shape (R,): the place of each reference in ``node_id`` (-1 where not located), from a reader that
         knows it already (the PBF reader gets it from the sort that makes ``node_id``); None to have
         :func:`ways_to_roads` look the references up.
+    tag_sets, way_tag_set
+        Optional: the distinct rows of ``tags`` (a DataFrame of the same columns) and the row of each way in it,
+        shape (W,), so that ``tags`` is ``tag_sets.iloc[way_tag_set]``; from a reader that has them (the PBF reader
+        decodes each distinct tag field once). :func:`ways_to_roads` then works the tags once per distinct row.
     """
 
     way_id: np.ndarray
@@ -82,6 +86,8 @@ class OsmWays:
     restrictions: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=list(READ_COLUMNS)))
     gates: pd.DataFrame = field(default_factory=lambda: gates_frame([], []))
     ref_node: np.ndarray | None = None
+    tag_sets: pd.DataFrame | None = None
+    way_tag_set: np.ndarray | None = None
 
 
 def gates_frame(node_ids: list[int], tags: list[dict]) -> pd.DataFrame:
@@ -160,7 +166,13 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     ending there). References to nodes missing from the file are skipped; a way left with fewer than two located
     nodes is unusable and counted.
     """
-    road, closed = drivable_mask(ways.tags, profile)
+    # the tags are worked once per distinct row where the reader gives the distinct rows
+    if ways.way_tag_set is not None:
+        tag_sets, tag_set = ways.tag_sets, ways.way_tag_set
+    else:
+        tag_sets, tag_set = ways.tags, np.arange(len(ways.tags))
+    road, closed = drivable_mask(tag_sets, profile)
+    road, closed = road[tag_set], closed[tag_set]
     keep_way = road & ~closed
     stats = {
         "ways_read": len(ways.way_id),
@@ -171,9 +183,9 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     closed_gates = _closed_gates(ways.gates, profile)
     stats["gates_read"] = len(ways.gates)
     stats["gates_closed"] = len(closed_gates)
-    signal_node = np.isin(ways.node_id, ways.signal_ids)
+    signal_node = _flag_nodes(ways.node_id, ways.signal_ids)
     # a closed gate becomes a graph node so that the road pieces it closes end there
-    gate_node = np.isin(ways.node_id, closed_gates)
+    gate_node = _flag_nodes(ways.node_id, closed_gates)
     starts, ends, n_loops = segments_kernel(way_of_ref, pos, signal_node | gate_node, len(ways.node_id))
     stats["segments_self_loop"] = int(n_loops)
     # a closed gate closes the road pieces on both sides of it, up to the next junction
@@ -187,7 +199,8 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
         del coords, seg_of_vert
     u_pos, v_pos, seg_way = pos[starts], pos[ends], way_of_ref[starts]
     del way_of_ref, pos, starts, ends
-    segments = _segment_table(ways, profile, seg_way, ways.node_id[u_pos], ways.node_id[v_pos])
+    keys = (ways.node_id[u_pos], ways.node_id[v_pos], ways.way_id[seg_way])
+    segments = _segment_table(tag_sets, profile, tag_set[seg_way], *keys)
     # every segment end, in node_id order (node_id is sorted and distinct: this is np.unique of the keys)
     end_node = np.zeros(len(ways.node_id), dtype=bool)
     end_node[u_pos] = True
@@ -201,9 +214,8 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
             "signal": signal_node[npos],
         }
     )
-    stats["maxspeed_directional_ways"] = int(
-        (usable_way & (ways.tags["maxspeed:forward"].notna() | ways.tags["maxspeed:backward"].notna())).sum()
-    )
+    directional = (tag_sets["maxspeed:forward"].notna() | tag_sets["maxspeed:backward"].notna()).to_numpy()
+    stats["maxspeed_directional_ways"] = int((usable_way & directional[tag_set]).sum())
     raw = RawRoads(segments, np.asarray(geometry, dtype=object), nodes, CRS.from_epsg(4326), source, stats)
     raw.restrictions = ways.restrictions
     return raw
@@ -216,50 +228,50 @@ def _kept_references(ways: OsmWays, keep_way: np.ndarray, stats: dict) -> tuple[
     References to unknown nodes and consecutive repeats are dropped; a kept way left with fewer than two is
     unusable (counted in ``stats``).
     """
-    n_ways = len(ways.way_id)
-    way_of_ref = np.repeat(np.arange(n_ways, dtype=np.int32 if n_ways < 2**31 else np.int64), np.diff(ways.offsets))
-    if ways.ref_node is not None:
-        pos = ways.ref_node
-        sel = keep_way[way_of_ref] & (pos >= 0)
-    else:
+    pos = ways.ref_node
+    if pos is None:
         pos = np.searchsorted(ways.node_id, ways.refs)
         pos = np.clip(pos, 0, max(len(ways.node_id) - 1, 0))
         located = (ways.node_id[pos] == ways.refs) if len(ways.node_id) else np.zeros(len(pos), bool)
-        sel = keep_way[way_of_ref] & located
-    way_of_ref, pos = way_of_ref[sel], pos[sel]
-    keep = np.ones(len(pos), dtype=bool)
-    # a repeat is the same node again (the same place in node_id) on the same way
-    keep[1:] = (pos[1:] != pos[:-1]) | (way_of_ref[1:] != way_of_ref[:-1])
-    way_of_ref, pos = way_of_ref[keep], pos[keep]
-    usable_way = keep_way & (np.bincount(way_of_ref, minlength=n_ways) >= 2)
+        pos = np.where(located, pos, -1)
+    way_of_ref, pos, usable_way = kept_references_kernel(ways.offsets.astype(np.int64), pos, keep_way)
     stats["ways_unusable"] = int((keep_way & ~usable_way).sum())
     stats["ways_kept"] = int(usable_way.sum())
-    sel = usable_way[way_of_ref]
-    return way_of_ref[sel], pos[sel], usable_way
+    return way_of_ref, pos, usable_way
 
 
-def _segment_table(ways: OsmWays, profile: Profile, seg_way: np.ndarray, u_key, v_key) -> pd.DataFrame:
-    """The :data:`SEGMENT_COLUMNS` of the segments of ways ``seg_way`` (their tags worked once per way, then taken)."""
-    tags = ways.tags
-    access, _ = access_value(tags, profile)
+def _flag_nodes(node_id: np.ndarray, ids: np.ndarray) -> np.ndarray:
+    """``np.isin(node_id, ids)`` for the sorted ``node_id`` (at the first of repeated ids), by a search per id."""
+    flag = np.zeros(len(node_id), dtype=bool)
+    at = np.searchsorted(node_id, ids)
+    inside = at < len(node_id)
+    at = at[inside]
+    flag[at[node_id[at] == ids[inside]]] = True
+    return flag
+
+
+def _segment_table(tag_sets: pd.DataFrame, profile: Profile, rows: np.ndarray, u_key, v_key, source_id) -> pd.DataFrame:
+    """The :data:`SEGMENT_COLUMNS` of segments with the tags ``rows`` of ``tag_sets`` (worked once per row of
+    ``tag_sets``, then taken), end node keys and source way ids."""
+    access, _ = access_value(tag_sets, profile)
     # a bridge's own name ("Ferry Bridge") is what a closure names; the road's name otherwise
-    name = tags["bridge:name"].where(tags["bridge:name"].notna(), tags["name"]).fillna("")
+    name = tag_sets["bridge:name"].where(tag_sets["bridge:name"].notna(), tag_sets["name"]).fillna("")
     segments = pd.DataFrame(
         {
             "u_key": u_key.astype(np.int64),
             "v_key": v_key.astype(np.int64),
-            "source_id": ways.way_id[seg_way].astype(np.int64),
-            "highway": _taken(tags["highway"], seg_way),
-            "maxspeed": _taken(tags["maxspeed"], seg_way),
-            "maxspeed_forward": _taken(tags["maxspeed:forward"], seg_way),
-            "maxspeed_backward": _taken(tags["maxspeed:backward"], seg_way),
-            "speed_kph": np.full(len(seg_way), np.nan),
-            "oneway": _taken(tags["oneway"], seg_way),
-            "junction": _taken(tags["junction"], seg_way),
-            "access": _taken(np.where(access == "", None, access), seg_way),
-            "bridge": _yes(tags["bridge"])[seg_way],
-            "tunnel": _yes(tags["tunnel"])[seg_way],
-            "name": _taken(name, seg_way),
+            "source_id": source_id.astype(np.int64),
+            "highway": _taken(tag_sets["highway"], rows),
+            "maxspeed": _taken(tag_sets["maxspeed"], rows),
+            "maxspeed_forward": _taken(tag_sets["maxspeed:forward"], rows),
+            "maxspeed_backward": _taken(tag_sets["maxspeed:backward"], rows),
+            "speed_kph": np.full(len(rows), np.nan),
+            "oneway": _taken(tag_sets["oneway"], rows),
+            "junction": _taken(tag_sets["junction"], rows),
+            "access": _taken(np.where(access == "", None, access), rows),
+            "bridge": _yes(tag_sets["bridge"])[rows],
+            "tunnel": _yes(tag_sets["tunnel"])[rows],
+            "name": _taken(name, rows),
         }
     )
     return segments.astype({k: v for k, v in SEGMENT_COLUMNS.items() if v != "object"})

@@ -95,3 +95,41 @@ def segment_vertices_kernel(lon, lat, pos, starts, ends):
             seg[k] = i
             k += 1
     return coords, seg
+
+
+@njit(cache=True, nogil=True)
+def kept_references_kernel(offsets, pos, keep_way):
+    """The references of the usable kept ways, in order: their way (int64) and their place ``pos`` in the node
+    table; and which ways are usable (bool).
+
+    References with no place (``pos`` < 0: an unknown node) and consecutive repeats of one node are dropped; a kept
+    way left with fewer than two references is unusable."""
+    n_ways = len(offsets) - 1
+    usable = np.zeros(n_ways, np.bool_)
+    total = 0
+    for w in range(n_ways):
+        if keep_way[w]:
+            count = 0
+            last = -1
+            for i in range(offsets[w], offsets[w + 1]):
+                p = pos[i]
+                if p >= 0 and p != last:
+                    count += 1
+                    last = p
+            if count >= 2:
+                usable[w] = True
+                total += count
+    way_of_ref = np.empty(total, np.int64)
+    kept_pos = np.empty(total, pos.dtype)
+    k = 0
+    for w in range(n_ways):
+        if usable[w]:
+            last = -1
+            for i in range(offsets[w], offsets[w + 1]):
+                p = pos[i]
+                if p >= 0 and p != last:
+                    way_of_ref[k] = w
+                    kept_pos[k] = p
+                    k += 1
+                    last = p
+    return way_of_ref, kept_pos, usable
