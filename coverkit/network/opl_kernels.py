@@ -32,8 +32,20 @@ def _skip_to(buf, a, n, char):
 
 
 @njit(cache=True, nogil=True)
+def _skip_line(buf, a, n):
+    """The end of the line at ``a`` (its newline, or ``n``) and the count of ``n`` bytes on the way there: node
+    references, when the field is a way's node list."""
+    count = 0
+    while a < n and buf[a] != _NEWLINE:
+        count += buf[a] == _N
+        a += 1
+    return a, count
+
+
+@njit(cache=True, nogil=True)
 def line_fields_kernel(buf):
-    """Start, end, first and second space of every non-empty line of ``buf`` (int64 each).
+    """Start, end, first and second space of every non-empty line of ``buf``, and the count of ``n`` bytes after
+    the second space (int64 each; for a way, its node references).
 
     A line ends at a newline or at the end of the text; a missing space is placed at the line's end."""
     n_lines = 1
@@ -43,21 +55,26 @@ def line_fields_kernel(buf):
     end = np.empty(n_lines, np.int64)
     sp1 = np.empty(n_lines, np.int64)
     sp2 = np.empty(n_lines, np.int64)
+    n_refs = np.zeros(n_lines, np.int64)
     k = 0
     a = 0
     n = len(buf)
     while a < n:
         s1 = _skip_to(buf, a, n, _SPACE)
         s2 = _skip_to(buf, s1 + 1, n, _SPACE) if s1 < n and buf[s1] == _SPACE else s1
-        b = _skip_to(buf, s2 + 1, n, _NEWLINE) if s2 < n and buf[s2] == _SPACE else s2
+        b = s2
+        refs = 0
+        if s2 < n and buf[s2] == _SPACE:
+            b, refs = _skip_line(buf, s2 + 1, n)
         if b > a:
             start[k] = a
             end[k] = b
             sp1[k] = s1
             sp2[k] = s2
+            n_refs[k] = refs
             k += 1
         a = b + 1
-    return start[:k], end[:k], sp1[:k], sp2[:k]
+    return start[:k], end[:k], sp1[:k], sp2[:k], n_refs[:k]
 
 
 @njit(cache=True, nogil=True)
@@ -123,30 +140,6 @@ def _parse_int(buf, a, b):
 
 
 @njit(cache=True, nogil=True)
-def _parse_e7(buf, a, b):
-    """``parse_fixed_e7`` of one field: integer in units of 1e-7 and the count of decimals (8 and over: too many)."""
-    neg = b > a and buf[a] == _MINUS
-    if neg:
-        a += 1
-    out = np.int64(0)
-    places = 0
-    after_dot = False
-    for i in range(a, b):
-        c = buf[i]
-        if c == _DOT:
-            after_dot = True
-        else:
-            out = out * 10 + (np.int64(c) - _ZERO)
-            if after_dot:
-                places += 1
-    if places > 7:
-        return np.int64(0), places
-    for _ in range(7 - places):
-        out *= 10
-    return (-out if neg else out), places
-
-
-@njit(cache=True, nogil=True)
 def ints_kernel(buf, lo, hi):
     """``parse_ints`` of the fields ``buf[lo[i]:hi[i]]`` (int64)."""
     out = np.empty(len(lo), np.int64)
@@ -156,16 +149,56 @@ def ints_kernel(buf, lo, hi):
 
 
 @njit(cache=True, nogil=True)
-def _skip_past(buf, a, b, char):
-    """First position at or after ``a`` of ``char`` or a comma (``b`` when neither comes before it)."""
-    while a < b and buf[a] != char and buf[a] != _COMMA:
-        a += 1
-    return a
+def _int_until(buf, i, b, stop):
+    """``parse_ints`` of ``buf[i:j]``, where ``j`` is the first ``stop``, comma or ``b`` from ``i``; and ``j``."""
+    neg = i < b and buf[i] == _MINUS
+    if neg:
+        i += 1
+    out = np.int64(0)
+    while i < b:
+        c = buf[i]
+        if c == stop or c == _COMMA:
+            break
+        out = out * 10 + (np.int64(c) - _ZERO)
+        i += 1
+    return (-out if neg else out), i
 
 
 @njit(cache=True, nogil=True)
-def way_nodes_kernel(buf, lo, hi):
-    """The located references of the way-node fields ``buf[lo[w]:hi[w]]`` (``n<ref>x<lon>y<lat>`` joined by ``,``).
+def _e7_until(buf, i, b, stop):
+    """``parse_fixed_e7`` of ``buf[i:j]`` (``j`` as in :func:`_int_until`): the value before scaling, its count of
+    decimals, and ``j``."""
+    neg = i < b and buf[i] == _MINUS
+    if neg:
+        i += 1
+    out = np.int64(0)
+    places = 0
+    after_dot = False
+    while i < b:
+        c = buf[i]
+        if c == stop or c == _COMMA:
+            break
+        if c == _DOT:
+            after_dot = True
+        else:
+            out = out * 10 + (np.int64(c) - _ZERO)
+            places += after_dot
+        i += 1
+    return (-out if neg else out), places, i
+
+
+@njit(cache=True, nogil=True)
+def _scaled_e7(value, places):
+    """``value`` with ``places`` decimals in units of 1e-7."""
+    for _ in range(7 - places):
+        value *= 10
+    return value
+
+
+@njit(cache=True, nogil=True)
+def way_nodes_kernel(buf, lo, hi, total):
+    """The located references of the way-node fields ``buf[lo[w]:hi[w]]`` (``n<ref>x<lon>y<lat>`` joined by ``,``),
+    at most ``total`` (the count of ``n`` bytes in the fields, from :func:`line_fields_kernel`).
 
     Returns
     -------
@@ -174,10 +207,6 @@ def way_nodes_kernel(buf, lo, hi):
         (:data:`OK`, or the first problem met). A reference written with an empty ``x`` or ``y`` has no location
         and is left out.
     """
-    total = 0
-    for w in range(len(lo)):
-        for i in range(lo[w], hi[w]):
-            total += buf[i] == _N
     refs = np.empty(total, np.int64)
     lon = np.empty(total, np.int32)
     lat = np.empty(total, np.int32)
@@ -187,19 +216,23 @@ def way_nodes_kernel(buf, lo, hi):
         a = lo[w]
         b = hi[w]
         while a < b:
-            x = _skip_past(buf, a, b, _X)
-            y = _skip_past(buf, x + 1, b, _Y) if x < b and buf[x] == _X else x
-            end = _skip_past(buf, y + 1, b, _COMMA) if y < b and buf[y] == _Y else y
-            if buf[a] != _N or y == end:
+            if buf[a] != _N or k == total:
                 return refs[:k], lon[:k], lat[:k], count, NO_LOCATION
+            ref, x = _int_until(buf, a + 1, b, _X)
+            if x >= b or buf[x] != _X:
+                return refs[:k], lon[:k], lat[:k], count, NO_LOCATION
+            lon_e7, lon_places, y = _e7_until(buf, x + 1, b, _Y)
+            if y >= b or buf[y] != _Y:
+                return refs[:k], lon[:k], lat[:k], count, NO_LOCATION
+            lat_e7, lat_places, end = _e7_until(buf, y + 1, b, _COMMA)
             if y > x + 1 and end > y + 1:
-                lon_e7, lon_places = _parse_e7(buf, x + 1, y)
-                lat_e7, lat_places = _parse_e7(buf, y + 1, end)
                 if lon_places > 7 or lat_places > 7:
                     return refs[:k], lon[:k], lat[:k], count, TOO_MANY_DECIMALS
+                lon_e7 = _scaled_e7(lon_e7, lon_places)
+                lat_e7 = _scaled_e7(lat_e7, lat_places)
                 if abs(lon_e7) > _INT32_MAX or abs(lat_e7) > _INT32_MAX:
                     return refs[:k], lon[:k], lat[:k], count, OUT_OF_RANGE
-                refs[k] = _parse_int(buf, a + 1, x)
+                refs[k] = ref
                 lon[k] = lon_e7
                 lat[k] = lat_e7
                 count[w] += 1

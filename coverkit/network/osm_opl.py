@@ -41,7 +41,7 @@ COORDINATE_PRECISION = 10_000_000
 def parse_highway_opl(text: bytes) -> OsmWays:
     """Ways (sorted by id), their located node references and the traffic-signal node ids from OPL ``text``."""
     buf = np.frombuffer(text, dtype=np.uint8)
-    line_start, line_end, sp1, sp2 = line_fields_kernel(buf)
+    line_start, line_end, sp1, sp2, n_refs = line_fields_kernel(buf)
     kind = buf[line_start]
     ways = kind == ord("w")
     w_codes, w_table = _tag_table(text, buf, sp1[ways] + 2, sp2[ways], WAY_TAGS)
@@ -51,7 +51,7 @@ def parse_highway_opl(text: bytes) -> OsmWays:
     tags = w_table.iloc[w_codes].reset_index(drop=True) if len(w_codes) else w_table.iloc[:0]
     w_start, w_sp1 = line_start[ways][road], sp1[ways][road]
     way_id = ints_kernel(buf, w_start + 1, w_sp1)
-    refs, lon_e7, lat_e7, count = way_nodes(buf, sp2[ways][road] + 2, line_end[ways][road])
+    refs, lon_e7, lat_e7, count = way_nodes(buf, sp2[ways][road] + 2, line_end[ways][road], n_refs[ways][road])
 
     nodes = kind == ord("n")
     n_codes, n_table = _tag_table(text, buf, sp1[nodes] + 2, sp2[nodes], ("highway", "barrier", *ACCESS_KEYS))
@@ -103,13 +103,18 @@ def _unique_nodes(refs: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]
     return node_id, first, ref_node
 
 
-def way_nodes(buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, ...]:
+def way_nodes(
+    buf: np.ndarray, lo: np.ndarray, hi: np.ndarray, n_refs: np.ndarray | None = None
+) -> tuple[np.ndarray, ...]:
     """Located references of the ``N`` fields ``buf[lo:hi]``: ids, lon and lat (1e-7 degree, int32), count per way.
 
     The compiled one-pass form of :func:`way_nodes_numpy` (same values). References without a location are left
-    out (as the earlier reader did), so counts are of located ones.
+    out (as the earlier reader did), so counts are of located ones. ``n_refs``: the references written in each
+    field (its ``n`` bytes, as :func:`~coverkit.network.opl_kernels.line_fields_kernel` counts them), which sizes
+    the output; without it, the ``n`` bytes of the whole text.
     """
-    refs, lon_e7, lat_e7, count, status = way_nodes_kernel(buf, lo.astype(np.int64), hi.astype(np.int64))
+    total = int(n_refs.sum()) if n_refs is not None else int(np.count_nonzero(buf == ord("n")))
+    refs, lon_e7, lat_e7, count, status = way_nodes_kernel(buf, lo.astype(np.int64), hi.astype(np.int64), total)
     if status == NO_LOCATION:
         raise ValueError("OPL way node list without locations; write it with locations_on_ways=true")
     if status != OK:
