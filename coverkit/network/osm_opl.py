@@ -112,6 +112,15 @@ def way_nodes(
     out (as the earlier reader did), so counts are of located ones. ``n_refs``: the references written in each
     field (its ``n`` bytes, as :func:`~coverkit.network.opl_kernels.line_fields_kernel` counts them), which sizes
     the output; without it, the ``n`` bytes of the whole text.
+
+    Examples
+    --------
+    Node 5 at (-1.5, 0.25) and node 6 without a location (worked by hand):
+
+    >>> buf = np.frombuffer(b"w1 T Nn5x-1.5y0.25,n6xy", dtype=np.uint8)
+    >>> refs, lon_e7, lat_e7, count = way_nodes(buf, np.array([6]), np.array([23]))
+    >>> refs.tolist(), lon_e7.tolist(), lat_e7.tolist(), count.tolist()
+    ([5], [-15000000], [2500000], [1])
     """
     total = int(n_refs.sum()) if n_refs is not None else int(np.count_nonzero(buf == ord("n")))
     refs, lon_e7, lat_e7, count, status = way_nodes_kernel(buf, lo.astype(np.int64), hi.astype(np.int64), total)
