@@ -1,4 +1,6 @@
-"""Parse osmium's OPL text of highway objects into flat arrays, with numpy on the bytes (no Python per reference).
+"""Parse osmium's OPL text of highway objects into flat arrays, with compiled one-pass kernels on the bytes
+(:mod:`coverkit.network.opl_kernels`; no Python per reference). The numpy form of the way-node parse is kept as
+:func:`way_nodes_numpy`, the reference the tests hold the kernel to.
 
 The format (osmium's OPL, "object per line", written with ``add_metadata=false,locations_on_ways=true``):
 
@@ -10,6 +12,10 @@ The format (osmium's OPL, "object per line", written with ``add_metadata=false,l
 Coordinates are decimal degrees with up to seven decimals (libosmium's fixed 1e-7 grid); they are parsed as integers
 on that grid and divided by 1e7, which is how libosmium itself turns a location into degrees, so the values are the
 same doubles the Python API would give.
+
+Besides the ways, the reader hands :func:`~coverkit.network.osm_ways.ways_to_roads` what its own work gives for
+free: each reference's place among the sorted node ids (from the sort that makes them) and the distinct tag sets
+with each way's one, so the splitter neither searches ten million references nor works every way's tags.
 """
 
 from __future__ import annotations

@@ -4,7 +4,7 @@ Why this design: iterating ways in Python costs a call per node reference (pyosm
 sequences), which made reading a 6.6 M-node county take most of a minute. Here libosmium does the whole pass in C++
 (node locations kept in its index, the ``highway`` key filter, and a writer) and emits the highway objects as OPL,
 osmium's documented line format (one object per line, ``w<id> T<tags> N<ref>x<lon>y<lat>,...`` with locations on the
-ways). :mod:`coverkit.network.osm_opl` turns that text into flat arrays with numpy.
+ways). :mod:`coverkit.network.osm_opl` turns that text into flat arrays (compiled kernels on the bytes).
 """
 
 from __future__ import annotations
