@@ -167,7 +167,7 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     nodes is unusable and counted.
     """
     # the tags are worked once per distinct row where the reader gives the distinct rows
-    if ways.way_tag_set is not None:
+    if ways.way_tag_set is not None and len(ways.way_tag_set) == len(ways.tags):
         tag_sets, tag_set = ways.tag_sets, ways.way_tag_set
     else:
         tag_sets, tag_set = ways.tags, np.arange(len(ways.tags))
@@ -229,7 +229,7 @@ def _kept_references(ways: OsmWays, keep_way: np.ndarray, stats: dict) -> tuple[
     unusable (counted in ``stats``).
     """
     pos = ways.ref_node
-    if pos is None:
+    if pos is None or len(pos) != len(ways.refs):
         pos = np.searchsorted(ways.node_id, ways.refs)
         pos = np.clip(pos, 0, max(len(ways.node_id) - 1, 0))
         located = (ways.node_id[pos] == ways.refs) if len(ways.node_id) else np.zeros(len(pos), bool)
