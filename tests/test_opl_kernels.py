@@ -164,7 +164,7 @@ def test_way_splitting_equals_a_plain_python_splitter_on_a_generated_county(tmp_
     for ways in (read_osm_pbf(synthetic_county_pbf(12, cache=tmp_path)), parse_highway_opl(HAND_OPL.encode())):
         raw = ways_to_roads(ways, profile, "test")
         seg = raw.segments
-        n_vert = [len(g.coords) for g in raw.geometry]
+        n_vert = [len(g.coords) for g in raw.line_objects()]
         got = list(zip(seg["source_id"], seg["u_key"], seg["v_key"], n_vert, strict=True))
         road, closed = drivable_mask(ways.tags, profile)
         assert raw.stats["gates_closed"] == 0

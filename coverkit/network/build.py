@@ -238,8 +238,7 @@ def build_network(
     steps.step("projecting")
     # the lines go on as flat coordinates and offsets (shapely's ragged layout): projected, measured and directed
     # as arrays, with no line object per segment (at a million nodes, about a gigabyte less)
-    _, raw_xy, (line_offsets,) = shapely.to_ragged_array(raw.geometry, include_z=False)
-    line_offsets = np.asarray(line_offsets, dtype=np.int64)
+    raw_xy, line_offsets = raw.line_arrays()
     lonlat_xy = np.column_stack(transform_xy(raw_xy[:, 0], raw_xy[:, 1], raw.crs, CRS.from_epsg(4326)))
     if crs is None:
         lo, hi = lonlat_xy.min(axis=0), lonlat_xy.max(axis=0)

@@ -10,7 +10,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-import shapely
 from pyproj import CRS
 
 from coverkit.network.osm_restrictions import READ_COLUMNS
@@ -192,11 +191,12 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     open_seg = ~(gate_node[pos[starts]] | gate_node[pos[ends]])
     stats["segments_closed_by_gates"] = int((~open_seg).sum())
     starts, ends = starts[open_seg], ends[open_seg]
-    geometry = np.array([], dtype=object)
+    coords, offsets = np.zeros((0, 2)), np.zeros(len(starts) + 1, dtype=np.int64)
     if len(starts):
         coords, seg_of_vert = segment_vertices_kernel(ways.lon, ways.lat, pos, starts, ends)
-        geometry = shapely.linestrings(coords, indices=seg_of_vert)
-        del coords, seg_of_vert
+        # vertices come grouped by segment, in order: the offsets of shapely's ragged layout (no line objects)
+        np.cumsum(np.bincount(seg_of_vert, minlength=len(starts)), out=offsets[1:])
+        del seg_of_vert
     u_pos, v_pos, seg_way = pos[starts], pos[ends], way_of_ref[starts]
     del way_of_ref, pos, starts, ends
     keys = (ways.node_id[u_pos], ways.node_id[v_pos], ways.way_id[seg_way])
@@ -216,7 +216,7 @@ def ways_to_roads(ways: OsmWays, profile: Profile, source: str) -> RawRoads:
     )
     directional = (tag_sets["maxspeed:forward"].notna() | tag_sets["maxspeed:backward"].notna()).to_numpy()
     stats["maxspeed_directional_ways"] = int((usable_way & directional[tag_set]).sum())
-    raw = RawRoads(segments, np.asarray(geometry, dtype=object), nodes, CRS.from_epsg(4326), source, stats)
+    raw = RawRoads(segments, None, nodes, CRS.from_epsg(4326), source, stats, lines=(coords, offsets))
     raw.restrictions = ways.restrictions
     return raw
 
