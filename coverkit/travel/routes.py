@@ -23,7 +23,7 @@ import scipy.sparse as sp
 
 from coverkit.network.model import RoadNetwork
 from coverkit.travel import turns
-from coverkit.travel.search import exits, node_time_blocks, run_s, seeds
+from coverkit.travel.search import entry_labels, node_time_blocks, partial_run_s, same_edge_ok
 from coverkit.travel.snap import Snapped
 
 
@@ -129,12 +129,12 @@ def shortest_routes(
     n = net.n_nodes
     edge_key, edge_of_key = _edge_lookup(net)
     start = _start_arcs(net, sources)
-    t_pt, t_node, t_add = exits(net, targets, "out", states=False)
-    layout = ExitLayout(t_pt, t_node, t_add, targets.entry_edge, targets.entry_frac)
+    layout = node_exits(net, targets)
 
     def walk(use: _UseParts, pred: np.ndarray, ent: np.ndarray, row_local: np.ndarray, row_pair: np.ndarray) -> None:
-        # a node-graph route reaches its target's edge at the edge's start node
-        cur = net.u[layout.edge[ent]]
+        # the path is read back from the node whose time the search found for the exit (the edge's start node for
+        # a point part-way along it, the junction itself for a point standing there)
+        cur = layout.vertex[ent]
         _walk_back(use, pred, (cur, row_local, row_pair), source_index, n, start, edge_key, edge_of_key)
 
     return walked_routes(net, sources, targets, source_index, target_index, chunk_size, limit_s, layout, walk)
@@ -163,6 +163,25 @@ class ExitLayout:
     add_s: np.ndarray
     edge: np.ndarray
     share: np.ndarray
+
+
+def node_exits(net: RoadNetwork, targets: Snapped) -> ExitLayout:
+    """The exits of an outbound node-graph search, one row per entry of ``targets``, in line with its entry arrays.
+
+    Row ``i`` is built from entry ``i`` alone (:func:`~coverkit.travel.search.entry_labels`), so its vertex, time
+    and edge always belong together; an entry that gives no label (on a closed edge or stretch) keeps its row with
+    ``add_s = inf`` and is never the cheapest exit. A point part-way along edge ``e`` is reached from ``u[e]``
+    after ``frac`` of the run (share ``frac`` of ``e``); a point at a junction is the node itself (no edge).
+    """
+    lab = entry_labels(net, targets, "in")
+    mid = ~lab.at_node
+    return ExitLayout(
+        point=targets.entry_point,
+        vertex=lab.node,
+        add_s=lab.time_s,
+        edge=np.where(mid, targets.entry_edge, -1),
+        share=np.where(mid, targets.entry_frac, 0.0),
+    )
 
 
 #: ``walk(use, pred, entry, local source row, pair)``: add to ``use`` the edges of each route, from its source to
@@ -194,7 +213,7 @@ def walked_routes(
     time_s = np.full(n_pairs, np.inf)
     direct = np.zeros(n_pairs, dtype=bool)
     use = _UseParts()
-    direct_s, direct_edge, direct_share = _direct_trips(sources, targets, source_index, target_index, run_s(net))
+    direct_s, direct_edge, direct_share = _direct_trips(net, sources, targets, source_index, target_index)
     usable = sources.on_network[source_index] & targets.on_network[target_index]
     chunks = node_time_blocks(
         net,
@@ -212,10 +231,14 @@ def walked_routes(
         pairs = np.flatnonzero(usable & (local[source_index] >= 0))
         ls = local[source_index[pairs]]
         best, best_s = _best_exits(dist, ls, target_index[pairs], t_count, t_ptr, layout.vertex, layout.add_s)
-        # the direct trip along a shared edge wins ties: it passes no node
-        use_direct = direct_s[pairs] <= best_s
+        # beyond the bound is not found, as in point_times (a node within it plus a partial edge can pass it)
+        best_s = np.where(best_s <= limit_s, best_s, np.inf)
+        pair_direct_s = np.where(direct_s[pairs] <= limit_s, direct_s[pairs], np.inf)
+        # the direct trip along a shared edge wins ties: it passes no node; a pair with neither has no route
+        # (both times inf, and inf <= inf must not make it a direct trip along edge -1)
+        use_direct = np.isfinite(pair_direct_s) & (pair_direct_s <= best_s)
         net_ok = np.isfinite(best_s) & ~use_direct
-        time_s[pairs] = np.minimum(best_s, direct_s[pairs])
+        time_s[pairs] = np.minimum(best_s, pair_direct_s)
         direct[pairs[use_direct]] = True
         dp = pairs[use_direct]
         use.add(dp, direct_edge[dp], direct_share[dp], np.zeros(len(dp)))
@@ -268,17 +291,21 @@ class _UseParts:
 
 
 def _start_arcs(net: RoadNetwork, sources: Snapped) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Sorted keys ``point * n_nodes + first node`` with the entry edge and fraction each key's route starts on."""
+    """Sorted keys ``point * n_nodes + first node`` with the entry edge (-1: the source stands at that node, no edge
+    is driven) and fraction each key's route starts on."""
     n = net.n_nodes
-    s_pt, s_node, s_t = seeds(net, sources, "out")
-    s_edge = sources.entry_edge
-    # the cheapest entry of each (source point, first node) pair: the arc the virtual node actually uses
-    s_key = s_pt * np.int64(n) + s_node
+    # one row per entry, in line with the entry arrays, so each label keeps its own edge and fraction
+    lab = entry_labels(net, sources, "out")
+    ok = lab.usable
+    s_key = sources.entry_point[ok] * np.int64(n) + lab.node[ok]
+    s_edge = np.where(lab.at_node, -1, sources.entry_edge)[ok]
+    s_frac = sources.entry_frac[ok]
+    # the cheapest entry of each (source point, first node) pair: the arc the virtual node actually uses (ties: the
+    # lowest edge, as augmented_graph keeps the first of the edge-sorted entries)
+    s_t = lab.time_s[ok]
     order = np.lexsort((s_edge, s_t, s_key))
     first = np.r_[True, s_key[order][1:] != s_key[order][:-1]] if len(order) else np.zeros(0, dtype=bool)
-    start_key, start_edge = s_key[order][first], s_edge[order][first]
-    start_frac = sources.entry_frac[order][first]
-    return start_key, start_edge, start_frac
+    return s_key[order][first], s_edge[order][first], s_frac[order][first]
 
 
 def _best_exits(
@@ -326,7 +353,10 @@ def _walk_back(
         if at_source.any():
             key = source_index[row_pair[at_source]] * np.int64(n) + cur[at_source]
             k = np.searchsorted(start_key, key)
-            use.add(row_pair[at_source], start_edge[k], 1.0 - start_frac[k], np.ones(int(at_source.sum())))
+            # a source standing at the junction drives no part of an edge before it
+            drove = start_edge[k] >= 0
+            rows, k = row_pair[at_source][drove], k[drove]
+            use.add(rows, start_edge[k], 1.0 - start_frac[k], np.ones(len(rows)))
         inner = ~at_source
         if inner.any():
             key = prev[inner] * np.int64(n) + cur[inner]
@@ -344,10 +374,12 @@ def _edge_lookup(net: RoadNetwork) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _direct_trips(
-    sources: Snapped, targets: Snapped, source_index: np.ndarray, target_index: np.ndarray, run: np.ndarray
+    net: RoadNetwork, sources: Snapped, targets: Snapped, source_index: np.ndarray, target_index: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Per pair: time (s) of the direct trip along an edge shared by source and target (target ahead of source in
-    the edge's direction), the edge, and the share of its running time; ``inf`` / -1 / 0 where there is none."""
+    the edge's direction, by the search's own rule :func:`~coverkit.travel.search.same_edge_ok`), the edge, and
+    the share of its running time; ``inf`` / -1 / 0 where there is none."""
+    run = partial_run_s(net)
     n_pairs = len(source_index)
     out_s = np.full(n_pairs, np.inf)
     out_e = np.full(n_pairs, -1, dtype=np.int64)
@@ -366,7 +398,7 @@ def _direct_trips(
     k = np.minimum(np.searchsorted(t_key, want), len(t_key) - 1)
     hit = t_key[k] == want
     share = targets.entry_frac[k] - sources.entry_frac[ent]
-    ok = hit & (share >= 0)
+    ok = hit & same_edge_ok(net, s_edge, sources.entry_frac[ent], targets.entry_frac[k])
     t = np.where(ok, share * run[s_edge], np.inf)
     o = np.lexsort((s_edge, t, rep))
     head = np.r_[True, rep[o][1:] != rep[o][:-1]]
@@ -379,4 +411,4 @@ def _direct_trips(
     return out_s, out_e, out_w
 
 
-__all__ = ["ExitLayout", "PathWalk", "Routes", "shortest_routes", "walked_routes"]
+__all__ = ["ExitLayout", "PathWalk", "Routes", "node_exits", "shortest_routes", "walked_routes"]

@@ -83,22 +83,35 @@ def partial_run_s(net: RoadNetwork) -> np.ndarray:
     return np.where(np.isfinite(run), run, stub)
 
 
-def seeds(
-    net: RoadNetwork, snapped: Snapped, direction: str = "out", *, states: bool = False
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Initial labels of a search from snapped points: (point index, node, time s) per usable entry.
+@dataclass(frozen=True)
+class EntryLabels:
+    """The initial label of every entry of a snapped point set, one row per entry, in line with the ``Snapped``
+    entry arrays (``entry_point``, ``entry_edge``, ``entry_frac``): row ``i`` is entry ``i``, always.
 
-    ``"out"``: leaving the point toward the edge's end node ``v`` costs the rest of the run plus the end-node delay.
-    ``"in"`` (reverse search): the point is reached from the edge's start ``u`` after ``frac`` of the run.
-    A point at an end of its edge (``frac`` exactly 0 or 1, see :func:`coverkit.travel.snap.at_junctions`) is that
-    junction: its label is the node itself at time 0, in both directions, so it gets the junction's time whichever
-    street it was snapped to. On an edge closed in part (:meth:`RoadNetwork.closed_stretch`) a point is left toward
-    ``v`` only from beyond the closed stretch and reached from ``u`` only before it; entries cut off that way are
-    dropped (a point on a stretch closed from both sides has none).
-
-    With ``states``, the labels are vertices of :func:`graph` (:func:`coverkit.travel.turns.lift_seeds` when the
-    network models turns; the nodes otherwise).
+    Attributes
+    ----------
+    node
+        The node the label is set at.
+    time_s
+        Time (s) of the label; ``inf`` where the entry gives none (cut off by a closed stretch, or on a closed
+        edge): the row stays in its place, not reached.
+    at_node
+        ``True`` where the point stands at the junction ``node`` (no part of the entry's edge is driven).
     """
+
+    node: np.ndarray
+    time_s: np.ndarray
+    at_node: np.ndarray
+
+    @property
+    def usable(self) -> np.ndarray:
+        """Rows that give a label (finite time)."""
+        return np.isfinite(self.time_s)
+
+
+def entry_labels(net: RoadNetwork, snapped: Snapped, direction: str = "out") -> EntryLabels:
+    """Initial labels of a node-graph search from snapped points, one row per entry of ``snapped`` (the rules of
+    :func:`seeds`, with the entries that give no label kept in their place at ``inf``)."""
     _check_direction(direction)
     e, f = snapped.entry_edge, snapped.entry_frac
     run = partial_run_s(net)[e]
@@ -115,9 +128,35 @@ def seeds(
             t = np.where(at_node, 0.0, f * run)
             cut = f > lo
     keep = at_node | (~cut & np.isfinite(t))
+    return EntryLabels(node.astype(np.int64), np.where(keep, t, np.inf), at_node)
+
+
+def seeds(
+    net: RoadNetwork, snapped: Snapped, direction: str = "out", *, states: bool = False
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Initial labels of a search from snapped points: (point index, node, time s) per usable entry.
+
+    ``"out"``: leaving the point toward the edge's end node ``v`` costs the rest of the run plus the end-node delay.
+    ``"in"`` (reverse search): the point is reached from the edge's start ``u`` after ``frac`` of the run.
+    A point at an end of its edge (``frac`` exactly 0 or 1, see :func:`coverkit.travel.snap.at_junctions`) is that
+    junction: its label is the node itself at time 0, in both directions, so it gets the junction's time whichever
+    street it was snapped to. On an edge closed in part (:meth:`RoadNetwork.closed_stretch`) a point is left toward
+    ``v`` only from beyond the closed stretch and reached from ``u`` only before it; entries cut off that way are
+    dropped (a point on a stretch closed from both sides has none).
+
+    The rows are the usable entries only, so they are *not* in line with the ``Snapped`` entry arrays: a caller
+    that needs an entry's edge or fraction takes :func:`entry_labels` (one row per entry) instead.
+
+    With ``states``, the labels are vertices of :func:`graph` (:func:`coverkit.travel.turns.lift_seeds` when the
+    network models turns; the nodes otherwise).
+    """
+    lab = entry_labels(net, snapped, direction)
+    keep = lab.usable
+    pt, node, t = snapped.entry_point[keep], lab.node[keep], lab.time_s[keep]
     if states and turns.active(net):
-        return turns.lift_seeds(net, direction, snapped.entry_point[keep], node[keep], t[keep], e[keep], at_node[keep])
-    return snapped.entry_point[keep], node[keep], t[keep]
+        e = snapped.entry_edge[keep]
+        return turns.lift_seeds(net, direction, pt, node, t, e, lab.at_node[keep])
+    return pt, node, t
 
 
 def exits(
@@ -585,13 +624,19 @@ def same_edge_trips(
     e = s_e[si]
     # out: drive from source frac forward to target frac; in: from target frac forward to source frac
     first, last = (s_f[si], t_f[tj]) if direction == "out" else (t_f[tj], s_f[si])
-    lo, hi = (x[e] for x in net.closed_stretch())
+    ok = same_edge_ok(net, e, first, last)
+    t = (last - first)[ok] * partial_run_s(net)[e[ok]]
+    return s_pt[si[ok]], t_pt[tj[ok]], t
+
+
+def same_edge_ok(net: RoadNetwork, edge: np.ndarray, first: np.ndarray, last: np.ndarray) -> np.ndarray:
+    """Whether the direct trip along ``edge`` from fraction ``first`` to ``last`` (in the edge's direction) exists
+    and is timed as a direct trip: the one rule of :func:`same_edge_trips` and of the routes' direct trips."""
+    lo, hi = (x[edge] for x in net.closed_stretch())
     with np.errstate(invalid="ignore"):
         # a trip ending at the edge's end node is a trip to that junction: the node path (with its delay) times it;
         # a trip across the closed stretch of a partly closed edge does not exist
-        ok = (last >= first) & (last < 1.0) & ~((hi > first) & (lo < last))
-    t = (last - first)[ok] * partial_run_s(net)[e[ok]]
-    return s_pt[si[ok]], t_pt[tj[ok]], t
+        return (last >= first) & (last < 1.0) & ~((hi > first) & (lo < last))
 
 
 def same_edge_min(
