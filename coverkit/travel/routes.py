@@ -399,7 +399,7 @@ def _direct_trips(
     hit = t_key[k] == want
     share = targets.entry_frac[k] - sources.entry_frac[ent]
     ok = hit & same_edge_ok(net, s_edge, sources.entry_frac[ent], targets.entry_frac[k])
-    t = np.where(ok, share * run[s_edge], np.inf)
+    t = np.where(ok, share * np.where(ok, run[s_edge], 0.0), np.inf)  # no inf * 0 where there is no trip
     o = np.lexsort((s_edge, t, rep))
     head = np.r_[True, rep[o][1:] != rep[o][:-1]]
     sel = o[head]

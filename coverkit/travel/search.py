@@ -635,8 +635,10 @@ def same_edge_ok(net: RoadNetwork, edge: np.ndarray, first: np.ndarray, last: np
     lo, hi = (x[edge] for x in net.closed_stretch())
     with np.errstate(invalid="ignore"):
         # a trip ending at the edge's end node is a trip to that junction: the node path (with its delay) times it;
-        # a trip across the closed stretch of a partly closed edge does not exist
-        return (last >= first) & (last < 1.0) & ~((hi > first) & (lo < last))
+        # a trip across the closed stretch of a partly closed edge does not exist, nor one along an edge closed
+        # whole (not even of length 0 at its start: that point is the junction, which the node path times)
+        crosses = (hi > first) & (lo < last)
+        return (last >= first) & (last < 1.0) & ~crosses & np.isfinite(partial_run_s(net)[edge])
 
 
 def same_edge_min(
