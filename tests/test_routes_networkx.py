@@ -1,7 +1,7 @@
 """Shortest routes (``coverkit.travel.routes``, ``coverkit.travel.turn_routes``) against networkx.
 
 Reference: ``networkx.single_source_dijkstra_path_length`` (reference library) on the network's own export
-(``RoadNetwork.to_networkx``: open edges, weight ``travel_s``; the points' arcs carry the same attribute) with the snapped points inserted as nodes, built here
+(``RoadNetwork.to_networkx``: open edges, weight ``travel_s``) with the snapped points inserted as nodes, built here
 from the exported edge table and the snapped entries, by the search module's documented time conventions: leaving a
 point part-way along edge ``e`` toward ``v`` costs the rest of the run plus the end-node delay, reaching one costs
 ``frac`` of the run from ``u``, a point snapped at a junction *is* that node, and two points on one edge are joined
@@ -13,8 +13,6 @@ times and delays) take that same time: the path traced is the one the search tim
 from __future__ import annotations
 
 import dataclasses
-import sys
-from pathlib import Path
 from unittest import mock
 
 import networkx as nx
@@ -24,15 +22,13 @@ import shapely
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from benchmarks.bench_isochrones import synthetic_network
 from coverkit.network.model import RoadNetwork, network_from_arrays
 from coverkit.network.turn_rules import TurnRules
 from coverkit.travel import turns
 from coverkit.travel.routes import node_exits, shortest_routes
 from coverkit.travel.search import entry_labels, point_times, run_s, seeds
 from coverkit.travel.snap import snap_points
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks"))
-from bench_isochrones import synthetic_network  # noqa: E402
 
 TOL_S = 1e-6
 
@@ -207,7 +203,7 @@ def test_entry_rows_stay_in_line_with_the_snapped_entries():
         assert len(lab.time_s) == len(pts.entry_edge)
         assert np.isinf(lab.time_s[np.flatnonzero(m)[0]]) and np.isfinite(lab.time_s[np.flatnonzero(m)[1]])
         # seeds() keeps the usable rows only: exactly the finite ones, in order
-        s_pt, s_node, s_t = seeds(net, pts, direction)
+        s_pt, _, s_t = seeds(net, pts, direction)
         np.testing.assert_array_equal(s_pt, pts.entry_point[lab.usable])
         np.testing.assert_array_equal(s_t, lab.time_s[lab.usable])
     layout = node_exits(net, pts)
