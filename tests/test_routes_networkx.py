@@ -53,6 +53,7 @@ def reference_times(net, sources, targets, source_index, target_index, limit_s=n
         return int(u[e]) if f <= 0.0 else int(v[e]) if f >= 1.0 else None
 
     for i in np.unique(source_index):
+        g.add_node(("s", i))
         for e, f in entries(sources, i):
             node = junction(e, f)
             if node is not None:
@@ -271,3 +272,98 @@ def test_route_times_equal_networkx_on_random_grids(case):
     assert turned.turn_s is not None
     check_routes(free, turned, want)
     np.testing.assert_allclose(turned.turn_s, 0.0, atol=TOL_S)
+
+
+# -- turn costs: a networkx line graph built here ----------------------------------------------------------------
+
+#: Turn costs (s) of the checks below (invented for the test); on a square grid every turn is a multiple of 90
+#: degrees, so its kind needs no threshold: straight on, left (counter-clockwise), right, or back (a U-turn).
+GRID_TURNS = TurnRules(straight_s=0.0, left_s=10.0, right_s=3.0, uturn_s=30.0)
+
+
+def _grid_turn_s(xy, u, v, e, h) -> float:
+    """Cost of turning from edge ``e`` onto edge ``h`` on a straight-edged square grid (cross product sign)."""
+    a, b = xy[v[e]] - xy[u[e]], xy[v[h]] - xy[u[h]]
+    cross, dot = a[0] * b[1] - a[1] * b[0], a @ b
+    if (u[h] == v[e] and v[h] == u[e]) or (abs(cross) < 1e-9 and dot < 0):
+        return GRID_TURNS.uturn_s
+    if abs(cross) < 1e-9:
+        return GRID_TURNS.straight_s
+    return GRID_TURNS.left_s if cross > 0 else GRID_TURNS.right_s
+
+
+def reference_turn_times(net, pts, source_index, target_index, limit_s=np.inf) -> np.ndarray:
+    """Per pair, the shortest time (s) on a networkx line graph (Caldwell 1961; Winter 2002): vertex ("e", h) is
+    "on edge h at its start, the turn onto it paid", ("a", n) "arrived at node n"; ("e", e) -> ("e", h) weighs
+    ``travel_s[e]`` plus the turn's cost, ("e", e) -> ("a", v[e]) weighs ``travel_s[e]``. A source at junction n
+    starts free (no turn) onto every edge leaving n; one part-way along e drives the rest of e, then turns; a
+    target at junction n is ("a", n); one part-way along e is ``frac`` of the run after ("e", e)."""
+    xy = net.xy
+    u, v = net.u, net.v
+    travel = net.travel_s
+    delay = net.edges["delay_s"].to_numpy()
+    run = travel - delay
+    open_ = np.isfinite(travel)
+    g = nx.DiGraph()
+
+    def arc(a, b, w):
+        if not g.has_edge(a, b) or g[a][b]["w"] > w:
+            g.add_edge(a, b, w=w)
+
+    out_of = {n: [h for h in range(net.n_edges) if u[h] == n and open_[h]] for n in range(net.n_nodes)}
+    for e in np.flatnonzero(open_):
+        arc(("e", e), ("a", int(v[e])), travel[e])
+        for h in out_of[int(v[e])]:
+            arc(("e", e), ("e", h), travel[e] + _grid_turn_s(xy, u, v, e, h))
+
+    def entries(i):
+        m = pts.entry_point == i
+        return list(zip(pts.entry_edge[m].tolist(), pts.entry_frac[m].tolist(), strict=True))
+
+    for i in np.unique(source_index):
+        g.add_node(("s", i))
+        for e, f in entries(i):
+            if f <= 0.0 or f >= 1.0:
+                n = int(u[e] if f <= 0.0 else v[e])
+                arc(("s", i), ("a", n), 0.0)
+                for h in out_of[n]:
+                    arc(("s", i), ("e", h), 0.0)
+            elif open_[e]:
+                rest = (1.0 - f) * run[e] + delay[e]
+                arc(("s", i), ("a", int(v[e])), rest)
+                for h in out_of[int(v[e])]:
+                    arc(("s", i), ("e", h), rest + _grid_turn_s(xy, u, v, e, h))
+            for j in np.unique(target_index):
+                for e2, f2 in entries(j):
+                    if e2 == e and open_[e] and 0.0 < f <= f2 < 1.0:
+                        arc(("s", i), ("t", j), (f2 - f) * run[e])
+    for j in np.unique(target_index):
+        for e, f in entries(j):
+            if f <= 0.0 or f >= 1.0:
+                arc(("a", int(u[e] if f <= 0.0 else v[e])), ("t", j), 0.0)
+            elif open_[e]:
+                arc(("e", e), ("t", j), f * run[e])
+    out = np.full(len(source_index), np.inf)
+    dist = {i: nx.single_source_dijkstra_path_length(g, ("s", i), weight="w") for i in np.unique(source_index)}
+    for k, (i, j) in enumerate(zip(source_index, target_index, strict=True)):
+        t = dist[i].get(("t", j), np.inf)
+        out[k] = t if t <= limit_s else np.inf
+    return out
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(grid_case())
+def test_turn_route_times_equal_a_networkx_line_graph_on_random_grids(case):
+    """Turn costs on random small grids: found exactly where the networkx line graph reaches within the bound, its
+    time, and the route's edges re-priced plus its turn costs give that time (turn costs a sum of the grid's)."""
+    net, pts_xy, si, ti, limit_s = case
+    net = with_turns(net, GRID_TURNS)
+    pts = snap_points(net, pts_xy, max_snap_m=50.0)
+    want = reference_turn_times(net, pts, si, ti, limit_s)
+    routes = shortest_routes(net, pts, pts, si, ti, limit_s=limit_s)
+    check_routes(net, routes, want)
+    f = routes.found
+    edges_s = routes.run_use @ run_s(net) + routes.delay_use @ net.edges["delay_s"].to_numpy()
+    np.testing.assert_allclose(edges_s[f] + routes.turn_s[f], routes.time_s[f], atol=TOL_S)
+    # every route's turn cost is a sum of 3, 10 and 30 s: a whole number of seconds
+    np.testing.assert_allclose(routes.turn_s[f], np.round(routes.turn_s[f]), atol=TOL_S)
