@@ -266,6 +266,13 @@ def test_route_times_equal_networkx_on_random_grids(case):
     want = reference_times(net, pts, pts, si, ti, limit_s)
     plain = shortest_routes(net, pts, pts, si, ti, limit_s=limit_s)
     check_routes(net, plain, want)
+    # the engine's point times agree with networkx too (stored exactly where reached)
+    table = point_times(net, pts, pts, min(limit_s, 1e9)).tocsr()
+    stored = np.array([t in table.indices[table.indptr[s] : table.indptr[s + 1]] for s, t in zip(si, ti, strict=True)])
+    np.testing.assert_array_equal(stored, np.isfinite(want))
+    if stored.any():
+        got = np.asarray(table[si[stored], ti[stored]]).ravel()
+        np.testing.assert_allclose(got, want[stored], rtol=0.0, atol=TOL_S)
     free = with_turns(net, TurnRules())
     with turn_graph_forced():
         turned = shortest_routes(free, pts, pts, si, ti, limit_s=limit_s)
