@@ -76,12 +76,7 @@ def reference_times(net, sources, targets, source_index, target_index, limit_s=n
                         w = (f2 - f) * run[e]
                         if not g.has_edge(("s", i), ("t", j)) or g[("s", i)][("t", j)][0]["travel_s"] > w:
                             g.add_edge(("s", i), ("t", j), key=0, travel_s=w)
-    out = np.full(len(source_index), np.inf)
-    dist = {i: nx.single_source_dijkstra_path_length(g, ("s", i), weight="travel_s") for i in np.unique(source_index)}
-    for k, (i, j) in enumerate(zip(source_index, target_index, strict=True)):
-        t = dist[i].get(("t", j), np.inf)
-        out[k] = t if t <= limit_s else np.inf
-    return out
+    return _pair_times(g, source_index, target_index, limit_s, "travel_s")
 
 
 def check_routes(net, routes, want) -> None:
@@ -350,12 +345,7 @@ def reference_turn_times(net, pts, source_index, target_index, limit_s=np.inf) -
                 arc(("a", int(u[e] if f <= 0.0 else v[e])), ("t", j), 0.0)
             elif open_[e]:
                 arc(("e", e), ("t", j), f * run[e])
-    out = np.full(len(source_index), np.inf)
-    dist = {i: nx.single_source_dijkstra_path_length(g, ("s", i), weight="w") for i in np.unique(source_index)}
-    for k, (i, j) in enumerate(zip(source_index, target_index, strict=True)):
-        t = dist[i].get(("t", j), np.inf)
-        out[k] = t if t <= limit_s else np.inf
-    return out
+    return _pair_times(g, source_index, target_index, limit_s, "w")
 
 
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -374,3 +364,13 @@ def test_turn_route_times_equal_a_networkx_line_graph_on_random_grids(case):
     np.testing.assert_allclose(edges_s[f] + routes.turn_s[f], routes.time_s[f], atol=TOL_S)
     # every route's turn cost is a sum of 3, 10 and 30 s: a whole number of seconds
     np.testing.assert_allclose(routes.turn_s[f], np.round(routes.turn_s[f]), atol=TOL_S)
+
+
+def _pair_times(g, source_index, target_index, limit_s: float, weight: str) -> np.ndarray:
+    """networkx's shortest time from node ``("s", i)`` to ``("t", j)`` of each pair, inf beyond ``limit_s``."""
+    out = np.full(len(source_index), np.inf)
+    dist = {i: nx.single_source_dijkstra_path_length(g, ("s", i), weight=weight) for i in np.unique(source_index)}
+    for k, (i, j) in enumerate(zip(source_index, target_index, strict=True)):
+        t = dist[i].get(("t", j), np.inf)
+        out[k] = t if t <= limit_s else np.inf
+    return out
