@@ -126,7 +126,8 @@ proc = subprocess.run(sys.argv[1:], capture_output=True, text=True)
 wall = time.perf_counter() - t0
 if proc.returncode:
     sys.exit(proc.stderr[-2000:])
-print(json.dumps({"wall_s": wall, "peak_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024,
+use = resource.getrusage(resource.RUSAGE_CHILDREN)
+print(json.dumps({"wall_s": wall, "cpu_s": use.ru_utime + use.ru_stime, "peak_mb": use.ru_maxrss / 1024,
                   "stderr": proc.stderr[-3000:]}))
 """
 
@@ -170,7 +171,9 @@ def _baseline_tree(ref: str, where: Path) -> Path:
 
 
 def _run_cli(code: Path, argv: list[str]) -> dict:
-    """``python -m coverkit ARGV`` with ``code`` first on the path, in a wrapper reporting wall time and peak RSS."""
+    """``python -m coverkit ARGV`` with ``code`` first on the path, in a wrapper reporting wall time, CPU time (user +
+    system, all threads; less sensitive than the wall time to other jobs on a shared machine), peak RSS and the
+    end of stderr."""
     env = dict(os.environ, PYTHONPATH=str(code))
     cmd = [sys.executable, "-c", BUILD_CHILD, sys.executable, "-m", "coverkit", *argv]
     proc = subprocess.run(cmd, capture_output=True, text=True, env=env, cwd=str(code))
@@ -263,11 +266,11 @@ def case_isochrones_cli(args: argparse.Namespace) -> None:
     codes = {"old": _baseline_tree(args.baseline_ref, CACHE), "new": REPO}
     with tempfile.TemporaryDirectory(dir=CACHE) as tmp:
         for label, code in codes.items():  # not timed: a fresh tree compiles the numba kernels into its cache
-            _run_timed(code, [*argv, "--out", str(Path(tmp) / f"{label}-warm.gpkg")])
+            _run_cli(code, [*argv, "--out", str(Path(tmp) / f"{label}-warm.gpkg")])
         runs: dict[str, dict] = {}
         for k in range(3):  # best of three, old and new taking turns: the machine is shared and its load drifts
             for label, code in codes.items():
-                r = _run_timed(code, [*argv, "--out", str(Path(tmp) / f"{label}{k}.gpkg")])
+                r = _run_cli(code, [*argv, "--out", str(Path(tmp) / f"{label}{k}.gpkg")])
                 runs[label] = r if label not in runs or r["wall_s"] < runs[label]["wall_s"] else runs[label]
         for label, best in runs.items():
             print(f"{label}: {best['wall_s']:.2f} s (CPU {best['cpu_s']:.2f} s), peak {best['peak_mb']:.0f} MB")
@@ -299,18 +302,6 @@ def case_isochrones_cli(args: argparse.Namespace) -> None:
         print("steps of one run, best of three (wall s / CPU s):")
         for step, values in floor.items():
             print(f"  {step:<58}{min(v[0] for v in values):6.2f} /{min(v[1] for v in values):5.2f}")
-
-
-TIMED_CHILD = """
-import resource, subprocess, sys, time, json
-t0 = time.perf_counter()
-proc = subprocess.run(sys.argv[1:], capture_output=True, text=True)
-wall = time.perf_counter() - t0
-if proc.returncode:
-    sys.exit(proc.stderr[-2000:])
-use = resource.getrusage(resource.RUSAGE_CHILDREN)
-print(json.dumps({"wall_s": wall, "cpu_s": use.ru_utime + use.ru_stime, "peak_mb": use.ru_maxrss / 1024}))
-"""
 
 
 FLOOR_CHILD = """
@@ -348,17 +339,6 @@ lap("table and GeoPackage")
 print(json.dumps(steps))
 gc.freeze()
 """
-
-
-def _run_timed(code: Path, argv: list[str]) -> dict:
-    """``python -m coverkit ARGV`` with ``code`` first on the path: wall time, CPU time (user + system, all threads;
-    less sensitive than the wall time to other jobs on a shared machine) and peak RSS."""
-    env = dict(os.environ, PYTHONPATH=str(code))
-    cmd = [sys.executable, "-c", TIMED_CHILD, sys.executable, "-m", "coverkit", *argv]
-    proc = subprocess.run(cmd, capture_output=True, text=True, env=env, cwd=str(code))
-    if proc.returncode:
-        raise SystemExit(f"{code}: {proc.stderr[-2000:]}")
-    return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
 CASES = {

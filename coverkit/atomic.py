@@ -10,14 +10,31 @@ import contextlib
 import math
 import os
 import tempfile
-import threading
 from collections.abc import Iterator
 from pathlib import Path
 
+from coverkit.process_setting import NestedSetting
+
 #: GDAL setting of the SQLite ``synchronous`` pragma of the GeoPackage driver (see :func:`unsynced_gpkg`).
 _SQLITE_SYNC_OPTION = "OGR_SQLITE_SYNCHRONOUS"
-#: Writers inside :func:`unsynced_gpkg` (threads of a server may write at once) and the setting found before them.
-_UNSYNCED = {"lock": threading.Lock(), "depth": 0, "before": None}
+
+
+def _sync_off() -> object:
+    import pyogrio
+
+    before = pyogrio.get_gdal_config_option(_SQLITE_SYNC_OPTION)
+    pyogrio.set_gdal_config_options({_SQLITE_SYNC_OPTION: "OFF"})
+    return before
+
+
+def _sync_back(before: object) -> None:
+    import pyogrio
+
+    pyogrio.set_gdal_config_options({_SQLITE_SYNC_OPTION: before})
+
+
+#: Writers inside :func:`unsynced_gpkg` (threads of a server may write at once) share one change of the setting.
+_UNSYNCED = NestedSetting(_sync_off, _sync_back)
 
 
 @contextlib.contextmanager
@@ -67,20 +84,8 @@ def unsynced_gpkg() -> Iterator[None]:
     >>> pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS") == before
     True
     """
-    import pyogrio
-
-    with _UNSYNCED["lock"]:
-        if _UNSYNCED["depth"] == 0:
-            _UNSYNCED["before"] = pyogrio.get_gdal_config_option(_SQLITE_SYNC_OPTION)
-            pyogrio.set_gdal_config_options({_SQLITE_SYNC_OPTION: "OFF"})
-        _UNSYNCED["depth"] += 1
-    try:
+    with _UNSYNCED.held():
         yield
-    finally:
-        with _UNSYNCED["lock"]:
-            _UNSYNCED["depth"] -= 1
-            if _UNSYNCED["depth"] == 0:
-                pyogrio.set_gdal_config_options({_SQLITE_SYNC_OPTION: _UNSYNCED["before"]})
 
 
 def write_text_atomic(target: str | os.PathLike[str], text: str) -> Path:

@@ -195,28 +195,20 @@ def test_polygon_demand_total_equals_field_sum(demo_net):
     )
 
 
+def _cover_argv(net_path, demand, out, *extra: str) -> list[str]:
+    """``coverkit cover`` on the demo stations at 8 min, quiet, with ``extra`` options."""
+    return [
+        "cover", str(net_path), "--bases", str(DEMO / "stations.csv"), "--demand", str(demand),
+        "--minutes", "8", "--out", str(out), "--quiet", *extra,
+    ]  # fmt: skip
+
+
 def _cover_calls(net_path, out) -> str:
     """``coverkit cover`` on the priority 1-2 incidents at 8 min with 60 s turnout; what it printed."""
     printed = io.StringIO()
     with contextlib.redirect_stdout(printed):
         code = main(
-            [
-                "cover",
-                str(net_path),
-                "--bases",
-                str(DEMO / "stations.csv"),
-                "--demand",
-                str(DEMO / "incidents.csv"),
-                "--where",
-                "priority in (1, 2)",
-                "--minutes",
-                "8",
-                "--turnout-s",
-                "60",
-                "--out",
-                str(out),
-                "--quiet",
-            ]
+            _cover_argv(net_path, DEMO / "incidents.csv", out, "--where", "priority in (1, 2)", "--turnout-s", "60")
         )
     assert code == 0
     return printed.getvalue()
@@ -304,22 +296,7 @@ def test_cover_bad_input(demo_net, tmp_path, capsys, make, needle):
         path = DEMO / "incidents.csv"
         extra = ["--where", "priority > 7"]
     out = tmp_path / "x.gpkg"
-    code = main(
-        [
-            "cover",
-            str(net_path),
-            "--bases",
-            str(DEMO / "stations.csv"),
-            "--demand",
-            str(path),
-            "--minutes",
-            "8",
-            "--out",
-            str(out),
-            "--quiet",
-            *extra,
-        ]
-    )
+    code = main(_cover_argv(net_path, path, out, *extra))
     err = capsys.readouterr().err.strip()
     assert code == 2, err
     assert needle in err and len(err.splitlines()) == 1

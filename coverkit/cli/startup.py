@@ -12,11 +12,24 @@ from __future__ import annotations
 
 import contextlib
 import gc
-import threading
 from collections.abc import Iterator
 
+from coverkit.process_setting import NestedSetting
+
+
+def _pause() -> bool:
+    was = gc.isenabled()
+    gc.disable()
+    return was
+
+
+def _resume(was: object) -> None:
+    if was:
+        gc.enable()
+
+
 #: Nested or concurrent pauses (threads of a server importing at once): collection resumes when the last ends.
-_PAUSE = {"lock": threading.Lock(), "depth": 0, "was_enabled": True}
+_PAUSE = NestedSetting(_pause, _resume)
 
 
 @contextlib.contextmanager
@@ -31,18 +44,8 @@ def collections_paused() -> Iterator[None]:
     >>> gc.isenabled() == before
     True
     """
-    with _PAUSE["lock"]:
-        if _PAUSE["depth"] == 0:
-            _PAUSE["was_enabled"] = gc.isenabled()
-            gc.disable()
-        _PAUSE["depth"] += 1
-    try:
+    with _PAUSE.held():
         yield
-    finally:
-        with _PAUSE["lock"]:
-            _PAUSE["depth"] -= 1
-            if _PAUSE["depth"] == 0 and _PAUSE["was_enabled"]:
-                gc.enable()
 
 
 def freeze() -> None:

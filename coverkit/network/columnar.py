@@ -82,6 +82,12 @@ class Table:
     columns: dict[str, np.ndarray] = field(default_factory=dict)
     text: dict[str, list] = field(default_factory=dict)  # text column -> distinct values (codes index them)
 
+    def select(self, names: list[str]) -> Table:
+        """The columns ``names`` only, in that order (the arrays shared, not copied)."""
+        return Table(
+            self.length, {c: self.columns[c] for c in names}, {c: self.text[c] for c in names if c in self.text}
+        )
+
     def series(self, name: str, rows: slice | None = None) -> np.ndarray | pd.api.extensions.ExtensionArray:
         """The column ``name`` (its ``rows`` only, when given) as loaded from the GeoPackage would give it (text:
         pandas ``str``, NaN for null)."""
@@ -338,6 +344,18 @@ class NetworkArrays:
         if "name" in data:
             data["name"] = pd.array(pd.Series(data["name"]).fillna(""), dtype="str")
         return pd.DataFrame(data)
+
+    def layer_rows(self, which: str, columns: list[str], crs: object):
+        """The ``nodes`` or ``edges`` table with ``columns`` as :class:`~coverkit.gpkg_batches.LayerRows`, read a
+        batch of rows (and geometries) at a time from the arrays."""
+        from coverkit.gpkg_batches import LayerRows
+
+        if which == "nodes":
+            rows, geometry, kind = self.node_rows, self.node_points, "Point"
+        else:
+            rows, geometry, kind = self.edge_rows, self.edge_lines, "LineString"
+        table = self.nodes if which == "nodes" else self.edges
+        return LayerRows(table.length, lambda start, stop: rows(start, stop, columns), geometry, kind, crs)
 
     def node_points(self, start: int, stop: int) -> np.ndarray:
         """Shapely points of the nodes ``start:stop``."""

@@ -541,42 +541,23 @@ def _save_sources(net: RoadNetwork) -> tuple:
     A network still held as its columnar layout (just built, or loaded and not changed) is written from its arrays,
     a batch of geometries at a time; otherwise from its tables.
     """
-    from coverkit.gpkg_batches import LayerRows, frame_rows
-    from coverkit.network.columnar import Table
+    from coverkit.gpkg_batches import frame_rows
 
     store = net.__dict__.get("_store")
     if store is None or net._overrides or "nodes" in net.__dict__ or "edges" in net.__dict__:
         nodes = net.nodes[[*NODE_COLUMNS, "geometry"]]
         edges = net.edges[[*EDGE_COLUMNS, "geometry"]]
         return frame_rows(nodes), frame_rows(edges), _copy_parts(nodes, edges, net)
-
-    def table(of: Table, names: list[str]) -> Table:
-        return Table(of.length, {c: of.columns[c] for c in names}, {c: of.text[c] for c in names if c in of.text})
-
-    node_rows = LayerRows(
-        store.nodes.length,
-        lambda start, stop: store.node_rows(start, stop, NODE_COLUMNS),
-        store.node_points,
-        "Point",
-        net.crs,
-    )
-    edge_rows = LayerRows(
-        store.edges.length,
-        lambda start, stop: store.edge_rows(start, stop, EDGE_COLUMNS),
-        store.edge_lines,
-        "LineString",
-        net.crs,
-    )
     copy = store.copy
-    edge_geo = {k: copy.array(f"edges.geometry_{k}") for k in ("coords", "offsets")}
     parts = (
-        table(store.nodes, NODE_COLUMNS),
+        store.nodes.select(NODE_COLUMNS),
         np.asarray(copy.array("nodes.geometry_xy")),
-        table(store.edges, EDGE_COLUMNS),
-        edge_geo,
+        store.edges.select(EDGE_COLUMNS),
+        {k: copy.array(f"edges.geometry_{k}") for k in ("coords", "offsets")},
         _copy_meta(net),
     )
-    return node_rows, edge_rows, parts
+    nodes = store.layer_rows("nodes", NODE_COLUMNS, net.crs)
+    return nodes, store.layer_rows("edges", EDGE_COLUMNS, net.crs), parts
 
 
 def _write_gpkg(tmp: Path, nodes, edges, info_df: pd.DataFrame, bans: pd.DataFrame | None) -> None:
